@@ -1,0 +1,69 @@
+"""Options and helpers shared by several commands (registry home, JSON output, progress)."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import sys
+import tempfile
+from pathlib import Path
+from typing import Any
+
+
+def add_home_option(parser: argparse.ArgumentParser) -> None:
+    """Add ``--home DIR``: the registry home (default ``$ERGODEX_HOME``, else ``./models``)."""
+    parser.add_argument(
+        "--home",
+        metavar="DIR",
+        default=None,
+        help="registry home (default: $ERGODEX_HOME, else ./models under the current folder)",
+    )
+
+
+def add_log_level_option(parser: argparse.ArgumentParser) -> None:
+    """Add ``--log-level`` (standard ``logging`` level names)."""
+    parser.add_argument(
+        "--log-level",
+        default="WARNING",
+        choices=["DEBUG", "INFO", "WARNING", "ERROR"],
+        help="logging level for progress lines on stderr (default: WARNING)",
+    )
+
+
+def resolve_home(home: str | os.PathLike[str] | None) -> Path:
+    """The registry home: the argument, else ``$ERGODEX_HOME``, else ``./models``."""
+    if home:
+        return Path(home)
+    env = os.environ.get("ERGODEX_HOME")
+    if env:
+        return Path(env)
+    return Path.cwd() / "models"
+
+
+def registry_from_args(args: argparse.Namespace):
+    """Open the registry named by ``--home`` / ``ERGODEX_HOME`` (imported lazily: SQLite only)."""
+    from ergodex.registry import Registry
+
+    return Registry(resolve_home(getattr(args, "home", None)))
+
+
+def write_json_atomic(path: str | os.PathLike[str], payload: dict[str, Any]) -> Path:
+    """Write ``payload`` as indented JSON through a temporary file in the target folder."""
+    target = Path(path)
+    target.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as handle:
+            json.dump(payload, handle, indent=2, sort_keys=False)
+            handle.write("\n")
+        os.replace(tmp, target)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return target
+
+
+def is_terminal() -> bool:
+    """Progress bars only on an interactive terminal, never in scripts or CI logs."""
+    return sys.stderr.isatty() and not os.environ.get("CI")
