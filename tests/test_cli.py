@@ -1,0 +1,46 @@
+"""The command line as a whole: every command is wired in, usage errors exit 2 on one line."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import pytest
+
+from ergodex.cli import COMMAND_MODULES, build_parser, main
+
+
+def test_every_command_module_is_wired_in():
+    parser = build_parser()
+    subparsers = next(a for a in parser._actions if a.dest == "command")
+    # Each module contributes its command under its own name (DESIGN.md command line contract).
+    assert set(COMMAND_MODULES) <= set(subparsers.choices)
+
+
+def test_no_command_prints_help_and_exits_2(capsys):
+    assert main([]) == 2
+    assert "usage" in capsys.readouterr().err
+
+
+def test_unknown_command_is_a_usage_error_with_exit_2():
+    with pytest.raises(SystemExit) as info:
+        main(["no-such-command"])
+    assert info.value.code == 2
+
+
+def test_console_script_error_is_one_line_without_traceback(tmp_path):
+    bad = tmp_path / "broken.csv"
+    bad.write_text("time,flow,dT_across,dT_up\n0.0,1,2,3\n0.01,1,nan,3\n0.02,1,2,4\n")
+    proc = subprocess.run(
+        [sys.executable, "-c", "import sys; from ergodex.cli import main; sys.exit(main())",
+         "fit", str(bad), "--out", str(tmp_path / "model.json")],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+    assert proc.returncode == 2
+    lines = proc.stderr.strip().splitlines()
+    assert len(lines) == 1, proc.stderr
+    assert "Traceback" not in proc.stderr
+    assert "broken.csv" in lines[0] and "dT_across" in lines[0]
+    assert not (tmp_path / "model.json").exists()
