@@ -87,7 +87,7 @@ def check_name(name: Any, *, what: str = "variable name", source: str = "") -> s
             f"{where}{what} {name!r} contains the character {bad[0]!r}; names may not contain "
             f"control characters or any of , \" / \\ (rename the variable)"
         )
-    if name in RESERVED_NAMES:
+    if name.lower() in RESERVED_NAMES:
         raise DataError(
             f"{where}{what} {name!r} is reserved (the columns 'time' and 'run' have a meaning of "
             "their own in CSV files); rename the variable"
@@ -371,15 +371,20 @@ def _validate(runs, names, dt, units, labels, source):
             )
         if run.shape[0] == 0:
             raise DataError(f"{where}run {i}: has no samples")
-        arr = np.array(run, dtype=np.float64, order="C", copy=True)
+        if run.dtype == np.float64 and run.flags.c_contiguous and not run.flags.writeable:
+            arr = run  # already frozen by an earlier validation (select_runs, cut_blocks)
+        else:
+            arr = np.array(run, dtype=np.float64, order="C", copy=True)
         finite = np.isfinite(arr)
         if not finite.all():
             r, c = np.argwhere(~finite)[0]
             raise DataError(
-                f"{where}run {i}, row {r + 1}, column {names[c]!r}: value {arr[r, c]!r} is not "
-                "finite; remove it, or read with split_at_gaps=True to split the run there"
+                f"{where}run {i}, row {r + 1}, column {names[c]!r}: value "
+                f"{float(arr[r, c])!r} is not finite; remove it, or read with "
+                "split_at_gaps=True to split the run there"
             )
-        arr.setflags(write=False)
+        if arr.flags.writeable:
+            arr.setflags(write=False)
         frozen.append(arr)
 
     # A variable that never changes carries no dynamics and makes standardisation divide by 0.
@@ -389,7 +394,7 @@ def _validate(runs, names, dt, units, labels, source):
     if const.size:
         c = int(const[0])
         raise DataError(
-            f"{where}column {names[c]!r}: every value is {lo[c]!r} (a constant variable); "
+            f"{where}column {names[c]!r}: every value is {float(lo[c])!r} (a constant variable); "
             "drop the column"
         )
 

@@ -1,0 +1,115 @@
+"""``ergodex report NAME[@VERSION]``: (re)write the validation report of a registered version.
+
+The page is rebuilt from what the registry stored for that version — ``model.json``,
+``scorecard.json``, ``evidence.npz`` and, when present, the fit settings — each checked against
+its recorded hash. Versions are immutable, so the report is written to ``--out`` (default: the
+current folder), never into the version folder.
+"""
+
+from __future__ import annotations
+
+import argparse
+import io
+import json
+from pathlib import Path
+from typing import Any
+
+from ergodex.cli.common import add_home_option, registry_from_args
+from ergodex.exceptions import ErgodexError, ModelFileError, RegistryError
+
+
+def add_parser(subparsers: Any) -> argparse.ArgumentParser:
+    """Add the ``report`` subcommand."""
+    parser = subparsers.add_parser(
+        "report",
+        help="(re)write the HTML validation report of a registered version",
+        description=(
+            "Rebuild the self-contained HTML validation report of a registered version from its "
+            "stored model, scorecard and evidence (all hash-checked). Versions are immutable, so "
+            "the report is written to --out (default: the current folder), never into the "
+            "version folder. Caution: a passed statistical check is not a certification; defer "
+            "to the applicable codes, standards and licensed practice."
+        ),
+    )
+    parser.add_argument(
+        "ref",
+        metavar="NAME[@VERSION]",
+        help="the version to report on; NAME alone means the newest accepted version",
+    )
+    parser.add_argument(
+        "--out",
+        metavar="FILE",
+        default=None,
+        help=(
+            "where to write the report: an .html file, or an existing folder to write "
+            "NAME-vVERSION-report.html into (default: that file in the current folder)"
+        ),
+    )
+    parser.add_argument(
+        "--title", default=None, help="page title (default: 'NAME@VERSION: validation report')"
+    )
+    add_home_option(parser)
+    parser.set_defaults(func=run)
+    return parser
+
+
+def _output_path(out: str | None, name: str, version: int) -> Path:
+    default_name = f"{name}-v{version}-report.html"
+    if out is None:
+        return Path.cwd() / default_name
+    path = Path(out)
+    if path.is_dir():
+        return path / default_name
+    if not path.parent.exists():
+        raise ErgodexError(
+            f"--out {out}: folder {path.parent} does not exist; create it or choose another path"
+        )
+    return path
+
+
+def load_check_result(registry: Any, ref: str):
+    """The stored check of a registered version as ``(info, CheckResult, surrogate, fit settings)``.
+
+    Evidence is optional (older versions, or a scorecard registered on its own): without it the
+    result carries ``evidence=None`` and the report shows the scorecard without figures.
+    """
+    from ergodex.validation import CheckResult, Evidence, Scorecard
+
+    info = registry.get(ref)
+    surrogate = registry.load(info.ref)
+    if "scorecard.json" not in info.artifacts:
+        raise RegistryError(
+            f"{info.ref} has no scorecard.json, so there is no check to report on; run "
+            "'ergodex validate' on the model and register the result as a new version"
+        )
+    card_text = registry.artifact(info, "scorecard.json").decode("utf-8")
+    scorecard = Scorecard.from_json(card_text)
+    evidence = None
+    if "evidence.npz" in info.artifacts:
+        data = registry.artifact(info, "evidence.npz")
+        evidence = Evidence.from_npz(io.BytesIO(data))
+    fit_settings = None
+    if "fit-settings.json" in info.artifacts:
+        try:
+            fit_settings = json.loads(registry.artifact(info, "fit-settings.json").decode("utf-8"))
+        except ValueError as exc:
+            raise ModelFileError(f"{info.ref}: fit-settings.json is not valid JSON: {exc}") from exc
+    return info, CheckResult(scorecard=scorecard, evidence=evidence), surrogate, fit_settings
+
+
+def run(args: argparse.Namespace) -> int:
+    """Write the report; print its path. Exit 0, or 2 (via ErgodexError) on bad input."""
+    from ergodex.report import write_report
+
+    registry = registry_from_args(args)
+    info, result, surrogate, fit_settings = load_check_result(registry, args.ref)
+    target = _output_path(args.out, info.name, info.version)
+    title = args.title or f"{info.ref}: validation report"
+    summary = {"registered": info.created, "status": info.status}
+    if info.note:
+        summary["note"] = info.note
+    if isinstance(fit_settings, dict):
+        summary.update(fit_settings)
+    write_report(target, result, surrogate, title=title, fit_summary=summary)
+    print(target)
+    return 0

@@ -1,0 +1,306 @@
+"""The extension point every fitter implements, the name → class table, and fit-settings files.
+
+A fitter turns a :class:`~ergodex.series.Series` into a :class:`~ergodex.surrogate.Surrogate`. The
+shape follows scikit-learn: the constructor only stores settings, ``fit`` checks them against the
+class's table of allowed values, learns, stores what it learned in attributes ending in ``_`` and
+returns ``self``.
+"""
+
+from __future__ import annotations
+
+import importlib
+import inspect
+import os
+import tomllib
+from collections.abc import Mapping
+from typing import Any, ClassVar, Iterator
+
+import numpy as np
+
+from ergodex.exceptions import DataError, NotFittedError, SettingsError
+from ergodex.fitting.settings import Rule, check_settings
+
+__all__ = [
+    "Fitter",
+    "FITTERS",
+    "make_fitter",
+    "fitter_class",
+    "check_fit_settings",
+    "load_fit_settings",
+    "parse_fit_settings",
+]
+
+
+class Fitter:
+    """Base class of every fitter.
+
+    An implementer provides:
+
+    1. ``method``: a class attribute, the name under which :data:`FITTERS` lists the class
+       (``"sparse"``); it is also recorded in the surrogate's settings.
+    2. ``settings_table``: a class attribute mapping each constructor argument to a
+       :class:`~ergodex.fitting.settings.Rule`. The constructor takes exactly these arguments,
+       keyword-only, and only stores them under the same names (no checks, no conversion), so
+       that :meth:`get_params` can read them back.
+    3. ``_fit(self, series)``: the learning itself, called by :meth:`fit` after the settings and
+       the series passed their checks. It must set ``surrogate_`` (a
+       :class:`~ergodex.surrogate.Surrogate`) and ``score_`` (a float: the tendency fit's R², or
+       the method's own goodness of fit), may set further diagnostics in attributes ending in
+       ``_``, must not change any setting, and raises :class:`~ergodex.exceptions.DataError`
+       (with the fix in the message) when the data cannot support the fit.
+    4. Optionally ``_check_consistency(self)``: checks that involve several settings at once,
+       raising :class:`~ergodex.exceptions.SettingsError`.
+    5. A numpydoc docstring with a References section naming the published method.
+
+    Reading a learned attribute (a name ending in ``_``) before ``fit`` raises
+    :class:`~ergodex.exceptions.NotFittedError`.
+    """
+
+    method: ClassVar[str] = ""
+    settings_table: ClassVar[dict[str, Rule]] = {}
+
+    # -- settings ---------------------------------------------------------------------------
+    @classmethod
+    def _param_names(cls) -> list[str]:
+        signature = inspect.signature(cls.__init__)
+        return [
+            name
+            for name, p in signature.parameters.items()
+            if name != "self" and p.kind in (p.KEYWORD_ONLY, p.POSITIONAL_OR_KEYWORD)
+        ]
+
+    def get_params(self) -> dict[str, Any]:
+        """Return the settings as a new dict (constructor argument name → value)."""
+        return {name: _copy_value(getattr(self, name)) for name in self._param_names()}
+
+    def set_params(self, **settings: Any) -> "Fitter":
+        """Change settings (checked at once against the table) and return ``self``."""
+        check_settings(self.method, settings, self.settings_table)
+        for name, value in settings.items():
+            setattr(self, name, value)
+        return self
+
+    def check_params(self) -> None:
+        """Check every setting against the class's table; raise :class:`SettingsError` if one is bad."""
+        check_settings(self.method, self.get_params(), self.settings_table)
+        self._check_consistency()
+
+    def _check_consistency(self) -> None:
+        """Checks that involve several settings at once (overridden where needed)."""
+
+    # -- fitting ----------------------------------------------------------------------------
+    def fit(self, series) -> "Fitter":
+        """Learn a surrogate from every run of ``series`` and return ``self``.
+
+        Parameters
+        ----------
+        series : ergodex.series.Series
+            One or more runs of the same variables, sampled every ``series.dt``.
+
+        Returns
+        -------
+        self
+        """
+        self.check_params()
+        check_series(series)
+        before = self.get_params()
+        self._fit(series)
+        # fit must leave every setting as it found it (scikit-learn's rule; a sweep relies on it)
+        assert _same_params(before, self.get_params()), f"{type(self).__name__}._fit changed a setting"
+        return self
+
+    def _fit(self, series) -> None:  # pragma: no cover - the abstract hook
+        raise NotImplementedError
+
+    @property
+    def is_fitted(self) -> bool:
+        """Whether :meth:`fit` has completed."""
+        return "surrogate_" in self.__dict__
+
+    def __getattr__(self, name: str) -> Any:
+        # Only called when normal lookup failed: a learned attribute asked for too early.
+        if name.endswith("_") and not name.startswith("__"):
+            raise NotFittedError(
+                f"{type(self).__name__}.{name} is not available before fit(); call fit(series) first"
+            )
+        raise AttributeError(f"{type(self).__name__!r} object has no attribute {name!r}")
+
+    def __repr__(self) -> str:
+        params = ", ".join(f"{k}={v!r}" for k, v in self.get_params().items())
+        return f"{type(self).__name__}({params})"
+
+
+def _copy_value(value: Any) -> Any:
+    if isinstance(value, list):
+        return list(value)
+    if isinstance(value, dict):
+        return dict(value)
+    return value
+
+
+def _same_params(a: dict[str, Any], b: dict[str, Any]) -> bool:
+    if a.keys() != b.keys():
+        return False
+    for key in a:
+        x, y = a[key], b[key]
+        if isinstance(x, np.ndarray) or isinstance(y, np.ndarray):
+            if not np.array_equal(np.asarray(x), np.asarray(y)):
+                return False
+        elif x != y:
+            return False
+    return True
+
+
+def check_series(series) -> None:
+    """Check that ``series`` looks like a :class:`~ergodex.series.Series` a fitter can use.
+
+    Raises
+    ------
+    DataError
+        When it is not a Series, or a variable is constant over every run (a constant column
+        makes the term library rank-deficient: drop the variable or add the runs in which it moves).
+    """
+    for attribute in ("runs", "names", "dt"):
+        if not hasattr(series, attribute):
+            raise DataError(
+                f"fitters take an ergodex.series.Series; got {type(series).__name__} "
+                f"(build one with Series.from_arrays(runs, names, dt))"
+            )
+    stacked = np.concatenate([np.asarray(r, dtype=float) for r in series.runs], axis=0)
+    if not np.all(np.isfinite(stacked)):
+        raise DataError(f"{_source(series)}: the data hold non-finite values; clean or split the runs first")
+    spread = np.ptp(stacked, axis=0)
+    scale = np.maximum(np.abs(stacked).max(axis=0), 1.0)
+    for j, name in enumerate(series.names):
+        if spread[j] <= 1e-12 * scale[j]:
+            raise DataError(
+                f"{_source(series)}: variable '{name}' is constant ({stacked[0, j]:g}) over every run; "
+                f"it cannot be fitted: drop it from the data"
+            )
+
+
+def _source(series) -> str:
+    source = getattr(series, "source", "") or ""
+    return source if source else "the data"
+
+
+# -- the name → class table ------------------------------------------------------------------
+class _FitterTable(Mapping):
+    """Method name → fitter class, imported on first use (pysindy and friends load lazily)."""
+
+    _where: ClassVar[dict[str, tuple[str, str]]] = {
+        "sparse": ("ergodex.fitting.sparse", "SparseODE"),
+        "linear-inverse": ("ergodex.fitting.linear_inverse", "LinearInverseModel"),
+        "quadratic-noise": ("ergodex.fitting.closure", "QuadraticNoiseModel"),
+    }
+
+    def __getitem__(self, name: str) -> type[Fitter]:
+        module, attribute = self._where[name]
+        return getattr(importlib.import_module(module), attribute)
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._where)
+
+    def __len__(self) -> int:
+        return len(self._where)
+
+    def __repr__(self) -> str:
+        return f"FITTERS({', '.join(self._where)})"
+
+
+FITTERS: Mapping[str, type[Fitter]] = _FitterTable()
+"""Method name → fitter class: ``"sparse"``, ``"linear-inverse"``, ``"quadratic-noise"``."""
+
+
+def fitter_class(method: str | type[Fitter]) -> type[Fitter]:
+    """Return the fitter class for a method name (or the class itself, passed through)."""
+    if isinstance(method, type) and issubclass(method, Fitter):
+        return method
+    if not isinstance(method, str) or method not in FITTERS:
+        raise SettingsError(f"unknown fit method {method!r}; allowed methods: {', '.join(FITTERS)}")
+    return FITTERS[method]
+
+
+def check_fit_settings(method: str | type[Fitter], settings: Mapping[str, Any]) -> None:
+    """Check a method name and its settings without building anything; raise :class:`SettingsError`."""
+    cls = fitter_class(method)
+    if not isinstance(settings, Mapping):
+        raise SettingsError(f"{cls.method} settings must be a table of key = value; got {type(settings).__name__}")
+    check_settings(cls.method, settings, cls.settings_table)
+
+
+def make_fitter(method: str | type[Fitter], settings: Mapping[str, Any] | None = None) -> Fitter:
+    """Build a fitter from a method name (or class) and a dict of settings.
+
+    Parameters
+    ----------
+    method : str or Fitter subclass
+        A key of :data:`FITTERS`.
+    settings : dict, optional
+        Constructor arguments; unknown keys and bad values raise :class:`SettingsError` naming
+        the key and listing what is allowed.
+    """
+    settings = dict(settings or {})
+    check_fit_settings(method, settings)
+    cls = fitter_class(method)
+    fitter = cls(**settings)
+    fitter.check_params()
+    return fitter
+
+
+# -- settings files --------------------------------------------------------------------------
+_TOP_LEVEL_KEYS = ("method", "settings", "select")
+
+
+def parse_fit_settings(document: Mapping[str, Any], *, source: str = "fit settings") -> tuple[str, dict]:
+    """Validate a parsed fit-settings document and return ``(method, settings)``.
+
+    The document holds ``method = "sparse"`` and a ``[settings]`` table; a ``[select]`` table is
+    left for :func:`ergodex.fitting.selection.load_selection` to read.
+    """
+    for key in document:
+        if key not in _TOP_LEVEL_KEYS:
+            raise SettingsError(
+                f"{source}: unknown key '{key}'; allowed top-level keys: {', '.join(_TOP_LEVEL_KEYS)}"
+            )
+    method = document.get("method", "sparse")
+    if not isinstance(method, str) or method not in FITTERS:
+        raise SettingsError(f"{source}: key 'method' must be one of {', '.join(FITTERS)}; got {method!r}")
+    settings = document.get("settings", {})
+    if not isinstance(settings, Mapping):
+        raise SettingsError(f"{source}: 'settings' must be a table ([settings]); got {type(settings).__name__}")
+    try:
+        check_fit_settings(method, settings)
+    except SettingsError as exc:
+        raise SettingsError(f"{source}: [settings] {exc}") from None
+    return method, dict(settings)
+
+
+def load_fit_settings(path: str | os.PathLike) -> tuple[str, dict]:
+    """Read fit settings from a TOML file and return ``(method, settings)``.
+
+    The file looks like::
+
+        method = "sparse"
+
+        [settings]
+        degree = 2
+        threshold = 0.1
+
+    Raises
+    ------
+    SettingsError
+        When the file cannot be read or parsed (the message gives the line), or a key or value is
+        not allowed (the message names the key and lists the allowed ones).
+    """
+    path = os.fspath(path)
+    try:
+        with open(path, "rb") as handle:
+            document = tomllib.load(handle)
+    except FileNotFoundError:
+        raise SettingsError(f"{path}: fit settings file not found") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise SettingsError(f"{path}: not valid TOML: {exc}") from None
+    except OSError as exc:
+        raise SettingsError(f"{path}: cannot read fit settings: {exc.strerror}") from None
+    return parse_fit_settings(document, source=path)

@@ -1,0 +1,595 @@
+"""Ensemble integration of a surrogate: many members advanced together, blow-ups recorded.
+
+:func:`integrate_ensemble` is the hot path of ergodex: validation, candidate sweeps and the
+``simulate`` command all integrate a surrogate for a long time from many initial states.
+
+- Deterministic surrogates: classical fourth-order Runge-Kutta (RK4) with ``k`` substeps between
+  outputs. The substep is chosen from the stiffness of the surrogate (largest spectral radius of
+  its Jacobian over sample states) unless given, and the choice is reported on the result.
+- Stochastic surrogates (additive white noise of covariance ``Q`` per unit time): Euler-Maruyama
+  or the stochastic Heun scheme, with increments ``sqrt(h) L xi`` where ``L L^T = Q`` (Cholesky
+  factor) and ``xi`` standard normal draws from a seeded ``numpy.random.Generator``. The seed is
+  recorded on the result.
+- A member whose state becomes non-finite or leaves ``bound`` is stopped: its later outputs are
+  NaN, and the result records which members, when, and the last accepted state. A blow-up is a
+  finding reported through ``status``, never an exception, never a silently shortened array.
+
+Two engines compute the same thing: ``"numba"`` (compiled, generic over the term table, see
+:mod:`ergodex.kernels`) and ``"numpy"`` (vectorised over members; the plain reference). The random
+draws are made here, in the same order for both, so a seeded run gives the same path in either.
+
+Memory grows with what is kept (members x outputs x kept variables), not with the number of steps.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from ergodex.exceptions import SettingsError
+from ergodex.surrogate import Surrogate
+
+__all__ = [
+    "METHODS",
+    "ENGINES",
+    "EnsembleResult",
+    "integrate_ensemble",
+    "choose_substep",
+    "blowup_bound",
+    "stability_limit",
+]
+
+#: Steppers: name -> (stochastic?, distance of the stability region boundary along the negative
+#: real axis, in units of h * spectral radius).
+METHODS = {
+    # Classical RK4: |R(z)| <= 1 for real z in [-2.785, 0] (Hairer & Wanner, Solving ODEs II,
+    # sec. IV.2, stability domain of explicit RK methods; value from memory).
+    "rk4": (False, 2.785),
+    # Euler-Maruyama's drift part is explicit Euler: |1 + z| <= 1, i.e. z in [-2, 0].
+    "euler-maruyama": (True, 2.0),
+    # Stochastic Heun's drift part is Heun's (explicit trapezoidal) method, real interval [-2, 0].
+    "heun": (True, 2.0),
+}
+ENGINES = ("auto", "numba", "numpy")
+
+#: Fraction of the stability limit used by :func:`choose_substep`. |h lambda| <= 0.7 keeps RK4's
+#: per-step amplification error below about (0.7)^5 / 120 ~ 1e-3 for the stiffest mode (the
+#: leading term of the RK4 local error; common practice, no source for the factor itself).
+SAFETY = 0.25
+
+_MAX_FLOAT = float(np.finfo(np.float64).max)
+
+
+@dataclass
+class EnsembleResult:
+    """Outputs and status of an ensemble run (all times on the output clock: 0 = end of spin-up).
+
+    Attributes
+    ----------
+    times : ndarray, shape (n_out,)
+        Output times ``0, dt_out, 2 dt_out, …``.
+    states : ndarray, shape (n_members, n_out, n_kept)
+        Model-space states of the kept variables; NaN from the first output after a blow-up.
+    blown_up : ndarray, shape (n_members,), bool
+    blowup_time : ndarray, shape (n_members,)
+        Time of the substep at which the member was stopped; NaN where none. Negative values
+        (between ``-spinup`` and 0) mean the member blew up during spin-up.
+    last_finite : ndarray, shape (n_members, n_variables)
+        Last accepted full state (the final state for members that did not blow up).
+    method : str
+        ``"rk4"``, ``"euler-maruyama"`` or ``"heun"``.
+    substep : float
+        Integration step actually used (``dt_out / substeps_per_output``).
+    substeps_per_output : int
+    seed : int or None
+        Seed of the generator that drew the noise (None for deterministic runs).
+    status : str
+        ``"ok"``, ``"blowup"`` (some members) or ``"all-blowup"``.
+    message : str
+        One line for people: what was run and what happened.
+    variables : tuple of str
+        Names of the kept variables (the last axis of ``states``).
+    spinup : float
+        Spin-up actually integrated (a whole number of substeps).
+    spectral_radius : float or None
+        Largest spectral radius of the Jacobian over the sample states when the substep was
+        chosen automatically.
+    engine : str
+        ``"numba"`` or ``"numpy"``.
+    """
+
+    times: np.ndarray
+    states: np.ndarray
+    blown_up: np.ndarray
+    blowup_time: np.ndarray
+    last_finite: np.ndarray
+    method: str
+    substep: float
+    substeps_per_output: int
+    seed: int | None
+    status: str
+    message: str
+    variables: tuple[str, ...] = ()
+    spinup: float = 0.0
+    spectral_radius: float | None = None
+    engine: str = "numpy"
+    bound: np.ndarray | None = field(default=None, repr=False)
+
+    @property
+    def n_members(self) -> int:
+        return int(self.states.shape[0])
+
+    @property
+    def n_blown_up(self) -> int:
+        """Number of members that were stopped."""
+        return int(np.count_nonzero(self.blown_up))
+
+    def valid(self, member: int) -> slice:
+        """Slice of the outputs of ``member`` that precede its blow-up (all outputs if none)."""
+        if not self.blown_up[member]:
+            return slice(0, len(self.times))
+        return slice(0, _first_output_after(self.times, self.blowup_time[member]))
+
+    def summary(self) -> dict[str, Any]:
+        """JSON-ready description of the run (no arrays of states)."""
+        return {
+            "status": self.status,
+            "message": self.message,
+            "method": self.method,
+            "engine": self.engine,
+            "substep": self.substep,
+            "substeps_per_output": self.substeps_per_output,
+            "spectral_radius": self.spectral_radius,
+            "spinup": self.spinup,
+            "seed": self.seed,
+            "members": self.n_members,
+            "outputs": len(self.times),
+            "blown_up": self.n_blown_up,
+            "blowup_members": [int(m) for m in np.flatnonzero(self.blown_up)],
+            "blowup_times": [float(t) for t in self.blowup_time[self.blown_up]],
+        }
+
+
+def _first_output_after(times: np.ndarray, t: float) -> int:
+    # Outputs at times strictly before the blow-up (with a little slack for rounding) are valid.
+    tol = 1e-9 * max(1.0, abs(float(times[-1])) if len(times) else 1.0)
+    return int(np.searchsorted(times, t - tol, side="left"))
+
+
+def stability_limit(method: str) -> float:
+    """Stability boundary of ``method`` along the negative real axis, in units of h * |lambda|."""
+    try:
+        return METHODS[method][1]
+    except KeyError:
+        raise SettingsError(f"method {method!r} is not one of {', '.join(METHODS)}") from None
+
+
+def _spectral_radius(surrogate: Surrogate, sample_states: Any, max_states: int = 256) -> float:
+    x = np.asarray(sample_states, dtype=np.float64)
+    if x.ndim == 1:
+        x = x[None, :]
+    if x.ndim != 2 or x.shape[1] != surrogate.n_variables:
+        raise SettingsError(
+            f"sample_states: shape {np.shape(sample_states)}, expected (M, {surrogate.n_variables})"
+        )
+    x = x[np.all(np.isfinite(x), axis=1)]
+    if len(x) == 0:
+        raise SettingsError("sample_states: no finite state to measure the stiffness at")
+    if len(x) > max_states:
+        # Evenly spaced picks: deterministic and spread over the whole sample.
+        x = x[np.linspace(0, len(x) - 1, max_states).astype(np.int64)]
+    with np.errstate(all="ignore"):
+        jac = surrogate.jacobian(x)
+    jac = jac[np.all(np.isfinite(jac), axis=(1, 2))]
+    if len(jac) == 0:
+        return 0.0
+    return float(np.max(np.abs(np.linalg.eigvals(jac))))
+
+
+def choose_substep(surrogate: Surrogate, sample_states: Any, dt_out: float, *,
+                   method: str = "rk4", safety: float = SAFETY) -> float:
+    """Largest substep that divides ``dt_out`` and keeps the scheme well inside its stability region.
+
+    The stiffness is measured as the largest spectral radius ``rho`` of the Jacobian over (up to
+    256 of) ``sample_states``; the substep is at most ``safety * limit / rho`` where ``limit`` is
+    the stability boundary of ``method`` on the negative real axis (2.785 for RK4), and
+    ``dt_out`` is an integer multiple of it.
+
+    Parameters
+    ----------
+    surrogate : Surrogate
+    sample_states : array_like, shape (M, n_variables)
+        Model-space states typical of the run (e.g. reference data or initial states).
+    dt_out : float
+        Output interval (> 0).
+    method : str, default "rk4"
+    safety : float, default 0.25
+
+    Returns
+    -------
+    float
+        ``dt_out / k`` for the smallest integer ``k >= 1`` that satisfies the bound.
+
+    References
+    ----------
+    .. [1] Hairer, E. & Wanner, G. (1996). Solving Ordinary Differential Equations II: Stiff and
+       Differential-Algebraic Problems, 2nd ed., Springer, sec. IV.2.
+    """
+    return _choose(surrogate, sample_states, dt_out, method, safety)[0]
+
+
+def _choose(surrogate, sample_states, dt_out, method, safety) -> tuple[float, int, float]:
+    dt_out = _positive(dt_out, "dt_out")
+    if not 0.0 < float(safety) <= 1.0:
+        raise SettingsError(f"safety must be in (0, 1], got {safety}")
+    rho = _spectral_radius(surrogate, sample_states)
+    limit = stability_limit(method)
+    if rho <= 0.0:
+        return dt_out, 1, rho
+    h_max = float(safety) * limit / rho
+    k = max(1, math.ceil(dt_out / h_max - 1e-9))
+    return dt_out / k, k, rho
+
+
+def blowup_bound(reference_states: Any, factor: float = 10.0) -> np.ndarray:
+    """Box outside which a member counts as blown up: the reference range widened ``factor`` times.
+
+    For each variable, with centre ``c = (max + min) / 2`` and half-range ``r = (max - min) / 2``
+    of the reference, the bound is ``[c - factor * r, c + factor * r]``. A variable with zero
+    range uses ``r = max(|c|, 1)``.
+
+    Parameters
+    ----------
+    reference_states : array_like, shape (n_samples, n_variables)
+        Reference states in model space (non-finite rows are ignored).
+    factor : float, default 10
+        How many half-ranges away from the centre a state may go (> 1 keeps the data inside).
+
+    Returns
+    -------
+    ndarray, shape (n_variables, 2)
+        Lower and upper bound per variable.
+    """
+    x = np.asarray(reference_states, dtype=np.float64)
+    if x.ndim != 2 or x.shape[0] == 0:
+        raise SettingsError(f"reference_states: expected (n_samples, n_variables), got shape {x.shape}")
+    factor = _positive(factor, "factor")
+    x = x[np.all(np.isfinite(x), axis=1)]
+    if len(x) == 0:
+        raise SettingsError("reference_states: no finite row")
+    lo, hi = x.min(axis=0), x.max(axis=0)
+    centre, half = (hi + lo) / 2.0, (hi - lo) / 2.0
+    half = np.where(half > 0.0, half, np.maximum(np.abs(centre), 1.0))
+    return np.column_stack([centre - factor * half, centre + factor * half])
+
+
+def _positive(value: Any, name: str) -> float:
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise SettingsError(f"{name} must be a positive number, got {value!r}") from None
+    if not (math.isfinite(v) and v > 0.0):
+        raise SettingsError(f"{name} must be a positive finite number, got {value!r}")
+    return v
+
+
+def _noise_factor(cov: np.ndarray) -> np.ndarray:
+    """``L`` with ``L L^T = cov``: Cholesky when positive definite, else from the eigendecomposition."""
+    try:
+        return np.linalg.cholesky(cov)
+    except np.linalg.LinAlgError:
+        # Semi-definite (e.g. noise on some variables only): a square root from eigenpairs.
+        w, v = np.linalg.eigh(cov)
+        return v * np.sqrt(np.clip(w, 0.0, None))
+
+
+def _resolve_keep(surrogate: Surrogate, keep: Sequence[int | str] | None) -> np.ndarray:
+    if keep is None:
+        return np.arange(surrogate.n_variables, dtype=np.int64)
+    if isinstance(keep, (str, int)):
+        keep = [keep]
+    out = []
+    for item in keep:
+        if isinstance(item, str):
+            if item not in surrogate.variables:
+                raise SettingsError(
+                    f"keep: unknown variable {item!r}; the model has {', '.join(surrogate.variables)}"
+                )
+            out.append(surrogate.variables.index(item))
+        elif isinstance(item, (int, np.integer)) and not isinstance(item, bool):
+            if not 0 <= int(item) < surrogate.n_variables:
+                raise SettingsError(f"keep: index {item} outside 0..{surrogate.n_variables - 1}")
+            out.append(int(item))
+        else:
+            raise SettingsError(f"keep: expected variable names or indices, got {item!r}")
+    if not out or len(set(out)) != len(out):
+        raise SettingsError("keep: give at least one variable, each once")
+    return np.array(out, dtype=np.int64)
+
+
+def _resolve_seed(seed: Any) -> int:
+    if seed is None:
+        return int(np.random.SeedSequence().generate_state(1, dtype=np.uint64)[0] >> np.uint64(1))
+    if isinstance(seed, np.random.Generator):
+        return int(seed.integers(0, 2**63 - 1))
+    if isinstance(seed, (int, np.integer)) and not isinstance(seed, bool) and int(seed) >= 0:
+        return int(seed)
+    raise SettingsError(f"seed must be a non-negative integer, a numpy Generator or None, got {seed!r}")
+
+
+def _numba_available() -> bool:
+    try:
+        import numba  # noqa: F401
+    except ImportError:  # pragma: no cover - numba is a hard dependency
+        return False
+    return True
+
+
+def integrate_ensemble(
+    surrogate: Surrogate,
+    initial_states: Any,
+    *,
+    dt_out: float,
+    n_out: int,
+    spinup: float = 0.0,
+    substep: float | None = None,
+    method: str = "auto",
+    bound: Any = None,
+    seed: int | np.random.Generator | None = None,
+    keep: Sequence[int | str] | None = None,
+    engine: str = "auto",
+    progress: Callable[[int, int], None] | None = None,
+) -> EnsembleResult:
+    """Integrate ``M`` members of a surrogate together and record outputs, blow-ups and status.
+
+    Parameters
+    ----------
+    surrogate : Surrogate
+    initial_states : array_like, shape (M, n_variables)
+        Finite model-space starting states, one per member.
+    dt_out : float
+        Time between outputs (> 0).
+    n_out : int
+        Number of outputs (>= 1); the first is the state at the end of spin-up (time 0).
+    spinup : float, default 0
+        Time integrated before the first output and discarded (rounded up to whole substeps).
+    substep : float, optional
+        Integration step; rounded down so that ``dt_out`` is a whole multiple of it. Default:
+        :func:`choose_substep` on the initial states.
+    method : {"auto", "rk4", "euler-maruyama", "heun"}
+        ``"auto"``: RK4 for deterministic surrogates, stochastic Heun for stochastic ones.
+    bound : array_like, shape (n_variables, 2), optional
+        Lower/upper bound per variable (model space) beyond which a member counts as blown up
+        (see :func:`blowup_bound`). Non-finite states always count.
+    seed : int, numpy.random.Generator or None
+        Source of the noise draws (stochastic methods). None draws a fresh seed; the seed used is
+        recorded on the result either way.
+    keep : sequence of int or str, optional
+        Variables to store (default all); memory is ``M * n_out * len(keep)`` floats.
+    engine : {"auto", "numba", "numpy"}
+        ``"auto"`` uses the compiled kernel.
+    progress : callable(done, total), optional
+        Called after each block of outputs (for progress bars).
+
+    Returns
+    -------
+    EnsembleResult
+
+    Raises
+    ------
+    SettingsError
+        For bad settings or non-finite initial states. Never for a blow-up.
+
+    References
+    ----------
+    .. [1] Kutta, W. (1901). Beitrag zur näherungsweisen Integration totaler
+       Differentialgleichungen. Z. Math. Phys. 46, 435-453 (classical RK4).
+    .. [2] Kloeden, P. E. & Platen, E. (1992). Numerical Solution of Stochastic Differential
+       Equations. Springer (Euler-Maruyama, ch. 9; stochastic Heun, ch. 15).
+    """
+    if not isinstance(surrogate, Surrogate):
+        raise SettingsError(f"surrogate: expected a Surrogate, got {type(surrogate).__name__}")
+    n = surrogate.n_variables
+    x0 = np.array(initial_states, dtype=np.float64)
+    if x0.ndim == 1 and x0.shape[0] == n:
+        x0 = x0[None, :]
+    if x0.ndim != 2 or x0.shape[1] != n or x0.shape[0] == 0:
+        raise SettingsError(f"initial_states: shape {np.shape(initial_states)}, expected (M, {n})")
+    if not np.all(np.isfinite(x0)):
+        bad = int(np.flatnonzero(~np.all(np.isfinite(x0), axis=1))[0])
+        raise SettingsError(f"initial_states: member {bad} has a non-finite value")
+    M = x0.shape[0]
+    dt_out = _positive(dt_out, "dt_out")
+    if isinstance(n_out, bool) or not isinstance(n_out, (int, np.integer)) or n_out < 1:
+        raise SettingsError(f"n_out must be a positive integer, got {n_out!r}")
+    n_out = int(n_out)
+    try:
+        spinup = float(spinup)
+    except (TypeError, ValueError):
+        raise SettingsError(f"spinup must be a number >= 0, got {spinup!r}") from None
+    if not (math.isfinite(spinup) and spinup >= 0.0):
+        raise SettingsError(f"spinup must be a finite number >= 0, got {spinup!r}")
+
+    if method == "auto":
+        method = "heun" if surrogate.is_stochastic else "rk4"
+    if method not in METHODS:
+        raise SettingsError(f"method {method!r} is not one of auto, {', '.join(METHODS)}")
+    stochastic = METHODS[method][0]
+    if surrogate.is_stochastic and not stochastic:
+        raise SettingsError(
+            f"method {method!r} ignores the surrogate's noise; use 'heun' or 'euler-maruyama', "
+            "or integrate surrogate.with_noise(None)"
+        )
+    if engine not in ENGINES:
+        raise SettingsError(f"engine {engine!r} is not one of {', '.join(ENGINES)}")
+    if engine == "auto":
+        engine = "numba" if _numba_available() else "numpy"
+
+    rho: float | None = None
+    if substep is None:
+        h, k, rho = _choose(surrogate, x0, dt_out, method, SAFETY)
+    else:
+        h_req = _positive(substep, "substep")
+        k = max(1, math.ceil(dt_out / h_req - 1e-9))
+        h = dt_out / k
+
+    if bound is None:
+        lower = np.full(n, -_MAX_FLOAT)
+        upper = np.full(n, _MAX_FLOAT)
+        bound_arr = None
+    else:
+        bound_arr = np.array(bound, dtype=np.float64)
+        if bound_arr.shape != (n, 2) or np.any(np.isnan(bound_arr)) or np.any(bound_arr[:, 0] >= bound_arr[:, 1]):
+            raise SettingsError(f"bound: expected ({n}, 2) lower < upper per variable, got shape {bound_arr.shape}")
+        # Clipped to the finite range: the kernels rely on finite bounds to reject infinities.
+        lower = np.ascontiguousarray(np.clip(bound_arr[:, 0], -_MAX_FLOAT, _MAX_FLOAT))
+        upper = np.ascontiguousarray(np.clip(bound_arr[:, 1], -_MAX_FLOAT, _MAX_FLOAT))
+    keep_idx = _resolve_keep(surrogate, keep)
+
+    seed_used: int | None = None
+    rng = None
+    chol = np.zeros((n, n))
+    if stochastic:
+        seed_used = _resolve_seed(seed)
+        rng = np.random.default_rng(seed_used)
+        if surrogate.noise is not None:
+            chol = np.ascontiguousarray(_noise_factor(np.asarray(surrogate.noise)))
+
+    n_spin = math.ceil(spinup / h - 1e-9) if spinup > 0 else 0
+    spin_time = n_spin * h
+
+    state = x0.copy()
+    alive = np.ones(M, dtype=np.bool_)
+    blowup_time = np.full(M, np.nan)
+    out = np.full((M, n_out, len(keep_idx)), np.nan)
+    tables = surrogate.term_tables()
+
+    if engine == "numba":
+        from ergodex import kernels
+
+        table_args = tuple(kernels.build_program(tables, n))
+        code = kernels.METHOD_CODES[method]
+
+        def run_block(t0: float, n_blocks: int, steps: int, noise: np.ndarray, j0: int, write: bool) -> None:
+            kernels.advance(code, state, alive, blowup_time, t0, h, n_blocks, steps, noise, chol, out,
+                            j0, write, keep_idx, lower, upper, *table_args)
+    else:
+
+        def run_block(t0: float, n_blocks: int, steps: int, noise: np.ndarray, j0: int, write: bool) -> None:
+            _numpy_block(surrogate, method, state, alive, blowup_time, t0, h, n_blocks, steps, noise, chol,
+                         out, j0, write, keep_idx, lower, upper)
+
+    empty_noise = np.zeros((0, M, n))
+
+    def draw(n_steps: int) -> np.ndarray:
+        if not stochastic:
+            return empty_noise
+        return rng.standard_normal((n_steps, M, n))
+
+    # Chunks keep the noise buffer near 2**20 numbers and let progress be reported.
+    per_step = M * n
+    max_steps = max(1, (1 << 20) // per_step) if stochastic else 1 << 30
+
+    t = -spin_time
+    done = 0
+    while done < n_spin:
+        steps = min(n_spin - done, max_steps, 100_000 if not stochastic else max_steps)
+        run_block(t, 1, steps, draw(steps), 0, False)
+        done += steps
+        t = -spin_time + done * h
+    t = 0.0
+    # Output 0: the state at the end of spin-up.
+    out[alive, 0, :] = state[alive][:, keep_idx]
+    j = 1
+    outputs_per_block = max(1, min(max_steps // k, math.ceil((n_out - 1) / 100)) if n_out > 1 else 1)
+    if progress is not None:
+        progress(1, n_out)
+    while j < n_out:
+        nb = min(outputs_per_block, n_out - j)
+        run_block((j - 1) * dt_out, nb, k, draw(nb * k), j, True)
+        j += nb
+        if progress is not None:
+            progress(j, n_out)
+
+    times = np.arange(n_out) * dt_out
+    blown = ~alive
+    n_blown = int(np.count_nonzero(blown))
+    # Safety net: outputs at or after a member's blow-up are NaN whatever the engine wrote.
+    for m in np.flatnonzero(blown):
+        out[m, _first_output_after(times, blowup_time[m]):, :] = np.nan
+    if n_blown == 0:
+        status = "ok"
+    elif n_blown == M:
+        status = "all-blowup"
+    else:
+        status = "blowup"
+    how = f"{method} ({engine}), substep {h:.6g} ({k} per output)"
+    if rho is not None:
+        how += f" chosen from spectral radius {rho:.4g}"
+    if n_blown:
+        first = float(np.nanmin(blowup_time))
+        message = (
+            f"{n_blown} of {M} members blew up (non-finite or outside the bound), first at t={first:.6g}; "
+            f"{how}"
+        )
+    else:
+        message = f"{M} members integrated to t={times[-1]:.6g} after spin-up {spin_time:.6g}; {how}"
+    return EnsembleResult(
+        times=times,
+        states=out,
+        blown_up=blown,
+        blowup_time=blowup_time,
+        last_finite=state,
+        method=method,
+        substep=h,
+        substeps_per_output=k,
+        seed=seed_used,
+        status=status,
+        message=message,
+        variables=tuple(surrogate.variables[i] for i in keep_idx),
+        spinup=spin_time,
+        spectral_radius=rho,
+        engine=engine,
+        bound=bound_arr,
+    )
+
+
+def _numpy_block(surrogate, method, state, alive, blowup_time, t0, h, n_blocks, steps, noise, chol,
+                 out, j0, write, keep_idx, lower, upper) -> None:
+    """Reference engine: the same steps as :func:`ergodex.kernels.advance`, vectorised with numpy."""
+    f = surrogate.rhs
+    sqh = math.sqrt(h)
+    for j in range(n_blocks):
+        for s in range(steps):
+            live = np.flatnonzero(alive)
+            if len(live) == 0:
+                break
+            x = state[live]
+            step = j * steps + s
+            with np.errstate(all="ignore"):
+                if method == "rk4":
+                    k1 = f(x)
+                    k2 = f(x + 0.5 * h * k1)
+                    k3 = f(x + 0.5 * h * k2)
+                    k4 = f(x + h * k3)
+                    xn = x + (h / 6.0) * (k1 + 2.0 * k2 + 2.0 * k3 + k4)
+                else:
+                    dw = sqh * (noise[step, live] @ chol.T)
+                    k1 = f(x)
+                    if method == "euler-maruyama":
+                        xn = x + h * k1 + dw
+                    else:
+                        k2 = f(x + h * k1 + dw)
+                        xn = x + 0.5 * h * (k1 + k2) + dw
+                ok = np.all(np.isfinite(xn) & (xn >= lower) & (xn <= upper), axis=1)
+            state[live[ok]] = xn[ok]
+            dead = live[~ok]
+            alive[dead] = False
+            blowup_time[dead] = t0 + (step + 1) * h
+        if write:
+            live = np.flatnonzero(alive)
+            out[live, j0 + j, :] = state[live][:, keep_idx]

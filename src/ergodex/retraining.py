@@ -1,0 +1,700 @@
+"""Retraining on new data: re-check the accepted model, fit a challenger, keep the better one.
+
+Observing systems and simulation campaigns keep producing data. :func:`retrain` takes the new data
+and the registered model name and makes one documented decision:
+
+1. **Split.** The new data are split into a fitting part and a held-out *reference* part
+   (:func:`split_for_retrain`): whole runs when there are several, the last blocks of the run
+   otherwise. Neither model is ever checked on the runs the challenger was fitted on.
+2. **Drift check.** The accepted version (the *champion*, the newest accepted version of the
+   name) is checked against the reference with the check spec and seed given. A champion that
+   fails has *drifted*: the system no longer behaves as the data it was accepted on.
+3. **Challenger.** A new model is fitted on the fitting part with the champion's recorded fit
+   settings (or the settings given), and checked against the *same* reference with the *same*
+   spec and seed, so the two scorecards stand side by side on the same evidence.
+4. **Register and decide.** The challenger is always registered (as a candidate, with lineage:
+   ``parent`` = the champion's version, ``datasets`` = fingerprints of the fitting and reference
+   parts). Then:
+
+   ============================  ==============================  ======================  =====
+   champion                      challenger                      outcome                 exit
+   ============================  ==============================  ======================  =====
+   none (first run)              passes                          ``first-accepted``      0
+   none (first run)              fails                           ``no-acceptable-model`` 1
+   passes the drift check        any                             ``kept``                0
+   drifted                       passes, score <= champion's     ``replaced``            0
+   drifted                       fails, or score > champion's    ``no-acceptable-model`` 1
+   ============================  ==============================  ======================  =====
+
+   A champion that still passes stays: a model fitted on a new sample of the same system is no
+   better on this evidence than one that already matches it, and swapping models on sampling
+   noise alone would make downstream results change for no reason. A challenger that passes
+   while the champion stands stays a *candidate* (a person may accept it); one that fails is
+   *rejected* with its reasons. A drifted champion gets a ``drift-detected`` event; it is not
+   retired automatically (when replaced, the newer accepted version is the one that loads).
+   Nothing is ever deleted.
+
+**The shared score** (:func:`shared_score`) is the scorecard's *largest row ratio*: the largest,
+over every statistic × variable (or regime) row, of model distance ÷ reference noise floor. Lower is
+better; 1 means "as far from the reference as two honest samples of the truth are from each
+other". It is ``inf`` when more members blew up than the spec allows or a row ratio is not finite,
+so a model that blows up is worse than any model that does not. It is the quantity the verdict itself is calibrated on, so
+"not worse on the shared score" compares like with like.
+
+**Reproducibility.** Every step is seeded through ``seed`` (the check spec's seed); the fitters
+are deterministic. The same registry state, data and seed give the same decision record, except
+the wall-clock times, which :meth:`Decision.to_dict` keeps under their own key ``"times"`` and
+:meth:`Decision.record` leaves out.
+
+Caution: a passed statistical check is not a certification; before a surrogate informs decisions
+that can hurt people, defer to the applicable codes, standards and licensed practice.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+import math
+import os
+import tempfile
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any
+
+from ergodex.exceptions import DataError, RegistryError, SettingsError
+from ergodex.series import Series, split_blocks, split_runs
+
+log = logging.getLogger(__name__)
+
+#: Version tag of the decision record written by :meth:`Decision.to_dict`.
+DECISION_FORMAT = "ergodex-decision/1"
+
+#: Outcomes, each with the exit code the command line returns for it.
+OUTCOMES: dict[str, int] = {
+    "first-accepted": 0,
+    "kept": 0,
+    "replaced": 0,
+    "no-acceptable-model": 1,
+}
+
+#: Default share of the new data held out as the reference both models are checked against.
+DEFAULT_HOLDOUT = 0.5
+
+#: Fit settings used on a first run when no config is given.
+DEFAULT_FIT = ("sparse", {})
+
+SCORE_DEFINITION = (
+    "largest row ratio (model distance / reference noise floor over all statistic x variable "
+    "rows); lower is better; null (infinite) when more members blew up than allowed or a ratio "
+    "is not finite"
+)
+
+CAUTION = (
+    "A passed statistical check is not a certification: before a surrogate informs decisions "
+    "that can hurt people, defer to the applicable codes, standards and licensed practice."
+)
+
+
+# --- the decision record ------------------------------------------------------------------------
+@dataclass
+class ModelVerdict:
+    """One side of the comparison: a model's check on the shared reference.
+
+    Attributes
+    ----------
+    role : str
+        ``"champion"`` or ``"challenger"``.
+    ref : str or None
+        Registry reference ``"name@version"`` (``None`` only if nothing was registered).
+    version : int or None
+    verdict : str
+        ``"pass"`` or ``"fail"`` of the scorecard.
+    score : float
+        :func:`shared_score` of the scorecard (``inf`` for a blow-up).
+    reasons : list of str
+        The scorecard's reasons (why it failed; empty when it passed).
+    status : str or None
+        Registry status after the decision (``accepted``, ``candidate``, ``rejected``).
+    model_fingerprint : str
+    blowups : int
+        Members that blew up during the check.
+    rows : list of dict
+        Per-row ``statistic``, ``variable``, ``ratio``, ``verdict`` (side-by-side evidence).
+    fit : dict or None
+        For the challenger: ``{"method": ..., "settings": {...}}`` it was fitted with.
+    """
+
+    role: str
+    ref: str | None
+    version: int | None
+    verdict: str
+    score: float
+    reasons: list[str] = field(default_factory=list)
+    status: str | None = None
+    model_fingerprint: str = ""
+    blowups: int = 0
+    rows: list[dict[str, Any]] = field(default_factory=list)
+    fit: dict[str, Any] | None = None
+
+    @property
+    def passed(self) -> bool:
+        return self.verdict == "pass"
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain JSON-ready dict; a non-finite score is written as ``null``."""
+        return {
+            "role": self.role,
+            "ref": self.ref,
+            "version": self.version,
+            "status": self.status,
+            "verdict": self.verdict,
+            "score": _json_float(self.score),
+            "blowups": self.blowups,
+            "reasons": list(self.reasons),
+            "model_fingerprint": self.model_fingerprint,
+            "fit": self.fit,
+            "rows": [dict(r) for r in self.rows],
+        }
+
+
+@dataclass
+class Decision:
+    """The outcome of one :func:`retrain` call.
+
+    Attributes
+    ----------
+    name : str
+        Registry name of the model.
+    outcome : str
+        One of :data:`OUTCOMES`: ``"first-accepted"``, ``"kept"``, ``"replaced"``,
+        ``"no-acceptable-model"``.
+    standing : str or None
+        The accepted version downstream users load after this decision (``None`` if none).
+    champion, challenger : ModelVerdict or None
+        Both sides of the comparison (``champion`` is ``None`` on a first run).
+    reasons : list of str
+        Why the decision went this way, one sentence each.
+    seed : int
+        The seed every check used.
+    holdout : object
+        The holdout setting used (fraction, run count or run list), as given.
+    data : dict
+        ``fingerprint`` (all new data), ``fit_fingerprint``, ``reference_fingerprint``,
+        ``source``, ``names``, ``dt``, ``n_runs``, ``fit_runs``, ``reference_runs``.
+    spec : dict
+        The check spec (``CheckSpec.to_dict()``), so the checks can be repeated exactly.
+    started, finished : str
+        Wall-clock times (ISO 8601, UTC); kept apart from the reproducible part.
+    """
+
+    name: str
+    outcome: str
+    standing: str | None
+    champion: ModelVerdict | None
+    challenger: ModelVerdict | None
+    reasons: list[str]
+    seed: int
+    holdout: Any
+    data: dict[str, Any]
+    spec: dict[str, Any]
+    started: str = ""
+    finished: str = ""
+
+    @property
+    def exit_code(self) -> int:
+        """0 when an accepted model stands, 1 when no acceptable model exists (see OUTCOMES)."""
+        return OUTCOMES[self.outcome]
+
+    def record(self) -> dict[str, Any]:
+        """The reproducible part of :meth:`to_dict` (everything but the wall-clock times)."""
+        return {
+            "format": DECISION_FORMAT,
+            "name": self.name,
+            "outcome": self.outcome,
+            "exit_code": self.exit_code,
+            "standing": self.standing,
+            "champion": None if self.champion is None else self.champion.to_dict(),
+            "challenger": None if self.challenger is None else self.challenger.to_dict(),
+            "reasons": list(self.reasons),
+            "score_definition": SCORE_DEFINITION,
+            "seed": self.seed,
+            "holdout": _jsonable(self.holdout),
+            "data": dict(self.data),
+            "spec": _jsonable(self.spec),
+            "caution": CAUTION,
+        }
+
+    def to_dict(self) -> dict[str, Any]:
+        """The decision record (stable keys; see the module docs and ``docs/retraining.md``).
+
+        Keys: ``format`` (``"ergodex-decision/1"``), ``name``, ``outcome``, ``exit_code``,
+        ``standing``, ``champion`` and ``challenger`` (each ``null`` or a dict with ``role``,
+        ``ref``, ``version``, ``status``, ``verdict``, ``score``, ``blowups``, ``reasons``,
+        ``model_fingerprint``, ``fit``, ``rows``), ``reasons``, ``score_definition``, ``seed``,
+        ``holdout``, ``data``, ``spec``, ``caution``, and ``times`` (``started``, ``finished``:
+        the only part that changes between identical runs).
+        """
+        out = self.record()
+        out["times"] = {"started": self.started, "finished": self.finished}
+        return out
+
+    def to_json(self, path: str | os.PathLike[str] | None = None) -> str:
+        """The decision record as indented JSON; with ``path``, also written there atomically."""
+        text = json.dumps(self.to_dict(), indent=2, allow_nan=False) + "\n"
+        if path is not None:
+            _write_text_atomic(Path(path), text)
+        return text
+
+    def summary(self) -> str:
+        """A few lines for people: outcome, both sides, what stands, why."""
+        lines = [f"retrain {self.name}: {self.outcome} (exit code {self.exit_code})"]
+        src = self.data.get("source") or "data"
+        lines.append(f"  data       {src} ({self.data.get('fingerprint', '')[:19]}…)")
+        for side in (self.champion, self.challenger):
+            if side is None:
+                lines.append("  champion   (none: first run)")
+                continue
+            score = "inf" if not math.isfinite(side.score) else f"{side.score:.3g}"
+            lines.append(
+                f"  {side.role:<10} {side.ref or '-':<24} {side.verdict:<4}  score {score:<7}"
+                f" {side.status or ''}"
+            )
+        lines.append(f"  standing   {self.standing or '(no accepted model)'}")
+        for reason in self.reasons:
+            lines.append(f"  - {reason}")
+        lines.append(f"  {CAUTION}")
+        return "\n".join(lines)
+
+
+# --- pieces -------------------------------------------------------------------------------------
+def shared_score(scorecard: Any) -> float:
+    """The score both models are compared on: the largest row ratio of a scorecard.
+
+    Parameters
+    ----------
+    scorecard : ergodex.validation.Scorecard
+
+    Returns
+    -------
+    float
+        ``max(row.ratio)`` over the rows; ``inf`` when more members blew up than the spec
+        allows, a ratio is not finite, or there are no rows. Lower is better.
+    """
+    blowups = _blowup_count(scorecard)
+    spec = getattr(scorecard, "spec", None)
+    allowed = 0.0
+    if spec is not None:
+        allowed = float(getattr(spec, "max_blowup_fraction", 0.0)) * int(getattr(spec, "members", 0))
+    if blowups > allowed:
+        return math.inf
+    ratios = [float(_row_get(row, "ratio")) for row in scorecard.rows]
+    # A NaN ratio (no distance could be computed) fails its row, so it scores as the worst.
+    if not ratios or not all(math.isfinite(r) for r in ratios):
+        return math.inf
+    return max(ratios)
+
+
+def split_for_retrain(series: Series, holdout: Any = DEFAULT_HOLDOUT) -> tuple[Series, Series]:
+    """Split new data into a fitting part and the held-out reference both models are checked on.
+
+    Parameters
+    ----------
+    series : Series
+    holdout : float, int or sequence
+        A float in (0, 1): that share of the runs, counted from the end (at least one run held
+        out and one kept); an int: that many runs from the end; a sequence: the held-out runs by
+        position or label (as :func:`ergodex.series.split_runs`). With a single run, a float
+        holds out that share of the run's end as blocks (:func:`ergodex.series.split_blocks`,
+        ten blocks, no gap) and int or sequence values are refused.
+
+    Returns
+    -------
+    (fit, reference) : tuple of Series
+    """
+    if isinstance(holdout, bool):
+        raise SettingsError(f"holdout must be a fraction, a run count or a list of runs, got {holdout!r}")
+    if isinstance(holdout, float):
+        if not 0.0 < holdout < 1.0:
+            raise SettingsError(f"holdout fraction must be between 0 and 1 (exclusive), got {holdout!r}")
+        if series.n_runs >= 2:
+            k = min(series.n_runs - 1, max(1, round(series.n_runs * holdout)))
+            return split_runs(series, k)
+        n_blocks = 10
+        check_blocks = min(n_blocks - 1, max(1, round(n_blocks * holdout)))
+        return split_blocks(series, n_blocks, 0.0, check_blocks=check_blocks)
+    if series.n_runs < 2:
+        raise DataError(
+            f"{series.source or 'data'}: has a single run, so runs cannot be held out; "
+            "give holdout as a fraction (e.g. 0.5) to hold out the end of the run"
+        )
+    return split_runs(series, holdout)
+
+
+def _resolve_fit(config: Any, registry: Any, champion_info: Any) -> tuple[str, dict]:
+    """(method, settings) for the challenger: the config given, else the champion's record."""
+    from ergodex.fitting import load_fit_settings, parse_fit_settings
+
+    if config is not None:
+        if isinstance(config, (str, os.PathLike)):
+            return load_fit_settings(config)
+        if isinstance(config, tuple) and len(config) == 2:
+            method, settings = config
+            return parse_fit_settings({"method": method, "settings": dict(settings or {})},
+                                      source="config")
+        if isinstance(config, Mapping):
+            return parse_fit_settings(config, source="config")
+        raise SettingsError(
+            "config must be a fit-settings TOML path, a (method, settings) pair or a mapping with "
+            f"'method' and 'settings'; got {type(config).__name__}"
+        )
+    if champion_info is None:
+        return DEFAULT_FIT[0], dict(DEFAULT_FIT[1])
+    ref = champion_info.ref
+    if "fit-settings.json" in champion_info.artifacts:
+        text = registry.artifact(ref, "fit-settings.json").decode("utf-8")
+        try:
+            recorded = json.loads(text)
+        except json.JSONDecodeError as exc:
+            raise SettingsError(f"fit settings recorded with {ref} are not valid JSON: {exc}") from None
+        if not isinstance(recorded, Mapping):
+            raise SettingsError(f"fit settings recorded with {ref} are not a table: {recorded!r}")
+        return parse_fit_settings(recorded, source=f"fit settings recorded with {ref}")
+    if "fit-settings.toml" in champion_info.artifacts:
+        return load_fit_settings(registry.artifact_path(ref, "fit-settings.toml"))
+    raise SettingsError(
+        f"{ref} has no recorded fit settings to refit with; pass a fit-settings file with --config"
+    )
+
+
+def find_champion(registry: Any, name: str) -> Any | None:
+    """The newest accepted version of ``name`` (its ``VersionInfo``), or ``None`` if there is none.
+
+    A name never registered, or registered without an accepted version, has no champion: the
+    retrain is then a first run.
+    """
+    from ergodex.registry import validate_name
+
+    validate_name(name)
+    for summary in registry.list_models():
+        if summary.name == name:
+            if summary.accepted is None:
+                return None
+            return registry.get(f"{name}@{summary.accepted}")
+    return None
+
+
+def _verdict(role: str, scorecard: Any, *, ref: str | None, version: int | None,
+             fit: dict[str, Any] | None = None) -> ModelVerdict:
+    rows = []
+    for row in scorecard.rows:
+        rows.append({
+            "statistic": _row_get(row, "statistic"),
+            "variable": _row_get(row, "variable"),
+            "ratio": _json_float(float(_row_get(row, "ratio"))),
+            "verdict": _row_get(row, "verdict"),
+        })
+    return ModelVerdict(
+        role=role,
+        ref=ref,
+        version=version,
+        verdict=str(scorecard.verdict),
+        score=shared_score(scorecard),
+        reasons=[str(r) for r in scorecard.reasons],
+        model_fingerprint=str(getattr(scorecard, "model_fingerprint", "")),
+        blowups=_blowup_count(scorecard),
+        rows=rows,
+        fit=fit,
+    )
+
+
+# --- the main call ------------------------------------------------------------------------------
+def retrain(
+    registry: Any,
+    name: str,
+    data: Series | str | os.PathLike[str],
+    *,
+    config: Any = None,
+    spec: Any = None,
+    seed: int = 0,
+    holdout: Any = DEFAULT_HOLDOUT,
+    progress: Callable[[str], None] | None = None,
+) -> Decision:
+    """Re-check the accepted model on new data, fit and check a challenger, and decide.
+
+    Parameters
+    ----------
+    registry : ergodex.registry.Registry
+    name : str
+        Registry name of the model.
+    data : Series or path-like
+        The new data (a path is read with :func:`ergodex.readers.read_series`).
+    config : path-like, (method, settings) pair or mapping, optional
+        Fit settings for the challenger; default: the champion's recorded fit settings (or the
+        sparse fitter's defaults on a first run).
+    spec : ergodex.validation.CheckSpec, optional
+        Check settings for both models; its seed is replaced by ``seed``.
+    seed : int
+        Seed of both checks (and so of the whole decision).
+    holdout : float, int or sequence
+        What to hold out as the shared reference (see :func:`split_for_retrain`).
+    progress : callable, optional
+        Called with a short step name before each step (for a progress bar).
+
+    Returns
+    -------
+    Decision
+        ``decision.exit_code`` is what the command line exits with.
+
+    Raises
+    ------
+    DataError, SettingsError, RegistryError
+        Bad input (unreadable data, variables that differ from the champion's, bad settings).
+        Raised before anything is written to the registry.
+    """
+    from ergodex.pipeline import fit_check_register
+    from ergodex.validation import CheckSpec, check
+
+    started = _now()
+    step = progress or (lambda _name: None)
+    if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
+        raise SettingsError(f"seed must be a non-negative integer, got {seed!r}")
+
+    step("read")
+    series = _as_series(data)
+    fit_part, reference = split_for_retrain(series, holdout)
+    log.info("read %s: %d runs; fitting on %d, reference %d", series.source or "data",
+             series.n_runs, fit_part.n_runs, reference.n_runs)
+    spec = replace(spec if spec is not None else CheckSpec(), seed=seed)
+
+    champion_info = find_champion(registry, name)
+    champion_ref = None if champion_info is None else champion_info.ref
+    method, settings = _resolve_fit(config, registry, champion_info)
+
+    champion_result = None
+    if champion_info is not None:
+        step("drift check")
+        champion = registry.load(champion_ref)
+        _check_variables(champion, series, champion_ref)
+        log.info("drift check: %s against %d reference runs (seed %d)", champion_ref,
+                 reference.n_runs, seed)
+        champion_result = check(champion, reference, spec)
+        log.info("drift check: %s %s (score %.3g)", champion_ref, champion_result.scorecard.verdict,
+                 shared_score(champion_result.scorecard))
+    else:
+        log.info("no accepted version of %s: first run", name)
+
+    step("fit challenger")
+    log.info("fitting challenger (%s) on %d runs", method, fit_part.n_runs)
+    flow = fit_check_register(
+        fit_part,
+        reference,
+        method=method,
+        settings=settings,
+        spec=spec,
+        registry=registry,
+        name=name,
+        accept=False,
+        note=f"retrain challenger on {series.source or 'new data'} (seed {seed})",
+        parent=None if champion_info is None else champion_info.version,
+    )
+    step("decide")
+    challenger_ref = f"{name}@{flow.version}"
+    fit_record = {"method": method, "settings": _jsonable(settings)}
+    ch = _verdict("challenger", flow.check.scorecard, ref=challenger_ref, version=flow.version,
+                  fit=fit_record)
+    log.info("challenger %s: %s (score %.3g)", challenger_ref, ch.verdict, ch.score)
+    cp = None
+    if champion_result is not None:
+        cp = _verdict("champion", champion_result.scorecard, ref=champion_ref,
+                      version=champion_info.version)
+
+    outcome, reasons = _decide(cp, ch)
+    _apply(registry, outcome, cp, ch, reasons, series.fingerprint())
+    standing = ch.ref if outcome in ("first-accepted", "replaced") else (cp.ref if cp else None)
+
+    decision = Decision(
+        name=name,
+        outcome=outcome,
+        standing=standing,
+        champion=cp,
+        challenger=ch,
+        reasons=reasons,
+        seed=seed,
+        holdout=holdout,
+        data={
+            "fingerprint": series.fingerprint(),
+            "fit_fingerprint": fit_part.fingerprint(),
+            "reference_fingerprint": reference.fingerprint(),
+            "source": series.source,
+            "names": list(series.names),
+            "dt": series.dt,
+            "n_runs": series.n_runs,
+            "fit_runs": fit_part.n_runs,
+            "reference_runs": reference.n_runs,
+        },
+        spec=spec.to_dict(),
+        started=started,
+        finished=_now(),
+    )
+    log.info("decision for %s: %s; standing %s", name, outcome, standing or "(none)")
+    return decision
+
+
+def _decide(cp: ModelVerdict | None, ch: ModelVerdict) -> tuple[str, list[str]]:
+    """The decision table of the module docs; returns (outcome, reasons)."""
+    ch_score = _fmt(ch.score)
+    if cp is None:
+        if ch.passed:
+            return "first-accepted", [f"no accepted version existed; challenger {ch.ref} passed its "
+                                      f"check (score {ch_score}) and was accepted"]
+        return "no-acceptable-model", [
+            f"no accepted version existed and challenger {ch.ref} failed its check "
+            f"(score {ch_score}): " + _brief(ch.reasons)
+        ]
+    cp_score = _fmt(cp.score)
+    if cp.passed:
+        reasons = [f"champion {cp.ref} still passes on the new data (score {cp_score}); it stays"]
+        if ch.passed:
+            reasons.append(f"challenger {ch.ref} also passed (score {ch_score}); left as a "
+                           "candidate, not promoted over a champion that still matches")
+        else:
+            reasons.append(f"challenger {ch.ref} failed its check (score {ch_score}): "
+                           + _brief(ch.reasons))
+        return "kept", reasons
+    reasons = [f"champion {cp.ref} failed the drift check (score {cp_score}): " + _brief(cp.reasons)]
+    if ch.passed and ch.score <= cp.score:
+        reasons.append(f"challenger {ch.ref} passed (score {ch_score} <= {cp_score}) and replaces it")
+        return "replaced", reasons
+    if ch.passed:
+        reasons.append(f"challenger {ch.ref} passed but scored worse than the champion "
+                       f"({ch_score} > {cp_score}); not accepted")
+    else:
+        reasons.append(f"challenger {ch.ref} failed its check (score {ch_score}): "
+                       + _brief(ch.reasons))
+    reasons.append("no acceptable model for the new data: downstream users must be warned")
+    return "no-acceptable-model", reasons
+
+
+def _apply(registry: Any, outcome: str, cp: ModelVerdict | None, ch: ModelVerdict,
+           reasons: list[str], data_fingerprint: str) -> None:
+    """Write the decision into the registry: events and status changes (never deletions)."""
+    on_data = f" [data {data_fingerprint}]"
+    if cp is not None:
+        # Every re-check of the champion leaves a line in its history, passed or not.
+        event = "drift-check-passed" if cp.passed else "drift-detected"
+        registry.record_event(cp.ref, event, reasons[0] + on_data)
+    if outcome in ("first-accepted", "replaced"):
+        why = ("first version: passed its check on held-out runs" if cp is None else
+               f"retrain: replaces {cp.ref}, which failed the drift check; " + reasons[1])
+        registry.accept(ch.ref, reason=why + on_data)
+        ch.status = "accepted"
+    elif not ch.passed:
+        registry.reject(ch.ref, reason="retrain challenger failed its check: "
+                        + _brief(ch.reasons) + on_data)
+        ch.status = "rejected"
+    else:
+        about = next((r for r in reasons if str(ch.ref) in r), reasons[-1])
+        registry.record_event(ch.ref, "not-promoted", about + on_data)
+        ch.status = _status(registry, ch.ref)
+    if cp is not None:
+        cp.status = _status(registry, cp.ref)
+
+
+# --- small helpers ------------------------------------------------------------------------------
+def _as_series(data: Any) -> Series:
+    if isinstance(data, Series):
+        return data
+    if isinstance(data, (str, os.PathLike)):
+        from ergodex.readers import read_series
+
+        return read_series(data)
+    raise DataError(f"retrain data must be a Series or a file path, got {type(data).__name__}")
+
+
+def _check_variables(surrogate: Any, series: Series, ref: str) -> None:
+    """The champion must describe the same variables as the new data (else: bad input)."""
+    names = _data_variables(surrogate)
+    if names is not None and tuple(names) != tuple(series.names):
+        raise DataError(
+            f"{series.source or 'data'}: variables {list(series.names)} differ from those of "
+            f"{ref} {list(names)}; retrain needs new data of the same variables in the same order"
+        )
+
+
+def _data_variables(surrogate: Any) -> Sequence[str] | None:
+    """Data-space variable names of a surrogate (through its transform when it has one)."""
+    transform = getattr(surrogate, "transform", None)
+    if transform is None:
+        return tuple(surrogate.variables)
+    for attr in ("input_names", "names", "data_variables"):
+        value = getattr(transform, attr, None)
+        if value:
+            return tuple(value)
+    return None  # the check itself will refuse data of the wrong width
+
+
+def _status(registry: Any, ref: str | None) -> str | None:
+    if ref is None:
+        return None
+    return str(registry.get(ref).status)
+
+
+def _blowup_count(scorecard: Any) -> int:
+    blowups = getattr(scorecard, "blowups", None) or {}
+    if isinstance(blowups, Mapping):
+        return int(blowups.get("count", 0) or 0)
+    return int(blowups)
+
+
+def _row_get(row: Any, key: str) -> Any:
+    if isinstance(row, Mapping):
+        return row.get(key)
+    return getattr(row, key, None)
+
+
+def _brief(reasons: Sequence[str], limit: int = 3) -> str:
+    if not reasons:
+        return "(no reason given)"
+    shown = "; ".join(str(r) for r in reasons[:limit])
+    more = len(reasons) - limit
+    return shown + (f"; and {more} more" if more > 0 else "")
+
+
+def _fmt(score: float) -> str:
+    return "inf" if not math.isfinite(score) else f"{score:.3g}"
+
+
+def _json_float(value: float) -> float | None:
+    return value if math.isfinite(value) else None
+
+
+def _jsonable(value: Any) -> Any:
+    """A JSON-ready copy (tuples to lists, non-finite floats to None, numpy scalars to Python)."""
+    if isinstance(value, Mapping):
+        return {str(k): _jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_jsonable(v) for v in value]
+    if hasattr(value, "item") and callable(value.item) and getattr(value, "ndim", 1) == 0:
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
+
+
+def _now() -> str:
+    return datetime.now(timezone.utc).isoformat(timespec="seconds")
+
+
+def _write_text_atomic(target: Path, text: str) -> None:
+    """Write through a temporary file in the target folder, then rename (never half a file)."""
+    target.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as handle:
+            handle.write(text)
+        os.replace(tmp, target)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise

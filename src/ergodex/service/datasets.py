@@ -1,0 +1,196 @@
+"""Accepting an uploaded dataset file: name and type checks, reading, storing, recording.
+
+An upload is only kept when the same reader the command line uses accepts it; until then it
+lives in a private staging folder that is removed whatever happens, so a refused upload leaves
+nothing behind. Accepted files are stored under ``home/service/datasets/<id>/<file name>``, where
+the id is the hex digest of the data's fingerprint: uploading the same data twice (even in another
+format) names the same dataset.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import logging
+import os
+import re
+import secrets
+import shutil
+from pathlib import Path
+from typing import Any
+
+from ergodex.exceptions import ErgodexError
+from ergodex.service.errors import ApiError, one_line
+from ergodex.service.jobs import JobStore, utc_now
+from ergodex.service.settings import ServiceSettings
+
+log = logging.getLogger(__name__)
+
+#: File name suffix → format name. Folders with a dataset.toml cannot travel as one upload.
+FORMATS = {".csv": "csv", ".npz": "npz", ".nc": "netcdf"}
+
+#: A plain file name: no folder parts, no leading dot, nothing a shell or a path join would read
+#: as special.
+_SAFE_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]{0,127}$")
+
+#: First bytes of each binary format (the NPZ zip local header; netCDF classic "CDF" or the
+#: HDF5 signature of netCDF-4).
+_MAGIC = {"npz": (b"PK\x03\x04",), "netcdf": (b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF\r\n\x1a\n")}
+
+
+class UploadRefused(ApiError):
+    """An upload broke a rule (bad name, wrong type, too large, unreadable); nothing was stored."""
+
+
+def check_filename(filename: str | None) -> str:
+    """The upload's format name, or :class:`UploadRefused` for a missing, path-like or foreign name."""
+    if not filename:
+        raise UploadRefused(400, "bad-filename", "the uploaded file has no file name")
+    if any(part in filename for part in ("/", "\\", "..", "\x00", ":")):
+        raise UploadRefused(
+            400,
+            "bad-filename",
+            f"file name {filename[:80]!r} has folder parts; send a plain file name such as data.csv",
+        )
+    if not _SAFE_NAME.match(filename):
+        raise UploadRefused(
+            400,
+            "bad-filename",
+            f"file name {filename[:80]!r} must start with a letter or digit and use only "
+            "letters, digits, '.', '_' and '-' (at most 128 characters)",
+        )
+    suffix = Path(filename).suffix.lower()
+    if suffix not in FORMATS:
+        raise UploadRefused(
+            415,
+            "unsupported-type",
+            f"file name {filename!r} has type {suffix or '(none)'!r}; upload one of "
+            f"{', '.join(sorted(FORMATS))}",
+        )
+    return FORMATS[suffix]
+
+
+def check_content(filename: str, fmt: str, head: bytes) -> None:
+    """Refuse content that cannot be of the declared format before any reader sees it."""
+    if not head:
+        raise UploadRefused(422, "invalid-dataset", f"{filename}: the file is empty")
+    if fmt in _MAGIC and not head.startswith(_MAGIC[fmt]):
+        raise UploadRefused(
+            422, "invalid-dataset", f"{filename}: the content is not a {fmt} file (wrong signature)"
+        )
+    if fmt == "csv":
+        try:
+            head.decode("utf-8")
+        except UnicodeDecodeError as exc:
+            # A multi-byte character cut at the end of the sniffed head is fine.
+            if exc.start < len(head) - 4:
+                raise UploadRefused(
+                    422,
+                    "invalid-dataset",
+                    f"{filename}: not UTF-8 text (byte {exc.start}); a CSV upload must be text",
+                ) from None
+        if b"\x00" in head:
+            raise UploadRefused(422, "invalid-dataset", f"{filename}: a CSV file holds no NUL bytes")
+
+
+def store_upload(
+    settings: ServiceSettings,
+    store: JobStore,
+    filename: str | None,
+    source,
+    *,
+    options: dict[str, Any] | None = None,
+) -> tuple[dict[str, Any], bool]:
+    """Check, read and store one uploaded file; return ``(record, created)``.
+
+    Parameters
+    ----------
+    source
+        A binary file object positioned at the start of the upload.
+    options
+        Reader options given with the upload (``dt`` for a CSV file without a time column);
+        stored with the record so that jobs read the file exactly as it was checked.
+
+    Raises
+    ------
+    UploadRefused
+        For every problem with the upload itself; nothing is stored then.
+    """
+    fmt = check_filename(filename)
+    assert filename is not None
+    options = {k: v for k, v in (options or {}).items() if v is not None}
+    settings.datasets_dir.mkdir(parents=True, exist_ok=True)
+    staging = settings.datasets_dir / f".staging-{secrets.token_hex(8)}"
+    staging.mkdir()
+    try:
+        path = staging / filename
+        digest = hashlib.sha256()
+        size = 0
+        head = b""
+        with open(path, "wb") as out:
+            while chunk := source.read(1 << 20):
+                size += len(chunk)
+                if size > settings.max_upload_bytes:
+                    raise UploadRefused(
+                        413,
+                        "upload-too-large",
+                        f"{filename} is larger than this server's limit of "
+                        f"{settings.max_upload_bytes} bytes",
+                    )
+                if len(head) < 4096:
+                    head += chunk[: 4096 - len(head)]
+                digest.update(chunk)
+                out.write(chunk)
+        check_content(filename, fmt, head)
+        from ergodex.readers import read_series
+
+        try:
+            series = read_series(path, **options)
+        except ErgodexError as exc:
+            # Name the file as the client knows it, not by its staging path on the server.
+            message = str(exc).replace(str(path), filename)
+            raise UploadRefused(422, "invalid-dataset", one_line(message)) from None
+        except Exception as exc:  # noqa: BLE001 - a malformed upload is the client's, never a 500
+            log.info("upload %s refused by the reader: %r", filename, exc)
+            raise UploadRefused(
+                422,
+                "invalid-dataset",
+                one_line(f"{filename}: cannot be read as {fmt}: {exc}".replace(str(path), filename)),
+            ) from None
+        fingerprint = series.fingerprint()
+        dataset_id = fingerprint.split(":", 1)[-1]
+        record = {
+            "id": dataset_id,
+            "fingerprint": fingerprint,
+            "filename": filename,
+            "format": fmt,
+            "size_bytes": size,
+            "sha256": digest.hexdigest(),
+            "variables": list(series.names),
+            "dt": float(series.dt),
+            "runs": int(series.n_runs),
+            "samples": int(series.n_samples),
+            "options": options,
+            "created": utc_now(),
+        }
+        existing = store.get_dataset(dataset_id)
+        if existing is not None:
+            return existing, False
+        target = settings.datasets_dir / dataset_id
+        try:
+            os.rename(staging, target)  # atomic: the folder appears whole or not at all
+        except OSError:
+            # The same data arrived concurrently (or a folder without a record survives a crash):
+            # the folder holding these values already exists, record it if it is not yet.
+            pass
+        else:
+            staging = None
+        if not store.add_dataset(record):
+            return store.get_dataset(dataset_id) or record, False
+        if staging is not None:  # the existing folder must hold a file of our name
+            existing_file = target / filename
+            if not existing_file.exists():
+                shutil.copyfile(path, existing_file)
+        return record, True
+    finally:
+        if staging is not None:
+            shutil.rmtree(staging, ignore_errors=True)

@@ -1,0 +1,492 @@
+"""The job table (SQLite) and the worker processes that run jobs.
+
+Why a table and processes rather than threads: fitting and checking a surrogate take seconds to
+minutes of CPU and hold the GIL for much of it, so running them in the request thread (or a thread
+pool) would stall every read. Jobs are rows in ``home/service/jobs.sqlite3``; the server starts a
+few worker processes, and each claims the oldest queued row with one ``UPDATE … RETURNING``
+statement. SQLite runs that statement under its write lock, so two workers can never claim the
+same job. Because the rows live on disk, a restart loses no queued or finished job; a job that
+was ``running`` when the server died is marked ``failed`` with that reason at the next start,
+never left running forever.
+
+Every claim carries a fresh random ``claim`` value, and a worker may only finish the row whose
+claim it holds. A worker orphaned by a killed server (it notices and exits within a second, but
+could be mid-write) therefore cannot overwrite the verdict the restarted server recorded.
+
+Job states: ``queued`` → ``running`` → ``succeeded`` | ``failed``.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+import multiprocessing
+import os
+import secrets
+import sqlite3
+import threading
+import time
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any
+
+log = logging.getLogger(__name__)
+
+QUEUED = "queued"
+RUNNING = "running"
+SUCCEEDED = "succeeded"
+FAILED = "failed"
+JOB_STATES = (QUEUED, RUNNING, SUCCEEDED, FAILED)
+
+#: Job kinds the workers know how to run (see :mod:`ergodex.service.tasks`).
+JOB_KINDS = ("fit", "validate", "retrain")
+
+#: Error code stored on a job that a stopped or crashed server left running.
+INTERRUPTED = "interrupted"
+
+_SCHEMA = """
+CREATE TABLE IF NOT EXISTS jobs (
+    seq            INTEGER PRIMARY KEY AUTOINCREMENT,
+    id             TEXT NOT NULL UNIQUE,
+    kind           TEXT NOT NULL,
+    params         TEXT NOT NULL,
+    state          TEXT NOT NULL,
+    created        TEXT NOT NULL,
+    started        TEXT,
+    finished       TEXT,
+    claim          TEXT,
+    worker_pid     INTEGER,
+    result         TEXT,
+    error_code     TEXT,
+    error_message  TEXT
+);
+CREATE INDEX IF NOT EXISTS jobs_state ON jobs(state, seq);
+CREATE TABLE IF NOT EXISTS datasets (
+    id          TEXT PRIMARY KEY,
+    fingerprint TEXT NOT NULL,
+    filename    TEXT NOT NULL,
+    format      TEXT NOT NULL,
+    size_bytes  INTEGER NOT NULL,
+    sha256      TEXT NOT NULL,
+    variables   TEXT NOT NULL,
+    dt          REAL NOT NULL,
+    runs        INTEGER NOT NULL,
+    samples     INTEGER NOT NULL,
+    options     TEXT NOT NULL,
+    created     TEXT NOT NULL
+);
+"""
+
+
+def utc_now() -> str:
+    """Current time as an ISO 8601 string in UTC (second resolution is enough for people)."""
+    return datetime.now(timezone.utc).isoformat(timespec="milliseconds")
+
+
+@dataclass(frozen=True)
+class JobRecord:
+    """One row of the job table, with JSON columns decoded."""
+
+    id: str
+    kind: str
+    params: dict[str, Any]
+    state: str
+    created: str
+    started: str | None
+    finished: str | None
+    worker_pid: int | None
+    result: dict[str, Any] | None
+    error_code: str | None
+    error_message: str | None
+    claim: str | None = None
+
+    @classmethod
+    def from_row(cls, row: sqlite3.Row) -> JobRecord:
+        return cls(
+            id=row["id"],
+            kind=row["kind"],
+            params=json.loads(row["params"]),
+            state=row["state"],
+            created=row["created"],
+            started=row["started"],
+            finished=row["finished"],
+            worker_pid=row["worker_pid"],
+            result=json.loads(row["result"]) if row["result"] is not None else None,
+            error_code=row["error_code"],
+            error_message=row["error_message"],
+            claim=row["claim"],
+        )
+
+
+class JobStore:
+    """Jobs and uploaded-dataset records in one SQLite file, safe across processes.
+
+    Every call opens its own short-lived connection, so one store object can be shared by the
+    request threads of the server and re-created cheaply inside each worker process.
+
+    Parameters
+    ----------
+    path
+        The SQLite file (created with its folder on first use).
+    """
+
+    def __init__(self, path: str | os.PathLike[str]):
+        self.path = Path(path)
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        with self._connect() as db:
+            # WAL lets readers (status polls) proceed while a worker writes a result.
+            db.execute("PRAGMA journal_mode=WAL")
+            db.executescript(_SCHEMA)
+
+    @contextmanager
+    def _connect(self) -> Iterator[sqlite3.Connection]:
+        db = sqlite3.connect(self.path, timeout=30.0, isolation_level=None)
+        db.row_factory = sqlite3.Row
+        try:
+            db.execute("PRAGMA busy_timeout=30000")
+            yield db
+        finally:
+            db.close()
+
+    # -- jobs ---------------------------------------------------------------------------------
+
+    def submit(self, kind: str, params: dict[str, Any]) -> JobRecord:
+        """Queue a job and return its record (state ``queued``)."""
+        if kind not in JOB_KINDS:
+            raise ValueError(f"unknown job kind {kind!r}; known: {list(JOB_KINDS)}")
+        job_id = secrets.token_hex(16)
+        with self._connect() as db:
+            db.execute(
+                "INSERT INTO jobs (id, kind, params, state, created) VALUES (?, ?, ?, ?, ?)",
+                (job_id, kind, json.dumps(params, sort_keys=True), QUEUED, utc_now()),
+            )
+        record = self.get(job_id)
+        assert record is not None
+        return record
+
+    def get(self, job_id: str) -> JobRecord | None:
+        """The job with this id, or ``None``."""
+        with self._connect() as db:
+            row = db.execute("SELECT * FROM jobs WHERE id = ?", (job_id,)).fetchone()
+        return JobRecord.from_row(row) if row is not None else None
+
+    def list(self, *, state: str | None = None, limit: int = 100) -> list[JobRecord]:
+        """Newest jobs first, optionally only those in one state."""
+        query, args = "SELECT * FROM jobs", []
+        if state is not None:
+            query += " WHERE state = ?"
+            args.append(state)
+        query += " ORDER BY seq DESC LIMIT ?"
+        args.append(int(limit))
+        with self._connect() as db:
+            rows = db.execute(query, args).fetchall()
+        return [JobRecord.from_row(row) for row in rows]
+
+    def counts(self) -> dict[str, int]:
+        """Number of jobs in each state (every state present, zero when none)."""
+        with self._connect() as db:
+            rows = db.execute("SELECT state, COUNT(*) AS n FROM jobs GROUP BY state").fetchall()
+        counts = {state: 0 for state in JOB_STATES}
+        counts.update({row["state"]: row["n"] for row in rows})
+        return counts
+
+    def claim(self, worker_pid: int) -> JobRecord | None:
+        """Atomically move the oldest queued job to ``running`` for this worker, or ``None``.
+
+        One statement does the choosing and the update, so SQLite's write lock makes the claim
+        atomic: a second worker running the same statement sees the row no longer queued.
+        """
+        token = secrets.token_hex(16)
+        with self._connect() as db:
+            row = db.execute(
+                "UPDATE jobs SET state = ?, claim = ?, worker_pid = ?, started = ? "
+                "WHERE seq = (SELECT seq FROM jobs WHERE state = ? ORDER BY seq LIMIT 1) "
+                "AND state = ? RETURNING *",
+                (RUNNING, token, worker_pid, utc_now(), QUEUED, QUEUED),
+            ).fetchone()
+        return JobRecord.from_row(row) if row is not None else None
+
+    def succeed(self, job_id: str, claim: str, result: dict[str, Any]) -> bool:
+        """Record a result; ``False`` when the claim was lost (the job was failed meanwhile)."""
+        with self._connect() as db:
+            cursor = db.execute(
+                "UPDATE jobs SET state = ?, result = ?, finished = ? "
+                "WHERE id = ? AND claim = ? AND state = ?",
+                (SUCCEEDED, json.dumps(result, sort_keys=True), utc_now(), job_id, claim, RUNNING),
+            )
+            return cursor.rowcount == 1
+
+    def fail(self, job_id: str, claim: str, code: str, message: str) -> bool:
+        """Record a failure; ``False`` when the claim was lost."""
+        with self._connect() as db:
+            cursor = db.execute(
+                "UPDATE jobs SET state = ?, error_code = ?, error_message = ?, finished = ? "
+                "WHERE id = ? AND claim = ? AND state = ?",
+                (FAILED, code, message, utc_now(), job_id, claim, RUNNING),
+            )
+            return cursor.rowcount == 1
+
+    def fail_running(self, reason: str, *, worker_pids: list[int] | None = None) -> list[str]:
+        """Mark running jobs failed (all, or those of the given workers); return their ids.
+
+        Called at start-up (a previous server died with these jobs in hand) and at shutdown for
+        workers that had to be stopped mid-job.
+        """
+        query = (
+            "UPDATE jobs SET state = ?, error_code = ?, error_message = ?, finished = ?, "
+            "claim = NULL WHERE state = ?"
+        )
+        args: list[Any] = [FAILED, INTERRUPTED, reason, utc_now(), RUNNING]
+        if worker_pids is not None:
+            if not worker_pids:
+                return []
+            query += f" AND worker_pid IN ({', '.join('?' for _ in worker_pids)})"
+            args.extend(worker_pids)
+        with self._connect() as db:
+            rows = db.execute(query + " RETURNING id", args).fetchall()
+        return [row["id"] for row in rows]
+
+    # -- datasets -----------------------------------------------------------------------------
+
+    def add_dataset(self, record: dict[str, Any]) -> bool:
+        """Insert a dataset record; ``False`` when one with this id already exists."""
+        row = dict(record)
+        row["variables"] = json.dumps(list(row["variables"]))
+        row["options"] = json.dumps(dict(row.get("options") or {}), sort_keys=True)
+        columns = (
+            "id", "fingerprint", "filename", "format", "size_bytes", "sha256", "variables",
+            "dt", "runs", "samples", "options", "created",
+        )
+        with self._connect() as db:
+            cursor = db.execute(
+                f"INSERT OR IGNORE INTO datasets ({', '.join(columns)}) "
+                f"VALUES ({', '.join('?' for _ in columns)})",
+                [row[c] for c in columns],
+            )
+            return cursor.rowcount == 1
+
+    def get_dataset(self, dataset_id: str) -> dict[str, Any] | None:
+        """The record of an uploaded dataset, or ``None``."""
+        with self._connect() as db:
+            row = db.execute("SELECT * FROM datasets WHERE id = ?", (dataset_id,)).fetchone()
+        return _dataset_dict(row) if row is not None else None
+
+    def list_datasets(self, *, limit: int = 100) -> list[dict[str, Any]]:
+        """Newest uploads first."""
+        with self._connect() as db:
+            rows = db.execute(
+                "SELECT * FROM datasets ORDER BY created DESC LIMIT ?", (int(limit),)
+            ).fetchall()
+        return [_dataset_dict(row) for row in rows]
+
+
+def _dataset_dict(row: sqlite3.Row) -> dict[str, Any]:
+    record = dict(row)
+    record["variables"] = json.loads(record["variables"])
+    record["options"] = json.loads(record["options"])
+    return record
+
+
+def hold_home_lock(settings) -> Any:
+    """Take the one-server-per-home lock (``home/service/server.lock``); return its open file.
+
+    Two servers on one home would each declare the other's running jobs interrupted at start-up.
+    The lock is an ``flock`` held for the server's life; the kernel drops it when the process
+    dies, however it dies, so a crashed server never blocks the next start.
+    """
+    from ergodex.exceptions import SettingsError
+
+    settings.service_dir.mkdir(parents=True, exist_ok=True)
+    handle = open(settings.service_dir / "server.lock", "a+")  # noqa: SIM115 - held open
+    try:
+        import fcntl
+    except ImportError:  # pragma: no cover - not POSIX: no lock, one server per home by convention
+        return handle
+    try:
+        fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except OSError:
+        handle.close()
+        raise SettingsError(
+            f"another ergodex serve is already using the home {settings.home}; stop it first or "
+            "give this one another --home"
+        ) from None
+    handle.seek(0)
+    handle.truncate()
+    handle.write(f"{os.getpid()}\n")
+    handle.flush()
+    return handle
+
+
+# -- worker processes ---------------------------------------------------------------------------
+
+
+def _die_with_parent(parent_pid: int) -> None:
+    """Make this worker exit when the server process that started it is gone.
+
+    A worker of a SIGKILLed server would otherwise live on as an orphan and keep running its job
+    while the restarted server declares that job interrupted. On Linux the kernel kills us
+    (prctl PR_SET_PDEATHSIG); everywhere a watchdog thread checks the parent every half second.
+    """
+    try:  # Linux only; elsewhere the watchdog below does the job, a little later
+        import ctypes
+        import signal
+
+        libc = ctypes.CDLL(None, use_errno=True)
+        pr_set_pdeathsig = 1  # from <linux/prctl.h>
+        libc.prctl(pr_set_pdeathsig, int(signal.SIGKILL), 0, 0, 0)
+    except (OSError, AttributeError):  # pragma: no cover - non-Linux
+        pass
+
+    def watch() -> None:
+        while True:
+            if os.getppid() != parent_pid:
+                os._exit(70)
+            time.sleep(0.5)
+
+    if os.getppid() != parent_pid:  # the parent died before prctl took effect
+        os._exit(70)
+    threading.Thread(target=watch, name="ergodex-parent-watch", daemon=True).start()
+
+
+def worker_main(jobs_path: str, home: str, parent_pid: int, control, poll_interval: float) -> None:
+    """Loop of one worker process: claim a queued job, run it, record the outcome.
+
+    ``control`` is the reading end of a pipe whose writing end the server holds: the worker
+    stops when the server sends on it or closes it (which also happens when the server dies).
+    Every outcome is recorded: an :class:`~ergodex.exceptions.ErgodexError` as a failure with a
+    code named after its class, anything else as ``internal-error`` with its type and message.
+    """
+    _die_with_parent(parent_pid)
+    from ergodex.service import tasks  # heavy imports happen lazily inside the tasks
+
+    store = JobStore(jobs_path)
+    pid = os.getpid()
+    while True:
+        try:
+            job = store.claim(pid)
+        except sqlite3.OperationalError as exc:  # a long lock held elsewhere: try again later
+            log.warning("worker %d could not claim a job: %s", pid, exc)
+            job = None
+        if job is None:
+            if control.poll(poll_interval):  # a message or EOF: either way, time to stop
+                return
+            continue
+        log.info("worker %d runs job %s (%s)", pid, job.id, job.kind)
+        try:
+            result = tasks.run(job.kind, job.params, home=Path(home), job_id=job.id)
+        except Exception as exc:  # noqa: BLE001 - every failure must end up on the job row
+            code, message = tasks.describe_error(exc)
+            if code == "internal-error":
+                log.exception("job %s failed unexpectedly", job.id)
+            store.fail(job.id, job.claim or "", code, message)
+        else:
+            if not store.succeed(job.id, job.claim or "", result):
+                log.warning("job %s finished after its claim was withdrawn", job.id)
+        if control.poll(0):
+            return
+
+
+class WorkerPool:
+    """The worker processes of one server.
+
+    Parameters
+    ----------
+    jobs_path, home
+        The job table and the registry home handed to each worker.
+    size
+        Number of worker processes.
+    poll_interval
+        Seconds an idle worker waits before looking for work again.
+    """
+
+    def __init__(self, jobs_path: Path, home: Path, *, size: int, poll_interval: float = 0.2):
+        self.jobs_path = Path(jobs_path)
+        self.home = Path(home)
+        self.size = int(size)
+        self.poll_interval = float(poll_interval)
+        # spawn, not fork: the server process has threads (event loop, thread pool), and forking
+        # a threaded process can copy a held lock into the child.
+        self._context = multiprocessing.get_context("spawn")
+        self._controls: list[Any] = []
+        self.processes: list[multiprocessing.process.BaseProcess] = []
+
+    def _spawn(self, index: int) -> tuple[Any, multiprocessing.process.BaseProcess]:
+        reader, writer = self._context.Pipe(duplex=False)
+        process = self._context.Process(
+            target=worker_main,
+            args=(str(self.jobs_path), str(self.home), os.getpid(), reader, self.poll_interval),
+            name=f"ergodex-worker-{index}",
+            daemon=True,
+        )
+        process.start()
+        reader.close()  # only the worker reads; our copy would hide the end-of-file
+        return writer, process
+
+    def start(self) -> None:
+        """Start the workers (no-op for size 0)."""
+        for index in range(self.size):
+            writer, process = self._spawn(index)
+            self._controls.append(writer)
+            self.processes.append(process)
+
+    def replace_dead(self, store: JobStore) -> list[str]:
+        """Fail the job of any worker that died (killed, out of memory, crashed) and restart it.
+
+        Returns the ids of the jobs marked failed. Called periodically by the server, so that a
+        job whose worker vanished is never left ``running`` until the next restart.
+        """
+        failed: list[str] = []
+        for index, process in enumerate(self.processes):
+            if process.is_alive() or process.exitcode is None:
+                continue
+            log.warning("worker %s (pid %s) died with exit code %s; starting another",
+                        process.name, process.pid, process.exitcode)
+            failed += store.fail_running(
+                f"the worker process running this job died (exit code {process.exitcode}); "
+                "submit it again",
+                worker_pids=[process.pid] if process.pid is not None else [],
+            )
+            try:
+                self._controls[index].close()
+            except OSError:  # pragma: no cover - already closed
+                pass
+            self._controls[index], self.processes[index] = self._spawn(index)
+        return failed
+
+    def alive(self) -> int:
+        """How many workers are running."""
+        return sum(1 for process in self.processes if process.is_alive())
+
+    def stop(self, store: JobStore, *, grace: float = 5.0) -> list[str]:
+        """Ask workers to stop; after ``grace`` seconds, end those still busy.
+
+        Jobs that were running in an ended worker are marked failed (returned ids), so a clean
+        shutdown never leaves a job ``running``.
+        """
+        for writer in self._controls:
+            try:
+                writer.send_bytes(b"stop")
+                writer.close()
+            except OSError:  # the worker is gone already
+                pass
+        self._controls = []
+        deadline = time.monotonic() + grace
+        for process in self.processes:
+            process.join(max(0.0, deadline - time.monotonic()))
+        ended = []
+        for process in self.processes:
+            if process.is_alive():
+                process.terminate()
+                process.join(5.0)
+                if process.is_alive():  # pragma: no cover - ignores SIGTERM
+                    process.kill()
+                    process.join(5.0)
+                ended.append(process.pid)
+        self.processes = []
+        return store.fail_running(
+            "the server shut down while this job was running; submit it again",
+            worker_pids=[pid for pid in ended if pid is not None],
+        )

@@ -1,0 +1,199 @@
+"""Request and response bodies of the HTTP service (pydantic models → the OpenAPI document).
+
+Every response the service sends has a model here, so that ``/openapi.json`` describes exactly
+what a client receives; the tests check the running server against that document.
+"""
+
+from ergodex.exceptions import require
+
+require("pydantic", "service", "the HTTP service")
+
+from typing import Any, Literal  # noqa: E402
+
+from pydantic import BaseModel, ConfigDict, Field  # noqa: E402
+
+#: A model name as the registry accepts it (see ergodex.registry.validate_name).
+NAME_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$"
+#: A version in a path: a number, or ``accepted`` for the newest accepted version.
+VERSION_PATTERN = r"^(accepted|[1-9][0-9]{0,8})$"
+#: A dataset id: the hex sha256 digest of the data's fingerprint.
+DATASET_PATTERN = r"^[0-9a-f]{64}$"
+#: A job id.
+JOB_PATTERN = r"^[0-9a-f]{32}$"
+
+
+class _Strict(BaseModel):
+    # Unknown keys are mistakes worth reporting; NaN and infinity are never a valid setting.
+    model_config = ConfigDict(extra="forbid", allow_inf_nan=False)
+
+
+class ErrorBody(BaseModel):
+    """Every error: a stable machine-readable ``code`` and a one-line ``message``."""
+
+    code: str = Field(description="stable error code, e.g. 'not-found', 'invalid-dataset'")
+    message: str = Field(description="what was wrong, in one line")
+
+
+class WorkerCounts(BaseModel):
+    configured: int
+    alive: int
+
+
+class Health(BaseModel):
+    status: Literal["ok", "degraded"] = Field(
+        description="'degraded' when fewer job workers are alive than configured"
+    )
+    version: str
+    workers: WorkerCounts
+    jobs: dict[str, int] = Field(description="number of jobs in each state")
+    writes_enabled: bool = Field(description="false when no token is configured")
+    reads_protected: bool
+
+
+class DatasetInfo(BaseModel):
+    id: str = Field(description="dataset id: hex digest of the data fingerprint")
+    fingerprint: str = Field(description="sha256 fingerprint of values, dt and names")
+    filename: str
+    format: Literal["csv", "npz", "netcdf"]
+    size_bytes: int
+    sha256: str = Field(description="sha256 of the uploaded file's bytes")
+    variables: list[str]
+    dt: float
+    runs: int
+    samples: int
+    options: dict[str, Any] = Field(description="reader options given with the upload")
+    created: str
+    already_present: bool = Field(
+        False, description="true when the same data had been uploaded before"
+    )
+
+
+class CheckOptions(_Strict):
+    """Settings of a statistical check (see ergodex.validation.CheckSpec); unset: defaults."""
+
+    # Upper bounds keep one request from occupying a worker for days.
+    members: int | None = Field(None, ge=2, le=1024, description="ensemble members")
+    length: float | None = Field(
+        None, gt=0, le=1e5, description="time units per member after spin-up"
+    )
+    spinup: float | None = Field(None, ge=0, le=1e5, description="time units discarded first")
+    seed: int | None = Field(None, ge=0, le=2**63 - 1)
+    bins: int | None = Field(None, ge=2, le=10_000)
+    max_lag: float | None = Field(None, gt=0, description="largest autocorrelation lag (time)")
+    tolerance: float | None = Field(None, gt=0, description="largest allowed row ratio")
+    tolerances: dict[str, float] | None = Field(None, description="tolerance per statistic")
+    statistics: list[str] | None = Field(None, description="statistics to compare")
+    regimes: dict[str, Any] | None = Field(
+        None, description="regime definitions as in a regimes file, as a JSON object"
+    )
+
+
+class FitJobRequest(_Strict):
+    dataset: str = Field(pattern=DATASET_PATTERN, description="id of an uploaded dataset")
+    name: str = Field(pattern=NAME_PATTERN, description="registry name for the new version")
+    method: str = Field("sparse", description="fit method: sparse, linear-inverse, quadratic-noise")
+    settings: dict[str, Any] = Field(default_factory=dict, description="fitter settings")
+    check_dataset: str | None = Field(
+        None, pattern=DATASET_PATTERN, description="held-out dataset; default: last runs of dataset"
+    )
+    holdout: int = Field(1, ge=1, le=10_000, description="runs held out when no check_dataset")
+    check: CheckOptions | None = None
+    accept: bool = Field(False, description="accept the new version if its scorecard passes")
+    note: str | None = Field(None, max_length=2000)
+
+
+class ValidateJobRequest(_Strict):
+    name: str = Field(pattern=NAME_PATTERN)
+    version: int | Literal["accepted"] = Field(
+        "accepted", description="version number, or 'accepted' for the newest accepted one"
+    )
+    dataset: str = Field(pattern=DATASET_PATTERN, description="id of an uploaded dataset")
+    check: CheckOptions | None = None
+
+
+class RetrainJobRequest(_Strict):
+    name: str = Field(pattern=NAME_PATTERN, description="registered model to retrain")
+    dataset: str = Field(pattern=DATASET_PATTERN, description="id of an uploaded dataset")
+    method: str | None = Field(None, description="challenger fit method; default: as before")
+    settings: dict[str, Any] | None = None
+    check: CheckOptions | None = None
+    holdout: int | None = Field(None, ge=1, le=10_000)
+    seed: int = Field(0, ge=0, le=2**63 - 1)
+
+
+class JobInfo(BaseModel):
+    id: str
+    kind: Literal["fit", "validate", "retrain"]
+    state: Literal["queued", "running", "succeeded", "failed"]
+    params: dict[str, Any]
+    created: str
+    started: str | None = None
+    finished: str | None = None
+    result: dict[str, Any] | None = Field(None, description="set when state is 'succeeded'")
+    error: ErrorBody | None = Field(None, description="set when state is 'failed'")
+
+
+class JobList(BaseModel):
+    jobs: list[JobInfo]
+
+
+class DatasetList(BaseModel):
+    datasets: list[DatasetInfo]
+
+
+class ModelSummaryOut(BaseModel):
+    name: str
+    versions: int
+    latest: int
+    accepted: int | None
+    statuses: dict[str, int]
+
+
+class ModelList(BaseModel):
+    models: list[ModelSummaryOut]
+
+
+class VersionOut(BaseModel):
+    name: str
+    version: int
+    ref: str
+    status: Literal["candidate", "accepted", "rejected", "retired"]
+    created: str
+    artifacts: dict[str, str] = Field(description="file name → sha256 of every stored file")
+    note: str = ""
+    parent: str | None = None
+    datasets: list[dict[str, Any]] = Field(default_factory=list)
+    verdict: str | None = None
+    data_fingerprint: str | None = None
+    model_fingerprint: str | None = None
+
+
+class VersionList(BaseModel):
+    name: str
+    versions: list[VersionOut]
+
+
+class EventOut(BaseModel):
+    id: int
+    time: str
+    version: int
+    event: str
+    from_status: str | None
+    to_status: str | None
+    actor: str
+    reason: str
+    override: bool
+
+
+class History(BaseModel):
+    name: str
+    events: list[EventOut]
+
+
+class AcceptRequest(_Strict):
+    reason: str = Field("", max_length=2000)
+    override: bool = Field(False, description="accept without a passing scorecard; needs a reason")
+
+
+class ReasonRequest(_Strict):
+    reason: str = Field(min_length=1, max_length=2000)

@@ -1,0 +1,961 @@
+"""Validation: do a surrogate's long-run statistics match the data's, within the data's own noise?
+
+The check (see DESIGN.md, "Statistics and the noise floor"):
+
+1. The reference data is cut into *pieces* of equal length that are close to independent:
+   separate runs, or blocks of one run separated by a gap of several decorrelation times.
+2. The surrogate is integrated from states drawn from the reference (seeded), a spin-up is
+   thrown away, and each member's output (at the data's sampling interval) is cut into pieces of
+   the same length. Members that blow up are counted, timed and left out.
+3. For every *row* (a statistic and a variable or regime) a distance ``d`` is computed between
+   two pieces. The **noise floor** is the mean of ``d`` over all pairs of reference pieces — how
+   far two honest samples of the truth already differ; the **value** is the mean of ``d`` over
+   all (model piece, reference piece) pairs. For a perfect surrogate both estimate the same
+   number, so ``ratio = value / noise floor`` is near 1; a wrong surrogate adds a bias that does
+   not shrink with sampling and drives the ratio up.
+4. The verdict is family-wise: the surrogate passes when the *largest* row ratio is within the
+   tolerance, the members agree with one another, and no member blew up. The default tolerance
+   was calibrated on known systems (``benchmarks/calibration.py``, figures in
+   ``benchmarks/README.md``).
+
+Rows (``CheckSpec.statistics``):
+
+========================  ==========================================================  =========
+statistic                 distance between two pieces                                 rows
+========================  ==========================================================  =========
+``histogram``             Wasserstein-1 distance of the marginal distributions         variables
+``autocorrelation``       RMS difference of the autocorrelation up to ``max_lag``      variables
+``spectrum``              L1 difference of Welch spectra / their mean total power      variables
+``quantiles``             mean absolute difference of the 1 %, 99 %, 99.9 % quantiles   variables
+``occupancy``             absolute difference of the fraction of time in a regime      regimes
+``residence``             absolute difference of the mean residence time               regimes
+``transitions``           Frobenius norm of the difference of transition matrices      one
+========================  ==========================================================  =========
+
+A passed check is evidence, not a certification: a surrogate that feeds decisions affecting
+people's safety must also meet the applicable codes, standards and licensed practice.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ergodex import stats
+from ergodex.exceptions import DataError, ModelFileError, SettingsError
+from ergodex.regimes import NONE_NAME, RegimeSet, mean_residence_times, occupancy, transition_matrix
+
+__all__ = [
+    "ALL_STATISTICS",
+    "DEFAULT_STATISTICS",
+    "DEFAULT_TOLERANCE",
+    "SCORECARD_FORMAT",
+    "CheckResult",
+    "CheckSpec",
+    "Evidence",
+    "ScoreRow",
+    "Scorecard",
+    "check",
+    "validate",
+]
+
+SCORECARD_FORMAT = "ergodex-scorecard/1"
+EVIDENCE_FORMAT = "ergodex-evidence/1"
+
+#: Largest allowed ratio of a row's model distance to its noise floor. Calibrated in
+#: ``benchmarks/calibration.py`` (rates in ``benchmarks/README.md``).
+DEFAULT_TOLERANCE = 2.0
+
+ALL_STATISTICS = ("histogram", "autocorrelation", "spectrum", "quantiles", "occupancy",
+                  "residence", "transitions")
+DEFAULT_STATISTICS = ("histogram", "autocorrelation", "spectrum", "quantiles", "occupancy")
+_REGIME_STATISTICS = ("occupancy", "residence", "transitions")
+
+# Decorrelation-time multiples for the defaults: gap between reference blocks and spin-up (5: the
+# correlation left after 5 integrated times is below e^-5 ≈ 0.7 % for exponential decay) and the
+# autocorrelation lag (3: the part of the ACF that carries information). Common practice, no source.
+_GAP_TIMES = 5.0
+_SPINUP_TIMES = 5.0
+_LAG_TIMES = 3.0
+# Quantile functions are compared on at most this many probability levels (exact when a piece
+# is shorter); the approximation error is far below the sampling noise of a piece.
+_MAX_QUANTILE_POINTS = 2000
+# A member whose every variable varies less than this fraction of the reference's standard
+# deviation has settled on a fixed point.
+_COLLAPSE_FRACTION = 1e-6
+_SAMPLE_SIZE = 2000
+
+
+def _finite_or_none(x):
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def _none_to_nan(x):
+    return float("nan") if x is None else float(x)
+
+
+# ---------------------------------------------------------------------------------------------
+# Settings
+# ---------------------------------------------------------------------------------------------
+
+
+@dataclass
+class CheckSpec:
+    """Every setting needed to repeat a check exactly.
+
+    Parameters
+    ----------
+    members : int, default 16
+        Ensemble members, each started from a reference state drawn with ``seed``.
+    length : float, optional
+        Time integrated per member after spin-up; default one reference piece. Longer members are
+        cut into several pieces (less noise in the model side of each row).
+    spinup : float, optional
+        Time integrated and discarded before output; default 5 decorrelation times.
+    seed : int, default 0
+        Seeds the draw of starting states and the noise of stochastic surrogates.
+    bins : int or "fd", default 35
+        Histogram bins (figures and evidence); see :func:`ergodex.stats.histogram_edges`.
+    max_lag : float, optional
+        Largest autocorrelation lag in time units; default 3 decorrelation times.
+    regimes : RegimeSet, optional
+        Regimes for the occupancy/residence/transition rows (skipped without).
+    tolerance : float, default :data:`DEFAULT_TOLERANCE`
+        Largest allowed ratio of model distance to noise floor, for every row.
+    tolerances : dict, optional
+        Per-statistic overrides, e.g. ``{"spectrum": 3.0}``.
+    statistics : tuple of str
+        Which rows to compute (see the module docstring).
+    min_pieces : int, default 4
+        Fewest reference pieces for a noise floor; runs are split into blocks when there are
+        fewer runs.
+    gap : float, optional
+        Time left out between blocks of one run; default 5 decorrelation times.
+    nperseg : int, optional
+        Welch segment length in samples; default ``min(256, piece length // 8)``.
+    max_blowup_fraction : float, default 0
+        Fraction of members allowed to blow up before the check fails.
+    """
+
+    members: int = 16
+    length: float | None = None
+    spinup: float | None = None
+    seed: int = 0
+    bins: int | str = stats.DEFAULT_BINS
+    max_lag: float | None = None
+    regimes: RegimeSet | None = None
+    tolerance: float = DEFAULT_TOLERANCE
+    tolerances: dict[str, float] = field(default_factory=dict)
+    statistics: tuple[str, ...] = DEFAULT_STATISTICS
+    min_pieces: int = 4
+    gap: float | None = None
+    nperseg: int | None = None
+    max_blowup_fraction: float = 0.0
+
+    def check_settings(self) -> None:
+        """Raise SettingsError naming the first setting that breaks its rule."""
+        def positive_int(name, v, low=1):
+            if isinstance(v, bool) or not isinstance(v, (int, np.integer)) or v < low:
+                raise SettingsError(f"{name} must be an integer ≥ {low}; got {v!r}")
+
+        def positive_float(name, v, allow_none=True, allow_zero=False):
+            if v is None and allow_none:
+                return
+            ok = isinstance(v, (int, float, np.floating)) and not isinstance(v, bool) and math.isfinite(v)
+            if not ok or v < 0 or (v == 0 and not allow_zero):
+                raise SettingsError(f"{name} must be a {'non-negative' if allow_zero else 'positive'} "
+                                    f"number; got {v!r}")
+
+        positive_int("members", self.members, 2)
+        positive_float("length", self.length)
+        positive_float("spinup", self.spinup, allow_zero=True)
+        positive_int("seed", self.seed, 0)
+        if not (self.bins == "fd" or (isinstance(self.bins, (int, np.integer))
+                                      and not isinstance(self.bins, bool) and self.bins >= 1)):
+            raise SettingsError(f"bins must be a positive integer or 'fd'; got {self.bins!r}")
+        positive_float("max_lag", self.max_lag)
+        positive_float("tolerance", self.tolerance, allow_none=False)
+        if not isinstance(self.tolerances, dict):
+            raise SettingsError(f"tolerances must be a table statistic → number; got {self.tolerances!r}")
+        for k, v in self.tolerances.items():
+            if k not in ALL_STATISTICS:
+                raise SettingsError(f"tolerances: unknown statistic {k!r}; known: {list(ALL_STATISTICS)}")
+            positive_float(f"tolerances.{k}", v, allow_none=False)
+        if isinstance(self.statistics, str) or not self.statistics:
+            raise SettingsError(f"statistics must be a non-empty list; got {self.statistics!r}")
+        for s in self.statistics:
+            if s not in ALL_STATISTICS:
+                raise SettingsError(f"statistics: unknown statistic {s!r}; known: {list(ALL_STATISTICS)}")
+        positive_int("min_pieces", self.min_pieces, 2)
+        positive_float("gap", self.gap, allow_zero=True)
+        if self.nperseg is not None:
+            positive_int("nperseg", self.nperseg, 8)
+        positive_float("max_blowup_fraction", self.max_blowup_fraction, allow_none=False,
+                       allow_zero=True)
+        if self.max_blowup_fraction >= 1:
+            raise SettingsError(f"max_blowup_fraction must be below 1; got {self.max_blowup_fraction}")
+        if self.regimes is not None and not isinstance(self.regimes, RegimeSet):
+            raise SettingsError(f"regimes must be a RegimeSet; got {type(self.regimes).__name__}")
+
+    def tolerance_for(self, statistic: str) -> float:
+        return float(self.tolerances.get(statistic, self.tolerance))
+
+    def to_dict(self) -> dict:
+        return {
+            "members": int(self.members), "length": self.length, "spinup": self.spinup,
+            "seed": int(self.seed), "bins": self.bins, "max_lag": self.max_lag,
+            "regimes": None if self.regimes is None else self.regimes.to_dict(),
+            "tolerance": float(self.tolerance), "tolerances": dict(self.tolerances),
+            "statistics": list(self.statistics), "min_pieces": int(self.min_pieces),
+            "gap": self.gap, "nperseg": self.nperseg,
+            "max_blowup_fraction": float(self.max_blowup_fraction),
+        }
+
+    @classmethod
+    def from_dict(cls, d: dict) -> CheckSpec:
+        if not isinstance(d, dict):
+            raise SettingsError(f"check settings must be a table; got {type(d).__name__}")
+        known = set(cls.__dataclass_fields__)
+        unknown = set(d) - known
+        if unknown:
+            raise SettingsError(f"unknown check setting(s) {sorted(unknown)}; known: {sorted(known)}")
+        kw = dict(d)
+        if kw.get("regimes") is not None:
+            kw["regimes"] = RegimeSet.from_dict(kw["regimes"], source="check settings: regimes")
+        if "statistics" in kw and isinstance(kw["statistics"], list):
+            kw["statistics"] = tuple(kw["statistics"])
+        if "tolerances" in kw and kw["tolerances"] is None:
+            kw["tolerances"] = {}
+        spec = cls(**kw)
+        spec.check_settings()
+        return spec
+
+
+# ---------------------------------------------------------------------------------------------
+# Results
+# ---------------------------------------------------------------------------------------------
+
+
+@dataclass
+class ScoreRow:
+    """One row of the scorecard: a statistic of one variable (or regime) against its noise floor.
+
+    ``value`` is the mean distance between model pieces and reference pieces, ``noise_floor`` the
+    mean distance between reference pieces, ``ratio = value / noise_floor``; the row passes when
+    ``ratio <= tolerance``. Non-finite numbers are stored as None in JSON.
+    """
+
+    statistic: str
+    variable: str
+    value: float
+    noise_floor: float
+    ratio: float
+    tolerance: float
+    verdict: str
+
+    def to_dict(self) -> dict:
+        return {"statistic": self.statistic, "variable": self.variable,
+                "value": _finite_or_none(self.value), "noise_floor": _finite_or_none(self.noise_floor),
+                "ratio": _finite_or_none(self.ratio) if not (isinstance(self.ratio, float)
+                                                             and math.isinf(self.ratio)) else None,
+                "tolerance": float(self.tolerance), "verdict": self.verdict}
+
+    @classmethod
+    def from_dict(cls, d: dict) -> ScoreRow:
+        ratio = d["ratio"]
+        if ratio is None and d["verdict"] == "fail":
+            ratio = float("inf")
+        return cls(d["statistic"], d["variable"], _none_to_nan(d["value"]),
+                   _none_to_nan(d["noise_floor"]), _none_to_nan(ratio), float(d["tolerance"]),
+                   d["verdict"])
+
+
+@dataclass
+class Scorecard:
+    """The verdict of a check, with everything needed to repeat it.
+
+    JSON layout (``format = "ergodex-scorecard/1"``); non-finite numbers are written as null:
+
+    - ``verdict``: ``"pass"`` or ``"fail"``; ``reasons``: list of one-line explanations (rows that
+      drove a failure, largest ratio first; blow-ups; member disagreement).
+    - ``rows``: list of {statistic, variable, value, noise_floor, ratio, tolerance, verdict}.
+    - ``blowups``: {count, members, times (time after spin-up; negative during spin-up),
+      allowed_fraction}.
+    - ``member_agreement``: {ratio, tolerance, verdict, collapsed_members, outlying_members,
+      per_variable}.
+    - ``spec``: the :class:`CheckSpec` as given; ``settings``: what was derived from it and the
+      data (piece length, numbers of pieces, gap, spin-up, lag, decorrelation times, Welch
+      segment, integration method and step, seeds).
+    - ``model_fingerprint``, ``data_fingerprint``, ``created`` (UTC, ISO 8601),
+      ``ergodex_version``.
+    """
+
+    verdict: str
+    rows: list[ScoreRow]
+    reasons: list[str]
+    blowups: dict
+    member_agreement: dict
+    spec: CheckSpec
+    model_fingerprint: str
+    data_fingerprint: str
+    created: str
+    ergodex_version: str
+    settings: dict = field(default_factory=dict)
+
+    @property
+    def passed(self) -> bool:
+        return self.verdict == "pass"
+
+    @property
+    def largest_ratio(self) -> float:
+        ratios = [r.ratio for r in self.rows if not math.isnan(r.ratio)]
+        return max(ratios) if ratios else float("nan")
+
+    def to_dict(self) -> dict:
+        return {
+            "format": SCORECARD_FORMAT, "verdict": self.verdict,
+            "rows": [r.to_dict() for r in self.rows], "reasons": list(self.reasons),
+            "blowups": _json_clean(self.blowups), "member_agreement": _json_clean(self.member_agreement),
+            "spec": self.spec.to_dict(), "settings": _json_clean(self.settings),
+            "model_fingerprint": self.model_fingerprint, "data_fingerprint": self.data_fingerprint,
+            "created": self.created, "ergodex_version": self.ergodex_version,
+        }
+
+    @classmethod
+    def from_dict(cls, d: dict, *, source: str = "scorecard") -> Scorecard:
+        if not isinstance(d, dict) or d.get("format") != SCORECARD_FORMAT:
+            got = d.get("format") if isinstance(d, dict) else type(d).__name__
+            raise ModelFileError(f"{source}: not a scorecard of format {SCORECARD_FORMAT!r} "
+                                 f"(format: {got!r})")
+        try:
+            return cls(
+                verdict=d["verdict"], rows=[ScoreRow.from_dict(r) for r in d["rows"]],
+                reasons=list(d["reasons"]), blowups=dict(d["blowups"]),
+                member_agreement=dict(d["member_agreement"]), spec=CheckSpec.from_dict(d["spec"]),
+                model_fingerprint=d["model_fingerprint"], data_fingerprint=d["data_fingerprint"],
+                created=d["created"], ergodex_version=d["ergodex_version"],
+                settings=dict(d.get("settings", {})))
+        except KeyError as exc:
+            raise ModelFileError(f"{source}: missing key {exc.args[0]!r}") from None
+        except (TypeError, ValueError, SettingsError) as exc:
+            raise ModelFileError(f"{source}: malformed scorecard ({exc})") from None
+
+    def to_json(self, path: str | os.PathLike | None = None) -> str:
+        """The JSON text; also written (atomically) to ``path`` when given."""
+        text = json.dumps(self.to_dict(), indent=2, allow_nan=False) + "\n"
+        if path is not None:
+            _atomic_write_text(Path(path), text)
+        return text
+
+    @classmethod
+    def from_json(cls, text_or_path: str | os.PathLike) -> Scorecard:
+        source = "scorecard"
+        text = str(text_or_path)
+        if not text.lstrip().startswith("{"):
+            p = Path(text_or_path)
+            try:
+                text = p.read_text(encoding="utf-8")
+            except OSError as exc:
+                raise ModelFileError(f"{p}: cannot read scorecard ({exc.strerror})") from None
+            source = str(p)
+        try:
+            d = json.loads(text)
+        except json.JSONDecodeError as exc:
+            raise ModelFileError(f"{source}: not valid JSON (line {exc.lineno}: {exc.msg})") from None
+        return cls.from_dict(d, source=source)
+
+    def table(self) -> str:
+        """A readable terminal table of the rows, blow-ups, member agreement and verdict."""
+        head = f"verdict: {self.verdict.upper()}"
+        if self.rows:
+            worst = max(self.rows, key=lambda r: -1 if math.isnan(r.ratio) else r.ratio)
+            head += (f"   largest ratio {_fmt(worst.ratio)} ({worst.statistic} {worst.variable}); "
+                     f"a ratio is the model's distance from the data over the data's own noise floor")
+        lines = [head, ""]
+        w_stat = max([len("statistic")] + [len(r.statistic) for r in self.rows])
+        w_var = max([len("variable")] + [len(r.variable) for r in self.rows])
+        lines.append(f"{'statistic':<{w_stat}}  {'variable':<{w_var}}  {'value':>10}  "
+                     f"{'noise floor':>11}  {'ratio':>7}  {'tol':>5}  verdict")
+        for r in self.rows:
+            lines.append(f"{r.statistic:<{w_stat}}  {r.variable:<{w_var}}  {_fmt(r.value):>10}  "
+                         f"{_fmt(r.noise_floor):>11}  {_fmt(r.ratio):>7}  {r.tolerance:>5.2f}  "
+                         f"{r.verdict}")
+        b = self.blowups
+        lines.append("")
+        lines.append(f"blow-ups: {b.get('count', 0)} of {self.spec.members} members")
+        m = self.member_agreement
+        if m:
+            lines.append(f"member agreement: ratio {_fmt(_none_to_nan(m.get('ratio')))} "
+                         f"(tolerance {m.get('tolerance', float('nan')):.2f}) {m.get('verdict', '')}")
+        if self.reasons:
+            lines.append("")
+            lines.extend(f"- {reason}" for reason in self.reasons)
+        lines.append("")
+        lines.append("A passed check is statistical evidence, not a certification; for decisions that "
+                     "can hurt people, follow the applicable codes, standards and licensed practice.")
+        return "\n".join(lines)
+
+
+def _fmt(x: float) -> str:
+    if x is None or (isinstance(x, float) and math.isnan(x)):
+        return "n/a"
+    if math.isinf(x):
+        return "inf"
+    return f"{x:.3g}" if abs(x) < 1e4 else f"{x:.3e}"
+
+
+def _json_clean(obj):
+    if isinstance(obj, dict):
+        return {str(k): _json_clean(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_json_clean(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return _json_clean(obj.tolist())
+    if isinstance(obj, (bool, np.bool_)):
+        return bool(obj)
+    if isinstance(obj, (int, np.integer)):
+        return int(obj)
+    if isinstance(obj, (float, np.floating)):
+        return _finite_or_none(obj)
+    return obj
+
+
+def _atomic_write_text(path: Path, text: str) -> None:
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
+    try:
+        tmp.write_text(text, encoding="utf-8")
+        os.replace(tmp, path)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+
+
+#: Evidence arrays, in order: name → (dtype kind, description). The report reads these names.
+EVIDENCE_FIELDS = {
+    "variables": "names of the data-space variables (n_vars,)",
+    "hist_edges": "bin edges (n_vars, n_bins + 1)",
+    "hist_reference": "reference masses incl. under/overflow (n_vars, n_bins + 2)",
+    "hist_reference_pieces": "per reference piece (n_pieces, n_vars, n_bins + 2)",
+    "hist_model": "model masses, all surviving members (n_vars, n_bins + 2)",
+    "acf_lags": "lags in time units (n_lags,)",
+    "acf_reference": "(n_lags, n_vars)",
+    "acf_reference_pieces": "(n_pieces, n_lags, n_vars)",
+    "acf_model": "(n_lags, n_vars)",
+    "psd_freq": "frequencies, cycles per time unit (n_freq,)",
+    "psd_reference": "(n_freq, n_vars)",
+    "psd_reference_pieces": "(n_pieces, n_freq, n_vars)",
+    "psd_model": "(n_freq, n_vars)",
+    "regime_names": "regime names, 'none' last (n_regimes + 1,); empty without regimes",
+    "occupancy_reference": "(n_regimes + 1,)",
+    "occupancy_reference_pieces": "(n_pieces, n_regimes + 1)",
+    "occupancy_model": "(n_regimes + 1,)",
+    "residence_reference": "mean residence time per regime (n_regimes + 1,)",
+    "residence_model": "(n_regimes + 1,)",
+    "transitions_reference": "jump-chain transition matrix (n_regimes + 1, n_regimes + 1)",
+    "transitions_model": "(n_regimes + 1, n_regimes + 1)",
+    "sample_reference": "random reference states (N, n_vars)",
+    "sample_model": "random model states (N, n_vars)",
+    "blowup_times": "blow-up time per member, NaN where none (n_members,)",
+}
+
+
+@dataclass
+class Evidence:
+    """The arrays behind a scorecard, for figures and reports (see :data:`EVIDENCE_FIELDS`).
+
+    Stored as NPZ with fixed key names and no pickled objects (names are fixed-width unicode
+    arrays), so ``numpy.load(path, allow_pickle=False)`` reads it anywhere.
+    """
+
+    variables: np.ndarray
+    hist_edges: np.ndarray
+    hist_reference: np.ndarray
+    hist_reference_pieces: np.ndarray
+    hist_model: np.ndarray
+    acf_lags: np.ndarray
+    acf_reference: np.ndarray
+    acf_reference_pieces: np.ndarray
+    acf_model: np.ndarray
+    psd_freq: np.ndarray
+    psd_reference: np.ndarray
+    psd_reference_pieces: np.ndarray
+    psd_model: np.ndarray
+    regime_names: np.ndarray
+    occupancy_reference: np.ndarray
+    occupancy_reference_pieces: np.ndarray
+    occupancy_model: np.ndarray
+    residence_reference: np.ndarray
+    residence_model: np.ndarray
+    transitions_reference: np.ndarray
+    transitions_model: np.ndarray
+    sample_reference: np.ndarray
+    sample_model: np.ndarray
+    blowup_times: np.ndarray
+
+    def to_npz(self, path: str | os.PathLike) -> None:
+        """Write every array to ``path`` (compressed NPZ, atomically)."""
+        path = Path(path)
+        arrays = {name: np.asarray(getattr(self, name)) for name in EVIDENCE_FIELDS}
+        arrays["format"] = np.array(EVIDENCE_FORMAT)
+        tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp.npz")
+        try:
+            np.savez_compressed(tmp, **arrays)
+            os.replace(tmp, path)
+        finally:
+            if tmp.exists():
+                tmp.unlink()
+
+    @classmethod
+    def from_npz(cls, path: str | os.PathLike) -> Evidence:
+        path = Path(path)
+        try:
+            with np.load(path, allow_pickle=False) as z:
+                if "format" not in z.files or str(z["format"]) != EVIDENCE_FORMAT:
+                    raise ModelFileError(f"{path}: not an evidence file of format {EVIDENCE_FORMAT!r}")
+                missing = [k for k in EVIDENCE_FIELDS if k not in z.files]
+                if missing:
+                    raise ModelFileError(f"{path}: evidence file lacks {missing}")
+                return cls(**{k: z[k] for k in EVIDENCE_FIELDS})
+        except (OSError, ValueError) as exc:
+            if isinstance(exc, ModelFileError):
+                raise
+            raise ModelFileError(f"{path}: cannot read evidence ({exc})") from None
+
+
+@dataclass
+class CheckResult:
+    """A scorecard and the evidence behind it."""
+
+    scorecard: Scorecard
+    evidence: Evidence
+
+    @property
+    def passed(self) -> bool:
+        return self.scorecard.passed
+
+
+# ---------------------------------------------------------------------------------------------
+# Pieces and their statistics
+# ---------------------------------------------------------------------------------------------
+
+
+def _reference_pieces(reference, min_pieces: int, gap_time: float) -> tuple[np.ndarray, dict]:
+    """Equal-length, nearly independent pieces of the reference: (n_pieces, L, n_vars)."""
+    from ergodex.series import cut_blocks
+
+    info = {"piece_source": "runs"}
+    series = reference
+    if reference.n_runs < min_pieces:
+        blocks = -(-min_pieces // reference.n_runs)  # ceiling division
+        try:
+            series = cut_blocks(reference, blocks, gap_time)
+        except DataError as exc:
+            raise DataError(
+                f"{reference.source or 'reference data'}: too short for a noise floor: "
+                f"{reference.n_runs} run(s) cannot give {min_pieces} pieces separated by "
+                f"{gap_time:.3g} time units ({exc}); supply more or longer runs") from None
+        info = {"piece_source": "blocks", "blocks_per_run": blocks}
+    length = min(series.lengths)
+    pieces = np.stack([np.asarray(r[:length], float) for r in series.runs])
+    info["piece_length_samples"] = int(length)
+    info["n_reference_pieces"] = int(pieces.shape[0])
+    return pieces, info
+
+
+class _PieceStats:
+    """The per-piece statistics every row needs, computed once per set of pieces."""
+
+    def __init__(self, pieces: np.ndarray, ctx: dict):
+        self.n = pieces.shape[0]
+        stats_wanted = ctx["statistics"]
+        L = pieces.shape[1]
+        if "histogram" in stats_wanted:
+            k = min(L, _MAX_QUANTILE_POINTS)
+            srt = np.sort(pieces, axis=1)
+            idx = np.minimum(np.ceil((np.arange(k) + 0.5) / k * L).astype(int) - 1, L - 1)
+            self.qf = srt[:, np.maximum(idx, 0), :]  # (P, K, n)
+        if "quantiles" in stats_wanted:
+            self.quant = np.quantile(pieces, stats.DEFAULT_QUANTILES, axis=1).transpose(1, 0, 2)
+        if "autocorrelation" in stats_wanted:
+            self.acf = _acf_pieces(pieces, ctx["max_lag_samples"])
+        if "spectrum" in stats_wanted:
+            from scipy.signal import welch
+
+            _, self.psd = welch(pieces, fs=1.0 / ctx["dt"], nperseg=ctx["nperseg"], axis=1)
+        regimes = ctx.get("regimes")
+        if regimes is not None:
+            nr = regimes.n_regimes
+            labels = [regimes.classify(p, ctx["variables"]) for p in pieces]
+            self.occ = np.stack([occupancy(l, nr) for l in labels])
+            if "residence" in stats_wanted:
+                self.res = np.stack([mean_residence_times(l, ctx["dt"], nr) for l in labels])
+            if "transitions" in stats_wanted:
+                self.trans = np.stack([transition_matrix(l, nr) for l in labels])
+
+
+def _acf_pieces(pieces: np.ndarray, max_lag: int) -> np.ndarray:
+    """Autocorrelation of each piece separately (P, max_lag + 1, n), as stats.autocorrelation."""
+    d = pieces - pieces.mean(axis=1, keepdims=True)
+    L = d.shape[1]
+    nfft = 1 << int(np.ceil(np.log2(2 * L - 1)))
+    f = np.fft.rfft(d, n=nfft, axis=1)
+    acov = np.fft.irfft(f * np.conj(f), n=nfft, axis=1)[:, : max_lag + 1]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return acov / acov[:, :1]
+
+
+def _pair_distances(statistic: str, a: _PieceStats, b: _PieceStats, same: bool) -> np.ndarray:
+    """Distances between every piece of ``a`` and every piece of ``b``: (n_pairs, n_rows).
+
+    With ``same`` (a is b) only the pairs i < j are returned.
+    """
+    def pairs(x, y, fn):
+        ii, jj = (np.triu_indices(x.shape[0], 1) if same
+                  else np.meshgrid(np.arange(x.shape[0]), np.arange(y.shape[0]), indexing="ij"))
+        ii, jj = np.ravel(ii), np.ravel(jj)
+        out = []
+        # chunks keep the temporary (pairs × points × variables) array small
+        for s in range(0, ii.size, 64):
+            out.append(fn(x[ii[s:s + 64]], y[jj[s:s + 64]]))
+        return np.concatenate(out) if out else np.zeros((0,) + fn(x[:1], y[:1]).shape[1:])
+
+    if statistic == "histogram":
+        # Wasserstein-1 between equal-length samples: mean |sorted a − sorted b| (Villani 2009)
+        return pairs(a.qf, b.qf, lambda x, y: np.mean(np.abs(x - y), axis=1))
+    if statistic == "quantiles":
+        return pairs(a.quant, b.quant, lambda x, y: np.mean(np.abs(x - y), axis=1))
+    if statistic == "autocorrelation":
+        return pairs(a.acf, b.acf, lambda x, y: np.sqrt(np.mean((x[:, 1:] - y[:, 1:]) ** 2, axis=1)))
+    if statistic == "spectrum":
+        def l1(x, y):
+            return np.sum(np.abs(x - y), axis=1) / (0.5 * np.sum(x + y, axis=1))
+        return pairs(a.psd, b.psd, l1)
+    if statistic == "occupancy":
+        return pairs(a.occ[:, :-1], b.occ[:, :-1], lambda x, y: np.abs(x - y))
+    if statistic == "residence":
+        return pairs(a.res[:, :-1], b.res[:, :-1], lambda x, y: np.abs(x - y))
+    if statistic == "transitions":
+        return pairs(a.trans, b.trans, lambda x, y: np.sqrt(np.sum((x - y) ** 2, axis=(1, 2)))[:, None])
+    raise SettingsError(f"unknown statistic {statistic!r}")  # pragma: no cover - checked in spec
+
+
+def _row_labels(statistic: str, variables, regimes) -> list[str]:
+    if statistic in ("occupancy", "residence"):
+        return list(regimes.names)
+    if statistic == "transitions":
+        return ["all regimes"]
+    return list(variables)
+
+
+# ---------------------------------------------------------------------------------------------
+# The check
+# ---------------------------------------------------------------------------------------------
+
+
+def _data_space_names(surrogate, reference) -> np.ndarray | None:
+    """Column order mapping model output (data space) onto the reference's variables."""
+    if surrogate.transform is None:
+        sv = list(surrogate.variables)
+        if sorted(sv) != sorted(reference.names):
+            raise DataError(
+                f"{reference.source or 'reference data'}: variables {list(reference.names)} do not "
+                f"match the model's {sv}; check the data file or the model")
+        return np.array([sv.index(n) for n in reference.names])
+    return None
+
+
+def check(surrogate, reference, spec: CheckSpec | None = None) -> CheckResult:
+    """Validate a surrogate against reference data: scorecard plus evidence.
+
+    Parameters
+    ----------
+    surrogate : Surrogate
+    reference : Series
+        The data, in data space. Its runs (or blocks of them) provide the noise floor.
+    spec : CheckSpec, optional
+        Settings; defaults as documented on :class:`CheckSpec`.
+
+    Returns
+    -------
+    CheckResult
+
+    Raises
+    ------
+    DataError
+        When the reference is too short for a noise floor or its variables do not match the model.
+    SettingsError
+        For bad settings. A surrogate that blows up is a finding in the scorecard, never an error.
+
+    References
+    ----------
+    .. [1] C. Villani, *Optimal Transport: Old and New*, Springer (2009) (Wasserstein-1).
+    .. [2] P. D. Welch, IEEE Trans. Audio Electroacoust. 15, 70–73 (1967) (spectra).
+    .. [3] A. D. Sokal (1997), Monte Carlo methods in statistical mechanics (decorrelation time).
+    """
+    import ergodex
+    from ergodex.integrate import blowup_bound, integrate_ensemble
+
+    spec = CheckSpec() if spec is None else spec
+    if not isinstance(spec, CheckSpec):
+        raise SettingsError(f"spec must be a CheckSpec; got {type(spec).__name__}")
+    spec.check_settings()
+    variables = tuple(reference.names)
+    n_vars = len(variables)
+    dt = float(reference.dt)
+    order = _data_space_names(surrogate, reference)
+
+    regimes = spec.regimes
+    if regimes is not None and regimes.needs_fit:
+        regimes = regimes.fit(reference.stacked(), variables)
+    statistics = tuple(s for s in spec.statistics if regimes is not None or s not in _REGIME_STATISTICS)
+
+    # -- decorrelation time and derived settings -----------------------------------------
+    tau = np.atleast_1d(stats.integrated_autocorrelation_time(list(reference.runs), dt))
+    tau_d = float(max(np.max(tau), dt))
+    gap = _GAP_TIMES * tau_d if spec.gap is None else float(spec.gap)
+    ref_pieces, piece_info = _reference_pieces(reference, spec.min_pieces, gap)
+    L = ref_pieces.shape[1]
+    max_lag_time = _LAG_TIMES * tau_d if spec.max_lag is None else float(spec.max_lag)
+    max_lag = int(np.clip(round(max_lag_time / dt), 1, max(1, L // 4)))
+    nperseg = int(spec.nperseg) if spec.nperseg is not None else int(max(8, min(256, L // 8)))
+    if nperseg > L:
+        raise SettingsError(f"nperseg {nperseg} exceeds the reference piece length {L} samples")
+    if L < 4 * max_lag or L < 16:
+        raise DataError(
+            f"{reference.source or 'reference data'}: reference pieces of {L} samples are too short "
+            f"(need at least {max(16, 4 * max_lag)} for lags up to {max_lag} samples); supply longer runs")
+    spinup = _SPINUP_TIMES * tau_d if spec.spinup is None else float(spec.spinup)
+    member_time = L * dt if spec.length is None else float(spec.length)
+    n_out = int(round(member_time / dt))
+    if n_out < L:
+        raise SettingsError(f"length {member_time:g} is shorter than one reference piece "
+                            f"({L * dt:g} time units); members must cover at least one piece")
+    pieces_per_member = n_out // L
+
+    seeds = np.random.SeedSequence(spec.seed).generate_state(2)
+    rng = np.random.default_rng(int(seeds[0]))
+    stacked = reference.stacked()
+    starts = stacked[rng.choice(stacked.shape[0], size=spec.members, replace=True)]
+    z0 = surrogate.to_model_space(starts)
+    z_ref = surrogate.to_model_space(stacked)
+    bound = blowup_bound(z_ref, factor=10.0)
+    run = integrate_ensemble(surrogate, z0, dt_out=dt, n_out=n_out, spinup=spinup, bound=bound,
+                             seed=int(seeds[1]))
+
+    # -- model output in data space -----------------------------------------------------------
+    alive = ~np.asarray(run.blown_up, bool)
+    model = np.full((spec.members, n_out, n_vars), np.nan)
+    for m in np.flatnonzero(alive):
+        x = surrogate.to_data_space(run.states[m])
+        if x.shape[1] != n_vars:
+            raise DataError(f"the model's data space has {x.shape[1]} variables, the reference "
+                            f"{n_vars} ({list(variables)})")
+        model[m] = x if order is None else x[:, order]
+
+    ctx = {"statistics": statistics, "max_lag_samples": max_lag, "dt": dt, "nperseg": nperseg,
+           "regimes": regimes, "variables": variables}
+    settings = {
+        **piece_info,
+        "piece_length_time": L * dt, "gap": gap, "spinup": spinup, "max_lag": max_lag * dt,
+        "max_lag_samples": max_lag, "nperseg": nperseg, "decorrelation_time": tau_d,
+        "integrated_autocorrelation_time": {v: float(t) for v, t in zip(variables, tau)},
+        "member_length": n_out * dt, "pieces_per_member": pieces_per_member,
+        "statistics": list(statistics), "dt": dt,
+        "start_seed": int(seeds[0]), "noise_seed": run.seed, "integration": run.summary(),
+        "regimes_used": None if regimes is None else regimes.to_dict(),
+        "quantile_levels": list(stats.DEFAULT_QUANTILES),
+    }
+
+    # -- blow-ups -------------------------------------------------------------------------
+    reasons: list[str] = []
+    n_blown = int(np.count_nonzero(~alive))
+    blowup_times = np.where(alive, np.nan, np.asarray(run.blowup_time, float))
+    blowups = {"count": n_blown, "members": [int(m) for m in np.flatnonzero(~alive)],
+               "times": [float(t) for t in blowup_times[~alive]],
+               "allowed_fraction": spec.max_blowup_fraction}
+    blowup_fail = n_blown > spec.max_blowup_fraction * spec.members
+    if n_blown:
+        first = float(np.nanmin(blowup_times))
+        reasons.append(f"{n_blown} of {spec.members} members blew up (left the data range ten-fold or "
+                       f"became non-finite), the first at t = {first:.4g} after spin-up")
+
+    ref_stats = _PieceStats(ref_pieces, ctx)
+    rows: list[ScoreRow] = []
+    agreement: dict = {}
+    if alive.any():
+        model_pieces = model[alive][:, : pieces_per_member * L].reshape(-1, L, n_vars)
+        mod_stats = _PieceStats(model_pieces, ctx)
+        for s in statistics:
+            tol = spec.tolerance_for(s)
+            floor = np.nanmean(_pair_distances(s, ref_stats, ref_stats, True), axis=0)
+            value = np.nanmean(_pair_distances(s, mod_stats, ref_stats, False), axis=0)
+            for label, v, f in zip(_row_labels(s, variables, regimes), value, floor):
+                ratio = _ratio(v, f)
+                verdict = "pass" if ratio <= tol else "fail"
+                rows.append(ScoreRow(s, label, float(v), float(f), ratio, tol, verdict))
+        agreement = _member_agreement(model, alive, L, ref_stats, ref_pieces, spec, ctx)
+    else:
+        reasons.insert(0, "every member blew up: no statistics can be compared")
+        agreement = {"ratio": None, "tolerance": spec.tolerance, "verdict": "fail",
+                     "collapsed_members": [], "outlying_members": [], "per_variable": {}}
+
+    failing = sorted((r for r in rows if r.verdict == "fail"),
+                     key=lambda r: -r.ratio if not math.isnan(r.ratio) else 0.0)
+    for r in failing:
+        reasons.append(f"{r.statistic} of {r.variable}: distance {_fmt(r.ratio)}× the noise floor "
+                       f"(tolerance {r.tolerance:g})")
+    reasons.extend(agreement.pop("_reasons", []))
+    passed = (not blowup_fail and alive.any() and not failing
+              and agreement.get("verdict") == "pass")
+    scorecard = Scorecard(
+        verdict="pass" if passed else "fail", rows=rows, reasons=reasons, blowups=blowups,
+        member_agreement=agreement, spec=spec, model_fingerprint=surrogate.fingerprint(),
+        data_fingerprint=reference.fingerprint(),
+        created=datetime.now(timezone.utc).isoformat(timespec="seconds"),
+        ergodex_version=ergodex.__version__, settings=settings)
+    evidence = _evidence(reference, ref_pieces, model, alive, blowup_times, spec, ctx, rng)
+    return CheckResult(scorecard, evidence)
+
+
+def _ratio(value: float, floor: float) -> float:
+    if math.isnan(value) or math.isnan(floor):
+        return float("nan")
+    if floor <= 0:
+        return 0.0 if value <= 0 else float("inf")
+    return float(value / floor)
+
+
+def _member_agreement(model, alive, L, ref_stats, ref_pieces, spec, ctx) -> dict:
+    """Do the members tell the same story? Compares each member's first piece with the others'.
+
+    A surrogate with several attractors (or one whose members collapse to different fixed
+    points) gives members whose marginals differ by far more than the reference's noise floor,
+    even when the pooled statistics happen to look right.
+    """
+    tol = spec.tolerance
+    variables = ctx["variables"]
+    members = np.flatnonzero(alive)
+    ref_sd = np.nanstd(ref_pieces.reshape(-1, ref_pieces.shape[2]), axis=0)
+    first = model[members][:, :L]
+    collapsed = [int(m) for m, p in zip(members, first)
+                 if np.all(np.std(model[m], axis=0) < _COLLAPSE_FRACTION * ref_sd)]
+    reasons = []
+    if collapsed and len(collapsed) == len(members):
+        reasons.append("every surviving member settles on a fixed point")
+    elif collapsed:
+        reasons.append(f"{len(collapsed)} of {len(members)} members settle on a fixed point while "
+                       f"the others keep moving")
+    out = {"tolerance": tol, "collapsed_members": collapsed, "outlying_members": [],
+           "per_variable": {}}
+    if len(members) < 2:
+        out.update(ratio=None, verdict="pass" if not collapsed else "fail")
+        out["_reasons"] = reasons
+        return out
+    ctx_h = dict(ctx, statistics=("histogram",), regimes=None)
+    mem = _PieceStats(first, ctx_h)
+    floor = np.mean(_pair_distances("histogram", ref_stats, ref_stats, True), axis=0)
+    ii, jj = np.triu_indices(len(members), 1)
+    d = _pair_distances("histogram", mem, mem, True)  # (pairs, n_vars), in triu order
+    per_var = d.mean(axis=0) / np.maximum(floor, np.finfo(float).tiny)
+    ratio = float(np.max(per_var))
+    # members whose mean distance to the others is beyond tolerance on some variable
+    each = np.zeros((len(members), d.shape[1]))
+    np.add.at(each, ii, d)
+    np.add.at(each, jj, d)
+    each /= len(members) - 1
+    outlying = [int(members[k]) for k in np.flatnonzero(np.any(each / floor > tol, axis=1))]
+    verdict = "pass" if ratio <= tol and not collapsed else "fail"
+    if ratio > tol:
+        reasons.append(f"members disagree: their marginal distributions differ {_fmt(ratio)}× the "
+                       f"reference noise floor (tolerance {tol:g}); the surrogate may have several "
+                       f"attractors (outlying members: {outlying[:8]})")
+    out.update(ratio=ratio, verdict=verdict, outlying_members=outlying,
+               per_variable={v: float(r) for v, r in zip(variables, per_var)})
+    out["_reasons"] = reasons
+    return out
+
+
+def _evidence(reference, ref_pieces, model, alive, blowup_times, spec, ctx, rng) -> Evidence:
+    variables = ctx["variables"]
+    n_vars = len(variables)
+    dt = ctx["dt"]
+    stacked = reference.stacked()
+    live = [model[m] for m in np.flatnonzero(alive)]
+    pooled = np.concatenate(live) if live else np.full((1, n_vars), np.nan)
+
+    edges = np.stack([stats.histogram_edges(stacked[:, j], spec.bins) for j in range(n_vars)]) \
+        if spec.bins != "fd" else None
+    if edges is None:  # Freedman–Diaconis gives a different count per variable: use the largest
+        counts = [stats.histogram_edges(stacked[:, j], "fd").size - 1 for j in range(n_vars)]
+        edges = np.stack([stats.histogram_edges(stacked[:, j], max(counts)) for j in range(n_vars)])
+    hist = lambda x: np.stack([stats.histogram(x[..., j], edges[j]) for j in range(n_vars)])  # noqa: E731
+    max_lag = ctx["max_lag_samples"]
+    acf_ref = stats.autocorrelation(list(reference.runs), max_lag)
+    freq, psd_ref = stats.power_spectrum(list(reference.runs), dt, nperseg=ctx["nperseg"])
+    from scipy.signal import welch
+
+    _, psd_pieces = welch(ref_pieces, fs=1.0 / dt, nperseg=ctx["nperseg"], axis=1)
+    if live:
+        acf_mod = stats.autocorrelation(live, max_lag)
+        psd_mod = stats.power_spectrum(live, dt, nperseg=ctx["nperseg"])[1]
+    else:
+        acf_mod = np.full_like(acf_ref, np.nan)
+        psd_mod = np.full_like(psd_ref, np.nan)
+
+    regimes = ctx["regimes"]
+    if regimes is not None:
+        nr = regimes.n_regimes
+        names = np.array(list(regimes.names) + [NONE_NAME])
+        ref_labels = [regimes.classify(r, variables) for r in reference.runs]
+        piece_labels = [regimes.classify(p, variables) for p in ref_pieces]
+        mod_labels = [regimes.classify(x, variables) for x in live]
+        occ_ref = occupancy(ref_labels, nr)
+        occ_pieces = np.stack([occupancy(l, nr) for l in piece_labels])
+        res_ref = mean_residence_times(ref_labels, dt, nr)
+        trans_ref = transition_matrix(ref_labels, nr)
+        if live:
+            occ_mod = occupancy(mod_labels, nr)
+            res_mod = mean_residence_times(mod_labels, dt, nr)
+            trans_mod = transition_matrix(mod_labels, nr)
+        else:
+            occ_mod, res_mod = np.full(nr + 1, np.nan), np.full(nr + 1, np.nan)
+            trans_mod = np.full((nr + 1, nr + 1), np.nan)
+    else:
+        names = np.array([], dtype="<U1")
+        occ_ref = occ_mod = res_ref = res_mod = np.zeros(0)
+        occ_pieces = np.zeros((ref_pieces.shape[0], 0))
+        trans_ref = trans_mod = np.zeros((0, 0))
+
+    def sample(x):
+        x = x[np.all(np.isfinite(x), axis=1)]
+        if x.shape[0] == 0:
+            return np.zeros((0, n_vars))
+        idx = np.sort(rng.choice(x.shape[0], size=min(_SAMPLE_SIZE, x.shape[0]), replace=False))
+        return x[idx]
+
+    return Evidence(
+        variables=np.array(variables), hist_edges=edges, hist_reference=hist(stacked),
+        hist_reference_pieces=np.stack([hist(p) for p in ref_pieces]), hist_model=hist(pooled),
+        acf_lags=np.arange(max_lag + 1) * dt, acf_reference=acf_ref,
+        acf_reference_pieces=_acf_pieces(ref_pieces, max_lag), acf_model=acf_mod,
+        psd_freq=freq, psd_reference=psd_ref, psd_reference_pieces=psd_pieces, psd_model=psd_mod,
+        regime_names=names, occupancy_reference=occ_ref, occupancy_reference_pieces=occ_pieces,
+        occupancy_model=occ_mod, residence_reference=res_ref, residence_model=res_mod,
+        transitions_reference=trans_ref, transitions_model=trans_mod,
+        sample_reference=sample(stacked), sample_model=sample(pooled),
+        blowup_times=np.asarray(blowup_times, float))
+
+
+def validate(surrogate, reference, spec: CheckSpec | None = None) -> Scorecard:
+    """Like :func:`check`, returning only the scorecard."""
+    return check(surrogate, reference, spec).scorecard

@@ -1,0 +1,91 @@
+"""QuadraticNoiseModel: polynomial drift by least squares plus a white or AR(1) noise closure."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from ergodex.exceptions import SettingsError
+from ergodex.fitting import make_fitter
+from ergodex.fitting.closure import ridge_regression
+from ergodex.series import Series
+
+
+@pytest.fixture(scope="module")
+def double_well_series():
+    from ergodex.scenarios import double_well
+
+    return double_well(seed=31, n_runs=4, duration=400.0, dt=0.05)
+
+
+def test_ridge_regression_matches_least_squares_without_ridge():
+    # With ridge = 0 the solution is ordinary least squares (numpy.linalg.lstsq, reference).
+    rng = np.random.default_rng(30)
+    Theta = rng.normal(size=(200, 4)) * [1.0, 10.0, 0.1, 3.0]
+    Y = rng.normal(size=(200, 2))
+    expected = np.linalg.lstsq(Theta, Y, rcond=None)[0].T
+    np.testing.assert_allclose(ridge_regression(Theta, Y, 0.0), expected, rtol=1e-10, atol=1e-12)
+    shrunk = ridge_regression(Theta, Y, 1.0)
+    assert np.linalg.norm(shrunk * np.sqrt(np.mean(Theta**2, axis=0))) < np.linalg.norm(
+        expected * np.sqrt(np.mean(Theta**2, axis=0))
+    )
+
+
+def test_double_well_drift_and_noise(double_well_series):
+    # Truth: dx = (x − x³) dt + 0.7 dW (the scenario's Langevin equation; wells at ±1, noise
+    # variance 0.49 per unit time). One-step differences at dt = 0.05 carry the first-order
+    # Itô–Taylor bias (dt/2)(f f' + σ²/2 f'') (Kloeden & Platen 1992, §5.5), about 0.1 on the
+    # cubic coefficient here; the tolerances allow for it, and the wells (roots of the drift) are
+    # far less affected.
+    fitter = make_fitter("quadratic-noise", {"degree": 3}).fit(double_well_series)
+    coef = dict(zip(fitter.feature_names_, fitter.coefficients_[0]))
+    assert abs(coef["x"] - 1.0) < 0.2
+    assert abs(coef["x^3"] + 1.0) < 0.2
+    assert abs(coef["1"]) < 0.05 and abs(coef["x^2"]) < 0.05
+    well = np.sqrt(-coef["x"] / coef["x^3"])
+    assert abs(well - 1.0) < 0.05
+    assert abs(fitter.noise_covariance_[0, 0] - 0.49) < 0.1 * 0.49
+    surrogate = fitter.surrogate_
+    assert surrogate.kind == "polynomial-stochastic" and surrogate.is_stochastic
+    np.testing.assert_allclose(surrogate.noise, fitter.noise_covariance_)
+
+
+def test_central_differences_cancel_the_drift_of_a_reversible_process(double_well_series):
+    # For a reversible diffusion the backward increment has the opposite conditional mean, so
+    # central differences lose the drift (why "forward" is the default; Kloeden & Platen 1992).
+    central = make_fitter("quadratic-noise", {"degree": 3, "differentiation": "finite-difference"}).fit(
+        double_well_series
+    )
+    forward = make_fitter("quadratic-noise", {"degree": 3}).fit(double_well_series)
+    assert abs(central.coefficients_[0, 1]) < 0.5 * abs(forward.coefficients_[0, 1])
+
+
+def test_ar1_level_recovers_the_eigenvalues_of_a_red_noise_system():
+    # dx = (−x + r) dt, dr = −0.5 r dt + dW: x driven by red noise. The two-level model
+    # (Kravtsov, Kondrashov & Ghil 2005) sees x only; its hidden variable is r up to a linear change
+    # of variables, which leaves the eigenvalues of the linear system, −1 and −0.5, unchanged.
+    # Sampling error of a decay rate θ from T time units is about √(2θ/T) ≈ 0.02 for T = 2000
+    # (common practice, no source); the tolerance 0.12 adds the O(dt) bias of one-step differences.
+    rng = np.random.default_rng(32)
+    dt, n_steps, n_runs = 0.02, 25000, 4
+    x = np.zeros(n_runs)
+    r = rng.normal(size=n_runs)
+    out = np.empty((n_steps, n_runs))
+    shocks = rng.normal(size=(n_steps, n_runs)) * np.sqrt(dt)
+    for k in range(n_steps):
+        x, r = x + (-x + r) * dt, r - 0.5 * r * dt + shocks[k]
+        out[k] = x
+    series = Series.from_arrays([out[:, j : j + 1] for j in range(n_runs)], ("x",), dt)
+    fitter = make_fitter("quadratic-noise", {"degree": 1, "noise": "ar1"}).fit(series)
+    surrogate = fitter.surrogate_
+    assert surrogate.variables == ("x", "r_x")
+    assert surrogate.settings["hidden_variables"] == ["r_x"]
+    assert surrogate.noise[0, 0] == 0.0 and surrogate.noise[1, 1] > 0
+    jac = surrogate.jacobian(np.zeros((1, 2)))[0]
+    eigenvalues = np.sort(np.linalg.eigvals(jac).real)
+    np.testing.assert_allclose(eigenvalues, [-1.0, -0.5], atol=0.12)
+
+
+def test_ar1_cannot_combine_with_a_transform():
+    with pytest.raises(SettingsError, match="'ar1' cannot be combined with n_modes"):
+        make_fitter("quadratic-noise", {"noise": "ar1", "n_modes": 2})

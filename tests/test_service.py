@@ -1,0 +1,439 @@
+"""Tests of the HTTP service against real ``ergodex serve`` processes on 127.0.0.1.
+
+Every server here is started by the test through the command line (``ServerProcess``) on a port
+the system picks, and stopped when the test ends; nothing is mocked: real SQLite, real worker
+processes, real pysindy fits.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+httpx = pytest.importorskip("httpx")
+pytest.importorskip("fastapi")
+
+from ergodex.service.auth import (  # noqa: E402
+    MISSING_TOKEN,
+    NO_TOKEN_CONFIGURED,
+    WRONG_TOKEN,
+    authorize,
+    bearer_token,
+)
+from ergodex.service.datasets import UploadRefused, check_filename  # noqa: E402
+from ergodex.service.jobs import FAILED, INTERRUPTED, RUNNING, SUCCEEDED, JobStore  # noqa: E402
+from ergodex.service.process import ServerProcess  # noqa: E402
+
+TOKEN = "test-token-0123456789abcdef"
+READ_METHODS = {"get", "head", "options"}
+
+
+# -- helpers -----------------------------------------------------------------------------------
+
+
+def convection_csv(seed: int, *, n_runs: int = 4, duration: float = 30.0) -> bytes:
+    """CSV bytes of the heated convection loop (Lorenz-63 sensors) through the project's writer."""
+    import tempfile
+
+    from ergodex import scenarios
+    from ergodex.writers import write_csv
+
+    series = scenarios.convection_loop(seed=seed, n_runs=n_runs, duration=duration)
+    with tempfile.TemporaryDirectory() as folder:
+        return write_csv(Path(folder) / "loop.csv", series, digits=8).read_bytes()
+
+
+def wait_for_job(client, job_id: str, timeout: float) -> dict:
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        job = client.get(f"/jobs/{job_id}").json()
+        if job["state"] in (SUCCEEDED, FAILED):
+            return job
+        time.sleep(0.25)
+    raise AssertionError(f"job {job_id} did not finish within {timeout} s: {job}")
+
+
+def upload(client, name: str, data: bytes, *, token: str | None = TOKEN, **form):
+    headers = {"Authorization": f"Bearer {token}"} if token else {}
+    return client.post("/datasets", files={"file": (name, data)}, data=form, headers=headers)
+
+
+def auth(token: str = TOKEN) -> dict[str, str]:
+    return {"Authorization": f"Bearer {token}"}
+
+
+@pytest.fixture(scope="module")
+def served(tmp_path_factory):
+    """One server shared by the tests of this module (2 workers, 2 MiB upload limit)."""
+    root = tmp_path_factory.mktemp("served")
+    token_file = root / "token"
+    token_file.write_text(TOKEN + "\n")
+    server = ServerProcess(
+        root / "home", token_file=token_file, workers=2, extra_args=["--max-upload-mb", "2"]
+    ).start()
+    try:
+        with httpx.Client(base_url=server.url, timeout=60) as client:
+            yield server, client
+    finally:
+        server.stop()
+
+
+# -- token checks (no server) -----------------------------------------------------------------
+
+
+def test_authorize_needs_the_exact_bearer_token():
+    # Scheme names are case-insensitive (RFC 7235 section 2.1, used by RFC 6750 section 2.1).
+    assert bearer_token("bearer abc") == "abc"
+    assert bearer_token("Basic abc") is None
+    assert authorize(f"Bearer {TOKEN}", TOKEN) is None
+    assert authorize(None, TOKEN) == MISSING_TOKEN
+    assert authorize("Bearer ", TOKEN) == MISSING_TOKEN
+    assert authorize(f"Bearer {TOKEN}x", TOKEN) == WRONG_TOKEN
+    assert authorize(f"Bearer {TOKEN[:-1]}", TOKEN) == WRONG_TOKEN
+    # No configured token: even a request carrying some token is refused.
+    assert authorize(f"Bearer {TOKEN}", None) == NO_TOKEN_CONFIGURED
+
+
+@pytest.mark.parametrize(
+    "name, code",
+    [
+        ("../data.csv", "bad-filename"),
+        ("sub/data.csv", "bad-filename"),
+        ("..\\data.csv", "bad-filename"),
+        ("/etc/passwd.csv", "bad-filename"),
+        (".hidden.csv", "bad-filename"),
+        ("C:data.csv", "bad-filename"),
+        ("", "bad-filename"),
+        ("data.exe", "unsupported-type"),
+        ("data", "unsupported-type"),
+    ],
+)
+def test_upload_names_with_path_parts_or_foreign_types_are_refused(name, code):
+    with pytest.raises(UploadRefused, match="name|type") as info:
+        check_filename(name)
+    assert info.value.code == code
+    assert 400 <= info.value.status < 500
+
+
+# -- the job table (no server) ----------------------------------------------------------------
+
+_CLAIMER = """
+import json, os, sys
+from ergodex.service.jobs import JobStore
+store = JobStore(sys.argv[1])
+claimed = []
+while (job := store.claim(os.getpid())) is not None:
+    claimed.append(job.id)
+print(json.dumps(claimed))
+"""
+
+
+def test_three_processes_claim_every_job_exactly_once(tmp_path):
+    store = JobStore(tmp_path / "jobs.sqlite3")
+    ids = {store.submit("fit", {"n": i}).id for i in range(60)}
+    procs = [
+        subprocess.Popen([sys.executable, "-c", _CLAIMER, str(store.path)], stdout=subprocess.PIPE)
+        for _ in range(3)
+    ]
+    claimed = []
+    for proc in procs:
+        out, _ = proc.communicate(timeout=60)
+        assert proc.returncode == 0
+        claimed.extend(json.loads(out))
+    assert sorted(claimed) == sorted(ids)  # every job once: none lost, none twice
+    assert store.counts()[RUNNING] == 60
+
+
+def test_a_job_failed_as_interrupted_cannot_be_finished_by_its_old_worker(tmp_path):
+    store = JobStore(tmp_path / "jobs.sqlite3")
+    first = store.submit("fit", {"n": 1})
+    second = store.submit("validate", {"n": 2})
+    job = store.claim(worker_pid=12345)
+    assert job is not None and job.id == first.id  # oldest first
+    assert store.fail_running("server died") == [first.id]
+    assert not store.succeed(job.id, job.claim, {"late": True})
+    record = store.get(first.id)
+    assert (record.state, record.error_code, record.error_message) == (
+        FAILED, INTERRUPTED, "server died"
+    )
+    assert record.result is None
+    assert store.get(second.id).state == "queued"
+
+
+# -- against a running server -----------------------------------------------------------------
+
+
+def _write_operations(document: dict) -> list[tuple[str, str, dict]]:
+    return [
+        (method, path, operation)
+        for path, operations in document["paths"].items()
+        for method, operation in operations.items()
+        if method not in READ_METHODS
+    ]
+
+
+def _fill(path: str) -> str:
+    return path.replace("{name}", "convection-loop").replace("{version}", "1")
+
+
+def test_every_write_endpoint_refuses_missing_and_wrong_tokens(served):
+    server, client = served
+    document = client.get("/openapi.json").json()
+    writes = _write_operations(document)
+    # Sanity: the list comes from the document, and the document does list the writes we know.
+    paths = {(m, p) for m, p, _ in writes}
+    assert {("post", "/datasets"), ("post", "/jobs/fit"), ("post", "/jobs/validate"),
+            ("post", "/jobs/retrain")} <= paths
+    assert len(writes) >= 7
+    jobs_before = client.get("/jobs").json()["jobs"]
+    for method, path, operation in writes:
+        assert operation.get("security"), f"{method} {path} is not marked as needing the token"
+        for headers, code in (({}, MISSING_TOKEN), (auth("not-" + TOKEN), WRONG_TOKEN)):
+            if "multipart/form-data" in operation.get("requestBody", {}).get("content", {}):
+                response = client.request(
+                    method, _fill(path), headers=headers,
+                    files={"file": ("a.csv", b"time,x\n0,1\n1,2\n")},
+                )
+            else:
+                response = client.request(method, _fill(path), headers=headers, json={})
+            assert response.status_code == 401, (method, path, response.text)
+            assert response.json()["code"] == code
+            assert response.headers["www-authenticate"] == "Bearer"
+    assert client.get("/jobs").json()["jobs"] == jobs_before
+    assert not [p for p in (server.home / "service" / "datasets").glob("*")]
+
+
+def test_a_server_without_a_token_refuses_every_write(tmp_path):
+    with ServerProcess(tmp_path / "home", token_file=None, workers=0) as server:
+        with httpx.Client(base_url=server.url, timeout=30) as client:
+            health = client.get("/health").json()
+            assert health["writes_enabled"] is False
+            response = client.post("/jobs/fit", json={}, headers=auth())
+            assert response.status_code == 403
+            assert response.json()["code"] == NO_TOKEN_CONFIGURED
+            assert "token" in response.json()["message"]
+            assert client.get("/models").json() == {"models": []}  # reads stay open
+
+
+def test_a_second_server_on_the_same_home_exits_with_code_2(served):
+    server, _client = served
+    done = subprocess.run(
+        ServerProcess(server.home, workers=0).command(), capture_output=True, text=True, timeout=60
+    )
+    assert done.returncode == 2
+    assert "already using the home" in done.stderr
+    assert len(done.stderr.strip().splitlines()) == 1
+
+
+def _npz_bytes(**arrays) -> bytes:
+    buffer = io.BytesIO()
+    np.savez(buffer, **arrays)
+    return buffer.getvalue()
+
+
+def test_bad_uploads_get_4xx_and_leave_nothing_behind(served):
+    server, client = served
+    datasets_dir = server.home / "service" / "datasets"
+    before = sorted(p.name for p in datasets_dir.glob("*")) if datasets_dir.exists() else []
+    listed_before = client.get("/datasets").json()
+    rng = np.random.default_rng(7)
+    good_rows = "\n".join(f"{0.1 * i:.1f},{v:.4f},{w:.4f}" for i, (v, w) in
+                          enumerate(rng.normal(size=(50, 2))))
+    cases = [
+        ("../escape.csv", b"time,x\n0,1\n", 400, "bad-filename"),
+        ("dir%2Fx.csv", b"time,x\n0,1\n", 400, "bad-filename"),
+        ("data.pkl", b"\x80\x04K\x01.", 415, "unsupported-type"),
+        ("data.csv", b"\xff\xfe\x00\x00garbage" * 10, 422, "invalid-dataset"),
+        ("data.csv", b"", 422, "invalid-dataset"),
+        ("data.csv", b"time,x,y\n0,1\n0.1,2,3,4\n", 422, "invalid-dataset"),
+        ("data.csv", ("time,x,y\n" + good_rows + "\n0.9,nan,1\n").encode(), 422,
+         "invalid-dataset"),
+        ("data.npz", b"PK\x03\x04 not really a zip", 422, "invalid-dataset"),
+        ("data.npz", b"plain text", 422, "invalid-dataset"),
+        ("data.npz", _npz_bytes(x=np.array([object()], dtype=object)), 422, "invalid-dataset"),
+        ("data.nc", b"CDF\x01 truncated", 422, "invalid-dataset"),
+        ("big.csv", b"time,x\n" + b"0.0,1.0\n" * 400_000, 413, "upload-too-large"),
+    ]
+    for name, data, status, code in cases:
+        response = upload(client, name, data)
+        assert response.status_code == status, (name, response.text)
+        body = response.json()
+        assert body["code"] == code, (name, body)
+        assert body["message"]
+    # A request without the file part is a 4xx in the same JSON shape.
+    response = client.post("/datasets", data={"dt": "0.1"}, headers=auth())
+    assert response.status_code == 422 and response.json()["code"] == "invalid-request"
+    after = sorted(p.name for p in datasets_dir.glob("*")) if datasets_dir.exists() else []
+    assert after == before
+    assert client.get("/datasets").json() == listed_before
+
+
+@pytest.mark.slow
+def test_upload_fit_validate_accept_download_round_trip(served):
+    from ergodex.registry import Registry
+
+    server, client = served
+    fit_csv = convection_csv(seed=11)
+    response = upload(client, "loop-fit.csv", fit_csv)
+    assert response.status_code == 201, response.text
+    dataset = response.json()
+    assert dataset["variables"] == ["flow", "dT_across", "dT_up"]
+    assert dataset["runs"] == 4 and dataset["format"] == "csv"
+    # The same bytes again name the same dataset.
+    again = upload(client, "loop-fit.csv", fit_csv)
+    assert again.status_code == 200 and again.json()["id"] == dataset["id"]
+    assert again.json()["already_present"] is True
+    check = upload(client, "loop-check.csv", convection_csv(seed=12, n_runs=2)).json()
+
+    check_options = {"members": 8, "seed": 3}
+    job = client.post(
+        "/jobs/fit",
+        json={"dataset": dataset["id"], "name": "convection-loop", "method": "sparse",
+              "holdout": 2, "check": check_options},
+        headers=auth(),
+    )
+    assert job.status_code == 202, job.text
+    assert job.json()["state"] in ("queued", "running")
+    fitted = wait_for_job(client, job.json()["id"], timeout=120)
+    assert fitted["state"] == SUCCEEDED, fitted["error"]
+    version = fitted["result"]["version"]
+    assert fitted["result"]["status"] == "candidate"
+
+    job = client.post(
+        "/jobs/validate",
+        json={"name": "convection-loop", "version": version, "dataset": check["id"],
+              "check": check_options},
+        headers=auth(),
+    )
+    checked = wait_for_job(client, job.json()["id"], timeout=120)
+    assert checked["state"] == SUCCEEDED, checked["error"]
+    assert checked["result"]["verdict"] in ("pass", "fail")
+    assert checked["result"]["data_fingerprint"] == check["fingerprint"]
+
+    accepted = client.post(
+        f"/models/convection-loop/versions/{version}/accept",
+        json={"reason": "round-trip test"},
+        headers=auth(),
+    )
+    if fitted["result"]["verdict"] == "pass":
+        assert accepted.status_code == 200, accepted.text
+        assert accepted.json()["status"] == "accepted"
+        served_ref = "accepted"
+    else:  # the registry refuses a failed scorecard without an override: a 409, not a 500
+        assert accepted.status_code == 409 and accepted.json()["code"] == "status-conflict"
+        served_ref = str(version)
+
+    registry = Registry(server.home)
+    for filename in ("model.json", "scorecard.json", "report.html"):
+        response = client.get(f"/models/convection-loop/versions/{served_ref}/{filename}")
+        assert response.status_code == 200, (filename, response.text)
+        assert response.content == registry.artifact(f"convection-loop@{version}", filename)
+        assert response.headers["etag"].strip('"') == registry.get(
+            f"convection-loop@{version}").artifacts[filename]
+    events = client.get("/models/convection-loop/history").json()["events"]
+    assert [e["event"] for e in events][:1] == ["registered"]
+    assert "checked" in [e["event"] for e in events]
+    listing = client.get("/models").json()["models"]
+    assert [m["name"] for m in listing] == ["convection-loop"]
+
+
+@pytest.mark.slow
+def test_schemathesis_finds_no_server_error_and_no_schema_violation(served, tmp_path):
+    pytest.importorskip("schemathesis")
+    server, client = served
+    # Point the generated requests at real resources where the server has some (after the round
+    # trip above: a registered model, datasets, jobs), so that the downloads, job reads and status
+    # changes are exercised beyond their 404s.
+    known = {}
+    models = client.get("/models").json()["models"]
+    if models:
+        known["path.name"] = models[0]["name"]
+        known["path.version"] = str(models[0]["latest"])
+    datasets = client.get("/datasets").json()["datasets"]
+    if datasets:
+        known["path.dataset_id"] = datasets[0]["id"]
+    jobs = client.get("/jobs").json()["jobs"]
+    if jobs:
+        known["path.job_id"] = jobs[0]["id"]
+    config = tmp_path / "schemathesis.toml"
+    config.write_text("[parameters]\n" + "".join(f'"{k}" = "{v}"\n' for k, v in known.items()))
+    cli = Path(sys.executable).with_name("schemathesis")
+    command = [
+        str(cli), "--config-file", str(config), "run", f"{server.url}/openapi.json",
+        "--checks", "not_a_server_error,status_code_conformance,content_type_conformance,"
+        "response_schema_conformance",
+        "--max-examples", "4", "--max-time", "25", "--seed", "2026", "--no-shrink",
+        "--phases", "examples,fuzzing", "--workers", "1", "--request-timeout", "20",
+        "--header", f"Authorization: Bearer {TOKEN}",
+    ]
+    done = subprocess.run(command, capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stdout[-4000:] + done.stderr[-2000:]
+    assert "passed" in done.stdout
+    assert client.get("/health").json()["status"] == "ok"  # and the server is still up
+
+
+@pytest.mark.slow
+def test_killed_server_restarts_fails_the_interrupted_job_and_runs_the_queued_ones(tmp_path):
+    from ergodex.registry import Registry
+
+    token_file = tmp_path / "token"
+    token_file.write_text(TOKEN)
+    home = tmp_path / "home"
+    server = ServerProcess(home, token_file=token_file, workers=1).start()
+    try:
+        with httpx.Client(base_url=server.url, timeout=60) as client:
+            data = upload(client, "loop.csv", convection_csv(seed=21, n_runs=3, duration=20.0))
+            assert data.status_code == 201, data.text
+            dataset = data.json()["id"]
+            # The first job is a sparse fit (pysindy takes seconds to import), so it is surely
+            # still running when the server is killed; the queued ones are quick linear fits.
+            quick = {"dataset": dataset, "name": "loop", "method": "linear-inverse",
+                     "check": {"members": 4, "seed": 1}}
+            slow = dict(quick, method="sparse")
+            ids = [client.post("/jobs/fit", json=body, headers=auth()).json()["id"]
+                   for body in (slow, quick, quick)]
+            deadline = time.monotonic() + 60
+            while client.get(f"/jobs/{ids[0]}").json()["state"] != RUNNING:
+                assert time.monotonic() < deadline, "the first job never started"
+                time.sleep(0.05)
+        server.kill()
+    finally:
+        server.stop()
+    # The worker dies with its server (it must not finish the job behind the new server's back).
+    store = JobStore(home / "service" / "jobs.sqlite3")
+    pid = store.get(ids[0]).worker_pid
+    deadline = time.monotonic() + 10
+    while _alive(pid) and time.monotonic() < deadline:
+        time.sleep(0.1)
+    assert not _alive(pid), f"worker {pid} outlived its killed server"
+
+    with ServerProcess(home, token_file=token_file, workers=1) as server:
+        with httpx.Client(base_url=server.url, timeout=60) as client:
+            first = client.get(f"/jobs/{ids[0]}").json()
+            assert first["state"] == FAILED
+            assert first["error"]["code"] == INTERRUPTED
+            assert "killed" in first["error"]["message"]
+            rest = [wait_for_job(client, job_id, timeout=120) for job_id in ids[1:]]
+            assert [job["state"] for job in rest] == [SUCCEEDED, SUCCEEDED], rest
+            versions = sorted(job["result"]["version"] for job in rest)
+    registry = Registry(home)
+    assert [v.version for v in registry.versions("loop")] == versions
+    for version in versions:
+        registry.verify(f"loop@{version}")  # every stored byte matches its recorded hash
+
+
+def _alive(pid: int | None) -> bool:
+    if pid is None:
+        return False
+    try:
+        with open(f"/proc/{pid}/stat") as handle:
+            return handle.read().split(")")[-1].split()[0] != "Z"
+    except FileNotFoundError:
+        return False
