@@ -21,6 +21,15 @@ HYPOTHESIS = settings(
 )
 
 
+@pytest.fixture(params=["python", "compiled"])
+def parser(request, monkeypatch):
+    """Run a CSV test through both parsers: the Python one and the compiled scanner."""
+    import ergodex.readers as readers
+
+    monkeypatch.setattr(readers, "_FAST_PARSE_MIN_BYTES", 0 if request.param == "compiled" else 1 << 60)
+    return request.param
+
+
 def _write(tmp_path: Path, text: str, name: str = "data.csv") -> Path:
     p = tmp_path / name
     p.write_text(text, encoding="utf-8")
@@ -35,7 +44,7 @@ def _sample(rng, lengths=(40, 40, 40), n_var=3, dt=0.02) -> Series:
 
 
 # --- good CSV -----------------------------------------------------------------------------------
-def test_csv_time_and_run_columns(tmp_path):
+def test_csv_time_and_run_columns(parser, tmp_path):
     text = (
         "time,run,a,b\n"
         "0.0,x,1.0,2.0\n0.1,x,1.5,2.5\n0.2,x,1.25,-3e-2\n"
@@ -48,7 +57,7 @@ def test_csv_time_and_run_columns(tmp_path):
     assert s.source.endswith("data.csv")
 
 
-def test_csv_without_time_needs_dt_and_numeric_run_column(tmp_path):
+def test_csv_without_time_needs_dt_and_numeric_run_column(parser, tmp_path):
     p = _write(tmp_path, "run,a\n1,0.5\n1,0.7\n2,0.1\n2,0.2\n")
     with pytest.raises(DataError, match=r"data\.csv: there is no 'time' column and no dt"):
         read_csv(p)
@@ -56,7 +65,7 @@ def test_csv_without_time_needs_dt_and_numeric_run_column(tmp_path):
     assert s.run_labels == ("1", "2") and s.dt == 0.5
 
 
-def test_csv_crlf_bom_quoted_header(tmp_path):
+def test_csv_crlf_bom_quoted_header(parser, tmp_path):
     p = tmp_path / "w.csv"
     p.write_bytes(b'\xef\xbb\xbf"time","a"\r\n0,1\r\n1,2\r\n2,4\r\n')
     s = read_csv(p)
@@ -94,7 +103,7 @@ BAD_CSV = [
 
 
 @pytest.mark.parametrize(("text", "match"), BAD_CSV)
-def test_bad_csv_messages(tmp_path, text, match):
+def test_bad_csv_messages(parser, tmp_path, text, match):
     with pytest.raises(DataError, match=match) as info:
         read_series(_write(tmp_path, text))
     assert "\n" not in str(info.value)
@@ -114,7 +123,7 @@ def test_unknown_extension_lists_known(tmp_path):
         read_series(tmp_path / "data.xlsx")
 
 
-def test_split_at_gaps_splits_and_never_interpolates(tmp_path):
+def test_split_at_gaps_splits_and_never_interpolates(parser, tmp_path):
     rows = [f"{i * 0.5},{v},{w}" for i, (v, w) in enumerate(
         [(1, 2), (2, 3), (3, 1), ("nan", 5), (4, 4), (5, 2), (6, 7), (7, ""), (8, 1), (9, 0)]
     )]
@@ -146,7 +155,7 @@ def test_csv_npz_netcdf_identical_values_and_fingerprint(tmp_path):
         assert r.fingerprint() == s.fingerprint()
 
 
-def test_ragged_runs_csv_and_npz(tmp_path):
+def test_ragged_runs_csv_and_npz(parser, tmp_path):
     rng = np.random.default_rng(12)
     s = _sample(rng, lengths=(30, 17, 5))
     for p in (write_csv(tmp_path / "r.csv", s), write_npz(tmp_path / "r.npz", s)):
@@ -264,7 +273,7 @@ _CELL = st.one_of(
     names=st.lists(st.text(min_size=0, max_size=6), min_size=1, max_size=4),
     rows=st.lists(st.lists(_CELL, min_size=0, max_size=5), min_size=0, max_size=6),
 )
-def test_malformed_csv_dataerror_or_correct(tmp_path, names, rows):
+def test_malformed_csv_dataerror_or_correct(parser, tmp_path, names, rows):
     text = ",".join(names) + "\n" + "".join(",".join(r) + "\n" for r in rows)
     p = tmp_path / "m.csv"
     p.write_text(text, encoding="utf-8")
@@ -287,7 +296,7 @@ def test_malformed_csv_dataerror_or_correct(tmp_path, names, rows):
     ),
     name=st.text(min_size=1, max_size=8),
 )
-def test_numeric_csv_round_trip_is_exact(tmp_path, grid, name):
+def test_numeric_csv_round_trip_is_exact(parser, tmp_path, grid, name):
     # a header cell called time or run is a special column, not this variable
     assume(name.strip().strip('"').strip().lower() not in ("time", "run"))
     values = np.array(grid)
@@ -330,7 +339,7 @@ def test_malformed_npz_dataerror_or_correct(tmp_path, shape, n_names, dt, names,
 
 @HYPOTHESIS
 @given(cut=st.integers(0, 2000))
-def test_truncated_npz_and_csv(tmp_path, cut):
+def test_truncated_npz_and_csv(parser, tmp_path, cut):
     rng = np.random.default_rng(3)
     s = _sample(rng, lengths=(10, 12))
     full_npz = write_npz(tmp_path / "full.npz", s).read_bytes()

@@ -305,6 +305,7 @@ def test_upload_fit_validate_accept_download_round_trip(served):
     assert fitted["state"] == SUCCEEDED, fitted["error"]
     version = fitted["result"]["version"]
     assert fitted["result"]["status"] == "candidate"
+    print("fit job", fitted["created"], fitted["started"], fitted["finished"])
 
     job = client.post(
         "/jobs/validate",
@@ -315,6 +316,7 @@ def test_upload_fit_validate_accept_download_round_trip(served):
     checked = wait_for_job(client, job.json()["id"], timeout=120)
     assert checked["state"] == SUCCEEDED, checked["error"]
     assert checked["result"]["verdict"] in ("pass", "fail")
+    print("validate job", checked["created"], checked["started"], checked["finished"])
     assert checked["result"]["data_fingerprint"] == check["fingerprint"]
 
     accepted = client.post(

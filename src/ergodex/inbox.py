@@ -362,6 +362,7 @@ def watch(
     spec: Any = None,
     seed: int = 0,
     holdout: Any = None,
+    report: bool = True,
     poll_interval: float = 2.0,
     once: bool = False,
     max_files: int | None = None,
@@ -381,7 +382,7 @@ def watch(
     config : path-like, optional
         Fit settings TOML for the challenger (see :func:`ergodex.retraining.retrain`); read once
         here so that a broken config fails at start instead of rejecting every file.
-    spec, seed, holdout
+    spec, seed, holdout, report
         Passed on to :func:`ergodex.retraining.retrain` unchanged.
     poll_interval : float
         Seconds between scans. A file must look the same on two scans in a row to be taken.
@@ -409,7 +410,7 @@ def watch(
         raise SettingsError(f"poll interval must be > 0 seconds, got {poll_interval!r}")
     if max_files is not None and max_files < 1:
         raise SettingsError(f"max_files must be at least 1, got {max_files!r}")
-    retrain_kwargs: dict[str, Any] = {"seed": seed}
+    retrain_kwargs: dict[str, Any] = {"seed": seed, "report": report}
     if config is not None:
         from ergodex.fitting import load_fit_settings
 

@@ -52,12 +52,17 @@ class Program(tuple):
 def build_program(tables: dict, n_variables: int) -> Program:
     """Turn :meth:`Surrogate.term_tables` into product rows and accumulation passes.
 
+    Each pass adds up to four sources ``w * S[r] * S[r2]`` and a constant: a linear term is
+    ``(x_j, ones)``, a quadratic one ``(x_j, x_l)``, anything else (degree three and up, sine,
+    cosine) gets a product row of its own, used as ``(row, ones)``.
+
     Returns
     -------
     Program
         ``(prod_kind, prod_var, prod_freq, prod_fptr, prod_fvar, prod_fpow, pass_target,
-        pass_rows, pass_weights, pass_bias, pass_final, n_rows)``; rows ``0..n-1`` are the state,
-        ``n..n+P-1`` the products, ``n+P`` the zero row and ``n+P+1`` the scratch row.
+        pass_rows, pass_rows2, pass_weights, pass_bias, pass_final, pass_width, n_rows)``.
+        Rows ``0..n-1`` of a stage buffer are the state, ``n..n+P-1`` the products, then the zero
+        row, the ones row and the scratch row.
     """
     n = int(n_variables)
     kind = np.asarray(tables["kind"])
@@ -67,59 +72,71 @@ def build_program(tables: dict, n_variables: int) -> Program:
     prod_kind, prod_var, prod_freq = [], [], []
     prod_fptr, prod_fvar, prod_fpow = [0], [], []
     bias = np.zeros(n)
-    sources: list[list[tuple[int, float]]] = [[] for _ in range(n)]
+    sources: list[list[tuple[int, int, float]]] = [[] for _ in range(n)]
     n_products = 0
-    row_of_term = {}
+    pending = []
     for a in range(len(kind)):
         f0, f1 = int(fptr[a]), int(fptr[a + 1])
-        if kind[a] == 0 and f1 == f0:
-            row = -1  # the constant: a bias, not a row
-        elif kind[a] == 0 and f1 == f0 + 1 and fpow[f0] == 1:
-            row = int(fvar[f0])  # linear: read the state row itself
+        vars_, pows = [int(v) for v in fvar[f0:f1]], [int(p) for p in fpow[f0:f1]]
+        if kind[a] == 0 and not vars_:
+            pair = None  # the constant: a bias, not a source
+        elif kind[a] == 0 and pows == [1]:
+            pair = (vars_[0], "one")
+        elif kind[a] == 0 and pows == [2]:
+            pair = (vars_[0], vars_[0])
+        elif kind[a] == 0 and pows == [1, 1]:
+            pair = (vars_[0], vars_[1])
         else:
-            row = n + n_products
+            pair = (n + n_products, "one")
             n_products += 1
             prod_kind.append(int(kind[a]))
             prod_var.append(int(tables["variable"][a]))
             prod_freq.append(float(tables["frequency"][a]))
-            prod_fvar.extend(int(v) for v in fvar[f0:f1])
-            prod_fpow.extend(int(p) for p in fpow[f0:f1])
+            prod_fvar.extend(vars_)
+            prod_fpow.extend(pows)
             prod_fptr.append(len(prod_fvar))
-        row_of_term[a] = row
-        for q in range(int(cptr[a]), int(cptr[a + 1])):
-            t, w = int(ctarget[q]), float(cvalue[q])
-            if row < 0:
-                bias[t] += w
-            else:
-                sources[t].append((row, w))
+        pending.append((a, pair))
 
     zero_row = n + n_products
-    scratch = zero_row + 1
-    p_target, p_rows, p_weights, p_bias, p_final = [], [], [], [], []
+    one_row = zero_row + 1
+    scratch = zero_row + 2
+    for a, pair in pending:
+        for q in range(int(cptr[a]), int(cptr[a + 1])):
+            t, w = int(ctarget[q]), float(cvalue[q])
+            if pair is None:
+                bias[t] += w
+            else:
+                r2 = one_row if pair[1] == "one" else pair[1]
+                sources[t].append((pair[0], r2, w))
+
+    pad = (zero_row, zero_row, 0.0)
+    p_target, p_rows, p_rows2, p_weights, p_bias, p_final, p_width = [], [], [], [], [], [], []
+
+    def emit(target, group, b, final):
+        width = 2 if len(group) <= 2 else 4
+        group = group + [pad] * (4 - len(group))
+        p_target.append(target)
+        p_rows.append([r for r, _, _ in group])
+        p_rows2.append([r for _, r, _ in group])
+        p_weights.append([w for _, _, w in group])
+        p_bias.append(b)
+        p_final.append(final)
+        p_width.append(width)
+
     for t in range(n):
         src = list(sources[t])
         first = True
-        # Partial passes: up to four sources (three after the first, plus the scratch row).
-        while len(src) > 4:
+        # Partial passes: four sources (three after the first, plus the scratch row).
+        while len(src) > (4 if first else 3):
             take = 4 if first else 3
             group, src = src[:take], src[take:]
             if not first:
-                group = group + [(scratch, 1.0)]
-            p_target.append(scratch)
-            p_rows.append([r for r, _ in group])
-            p_weights.append([w for _, w in group])
-            p_bias.append(0.0)
-            p_final.append(0)
+                group = group + [(scratch, one_row, 1.0)]
+            emit(scratch, group, 0.0, 0)
             first = False
         if not first:
-            src = src + [(scratch, 1.0)]
-        while len(src) < 4:
-            src.append((zero_row, 0.0))
-        p_target.append(t)
-        p_rows.append([r for r, _ in src])
-        p_weights.append([w for _, w in src])
-        p_bias.append(bias[t])
-        p_final.append(1)
+            src = src + [(scratch, one_row, 1.0)]
+        emit(t, src, float(bias[t]), 1)
 
     return Program(
         (
@@ -131,9 +148,11 @@ def build_program(tables: dict, n_variables: int) -> Program:
             np.array(prod_fpow, dtype=np.int64),
             np.array(p_target, dtype=np.int64),
             np.array(p_rows, dtype=np.int64).reshape(-1, 4),
+            np.array(p_rows2, dtype=np.int64).reshape(-1, 4),
             np.array(p_weights, dtype=np.float64).reshape(-1, 4),
             np.array(p_bias, dtype=np.float64),
             np.array(p_final, dtype=np.int64),
+            np.array(p_width, dtype=np.int64),
             np.int64(scratch + 1),
         )
     )
@@ -161,7 +180,7 @@ _RHS_ONLY = 3
 @nb.njit(cache=True, nogil=True)
 def advance(method, state, alive, blowup_time, t0, h, n_outputs, k, noise, chol, out, j0, write,
             keep, lower, upper, prod_kind, prod_var, prod_freq, prod_fptr, prod_fvar, prod_fpow,
-            p_target, p_rows, p_w, p_bias, p_final, n_rows):
+            p_target, p_rows, p_rows2, p_w, p_bias, p_final, p_width, n_rows):
     """Advance every live member by ``n_outputs * k`` substeps of length ``h``.
 
     Parameters (arrays C-contiguous float64 / int64 unless noted)
@@ -200,7 +219,9 @@ def advance(method, state, alive, blowup_time, t0, h, n_outputs, k, noise, chol,
     -----
     Everything runs inside this one function, with no calls in the step loop: passing arrays to
     a helper makes numba count references to each of them on every call, which costs more than
-    the arithmetic for small systems.
+    the arithmetic for small systems. Three stage buffers are used in turn; buffer 2 holds the
+    current state, which the last stage overwrites in place after saving it in buffer 0, so that
+    no copy is needed when every member passes the check (the usual case).
     """
     M, n = state.shape
     idx = np.empty(M, dtype=np.int64)
@@ -209,17 +230,17 @@ def advance(method, state, alive, blowup_time, t0, h, n_outputs, k, noise, chol,
         if alive[m]:
             idx[na] = m
             na += 1
-    X = np.empty((n, M))
-    # Two stage buffers (state rows, product rows, zero row, scratch row) used in turn, and two
-    # tendency buffers for the stochastic schemes.
-    SS = np.zeros((2, n_rows, M))
+    SS = np.zeros((3, n_rows, M))
+    one_row = n_rows - 2
+    for b in range(3):
+        for c in range(M):
+            SS[b, one_row, c] = 1.0
     KK = np.zeros((2, n, M))
     Acc = np.zeros((n, M))
     dW = np.zeros((n, M))
     for c in range(na):
         for i in range(n):
-            X[i, c] = state[idx[c], i]
-            SS[0, i, c] = X[i, c]
+            SS[2, i, c] = state[idx[c], i]
     sqh = math.sqrt(h)
     half = 0.5 * h
     n_prod = prod_kind.shape[0]
@@ -245,27 +266,36 @@ def advance(method, state, alive, blowup_time, t0, h, n_outputs, k, noise, chol,
                             acc += chol[i, l] * noise[step, m, l]
                         dW[i, c] = sqh * acc
             nbad = 0
-            # SS[0, :n] holds X on entry; the candidate new state ends up in SS[0, :n].
             for stage in range(n_stages):
-                src = stage % 2
-                dst = 1 - src
+                # Stage input buffer: RK4 reads 2 (the state), 1, 0, 1; the others 2, then 1.
+                if stage == 0:
+                    src = 2
+                elif stage == 2:
+                    src = 0
+                else:
+                    src = 1
                 if method == 0:
                     if stage == 0:
                         mode = _STAGE1
                         a = half
+                        dst = 1
                     elif stage == 1:
                         mode = _STAGE23
                         a = half
+                        dst = 0
                     elif stage == 2:
                         mode = _STAGE23
                         a = h
+                        dst = 1
                     else:
                         mode = _STAGE4
                         a = h / 6.0
+                        dst = 2
                 else:
                     mode = _PLAIN
                     a = 0.0
-                # 1. Product rows from the state rows of the stage input.
+                    dst = 0
+                # 1. Product rows (terms beyond quadratic, sines, cosines) from the state rows.
                 for r in range(n_prod):
                     row = n + r
                     kd = prod_kind[r]
@@ -274,11 +304,6 @@ def advance(method, state, alive, blowup_time, t0, h, n_outputs, k, noise, chol,
                         f1 = prod_fptr[r + 1]
                         jv = prod_fvar[f0]
                         p = prod_fpow[f0]
-                        if f1 == f0 + 2 and p == 1 and prod_fpow[f0 + 1] == 1:
-                            lv = prod_fvar[f0 + 1]
-                            for c in range(na):
-                                SS[src, row, c] = SS[src, jv, c] * SS[src, lv, c]
-                            continue
                         if p == 1:
                             for c in range(na):
                                 SS[src, row, c] = SS[src, jv, c]
@@ -317,6 +342,10 @@ def advance(method, state, alive, blowup_time, t0, h, n_outputs, k, noise, chol,
                     r1 = p_rows[q, 1]
                     r2 = p_rows[q, 2]
                     r3 = p_rows[q, 3]
+                    u0 = p_rows2[q, 0]
+                    u1 = p_rows2[q, 1]
+                    u2 = p_rows2[q, 2]
+                    u3 = p_rows2[q, 3]
                     w0 = p_w[q, 0]
                     w1 = p_w[q, 1]
                     w2 = p_w[q, 2]
@@ -324,39 +353,77 @@ def advance(method, state, alive, blowup_time, t0, h, n_outputs, k, noise, chol,
                     b = p_bias[q]
                     if p_final[q] == 0:
                         for c in range(na):
-                            SS[src, t, c] = (b + w0 * SS[src, r0, c] + w1 * SS[src, r1, c]
-                                             + w2 * SS[src, r2, c] + w3 * SS[src, r3, c])
-                    elif mode == _PLAIN:
-                        for c in range(na):
-                            KK[stage, t, c] = (b + w0 * SS[src, r0, c] + w1 * SS[src, r1, c]
-                                               + w2 * SS[src, r2, c] + w3 * SS[src, r3, c])
-                    elif mode == _STAGE1:
-                        for c in range(na):
-                            kv = (b + w0 * SS[src, r0, c] + w1 * SS[src, r1, c]
-                                  + w2 * SS[src, r2, c] + w3 * SS[src, r3, c])
-                            Acc[t, c] = kv
-                            SS[dst, t, c] = X[t, c] + a * kv
-                    elif mode == _STAGE23:
-                        for c in range(na):
-                            kv = (b + w0 * SS[src, r0, c] + w1 * SS[src, r1, c]
-                                  + w2 * SS[src, r2, c] + w3 * SS[src, r3, c])
-                            Acc[t, c] += 2.0 * kv
-                            SS[dst, t, c] = X[t, c] + a * kv
+                            SS[src, t, c] = (b + w0 * SS[src, r0, c] * SS[src, u0, c]
+                                             + w1 * SS[src, r1, c] * SS[src, u1, c]
+                                             + w2 * SS[src, r2, c] * SS[src, u2, c]
+                                             + w3 * SS[src, r3, c] * SS[src, u3, c])
+                    elif p_width[q] == 2:
+                        if mode == _PLAIN:
+                            for c in range(na):
+                                KK[stage, t, c] = (b + w0 * SS[src, r0, c] * SS[src, u0, c]
+                                                   + w1 * SS[src, r1, c] * SS[src, u1, c])
+                        elif mode == _STAGE1:
+                            for c in range(na):
+                                kv = b + w0 * SS[src, r0, c] * SS[src, u0, c] + w1 * SS[src, r1, c] * SS[src, u1, c]
+                                Acc[t, c] = kv
+                                SS[dst, t, c] = SS[2, t, c] + a * kv
+                        elif mode == _STAGE23:
+                            for c in range(na):
+                                kv = b + w0 * SS[src, r0, c] * SS[src, u0, c] + w1 * SS[src, r1, c] * SS[src, u1, c]
+                                Acc[t, c] += 2.0 * kv
+                                SS[dst, t, c] = SS[2, t, c] + a * kv
+                        else:
+                            lo = lower[t]
+                            hi = upper[t]
+                            for c in range(na):
+                                kv = b + w0 * SS[src, r0, c] * SS[src, u0, c] + w1 * SS[src, r1, c] * SS[src, u1, c]
+                                x = SS[2, t, c]
+                                v = x + a * (Acc[t, c] + kv)
+                                SS[0, t, c] = x
+                                SS[2, t, c] = v
+                                # Finite bounds: NaN and +-inf fail one of the two comparisons.
+                                nbad += not ((v >= lo) & (v <= hi))
                     else:
-                        lo = lower[t]
-                        hi = upper[t]
-                        for c in range(na):
-                            kv = (b + w0 * SS[src, r0, c] + w1 * SS[src, r1, c]
-                                  + w2 * SS[src, r2, c] + w3 * SS[src, r3, c])
-                            v = X[t, c] + a * (Acc[t, c] + kv)
-                            SS[dst, t, c] = v
-                            # Finite bounds: NaN and +-inf fail one of the two comparisons.
-                            nbad += not ((v >= lo) & (v <= hi))
-                # 3. Between and after the stages of the stochastic schemes.
+                        if mode == _PLAIN:
+                            for c in range(na):
+                                KK[stage, t, c] = (b + w0 * SS[src, r0, c] * SS[src, u0, c]
+                                                   + w1 * SS[src, r1, c] * SS[src, u1, c]
+                                                   + w2 * SS[src, r2, c] * SS[src, u2, c]
+                                                   + w3 * SS[src, r3, c] * SS[src, u3, c])
+                        elif mode == _STAGE1:
+                            for c in range(na):
+                                kv = (b + w0 * SS[src, r0, c] * SS[src, u0, c]
+                                      + w1 * SS[src, r1, c] * SS[src, u1, c]
+                                      + w2 * SS[src, r2, c] * SS[src, u2, c]
+                                      + w3 * SS[src, r3, c] * SS[src, u3, c])
+                                Acc[t, c] = kv
+                                SS[dst, t, c] = SS[2, t, c] + a * kv
+                        elif mode == _STAGE23:
+                            for c in range(na):
+                                kv = (b + w0 * SS[src, r0, c] * SS[src, u0, c]
+                                      + w1 * SS[src, r1, c] * SS[src, u1, c]
+                                      + w2 * SS[src, r2, c] * SS[src, u2, c]
+                                      + w3 * SS[src, r3, c] * SS[src, u3, c])
+                                Acc[t, c] += 2.0 * kv
+                                SS[dst, t, c] = SS[2, t, c] + a * kv
+                        else:
+                            lo = lower[t]
+                            hi = upper[t]
+                            for c in range(na):
+                                kv = (b + w0 * SS[src, r0, c] * SS[src, u0, c]
+                                      + w1 * SS[src, r1, c] * SS[src, u1, c]
+                                      + w2 * SS[src, r2, c] * SS[src, u2, c]
+                                      + w3 * SS[src, r3, c] * SS[src, u3, c])
+                                x = SS[2, t, c]
+                                v = x + a * (Acc[t, c] + kv)
+                                SS[0, t, c] = x
+                                SS[2, t, c] = v
+                                nbad += not ((v >= lo) & (v <= hi))
+                # 3. Between the stages of stochastic Heun: the predictor.
                 if method == 2 and stage == 0:
                     for i in range(n):
                         for c in range(na):
-                            SS[1, i, c] = X[i, c] + h * KK[0, i, c] + dW[i, c]
+                            SS[1, i, c] = SS[2, i, c] + h * KK[0, i, c] + dW[i, c]
             if method == _RHS_ONLY:
                 for c in range(na):
                     for i in range(n):
@@ -367,19 +434,22 @@ def advance(method, state, alive, blowup_time, t0, h, n_outputs, k, noise, chol,
                     lo = lower[i]
                     hi = upper[i]
                     for c in range(na):
+                        x = SS[2, i, c]
                         if method == 2:
-                            v = X[i, c] + half * (KK[0, i, c] + KK[1, i, c]) + dW[i, c]
+                            v = x + half * (KK[0, i, c] + KK[1, i, c]) + dW[i, c]
                         else:
-                            v = X[i, c] + h * KK[0, i, c] + dW[i, c]
-                        SS[0, i, c] = v
+                            v = x + h * KK[0, i, c] + dW[i, c]
+                        SS[0, i, c] = x
+                        SS[2, i, c] = v
                         nbad += not ((v >= lo) & (v <= hi))
             if nbad > 0:
-                # Stop the members that failed; swap the last live member into their column.
+                # Stop the members that failed (their last accepted state is in buffer 0) and
+                # swap the last live member into their column.
                 c = 0
                 while c < na:
                     ok = True
                     for i in range(n):
-                        v = SS[0, i, c]
+                        v = SS[2, i, c]
                         if not (v >= lower[i] and v <= upper[i]):
                             ok = False
                             break
@@ -390,21 +460,18 @@ def advance(method, state, alive, blowup_time, t0, h, n_outputs, k, noise, chol,
                         alive[m] = False
                         blowup_time[m] = t0 + (step + 1) * h
                         for i in range(n):
-                            state[m, i] = X[i, c]
+                            state[m, i] = SS[0, i, c]
                         na -= 1
                         idx[c] = idx[na]
                         for i in range(n):
-                            X[i, c] = X[i, na]
+                            SS[2, i, c] = SS[2, i, na]
                             SS[0, i, c] = SS[0, i, na]
-            for i in range(n):
-                for c in range(na):
-                    X[i, c] = SS[0, i, c]
         if write:
             for c in range(na):
                 m = idx[c]
                 for q in range(keep.shape[0]):
-                    out[m, j0 + j, q] = X[keep[q], c]
+                    out[m, j0 + j, q] = SS[2, keep[q], c]
     for c in range(na):
         for i in range(n):
-            state[idx[c], i] = X[i, c]
+            state[idx[c], i] = SS[2, i, c]
     return na

@@ -299,8 +299,8 @@ def _scan_kernel():
     import numba
 
     @numba.njit(cache=True, nogil=True)
-    def scan(buf, end, n_cols, text_col, pow10, out, slow_cell, slow_start, slow_end,
-             run_row, run_start, run_end):  # pragma: no cover - compiled; tested through callers
+    def scan(buf, end, n_cols, text_col, dest, pow10, out, tout, slow_cell, slow_start,
+             slow_end, run_row, run_start, run_end):  # pragma: no cover - compiled; tested through callers
         """Parse comma-separated decimal numbers from ``buf[:end]``.
 
         Returns (status, n_rows, n_slow, n_runs, n_ambiguous). status 0: parsed; 1: a row or cell
@@ -345,7 +345,6 @@ def _scan_kernel():
                     n_runs += 1
                     prev_s = start
                     prev_e = fe
-                out[row, col] = np.nan
             else:
                 neg = False
                 if pos < end and (buf[pos] == 45 or buf[pos] == 43):
@@ -386,7 +385,11 @@ def _scan_kernel():
                 if not any_digit:
                     if pos == start and (pos >= end or buf[pos] == 44 or buf[pos] == 10
                                          or buf[pos] == 13):
-                        out[row, col] = np.nan  # empty cell: a missing value
+                        dc = dest[col]
+                        if dc >= 0:
+                            out[row, dc] = np.nan  # empty cell: a missing value
+                        elif dc == -1:
+                            tout[row] = np.nan  # empty cell: a missing value
                         m = np.uint64(0)
                     else:
                         # nan, inf or text: let Python decide (and report) it
@@ -452,7 +455,11 @@ def _scan_kernel():
                         slow = True
                         v = 0.0
                     if not slow:
-                        out[row, col] = -v if neg else v
+                        dc = dest[col]
+                        if dc >= 0:
+                            out[row, dc] = -v if neg else v
+                        elif dc == -1:
+                            tout[row] = -v if neg else v
                 if slow:
                     if n_slow >= cap:
                         return 2, row, n_slow, n_runs, 0
@@ -460,7 +467,11 @@ def _scan_kernel():
                     slow_start[n_slow] = start
                     slow_end[n_slow] = fe
                     n_slow += 1
-                    out[row, col] = np.nan
+                    dc = dest[col]
+                    if dc >= 0:
+                        out[row, dc] = np.nan
+                    elif dc == -1:
+                        tout[row] = np.nan
             if pos < end and buf[pos] == 44:
                 col += 1
                 pos += 1
@@ -469,7 +480,11 @@ def _scan_kernel():
                 if pos >= end:  # a trailing comma: one more, empty, cell
                     if col != n_cols - 1:
                         return 1, row, n_slow, n_runs, 0
-                    out[row, col] = np.nan
+                    dc = dest[col]
+                    if dc >= 0:
+                        out[row, dc] = np.nan
+                    elif dc == -1:
+                        tout[row] = np.nan
                     row += 1
                     col = 0
             else:
@@ -485,12 +500,13 @@ def _scan_kernel():
 
 
 def _parse_body_fast(
-    body: bytes | memoryview, n_cols: int, run_col: int | None
-) -> tuple[np.ndarray, list[tuple[int, str]]] | None:
+    body: bytes | memoryview, n_cols: int, var_cols: list[int], time_col: int | None,
+    run_col: int | None,
+) -> tuple[np.ndarray, np.ndarray | None, list[tuple[int, str]]] | None:
     """Parse a large numeric CSV body with the compiled scanner; None means "use Python".
 
-    Returns the values and, with a run column, the (first row, label) of each block of equal
-    labels.
+    Returns the state-variable values (n_rows, len(var_cols)), the time column (or None) and,
+    with a run column, the (first row, label) of each block of equal labels.
     """
     buf = np.frombuffer(body, dtype=np.uint8)
     end = buf.size
@@ -499,7 +515,13 @@ def _parse_body_fast(
     if end == 0:
         return None
     n_rows = int(np.count_nonzero(buf[:end] == 10)) + 1
-    out = np.empty((n_rows, n_cols))
+    dest = np.full(n_cols, -2, dtype=np.int64)
+    for j, c in enumerate(var_cols):
+        dest[c] = j
+    if time_col is not None:
+        dest[time_col] = -1
+    out = np.empty((n_rows, len(var_cols)))
+    tout = np.empty(n_rows if time_col is not None else 0)
     scan = _scan_kernel()
     text_col = -1 if run_col is None else run_col
     run_row = np.empty(n_rows if run_col is not None else 0, dtype=np.int64)
@@ -510,28 +532,30 @@ def _parse_body_fast(
         slow_start = np.empty(cap, dtype=np.int64)
         slow_end = np.empty(cap, dtype=np.int64)
         status, rows, n_slow, n_runs, _ = scan(
-            buf, end, n_cols, text_col, _POW10, out, slow_cell, slow_start, slow_end,
-            run_row, run_start, run_end,
+            buf, end, n_cols, text_col, dest, _POW10, out, tout, slow_cell, slow_start,
+            slow_end, run_row, run_start, run_end,
         )
         if status != 2:
             break
     if status != 0 or rows != n_rows:
         return None
-    flat = out.reshape(-1)
-    raw = body  # bytes or memoryview: slices below copy only the few bytes needed
     for k in range(n_slow):
-        token = bytes(raw[slow_start[k] : slow_end[k]]).decode("ascii", "replace").strip()
+        token = bytes(body[slow_start[k] : slow_end[k]]).decode("ascii", "replace").strip()
         if not _NUMBER.fullmatch(token):
             return None  # text in a numeric cell: the Python parser reports it
-        flat[slow_cell[k]] = float(token)
+        row, col = divmod(int(slow_cell[k]), n_cols)
+        if dest[col] >= 0:
+            out[row, dest[col]] = float(token)
+        elif dest[col] == -1:
+            tout[row] = float(token)
     blocks: list[tuple[int, str]] = []
     for k in range(n_runs):
         try:
-            label = bytes(raw[run_start[k] : run_end[k]]).decode("utf-8")
+            label = bytes(body[run_start[k] : run_end[k]]).decode("utf-8")
         except UnicodeDecodeError:
             return None
         blocks.append((int(run_row[k]), label))
-    return out, blocks
+    return out, (tout if time_col is not None else None), blocks
 
 
 def _blocks_from_labels(run_values: list[str]) -> list[tuple[int, str]]:
@@ -615,16 +639,19 @@ def read_csv(
 
     parsed = None
     if len(body_view) >= _FAST_PARSE_MIN_BYTES:
-        parsed = _parse_body_fast(body_view, len(names), run_col)
+        parsed = _parse_body_fast(body_view, len(names), var_cols, time_col, run_col)
     if parsed is None:
         body = _decode(bytes(body_view), path, line_offset=1)
         values, run_values = _parse_body_slow(body, len(names), names, run_col, source)
         blocks = _blocks_from_labels(run_values) if run_values is not None else [(0, None)]
+        times = values[:, time_col] if time_col is not None else None
+        values = values[:, var_cols]  # a new C-ordered array
     else:
-        values, blocks = parsed
+        values, times, blocks = parsed
         if run_col is None:
             blocks = [(0, None)]
     n_rows = values.shape[0]
+    values.setflags(write=False)  # so Series takes slices of it without another copy
 
     # Runs: maximal blocks of equal run labels; a label may not come back later.
     bounds = []
@@ -646,15 +673,16 @@ def read_csv(
             seen[label] = start
         bounds.append((start, stop, label))
 
-    dt_final = _csv_time(values, time_col, bounds, names, dt_arg, time_tolerance, source)
+    dt_final = _check_time(
+        times, bounds, names[time_col] if time_col is not None else "time", dt_arg,
+        time_tolerance, source, lambda i: f"line {i + 2}",
+    )
 
     runs = []
     for a, b, label in bounds:
-        block = values[a:b][:, var_cols]  # a new C-ordered array
-        block.setflags(write=False)  # so Series takes it without another copy
         runs.append(
             _Run(
-                values=block,
+                values=values[a:b],
                 label=label if label is not None else path.stem,
                 where=lambda r, a=a: f"line {a + r + 2}",
             )
@@ -665,23 +693,26 @@ def read_csv(
     )
 
 
-def _csv_time(values, time_col, bounds, names, dt_arg, tol, source) -> float:
+def _check_time(t, bounds, tname, dt_arg, tol, source, where) -> float:
+    """dt from a time column (strictly increasing, uniform within ``tol``), or ``dt_arg``.
+
+    ``t`` is the time of every row (or None), ``bounds`` the (start, stop, label) rows of each
+    run, ``where(i)`` names row ``i`` in messages.
+    """
     if not (isinstance(tol, (int, float)) and math.isfinite(tol) and 0 <= tol < 1):
         raise DataError(f"time_tolerance must be a number in [0, 1), got {tol!r}")
-    if time_col is None:
+    if t is None:
         if dt_arg is None:
             raise DataError(
                 f"{source}: there is no 'time' column and no dt was given; add a time column "
                 "or pass dt"
             )
         return dt_arg
-    t = values[:, time_col]
-    tname = names[time_col]
     bad = np.flatnonzero(~np.isfinite(t))
     if bad.size:
         i = int(bad[0])
         raise DataError(
-            f"{source}: line {i + 2}, column {tname!r}: time {_show(t[i])} is missing or not "
+            f"{source}: {where(i)}, column {tname!r}: time {_show(t[i])} is missing or not "
             "finite; every row needs a time"
         )
     steps_total, span_total = 0, 0.0
@@ -692,7 +723,7 @@ def _csv_time(values, time_col, bounds, names, dt_arg, tol, source) -> float:
             if nonpos.size:
                 i = a + int(nonpos[0]) + 1
                 raise DataError(
-                    f"{source}: line {i + 2}, column {tname!r}: time {_show(t[i])} does not "
+                    f"{source}: {where(i)}, column {tname!r}: time {_show(t[i])} does not "
                     f"increase (previous {_show(t[i - 1])}); times must increase strictly"
                 )
             steps_total += b - a - 1
@@ -712,7 +743,7 @@ def _csv_time(values, time_col, bounds, names, dt_arg, tol, source) -> float:
             if off.size:
                 i = a + int(off[0]) + 1
                 raise DataError(
-                    f"{source}: line {i + 2}, column {tname!r}: step {_show(d[off[0]])} from "
+                    f"{source}: {where(i)}, column {tname!r}: step {_show(d[off[0]])} from "
                     f"time {_show(t[i - 1])} to {_show(t[i])} differs from the typical step "
                     f"{typical!r} by more than the tolerance ({tol:g} of the step); sampling "
                     "must be uniform (resample the data, or split it into runs)"
@@ -937,9 +968,9 @@ def read_netcdf(
         if t.dtype.kind not in "iuf":
             raise DataError(f"{source}: the time coordinate is not numeric ({t.dtype})")
         t = t.astype(np.float64)
-        fake_bounds = [(0, n_time, None)]
-        dt_val = _csv_time(
-            t[:, None], 0, fake_bounds, ["time"], dt_arg, time_tolerance, source
+        dt_val = _check_time(
+            t, [(0, n_time, None)], "time", dt_arg, time_tolerance, source,
+            lambda i: f"time index {i}",
         )
     elif dt_arg is not None:
         dt_val = dt_arg

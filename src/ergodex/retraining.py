@@ -419,6 +419,7 @@ def retrain(
     spec: Any = None,
     seed: int = 0,
     holdout: Any = DEFAULT_HOLDOUT,
+    report: bool = True,
     progress: Callable[[str], None] | None = None,
 ) -> Decision:
     """Re-check the accepted model on new data, fit and check a challenger, and decide.
@@ -439,8 +440,12 @@ def retrain(
         Seed of both checks (and so of the whole decision).
     holdout : float, int or sequence
         What to hold out as the shared reference (see :func:`split_for_retrain`).
+    report : bool, default True
+        Store the challenger's HTML report in its version folder (a few seconds of plotting;
+        an inbox that receives many files may turn it off).
     progress : callable, optional
-        Called with a short step name before each step (for a progress bar).
+        Called with a short step name before each of the five steps (``read``, ``drift check``,
+        ``fit challenger``, ``register``, ``decide``), e.g. to move a progress bar.
 
     Returns
     -------
@@ -487,24 +492,20 @@ def retrain(
 
     step("fit challenger")
     log.info("fitting challenger (%s) on %d runs", method, fit_part.n_runs)
-    flow = fit_check_register(
-        fit_part,
-        reference,
-        method=method,
-        settings=settings,
-        spec=spec,
-        registry=registry,
-        name=name,
-        accept=False,
-        note=f"retrain challenger on {series.source or 'new data'} (seed {seed})",
-        parent=None if champion_info is None else champion_info.version,
+    # The shared fit -> check path (no registry: registration, with lineage, is done below).
+    flow = fit_check_register(fit_part, reference, method=method, settings=settings, spec=spec)
+    step("register")
+    info = _register_challenger(
+        registry, name, flow, series, fit_part, reference,
+        fit_settings={"method": method, "settings": settings},
+        parent=None if champion_info is None else champion_info.ref,
+        seed=seed, report=report,
     )
     step("decide")
-    challenger_ref = f"{name}@{flow.version}"
     fit_record = {"method": method, "settings": _jsonable(settings)}
-    ch = _verdict("challenger", flow.check.scorecard, ref=challenger_ref, version=flow.version,
+    ch = _verdict("challenger", flow.check.scorecard, ref=info.ref, version=info.version,
                   fit=fit_record)
-    log.info("challenger %s: %s (score %.3g)", challenger_ref, ch.verdict, ch.score)
+    log.info("challenger %s: %s (score %.3g)", ch.ref, ch.verdict, ch.score)
     cp = None
     if champion_result is not None:
         cp = _verdict("champion", champion_result.scorecard, ref=champion_ref,
@@ -540,6 +541,36 @@ def retrain(
     )
     log.info("decision for %s: %s; standing %s", name, outcome, standing or "(none)")
     return decision
+
+
+def _register_challenger(registry: Any, name: str, flow: Any, series: Series, fit_part: Series,
+                         reference: Series, *, fit_settings: dict[str, Any], parent: str | None,
+                         seed: int, report: bool) -> Any:
+    """Register the challenger as a candidate with its evidence, lineage and data fingerprints."""
+    html = None
+    if report:
+        from ergodex.report import render_report
+
+        html = render_report(flow.check, flow.surrogate,
+                             title=f"{name}: retrain challenger ({series.source or 'new data'})")
+    source = series.source or ""
+    with tempfile.TemporaryDirectory(prefix="ergodex-evidence-") as tmp:
+        evidence_path = Path(tmp) / "evidence.npz"
+        flow.check.evidence.to_npz(evidence_path)
+        return registry.register(
+            name,
+            flow.surrogate,
+            scorecard=flow.check.scorecard,
+            report_html=html,
+            evidence_path=evidence_path,
+            fit_settings=fit_settings,
+            note=f"retrain challenger on {source or 'new data'} (seed {seed})",
+            parent=parent,
+            datasets={
+                "fit": {"fingerprint": fit_part.fingerprint(), "source": source},
+                "check": {"fingerprint": reference.fingerprint(), "source": source},
+            },
+        )
 
 
 def _decide(cp: ModelVerdict | None, ch: ModelVerdict) -> tuple[str, list[str]]:

@@ -863,7 +863,8 @@ def _member_agreement(model, alive, L, ref_stats, ref_pieces, spec, ctx) -> dict
         return out
     ctx_h = dict(ctx, statistics=("histogram",), regimes=None)
     mem = _PieceStats(first, ctx_h)
-    floor = np.mean(_pair_distances("histogram", ref_stats, ref_stats, True), axis=0)
+    ref_h = ref_stats if hasattr(ref_stats, "qf") else _PieceStats(ref_pieces, ctx_h)
+    floor = np.mean(_pair_distances("histogram", ref_h, ref_h, True), axis=0)
     ii, jj = np.triu_indices(len(members), 1)
     d = _pair_distances("histogram", mem, mem, True)  # (pairs, n_vars), in triu order
     per_var = d.mean(axis=0) / np.maximum(floor, np.finfo(float).tiny)

@@ -62,6 +62,11 @@ def add_common_retrain_options(parser: argparse.ArgumentParser) -> None:
         "or comma-separated run labels",
     )
     parser.add_argument(
+        "--no-report",
+        action="store_true",
+        help="do not store an HTML report with the challenger (saves a few seconds per retrain)",
+    )
+    parser.add_argument(
         "--members",
         type=int,
         default=None,
@@ -111,7 +116,7 @@ def run(args: argparse.Namespace) -> int:
     if is_terminal():
         from tqdm import tqdm
 
-        bar = tqdm(total=4, desc="retrain", unit="step", file=sys.stderr, leave=False)
+        bar = tqdm(total=5, desc="retrain", unit="step", file=sys.stderr, leave=False)
 
     def progress(step: str) -> None:
         if bar is not None:
@@ -120,7 +125,8 @@ def run(args: argparse.Namespace) -> int:
 
     try:
         decision = retrain(registry, args.name, args.data, config=args.config, spec=spec,
-                           seed=args.seed, holdout=holdout, progress=progress)
+                           seed=args.seed, holdout=holdout, report=not args.no_report,
+                           progress=progress)
     finally:
         if bar is not None:
             bar.close()

@@ -69,6 +69,7 @@ def run(args: argparse.Namespace) -> int:
             spec=spec_from_args(args),
             seed=args.seed,
             holdout=parse_holdout(args.holdout),
+            report=not args.no_report,
             poll_interval=args.interval,
             once=args.once,
             max_files=args.max_files,

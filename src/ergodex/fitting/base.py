@@ -28,6 +28,7 @@ __all__ = [
     "check_fit_settings",
     "load_fit_settings",
     "parse_fit_settings",
+    "read_fit_document",
 ]
 
 
@@ -294,13 +295,24 @@ def load_fit_settings(path: str | os.PathLike) -> tuple[str, dict]:
         not allowed (the message names the key and lists the allowed ones).
     """
     path = os.fspath(path)
+    return parse_fit_settings(read_fit_document(path), source=path)
+
+
+def read_fit_document(path: str | os.PathLike) -> dict:
+    """Read a fit-settings TOML file into a dict (not yet validated; see :func:`parse_fit_settings`).
+
+    Raises
+    ------
+    SettingsError
+        When the file is missing, unreadable, or not valid TOML (the message gives the line).
+    """
+    path = os.fspath(path)
     try:
         with open(path, "rb") as handle:
-            document = tomllib.load(handle)
+            return tomllib.load(handle)
     except FileNotFoundError:
         raise SettingsError(f"{path}: fit settings file not found") from None
     except tomllib.TOMLDecodeError as exc:
         raise SettingsError(f"{path}: not valid TOML: {exc}") from None
     except OSError as exc:
         raise SettingsError(f"{path}: cannot read fit settings: {exc.strerror}") from None
-    return parse_fit_settings(document, source=path)

@@ -29,7 +29,7 @@ from collections.abc import Sequence
 
 import numpy as np
 from matplotlib.figure import Figure
-from matplotlib.ticker import LogLocator, NullLocator
+from matplotlib.ticker import LogLocator, MaxNLocator, NullLocator
 
 # Okabe–Ito colours [1]. Reference = blue, surrogate = orange: the pair most widely separated for
 # both red-green deficiencies; the band of reference pieces is a light tint of the reference blue.
@@ -105,6 +105,9 @@ def _style_axes(ax) -> None:
         ax.spines[side].set_color(MUTED_COLOUR)
     ax.grid(True, color=GRID_COLOUR, linewidth=0.6)
     ax.set_axisbelow(True)
+    # Five or so ticks per axis read well on small panels, and fewer ticks draw faster.
+    ax.xaxis.set_major_locator(MaxNLocator(nbins=5))
+    ax.yaxis.set_major_locator(MaxNLocator(nbins=5))
 
 
 def _title(ax, text: str, colour: str = TEXT_COLOUR) -> None:

@@ -34,6 +34,7 @@ CAUTION = (
 )
 
 _MISSING = "\u2013"  # en dash for values that are absent or not a number
+_BANNER_REASONS = 4
 
 
 # ----------------------------------------------------------------------------------------------
@@ -266,8 +267,15 @@ def _verdict_banner(scorecard: Any) -> str:
     reasons = [str(r) for r in (_field(scorecard, "reasons", []) or [])]
     reasons_html = ""
     if reasons:
-        items = "".join(f"<li>{_esc(r)}</li>" for r in reasons)
+        # The banner stays short: the first few reasons (the validator lists the worst first),
+        # the rest folded away (<details> needs no script) and in the scorecard table anyway.
+        shown, folded = reasons[:_BANNER_REASONS], reasons[_BANNER_REASONS:]
+        items = "".join(f"<li>{_esc(r)}</li>" for r in shown)
         reasons_html = f'<ul class="reasons">{items}</ul>'
+        if folded:
+            more = "".join(f"<li>{_esc(r)}</li>" for r in folded)
+            reasons_html += (f'<details><summary>{len(folded)} more reasons</summary>'
+                             f'<ul class="reasons">{more}</ul></details>')
     return (
         f'<div class="banner {_esc(verdict)}" role="status">'
         f'<p class="verdict-line">Verdict: <strong id="verdict" data-verdict="{_esc(verdict)}">'
@@ -365,7 +373,8 @@ def _regime_section(evidence: Any) -> tuple[str, str, str] | None:
         parts.append(_figure(
             figures.transition_figure(names, trans_ref, trans_mod),
             "regime transition matrices, reference and surrogate",
-            "Probability of being in the column's regime one sample after the row's regime.",
+            "Of the departures from the row's regime, the fraction that go next to the column's "
+            "regime (changes of regime only, so the diagonal is zero).",
         ))
     return _section("regimes", "Regimes", "".join(parts))
 
@@ -598,6 +607,8 @@ code { font-family: ui-monospace, "DejaVu Sans Mono", Menlo, Consolas, monospace
 .banner.pass .verdict-line strong { color: #00664a; }
 .banner.fail .verdict-line strong { color: #a2400a; }
 .reasons { margin: 0.4rem 0 0.2rem 1.1rem; padding: 0; }
+.banner details { margin-top: 0.2rem; font-size: 0.92rem; }
+.banner summary { cursor: pointer; color: var(--muted); }
 .caution { border: 1px solid #c9b26b; background: #fdf9ea; padding: 0.6rem 1rem; margin: 1rem 0; }
 .caution p { margin: 0; max-width: none; }
 nav.toc { font-size: 0.92rem; margin: 0.5rem 0 0; }

@@ -1,0 +1,153 @@
+"""``ergodex fit DATA --out MODEL.json``: fit a surrogate, or select one by its statistics.
+
+Exit codes: 0 a model was written; 1 ``--select`` ran but no candidate passed the statistical
+check (nothing written but the optional ``--json`` front); 2 bad input (raised as
+:class:`~ergodex.exceptions.ErgodexError`, one line on stderr, nothing written).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+from typing import Any
+
+from ergodex.exceptions import SettingsError
+
+EXIT_OK = 0
+EXIT_NONE_PASSED = 1
+
+METHODS = ("sparse", "linear-inverse", "quadratic-noise")
+
+
+def add_parser(subparsers: Any) -> argparse.ArgumentParser:
+    """Add the ``fit`` subcommand."""
+    parser = subparsers.add_parser(
+        "fit",
+        help="fit a surrogate to data (or select one by its long-run statistics)",
+        description=(
+            "Fit a surrogate to DATA and write it as MODEL.json. With --select, fit every candidate "
+            "of a sweep, check each one's long-run statistics against the data's noise floor, and "
+            "keep the sparsest that passes (exit 1 when none does). Caution: a passed statistical "
+            "check is not a certification; defer to the applicable codes, standards and licensed "
+            "practice."
+        ),
+    )
+    parser.add_argument("data", metavar="DATA", help="data to fit: .csv, .npz, .nc, or a folder with dataset.toml")
+    parser.add_argument("--method", choices=METHODS, default=None,
+                        help="fit method (default: the config file's, else sparse)")
+    parser.add_argument("--config", metavar="FILE", default=None,
+                        help="fit settings (TOML): method = \"...\", a [settings] table, optional [select] table")
+    parser.add_argument("--out", metavar="MODEL.json", required=True, help="where to write the model")
+    parser.add_argument("--dt", type=float, default=None,
+                        help="sampling interval when DATA has no time column or manifest")
+    parser.add_argument("--select", action="store_true",
+                        help="sweep candidates (the config's [select] table, else a threshold sweep) "
+                             "and keep the sparsest whose statistics pass")
+    parser.add_argument("--reference", metavar="DATA", default=None,
+                        help="--select: held-out data to check candidates against (default: DATA itself)")
+    parser.add_argument("--scheduler", metavar="ADDRESS", default=None,
+                        help="--select: run candidates on a Dask cluster (e.g. tcp://127.0.0.1:8786)")
+    parser.add_argument("--n-jobs", type=int, default=None,
+                        help="--select: local worker processes (default 1: in this process; -1: every CPU)")
+    parser.add_argument("--members", type=int, default=16, help="--select: ensemble members per check (default 16)")
+    parser.add_argument("--seed", type=int, default=0, help="--select: seed of starts and noise (default 0)")
+    parser.add_argument("--json", metavar="OUT", default=None,
+                        help="write a JSON summary (fit diagnostics, or the selection front) here")
+    parser.add_argument("--quiet", action="store_true", help="print nothing on success")
+    parser.set_defaults(func=run)
+    return parser
+
+
+def _check_target(option: str, target: str | None) -> None:
+    if target is None:
+        return
+    path = Path(target)
+    if path.is_dir():
+        raise SettingsError(f"--{option} {target}: is a folder; give a file name")
+    if not path.parent.exists():
+        raise SettingsError(f"--{option} {target}: folder {str(path.parent)!r} does not exist")
+
+
+def run(args: argparse.Namespace) -> int:
+    """Fit (or select) and write the model; return the exit code. Bad input raises ErgodexError."""
+    from ergodex.fitting import make_fitter
+    from ergodex.fitting.base import parse_fit_settings, read_fit_document
+    from ergodex.readers import read_series
+
+    # read and check every input before any work: nothing is written when one is bad
+    _check_target("out", args.out)
+    _check_target("json", args.json)
+    if args.select is False and (args.scheduler or args.reference or args.n_jobs is not None):
+        raise SettingsError("--scheduler, --reference and --n-jobs only apply with --select")
+    if args.members < 2:
+        raise SettingsError(f"--members must be at least 2; got {args.members}")
+    document: dict = {}
+    if args.config is not None:
+        document = read_fit_document(args.config)
+        if args.method is not None and "method" in document and document["method"] != args.method:
+            raise SettingsError(
+                f"--method {args.method} contradicts method = {document['method']!r} in {args.config}; "
+                f"drop one of them"
+            )
+    if args.method is not None:
+        document = {**document, "method": args.method}
+    method, settings = parse_fit_settings(document, source=args.config or "--method")
+    series = read_series(args.data, dt=args.dt)
+
+    if not args.select:
+        fitter = make_fitter(method, settings).fit(series)
+        surrogate = fitter.surrogate_
+        summary = {
+            "method": method,
+            "settings": fitter.get_params(),
+            "n_terms": int(fitter.n_terms_),
+            "score": float(fitter.score_),
+            "tendency_error": float(fitter.tendency_error_),
+            "data_fingerprint": series.fingerprint(),
+            "model_fingerprint": surrogate.fingerprint(),
+        }
+        _write(args, surrogate, summary)
+        if not args.quiet:
+            print(f"fitted {method} model to {args.data} ({series.n_runs} runs, {series.n_samples} samples): "
+                  f"{fitter.n_terms_} terms, score {fitter.score_:.4g}")
+            for line in surrogate.equations():
+                print(f"  {line}")
+            print(f"wrote {args.out}")
+        return EXIT_OK
+
+    from ergodex.fitting.selection import parse_selection, select
+    from ergodex.validation import CheckSpec
+
+    candidates = parse_selection(document, method=method, settings=settings, source=args.config or "defaults")
+    reference = read_series(args.reference, dt=args.dt) if args.reference else None
+    spec = CheckSpec(members=args.members, seed=args.seed)
+    result = select(series, candidates, spec, reference=reference, scheduler=args.scheduler, n_jobs=args.n_jobs)
+    if not args.quiet:
+        print(result.table())
+        print(result.message)
+    if result.chosen is None:
+        if args.json is not None:
+            from ergodex.cli.common import write_json_atomic
+
+            write_json_atomic(args.json, result.to_dict())
+        return EXIT_NONE_PASSED
+    _write(args, result.surrogate, result.to_dict())
+    if not args.quiet:
+        print(f"wrote {args.out}")
+    return EXIT_OK
+
+
+def _write(args: argparse.Namespace, surrogate, summary: dict) -> None:
+    # the model goes through a temporary file in the target folder and os.replace (atomic)
+    surrogate.to_json(Path(args.out))
+    if args.json is not None:
+        from ergodex.cli.common import write_json_atomic
+
+        write_json_atomic(args.json, summary)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    from ergodex.cli import main
+
+    sys.exit(main(["fit", *sys.argv[1:]]))

@@ -1,0 +1,245 @@
+"""Scripted retraining: drift check of the champion, challenger, side-by-side decision, lineage.
+
+The scenarios are the project's own: a heated convection loop (Lorenz-63) whose heating changes
+(rho 28 -> 35), and a noise-driven double well that a deterministic quadratic ODE cannot represent.
+Every model is really fitted (pysindy), really checked (ensemble integration against the held-out
+runs) and really registered (SQLite + version folders).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+
+from ergodex.exceptions import DataError, SettingsError
+from ergodex.registry import Registry
+from ergodex.retraining import (
+    OUTCOMES,
+    Decision,
+    retrain,
+    shared_score,
+    split_for_retrain,
+)
+from ergodex.series import Series
+from ergodex.validation import CheckSpec, ScoreRow, check
+
+from retrain_support import LOOP, WELL, copy_home, loop_data, well_data
+
+# 16 members (the check's default) of one reference piece each; the reference is the 3 held-out
+# runs of 40 time units. Measured while writing these tests: the sparse fit of rho = 28 data
+# passed on 5 of 6 data seeds, the rho = 28 champion passed on new rho = 28 data in 5 of 5, and
+# failed on rho = 35 data in 6 of 6 with ratios 5.5-14 (tolerance 2).
+SPEC = CheckSpec(members=16)
+
+
+def _coefficient(surrogate, equation: str, term_powers: tuple[int, ...]) -> float:
+    """Coefficient of one monomial in one equation of a fitted surrogate (0 if absent)."""
+    row = surrogate.variables.index(equation)
+    for k, term in enumerate(surrogate.terms):
+        if term.kind == "monomial" and tuple(term.powers) == term_powers:
+            return float(surrogate.coefficients[row, k])
+    return 0.0
+
+
+@pytest.fixture(scope="module")
+def loop_home(tmp_path_factory):
+    """A registry whose convection-loop champion was fitted on rho = 28 data by a first retrain."""
+    home = tmp_path_factory.mktemp("loop") / "home"
+    decision = retrain(Registry(home), LOOP, loop_data(2), spec=SPEC, seed=0, report=False)
+    return home, decision
+
+
+@pytest.fixture(scope="module")
+def kept_pair(loop_home, tmp_path_factory):
+    """The same retrain (new rho = 28 data, seed 0) on two identical copies of the champion home."""
+    home, _ = loop_home
+    new = loop_data(102)
+    out = []
+    for tag in ("a", "b"):
+        copy = copy_home(home, tmp_path_factory.mktemp(f"kept-{tag}") / "home")
+        registry = Registry(copy)
+        out.append((registry, retrain(registry, LOOP, new, spec=SPEC, seed=0, report=False)))
+    return out
+
+
+@pytest.mark.slow
+def test_first_run_fits_checks_registers_and_accepts(loop_home):
+    home, decision = loop_home
+    registry = Registry(home)
+    assert decision.outcome == "first-accepted" and decision.exit_code == 0
+    assert decision.champion is None
+    assert decision.challenger.ref == f"{LOOP}@1" and decision.challenger.passed
+    info = registry.get(LOOP)  # newest accepted
+    assert info.version == 1 and info.status == "accepted" and info.parent is None
+    # The recorded fit settings are what the next retrain refits with.
+    recorded = json.loads(registry.artifact(f"{LOOP}@1", "fit-settings.json"))
+    assert recorded == {"method": "sparse", "settings": {}}
+    # SINDy recovers the Lorenz-63 coefficients from clean-enough data (Brunton, Proctor & Kutz,
+    # PNAS 2016): d dT_across/dt = rho flow - dT_across - flow dT_up with rho = 28. 2 % covers
+    # the 0.05 sensor noise and the smoothed differences at dt = 0.02.
+    rho = _coefficient(registry.load(LOOP), "dT_across", (1, 0, 0))
+    assert rho == pytest.approx(28.0, rel=0.02)
+
+
+@pytest.mark.slow
+def test_new_data_from_the_same_loop_keep_the_champion(kept_pair):
+    registry, decision = kept_pair[0]
+    assert decision.outcome == "kept" and decision.exit_code == 0
+    assert decision.champion.ref == f"{LOOP}@1" and decision.champion.passed
+    assert decision.standing == f"{LOOP}@1"
+    # The challenger is registered all the same, with lineage, and not promoted.
+    challenger = registry.get(decision.challenger.ref)
+    assert challenger.version == 2 and challenger.parent == f"{LOOP}@1"
+    assert challenger.status in ("candidate", "rejected")
+    assert challenger.status == decision.challenger.status
+    assert registry.get(LOOP).version == 1  # downstream still loads the champion
+    events = [e.event for e in registry.history(f"{LOOP}@1")]
+    assert events[-1] == "drift-check-passed"
+
+
+@pytest.mark.slow
+def test_the_same_inputs_and_seed_give_the_same_decision_record(kept_pair):
+    (_, first), (_, second) = kept_pair
+    assert first.record() == second.record()
+    # The wall-clock times are the only part kept apart, and the JSON is the dict.
+    full = first.to_dict()
+    assert set(full) - set(first.record()) == {"times"}
+    assert json.loads(first.to_json()) == full
+    assert full["format"] == "ergodex-decision/1"
+    assert full["spec"]["seed"] == 0 and full["spec"]["members"] == SPEC.members
+    assert full["data"]["fingerprint"] == loop_data(102).fingerprint()
+
+
+@pytest.mark.slow
+def test_changed_heating_replaces_the_drifted_champion_with_lineage(loop_home, tmp_path):
+    home, _ = loop_home
+    registry = Registry(copy_home(home, tmp_path / "home"))
+    new = loop_data(202, rho=35.0)
+    decision = retrain(registry, LOOP, new, spec=SPEC, seed=0, report=False)
+
+    assert decision.outcome == "replaced" and decision.exit_code == 0
+    assert not decision.champion.passed and decision.challenger.passed
+    assert decision.challenger.score <= decision.champion.score
+    assert decision.standing == decision.challenger.ref == f"{LOOP}@2"
+    info = registry.get(LOOP)
+    assert info.version == 2 and info.status == "accepted"
+    assert info.parent == f"{LOOP}@1"
+    roles = {d["role"]: d["fingerprint"] for d in info.datasets}
+    assert roles["fit"] == decision.data["fit_fingerprint"]
+    assert roles["check"] == decision.data["reference_fingerprint"]
+    drift = [e for e in registry.history(f"{LOOP}@1") if e.event == "drift-detected"]
+    assert len(drift) == 1 and new.fingerprint() in drift[0].reason
+    # Nothing deleted: the old champion still loads, by version.
+    assert registry.get(f"{LOOP}@1").status == "accepted"
+    registry.load(f"{LOOP}@1")
+    # The challenger learned the new heating (Lorenz 1963 form; SINDy recovery as above).
+    rho = _coefficient(registry.load(LOOP), "dT_across", (1, 0, 0))
+    assert rho == pytest.approx(35.0, rel=0.02)
+
+
+@pytest.mark.slow
+def test_data_the_method_cannot_represent_leave_no_acceptable_model(tmp_path):
+    from ergodex.scenarios import double_well_surrogate
+
+    registry = Registry(tmp_path / "home")
+    # Champion: the true double-well Langevin equation (s = 0.7), accepted on its own held-out
+    # runs. With this data size the truth passed on 4 of 6 data seeds (the member-agreement row is
+    # strict for a process that hops between wells every few tens of time units); seed 3 is one
+    # where it passes, and the test is about the retrain decision, not the check's calibration.
+    old = well_data(3, noise=0.7)
+    _, reference = split_for_retrain(old, 0.5)
+    truth = double_well_surrogate(0.7)
+    result = check(truth, reference, SPEC)
+    assert result.scorecard.passed
+    registry.register(WELL, truth, scorecard=result.scorecard,
+                      datasets={"check": reference.fingerprint()})
+    registry.accept(f"{WELL}@1", reason="true equations passed on held-out runs")
+
+    # New data: stronger noise (s = 1.2 widens the stationary density p ~ exp(-2V/s^2), Risken
+    # 1989), and a deterministic degree-2 sparse ODE configured for the challenger: without noise
+    # it settles on a fixed point or cycle and cannot reproduce the hopping.
+    new = well_data(13, noise=1.2)
+    decision = retrain(registry, WELL, new, config=("sparse", {"degree": 2}), spec=SPEC,
+                       seed=0, report=False)
+
+    assert decision.outcome == "no-acceptable-model" and decision.exit_code == 1
+    assert not decision.champion.passed and not decision.challenger.passed
+    assert any("warned" in r for r in decision.reasons)
+    history = registry.history(f"{WELL}@1")
+    assert [e.event for e in history if e.event == "drift-detected"] == ["drift-detected"]
+    challenger = registry.get(f"{WELL}@2")
+    assert challenger.status == "rejected" and challenger.parent == f"{WELL}@1"
+    # Nothing deleted: both versions and their folders remain; the champion still loads.
+    assert [v.version for v in registry.versions(WELL)] == [1, 2]
+    assert all(v.folder.is_dir() for v in registry.versions(WELL))
+    assert registry.load(WELL).fingerprint() == truth.fingerprint()
+
+
+@pytest.mark.slow
+def test_bad_input_raises_before_anything_is_written(loop_home, tmp_path):
+    home, _ = loop_home
+    registry = Registry(copy_home(home, tmp_path / "home"))
+    before = (len(registry.versions(LOOP)), len(registry.history(LOOP)))
+    rng = np.random.default_rng(5)
+    other = Series.from_arrays(rng.normal(size=(3, 400, 2)), ["a", "b"], 0.1, source="other.csv")
+    with pytest.raises(DataError, match="variables"):
+        retrain(registry, LOOP, other, spec=SPEC, report=False)
+    with pytest.raises(DataError, match="unknown file type"):
+        retrain(registry, LOOP, tmp_path / "data.xlsx", spec=SPEC, report=False)
+    with pytest.raises(SettingsError, match="has no setting"):
+        retrain(registry, LOOP, loop_data(3, n_runs=2, duration=10.0),
+                config=("sparse", {"no_such_setting": 1}), spec=SPEC, report=False)
+    with pytest.raises(SettingsError, match="seed"):
+        retrain(registry, LOOP, other, seed=-1, report=False)
+    assert (len(registry.versions(LOOP)), len(registry.history(LOOP))) == before
+
+
+def test_split_holds_out_whole_runs_or_the_end_of_a_single_run():
+    rng = np.random.default_rng(0)
+    six = Series.from_arrays(rng.normal(size=(6, 50, 2)), ["u", "v"], 0.1,
+                             run_labels=[f"r{i}" for i in range(6)])
+    fit, ref = split_for_retrain(six, 0.5)
+    assert fit.run_labels == ("r0", "r1", "r2") and ref.run_labels == ("r3", "r4", "r5")
+    fit, ref = split_for_retrain(six, 0.1)  # at least one run held out
+    assert (fit.n_runs, ref.n_runs) == (5, 1)
+    fit, ref = split_for_retrain(six, ["r0"])
+    assert ref.run_labels == ("r0",) and fit.n_runs == 5
+    one = six.select_runs([0])
+    fit, ref = split_for_retrain(one, 0.3)  # ten blocks of 5 samples, the last 3 held out
+    assert (fit.n_runs, ref.n_runs) == (7, 3)
+    np.testing.assert_array_equal(ref.runs[-1], one.runs[0][45:50])
+    with pytest.raises(SettingsError, match="between 0 and 1"):
+        split_for_retrain(six, 1.5)
+    with pytest.raises(DataError, match="single run"):
+        split_for_retrain(one, 1)
+
+
+def test_shared_score_is_the_largest_row_ratio_and_infinite_after_a_blowup():
+    spec = CheckSpec(members=4)
+
+    def card(ratios, blown=0):
+        from ergodex.validation import Scorecard
+
+        rows = [ScoreRow("histogram", f"v{i}", r, 1.0, r, 2.0, "pass" if r <= 2 else "fail")
+                for i, r in enumerate(ratios)]
+        return Scorecard(verdict="pass", rows=rows, reasons=[], blowups={"count": blown},
+                         member_agreement={}, spec=spec, model_fingerprint="m",
+                         data_fingerprint="d", created="", ergodex_version="")
+
+    assert shared_score(card([0.5, 1.7, 1.2])) == 1.7
+    assert math.isinf(shared_score(card([0.5, 1.0], blown=1)))
+    assert math.isinf(shared_score(card([0.5, float("nan")])))
+    assert math.isinf(shared_score(card([])))
+
+
+def test_exit_codes_follow_the_outcome():
+    assert OUTCOMES == {"first-accepted": 0, "kept": 0, "replaced": 0, "no-acceptable-model": 1}
+    d = Decision(name="m", outcome="kept", standing="m@1", champion=None, challenger=None,
+                 reasons=["x"], seed=0, holdout=0.5, data={}, spec={})
+    assert d.exit_code == 0
+    d.outcome = "no-acceptable-model"
+    assert d.exit_code == 1
+    assert "no-acceptable-model" in d.summary() and "not a certification" in d.summary()
