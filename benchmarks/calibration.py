@@ -138,6 +138,13 @@ def run_trial(case: str, trial: int, regimes: bool, fast: bool = False, spec_kw=
             "seconds": time.perf_counter() - t0}
 
 
+def _save(args, results, wall) -> None:
+    with open(args.out, "w") as fh:
+        json.dump({"tolerances": args.tolerances, "argv": sys.argv[1:], "results": results,
+                   "wall_seconds": wall}, fh, indent=1,
+                  default=lambda x: None if not math.isfinite(x) else x)
+
+
 def main(argv=None) -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--trials", type=int, default=100, help="trials per true case")
@@ -148,6 +155,7 @@ def main(argv=None) -> int:
     p.add_argument("--fast-data", action="store_true",
                    help="generate the convection-loop data with the compiled integrator")
     p.add_argument("--min-pieces", type=int, default=None, help="override CheckSpec.min_pieces")
+    p.add_argument("--pool", type=int, default=None, help="override CheckSpec.pool")
     p.add_argument("--statistics", nargs="*", default=None, help="override CheckSpec.statistics")
     p.add_argument("--out", default="benchmarks/calibration_results.json")
     p.add_argument("--tolerances", type=float, nargs="*", default=[1.5, 1.75, 2.0, 2.25, 2.5, 3.0])
@@ -160,14 +168,21 @@ def main(argv=None) -> int:
     spec_kw = {}
     if args.min_pieces:
         spec_kw["min_pieces"] = args.min_pieces
+    if args.pool:
+        spec_kw["pool"] = args.pool
     if args.statistics:
         spec_kw["statistics"] = tuple(args.statistics)
-    results = Parallel(n_jobs=args.jobs)(
+    results = []
+    stream = Parallel(n_jobs=args.jobs, return_as="generator")(
         delayed(run_trial)(c, t, not args.no_regimes, args.fast_data, spec_kw) for c, t in jobs)
+    for res in stream:
+        results.append(res)
+        # save as we go: a long calibration on a busy machine can be inspected while it runs
+        _save(args, results, time.perf_counter() - t0)
+        print(f"{len(results)}/{len(jobs)} {res['case']} trial {res['trial']}: "
+              f"largest ratio {res['decisive']:.3g}", file=sys.stderr, flush=True)
     wall = time.perf_counter() - t0
-    with open(args.out, "w") as fh:
-        json.dump({"tolerances": args.tolerances, "argv": sys.argv[1:], "results": results, "wall_seconds": wall},
-                  fh, indent=1, default=lambda x: None if not math.isfinite(x) else x)
+    _save(args, results, wall)
     head = f"{'case':<26} {'should':<6} {'n':>4} " + " ".join(f"{'t=' + format(t, 'g'):>7}"
                                                               for t in args.tolerances)
     print(head + "   (fraction passing at each tolerance)")

@@ -123,6 +123,9 @@ def main(argv=None) -> int:
                 expected = Registry(root / "home").artifact(f"{NAME}@{version}", "model.json")
                 path = f"/models/{NAME}/versions/accepted/model.json"
 
+                single, single_failures = asyncio.run(
+                    load(server.url, path, expected, 1, 50, args.time_limit)
+                )
                 idle, idle_failures = asyncio.run(
                     load(server.url, path, expected, args.clients, args.requests, args.time_limit)
                 )
@@ -140,16 +143,17 @@ def main(argv=None) -> int:
                 running_after = client.get("/health").json()["jobs"]["running"]
                 states = [client.get(f"/jobs/{job_id}").json()["state"] for job_id in ids]
             # Leaving the block stops the server; jobs still running are marked failed.
-    a, b = summary(idle), summary(busy)
+    one, a, b = summary(single), summary(idle), summary(busy)
     print(f"{args.clients} clients x {args.requests} reads of {len(expected)} bytes "
           f"(GET {path}), loopback")
-    for label, s, fails in (("idle workers", a, idle_failures),
+    for label, s, fails in (("1 client, idle", one, single_failures),
+                            ("idle workers", a, idle_failures),
                             (f"{args.jobs} jobs running", b, busy_failures)):
-        print(f"  {label:>16}: n={int(s['n'])} p50={s['p50']:.1f} ms p95={s['p95']:.1f} ms "
+        print(f"  {label:>17}: n={int(s['n'])} p50={s['p50']:.1f} ms p95={s['p95']:.1f} ms "
               f"p99={s['p99']:.1f} ms max={s['max']:.1f} ms failed={len(fails)}")
     print(f"  p99 ratio busy/idle: {b['p99'] / a['p99']:.2f}; jobs still running at the end "
           f"of the busy phase: {running_after} (job states then: {', '.join(states)})")
-    failures = idle_failures + busy_failures
+    failures = single_failures + idle_failures + busy_failures
     for line in failures[:10]:
         print("  failure:", line)
     return 1 if failures else 0

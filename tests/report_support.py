@@ -37,3 +37,13 @@ def loop_check(rho: float = 28.0, seed: int = DEMO_SEED):
     spec = CheckSpec(seed=seed, regimes=regimes)
     surrogate = scenarios.lorenz63_surrogate(rho=rho)
     return check(surrogate, reference, spec), surrogate
+
+
+@functools.lru_cache(maxsize=None)
+def loop_page(rho: float = 28.0, seed: int = DEMO_SEED) -> str:
+    """The rendered report of :func:`loop_check` (drawn once per process: figures take seconds)."""
+    from ergodex.report import render_report
+
+    result, surrogate = loop_check(rho, seed)
+    return render_report(result, surrogate,
+                         title=f"Heated convection loop: Lorenz-63 with rho = {rho:g}")

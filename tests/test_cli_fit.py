@@ -82,3 +82,22 @@ def test_too_few_samples_exit_2(tmp_path, capsys):
     code = main(["fit", str(short), "--out", str(tmp_path / "m.json")])
     assert code == 2
     assert "needs at least 41" in capsys.readouterr().err
+
+
+@pytest.mark.slow
+def test_select_writes_the_sparsest_passing_model_and_the_front(tmp_path, capsys):
+    from ergodex.scenarios import convection_loop
+
+    data = write_csv(tmp_path / "fit.csv", convection_loop(seed=70, n_runs=2, duration=60.0))
+    held = write_csv(tmp_path / "held.csv", convection_loop(seed=71, n_runs=4, duration=40.0))
+    config = tmp_path / "fit.toml"
+    config.write_text('method = "sparse"\n[select]\nthresholds = [0.1, 5.0]\n')
+    out, front = tmp_path / "model.json", tmp_path / "front.json"
+    code = main(["fit", str(data), "--config", str(config), "--select", "--reference", str(held),
+                 "--members", "8", "--out", str(out), "--json", str(front)])
+    assert code == 0
+    record = json.loads(front.read_text())
+    assert record["chosen"] == 0 and [c["verdict"] for c in record["candidates"]] == ["pass", "fail"]
+    # Lorenz (1963): the convection loop's equations have 7 terms on 5 distinct monomials
+    assert Surrogate.from_json(out).n_terms == 5
+    assert "chose candidate 0" in capsys.readouterr().out

@@ -17,7 +17,7 @@ from ergodex.series import Series
 from ergodex.writers import write_csv, write_dataset, write_netcdf, write_npz
 
 HYPOTHESIS = settings(
-    max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
+    max_examples=30, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
 )
 
 
@@ -70,6 +70,8 @@ def test_csv_crlf_bom_quoted_header(parser, tmp_path):
     p.write_bytes(b'\xef\xbb\xbf"time","a"\r\n0,1\r\n1,2\r\n2,4\r\n')
     s = read_csv(p)
     assert s.names == ("a",) and s.dt == 1.0 and s.lengths == (3,)
+    p.write_bytes(b"time,a\r0,1\r1,2\r2,4\r")  # line ends of old Mac files
+    np.testing.assert_array_equal(read_csv(p).runs[0][:, 0], [1, 2, 4])
 
 
 def test_dt_from_decimal_time_is_exact(tmp_path):
@@ -81,9 +83,9 @@ def test_dt_from_decimal_time_is_exact(tmp_path):
 
 # --- bad CSV: each message names file, line, column and value ----------------------------------
 BAD_CSV = [
-    ("time,a,b\n0,1,2\n1,nan,3\n2,1,2\n", r"data\.csv: line 3, column 'a': value nan is not finite"),
+    ("time,a,b\n0,1,2\n1,nan,3\n2,1,2\n", r"data\.csv: line 3, column 'a': the cell 'nan' is not finite"),
     ("time,a,b\n0,1,2\n1,abc,3\n2,1,2\n", r"data\.csv: line 3, column 'a': 'abc' is not a number"),
-    ("time,a,b\n0,1,2\n1,1,2\n2,,3\n", r"data\.csv: line 4, column 'a': value nan is not finite"),
+    ("time,a,b\n0,1,2\n1,1,2\n2,,3\n", r"data\.csv: line 4, column 'a': the cell is empty \(a missing value\)"),
     ("time,a,b\n0,1,2\n1,2,3\n1,1,2\n", r"line 4, column 'time': time 1\.0 does not increase"),
     ("time,a,b\n0,1,2\n1,2,3\n2.5,1,2\n3.5,1,2\n", r"line 4, column 'time': step 1\.5 .* differs"),
     ("time,a,b\n0,1,2\n1,2\n2,1,2\n", r"line 3: has 2 cells, the header has 3; missing column 'b'"),
@@ -95,7 +97,7 @@ BAD_CSV = [
     ("time,a,b\n0,1,2\n\n1,2,3\n", r"line 3: blank line inside the data"),
     ("time,run,a\n0,x,1\n1,x,2\n0,y,1\n1,y,3\n0,x,5\n1,x,6\n", r"line 6, column 'run': run 'x' appears again"),
     ("time,a,b\n0,1,2\n1,1,3\n2,1,2\n", r"column 'a': every value is 1\.0 \(a constant variable\)"),
-    ("time,a,b\n0,1,2\n1,1e999,3\n2,3,2\n", r"line 3, column 'a': value inf is not finite"),
+    ("time,a,b\n0,1,2\n1,1e999,3\n2,3,2\n", r"line 3, column 'a': the cell '1e999' is not finite"),
     ("time,a/b\n0,1\n1,2\n", r"line 1: column 2 name 'a/b' contains the character '/'"),
     ("time,a\n0,1\n", r"every run has a single row, so the time column gives no dt"),
     ("time,run,a\n0,x,1\n1,x,2\n0,y,1\n", r"line 4: this run has 1 samples, fewer than min_samples=2"),
@@ -270,7 +272,9 @@ _CELL = st.one_of(
 
 @HYPOTHESIS
 @given(
-    names=st.lists(st.text(min_size=0, max_size=6), min_size=1, max_size=4),
+    # header cells without line breaks, so that the test knows where the header ends
+    names=st.lists(st.text(st.characters(blacklist_characters="\r\n"), max_size=6), min_size=1,
+                   max_size=4),
     rows=st.lists(st.lists(_CELL, min_size=0, max_size=5), min_size=0, max_size=6),
 )
 def test_malformed_csv_dataerror_or_correct(parser, tmp_path, names, rows):

@@ -20,6 +20,9 @@ def test_rk4_matches_solve_ivp_lorenz63():
     rng = np.random.default_rng(1)
     x0 = rng.normal([0, 0, 25], 8, size=(3, 3))
     ours = sc.rk4_trajectories(sc.lorenz63_rhs, x0, dt=0.01, n_out=201, substeps=4)
+    compiled = sc.lorenz63_trajectories(x0, dt=0.01, n_out=201, substeps=4)
+    # the compiled loop does the same arithmetic; only rounding may differ
+    np.testing.assert_allclose(compiled, ours, atol=1e-9, rtol=0)
     t = np.linspace(0, 2, 201)
     for m in range(3):
         ref = solve_ivp(lambda _t, u: sc.lorenz63_rhs(u), (0, 2), x0[m], method="DOP853",
@@ -40,7 +43,9 @@ def test_rk4_matches_solve_ivp_lorenz96():
     errors = []
     for substeps in (5, 10):
         ours = sc.rk4_trajectories(sc.lorenz96_rhs, x0, dt=0.05, n_out=11, substeps=substeps)
-        errors.append(np.abs(ours[0] - ref).max())
+        compiled = sc.lorenz96_trajectories(x0, dt=0.05, n_out=11, substeps=substeps)
+        np.testing.assert_allclose(compiled, ours, atol=1e-9, rtol=0)
+        errors.append(np.abs(compiled[0] - ref).max())
     assert errors[0] < 2e-3
     assert 12 < errors[0] / errors[1] < 20
 
@@ -151,3 +156,20 @@ def test_station_ring_names_and_settings_errors():
         sc.ornstein_uhlenbeck(seed=1, drift=[[0.1]], noise=[[1.0]])
     with pytest.raises(SettingsError, match="fewer than 2 samples"):
         sc.convection_loop(seed=1, duration=0.01)
+
+
+def test_committed_sample_datasets_match_their_generator():
+    from pathlib import Path
+
+    from ergodex.readers import read_dataset
+
+    root = Path(__file__).resolve().parents[1] / "datasets"
+    if not (root / "convection-loop" / "dataset.toml").exists():
+        pytest.skip("sample datasets not present")
+    for name, make in (("convection-loop", sc.convection_loop), ("station-ring", sc.station_ring)):
+        d = read_dataset(root / name)
+        fresh = make(seed=d.provenance["seed"])
+        assert d.series.names == fresh.names and d.series.dt == fresh.dt
+        assert d.series.lengths == fresh.lengths and d.holdout == ("run-3", "run-4")
+        # written with 7 significant digits: relative error at most 5e-7 of each value
+        np.testing.assert_allclose(d.series.stacked(), fresh.stacked(), rtol=5.1e-7, atol=1e-300)

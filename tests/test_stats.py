@@ -187,3 +187,14 @@ def test_logistic_map_invariant_density():
     # binomial: 5 binomial sd per bin with n = 2e5
     tol = 5 * np.sqrt(expected * (1 - expected) / sample.size)
     assert np.all(np.abs(mass - expected) < tol)
+
+
+def test_welch_psd_matches_scipy_on_many_series():
+    rng = np.random.default_rng(14)
+    x = rng.normal(size=(3, 2, 1000)).cumsum(axis=-1)
+    for nperseg in (64, 101):
+        f, p = stats.welch_psd(x, 0.1, nperseg)
+        # reference library: scipy.signal.welch with its defaults (Hann, half overlap, constant detrend)
+        f_ref, p_ref = scipy.signal.welch(x, fs=10.0, nperseg=nperseg, axis=-1)
+        np.testing.assert_allclose(f, f_ref, rtol=1e-12)
+        np.testing.assert_allclose(p, p_ref, rtol=1e-10)

@@ -20,7 +20,8 @@ Rules, and why:
 3. **Never retried forever, never blocking the next.** A file that fails (unreadable data, a
    variable mismatch, any error while retraining) is moved aside at once and the loop goes on.
    A file that was being processed when the watcher died is tried again on restart at most
-   :data:`MAX_ATTEMPTS` times in all, then moved aside.
+   :data:`MAX_ATTEMPTS` times in all, then moved aside. A claim names its owner (``host:pid``):
+   a file another live watcher on the same machine is retraining right now is left to it.
 4. **One log line per step** through the standard :mod:`logging` module (logger
    ``ergodex.inbox``); the command line sets the level with ``--log-level``.
 
@@ -33,6 +34,7 @@ from __future__ import annotations
 import hashlib
 import logging
 import os
+import socket
 import sqlite3
 import threading
 import time
@@ -78,6 +80,7 @@ CREATE TABLE IF NOT EXISTS inbox_files (
     exit_code  INTEGER,
     error      TEXT,
     moved_to   TEXT,
+    owner      TEXT,
     first_seen TEXT NOT NULL,
     updated    TEXT NOT NULL,
     PRIMARY KEY (file_name, size, sha256)
@@ -195,13 +198,15 @@ class Ledger:
         ).fetchone()
 
     def claim(self, file_name: str, size: int, sha256: str, model_name: str) -> sqlite3.Row | None:
-        """Mark a file as being processed and count the attempt.
+        """Mark a file as being processed by this process and count the attempt.
 
         Returns the row as it was *before* the claim (``None`` for a new file) so the caller can
-        see whether it was already done, rejected, or interrupted earlier. A file already done or
-        rejected is not claimed again.
+        see whether it was already done, rejected, interrupted earlier, or is being processed
+        right now by another live watcher on this machine (``row["owner"]`` names it; such a
+        file is not claimed). A file already done or rejected is not claimed again.
         """
         conn = self._conn
+        me = _owner()
         conn.execute("BEGIN IMMEDIATE")
         try:
             row = self.get(file_name, size, sha256)
@@ -209,14 +214,14 @@ class Ledger:
             if row is None:
                 conn.execute(
                     "INSERT INTO inbox_files (file_name, size, sha256, model_name, state, attempts,"
-                    " first_seen, updated) VALUES (?, ?, ?, ?, 'processing', 1, ?, ?)",
-                    (file_name, size, sha256, model_name, now, now),
+                    " owner, first_seen, updated) VALUES (?, ?, ?, ?, 'processing', 1, ?, ?, ?)",
+                    (file_name, size, sha256, model_name, me, now, now),
                 )
-            elif row["state"] == "processing":
+            elif row["state"] == "processing" and not owner_is_alive_elsewhere(row["owner"]):
                 conn.execute(
-                    "UPDATE inbox_files SET attempts=attempts+1, updated=? "
+                    "UPDATE inbox_files SET attempts=attempts+1, owner=?, updated=? "
                     "WHERE file_name=? AND size=? AND sha256=?",
-                    (now, file_name, size, sha256),
+                    (me, now, file_name, size, sha256),
                 )
             conn.execute("COMMIT")
         except BaseException:
@@ -247,6 +252,35 @@ class Ledger:
         """Every row, oldest first (for inspection and tests)."""
         cursor = self._conn.execute("SELECT * FROM inbox_files ORDER BY first_seen, file_name")
         return [dict(row) for row in cursor.fetchall()]
+
+
+def _owner() -> str:
+    """``host:pid`` of this process, stored with a claim."""
+    return f"{socket.gethostname()}:{os.getpid()}"
+
+
+def owner_is_alive_elsewhere(owner: str | None) -> bool:
+    """Whether ``owner`` (``host:pid``) is another process on this host that is still running.
+
+    A claim by a live process elsewhere means another watcher is retraining on that file now;
+    a claim by a dead process (or by this one, from a loop that stopped mid-file) is stale.
+    Claims from other hosts cannot be checked and count as stale.
+    """
+    if not owner or ":" not in owner:
+        return False
+    host, _, pid_text = owner.rpartition(":")
+    if host != socket.gethostname() or not pid_text.isdigit():
+        return False
+    pid = int(pid_text)
+    if pid == os.getpid():
+        return False
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:  # exists, owned by someone else
+        return True
+    return True
 
 
 def _scan(folder: Path) -> dict[str, tuple[int, int]]:
@@ -318,6 +352,10 @@ class _Watcher:
         except FileNotFoundError:
             return None
         before = self.ledger.claim(file_name, size, sha, self.name)
+        if (before is not None and before["state"] == "processing"
+                and owner_is_alive_elsewhere(before["owner"])):
+            log.info("%s is being retrained by %s; leaving it", file_name, before["owner"])
+            return None
         if before is not None and before["state"] in ("done", "rejected"):
             # Same name, size and bytes as a file handled before (e.g. a restart after a crash
             # between the retrain and the move, or the same file dropped twice): never twice.

@@ -509,8 +509,17 @@ def integrate_ensemble(
     if progress is not None:
         progress(1, n_out)
     while j < n_out:
-        nb = min(outputs_per_block, n_out - j)
-        run_block((j - 1) * dt_out, nb, k, draw(nb * k), j, True)
+        if k <= max_steps:
+            nb = min(outputs_per_block, n_out - j)
+            run_block((j - 1) * dt_out, nb, k, draw(nb * k), j, True)
+        else:
+            # More substeps per output than one noise buffer holds: split the interval.
+            nb = 1
+            done = 0
+            while done < k:
+                steps = min(k - done, max_steps)
+                run_block((j - 1) * dt_out + done * h, 1, steps, draw(steps), j, done + steps == k)
+                done += steps
         j += nb
         if progress is not None:
             progress(j, n_out)

@@ -177,7 +177,13 @@ def rhs_columns(states, *program):
 _RHS_ONLY = 3
 
 
-@nb.njit(cache=True, nogil=True)
+# Fused multiply-add is allowed (about 15 % faster here; results change by round-off only). The
+# flags that would let the compiler assume no NaN or infinity are not set: the blow-up check
+# relies on comparisons with NaN being false.
+_FASTMATH = {"contract", "nsz", "arcp"}
+
+
+@nb.njit(cache=True, nogil=True, error_model="numpy", fastmath=_FASTMATH)
 def advance(method, state, alive, blowup_time, t0, h, n_outputs, k, noise, chol, out, j0, write,
             keep, lower, upper, prod_kind, prod_var, prod_freq, prod_fptr, prod_fvar, prod_fpow,
             p_target, p_rows, p_rows2, p_w, p_bias, p_final, p_width, n_rows):

@@ -137,11 +137,8 @@ def _register(registry, name, surrogate, result, *, html, fit_settings, note, pa
         )
 
 
-#: Demo scenarios: name → (dataset folder name, registry model name).
-DEMO_SCENARIOS: dict[str, tuple[str, str]] = {
-    "convection-loop": ("convection-loop", "convection-loop"),
-    "ring": ("station-ring", "station-ring"),
-}
+#: Demo scenarios: name -> sample dataset (and registry model) name.
+DEMO_SCENARIOS: dict[str, str] = {"convection-loop": "convection-loop", "ring": "station-ring"}
 
 
 @dataclass
@@ -159,68 +156,62 @@ def run_demo(
     scenario: str = "convection-loop",
     home: str | Path | None = None,
     data_root: str | Path = "datasets",
-    seed: int = 2026,
+    seed: int | None = None,
 ) -> DemoResult:
     """Build the demo data, fit, validate, register and report, all under the current folder.
 
-    The convection-loop scenario is a laboratory heated loop whose flow reverses at irregular
-    times (three sensors); ``ring`` is a ring of 40 weather stations reduced to a few modes.
+    ``convection-loop`` is a laboratory heated loop whose flow reverses at irregular times
+    (three sensors); ``ring`` is a ring of 40 weather stations reduced to a few modes. The data
+    go to ``<data_root>/<dataset>/`` exactly as the committed sample (same seed, same digits),
+    are read back through the same reader a user's data goes through, fitted on the runs the
+    manifest does not hold out, and checked on the held-out runs.
     """
-    from ergodex import readers, scenarios, writers
+    from ergodex import readers, scenarios
     from ergodex.registry import Registry
-    from ergodex.series import split_runs
     from ergodex.validation import CheckSpec
 
     if scenario not in DEMO_SCENARIOS:
         raise SettingsError(
             f"unknown demo scenario {scenario!r}; choose one of {sorted(DEMO_SCENARIOS)}"
         )
-    folder_name, model_name = DEMO_SCENARIOS[scenario]
-    folder = Path(data_root) / folder_name
-    recipe = _demo_recipe(scenario, seed)
-    series = recipe["generate"]()
-    writers.write_dataset(
-        folder, series, name=folder_name, units=recipe.get("units"), holdout=recipe["holdout"]
-    )
-    # Read back through the same reader a user's data goes through.
-    data = readers.read_series(folder)
-    fit_data, check_data = split_runs(data, recipe["holdout"])
+    seed = scenarios.SAMPLE_SEED if seed is None else int(seed)
+    dataset = DEMO_SCENARIOS[scenario]
+    manifest = scenarios.write_sample_dataset(dataset, data_root, seed=seed)
+    data = readers.read_dataset(Path(manifest).parent)
+    fit_data, check_data = data.split()
+    recipe = _demo_recipe(scenario)
     registry = Registry(home)
-    spec = CheckSpec(seed=seed, **recipe.get("spec", {}))
     flow = fit_check_register(
         fit_data,
         check_data,
         method=recipe["method"],
         settings=recipe["settings"],
-        spec=spec,
+        spec=CheckSpec(seed=seed, **recipe["spec"]),
         registry=registry,
-        name=model_name,
+        name=dataset,
         note=f"ergodex demo ({scenario}), seed {seed}",
         title=recipe["title"],
     )
     report = flow.folder / "report.html" if flow.folder is not None else None
-    return DemoResult(flow=flow, dataset_folder=folder, home=Path(registry.home), report_path=report)
+    return DemoResult(
+        flow=flow, dataset_folder=Path(manifest).parent, home=Path(registry.home),
+        report_path=report,
+    )
 
 
-def _demo_recipe(scenario: str, seed: int) -> dict[str, Any]:
-    """Data generator, held-out runs, fitter and check settings of each demo scenario."""
+def _demo_recipe(scenario: str) -> dict[str, Any]:
+    """Fitter and check settings of each demo scenario."""
     from ergodex import scenarios
     from ergodex.regimes import RegimeSet
 
     if scenario == "convection-loop":
         return {
-            "generate": lambda: scenarios.convection_loop(seed=seed),
-            "units": None,
-            "holdout": [-2, -1],
             "method": "sparse",
             "settings": {},
             "spec": {"regimes": RegimeSet.from_dict(scenarios.convection_loop_regimes())},
             "title": "Heated convection loop: sparse ODE surrogate",
         }
     return {
-        "generate": lambda: scenarios.station_ring(seed=seed),
-        "units": None,
-        "holdout": [-2, -1],
         "method": "quadratic-noise",
         "settings": {"n_modes": 6},
         "spec": {},

@@ -13,8 +13,10 @@ CSV layout
 A header row of column names; an optional ``time`` column (strictly increasing, uniform within
 ``time_tolerance`` of the step; ``dt`` is taken from it); an optional ``run`` column whose value
 changes between trajectories (rows of one run are contiguous); every other column is a state
-variable named by its header. Cells are plain decimal numbers (``1.5``, ``-2e-3``, ``nan``); an
-empty cell is a missing value. Column names may be enclosed in double quotes; cells may not.
+variable named by its header (``time`` and ``run`` are recognised in any letter case). Run labels
+are the ``run`` cells' text as written. Cells are plain decimal numbers (``1.5``, ``-2e-3``,
+``nan``); an empty cell is a missing value. Column names may be enclosed in double quotes; cells
+may not. Values are the correctly rounded float64 of the decimal text (as Python's ``float``).
 
 NPZ layout
 ----------
@@ -143,8 +145,8 @@ def _finish(
             c = int(np.flatnonzero(~np.isfinite(run.values[r]))[0])
             raise DataError(
                 f"{source}: {run.where(r)}, column {names[c]!r}: value "
-                f"{_show(run.values[r, c])} is not finite; fix or remove the row, or read with "
-                "split_at_gaps=True to split the run there"
+                f"{_show(run.values[r, c])} is missing or not finite; fix or remove the row, or "
+                "read with split_at_gaps=True to split the run there"
             )
         else:
             # Each maximal block of finite rows becomes a run; gap rows are never interpolated.
@@ -164,13 +166,9 @@ def _finish(
             out_labels.append(run.label if len(pieces) == 1 else f"{run.label}#{k + 1}")
     if not out_values:
         raise DataError(f"{source}: every row has a missing or non-finite value; no data left")
-    try:
-        return Series.from_arrays(
-            out_values, names, dt, units=units, run_labels=out_labels, source=source
-        )
-    except DataError as exc:
-        # Series names runs by position; the constant-variable message is already clear.
-        raise DataError(str(exc)) from None
+    return Series.from_arrays(
+        out_values, names, dt, units=units, run_labels=out_labels, source=source
+    )
 
 
 def _show(value: float) -> str:
@@ -182,9 +180,10 @@ _NUMBER = re.compile(
     r"[+-]?(?:(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?|nan|inf|infinity)", re.IGNORECASE
 )
 
-#: Bodies smaller than this are parsed in Python; larger ones by the compiled scanner (whose
-#: one-off import and load cost only pays off on big files).
-_FAST_PARSE_MIN_BYTES = 1 << 20
+#: Bodies smaller than this (4 MB) are parsed in Python; larger ones by the compiled scanner,
+#: whose one-off cost (importing numba, loading the cached machine code) pays off on big files
+#: only.
+_FAST_PARSE_MIN_BYTES = 4 << 20
 
 
 def _read_bytes(path: Path) -> bytes:
@@ -300,7 +299,7 @@ def _scan_kernel():
 
     @numba.njit(cache=True, nogil=True)
     def scan(buf, end, n_cols, text_col, dest, pow10, out, tout, slow_cell, slow_start,
-             slow_end, run_row, run_start, run_end):  # pragma: no cover - compiled; tested through callers
+             slow_end, run_row, run_start, run_end):  # pragma: no cover - compiled
         """Parse comma-separated decimal numbers from ``buf[:end]``.
 
         Returns (status, n_rows, n_slow, n_runs, n_ambiguous). status 0: parsed; 1: a row or cell
@@ -448,7 +447,7 @@ def _scan_kernel():
                         # monotonic, so if both ends of the interval round to the same double,
                         # so does the exact value; otherwise it is near a midpoint and Python
                         # decides.
-                        margin = (abs(dcor) + abs(q) * 2.220446049250313e-16) * 2.842170943040401e-14
+                        margin = (abs(dcor) + abs(q) * 2.220446049250313e-16) * 2.8421709e-14
                         if q + (dcor - margin) != q + (dcor + margin):
                             slow = True
                     else:
@@ -520,9 +519,12 @@ def _parse_body_fast(
         dest[c] = j
     if time_col is not None:
         dest[time_col] = -1
+    try:
+        scan = _scan_kernel()
+    except ImportError:  # pragma: no cover - numba is a dependency; Python still reads the file
+        return None
     out = np.empty((n_rows, len(var_cols)))
     tout = np.empty(n_rows if time_col is not None else 0)
-    scan = _scan_kernel()
     text_col = -1 if run_col is None else run_col
     run_row = np.empty(n_rows if run_col is not None else 0, dtype=np.int64)
     run_start = np.empty_like(run_row)
@@ -583,11 +585,12 @@ def read_csv(
         Sampling interval; required without a ``time`` column, checked against it with one.
     split_at_gaps : bool, default False
         Split a run at every row holding a missing or non-finite value instead of refusing it.
-        Gap rows are dropped, never interpolated.
+        Gap rows are dropped, never interpolated; the pieces of run ``r`` are labelled ``r#1``,
+        ``r#2``, ...
     min_samples : int, default 2
         Shortest run (or piece between gaps) accepted.
     time_tolerance : float, default 1e-3
-        Largest allowed ``|step - dt| / dt`` of the time column.
+        Largest allowed ``|step - typical step| / typical step`` of the time column.
 
     Returns
     -------
@@ -618,7 +621,10 @@ def read_csv(
     dt_arg = _check_dt_argument(dt, source)
     min_samples = _check_min_samples(min_samples)
     raw = _read_bytes(path)
-    header_end = raw.find(b"\n")
+    # The header ends at the first line break: \n, \r\n or a lone \r.
+    ends = [i for i in (raw.find(b"\n"), raw.find(b"\r")) if i >= 0]
+    header_end = min(ends) if ends else -1
+    body_start = header_end + (2 if raw[header_end : header_end + 2] == b"\r\n" else 1)
     header = _decode(raw if header_end < 0 else raw[:header_end], path)
     if not header.strip():
         raise DataError(
@@ -626,7 +632,7 @@ def read_csv(
             "expected a header row of column names"
         )
     names = _parse_header(header.rstrip("\n"), source)
-    body_view = memoryview(raw)[header_end + 1 :] if header_end >= 0 else memoryview(b"")
+    body_view = memoryview(raw)[body_start:] if header_end >= 0 else memoryview(b"")
     lower = [n.lower() for n in names]
     time_col = lower.index("time") if "time" in lower else None
     run_col = lower.index("run") if "run" in lower else None
@@ -677,6 +683,21 @@ def read_csv(
         times, bounds, names[time_col] if time_col is not None else "time", dt_arg,
         time_tolerance, source, lambda i: f"line {i + 2}",
     )
+
+    if not split_at_gaps:
+        bad = ~np.isfinite(values)
+        if bad.any():
+            r, c = (int(i) for i in np.argwhere(bad)[0])
+            file_col = var_cols[c]
+            body_text = _decode(bytes(body_view), path, line_offset=1)
+            parts = body_text.split("\n", r + 1)
+            cells = parts[r].split(",") if r < len(parts) else []
+            text = cells[file_col].strip() if file_col < len(cells) else ""
+            found = "is empty (a missing value)" if text == "" else f"{text!r} is not finite"
+            raise DataError(
+                f"{source}: line {r + 2}, column {var_names[c]!r}: the cell {found}; fix or "
+                "remove the row, or read with split_at_gaps=True to split the run there"
+            )
 
     runs = []
     for a, b, label in bounds:
@@ -735,7 +756,8 @@ def _check_time(t, bounds, tname, dt_arg, tol, source, where) -> float:
             )
         return dt_arg
     # The median step is the reference: one odd step is then reported as the odd one.
-    typical = float(np.median(np.concatenate([np.diff(t[a:b]) for a, b, _ in bounds if b - a >= 2])))
+    steps = [np.diff(t[a:b]) for a, b, _ in bounds if b - a >= 2]
+    typical = float(np.median(np.concatenate(steps)))
     for a, b, _ in bounds:
         if b - a >= 2:
             d = np.diff(t[a:b])
@@ -932,7 +954,9 @@ def read_netcdf(
         raise DataError(f"{source}: cannot be read as NetCDF ({_one_line(exc)})") from None
 
     if "time" not in ds.dims:
-        raise DataError(f"{source}: no 'time' dimension; dimensions are {sorted(map(str, ds.dims))}")
+        raise DataError(
+            f"{source}: no 'time' dimension; dimensions are {sorted(map(str, ds.dims))}"
+        )
     member_dims = [d for d in _MEMBER_DIMS if d in ds.dims]
     if len(member_dims) > 1:
         raise DataError(f"{source}: both 'member' and 'run' dimensions; use one")
@@ -1080,7 +1104,8 @@ def read_dataset(
     unknown = sorted(set(doc) - _MANIFEST_KEYS)
     if unknown:
         raise _manifest_error(
-            manifest, f"unknown key(s) {', '.join(unknown)}; allowed: {', '.join(sorted(_MANIFEST_KEYS))}"
+            manifest,
+            f"unknown key(s) {', '.join(unknown)}; allowed: {', '.join(sorted(_MANIFEST_KEYS))}",
         )
     for key in ("name", "variables", "dt", "files"):
         if key not in doc:
@@ -1130,7 +1155,9 @@ def read_dataset(
         try:
             target.resolve().relative_to(root)
         except ValueError:
-            raise _manifest_error(manifest, f"file {entry!r} points outside the dataset folder") from None
+            raise _manifest_error(
+                manifest, f"file {entry!r} points outside the dataset folder"
+            ) from None
         ext = target.suffix.lower()
         if ext not in _FILE_READERS:
             raise _manifest_error(
@@ -1196,7 +1223,9 @@ _FILE_READERS: dict[str, Callable[..., Series]] = {
 }
 
 #: Extension (or kind) -> reader; ``"folder"`` is a dataset folder or its ``dataset.toml``.
-READERS: dict[str, Callable[..., Any]] = {**_FILE_READERS, ".toml": read_dataset, "folder": read_dataset}
+READERS: dict[str, Callable[..., Any]] = {
+    **_FILE_READERS, ".toml": read_dataset, "folder": read_dataset,
+}
 
 
 def read_series(

@@ -485,14 +485,17 @@ def residence_times(labels, dt: float, n_regimes: int, *, include_censored: bool
     list of ndarray
         ``n_regimes + 1`` arrays of durations in time units (``samples × dt``).
     """
-    out: list[list[float]] = [[] for _ in range(n_regimes + 1)]
+    labs, durs = [], []
     for run in _label_runs(labels):
         lab, starts, lengths = _episodes(run)
-        for k, (l, s, n) in enumerate(zip(lab, starts, lengths)):
-            if not include_censored and (s == 0 or s + n == run.size):
-                continue
-            out[n_regimes if l < 0 else int(l)].append(n * dt)
-    return [np.asarray(v, float) for v in out]
+        keep = np.ones(lab.size, bool)
+        if not include_censored and lab.size:
+            keep &= (starts > 0) & (starts + lengths < run.size)
+        labs.append(np.where(lab[keep] < 0, n_regimes, lab[keep]))
+        durs.append(lengths[keep] * dt)
+    lab_all = np.concatenate(labs) if labs else np.zeros(0, int)
+    dur_all = np.concatenate(durs) if durs else np.zeros(0)
+    return [dur_all[lab_all == k].astype(float) for k in range(n_regimes + 1)]
 
 
 def mean_residence_times(labels, dt: float, n_regimes: int) -> np.ndarray:

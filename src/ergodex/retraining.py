@@ -7,14 +7,16 @@ and the registered model name and makes one documented decision:
    (:func:`split_for_retrain`): whole runs when there are several, the last blocks of the run
    otherwise. Neither model is ever checked on the runs the challenger was fitted on.
 2. **Drift check.** The accepted version (the *champion*, the newest accepted version of the
-   name) is checked against the reference with the check spec and seed given. A champion that
-   fails has *drifted*: the system no longer behaves as the data it was accepted on.
+   name) is checked against the reference with the seed given and the check spec recorded in its
+   own scorecard (:func:`resolve_spec`; so the re-check repeats the check it was accepted on),
+   or the spec given. A champion that fails has *drifted*: the system no longer behaves as the
+   data it was accepted on.
 3. **Challenger.** A new model is fitted on the fitting part with the champion's recorded fit
    settings (or the settings given), and checked against the *same* reference with the *same*
    spec and seed, so the two scorecards stand side by side on the same evidence.
 4. **Register and decide.** The challenger is always registered (as a candidate, with lineage:
    ``parent`` = the champion's version, ``datasets`` = fingerprints of the fitting and reference
-   parts). Then:
+   parts, ``fit-settings.json`` = what it was fitted with). Then:
 
    ============================  ==============================  ======================  =====
    champion                      challenger                      outcome                 exit
@@ -30,19 +32,21 @@ and the registered model name and makes one documented decision:
    better on this evidence than one that already matches it, and swapping models on sampling
    noise alone would make downstream results change for no reason. A challenger that passes
    while the champion stands stays a *candidate* (a person may accept it); one that fails is
-   *rejected* with its reasons. A drifted champion gets a ``drift-detected`` event; it is not
-   retired automatically (when replaced, the newer accepted version is the one that loads).
-   Nothing is ever deleted.
+   *rejected* with its reasons. Every re-check leaves an event in the champion's history,
+   ``drift-check-passed`` or ``drift-detected`` (with the score, the rows that failed and the
+   data fingerprint); a passing challenger that is not promoted gets ``not-promoted`` with the
+   reason. A drifted champion is not retired automatically (when replaced, the newer accepted
+   version is the one that loads). Nothing is ever deleted.
 
 **The shared score** (:func:`shared_score`) is the scorecard's *largest row ratio*: the largest,
 over every statistic × variable (or regime) row, of model distance ÷ reference noise floor. Lower is
 better; 1 means "as far from the reference as two honest samples of the truth are from each
-other". It is ``inf`` when more members blew up than the spec allows or a row ratio is not finite,
-so a model that blows up is worse than any model that does not. It is the quantity the verdict itself is calibrated on, so
-"not worse on the shared score" compares like with like.
+other". It is ``inf`` when more members blew up than the spec allows or a row ratio is not
+finite, so a model that blows up is worse than any model that does not. The verdict itself is a
+bound on this quantity, so "not worse on the shared score" compares like with like.
 
-**Reproducibility.** Every step is seeded through ``seed`` (the check spec's seed); the fitters
-are deterministic. The same registry state, data and seed give the same decision record, except
+**Reproducibility.** Every check is seeded through ``seed`` (the check spec's seed); the fitters
+are deterministic given their settings (an ensemble fit's own ``seed`` setting included). The same registry state, data and seed give the same decision record, except
 the wall-clock times, which :meth:`Decision.to_dict` keeps under their own key ``"times"`` and
 :meth:`Decision.record` leaves out.
 
@@ -63,7 +67,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from ergodex.exceptions import DataError, RegistryError, SettingsError
+from ergodex.exceptions import DataError, SettingsError
 from ergodex.series import Series, split_blocks, split_runs
 
 log = logging.getLogger(__name__)
@@ -171,7 +175,10 @@ class Decision:
         One of :data:`OUTCOMES`: ``"first-accepted"``, ``"kept"``, ``"replaced"``,
         ``"no-acceptable-model"``.
     standing : str or None
-        The accepted version downstream users load after this decision (``None`` if none).
+        The version ``Registry.load(name)`` returns after this decision: the challenger when
+        it was accepted, else the champion — with outcome ``no-acceptable-model`` that is the
+        drifted champion, still loaded downstream until someone acts (hence exit code 1);
+        ``None`` after a failed first run.
     champion, challenger : ModelVerdict or None
         Both sides of the comparison (``champion`` is ``None`` on a first run).
     reasons : list of str
@@ -227,7 +234,7 @@ class Decision:
         }
 
     def to_dict(self) -> dict[str, Any]:
-        """The decision record (stable keys; see the module docs and ``docs/retraining.md``).
+        """The decision record (stable keys, documented here and in the module docs).
 
         Keys: ``format`` (``"ergodex-decision/1"``), ``name``, ``outcome``, ``exit_code``,
         ``standing``, ``champion`` and ``challenger`` (each ``null`` or a dict with ``role``,
@@ -368,6 +375,37 @@ def _resolve_fit(config: Any, registry: Any, champion_info: Any) -> tuple[str, d
     )
 
 
+def resolve_spec(spec: Any, registry: Any, champion_info: Any, seed: int) -> Any:
+    """The check spec both models are checked with.
+
+    ``spec`` given as a :class:`~ergodex.validation.CheckSpec` is used as it is. Otherwise the
+    base is the spec recorded in the champion's scorecard (so the drift check repeats the check
+    the champion was accepted on: same members, lengths, regimes, tolerances), or the default
+    spec on a first run; a mapping given as ``spec`` overrides single settings of that base
+    (``{"members": 8}``). The seed is always replaced by ``seed``.
+    """
+    from ergodex.validation import CheckSpec
+
+    if isinstance(spec, CheckSpec):
+        base = spec
+    elif spec is None or isinstance(spec, Mapping):
+        base = CheckSpec()
+        if champion_info is not None and "scorecard.json" in champion_info.artifacts:
+            recorded = json.loads(registry.artifact(champion_info.ref, "scorecard.json"))
+            if isinstance(recorded, Mapping) and isinstance(recorded.get("spec"), Mapping):
+                base = CheckSpec.from_dict(dict(recorded["spec"]))
+                log.info("check spec: as recorded with %s", champion_info.ref)
+        if spec:
+            merged = base.to_dict()
+            merged.update(dict(spec))
+            base = CheckSpec.from_dict(merged)
+    else:
+        raise SettingsError(f"spec must be a CheckSpec or a mapping of settings, got {type(spec).__name__}")
+    out = replace(base, seed=seed)
+    out.check_settings()
+    return out
+
+
 def find_champion(registry: Any, name: str) -> Any | None:
     """The newest accepted version of ``name`` (its ``VersionInfo``), or ``None`` if there is none.
 
@@ -434,8 +472,9 @@ def retrain(
     config : path-like, (method, settings) pair or mapping, optional
         Fit settings for the challenger; default: the champion's recorded fit settings (or the
         sparse fitter's defaults on a first run).
-    spec : ergodex.validation.CheckSpec, optional
-        Check settings for both models; its seed is replaced by ``seed``.
+    spec : ergodex.validation.CheckSpec or mapping, optional
+        Check settings for both models (see :func:`resolve_spec`); a mapping overrides single
+        settings of the default. The seed is always ``seed``.
     seed : int
         Seed of both checks (and so of the whole decision).
     holdout : float, int or sequence
@@ -459,7 +498,7 @@ def retrain(
         Raised before anything is written to the registry.
     """
     from ergodex.pipeline import fit_check_register
-    from ergodex.validation import CheckSpec, check
+    from ergodex.validation import check
 
     started = _now()
     step = progress or (lambda _name: None)
@@ -471,15 +510,16 @@ def retrain(
     fit_part, reference = split_for_retrain(series, holdout)
     log.info("read %s: %d runs; fitting on %d, reference %d", series.source or "data",
              series.n_runs, fit_part.n_runs, reference.n_runs)
-    spec = replace(spec if spec is not None else CheckSpec(), seed=seed)
+    fingerprint = series.fingerprint()
 
     champion_info = find_champion(registry, name)
     champion_ref = None if champion_info is None else champion_info.ref
     method, settings = _resolve_fit(config, registry, champion_info)
+    spec = resolve_spec(spec, registry, champion_info, seed)
 
+    step("drift check")
     champion_result = None
     if champion_info is not None:
-        step("drift check")
         champion = registry.load(champion_ref)
         _check_variables(champion, series, champion_ref)
         log.info("drift check: %s against %d reference runs (seed %d)", champion_ref,
@@ -512,7 +552,7 @@ def retrain(
                       version=champion_info.version)
 
     outcome, reasons = _decide(cp, ch)
-    _apply(registry, outcome, cp, ch, reasons, series.fingerprint())
+    _apply(registry, outcome, cp, ch, reasons, fingerprint)
     standing = ch.ref if outcome in ("first-accepted", "replaced") else (cp.ref if cp else None)
 
     decision = Decision(
@@ -525,7 +565,7 @@ def retrain(
         seed=seed,
         holdout=holdout,
         data={
-            "fingerprint": series.fingerprint(),
+            "fingerprint": fingerprint,
             "fit_fingerprint": fit_part.fingerprint(),
             "reference_fingerprint": reference.fingerprint(),
             "source": series.source,

@@ -215,6 +215,13 @@ class Series:
             On non-finite values, wrong shapes, empty, duplicate or unusable names, ``dt <= 0``
             or a constant variable. The message names the source, run, row and column and the
             value found.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> s = Series.from_arrays(np.arange(6.0).reshape(3, 2), ["flow", "dT_up"], 0.5)
+        >>> s.lengths, s.duration, s.column("dT_up")
+        ((3,), (1.5,), 1)
         """
         return cls(
             runs=tuple(_as_runs(runs, source)),

@@ -30,7 +30,7 @@ from typing import Any
 
 import numpy as np
 
-from ergodex.exceptions import ModelFileError, SettingsError
+from ergodex.exceptions import ErgodexError, ModelFileError, SettingsError
 
 __all__ = [
     "FORMAT",
@@ -290,6 +290,15 @@ class Surrogate:
             raise SettingsError(
                 f"transform: expected an ergodex Transform (forward/inverse/to_dict), got {type(transform).__name__}"
             )
+        if transform is not None:
+            try:
+                n_out = int(transform.n_outputs)
+            except (AttributeError, ErgodexError):
+                n_out = n
+            if n_out != n:
+                raise SettingsError(
+                    f"transform: maps data to {n_out} model variables, but the model has {n}"
+                )
         for field, value in (("settings", settings), ("provenance", provenance)):
             if value is not None and not isinstance(value, Mapping):
                 raise SettingsError(f"{field}: must be a dict, got {type(value).__name__}")
@@ -345,7 +354,8 @@ class Surrogate:
     def __eq__(self, other: object) -> bool:
         return isinstance(other, Surrogate) and self.fingerprint() == other.fingerprint()
 
-    __hash__ = None  # type: ignore[assignment]  # mutable-looking equality; not meant as a key
+    def __hash__(self) -> int:
+        return hash(self.fingerprint())
 
     # ------------------------------------------------------------------ term tables
     def term_tables(self) -> dict[str, np.ndarray]:

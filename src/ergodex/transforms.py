@@ -49,7 +49,9 @@ def _as_2d(X: Any, what: str = "X") -> np.ndarray:
     return arr
 
 
-def _data_and_names(X: Any, names: Sequence[str] | None) -> tuple[list[np.ndarray], tuple[str, ...]]:
+def _data_and_names(
+    X: Any, names: Sequence[str] | None
+) -> tuple[list[np.ndarray], tuple[str, ...]]:
     """Runs (list of 2-D arrays) and names from a Series or an array."""
     if isinstance(X, Series):
         return list(X.runs), tuple(X.names)
@@ -114,7 +116,8 @@ class Transform:
         arr = _as_2d(Z)
         if arr.shape[1] != self.n_outputs:
             raise DataError(
-                f"{self.kind} transform inverse expects {self.n_outputs} columns, got {arr.shape[1]}"
+                f"{self.kind} transform inverse expects {self.n_outputs} columns, "
+                f"got {arr.shape[1]}"
             )
         return self._inverse(arr)
 
@@ -236,7 +239,9 @@ class Standardise(Transform):
 
     @classmethod
     def _from_state(cls, d: Mapping[str, Any], n_inputs: int) -> Standardise:
-        t = cls(with_mean=bool(d.get("with_mean", True)), with_scale=bool(d.get("with_scale", True)))
+        t = cls(
+            with_mean=bool(d.get("with_mean", True)), with_scale=bool(d.get("with_scale", True))
+        )
         t.mean_ = _floats(d["mean"], "mean", (n_inputs,))
         t.scale_ = _floats(d["scale"], "scale", (n_inputs,))
         if np.any(t.scale_ <= 0):
@@ -278,7 +283,9 @@ class PCA(Transform):
 
     kind = "pca"
 
-    def __init__(self, n_modes: int | None = None, *, variance_fraction: float | None = None) -> None:
+    def __init__(
+        self, n_modes: int | None = None, *, variance_fraction: float | None = None
+    ) -> None:
         super().__init__()
         self.n_modes = n_modes
         self.variance_fraction = variance_fraction
@@ -425,7 +432,8 @@ class DelayEmbedding(Transform):
             raise DataError(
                 f"{X.shape[0]} rows are too few for {self.n_delays} delays of {self.delay} samples"
             )
-        blocks = [X[lost - j * self.delay : lost - j * self.delay + n] for j in range(self.n_delays)]
+        starts = [lost - j * self.delay for j in range(self.n_delays)]
+        blocks = [X[s : s + n] for s in starts]
         return np.concatenate(blocks, axis=1)
 
     def _inverse(self, Z: np.ndarray) -> np.ndarray:

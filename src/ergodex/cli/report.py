@@ -9,13 +9,13 @@ current folder), never into the version folder.
 from __future__ import annotations
 
 import argparse
-import io
 import json
+import tempfile
 from pathlib import Path
 from typing import Any
 
 from ergodex.cli.common import add_home_option, registry_from_args
-from ergodex.exceptions import ErgodexError, ModelFileError, RegistryError
+from ergodex.exceptions import ModelFileError, RegistryError, SettingsError
 
 
 def add_parser(subparsers: Any) -> argparse.ArgumentParser:
@@ -61,7 +61,7 @@ def _output_path(out: str | None, name: str, version: int) -> Path:
     if path.is_dir():
         return path / default_name
     if not path.parent.exists():
-        raise ErgodexError(
+        raise SettingsError(
             f"--out {out}: folder {path.parent} does not exist; create it or choose another path"
         )
     return path
@@ -86,8 +86,13 @@ def load_check_result(registry: Any, ref: str):
     scorecard = Scorecard.from_json(card_text)
     evidence = None
     if "evidence.npz" in info.artifacts:
+        # Read the verified bytes (not the stored file, which could change after the check)
+        # through a private temporary copy: Evidence.from_npz takes a path.
         data = registry.artifact(info, "evidence.npz")
-        evidence = Evidence.from_npz(io.BytesIO(data))
+        with tempfile.TemporaryDirectory(prefix="ergodex-report-") as tmp:
+            copy = Path(tmp) / "evidence.npz"
+            copy.write_bytes(data)
+            evidence = Evidence.from_npz(copy)
     fit_settings = None
     if "fit-settings.json" in info.artifacts:
         try:

@@ -89,7 +89,9 @@ def run(args: argparse.Namespace) -> int:
     app = create_app(settings)
     app.state.home_lock = lock
     family = socket.AF_INET6 if ":" in args.host else socket.AF_INET
-    sock = socket.socket(family, socket.SOCK_STREAM)
+    # IPPROTO_TCP explicitly: asyncio turns Nagle off (TCP_NODELAY) only on sockets whose proto
+    # says TCP, and with Nagle on every keep-alive response waits ~40 ms for a delayed ACK.
+    sock = socket.socket(family, socket.SOCK_STREAM, socket.IPPROTO_TCP)
     try:
         sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
         sock.bind((args.host, args.port))

@@ -240,6 +240,16 @@ def make_fitter(method: str | type[Fitter], settings: Mapping[str, Any] | None =
     settings : dict, optional
         Constructor arguments; unknown keys and bad values raise :class:`SettingsError` naming
         the key and listing what is allowed.
+
+    Examples
+    --------
+    >>> fitter = make_fitter("linear-inverse", {"tau0": 0.5})
+    >>> type(fitter).__name__, fitter.get_params()["tau0"]
+    ('LinearInverseModel', 0.5)
+    >>> make_fitter("sparse", {"treshold": 0.1})  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    ergodex.exceptions.SettingsError: sparse has no setting 'treshold'; allowed settings: alpha, ...
     """
     settings = dict(settings or {})
     check_fit_settings(method, settings)

@@ -22,6 +22,7 @@ import sys
 from dataclasses import dataclass, field
 from typing import Any, Mapping, Sequence
 
+
 import numpy as np
 
 from ergodex.exceptions import ErgodexError, SettingsError
@@ -162,6 +163,10 @@ def _evaluate(index: int, method: str, settings: dict, fit_data, reference, spec
         fitter = make_fitter(method, settings).fit(fit_data)
     except ErgodexError as exc:
         return {"index": index, "verdict": "error", "reasons": [f"fit failed: {exc}"]}
+    except (ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:
+        # a numerical failure inside one candidate (e.g. the optimizer) is that candidate's
+        # finding; the sweep goes on and the front records it
+        return {"index": index, "verdict": "error", "reasons": [f"fit failed ({type(exc).__name__}): {exc}"]}
     surrogate = fitter.surrogate_
     out = {
         "index": index,

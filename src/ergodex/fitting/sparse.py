@@ -50,7 +50,8 @@ sparse_settings_table: dict[str, Rule] = {
     "smoother_window": Rule("int", low=5, help="smoothed differences: Savitzky–Golay window (samples, odd)"),
     "smoother_polyorder": Rule("int", low=1, high=7, help="smoothed differences: Savitzky–Golay degree"),
     "weak_window": Rule("int", low=5, help="weak form: samples per test-function window"),
-    "weak_stride": Rule("int", low=1, allow_none=True, help="weak form: samples between windows (None: window/4)"),
+    "weak_stride": Rule("int", low=1, allow_none=True, help="weak form: samples between windows "
+                        "(None: window/4, closer for large libraries)"),
     "weak_degree": Rule("int", low=2, high=16, help="weak form: test function (1 - s^2)^p, this p"),
     "ensemble": Rule("bool", help="bagging: refit on resampled rows, keep terms by inclusion probability"),
     "n_models": Rule("int", low=2, high=10000, help="ensemble: number of resampled fits"),
@@ -100,7 +101,9 @@ class SparseODE(Fitter):
         Savitzky–Golay smoothing before differencing (a degree-4 fit through 9 samples).
     weak_window : int, default 41
         Samples per weak-form window.
-    weak_stride : int or None, default None (window // 4)
+    weak_stride : int or None, default None
+        Samples between weak-form windows; None: a quarter window, or closer when the library is
+        large (at least four windows per term where the data allow).
     weak_degree : int, default 4
         Test function (1 − s²)^p.
     ensemble : bool, default False
@@ -283,6 +286,13 @@ class SparseODE(Fitter):
     def _regression_rows(self, ps, runs, dt: float, terms, source: str) -> tuple[np.ndarray, np.ndarray]:
         """Stack the regression rows of every run: (Θ, Y) with Y the tendencies or weak integrals."""
         thetas, ys = [], []
+        stride = self.weak_stride
+        if self.differentiation == "weak" and stride is None:
+            # Overlapping windows a quarter-window apart, closer when a large library needs more
+            # rows: aim for at least four weak equations per library term.
+            available = sum(max(r.shape[0] - self.weak_window + 1, 0) for r in runs)
+            wanted = 4 * len(terms)
+            stride = int(max(1, min(self.weak_window // 4, available // max(wanted, 1))))
         for index, run in enumerate(runs):
             X = np.asarray(run, dtype=float)
             needed = self._samples_needed()
@@ -294,7 +304,6 @@ class SparseODE(Fitter):
                 )
             if self.differentiation == "weak":
                 Theta = evaluate_terms(terms, X)
-                stride = self.weak_stride or max(1, self.weak_window // 4)
                 T, Y = weak_matrices(X, Theta, dt, window=self.weak_window, stride=stride, degree=self.weak_degree)
             else:
                 X_used, Xdot = self._pointwise(ps, X, dt)

@@ -123,6 +123,14 @@ def _legend(figure: Figure, axes: list, *, n_columns: int = 3) -> None:
                       ncols=n_columns, fontsize=_FONT, frameon=False, borderaxespad=0.2)
 
 
+def _note_missing_model(ax, values: np.ndarray) -> None:
+    """Say so in the panel when the surrogate produced nothing to draw (every member blew up)."""
+    if not np.any(np.isfinite(values)):
+        ax.text(0.5, 0.5, "no surrogate output\n(every member blew up)", transform=ax.transAxes,
+                ha="center", va="center", fontsize=_FONT, color=SURROGATE_DARK,
+                bbox={"facecolor": "white", "edgecolor": SURROGATE_COLOUR, "pad": 3.0})
+
+
 def _band(pieces: np.ndarray | None, axis: int = 0) -> tuple[np.ndarray, np.ndarray] | None:
     """Lowest and highest value over reference pieces (the honest spread of the truth itself)."""
     if pieces is None or np.size(pieces) == 0 or np.shape(pieces)[axis] < 2:
@@ -180,6 +188,7 @@ def histogram_figure(variables: Sequence[str], edges: np.ndarray, reference: np.
                   label=REFERENCE_LABEL)
         ax.stairs(mod_density, edges[j], color=SURROGATE_COLOUR, linewidth=1.8, linestyle=(0, (4, 2)),
                   label=SURROGATE_LABEL)
+        _note_missing_model(ax, mod_density)
         model_top = float(np.nanmax(mod_density)) if np.any(np.isfinite(mod_density)) else 0.0
         if model_top > _CLIP_FACTOR * top:
             limit = _CLIP_FACTOR * top
@@ -227,6 +236,7 @@ def autocorrelation_figure(variables: Sequence[str], lags: np.ndarray, reference
         ax.plot(lags, model[j], color=SURROGATE_COLOUR, linewidth=1.8, linestyle=(0, (4, 2)),
                 label=SURROGATE_LABEL)
         ax.axhline(0.0, color=MUTED_COLOUR, linewidth=0.7)
+        _note_missing_model(ax, np.asarray(model[j], dtype=float))
         ax.set_xlim(lags[0], lags[-1])
         ax.set_ylim(-1.05, 1.05)
         _title(ax, str(name))
@@ -266,6 +276,7 @@ def spectrum_figure(variables: Sequence[str], frequencies: np.ndarray, reference
                 label=REFERENCE_LABEL)
         ax.plot(f, positive(model[j]), color=SURROGATE_COLOUR, linewidth=1.6, linestyle=(0, (4, 2)),
                 label=SURROGATE_LABEL)
+        _note_missing_model(ax, positive(model[j]))
         ax.set_xscale("log")
         ax.set_yscale("log")
         # Ticks on decades only: minor ticks add little on axes spanning many decades and cost

@@ -122,13 +122,18 @@ def _value_text(value: Any) -> str:
     """Escaped text of a setting or provenance value (lists and arrays compactly)."""
     if isinstance(value, np.ndarray):
         value = value.tolist()
-    if isinstance(value, float):
-        return _esc(f"{value:g}")
+    if isinstance(value, (float, np.floating)):
+        # Four significant figures without padding: settings read as typed (0.01, 10, 2.667)
+        # and measured values stay short.
+        return _number(value) if not math.isfinite(value) else _esc(f"{value:.4g}")
     if isinstance(value, (list, tuple)):
         if all(isinstance(v, (int, float, str, bool)) or v is None for v in value):
-            return ", ".join(_value_text(v) for v in value) if value else "[]"
-        return "; ".join(_value_text(v) for v in value)
+            return ", ".join(_value_text(v) for v in value) if value else "none"
+        # A list of records (e.g. regime definitions): one per line.
+        return "<br>".join(_value_text(v) for v in value)
     if isinstance(value, Mapping):
+        if not value:
+            return "none"
         return "; ".join(f"{_esc(k)}: {_value_text(v)}" for k, v in value.items())
     if value is None:
         return "none"
@@ -262,8 +267,11 @@ def _verdict_banner(scorecard: Any) -> str:
         headline = "The surrogate's long-run statistics differ from the reference beyond its noise."
     else:
         headline = "The check has no verdict."
-    detail = (f"{len(rows) - n_fail} of {len(rows)} rows within tolerance; "
-              f"largest ratio to the noise floor {_number(worst)}.")
+    if rows:
+        detail = (f"{len(rows) - n_fail} of {len(rows)} rows within tolerance; "
+                  f"largest ratio to the noise floor {_number(worst)}.")
+    else:
+        detail = "No statistic could be compared."
     reasons = [str(r) for r in (_field(scorecard, "reasons", []) or [])]
     reasons_html = ""
     if reasons:
@@ -482,7 +490,12 @@ def _settings_section(surrogate: Any, fit_summary: Mapping[str, Any] | None
 
 
 def _candidate_rows(selection: Any) -> tuple[list[dict[str, Any]], int | None]:
-    """Candidates of a sweep as plain dicts, and the index of the chosen one if known."""
+    """Candidates of a sweep as plain dicts, and the row position of the chosen one if known.
+
+    Accepts a :class:`ergodex.fitting.selection.SelectionResult` (its ``front``: candidates by
+    number of terms; ``chosen`` is a candidate's ``index``), its ``to_dict()`` form, or a plain
+    list of candidate records.
+    """
     if isinstance(selection, Mapping):
         front = selection.get("front", selection.get("candidates", []))
         chosen = selection.get("chosen_index", selection.get("chosen"))
@@ -496,15 +509,25 @@ def _candidate_rows(selection: Any) -> tuple[list[dict[str, Any]], int | None]:
     rows = []
     for candidate in front or []:
         record = _as_dict(candidate)
-        rows.append({k: v for k, v in record.items()
-                     if isinstance(v, (int, float, str, bool, np.integer, np.floating))
-                     or v is None or (isinstance(v, Mapping) and k == "settings")})
-    if not isinstance(chosen, (int, np.integer)) or isinstance(chosen, bool):
+        row: dict[str, Any] = {}
+        for key, value in record.items():
+            if key in ("model_json", "scorecard"):
+                continue  # the whole model and scorecard: far too long for a table cell
+            if key == "reasons" and isinstance(value, (list, tuple)):
+                value = "; ".join(str(v) for v in value)
+            if (isinstance(value, (int, float, str, bool, np.integer, np.floating)) or value is None
+                    or isinstance(value, Mapping)):
+                row[key] = value
+        rows.append(row)
+    if isinstance(chosen, bool) or not isinstance(chosen, (int, np.integer)):
         chosen = None
-        for i, row in enumerate(rows):
-            if row.get("chosen") is True or row.get("selected") is True:
-                chosen = i
-    return rows, (int(chosen) if chosen is not None else None)
+    position = None
+    if chosen is not None:
+        if rows and all("index" in row for row in rows):
+            position = next((i for i, row in enumerate(rows) if row["index"] == chosen), None)
+        elif 0 <= chosen < len(rows):
+            position = int(chosen)
+    return rows, position
 
 
 def _selection_section(selection: Any, tolerance: Any) -> tuple[str, str, str] | None:
@@ -518,7 +541,7 @@ def _selection_section(selection: Any, tolerance: Any) -> tuple[str, str, str] |
         for key in row:
             if key not in columns:
                 columns.append(key)
-    head = "".join(f"<th>{_esc(c)}</th>" for c in columns)
+    head = "".join(f"<th>{_esc(c.replace('_', ' '))}</th>" for c in columns)
     body = []
     for i, row in enumerate(rows):
         cells = []
@@ -526,24 +549,35 @@ def _selection_section(selection: Any, tolerance: Any) -> tuple[str, str, str] |
             value = row.get(c)
             if isinstance(value, (float, np.floating)):
                 cells.append(f'<td class="num">{_number(value)}</td>')
+            elif c == "verdict":
+                cells.append(f'<td class="verdict-cell {_esc(value)}">{_esc(value)}</td>')
             else:
                 cells.append(f"<td>{_value_text(value)}</td>")
         mark = ' class="chosen"' if i == chosen else ""
         body.append(f"<tr{mark}>{''.join(cells)}</tr>")
-    parts = ["<p>Candidates tried in the sweep; the chosen one is highlighted.</p>"]
-    x_key = next((k for k in ("n_terms", "complexity", "terms") if k in columns), None)
-    y_key = next((k for k in ("score", "max_ratio", "largest_ratio", "ratio") if k in columns), None)
+    message = _field(selection, "message", "") if not isinstance(selection, Sequence) else ""
+    parts = ["<p>Candidates tried in the sweep, simplest first; the chosen one is highlighted."
+             + (f" {_esc(message)}" if message else "") + "</p>"]
+    x_key = next((k for k in ("n_terms", "complexity") if k in columns), None)
+    y_key = next((k for k in ("statistical_score", "largest_ratio", "score", "ratio")
+                  if k in columns), None)
     if x_key and y_key:
-        try:
-            x = np.array([float(r.get(x_key, np.nan)) for r in rows])
-            y = np.array([float(r.get(y_key, np.nan)) for r in rows])
-            tol = float(tolerance) if tolerance is not None else None
+        def number(v: Any) -> float:
+            try:
+                return float(v)
+            except (TypeError, ValueError):
+                return float("nan")
+
+        x = np.array([number(r.get(x_key)) for r in rows])
+        y = np.array([number(r.get(y_key)) for r in rows])
+        if np.any(np.isfinite(x) & np.isfinite(y)):
+            tol = number(tolerance) if tolerance is not None else None
             parts.append(_figure(
                 figures.selection_figure(x, y, chosen, complexity_label=x_key.replace("_", " "),
-                                         score_label=y_key.replace("_", " "), tolerance=tol),
-                "selection front: complexity against score", "Candidates of the sweep."))
-        except (TypeError, ValueError):
-            pass
+                                         score_label=y_key.replace("_", " ") + " (ratio to noise floor)"
+                                         if y_key == "statistical_score" else y_key.replace("_", " "),
+                                         tolerance=tol),
+                "selection front: number of terms against check score", "Candidates of the sweep."))
     parts.append(f'<table class="front"><thead><tr>{head}</tr></thead>'
                  f"<tbody>{''.join(body)}</tbody></table>")
     return _section("selection", "Selection", "".join(parts))
@@ -563,6 +597,10 @@ def _provenance_section(scorecard: Any, surrogate: Any) -> tuple[str, str, str]:
     if spec:
         parts.append("<h3>Check settings (enough to repeat the check exactly)</h3>"
                      + _key_value_table(spec))
+    derived = _as_dict(_field(scorecard, "settings"))
+    if derived:
+        parts.append("<h3>Settings the check derived from the data</h3>"
+                     + _key_value_table(derived))
     model = {}
     try:
         model["model fingerprint (now)"] = surrogate.fingerprint()

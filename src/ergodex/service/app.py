@@ -432,7 +432,9 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
 
         try:
             check_spec(options.model_dump())
-        except (ErgodexError, TypeError, ValueError) as exc:
+        except Exception as exc:  # noqa: BLE001 - whatever the options break, they are the client's
+            if not isinstance(exc, ErgodexError):
+                log.info("check options refused with %r", exc)
             raise ApiError(422, "invalid-settings", one_line(f"check options: {exc}")) from None
 
     def check_fit(method: str, fit_settings: dict[str, Any]) -> None:
@@ -440,7 +442,9 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
 
         try:
             check_fit_settings(method, fit_settings)
-        except ErgodexError as exc:
+        except Exception as exc:  # noqa: BLE001 - the settings are the client's
+            if not isinstance(exc, ErgodexError):
+                log.info("fit settings refused with %r", exc)
             raise ApiError(422, "invalid-settings", one_line(str(exc))) from None
 
     def check_name(name: str) -> None:

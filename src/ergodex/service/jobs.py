@@ -44,6 +44,9 @@ JOB_STATES = (QUEUED, RUNNING, SUCCEEDED, FAILED)
 #: Job kinds the workers know how to run (see :mod:`ergodex.service.tasks`).
 JOB_KINDS = ("fit", "validate", "retrain")
 
+#: Scheduling priority added to worker processes (POSIX ``nice``): reads stay quick under load.
+WORKER_NICENESS = 10
+
 #: Error code stored on a job that a stopped or crashed server left running.
 INTERRUPTED = "interrupted"
 
@@ -360,6 +363,11 @@ def worker_main(jobs_path: str, home: str, parent_pid: int, control, poll_interv
     code named after its class, anything else as ``internal-error`` with its type and message.
     """
     _die_with_parent(parent_pid)
+    try:
+        # Jobs are batch work: when cores are short, the server's request thread goes first.
+        os.nice(WORKER_NICENESS)
+    except (AttributeError, OSError):  # pragma: no cover - not POSIX
+        pass
     from ergodex.service import tasks  # heavy imports happen lazily inside the tasks
 
     store = JobStore(jobs_path)

@@ -59,7 +59,7 @@ class ServiceSettings:
     poll_interval: float = 0.2
 
     def __post_init__(self) -> None:
-        object.__setattr__(self, "home", Path(self.home))
+        object.__setattr__(self, "home", Path(self.home).expanduser().absolute())
         if self.token is not None and len(self.token) < MIN_TOKEN_LENGTH:
             raise SettingsError(
                 f"the service token is {len(self.token)} characters long; use at least "

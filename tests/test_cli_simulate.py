@@ -1,0 +1,157 @@
+"""Tests of ``ergodex simulate`` run through the real command-line entry point."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+from scipy.integrate import solve_ivp
+
+from ergodex.cli import main
+from ergodex.readers import read_series
+from ergodex.series import Series
+from ergodex.surrogate import Surrogate, polynomial_terms
+from ergodex.transforms import Standardise
+from ergodex.writers import write_csv
+
+NAMES = ("flow", "dT_across", "dT_up")
+# Lorenz-63 parameters (Lorenz 1963, J. Atmos. Sci. 20, 130-141).
+SIGMA, RHO, BETA = 10.0, 28.0, 8.0 / 3.0
+
+
+def lorenz63(extra_z2: float = 0.0, provenance=None) -> Surrogate:
+    terms = polynomial_terms(3, 2)
+    index = {t.powers: k for k, t in enumerate(terms)}
+    coef = np.zeros((3, len(terms)))
+    coef[0, index[(1, 0, 0)]], coef[0, index[(0, 1, 0)]] = -SIGMA, SIGMA
+    coef[1, index[(1, 0, 0)]], coef[1, index[(0, 1, 0)]], coef[1, index[(1, 0, 1)]] = RHO, -1.0, -1.0
+    coef[2, index[(0, 0, 1)]], coef[2, index[(1, 1, 0)]] = -BETA, 1.0
+    coef[2, index[(0, 0, 2)]] = extra_z2
+    return Surrogate(NAMES, terms, coef, provenance=provenance)
+
+
+def lorenz63_rhs(_t, y):
+    return [SIGMA * (y[1] - y[0]), y[0] * (RHO - y[2]) - y[1], y[0] * y[1] - BETA * y[2]]
+
+
+def test_simulate_writes_the_models_dynamics_reproducibly(tmp_path, capsys):
+    model = tmp_path / "model.json"
+    lorenz63(provenance={"dt": 0.01}).to_json(model)
+    out = tmp_path / "sim.npz"
+    code = main(["simulate", str(model), "--members", "4", "--steps", "120", "--seed", "3", "--out", str(out)])
+    assert code == 0
+    assert "4 members integrated" in capsys.readouterr().err
+    series = read_series(out)
+    assert series.n_runs == 4 and series.lengths == (120,) * 4
+    assert series.names == NAMES and series.dt == pytest.approx(0.01)
+    # Each written run follows the Lorenz equations: scipy's DOP853 from the run's first row
+    # agrees over 1.19 time units within RK4's error at h = 0.01 (~1e-4 absolute, amplified by
+    # e^(0.906 * 1.19) ~ 3 by chaos; Lyapunov exponent from Sprott 2003).
+    for run in series.runs:
+        t = np.arange(120) * 0.01
+        ref = solve_ivp(lorenz63_rhs, (0, t[-1]), run[0], t_eval=t, method="DOP853", rtol=1e-10, atol=1e-10)
+        np.testing.assert_allclose(run, ref.y.T, atol=2e-3)
+    # After the 1000-step spin-up from tiny perturbations of the origin, the members are on the
+    # attractor and far apart from each other (|z| well away from the origin's 0).
+    starts = np.array([run[0] for run in series.runs])
+    assert np.all(starts[:, 2] > 1.0) and np.min(np.ptp(starts, axis=0)) > 1.0
+    # Same seed, same numbers.
+    again = tmp_path / "again.npz"
+    assert main(["simulate", str(model), "--members", "4", "--steps", "120", "--seed", "3", "--out", str(again)]) == 0
+    for a, b in zip(series.runs, read_series(again).runs):
+        np.testing.assert_array_equal(a, b)
+
+
+def test_simulate_in_data_space_through_the_transform(tmp_path):
+    rng = np.random.default_rng(21)
+    data = rng.normal(loc=[5.0, -3.0], scale=[2.0, 0.5], size=(200, 2))
+    transform = Standardise().fit(data, names=["a", "b"])
+    # dz/dt = -z in model space: z(t) = z0 exp(-t), so x(t) = mean + scale * z0 * exp(-t).
+    decay = Surrogate(("za", "zb"), polynomial_terms(2, 1, include_bias=False), -np.eye(2),
+                      transform=transform)
+    model = tmp_path / "decay.json"
+    decay.to_json(model)
+    start = tmp_path / "start.csv"
+    write_csv(start, Series.from_arrays([data[:10]], ["a", "b"], 0.1))
+    out = tmp_path / "sim.csv"
+    code = main(["simulate", str(model), "--members", "2", "--steps", "11", "--dt", "0.1", "--substep", "0.001",
+                 "--initial", str(start), "--out", str(out)])
+    assert code == 0
+    series = read_series(out)
+    t = np.arange(11) * 0.1
+    for run, row in zip(series.runs, data[[0, 9]]):  # rows evenly spaced through the file: 0 and 9
+        z0 = (row - transform.mean_) / transform.scale_
+        expected = transform.mean_ + transform.scale_ * z0 * np.exp(-t)[:, None]
+        # RK4 at h = 1e-3 on a linear decay: relative error ~ h^4 / 120 per unit time, far below
+        # the CSV round trip (shortest repr, lossless).
+        np.testing.assert_allclose(run, expected, rtol=1e-10, atol=1e-12)
+
+
+def test_simulate_reports_blowups_with_exit_code_1(tmp_path, capsys):
+    model = tmp_path / "bad.json"
+    lorenz63(extra_z2=1.0).to_json(model)
+    rng = np.random.default_rng(22)
+    start = tmp_path / "start.csv"
+    starts = rng.normal(size=(6, 3)) * 3.0 + [0.0, 0.0, 25.0]
+    write_csv(start, Series.from_arrays([starts], list(NAMES), 0.01))
+    out = tmp_path / "sim.csv"
+    code = main(["simulate", str(model), "--members", "6", "--steps", "400", "--dt", "0.01", "--initial", str(start),
+                 "--out", str(out), "--seed", "1"])
+    err = capsys.readouterr().err
+    assert code == 1
+    assert "6 of 6 members blew up" in err and "members that blew up: 0 (t=" in err
+    series = read_series(out)
+    # Runs end at their last finite output; none is padded or silently kept to full length.
+    assert series.n_runs == 6 and all(0 < n < 400 for n in series.lengths)
+
+
+@pytest.mark.parametrize(
+    ("extra", "match"),
+    [
+        (["--members", "0", "--steps", "5", "--dt", "0.1"], "--members"),
+        (["--members", "2", "--steps", "5"], "--dt"),
+        (["--members", "2", "--steps", "5", "--dt", "0.1", "--out", "x.txt"], "unknown extension"),
+        (["--members", "2", "--steps", "5", "--dt", "-1"], "--dt"),
+    ],
+)
+def test_simulate_refuses_bad_input_with_exit_code_2(tmp_path, capsys, extra, match):
+    model = tmp_path / "model.json"
+    lorenz63().to_json(model)
+    extra = [str(tmp_path / e) if e.endswith(".txt") else e for e in extra]
+    assert main(["simulate", str(model), *extra]) == 2
+    err = capsys.readouterr().err
+    assert match in err and len(err.strip().splitlines()) == 1
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["model.json"]
+
+
+def test_simulate_refuses_a_broken_model_file(tmp_path, capsys):
+    model = tmp_path / "model.json"
+    model.write_text(lorenz63().to_json().replace("ergodex-model/1", "ergodex-model/7"))
+    out = tmp_path / "sim.npz"
+    assert main(["simulate", str(model), "--members", "2", "--steps", "5", "--dt", "0.1", "--out", str(out)]) == 2
+    assert "format" in capsys.readouterr().err and not out.exists()
+    assert main(["simulate", str(tmp_path / "missing.json"), "--members", "2", "--steps", "5", "--dt", "0.1"]) == 2
+
+
+@pytest.mark.slow
+def test_simulate_netcdf_and_stdout(tmp_path):
+    pytest.importorskip("xarray")
+    model = tmp_path / "model.json"
+    lorenz63().to_json(model)
+    out = tmp_path / "sim.nc"
+    assert main(["simulate", str(model), "--members", "3", "--steps", "20", "--dt", "0.01", "--seed", "1",
+                 "--spinup", "2", "--out", str(out)]) == 0
+    series = read_series(out)
+    assert series.n_runs == 3 and series.lengths == (20,) * 3
+    # A separate process, CSV on standard output, no progress bar off a terminal.
+    proc = subprocess.run(
+        [sys.executable, "-c", "import sys; from ergodex.cli import main; sys.exit(main())", "simulate", str(model), "--members", "2", "--steps", "3", "--dt", "0.01",
+         "--seed", "1", "--spinup", "1"],
+        capture_output=True, text=True, timeout=120,
+    )
+    assert proc.returncode == 0, proc.stderr
+    lines = proc.stdout.strip().splitlines()
+    assert lines[0] == "time,run,flow,dT_across,dT_up" and len(lines) == 1 + 2 * 3
+    assert "\r" not in proc.stderr

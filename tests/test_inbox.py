@@ -1,0 +1,230 @@
+"""The inbox watcher: complete files only, each file once (even across restarts), bad files aside.
+
+Every retrain here is real (fit, check, register in a real SQLite registry) but tiny: four runs of
+20 time units per file and a 4-member check, so that 21 files take seconds. The verdicts of such a
+small check are not the point here (tests/test_retraining.py checks decisions on honest sizes);
+the inbox's bookkeeping is.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import threading
+from pathlib import Path
+
+import pytest
+
+from ergodex.cli import main
+from ergodex.exceptions import SettingsError
+from ergodex.inbox import (
+    DONE_FOLDER,
+    LEDGER_NAME,
+    MAX_ATTEMPTS,
+    REJECTED_FOLDER,
+    Ledger,
+    _Watcher,
+    file_sha256,
+    is_candidate_name,
+    read_ledger,
+    watch,
+)
+from ergodex.readers import read_series
+from ergodex.registry import Registry
+from ergodex.validation import CheckSpec
+
+from retrain_support import write_csv
+
+NAME = "loop-inbox"
+TINY = CheckSpec(members=4)
+
+
+def _drop(folder: Path, name: str, text: str) -> Path:
+    """Write under a temporary name, then rename: how a complete file should arrive."""
+    part = folder / (name + ".part")
+    part.write_text(text, encoding="utf-8")
+    os.replace(part, folder / name)
+    return folder / name
+
+
+def _csv_texts(tmp_path: Path, n_files: int) -> list[str]:
+    """``n_files`` different convection-loop CSV files of 4 runs x 20 time units each."""
+    from ergodex.scenarios import convection_loop
+
+    data = convection_loop(seed=7, n_runs=4 * n_files, duration=20.0, dt=0.02, spinup=10.0)
+    texts = []
+    for i in range(n_files):
+        part = data.select_runs(range(4 * i, 4 * i + 4))
+        texts.append(write_csv(tmp_path / f"src-{i}.csv", part).read_text(encoding="utf-8"))
+    return texts
+
+
+def test_temporary_and_hidden_names_are_not_datasets():
+    for name in ("data.csv", "run 3.npz", "x.nc"):
+        assert is_candidate_name(name)
+    for name in (".data.csv", "data.csv.part", "data.csv.tmp", "data.csv~", "~$data.csv",
+                 "data.CSV.PART", LEDGER_NAME):
+        assert not is_candidate_name(name)
+
+
+def test_a_file_is_taken_only_after_two_polls_with_the_same_size(tmp_path):
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    watcher = _Watcher(inbox, NAME, Registry(tmp_path / "home"), {})
+    try:
+        growing = inbox / "growing.csv"
+        growing.write_text("a,b\n")
+        (inbox / "sub").mkdir()  # folders are never taken
+        assert watcher.stable_files() == []  # first sight
+        with open(growing, "a") as handle:
+            handle.write("1,2\n")
+        assert watcher.stable_files() == []  # changed since the last poll
+        assert watcher.stable_files() == ["growing.csv"]
+    finally:
+        watcher.ledger.close()
+
+
+def test_watch_refuses_a_missing_folder_and_bad_settings(tmp_path):
+    registry = Registry(tmp_path / "home")
+    with pytest.raises(SettingsError, match="does not exist"):
+        watch(tmp_path / "nope", NAME, registry=registry, once=True)
+    (tmp_path / "inbox").mkdir()
+    with pytest.raises(SettingsError, match="poll interval"):
+        watch(tmp_path / "inbox", NAME, registry=registry, poll_interval=0)
+    with pytest.raises(SettingsError, match="not found"):
+        watch(tmp_path / "inbox", NAME, registry=registry, config=tmp_path / "missing.toml")
+
+
+def test_a_file_interrupted_too_often_is_moved_aside_without_a_retrain(tmp_path):
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    path = _drop(inbox, "stuck.csv", "time,x\n0,1\n1,2\n")
+    # A watcher that died mid-retrain MAX_ATTEMPTS times left the file claimed in the ledger.
+    with Ledger(inbox / LEDGER_NAME) as ledger:
+        for _ in range(MAX_ATTEMPTS):
+            ledger.claim("stuck.csv", path.stat().st_size, file_sha256(path), NAME)
+    registry = Registry(tmp_path / "home")
+    items = watch(inbox, NAME, registry=registry, once=True, poll_interval=0.05)
+    assert [(i.file_name, i.state) for i in items] == [("stuck.csv", "rejected")]
+    assert "interrupted" in items[0].error
+    assert (inbox / REJECTED_FOLDER / "stuck.csv").exists()
+    assert registry.list_models() == []  # no retrain ran
+    assert read_ledger(inbox)[0]["state"] == "rejected"
+
+
+def test_a_file_claimed_by_another_live_watcher_is_left_to_it(tmp_path):
+    import socket
+    import sqlite3
+    import subprocess
+    import sys
+
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    path = _drop(inbox, "busy.csv", "time,flow\n0,1\n0.02,broken\n")
+    with Ledger(inbox / LEDGER_NAME) as ledger:
+        ledger.claim("busy.csv", path.stat().st_size, file_sha256(path), NAME)
+    other = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(60)"])
+    try:
+        with sqlite3.connect(inbox / LEDGER_NAME) as conn:  # the claim now belongs to `other`
+            conn.execute("UPDATE inbox_files SET owner=?", (f"{socket.gethostname()}:{other.pid}",))
+        registry = Registry(tmp_path / "home")
+        assert watch(inbox, NAME, registry=registry, once=True, poll_interval=0.05) == []
+        assert path.exists()
+    finally:
+        other.kill()
+        other.wait()
+    # Its owner is gone: the claim is stale, the file gets its second attempt (and, unreadable,
+    # is moved aside with its error).
+    items = watch(inbox, NAME, registry=registry, once=True, poll_interval=0.05)
+    assert [(i.file_name, i.state) for i in items] == [("busy.csv", "rejected")]
+    assert "broken" in items[0].error
+    assert read_ledger(inbox)[0]["attempts"] == 2
+
+
+@pytest.mark.slow
+def test_twenty_files_dropped_quickly_are_each_retrained_once(tmp_path):
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    registry = Registry(tmp_path / "home")
+    texts = _csv_texts(tmp_path, 21)
+    good = [f"batch-{i:02d}.csv" for i in range(20)]
+
+    stop = threading.Event()
+    handled: list = []
+    errors: list = []
+
+    def run_watcher():
+        try:
+            handled.extend(watch(inbox, NAME, registry=registry, spec=TINY, report=False,
+                                 poll_interval=0.05, max_files=21, stop_event=stop))
+        except BaseException as exc:  # surfaced in the main thread below
+            errors.append(exc)
+
+    watcher = threading.Thread(target=run_watcher)
+    watcher.start()
+    try:
+        for i, name in enumerate(good):
+            _drop(inbox, name, texts[i])
+            if i == 7:
+                _drop(inbox, "broken.csv", "time,flow\n0.0,1.0\n0.02,not-a-number\n")
+        # Never renamed into place, and hidden: both must be left alone.
+        (inbox / "late.csv.part").write_text(texts[20])
+        (inbox / ".hidden.csv").write_text(texts[20])
+        watcher.join(timeout=300)
+    finally:
+        stop.set()
+        watcher.join(timeout=30)
+    assert not errors, errors
+    assert not watcher.is_alive()
+
+    names = [item.file_name for item in handled]
+    assert sorted(names) == sorted(good + ["broken.csv"])  # each exactly once
+    assert {i.file_name: i.state for i in handled}["broken.csv"] == "rejected"
+    assert all(i.state == "done" for i in handled if i.file_name != "broken.csv")
+    # One registered challenger per good file: a file retrained twice would show up here.
+    assert len(registry.versions(NAME)) == 20
+    done = inbox / DONE_FOLDER
+    assert sorted(p.name for p in done.glob("*.csv")) == good
+    for name in good:
+        record = json.loads((done / f"{name}.decision.json").read_text())
+        assert record["data"]["fingerprint"] == read_series(done / name).fingerprint()
+    error = (inbox / REJECTED_FOLDER / "broken.csv.error.txt").read_text().strip()
+    assert "broken.csv" in error and "\n" not in error
+    assert (inbox / "late.csv.part").exists() and (inbox / ".hidden.csv").exists()
+    ledger = read_ledger(inbox)
+    assert len(ledger) == 21
+    assert sorted(r["state"] for r in ledger).count("done") == 20
+
+    # A restart: the same file dropped again is recognised by name, size and sha256 and not
+    # retrained; a new file is.
+    shutil.copy(done / good[0], inbox / good[0])
+    _drop(inbox, "batch-20.csv", texts[20])
+    again = watch(inbox, NAME, registry=registry, spec=TINY, report=False, once=True,
+                  poll_interval=0.05)
+    by_name = {i.file_name: i for i in again}
+    assert set(by_name) == {good[0], "batch-20.csv"}
+    assert by_name[good[0]].skipped and by_name[good[0]].state == "done"
+    assert not by_name["batch-20.csv"].skipped
+    assert len(registry.versions(NAME)) == 21
+    assert (done / "batch-00.2.csv").exists()  # moved beside the first copy, never overwritten
+
+
+def test_watch_command_handles_a_bad_file_and_exits_cleanly(tmp_path, capsys):
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    _drop(inbox, "garbage.npz", "this is not an npz archive")
+    code = main(["watch", str(inbox), "--name", NAME, "--once", "--interval", "0.05",
+                 "--home", str(tmp_path / "home"), "--no-report", "--log-level", "INFO"])
+    assert code == 0
+    out = capsys.readouterr().out
+    assert out.startswith("garbage.npz: rejected: ")
+    assert (inbox / REJECTED_FOLDER / "garbage.npz.error.txt").exists()
+    assert not (tmp_path / "home" / NAME).exists()
+
+
+def test_watch_command_bad_folder_is_bad_input(tmp_path, capsys):
+    code = main(["watch", str(tmp_path / "missing"), "--name", NAME, "--once",
+                 "--home", str(tmp_path / "home")])
+    assert code == 2
+    assert "does not exist" in capsys.readouterr().err
