@@ -57,7 +57,7 @@ def _ou(seed, duration=90.0):
 
 def test_noise_floor_is_mean_pairwise_wasserstein_between_reference_pieces():
     data = _ou(40)  # 4 runs of 1800 samples: short enough for exact quantile functions
-    spec = CheckSpec(seed=1, statistics=("histogram",))
+    spec = CheckSpec(seed=1, statistics=("histogram",), min_pieces=4, pool=1)
     sc = validation.validate(scenarios.ou_surrogate(), data, spec)
     for j, name in enumerate(data.names):
         # reference library: scipy.stats.wasserstein_distance over every pair of runs
@@ -113,7 +113,7 @@ def test_members_on_different_fixed_points_fail_with_that_reason():
 
 def test_scorecard_and_evidence_round_trip(tmp_path, loop_regimes):
     data = _ou(44)
-    spec = CheckSpec(seed=5, members=4, tolerances={"spectrum": 3.0})
+    spec = CheckSpec(seed=5, members=4, tolerances={"spectrum": 3.0}, min_pieces=4)
     result = validation.check(scenarios.ou_surrogate(), data, spec)
     sc = result.scorecard
     path = tmp_path / "scorecard.json"

@@ -95,7 +95,12 @@ def fit_check_register(
 
     from ergodex.report import render_report
 
-    html = render_report(result, surrogate, title=title or f"{name}: validation report")
+    html = render_report(
+        result,
+        surrogate,
+        title=title or f"{name}: validation report",
+        fit_summary={"method": method, "settings": settings},
+    )
     info = _register(
         registry,
         name,

@@ -21,6 +21,7 @@ from ergodex.fitting.settings import Rule
 from ergodex.fitting.tendencies import (
     check_library_rank,
     evaluate_terms,
+    relative_tendency_error,
     r2_score,
     term_names,
     terms_from_feature_names,
@@ -132,7 +133,8 @@ class SparseODE(Fitter):
     score_ : float
         Mean over variables of the R² of the tendency fit (weak-form rows for the weak form).
     tendency_error_ : float
-        RMS residual divided by the RMS tendency (relative, all variables together).
+        RMS of (order-4 finite-difference tendency − fitted drift) over the RMS tendency, pointwise
+        on every run whatever ``differentiation`` was (so weak and pointwise fits compare).
     n_terms_ : int
         Number of non-zero coefficients.
     inclusion_probabilities_ : ndarray or None
@@ -263,12 +265,14 @@ class SparseODE(Fitter):
         self.coefficients_ = coefficients
         self.score_ = float(np.mean(r2))
         self.r2_ = r2
-        self.tendency_error_ = float(np.sqrt(np.mean((Y - fitted) ** 2) / np.mean(Y**2)))
         self.n_terms_ = int(np.count_nonzero(coefficients))
         self.n_rows_ = int(Theta.shape[0])
         self.inclusion_probabilities_ = extras.get("inclusion")
         self.ensemble_coefficients_ = extras.get("samples")
         self.transform_ = transform
+        # the tendency error is measured pointwise with order-4 differences whatever the fit used,
+        # so that candidates fitted in weak form and by differences compare on one scale
+        self.tendency_error_ = relative_tendency_error(_AsDrift(terms, coefficients), runs, float(series.dt))
         self.surrogate_ = self._build_surrogate(series, variables, transform, terms, coefficients, ps)
 
     # ----------------------------------------------------------------------------------------
@@ -389,7 +393,6 @@ class SparseODE(Fitter):
             "fitted_on_samples": int(series.n_samples),
             "pysindy_version": getattr(ps, "__version__", "unknown"),
             "score": self.score_,
-            "tendency_error": self.tendency_error_,
         }
         return Surrogate(
             tuple(variables),
@@ -400,6 +403,16 @@ class SparseODE(Fitter):
             settings={"method": self.method, **self.get_params()},
             provenance=provenance,
         )
+
+
+class _AsDrift:
+    """The full coefficient table as a right-hand side (the surrogate keeps only active terms)."""
+
+    def __init__(self, terms, coefficients: np.ndarray) -> None:
+        self.terms, self.coefficients = terms, coefficients
+
+    def rhs(self, X: np.ndarray) -> np.ndarray:
+        return evaluate_terms(self.terms, X) @ self.coefficients.T
 
 
 def _source(series) -> str:
