@@ -53,8 +53,9 @@ def fit_check_register(
     name: str | None = None,
     accept: bool = True,
     note: str | None = None,
-    parent: int | None = None,
+    parent: int | str | None = None,
     title: str | None = None,
+    report: bool = True,
 ) -> FlowResult:
     """Fit a surrogate on ``fit_data``, check it against ``check_data``, register and accept it.
 
@@ -71,6 +72,8 @@ def fit_check_register(
         Where to register; with ``registry=None`` nothing is stored.
     accept
         Accept the new version when its scorecard passes (it stays a candidate otherwise).
+    parent, title, report
+        Lineage, report title, and whether to draw the report (see :func:`register_checked`).
     """
     from ergodex.fitting import make_fitter
     from ergodex.validation import CheckSpec, check
@@ -93,24 +96,17 @@ def fit_check_register(
     if name is None:
         raise SettingsError("a registry was given without a model name; pass name=...")
 
-    from ergodex.report import render_report
-
-    html = render_report(
-        result,
-        surrogate,
-        title=title or f"{name}: validation report",
-        fit_summary={"method": method, "settings": settings},
-    )
-    info = _register(
+    info = register_checked(
         registry,
         name,
         surrogate,
         result,
-        html=html,
         fit_settings={"method": method, "settings": settings},
         note=note,
         parent=parent,
         datasets={"fit": fit_data.fingerprint(), "check": check_data.fingerprint()},
+        title=title or f"{name}: validation report",
+        report=report,
     )
     flow.name, flow.version = info.name, info.version
     flow.folder = Path(info.folder)
@@ -122,10 +118,34 @@ def fit_check_register(
     return flow
 
 
-def _register(registry, name, surrogate, result, *, html, fit_settings, note, parent, datasets):
-    """Register with the evidence arrays written beside the model, so reports can be redrawn."""
+def register_checked(
+    registry: Any,
+    name: str,
+    surrogate: Any,
+    result: Any,
+    *,
+    fit_settings: dict[str, Any] | None = None,
+    note: str | None = None,
+    parent: int | str | None = None,
+    datasets: Any = None,
+    title: str | None = None,
+    report: bool = True,
+) -> Any:
+    """Register a checked surrogate as a candidate with its scorecard, evidence and report.
+
+    The evidence arrays go beside the model so that the report can be redrawn later
+    (``ergodex report``); ``report=False`` skips drawing the page (it dominates the cost of a
+    registration, which matters for inboxes receiving many files).
+    """
     import tempfile
 
+    html = None
+    if report:
+        from ergodex.report import render_report
+
+        html = render_report(
+            result, surrogate, title=title or f"{name}: validation report", fit_summary=fit_settings
+        )
     with tempfile.TemporaryDirectory(prefix="ergodex-evidence-") as tmp:
         evidence_path = Path(tmp) / "evidence.npz"
         result.evidence.to_npz(evidence_path)

@@ -587,30 +587,24 @@ def _register_challenger(registry: Any, name: str, flow: Any, series: Series, fi
                          reference: Series, *, fit_settings: dict[str, Any], parent: str | None,
                          seed: int, report: bool) -> Any:
     """Register the challenger as a candidate with its evidence, lineage and data fingerprints."""
-    html = None
-    if report:
-        from ergodex.report import render_report
+    from ergodex.pipeline import register_checked
 
-        html = render_report(flow.check, flow.surrogate,
-                             title=f"{name}: retrain challenger ({series.source or 'new data'})")
     source = series.source or ""
-    with tempfile.TemporaryDirectory(prefix="ergodex-evidence-") as tmp:
-        evidence_path = Path(tmp) / "evidence.npz"
-        flow.check.evidence.to_npz(evidence_path)
-        return registry.register(
-            name,
-            flow.surrogate,
-            scorecard=flow.check.scorecard,
-            report_html=html,
-            evidence_path=evidence_path,
-            fit_settings=fit_settings,
-            note=f"retrain challenger on {source or 'new data'} (seed {seed})",
-            parent=parent,
-            datasets={
-                "fit": {"fingerprint": fit_part.fingerprint(), "source": source},
-                "check": {"fingerprint": reference.fingerprint(), "source": source},
-            },
-        )
+    return register_checked(
+        registry,
+        name,
+        flow.surrogate,
+        flow.check,
+        fit_settings=fit_settings,
+        note=f"retrain challenger on {source or 'new data'} (seed {seed})",
+        parent=parent,
+        datasets={
+            "fit": {"fingerprint": fit_part.fingerprint(), "source": source},
+            "check": {"fingerprint": reference.fingerprint(), "source": source},
+        },
+        title=f"{name}: retrain challenger ({source or 'new data'})",
+        report=report,
+    )
 
 
 def _decide(cp: ModelVerdict | None, ch: ModelVerdict) -> tuple[str, list[str]]:
