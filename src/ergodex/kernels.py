@@ -7,14 +7,17 @@ on disk once per machine (``cache=True``).
 Layout and program
 ------------------
 Inside a call the live members are the columns of work arrays shaped ``(rows, n_alive)`` ("structure
-of arrays"), so every inner loop runs over members and vectorises. A work array ``S`` holds, row by
+of arrays"), so every inner loop runs over members and vectorises. A stage buffer holds, row by
 row: the ``n`` state variables of the stage input, one row per *product* term (a monomial of degree
-two or more, or a sine/cosine), a row of zeros and a scratch row. A right-hand side is then:
+three or more, or a sine/cosine), a row of zeros, a row of ones and a scratch row. A right-hand
+side is then:
 
-1. product rows, each filled from the state rows in one pass (``x_j x_l``, ``x_j^2``) or a few;
-2. *passes*, each of which adds up to four ``weight * row`` sources (state rows, product rows, the
-   zero row as padding, the scratch row) plus a constant; an equation with more than four
-   non-zero terms is split into partial passes that accumulate in the scratch row.
+1. product rows, each filled from the state rows in one pass or a few;
+2. *passes*, each of which adds up to four sources ``weight * row * row2`` plus a constant: a linear
+   term is ``(x_j, ones)``, a quadratic one ``(x_j, x_l)`` (so the common polynomial models of
+   degree two need no product rows at all), a product row ``(row, ones)``, and the zero row pads
+   a pass with fewer sources. An equation with more than four non-zero terms is split into
+   partial passes that accumulate in the scratch row.
 
 Only terms with a non-zero coefficient appear, so a sparse model (Lorenz-96 with 40 variables:
 861 candidate terms, 160 non-zero coefficients) costs what its non-zero terms cost. The last pass of

@@ -118,8 +118,8 @@ class CheckSpec:
     members : int, default 16
         Ensemble members, each started from a reference state drawn with ``seed``.
     length : float, optional
-        Time integrated per member after spin-up; default one reference piece. Longer members are
-        cut into several pieces (less noise in the model side of each row).
+        Time integrated per member after spin-up; default ``pool`` reference pieces. Members are
+        cut into pieces of the reference pieces' length (at least one).
     spinup : float, optional
         Time integrated and discarded before output; default 5 decorrelation times.
     seed : int, default 0
@@ -750,7 +750,14 @@ def check(surrogate, reference, spec: CheckSpec | None = None) -> CheckResult:
             f"{reference.source or 'reference data'}: reference pieces of {L} samples are too short "
             f"(need at least {max(16, 4 * max_lag)} for lags up to {max_lag} samples); supply longer runs")
     spinup = _SPINUP_TIMES * tau_d if spec.spinup is None else float(spec.spinup)
-    member_time = L * dt if spec.length is None else float(spec.length)
+    n_ref = ref_pieces.shape[0]
+    pool = spec.pool if spec.pool is not None else max(1, n_ref // 2)
+    if 2 * pool > n_ref:
+        raise SettingsError(f"pool {pool} needs at least {2 * pool} reference pieces; the reference "
+                            f"gives {n_ref} (set min_pieces ≥ {2 * pool})")
+    # by default every member covers one pooled group, so there are as many model groups as
+    # members and the model side of each row is averaged over all of them
+    member_time = L * dt * pool if spec.length is None else float(spec.length)
     n_out = int(round(member_time / dt))
     if n_out < L:
         raise SettingsError(f"length {member_time:g} is shorter than one reference piece "
@@ -805,11 +812,6 @@ def check(surrogate, reference, spec: CheckSpec | None = None) -> CheckResult:
                        f"became non-finite), the first at t = {first:.4g} after spin-up")
 
     ref_stats = _PieceStats(ref_pieces, ctx)
-    n_ref = ref_pieces.shape[0]
-    pool = spec.pool if spec.pool is not None else max(1, n_ref // 2)
-    if 2 * pool > n_ref:
-        raise SettingsError(f"pool {pool} needs at least {2 * pool} reference pieces; the reference "
-                            f"gives {n_ref} (set min_pieces ≥ {2 * pool})")
     ref_groups, floor_index = _reference_groups(n_ref, pool, np.random.default_rng(int(seeds[2])))
     group_stats = (ref_stats if pool == 1 else
                    _PieceStats(np.stack([ref_pieces[list(g)].reshape(-1, n_vars) for g in ref_groups]),

@@ -29,6 +29,7 @@ __all__ = [
     "load_fit_settings",
     "parse_fit_settings",
     "read_fit_document",
+    "data_provenance",
 ]
 
 
@@ -178,6 +179,23 @@ def check_series(series) -> None:
                 f"{_source(series)}: variable '{name}' is constant ({stacked[0, j]:g}) over every run; "
                 f"it cannot be fitted: drop it from the data"
             )
+
+
+def data_provenance(series, **extra: Any) -> dict[str, Any]:
+    """What every fitted surrogate records about its data: fingerprint, size and sampling interval.
+
+    The interval lets ``ergodex simulate`` default its output step to the data's.
+    """
+    from ergodex import __version__
+
+    return {
+        "data_fingerprint": series.fingerprint(),
+        "fitted_on_runs": int(series.n_runs),
+        "fitted_on_samples": int(series.n_samples),
+        "dt": float(series.dt),
+        "ergodex_version": __version__,
+        **extra,
+    }
 
 
 def _source(series) -> str:

@@ -12,7 +12,7 @@ from __future__ import annotations
 import numpy as np
 
 from ergodex.exceptions import DataError, SettingsError
-from ergodex.fitting.base import Fitter
+from ergodex.fitting.base import Fitter, data_provenance
 from ergodex.fitting.settings import Rule
 from ergodex.fitting.tendencies import (
     check_library_rank,
@@ -176,12 +176,7 @@ class QuadraticNoiseModel(Fitter):
         residual_cov = np.atleast_2d(np.cov(residual.T))
         r2 = r2_score(Y_all, fitted)
 
-        provenance = {
-            "data_fingerprint": series.fingerprint(),
-            "fitted_on_runs": int(series.n_runs),
-            "fitted_on_samples": int(series.n_samples),
-            "score": float(np.mean(r2)),
-        }
+        provenance = data_provenance(series, score=float(np.mean(r2)))
         settings = {"method": self.method, **self.get_params()}
         ar1 = None
         if self.noise == "white":

@@ -13,7 +13,7 @@ import numpy as np
 import scipy.linalg
 
 from ergodex.exceptions import DataError, SettingsError
-from ergodex.fitting.base import Fitter
+from ergodex.fitting.base import Fitter, data_provenance
 from ergodex.fitting.settings import Rule
 from ergodex.fitting.tendencies import lagged_covariance, relative_tendency_error
 from ergodex.fitting.transforming import fit_transform, model_space_runs
@@ -272,15 +272,13 @@ class LinearInverseModel(Fitter):
             noise=noise,
             transform=transform,
             settings={"method": self.method, **_json_settings(self.get_params()), "tau0_used": tau0},
-            provenance={
-                "data_fingerprint": series.fingerprint(),
-                "fitted_on_runs": int(series.n_runs),
-                "fitted_on_samples": int(series.n_samples),
-                "score": score,
-                "stable": stable,
-                "tau_test_flat": self.tau_test_flat_,
-                "noise_report": message,
-            },
+            provenance=data_provenance(
+                series,
+                score=score,
+                stable=stable,
+                tau_test_flat=self.tau_test_flat_,
+                noise_report=message,
+            ),
         )
         self.tau0_ = tau0
         self.mean_ = mean

@@ -16,7 +16,7 @@ from typing import Any
 import numpy as np
 
 from ergodex.exceptions import DataError, OptionalDependencyError, SettingsError
-from ergodex.fitting.base import Fitter
+from ergodex.fitting.base import Fitter, data_provenance
 from ergodex.fitting.settings import Rule
 from ergodex.fitting.tendencies import (
     check_library_rank,
@@ -387,13 +387,9 @@ class SparseODE(Fitter):
         active = np.flatnonzero(np.any(coefficients != 0.0, axis=0))
         if active.size == 0:
             active = np.array([0])  # keep one column so the surrogate has a well-formed table
-        provenance = {
-            "data_fingerprint": series.fingerprint(),
-            "fitted_on_runs": int(series.n_runs),
-            "fitted_on_samples": int(series.n_samples),
-            "pysindy_version": getattr(ps, "__version__", "unknown"),
-            "score": self.score_,
-        }
+        provenance = data_provenance(
+            series, pysindy_version=getattr(ps, "__version__", "unknown"), score=self.score_
+        )
         return Surrogate(
             tuple(variables),
             tuple(terms[k] for k in active),
