@@ -158,7 +158,7 @@ def main(argv=None) -> int:
     p.add_argument("--pool", type=int, default=None, help="override CheckSpec.pool")
     p.add_argument("--statistics", nargs="*", default=None, help="override CheckSpec.statistics")
     p.add_argument("--out", default="benchmarks/calibration_results.json")
-    p.add_argument("--tolerances", type=float, nargs="*", default=[1.5, 1.75, 2.0, 2.25, 2.5, 3.0])
+    p.add_argument("--tolerances", type=float, nargs="*", default=[1.5, 2.0, 2.5, 2.75, 3.0, 3.5])
     args = p.parse_args(argv)
     from joblib import Parallel, delayed
 

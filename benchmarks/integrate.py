@@ -2,6 +2,8 @@
 
 Run:  /work/venv/bin/python benchmarks/integrate.py            (about a minute on 2 loaded cores)
       /work/venv/bin/python benchmarks/integrate.py --quick    (smaller runs, for a smoke test)
+      /work/venv/bin/python benchmarks/integrate.py --members 256 --no-first-call
+                                                  (ensemble size; the targets are stated for 64)
 
 Cases (M = 64 members, RK4 at h = 0.01, outputs every 10 steps):
 1. Lorenz-63 surrogate fitted here with pysindy (STLSQ, degree-2 library) on data generated here:
@@ -264,10 +266,15 @@ def first_call_seconds(cache_dir: str | None) -> float:
 
 
 def main() -> None:
+    global M
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="smaller runs (smoke test)")
     parser.add_argument("--no-first-call", action="store_true", help="skip the fresh-process timings")
+    parser.add_argument("--members", type=int, default=M,
+                        help=f"ensemble size M (default {M}, the size the targets are stated for)")
     args = parser.parse_args()
+    # The kernels read the ensemble size from their arrays; M sets how many members the runs use.
+    M = args.members
     steps = 10_000 if args.quick else 100_000
     n_out = steps // K + 1
     rng = np.random.default_rng(2024)

@@ -7,12 +7,16 @@ The check (see DESIGN.md, "Statistics and the noise floor"):
 2. The surrogate is integrated from states drawn from the reference (seeded), a spin-up is
    thrown away, and each member's output (at the data's sampling interval) is cut into pieces of
    the same length. Members that blow up are counted, timed and left out.
-3. For every *row* (a statistic and a variable or regime) a distance ``d`` is computed between
-   two pieces. The **noise floor** is the mean of ``d`` over all pairs of reference pieces — how
-   far two honest samples of the truth already differ; the **value** is the mean of ``d`` over
-   all (model piece, reference piece) pairs. For a perfect surrogate both estimate the same
-   number, so ``ratio = value / noise floor`` is near 1; a wrong surrogate adds a bias that does
-   not shrink with sampling and drives the ratio up.
+3. Pieces are pooled into *groups* of ``pool`` pieces (default half the reference pieces). For
+   every *row* (a statistic and a variable or regime) a distance ``d`` is computed between two
+   groups. The **noise floor** is the mean of ``d`` over splits of the reference into two
+   disjoint groups — how far two honest samples of the truth of that size already differ; the
+   **value** is the mean of ``d`` over all (model group, reference group) pairs. Every compared
+   sample has the same length, so the two are comparable: for a perfect surrogate both estimate
+   the same number and ``ratio = value / noise floor`` is near 1, while a wrong surrogate adds a
+   bias that does not shrink with sampling and drives the ratio up. Pooling averages out
+   piece-level noise, which makes real differences stand out 2–3× further than comparing single
+   pieces (measured in ``benchmarks/calibration.py``).
 4. The verdict is family-wise: the surrogate passes when the *largest* row ratio is within the
    tolerance, the members agree with one another, and no member blew up. The default tolerance
    was calibrated on known systems (``benchmarks/calibration.py``, figures in
@@ -21,7 +25,7 @@ The check (see DESIGN.md, "Statistics and the noise floor"):
 Rows (``CheckSpec.statistics``):
 
 ========================  ==========================================================  =========
-statistic                 distance between two pieces                                 rows
+statistic                 distance between two samples (groups of pieces)             rows
 ========================  ==========================================================  =========
 ``histogram``             Wasserstein-1 distance of the marginal distributions         variables
 ``autocorrelation``       RMS difference of the autocorrelation up to ``max_lag``      variables
@@ -38,6 +42,7 @@ people's safety must also meet the applicable codes, standards and licensed prac
 
 from __future__ import annotations
 
+import itertools
 import json
 import math
 import os
@@ -71,7 +76,7 @@ EVIDENCE_FORMAT = "ergodex-evidence/1"
 
 #: Largest allowed ratio of a row's model distance to its noise floor. Calibrated in
 #: ``benchmarks/calibration.py`` (rates in ``benchmarks/README.md``).
-DEFAULT_TOLERANCE = 2.5
+DEFAULT_TOLERANCE = 2.75
 
 ALL_STATISTICS = ("histogram", "autocorrelation", "spectrum", "quantiles", "occupancy",
                   "residence", "transitions")
@@ -689,7 +694,8 @@ def _data_space_names(surrogate, reference) -> np.ndarray | None:
     return None
 
 
-def check(surrogate, reference, spec: CheckSpec | None = None) -> CheckResult:
+def check(surrogate, reference, spec: CheckSpec | None = None, *,
+          initial_states=None) -> CheckResult:
     """Validate a surrogate against reference data: scorecard plus evidence.
 
     Parameters
@@ -699,6 +705,9 @@ def check(surrogate, reference, spec: CheckSpec | None = None) -> CheckResult:
         The data, in data space. Its runs (or blocks of them) provide the noise floor.
     spec : CheckSpec, optional
         Settings; defaults as documented on :class:`CheckSpec`.
+    initial_states : array_like, shape (members, n_variables), optional
+        Data-space starting states, one per member, instead of states drawn from the reference
+        (their fingerprint goes into the scorecard's settings).
 
     Returns
     -------
@@ -767,7 +776,18 @@ def check(surrogate, reference, spec: CheckSpec | None = None) -> CheckResult:
     seeds = np.random.SeedSequence(spec.seed).generate_state(3)
     rng = np.random.default_rng(int(seeds[0]))
     stacked = reference.stacked()
-    starts = stacked[rng.choice(stacked.shape[0], size=spec.members, replace=True)]
+    if initial_states is None:
+        starts = stacked[rng.choice(stacked.shape[0], size=spec.members, replace=True)]
+        starts_note = "drawn from the reference"
+    else:
+        starts = np.array(initial_states, dtype=float)
+        if starts.shape != (spec.members, n_vars) or not np.all(np.isfinite(starts)):
+            raise DataError(f"initial_states must be finite with shape ({spec.members}, {n_vars}) "
+                            f"(members × variables); got shape {starts.shape}")
+        import hashlib
+
+        starts_note = "given: sha256:" + hashlib.sha256(
+            np.ascontiguousarray(starts, "<f8").tobytes()).hexdigest()
     z0 = surrogate.to_model_space(starts)
     z_ref = surrogate.to_model_space(stacked)
     bound = blowup_bound(z_ref, factor=10.0)
@@ -793,7 +813,8 @@ def check(surrogate, reference, spec: CheckSpec | None = None) -> CheckResult:
         "integrated_autocorrelation_time": {v: float(t) for v, t in zip(variables, tau)},
         "member_length": n_out * dt, "pieces_per_member": pieces_per_member,
         "statistics": list(statistics), "dt": dt,
-        "start_seed": int(seeds[0]), "noise_seed": run.seed, "integration": run.summary(),
+        "start_seed": int(seeds[0]), "starts": starts_note, "noise_seed": run.seed,
+        "integration": run.summary(),
         "regimes_used": None if regimes is None else regimes.to_dict(),
         "quantile_levels": list(stats.DEFAULT_QUANTILES),
     }
@@ -812,6 +833,9 @@ def check(surrogate, reference, spec: CheckSpec | None = None) -> CheckResult:
                        f"became non-finite), the first at t = {first:.4g} after spin-up")
 
     ref_stats = _PieceStats(ref_pieces, ctx)
+    # A group is its pieces laid end to end. The autocorrelation and Welch segments then span
+    # pool − 1 joins (a fraction ≈ max_lag / L of the lagged products); model groups are built
+    # the same way, so the effect is common to both sides of every comparison.
     ref_groups, floor_index = _reference_groups(n_ref, pool, np.random.default_rng(int(seeds[2])))
     group_stats = (ref_stats if pool == 1 else
                    _PieceStats(np.stack([ref_pieces[list(g)].reshape(-1, n_vars) for g in ref_groups]),
@@ -865,22 +889,29 @@ def check(surrogate, reference, spec: CheckSpec | None = None) -> CheckResult:
     return CheckResult(scorecard, evidence)
 
 
-def _reference_groups(n: int, pool: int, rng, n_splits: int = 32):
+def _reference_groups(n: int, pool: int, rng, max_splits: int = 64):
     """Groups of ``pool`` reference pieces and the disjoint pairs of groups behind the floor.
 
-    ``pool == 1``: every piece is a group and every pair of pieces counts. Otherwise ``n_splits``
-    random splits (seeded) each give two disjoint groups of ``pool`` pieces.
+    ``pool == 1``: every piece is a group and every pair of pieces counts. When the pieces split
+    exactly in two (``2 pool == n``) and there are at most ``max_splits`` such splits, all of
+    them are used (no extra randomness in the floor); otherwise ``max_splits`` random splits
+    (seeded) each give two disjoint groups.
     """
     if pool == 1:
         return [(i,) for i in range(n)], np.triu_indices(n, 1)
+    if 2 * pool == n and math.comb(n - 1, pool - 1) <= max_splits:
+        # every split once: the group holding piece 0, and its complement
+        splits = [(tuple(a), tuple(sorted(set(range(n)) - {0, *a[1:]})))
+                  for a in ((0, *rest) for rest in itertools.combinations(range(1, n), pool - 1))]
+    else:
+        splits = []
+        for _ in range(max_splits):
+            perm = rng.permutation(n)
+            splits.append((tuple(sorted(perm[:pool].tolist())),
+                           tuple(sorted(perm[pool: 2 * pool].tolist()))))
     groups: dict[tuple[int, ...], int] = {}
-    left, right = [], []
-    for _ in range(n_splits):
-        perm = rng.permutation(n)
-        a = tuple(sorted(perm[:pool].tolist()))
-        b = tuple(sorted(perm[pool: 2 * pool].tolist()))
-        left.append(groups.setdefault(a, len(groups)))
-        right.append(groups.setdefault(b, len(groups)))
+    left = [groups.setdefault(a, len(groups)) for a, _ in splits]
+    right = [groups.setdefault(b, len(groups)) for _, b in splits]
     return list(groups), (np.array(left), np.array(right))
 
 
@@ -1014,6 +1045,7 @@ def _evidence(reference, ref_pieces, model, alive, blowup_times, spec, ctx, rng)
         blowup_times=np.asarray(blowup_times, float))
 
 
-def validate(surrogate, reference, spec: CheckSpec | None = None) -> Scorecard:
+def validate(surrogate, reference, spec: CheckSpec | None = None, *,
+             initial_states=None) -> Scorecard:
     """Like :func:`check`, returning only the scorecard."""
-    return check(surrogate, reference, spec).scorecard
+    return check(surrogate, reference, spec, initial_states=initial_states).scorecard
