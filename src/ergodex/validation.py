@@ -49,7 +49,6 @@ import os
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 
@@ -638,34 +637,41 @@ def _pair_distances(statistic: str, a: _PieceStats, b: _PieceStats,
     ``index`` gives the pairs ``(a[index[0][k]], b[index[1][k]])``; by default every pair.
     """
     def pairs(x, y, fn):
-        if index is None:
-            ii, jj = np.meshgrid(np.arange(x.shape[0]), np.arange(y.shape[0]), indexing="ij")
-        else:
-            ii, jj = index
-        ii, jj = np.ravel(ii), np.ravel(jj)
         out = []
-        # chunks keep the temporary (pairs × points × variables) array small
+        if index is None:
+            # every pair: broadcast a few rows of x against all of y at a time, which avoids
+            # copying y for each pair; the chunk keeps the temporary array to a few tens of MB
+            per_row = max(1, y[0].size * y.shape[0])
+            step = max(1, int(4_000_000 // per_row))
+            for s in range(0, x.shape[0], step):
+                xa = x[s:s + step]
+                d = fn(xa[:, None], y[None, :])
+                out.append(d.reshape((-1,) + d.shape[2:]))
+            return np.concatenate(out)
+        ii, jj = np.ravel(index[0]), np.ravel(index[1])
         for s in range(0, ii.size, 64):
             out.append(fn(x[ii[s:s + 64]], y[jj[s:s + 64]]))
         return np.concatenate(out) if out else np.zeros((0,) + fn(x[:1], y[:1]).shape[1:])
 
     if statistic == "histogram":
         # Wasserstein-1 between equal-length samples: mean |sorted a − sorted b| (Villani 2009)
-        return pairs(a.qf, b.qf, lambda x, y: np.mean(np.abs(x - y), axis=1))
+        return pairs(a.qf, b.qf, lambda x, y: np.mean(np.abs(x - y), axis=-2))
     if statistic == "quantiles":
-        return pairs(a.quant, b.quant, lambda x, y: np.mean(np.abs(x - y), axis=1))
+        return pairs(a.quant, b.quant, lambda x, y: np.mean(np.abs(x - y), axis=-2))
     if statistic == "autocorrelation":
-        return pairs(a.acf, b.acf, lambda x, y: np.sqrt(np.mean((x[:, 1:] - y[:, 1:]) ** 2, axis=1)))
+        return pairs(a.acf, b.acf,
+                     lambda x, y: np.sqrt(np.mean((x[..., 1:, :] - y[..., 1:, :]) ** 2, axis=-2)))
     if statistic == "spectrum":
         def l1(x, y):
-            return np.sum(np.abs(x - y), axis=1) / (0.5 * np.sum(x + y, axis=1))
+            return np.sum(np.abs(x - y), axis=-2) / (0.5 * np.sum(x + y, axis=-2))
         return pairs(a.psd, b.psd, l1)
     if statistic == "occupancy":
         return pairs(a.occ[:, :-1], b.occ[:, :-1], lambda x, y: np.abs(x - y))
     if statistic == "residence":
         return pairs(a.res[:, :-1], b.res[:, :-1], lambda x, y: np.abs(x - y))
     if statistic == "transitions":
-        return pairs(a.trans, b.trans, lambda x, y: np.sqrt(np.sum((x - y) ** 2, axis=(1, 2)))[:, None])
+        return pairs(a.trans, b.trans,
+                     lambda x, y: np.sqrt(np.sum((x - y) ** 2, axis=(-2, -1)))[..., None])
     raise SettingsError(f"unknown statistic {statistic!r}")  # pragma: no cover - checked in spec
 
 
