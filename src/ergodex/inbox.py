@@ -39,11 +39,11 @@ import sqlite3
 import threading
 import time
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
 from ergodex.exceptions import ErgodexError, SettingsError
+from ergodex.host import pid_alive, utc_now
 
 log = logging.getLogger(__name__)
 
@@ -139,7 +139,7 @@ def file_sha256(path: Path, chunk: int = 1 << 20) -> str:
 
 
 def _now() -> str:
-    return datetime.now(timezone.utc).isoformat(timespec="seconds")
+    return utc_now()
 
 
 def _one_line(exc: BaseException) -> str:
@@ -274,13 +274,7 @@ def owner_is_alive_elsewhere(owner: str | None) -> bool:
     pid = int(pid_text)
     if pid == os.getpid():
         return False
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except PermissionError:  # exists, owned by someone else
-        return True
-    return True
+    return pid_alive(pid)
 
 
 def _scan(folder: Path) -> dict[str, tuple[int, int]]:

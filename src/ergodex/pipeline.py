@@ -236,9 +236,14 @@ def _demo_recipe(scenario: str) -> dict[str, Any]:
             "spec": {"regimes": RegimeSet.from_dict(scenarios.convection_loop_regimes())},
             "title": "Heated convection loop: sparse ODE surrogate",
         }
+    # A linear inverse model on the 10 leading modes (five travelling-wave pairs, half of the
+    # variance), trained at a lag of 0.25 (about one station decorrelation time): on the held-out
+    # runs its largest ratio was 2.26-2.52 over five check seeds, against about 2.0 for the true
+    # dynamics projected on the same modes. Quadratic drifts with white noise and sparse models
+    # on 6-10 modes failed (wrong autocorrelation, or blow-ups); see tests/test_fitting_ring.py.
     return {
-        "method": "quadratic-noise",
-        "settings": {"n_modes": 6},
+        "method": "linear-inverse",
+        "settings": {"n_modes": 10, "tau0": 0.25},
         "spec": {},
-        "title": "Ring of 40 weather stations: reduced-order surrogate",
+        "title": "Ring of 40 weather stations: linear inverse model on 10 modes",
     }

@@ -63,11 +63,11 @@ import time
 import uuid
 import zipfile
 from dataclasses import asdict, dataclass, field
-from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Iterator, Mapping
 
 from ergodex.exceptions import IntegrityError, ModelFileError, RegistryError
+from ergodex.host import pid_alive, utc_now
 
 __all__ = [
     "CAUTION",
@@ -360,7 +360,7 @@ def _bare_hash(fingerprint: str) -> str:
 
 
 def _now() -> str:
-    return datetime.now(timezone.utc).isoformat(timespec="milliseconds").replace("+00:00", "Z")
+    return utc_now("milliseconds").replace("+00:00", "Z")
 
 
 def _actor() -> str:
@@ -381,18 +381,6 @@ def _package_versions() -> dict[str, str]:
         except metadata.PackageNotFoundError:
             continue
     return found
-
-
-def _pid_alive(pid: int) -> bool:
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except PermissionError:  # exists, owned by someone else
-        return True
-    except OSError:  # pragma: no cover - platforms without signals: assume alive
-        return True
-    return True
 
 
 def _read_json_object(data: bytes, what: str) -> dict:
@@ -612,7 +600,7 @@ class Registry:
                     stale = time.time() - entry.stat().st_mtime > _STALE_STAGING_AGE
                 except OSError:  # removed meanwhile
                     continue
-                dead = stale or (entry_host == host and pid > 0 and not _pid_alive(pid))
+                dead = stale or (entry_host == host and pid > 0 and not pid_alive(pid))
                 if dead:
                     shutil.rmtree(entry, ignore_errors=True)
                     removed.append(entry)

@@ -60,14 +60,14 @@ import json
 import logging
 import math
 import os
-import tempfile
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
-from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
 from ergodex.exceptions import DataError, SettingsError
+from ergodex.files import atomic_write_text
+from ergodex.host import utc_now
 from ergodex.series import Series, split_blocks, split_runs
 
 log = logging.getLogger(__name__)
@@ -749,17 +749,9 @@ def _jsonable(value: Any) -> Any:
 
 
 def _now() -> str:
-    return datetime.now(timezone.utc).isoformat(timespec="seconds")
+    return utc_now()
 
 
 def _write_text_atomic(target: Path, text: str) -> None:
     """Write through a temporary file in the target folder, then rename (never half a file)."""
-    target.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as handle:
-            handle.write(text)
-        os.replace(tmp, target)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    atomic_write_text(target, text)

@@ -21,7 +21,6 @@ import json
 import math
 import os
 import re
-import tempfile
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from itertools import combinations_with_replacement
@@ -739,18 +738,9 @@ class Surrogate:
         """
         text = _format_json(self.to_dict())
         if path is not None:
-            target = Path(path)
-            fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent or ".")
-            try:
-                with os.fdopen(fd, "w", encoding="utf-8") as fh:
-                    fh.write(text)
-                    fh.flush()
-                    os.fsync(fh.fileno())
-                os.replace(tmp, target)
-            except BaseException:
-                if os.path.exists(tmp):
-                    os.unlink(tmp)
-                raise
+            from ergodex.files import atomic_write_text
+
+            atomic_write_text(path, text, make_folder=False)
         return text
 
     @classmethod

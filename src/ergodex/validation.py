@@ -6,7 +6,10 @@ The check (see DESIGN.md, "Statistics and the noise floor"):
    separate runs, or blocks of one run separated by a gap of several decorrelation times.
 2. The surrogate is integrated from states drawn from the reference (seeded), a spin-up is
    thrown away, and each member's output (at the data's sampling interval) is cut into pieces of
-   the same length. Members that blow up are counted, timed and left out.
+   the same length. Members that blow up are counted, timed and left out. A surrogate whose
+   transform changes the variables (PCA modes) is compared in its model space, on the reference
+   mapped through that transform; hidden variables (``settings["observed_variables"]`` names the
+   others) start at 0 and are not compared.
 3. Pieces are pooled into *groups* of ``pool`` pieces (default half the reference pieces). For
    every *row* (a statistic and a variable or regime) a distance ``d`` is computed between two
    groups. The **noise floor** is the mean of ``d`` over splits of the reference into two
@@ -688,10 +691,44 @@ def _row_labels(statistic: str, variables, regimes) -> list[str]:
 # ---------------------------------------------------------------------------------------------
 
 
+def _observed_variables(surrogate) -> list[str]:
+    """The variables the surrogate claims to reproduce; the rest are hidden (unobserved) states.
+
+    A surrogate with hidden variables (e.g. the memory level of empirical model reduction, Kravtsov,
+    Kondrashov & Ghil 2005) names its observed ones in ``settings["observed_variables"]``.
+    """
+    observed = (surrogate.settings or {}).get("observed_variables")
+    if not observed:
+        return list(surrogate.variables)
+    unknown = [v for v in observed if v not in surrogate.variables]
+    if unknown:
+        raise DataError(f"the model's settings list observed variables {unknown} that it does not have "
+                        f"(variables: {list(surrogate.variables)})")
+    return list(observed)
+
+
+def _compared_space(surrogate, reference):
+    """The reference in the space the check compares in, and whether that is the model space.
+
+    A surrogate whose transform changes the variables (PCA modes, a delay embedding) claims the
+    statistics of its model variables only: a reduced model cannot hold the variance its
+    transform leaves out, so comparing in data space would fail even the exact dynamics of the
+    kept modes. The reference is then mapped, run by run, through the surrogate's own stored
+    transform and compared there. A transform that keeps the variables (standardising) changes
+    no ratio, and the check stays in data space.
+    """
+    transform = surrogate.transform
+    if transform is None or tuple(transform.output_names) == tuple(reference.names):
+        return reference, False
+    from ergodex.transforms import transform_series
+
+    return transform_series(transform, reference), True
+
+
 def _data_space_names(surrogate, reference) -> np.ndarray | None:
     """Column order mapping model output (data space) onto the reference's variables."""
     if surrogate.transform is None:
-        sv = list(surrogate.variables)
+        sv = _observed_variables(surrogate)
         if sorted(sv) != sorted(reference.names):
             raise DataError(
                 f"{reference.source or 'reference data'}: variables {list(reference.names)} do not "
@@ -739,10 +776,14 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
     if not isinstance(spec, CheckSpec):
         raise SettingsError(f"spec must be a CheckSpec; got {type(spec).__name__}")
     spec.check_settings()
+    data_reference = reference
+    reference, in_model_space = _compared_space(surrogate, reference)
     variables = tuple(reference.names)
     n_vars = len(variables)
     dt = float(reference.dt)
-    order = _data_space_names(surrogate, reference)
+    order = None if in_model_space else _data_space_names(surrogate, reference)
+    to_model = (lambda x: np.asarray(x, dtype=float)) if in_model_space else surrogate.to_model_space
+    to_data = (lambda z: np.asarray(z, dtype=float)) if in_model_space else surrogate.to_data_space
 
     regimes = spec.regimes
     if regimes is not None and regimes.needs_fit:
@@ -787,24 +828,39 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
         starts_note = "drawn from the reference"
     else:
         starts = np.array(initial_states, dtype=float)
-        if starts.shape != (spec.members, n_vars) or not np.all(np.isfinite(starts)):
-            raise DataError(f"initial_states must be finite with shape ({spec.members}, {n_vars}) "
+        n_data = len(data_reference.names)
+        if starts.shape != (spec.members, n_data) or not np.all(np.isfinite(starts)):
+            raise DataError(f"initial_states must be finite with shape ({spec.members}, {n_data}) "
                             f"(members × variables); got shape {starts.shape}")
+        if in_model_space:
+            starts = surrogate.transform.forward(starts)
         import hashlib
 
         starts_note = "given: sha256:" + hashlib.sha256(
             np.ascontiguousarray(starts, "<f8").tobytes()).hexdigest()
-    z0 = surrogate.to_model_space(starts)
-    z_ref = surrogate.to_model_space(stacked)
+    z0 = to_model(starts)
+    z_ref = to_model(stacked)
     bound = blowup_bound(z_ref, factor=10.0)
+    keep = None
+    observed = _observed_variables(surrogate)
+    if observed != list(surrogate.variables):
+        # hidden variables start at 0 (their level is unknown; the spin-up forgets the choice)
+        # and carry no blow-up bound (they have no reference range); only observed ones are kept
+        keep = [list(surrogate.variables).index(v) for v in observed]
+        z_all = np.zeros((z0.shape[0], surrogate.n_variables))
+        z_all[:, keep] = z0
+        z0 = z_all
+        bound_all = np.tile([-np.inf, np.inf], (surrogate.n_variables, 1))
+        bound_all[keep] = bound
+        bound = bound_all
     run = integrate_ensemble(surrogate, z0, dt_out=dt, n_out=n_out, spinup=spinup, bound=bound,
-                             seed=int(seeds[1]))
+                             seed=int(seeds[1]), keep=keep)
 
     # -- model output in data space -----------------------------------------------------------
     alive = ~np.asarray(run.blown_up, bool)
     model = np.full((spec.members, n_out, n_vars), np.nan)
     for m in np.flatnonzero(alive):
-        x = surrogate.to_data_space(run.states[m])
+        x = to_data(run.states[m])
         if x.shape[1] != n_vars:
             raise DataError(f"the model's data space has {x.shape[1]} variables, the reference "
                             f"{n_vars} ({list(variables)})")
@@ -823,6 +879,9 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
         "integration": run.summary(),
         "regimes_used": None if regimes is None else regimes.to_dict(),
         "quantile_levels": list(stats.DEFAULT_QUANTILES),
+        "compared_in": "model space (reference mapped through the surrogate's transform)"
+                       if in_model_space else "data space",
+        "hidden_variables": [v for v in surrogate.variables if v not in observed],
     }
 
     # -- blow-ups -------------------------------------------------------------------------
@@ -888,7 +947,7 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
     scorecard = Scorecard(
         verdict="pass" if passed else "fail", rows=rows, reasons=reasons, blowups=blowups,
         member_agreement=agreement, spec=spec, model_fingerprint=surrogate.fingerprint(),
-        data_fingerprint=reference.fingerprint(),
+        data_fingerprint=data_reference.fingerprint(),
         created=datetime.now(timezone.utc).isoformat(timespec="seconds"),
         ergodex_version=ergodex.__version__, settings=settings)
     evidence = _evidence(reference, ref_pieces, model, alive, blowup_times, spec, ctx, rng)

@@ -13,7 +13,6 @@ import io
 import math
 import os
 import re
-import tempfile
 from collections.abc import Iterable, Mapping, Sequence
 from pathlib import Path
 from typing import Any, BinaryIO, Callable
@@ -21,6 +20,7 @@ from typing import Any, BinaryIO, Callable
 import numpy as np
 
 from ergodex.exceptions import DataError, SettingsError, require
+from ergodex.files import atomic_write_path
 from ergodex.series import Series
 
 __all__ = ["write_csv", "write_npz", "write_netcdf", "write_dataset", "WRITERS"]
@@ -42,24 +42,7 @@ def _atomic_write(path: Path, write: Callable[[BinaryIO], None]) -> None:
 
 def _atomic_write_path(path: Path, write: Callable[[Path], None]) -> None:
     """Call ``write(tmp_path)`` for a temporary path beside ``path``, then move it into place."""
-    path = Path(path)
-    folder = path.parent
-    if not folder.is_dir():
-        raise DataError(f"{path}: the folder {folder} does not exist")
-    fd, name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
-    os.close(fd)
-    tmp = Path(name)
-    try:
-        write(tmp)
-        # mkstemp creates owner-only files; give the result ordinary permissions.
-        os.chmod(tmp, 0o644)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            tmp.unlink()
-        except OSError:
-            pass
-        raise
+    atomic_write_path(path, write, make_folder=False)
 
 
 def _formatter(digits: int | None) -> Callable[[float], str]:

@@ -6,7 +6,6 @@ import argparse
 import json
 import os
 import sys
-import tempfile
 from pathlib import Path
 from typing import Any
 
@@ -50,18 +49,9 @@ def registry_from_args(args: argparse.Namespace):
 
 def write_json_atomic(path: str | os.PathLike[str], payload: dict[str, Any]) -> Path:
     """Write ``payload`` as indented JSON through a temporary file in the target folder."""
-    target = Path(path)
-    target.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as handle:
-            json.dump(payload, handle, indent=2, sort_keys=False)
-            handle.write("\n")
-        os.replace(tmp, target)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-    return target
+    from ergodex.files import atomic_write_text
+
+    return atomic_write_text(path, json.dumps(payload, indent=2) + "\n")
 
 
 def is_terminal() -> bool:

@@ -14,7 +14,6 @@ import datetime as _dt
 import html
 import math
 import os
-import tempfile
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
@@ -804,16 +803,7 @@ def write_report(path: str | os.PathLike[str], result: Any, surrogate: Any, **kw
     """
     target = Path(path)
     page = render_report(result, surrogate, **kwargs)  # render first: nothing is written on error
-    target.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as handle:
-            handle.write(page)
-            handle.flush()
-            os.fsync(handle.fileno())
-        os.replace(tmp, target)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-    return target
+    from ergodex.files import atomic_write_text
+
+    return atomic_write_text(target, page)
 

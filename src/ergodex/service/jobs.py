@@ -84,9 +84,9 @@ CREATE TABLE IF NOT EXISTS datasets (
 """
 
 
-def utc_now() -> str:
-    """Current time as an ISO 8601 string in UTC (second resolution is enough for people)."""
-    return datetime.now(timezone.utc).isoformat(timespec="milliseconds")
+def _job_time() -> str:
+    """Job times in ISO 8601 UTC with milliseconds: jobs queued in one second keep their order."""
+    return utc_now("milliseconds")
 
 
 @dataclass(frozen=True)
@@ -164,7 +164,7 @@ class JobStore:
         with self._connect() as db:
             db.execute(
                 "INSERT INTO jobs (id, kind, params, state, created) VALUES (?, ?, ?, ?, ?)",
-                (job_id, kind, json.dumps(params, sort_keys=True), QUEUED, utc_now()),
+                (job_id, kind, json.dumps(params, sort_keys=True), QUEUED, _job_time()),
             )
         record = self.get(job_id)
         assert record is not None
@@ -208,7 +208,7 @@ class JobStore:
                 "UPDATE jobs SET state = ?, claim = ?, worker_pid = ?, started = ? "
                 "WHERE seq = (SELECT seq FROM jobs WHERE state = ? ORDER BY seq LIMIT 1) "
                 "AND state = ? RETURNING *",
-                (RUNNING, token, worker_pid, utc_now(), QUEUED, QUEUED),
+                (RUNNING, token, worker_pid, _job_time(), QUEUED, QUEUED),
             ).fetchone()
         return JobRecord.from_row(row) if row is not None else None
 
@@ -218,7 +218,7 @@ class JobStore:
             cursor = db.execute(
                 "UPDATE jobs SET state = ?, result = ?, finished = ? "
                 "WHERE id = ? AND claim = ? AND state = ?",
-                (SUCCEEDED, json.dumps(result, sort_keys=True), utc_now(), job_id, claim, RUNNING),
+                (SUCCEEDED, json.dumps(result, sort_keys=True), _job_time(), job_id, claim, RUNNING),
             )
             return cursor.rowcount == 1
 
@@ -228,7 +228,7 @@ class JobStore:
             cursor = db.execute(
                 "UPDATE jobs SET state = ?, error_code = ?, error_message = ?, finished = ? "
                 "WHERE id = ? AND claim = ? AND state = ?",
-                (FAILED, code, message, utc_now(), job_id, claim, RUNNING),
+                (FAILED, code, message, _job_time(), job_id, claim, RUNNING),
             )
             return cursor.rowcount == 1
 
@@ -242,7 +242,7 @@ class JobStore:
             "UPDATE jobs SET state = ?, error_code = ?, error_message = ?, finished = ?, "
             "claim = NULL WHERE state = ?"
         )
-        args: list[Any] = [FAILED, INTERRUPTED, reason, utc_now(), RUNNING]
+        args: list[Any] = [FAILED, INTERRUPTED, reason, _job_time(), RUNNING]
         if worker_pids is not None:
             if not worker_pids:
                 return []
