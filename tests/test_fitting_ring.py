@@ -102,3 +102,17 @@ def test_white_noise_closure_on_six_modes_fails_on_autocorrelation(ring):
     assert worst.ratio > 2 * DEFAULT_TOLERANCE
     autocorrelation = max(r.ratio for r in scorecard.rows if r.statistic == "autocorrelation")
     assert autocorrelation > DEFAULT_TOLERANCE
+
+
+def test_ring_demo_fits_checks_and_accepts_the_reduced_model(tmp_path):
+    # The path `ergodex demo --scenario ring` runs: regenerate the sample (same seed as the
+    # committed one), fit on the two training runs, check on the two held-out runs, register.
+    from ergodex.pipeline import run_demo
+
+    result = run_demo(scenario="ring", home=tmp_path / "models", data_root=tmp_path / "datasets")
+    flow = result.flow
+    assert flow.surrogate.transform is not None and flow.surrogate.n_variables == 10
+    assert flow.check.scorecard.settings["compared_in"].startswith("model space")
+    assert flow.passed, flow.check.scorecard.table()
+    assert flow.status == "accepted"
+    assert result.report_path is not None and result.report_path.is_file()

@@ -129,9 +129,13 @@ class QuadraticNoiseModel(Fitter):
 
     def _check_consistency(self) -> None:
         if self.noise == "ar1" and (self.n_modes is not None or self.standardise):
+            # The validator can check hidden variables (settings["observed_variables"]), but a
+            # Surrogate requires its transform to produce every model variable, and the hidden
+            # level has no data-space counterpart.
             raise SettingsError(
-                "quadratic-noise: noise = 'ar1' cannot be combined with n_modes or standardise yet (the "
-                "hidden variables have no place in the data-space transform); use noise = 'white'"
+                "quadratic-noise: noise = 'ar1' cannot be combined with n_modes or standardise yet (a "
+                "model file cannot hold hidden variables beside a transform); use noise = 'white', or "
+                "reduce the data first (ergodex.transforms) and fit the ar1 closure on the modes"
             )
 
     def _fit(self, series) -> None:

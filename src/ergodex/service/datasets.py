@@ -19,8 +19,9 @@ from pathlib import Path
 from typing import Any
 
 from ergodex.exceptions import ErgodexError
+from ergodex.host import utc_now
 from ergodex.service.errors import ApiError, one_line
-from ergodex.service.jobs import JobStore, utc_now
+from ergodex.service.jobs import JobStore
 from ergodex.service.settings import ServiceSettings
 
 log = logging.getLogger(__name__)

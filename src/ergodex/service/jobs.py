@@ -29,9 +29,10 @@ import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
-from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
+
+from ergodex.host import utc_now
 
 log = logging.getLogger(__name__)
 
