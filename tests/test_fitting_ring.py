@@ -67,6 +67,8 @@ def test_linear_inverse_model_on_ten_modes_passes_on_held_out_runs(ring):
     # Sardeshmukh 1995); the surrogate's stationary covariance is C(0) by construction, and its
     # lagged covariances follow exp(Lτ) C(0), matching the data at τ₀ = 0.25 (about one
     # decorrelation time of a station).
+    # This holds for the committed sample; regenerated with other seeds the same recipe mostly
+    # fails (two training runs misestimate the leading modes' variance), see _demo_recipe.
     fit_data, held_out = ring
     fitter = make_fitter("linear-inverse", RING_LIM).fit(fit_data)
     surrogate = fitter.surrogate_

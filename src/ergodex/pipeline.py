@@ -237,10 +237,12 @@ def _demo_recipe(scenario: str) -> dict[str, Any]:
             "title": "Heated convection loop: sparse ODE surrogate",
         }
     # A linear inverse model on the 10 leading modes (five travelling-wave pairs, half of the
-    # variance), trained at a lag of 0.25 (about one station decorrelation time): on the held-out
-    # runs its largest ratio was 2.26-2.52 over five check seeds, against about 2.0 for the true
-    # dynamics projected on the same modes. Quadratic drifts with white noise and sparse models
-    # on 6-10 modes failed (wrong autocorrelation, or blow-ups); see tests/test_fitting_ring.py.
+    # variance), trained at a lag of 0.25 (about one station decorrelation time). On the sample's
+    # held-out runs its largest ratio was 2.26-2.52 over five check seeds (true dynamics projected
+    # on the same modes: about 1.9). It is not robust: regenerated with other seeds (--seed), the
+    # same recipe failed 7 of 8 data sets (ratios 2.4-5.0, mostly the leading modes' variance,
+    # which two training runs estimate to about 20 %). Quadratic drifts with white noise and
+    # sparse models on 6-10 modes failed on every seed tried (autocorrelation, or blow-ups).
     return {
         "method": "linear-inverse",
         "settings": {"n_modes": 10, "tau0": 0.25},

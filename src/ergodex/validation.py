@@ -722,7 +722,15 @@ def _compared_space(surrogate, reference):
         return reference, False
     from ergodex.transforms import transform_series
 
-    return transform_series(transform, reference), True
+    from ergodex.series import Series
+
+    mapped = transform_series(transform, reference)
+    observed = _observed_variables(surrogate)
+    if observed != list(mapped.names):
+        mapped = Series.from_arrays([run[:, [mapped.names.index(v) for v in observed]]
+                                     for run in mapped.runs], observed, mapped.dt,
+                                    run_labels=mapped.run_labels, source=mapped.source)
+    return mapped, True
 
 
 def _data_space_names(surrogate, reference) -> np.ndarray | None:
