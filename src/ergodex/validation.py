@@ -57,7 +57,14 @@ import numpy as np
 
 from ergodex import stats
 from ergodex.exceptions import DataError, ModelFileError, SettingsError
-from ergodex.regimes import NONE_NAME, RegimeSet, mean_residence_times, occupancy, transition_matrix
+from ergodex.files import atomic_write_path, atomic_write_text
+from ergodex.regimes import (
+    NONE_NAME,
+    RegimeSet,
+    mean_residence_times,
+    occupancy,
+    transition_matrix,
+)
 
 __all__ = [
     "ALL_STATISTICS",
@@ -370,7 +377,7 @@ class Scorecard:
         """The JSON text; also written (atomically) to ``path`` when given."""
         text = json.dumps(self.to_dict(), indent=2, allow_nan=False) + "\n"
         if path is not None:
-            _atomic_write_text(Path(path), text)
+            atomic_write_text(path, text, make_folder=False)
         return text
 
     @classmethod
@@ -446,16 +453,6 @@ def _json_clean(obj):
     return obj
 
 
-def _atomic_write_text(path: Path, text: str) -> None:
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
-    try:
-        tmp.write_text(text, encoding="utf-8")
-        os.replace(tmp, path)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
-
-
 #: Evidence arrays, in order: name → (dtype kind, description). The report reads these names.
 EVIDENCE_FIELDS = {
     "variables": "names of the data-space variables (n_vars,)",
@@ -523,13 +520,11 @@ class Evidence:
         path = Path(path)
         arrays = {name: np.asarray(getattr(self, name)) for name in EVIDENCE_FIELDS}
         arrays["format"] = np.array(EVIDENCE_FORMAT)
-        tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp.npz")
-        try:
-            np.savez_compressed(tmp, **arrays)
-            os.replace(tmp, path)
-        finally:
-            if tmp.exists():
-                tmp.unlink()
+        def write(tmp: Path) -> None:
+            with open(tmp, "wb") as handle:  # a file object: savez must not add ".npz"
+                np.savez_compressed(handle, **arrays)
+
+        atomic_write_path(path, write, make_folder=False)
 
     @classmethod
     def from_npz(cls, path: str | os.PathLike) -> Evidence:
@@ -720,9 +715,8 @@ def _compared_space(surrogate, reference):
     transform = surrogate.transform
     if transform is None or tuple(transform.output_names) == tuple(reference.names):
         return reference, False
-    from ergodex.transforms import transform_series
-
     from ergodex.series import Series
+    from ergodex.transforms import transform_series
 
     mapped = transform_series(transform, reference)
     observed = _observed_variables(surrogate)
