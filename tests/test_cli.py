@@ -44,3 +44,46 @@ def test_console_script_error_is_one_line_without_traceback(tmp_path):
     assert "Traceback" not in proc.stderr
     assert "broken.csv" in lines[0] and "dT_across" in lines[0]
     assert not (tmp_path / "model.json").exists()
+
+
+BAD_CSV = {
+    # name: (file text, the line and column the one-line message must name)
+    "nan": ("0.01,1.1,nan,3.1", "line 3", "dT_across"),
+    "text": ("0.01,1.1,2.1,warm", "line 3", "dT_up"),
+    "missing-column": ("0.01,1.1,2.1", "line 3", "dT_up"),
+}
+
+
+@pytest.mark.parametrize("case", [*BAD_CSV, "time-not-increasing"])
+@pytest.mark.parametrize("command", ["validate", "retrain"])
+def test_bad_csv_exits_2_naming_file_line_and_column_and_writes_nothing(
+    tmp_path, capsys, case, command
+):
+    from ergodex.scenarios import lorenz63_surrogate
+
+    rows = ["time,flow,dT_across,dT_up", "0.00,1.0,2.0,3.0"]
+    if case == "time-not-increasing":
+        rows += ["0.02,1.1,2.1,3.1", "0.01,1.2,2.2,3.2"]
+        where, column = "line 4", "time"
+    else:
+        text, where, column = BAD_CSV[case]
+        rows += [text, "0.02,1.2,2.2,3.2"]
+    bad = tmp_path / "sensors.csv"
+    bad.write_text("\n".join(rows) + "\n")
+    model = tmp_path / "model.json"
+    lorenz63_surrogate().to_json(model)
+    home = tmp_path / "home"
+    out = tmp_path / "out.json"
+    if command == "validate":
+        argv = ["validate", str(model), str(bad), "--json", str(out)]
+    else:
+        argv = ["retrain", "loop", str(bad), "--home", str(home), "--json", str(out)]
+
+    assert main(argv) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1
+    assert "sensors.csv" in err[0] and where in err[0] and column in err[0]
+    assert not out.exists()
+    # Nothing written to the registry: no index, no version folder.
+    assert not (home / "registry.sqlite3").exists()
+    assert not (home / "loop").exists()
