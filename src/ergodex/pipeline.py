@@ -16,13 +16,6 @@ from ergodex.series import Series
 
 log = logging.getLogger(__name__)
 
-#: The caution every report and summary carries.
-CAUTION = (
-    "A passed statistical check is not a certification: before a surrogate informs decisions "
-    "that can hurt people (flood, heat, structural loads), defer to the applicable codes, "
-    "standards and licensed practice."
-)
-
 
 @dataclass
 class FlowResult:

@@ -66,6 +66,7 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any, Iterator, Mapping
 
+from ergodex import CAUTION
 from ergodex.exceptions import IntegrityError, ModelFileError, RegistryError
 from ergodex.host import pid_alive, utc_now
 
@@ -118,13 +119,6 @@ BUSY_TIMEOUT_MS = 60_000
 # Index connections inherited through fork, kept alive so that they are never closed in the child.
 _INHERITED_CONNECTIONS: list[sqlite3.Connection] = []
 
-CAUTION = (
-    "Caution: a passed statistical check is not a certification. This surrogate reproduced "
-    "selected long-run statistics of the data it was checked on, within that data's sampling "
-    "noise; it may fail outside that data's range, under other forcing, or for statistics that "
-    "were not checked. Where a decision can affect safety, health or property, defer to the "
-    "applicable codes, standards and licensed professional practice."
-)
 
 # Forward migrations: schema version -> statements. Applied in order inside one write transaction;
 # never edit a published entry, append a new one.

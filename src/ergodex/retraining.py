@@ -65,6 +65,7 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
+from ergodex import CAUTION
 from ergodex.exceptions import DataError, SettingsError
 from ergodex.files import atomic_write_text
 from ergodex.host import utc_now
@@ -95,10 +96,6 @@ SCORE_DEFINITION = (
     "is not finite"
 )
 
-CAUTION = (
-    "A passed statistical check is not a certification: before a surrogate informs decisions "
-    "that can hurt people, defer to the applicable codes, standards and licensed practice."
-)
 
 
 # --- the decision record ------------------------------------------------------------------------

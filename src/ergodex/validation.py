@@ -55,7 +55,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ergodex import stats
+from ergodex import CAUTION, stats
 from ergodex.exceptions import DataError, ModelFileError, SettingsError
 from ergodex.files import atomic_write_path, atomic_write_text
 from ergodex.regimes import (
@@ -424,8 +424,7 @@ class Scorecard:
             lines.append("")
             lines.extend(f"- {reason}" for reason in self.reasons)
         lines.append("")
-        lines.append("A passed check is statistical evidence, not a certification; for decisions that "
-                     "can hurt people, follow the applicable codes, standards and licensed practice.")
+        lines.append(f"Caution: {CAUTION}")
         return "\n".join(lines)
 
 

@@ -39,7 +39,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from ergodex.cli.common import resolve_home
-    from ergodex.pipeline import CAUTION, run_demo
+    from ergodex.pipeline import run_demo
 
     result = run_demo(
         scenario=args.scenario,
@@ -61,6 +61,4 @@ def run(args: argparse.Namespace) -> int:
     print(f"scorecard: {flow.folder / 'scorecard.json'}")
     if result.report_path is not None:
         print(f"report:    {result.report_path}")
-    print()
-    print(f"Caution: {CAUTION}")
     return 0 if card.passed else 1

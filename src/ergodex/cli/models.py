@@ -37,8 +37,9 @@ import json
 import sys
 from typing import Any
 
+from ergodex import CAUTION
 from ergodex.cli.common import add_home_option, registry_from_args
-from ergodex.registry import CAUTION, parse_ref
+from ergodex.registry import parse_ref
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
@@ -171,7 +172,7 @@ def run_show(args: argparse.Namespace) -> int:
     for filename, digest in info.artifacts.items():
         print(f"    {filename:<20} sha256 {digest}")
     if info.status == "accepted":
-        print(CAUTION)
+        print(f"Caution: {CAUTION}")
     return 0
 
 

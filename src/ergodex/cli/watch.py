@@ -15,7 +15,11 @@ from __future__ import annotations
 import argparse
 
 from ergodex.cli.common import add_home_option, add_log_level_option
-from ergodex.cli.retrain import add_common_retrain_options, parse_holdout, spec_from_args
+from ergodex.cli.retrain import (
+    add_common_retrain_options,
+    parse_holdout,
+    spec_from_args,
+)
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:

@@ -22,7 +22,6 @@ import sys
 from dataclasses import dataclass, field
 from typing import Any, Mapping, Sequence
 
-
 import numpy as np
 
 from ergodex.exceptions import ErgodexError, SettingsError

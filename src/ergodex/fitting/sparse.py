@@ -21,8 +21,8 @@ from ergodex.fitting.settings import Rule
 from ergodex.fitting.tendencies import (
     check_library_rank,
     evaluate_terms,
-    relative_tendency_error,
     r2_score,
+    relative_tendency_error,
     term_names,
     terms_from_feature_names,
     weak_matrices,

@@ -20,17 +20,9 @@ from typing import Any
 
 import numpy as np
 
-from ergodex import __version__
+from ergodex import CAUTION, __version__
 from ergodex.exceptions import SettingsError
 from ergodex.report import figures
-
-#: The caution every report carries (project rule: surrogates can feed decisions that hurt people).
-CAUTION = (
-    "A passed statistical check is not a certification. It says only that the surrogate's long-run "
-    "statistics matched this reference data within the data's own sampling noise, for the "
-    "statistics listed here. Before a surrogate informs decisions that can hurt people, defer to "
-    "the applicable codes, standards and licensed practice."
-)
 
 _MISSING = "\u2013"  # en dash for values that are absent or not a number
 _BANNER_REASONS = 4

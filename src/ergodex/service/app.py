@@ -57,7 +57,7 @@ from fastapi.security import HTTPBearer  # noqa: E402
 from starlette.concurrency import run_in_threadpool  # noqa: E402
 from starlette.exceptions import HTTPException as StarletteHTTPException  # noqa: E402
 
-from ergodex import __version__  # noqa: E402
+from ergodex import CAUTION, __version__  # noqa: E402
 from ergodex.exceptions import ErgodexError, IntegrityError, RegistryError  # noqa: E402
 from ergodex.service import schemas  # noqa: E402
 from ergodex.service.auth import (  # noqa: E402
@@ -101,10 +101,6 @@ ARTIFACTS = {
     "report.html": "text/html; charset=utf-8",
 }
 
-CAUTION = (
-    "A passed statistical check is not a certification: before a surrogate informs decisions "
-    "that can hurt people, defer to the applicable codes, standards and licensed practice."
-)
 
 
 def _error_response(status: int, code: str, message: str) -> JSONResponse:
