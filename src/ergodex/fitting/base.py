@@ -108,7 +108,11 @@ class Fitter:
         before = self.get_params()
         self._fit(series)
         # fit must leave every setting as it found it (scikit-learn's rule; a sweep relies on it)
-        assert _same_params(before, self.get_params()), f"{type(self).__name__}._fit changed a setting"
+        if not _same_params(before, self.get_params()):  # a programming error in the fitter
+            raise RuntimeError(
+                f"{type(self).__name__}._fit changed a setting; learned state belongs in "
+                "attributes ending in '_'"
+            )
         return self
 
     def _fit(self, series) -> None:  # pragma: no cover - the abstract hook
