@@ -155,3 +155,35 @@ def test_simulate_netcdf_and_stdout(tmp_path):
     lines = proc.stdout.strip().splitlines()
     assert lines[0] == "time,run,flow,dT_across,dT_up" and len(lines) == 1 + 2 * 3
     assert "\r" not in proc.stderr
+
+
+def test_simulate_a_model_with_a_hidden_level_writes_only_the_observed_variable(tmp_path):
+    """A hidden red-noise level (as in empirical model reduction) is integrated but not written.
+
+    dx = (-a x + r) dt, dr = -b r dt + s dW: the stationary covariance P solves
+    A P + P A^T + Q = 0 (the Lyapunov equation; scipy.linalg.solve_continuous_lyapunov).
+    """
+    from scipy.linalg import solve_continuous_lyapunov
+
+    a, b, s = 1.0, 2.0, 1.5
+    terms = polynomial_terms(2, 1)  # 1, x, r
+    coef = np.array([[0.0, -a, 1.0], [0.0, 0.0, -b]])
+    noise = np.array([[0.0, 0.0], [0.0, s**2]])
+    model = tmp_path / "model.json"
+    Surrogate(("x", "r_x"), terms, coef, kind="polynomial-sde", noise=noise,
+              settings={"observed_variables": ["x"]}).to_json(model)
+    start = tmp_path / "start.csv"
+    rng = np.random.default_rng(5)
+    write_csv(start, Series.from_arrays([rng.normal(size=(80, 1))], ("x",), 0.05))
+    out = tmp_path / "sim.npz"
+
+    code = main(["simulate", str(model), "--members", "64", "--steps", "2000", "--dt", "0.05",
+                 "--seed", "3", "--initial", str(start), "--spinup", "10", "--out", str(out)])
+    assert code == 0
+    series = read_series(out)
+    assert series.names == ("x",)  # the hidden level is not data
+    A = np.array([[-a, 1.0], [0.0, -b]])
+    expected = solve_continuous_lyapunov(A, -noise)[0, 0]
+    # 64 members x 100 time units, integrated time of x about 1/a + 1/b: relative sampling
+    # error of the variance about sqrt(2 * 1.5 / 6400) = 2 %; allow 10 %.
+    assert np.var(series.stacked()) == pytest.approx(expected, rel=0.10)

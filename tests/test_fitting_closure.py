@@ -5,7 +5,6 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from ergodex.exceptions import SettingsError
 from ergodex.fitting import make_fitter
 from ergodex.fitting.closure import ridge_regression
 from ergodex.series import Series
@@ -89,9 +88,37 @@ def test_ar1_level_recovers_the_eigenvalues_of_a_red_noise_system():
     np.testing.assert_allclose(eigenvalues, [-1.0, -0.5], atol=0.12)
 
 
-def test_ar1_cannot_combine_with_a_transform():
-    with pytest.raises(SettingsError, match="'ar1' cannot be combined with n_modes"):
-        make_fitter("quadratic-noise", {"noise": "ar1", "n_modes": 2})
+def test_ar1_level_on_ring_modes_fits_saves_and_validates(tmp_path):
+    # The hidden AR(1) level beside a PCA transform (empirical model reduction on leading modes,
+    # Kravtsov, Kondrashov & Ghil 2005): the model has 2k variables, the transform feeds the k
+    # observed ones, the file round trip is exact and the validator runs it to a verdict in the
+    # modes' space (pass or fail is a finding here, not the point; a crash would be the bug).
+    from pathlib import Path
+
+    from ergodex.readers import read_dataset
+    from ergodex.surrogate import Surrogate
+    from ergodex.validation import CheckSpec, check
+
+    dataset = Path(__file__).resolve().parents[1] / "datasets" / "station-ring"
+    if not dataset.is_dir():
+        pytest.skip("the committed station-ring sample is not present")
+    fit_data, held_out = read_dataset(dataset).split()
+    fitter = make_fitter("quadratic-noise", {"noise": "ar1", "n_modes": 4}).fit(fit_data)
+    surrogate = fitter.surrogate_
+    modes = ("mode_1", "mode_2", "mode_3", "mode_4")
+    assert surrogate.variables == modes + tuple(f"r_{m}" for m in modes)
+    assert surrogate.transform.output_names == modes
+    assert surrogate.observed_variables == modes
+    path = tmp_path / "model.json"
+    surrogate.to_json(path)
+    back = Surrogate.from_json(path)
+    assert back.coefficients.tobytes() == surrogate.coefficients.tobytes()
+    assert back.fingerprint() == surrogate.fingerprint()
+    card = check(back, held_out, CheckSpec(seed=5)).scorecard
+    assert card.verdict in ("pass", "fail")
+    assert {row.variable for row in card.rows} <= set(modes) | {"all regimes"}
+    assert any(row.variable == "mode_1" for row in card.rows)
+    assert card.settings["hidden_variables"] == [f"r_{m}" for m in modes]
 
 
 @pytest.mark.slow

@@ -290,3 +290,78 @@ def test_from_pysindy_refuses_unsupported_terms():
         from_pysindy(model, ("a", "b"))
     with pytest.raises(SettingsError, match="fitted on 2 variables"):
         from_pysindy(model, ("a", "b", "c"))
+
+
+def _hidden_level_surrogate(rng: np.random.Generator, observed=("mode_1", "mode_2")):
+    """Two PCA modes of five data columns plus two hidden variables (a memory level)."""
+    from ergodex.transforms import PCA
+
+    mixing = rng.normal(size=(5, 5))
+    X = rng.normal(size=(400, 5)) @ mixing + rng.normal(size=5)
+    pca = PCA(2).fit(X, names=[f"s{j}" for j in range(5)])
+    variables = ("mode_1", "mode_2", "r_mode_1", "r_mode_2")
+    terms = polynomial_terms(4, 2)
+    coef = rng.normal(size=(4, len(terms)))
+    a = rng.normal(size=(2, 2))
+    noise = np.zeros((4, 4))
+    noise[2:, 2:] = a @ a.T
+    settings = {"observed_variables": list(observed), "hidden_variables": ["r_mode_1", "r_mode_2"]}
+    return X, pca, Surrogate(variables, terms, coef, kind="polynomial-emr", noise=noise,
+                             transform=pca, settings=settings)
+
+
+def test_hidden_variables_beside_a_transform_round_trip_exactly(tmp_path):
+    # A transform may feed fewer model variables than the model has when the rest are hidden
+    # and settings.observed_variables names the transform's outputs; the JSON round trip of
+    # floats is exact (Python's shortest repr reads back to the same double, IEEE 754 / PEP 3101).
+    rng = np.random.default_rng(41)
+    _X, pca, s = _hidden_level_surrogate(rng)
+    path = tmp_path / "model.json"
+    text = s.to_json(path)
+    back = Surrogate.from_json(path)
+    assert back.coefficients.tobytes() == s.coefficients.tobytes()
+    assert back.noise.tobytes() == s.noise.tobytes()
+    assert back.transform.to_dict() == pca.to_dict()
+    assert back.observed_variables == ("mode_1", "mode_2")
+    assert back.fingerprint() == s.fingerprint()
+    assert back.to_json() == text
+
+
+def test_hidden_variables_map_to_data_space_through_observed_columns_only():
+    # to_data_space of full model states must equal the PCA inverse (Z @ components + mean,
+    # Jolliffe, Principal Component Analysis, 2002, §3.5) of the observed columns alone: the
+    # hidden columns are set to huge values, which must not leak into data space.
+    rng = np.random.default_rng(42)
+    X, pca, s = _hidden_level_surrogate(rng)
+    Z_obs = s.to_model_space(X[:50])
+    assert Z_obs.shape == (50, 2)
+    full = np.column_stack([Z_obs, np.full((50, 2), 1e6)])
+    expected = Z_obs @ pca.components_ + pca.mean_
+    np.testing.assert_allclose(s.to_data_space(full), expected, rtol=1e-12, atol=1e-9)
+    np.testing.assert_allclose(s.to_data_space(Z_obs), expected, rtol=1e-12, atol=1e-9)
+
+
+@pytest.mark.parametrize(
+    "observed, message",
+    [
+        (("mode_1", "r_x"), "'r_x' is not a model variable"),
+        (("mode_2", "mode_1"), "must be the transform's outputs in its order"),
+        (("mode_1",), "must be the transform's outputs"),
+    ],
+)
+def test_wrong_observed_variables_beside_a_transform_are_refused(observed, message):
+    rng = np.random.default_rng(43)
+    with pytest.raises(SettingsError, match=f"settings.observed_variables: .*{message}"):
+        _hidden_level_surrogate(rng, observed=observed)
+
+
+def test_wrong_observed_variables_in_a_model_file_name_the_field():
+    rng = np.random.default_rng(44)
+    _, _, s = _hidden_level_surrogate(rng)
+    d = s.to_dict()
+    d["settings"]["observed_variables"] = ["mode_1", "nope"]
+    with pytest.raises(ModelFileError, match="model JSON: field settings.observed_variables: 'nope'"):
+        Surrogate.from_json(json.dumps(d))
+    del d["settings"]["observed_variables"]
+    with pytest.raises(ModelFileError, match="settings.observed_variables"):
+        Surrogate.from_json(json.dumps(d))

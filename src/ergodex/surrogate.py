@@ -289,18 +289,17 @@ class Surrogate:
             raise SettingsError(
                 f"transform: expected an ergodex Transform (forward/inverse/to_dict), got {type(transform).__name__}"
             )
+        for field, value in (("settings", settings), ("provenance", provenance)):
+            if value is not None and not isinstance(value, Mapping):
+                raise SettingsError(f"{field}: must be a dict, got {type(value).__name__}")
+        observed_index = None
         if transform is not None:
             try:
                 n_out = int(transform.n_outputs)
             except (AttributeError, ErgodexError):
                 n_out = n
             if n_out != n:
-                raise SettingsError(
-                    f"transform: maps data to {n_out} model variables, but the model has {n}"
-                )
-        for field, value in (("settings", settings), ("provenance", provenance)):
-            if value is not None and not isinstance(value, Mapping):
-                raise SettingsError(f"{field}: must be a dict, got {type(value).__name__}")
+                observed_index = _observed_index(transform, variables, settings)
 
         self._variables = variables
         self._terms = terms
@@ -311,6 +310,8 @@ class Surrogate:
         self._settings = _json_ready(dict(settings or {}), "settings")
         self._provenance = _json_ready(dict(provenance or {}), "provenance")
         self._tables: dict[str, Any] | None = None
+        # Model columns the transform produces, when the model also has hidden variables.
+        self._observed_index = observed_index
 
     # ------------------------------------------------------------------ read-only attributes
     variables = property(lambda self: self._variables, doc="Names of the model-space variables.")
@@ -586,16 +587,38 @@ class Surrogate:
             provenance=self._provenance,
         )
 
+    @property
+    def observed_variables(self) -> tuple[str, ...]:
+        """Model variables that have a data-space counterpart (all of them unless some are hidden).
+
+        Read from ``settings["observed_variables"]`` when present.
+        """
+        observed = self._settings.get("observed_variables")
+        return tuple(observed) if observed else self._variables
+
     def to_model_space(self, X: Any) -> np.ndarray:
-        """Map data-space states to model space (identity without a transform)."""
+        """Map data-space states to model space (identity without a transform).
+
+        With hidden variables beside a transform, the result holds only the observed model
+        variables (``settings["observed_variables"]``, in that order): hidden ones have no
+        data-space counterpart, so a caller that needs full states must supply them (the
+        validator starts them at 0).
+        """
         if self._transform is None:
             return np.asarray(X, dtype=np.float64)
         return np.asarray(self._transform.forward(X), dtype=np.float64)
 
     def to_data_space(self, Z: Any) -> np.ndarray:
-        """Map model-space states back to data space (identity without a transform)."""
+        """Map model-space states back to data space (identity without a transform).
+
+        ``Z`` may hold every model variable or, with hidden variables beside a transform, only the
+        observed ones; hidden columns are dropped before the inverse transform.
+        """
         if self._transform is None:
             return np.asarray(Z, dtype=np.float64)
+        Z = np.asarray(Z, dtype=np.float64)
+        if self._observed_index is not None and Z.ndim >= 1 and Z.shape[-1] == self.n_variables:
+            Z = Z[..., self._observed_index]
         return np.asarray(self._transform.inverse(Z), dtype=np.float64)
 
     # ------------------------------------------------------------------ serialisation
@@ -787,6 +810,41 @@ class Surrogate:
         d.pop("provenance")
         canon = json.dumps(d, sort_keys=True, separators=(",", ":"), allow_nan=False)
         return "sha256:" + hashlib.sha256(canon.encode("utf-8")).hexdigest()
+
+
+def _observed_index(transform: Any, variables: tuple[str, ...],
+                    settings: Mapping[str, Any] | None) -> np.ndarray:
+    """Model columns a transform with fewer outputs than model variables maps onto.
+
+    Such a model has hidden variables (e.g. the memory level of empirical model reduction);
+    ``settings["observed_variables"]`` must then list the transform's outputs, in its order, and
+    each must be a model variable.
+    """
+    outputs = tuple(transform.output_names)
+    n = len(variables)
+    observed = (settings or {}).get("observed_variables")
+    if observed is None:
+        raise SettingsError(
+            f"transform: maps data to {len(outputs)} model variables, but the model has {n} "
+            "(a model with hidden variables must list its observed ones in "
+            "settings.observed_variables)"
+        )
+    field = "settings.observed_variables"
+    if isinstance(observed, str) or not isinstance(observed, Sequence) or not all(
+        isinstance(v, str) for v in observed
+    ):
+        raise SettingsError(f"{field}: must be a list of variable names, got {observed!r}")
+    observed = tuple(observed)
+    unknown = [v for v in observed if v not in variables]
+    if unknown:
+        raise SettingsError(f"{field}: {unknown[0]!r} is not a model variable (variables: {list(variables)})")
+    if len(set(observed)) != len(observed):
+        raise SettingsError(f"{field}: names must be unique, got {list(observed)}")
+    if observed != outputs:
+        raise SettingsError(
+            f"{field}: {list(observed)} must be the transform's outputs in its order, {list(outputs)}"
+        )
+    return np.array([variables.index(v) for v in observed], dtype=np.intp)
 
 
 def _format_json(d: Mapping[str, Any]) -> str:

@@ -127,17 +127,33 @@ def initial_states_from_file(surrogate, path: str, members: int) -> tuple[np.nda
     from ergodex.readers import read_series
 
     series = read_series(path)
-    names = surrogate.transform.input_names if surrogate.transform is not None else surrogate.variables
+    names = _data_names(surrogate)
     if tuple(series.names) != tuple(names):
         raise DataError(
             f"{path}: columns {list(series.names)} do not match the model's data variables {list(names)}"
         )
+    observed = _observed_index(surrogate)
     model_rows = [surrogate.to_model_space(run) for run in series.runs]
-    rows = np.concatenate([r for r in model_rows if len(r)], axis=0)
+    given = np.concatenate([r for r in model_rows if len(r)], axis=0)
+    # Hidden variables (a memory level) have no data: they start at 0, as in the validator.
+    rows = np.zeros((len(given), surrogate.n_variables))
+    rows[:, observed] = given
     if len(rows) < members:
         raise DataError(f"{path}: has {len(rows)} usable states, fewer than --members {members}")
     pick = np.linspace(0, len(rows) - 1, members).round().astype(np.int64)
     return rows[pick], rows
+
+
+def _observed_index(surrogate) -> np.ndarray:
+    """Model columns that have data-space counterparts (all of them unless some are hidden)."""
+    return np.array([surrogate.variables.index(v) for v in surrogate.observed_variables], dtype=int)
+
+
+def _data_names(surrogate) -> tuple[str, ...]:
+    """Names of the data-space columns the model reads and writes."""
+    if surrogate.transform is not None:
+        return tuple(surrogate.transform.input_names)
+    return tuple(surrogate.observed_variables)
 
 
 def initial_states_from_model(surrogate, members: int, rng: np.random.Generator) -> np.ndarray:
@@ -198,6 +214,9 @@ def run(args: argparse.Namespace) -> int:
         spinup = 0.0 if args.spinup is None else args.spinup
         # Ten times the range of the given states (see blowup_bound); non-finite always counts.
         bound = blowup_bound(every_state) if len(every_state) > 1 else None
+        if bound is not None:  # hidden variables have no data range to leave
+            hidden = np.setdiff1d(np.arange(surrogate.n_variables), _observed_index(surrogate))
+            bound[hidden] = (-np.inf, np.inf)
     else:
         x0 = initial_states_from_model(surrogate, args.members, rng)
         spinup = SPINUP_STEPS * dt if args.spinup is None else args.spinup
@@ -221,9 +240,12 @@ def run(args: argparse.Namespace) -> int:
         if valid.stop == 0 or (fmt == "nc" and result.blown_up[m]):
             dropped.append(m)
             continue
-        runs.append(surrogate.to_data_space(result.states[m, valid]))
+        states = result.states[m, valid]
+        if surrogate.transform is None:
+            states = states[:, _observed_index(surrogate)]  # hidden columns are not data
+        runs.append(surrogate.to_data_space(states))
         labels.append(f"member-{m:03d}")
-    names = surrogate.transform.input_names if surrogate.transform is not None else surrogate.variables
+    names = _data_names(surrogate)
 
     print(f"ergodex simulate: {result.message}; seed {seed}", file=sys.stderr)
     if result.n_blown_up:

@@ -64,7 +64,8 @@ class QuadraticNoiseModel(Fitter):
         "white": additive white noise with covariance dt · Cov(residual) per unit time.
         "ar1": the residual r becomes hidden variables with linear dynamics
         dr = (c + Bₓ x + B_r r) dt + dW (a second level of empirical model reduction); the
-        surrogate then has 2n variables, the last n named ``r_<variable>`` and unobserved.
+        surrogate then has 2n variables, the last n named ``r_<variable>`` and unobserved
+        (with ``n_modes`` or ``standardise`` the observed ones are the transform's outputs).
     differentiation : {"forward", "finite-difference"}, default "forward"
         "forward": one-step differences (x_{k+1} − x_k)/dt, the right drift estimate for
         stochastic data; "finite-difference": order-4 central differences, for smooth
@@ -126,17 +127,6 @@ class QuadraticNoiseModel(Fitter):
         self.differentiation = differentiation
         self.n_modes = n_modes
         self.standardise = standardise
-
-    def _check_consistency(self) -> None:
-        if self.noise == "ar1" and (self.n_modes is not None or self.standardise):
-            # The validator can check hidden variables (settings["observed_variables"]), but a
-            # Surrogate requires its transform to produce every model variable, and the hidden
-            # level has no data-space counterpart.
-            raise SettingsError(
-                "quadratic-noise: noise = 'ar1' cannot be combined with n_modes or standardise yet (a "
-                "model file cannot hold hidden variables beside a transform); use noise = 'white', or "
-                "reduce the data first (ergodex.transforms) and fit the ar1 closure on the modes"
-            )
 
     def _fit(self, series) -> None:
         from ergodex.surrogate import Surrogate, Term, polynomial_terms
@@ -247,8 +237,10 @@ class QuadraticNoiseModel(Fitter):
         noise = np.zeros((2 * n, 2 * n))
         noise[n:, n:] = noise_hidden
         settings = {**settings, "observed_variables": list(names), "hidden_variables": list(hidden)}
+        # With a transform (PCA modes, standardising) the observed variables are its outputs, in
+        # its order; the Surrogate maps only those to data space.
         surrogate = Surrogate(
-            tuple(names) + hidden, big_terms, big, kind="polynomial-emr", noise=noise, transform=None,
+            tuple(names) + hidden, big_terms, big, kind="polynomial-emr", noise=noise, transform=transform,
             settings=settings, provenance=provenance,
         )
         return noise_hidden, B, surrogate
