@@ -15,34 +15,30 @@ import os
 import re
 from collections.abc import Iterable, Mapping, Sequence
 from pathlib import Path
-from typing import Any, BinaryIO, Callable
+from typing import Any, Callable
 
 import numpy as np
 
 from ergodex.exceptions import DataError, SettingsError, require
-from ergodex.files import atomic_write_path
-from ergodex.series import Series
+from ergodex.files import atomic_write_bytes, atomic_write_path, atomic_write_text
+from ergodex.series import Series, split_runs
 
 __all__ = ["write_csv", "write_npz", "write_netcdf", "write_dataset", "WRITERS"]
 
 _MANIFEST = "dataset.toml"
 
 
-def _atomic_write(path: Path, write: Callable[[BinaryIO], None]) -> None:
-    """Call ``write(fileobj)`` on a temporary file beside ``path``, then move it into place."""
+def _savez_atomic(path: Path, arrays: Mapping[str, np.ndarray]) -> None:
+    """``numpy.savez`` through :func:`ergodex.files.atomic_write_path`.
+
+    Given a path, ``savez`` would append ``.npz`` to the temporary name, so it gets an open file.
+    """
 
     def to_path(tmp: Path) -> None:
         with open(tmp, "wb") as fh:
-            write(fh)
-            fh.flush()
-            os.fsync(fh.fileno())
+            np.savez(fh, **arrays)
 
-    _atomic_write_path(path, to_path)
-
-
-def _atomic_write_path(path: Path, write: Callable[[Path], None]) -> None:
-    """Call ``write(tmp_path)`` for a temporary path beside ``path``, then move it into place."""
-    atomic_write_path(path, write, make_folder=False)
+    atomic_write_path(path, to_path, make_folder=False)
 
 
 def _formatter(digits: int | None) -> Callable[[float], str]:
@@ -107,7 +103,7 @@ def write_csv(
     """
     path = Path(path)
     data = _csv_bytes(series, time=time, digits=digits)
-    _atomic_write(path, lambda fh: fh.write(data))
+    atomic_write_bytes(path, data, make_folder=False)
     return path
 
 
@@ -128,7 +124,7 @@ def write_npz(path: str | os.PathLike, series: Series) -> Path:
         arrays["units"] = np.asarray(series.units, dtype=str)
     if series.run_labels is not None:
         arrays["run_labels"] = np.asarray(series.run_labels, dtype=str)
-    _atomic_write(path, lambda fh: np.savez(fh, **arrays))
+    _savez_atomic(path, arrays)
     return path
 
 
@@ -163,7 +159,9 @@ def write_netcdf(path: str | os.PathLike, series: Series) -> Path:
     encoding = {name: {"_FillValue": None} for name in series.names}
     encoding["time"] = {"_FillValue": None}
 
-    _atomic_write_path(path, lambda tmp: ds.to_netcdf(tmp, engine=engine, encoding=encoding))
+    atomic_write_path(
+        path, lambda tmp: ds.to_netcdf(tmp, engine=engine, encoding=encoding), make_folder=False
+    )
     return path
 
 
@@ -286,8 +284,6 @@ def write_dataset(
     )
     held: list[str] = []
     if holdout is not None:
-        from ergodex.series import split_runs
-
         hold_arg = holdout
         if not isinstance(holdout, (int, np.integer)):
             # Labels refer to the caller's labels; map them to file stems.
@@ -331,5 +327,5 @@ def write_dataset(
             lines.append(f"{key} = {_toml_value(value, f'provenance.{key}')}")
     text = "\n".join(lines) + "\n"
     manifest = folder / _MANIFEST
-    _atomic_write(manifest, lambda fh: fh.write(text.encode("utf-8")))
+    atomic_write_text(manifest, text, make_folder=False)
     return manifest
