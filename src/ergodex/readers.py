@@ -131,7 +131,6 @@ def _finish(
     split_at_gaps: bool,
     min_samples: int,
     units: Sequence[str] | None = None,
-    variable_where: Callable[[int], str] | None = None,
 ) -> Series:
     """Gap handling, length checks and Series construction, shared by every reader."""
     out_values: list[np.ndarray] = []
@@ -184,6 +183,14 @@ _NUMBER = re.compile(
 #: whose one-off cost (importing numba, loading the cached machine code) pays off on big files
 #: only.
 _FAST_PARSE_MIN_BYTES = 4 << 20
+
+
+def _check_file(path: Path, expected: str) -> None:
+    """Refuse a folder or a missing path before a reader library gets to word the error."""
+    if path.is_dir():
+        raise DataError(f"{path}: is a folder, expected {expected}")
+    if not path.exists():
+        raise DataError(f"{path}: file not found")
 
 
 def _read_bytes(path: Path) -> bytes:
@@ -736,40 +743,36 @@ def _check_time(t, bounds, tname, dt_arg, tol, source, where) -> float:
             f"{source}: {where(i)}, column {tname!r}: time {_show(t[i])} is missing or not "
             "finite; every row needs a time"
         )
-    steps_total, span_total = 0, 0.0
-    for a, b, _ in bounds:
-        if b - a >= 2:
-            d = np.diff(t[a:b])
-            nonpos = np.flatnonzero(d <= 0)
-            if nonpos.size:
-                i = a + int(nonpos[0]) + 1
-                raise DataError(
-                    f"{source}: {where(i)}, column {tname!r}: time {_show(t[i])} does not "
-                    f"increase (previous {_show(t[i - 1])}); times must increase strictly"
-                )
-            steps_total += b - a - 1
-            span_total += float(t[b - 1] - t[a])
-    if steps_total == 0:
+    # The steps of each run with at least two rows, computed once: (first row, steps).
+    run_steps = [(a, np.diff(t[a:b])) for a, b, _ in bounds if b - a >= 2]
+    for a, d in run_steps:
+        nonpos = np.flatnonzero(d <= 0)
+        if nonpos.size:
+            i = a + int(nonpos[0]) + 1
+            raise DataError(
+                f"{source}: {where(i)}, column {tname!r}: time {_show(t[i])} does not "
+                f"increase (previous {_show(t[i - 1])}); times must increase strictly"
+            )
+    if not run_steps:
         if dt_arg is None:
             raise DataError(
                 f"{source}: every run has a single row, so the time column gives no dt; pass dt"
             )
         return dt_arg
+    steps_total = sum(d.size for _, d in run_steps)
+    span_total = sum(float(t[a + d.size] - t[a]) for a, d in run_steps)
     # The median step is the reference: one odd step is then reported as the odd one.
-    steps = [np.diff(t[a:b]) for a, b, _ in bounds if b - a >= 2]
-    typical = float(np.median(np.concatenate(steps)))
-    for a, b, _ in bounds:
-        if b - a >= 2:
-            d = np.diff(t[a:b])
-            off = np.flatnonzero(np.abs(d - typical) > tol * typical)
-            if off.size:
-                i = a + int(off[0]) + 1
-                raise DataError(
-                    f"{source}: {where(i)}, column {tname!r}: step {_show(d[off[0]])} from "
-                    f"time {_show(t[i - 1])} to {_show(t[i])} differs from the typical step "
-                    f"{typical!r} by more than the tolerance ({tol:g} of the step); sampling "
-                    "must be uniform (resample the data, or split it into runs)"
-                )
+    typical = float(np.median(np.concatenate([d for _, d in run_steps])))
+    for a, d in run_steps:
+        off = np.flatnonzero(np.abs(d - typical) > tol * typical)
+        if off.size:
+            i = a + int(off[0]) + 1
+            raise DataError(
+                f"{source}: {where(i)}, column {tname!r}: step {_show(d[off[0]])} from "
+                f"time {_show(t[i - 1])} to {_show(t[i])} differs from the typical step "
+                f"{typical!r} by more than the tolerance ({tol:g} of the step); sampling "
+                "must be uniform (resample the data, or split it into runs)"
+            )
     dt_time = _dt_from_steps(0.0, span_total, steps_total)
     if dt_arg is not None and abs(dt_arg - dt_time) > tol * dt_time:
         raise _DtMismatch(
@@ -816,10 +819,7 @@ def read_npz(
     source = str(path)
     dt_arg = _check_dt_argument(dt, source)
     min_samples = _check_min_samples(min_samples)
-    if path.is_dir():
-        raise DataError(f"{path}: is a folder, expected an NPZ file")
-    if not path.exists():
-        raise DataError(f"{path}: file not found")
+    _check_file(path, "an NPZ file")
     try:
         with np.load(path, allow_pickle=False) as archive:
             if not isinstance(archive, np.lib.npyio.NpzFile):
@@ -941,10 +941,7 @@ def read_netcdf(
     source = str(path)
     dt_arg = _check_dt_argument(dt, source)
     min_samples = _check_min_samples(min_samples)
-    if path.is_dir():
-        raise DataError(f"{path}: is a folder, expected a NetCDF file")
-    if not path.exists():
-        raise DataError(f"{path}: file not found")
+    _check_file(path, "a NetCDF file")
     try:
         with xr.open_dataset(path, decode_times=False, mask_and_scale=True) as ds:
             ds = ds.load()
@@ -1165,11 +1162,8 @@ def read_dataset(
                 f"file {entry!r} has extension {ext or '(none)'!r}; known: "
                 f"{', '.join(sorted(_FILE_READERS))}",
             )
-        reader = _FILE_READERS[ext]
-        kwargs: dict[str, Any] = {"split_at_gaps": split_at_gaps, "min_samples": min_samples}
-        if ext in (".csv", ".nc"):
-            kwargs["time_tolerance"] = time_tolerance
-        part = _read_with_dt(reader, target, dt, kwargs, manifest)
+        kwargs = _reader_kwargs(ext, split_at_gaps, min_samples, time_tolerance)
+        part = _read_with_dt(_FILE_READERS[ext], target, dt, kwargs, manifest)
         if set(part.names) != set(variables):
             missing = [v for v in variables if v not in part.names]
             extra = [v for v in part.names if v not in variables]
@@ -1202,6 +1196,16 @@ def read_dataset(
         manifest_path=manifest,
         provenance=provenance,
     )
+
+
+def _reader_kwargs(
+    ext: str, split_at_gaps: bool, min_samples: int, time_tolerance: float
+) -> dict[str, Any]:
+    """Keyword arguments for the reader of ``ext`` (NPZ has no time column, so no tolerance)."""
+    kwargs: dict[str, Any] = {"split_at_gaps": split_at_gaps, "min_samples": min_samples}
+    if ext in (".csv", ".nc"):
+        kwargs["time_tolerance"] = time_tolerance
+    return kwargs
 
 
 def _read_with_dt(reader, target: Path, dt: float, kwargs: dict, manifest: Path) -> Series:
@@ -1276,7 +1280,6 @@ def read_series(
             f"{p}: unknown file type {ext or '(no extension)'!r}; known: "
             f"{', '.join(sorted(_FILE_READERS))}, a folder with {_MANIFEST}, or {_MANIFEST} itself"
         )
-    kwargs: dict[str, Any] = {"dt": dt, "split_at_gaps": split_at_gaps, "min_samples": min_samples}
-    if ext in (".csv", ".nc"):
-        kwargs["time_tolerance"] = time_tolerance
-    return _FILE_READERS[ext](p, **kwargs)
+    return _FILE_READERS[ext](
+        p, dt=dt, **_reader_kwargs(ext, split_at_gaps, min_samples, time_tolerance)
+    )
