@@ -105,6 +105,28 @@ def _n_steps(duration: float, dt: float, what: str = "duration") -> int:
     return n
 
 
+def _observe(
+    trajectories: Callable[..., np.ndarray], x0: np.ndarray, *, dt: float, n_out: int,
+    spinup: float, noise: float, rng: np.random.Generator, **params: Any,
+) -> np.ndarray:
+    """Spin ``x0`` up (discarded), record ``n_out`` samples, add Gaussian sensor noise."""
+    n_spin = int(round(spinup / dt))
+    if n_spin:
+        x0 = trajectories(x0, dt=dt, n_out=n_spin + 1, **params)[:, -1]
+    traj = trajectories(x0, dt=dt, n_out=n_out, **params)
+    if noise > 0:
+        traj = traj + rng.normal(0.0, noise, traj.shape)
+    return traj
+
+
+def _series(runs: np.ndarray, names: Sequence[str], dt: float, source: str) -> Series:
+    """A scenario's runs (n_runs, n_samples, n_variables) as a Series labelled ``run-1`` ..."""
+    return Series.from_arrays(
+        list(runs), names, dt, run_labels=[f"run-{i + 1}" for i in range(len(runs))],
+        source=source,
+    )
+
+
 # --- integration ---------------------------------------------------------------------------------
 def rk4_trajectories(
     rhs: Callable[[np.ndarray], np.ndarray],
@@ -400,20 +422,11 @@ def convection_loop(
         [rng.normal(0.0, 8.0, n_runs), rng.normal(0.0, 8.0, n_runs), rng.normal(25.0, 8.0, n_runs)]
     )
 
-    n_spin = int(round(spinup / dt))
-    params = dict(dt=dt, substeps=substeps, sigma=sigma, rho=rho, beta=beta)
-    if n_spin:
-        x0 = lorenz63_trajectories(x0, n_out=n_spin + 1, **params)[:, -1]
-    traj = lorenz63_trajectories(x0, n_out=n_out, **params)
-    if noise > 0:
-        traj = traj + rng.normal(0.0, noise, traj.shape)
-    return Series.from_arrays(
-        list(traj),
-        CONVECTION_LOOP_VARIABLES,
-        dt,
-        run_labels=[f"run-{i + 1}" for i in range(n_runs)],
-        source=f"convection_loop(seed={seed})",
+    traj = _observe(
+        lorenz63_trajectories, x0, dt=dt, n_out=n_out, spinup=spinup, noise=noise, rng=rng,
+        substeps=substeps, sigma=sigma, rho=rho, beta=beta,
     )
+    return _series(traj, CONVECTION_LOOP_VARIABLES, dt, f"convection_loop(seed={seed})")
 
 
 def convection_loop_regimes(rho: float = 28.0, beta: float = 8.0 / 3.0) -> dict:
@@ -571,20 +584,11 @@ def station_ring(
     n_out = _n_steps(duration, dt)
     x0 = forcing + rng.normal(0.0, 1.0, (n_runs, n))
 
-    n_spin = int(round(spinup / dt))
-    if n_spin:
-        x0 = lorenz96_trajectories(x0, dt=dt, n_out=n_spin + 1, substeps=substeps,
-                                   forcing=forcing)[:, -1]
-    traj = lorenz96_trajectories(x0, dt=dt, n_out=n_out, substeps=substeps, forcing=forcing)
-    if noise > 0:
-        traj = traj + rng.normal(0.0, noise, traj.shape)
-    return Series.from_arrays(
-        list(traj),
-        station_names(n),
-        dt,
-        run_labels=[f"run-{i + 1}" for i in range(n_runs)],
-        source=f"station_ring(seed={seed})",
+    traj = _observe(
+        lorenz96_trajectories, x0, dt=dt, n_out=n_out, spinup=spinup, noise=noise, rng=rng,
+        substeps=substeps, forcing=forcing,
     )
+    return _series(traj, station_names(n), dt, f"station_ring(seed={seed})")
 
 
 # --- Ornstein-Uhlenbeck ---------------------------------------------------------------------------
@@ -723,12 +727,9 @@ def ornstein_uhlenbeck(
     for k in range(1, n_out):
         x = x @ F.T + shocks[k - 1]
         out[:, k] = x
-    return Series.from_arrays(
-        list(out),
-        tuple(names) if names is not None else _default_names(n),
-        dt,
-        run_labels=[f"run-{i + 1}" for i in range(n_runs)],
-        source=f"ornstein_uhlenbeck(seed={seed})",
+    return _series(
+        out, tuple(names) if names is not None else _default_names(n), dt,
+        f"ornstein_uhlenbeck(seed={seed})",
     )
 
 
@@ -828,13 +829,7 @@ def double_well(
     for k0 in range(0, total, chunk):
         dw = rng.standard_normal((min(chunk, total - k0), substeps, n_runs))
         kernel(x, h, amp, dw, out, k0 - n_spin)
-    return Series.from_arrays(
-        [o[:, None] for o in out],
-        (name,),
-        dt,
-        run_labels=[f"run-{i + 1}" for i in range(n_runs)],
-        source=f"double_well(seed={seed})",
-    )
+    return _series(out[:, :, None], (name,), dt, f"double_well(seed={seed})")
 
 
 # --- committed sample data ------------------------------------------------------------------------
