@@ -12,28 +12,24 @@ from scipy.integrate import solve_ivp
 from ergodex.cli import main
 from ergodex.readers import read_series
 from ergodex.series import Series
-from ergodex.surrogate import Surrogate, polynomial_terms
+from ergodex.scenarios import CONVECTION_LOOP_VARIABLES, lorenz63_rhs, lorenz63_surrogate
+from ergodex.surrogate import Surrogate, Term, polynomial_terms
 from ergodex.transforms import Standardise
 from ergodex.writers import write_csv
 
-NAMES = ("flow", "dT_across", "dT_up")
-# Lorenz-63 parameters (Lorenz 1963, J. Atmos. Sci. 20, 130-141).
-SIGMA, RHO, BETA = 10.0, 28.0, 8.0 / 3.0
+NAMES = CONVECTION_LOOP_VARIABLES
 
 
 def lorenz63(extra_z2: float = 0.0, provenance=None) -> Surrogate:
-    terms = polynomial_terms(3, 2)
-    index = {t.powers: k for k, t in enumerate(terms)}
-    coef = np.zeros((3, len(terms)))
-    coef[0, index[(1, 0, 0)]], coef[0, index[(0, 1, 0)]] = -SIGMA, SIGMA
-    coef[1, index[(1, 0, 0)]], coef[1, index[(0, 1, 0)]], coef[1, index[(1, 0, 1)]] = RHO, -1.0, -1.0
-    coef[2, index[(0, 0, 1)]], coef[2, index[(1, 1, 0)]] = -BETA, 1.0
-    coef[2, index[(0, 0, 2)]] = extra_z2
-    return Surrogate(NAMES, terms, coef, provenance=provenance)
+    """The project's Lorenz-63 surrogate plus a ``extra_z2 dT_up^2`` term (zero by default)."""
+    truth = lorenz63_surrogate()
+    terms = truth.terms + (Term("monomial", (0, 0, 2)),)
+    coef = np.hstack([truth.coefficients, [[0.0], [0.0], [extra_z2]]])
+    return Surrogate(truth.variables, terms, coef, provenance=provenance)
 
 
-def lorenz63_rhs(_t, y):
-    return [SIGMA * (y[1] - y[0]), y[0] * (RHO - y[2]) - y[1], y[0] * y[1] - BETA * y[2]]
+def lorenz63_ode(_t, y):
+    return lorenz63_rhs(np.asarray(y))
 
 
 def test_simulate_writes_the_models_dynamics_reproducibly(tmp_path, capsys):
@@ -51,7 +47,7 @@ def test_simulate_writes_the_models_dynamics_reproducibly(tmp_path, capsys):
     # e^(0.906 * 1.19) ~ 3 by chaos; Lyapunov exponent from Sprott 2003).
     for run in series.runs:
         t = np.arange(120) * 0.01
-        ref = solve_ivp(lorenz63_rhs, (0, t[-1]), run[0], t_eval=t, method="DOP853", rtol=1e-10, atol=1e-10)
+        ref = solve_ivp(lorenz63_ode, (0, t[-1]), run[0], t_eval=t, method="DOP853", rtol=1e-10, atol=1e-10)
         np.testing.assert_allclose(run, ref.y.T, atol=2e-3)
     # After the 1000-step spin-up from tiny perturbations of the origin, the members are on the
     # attractor and far apart from each other (|z| well away from the origin's 0).

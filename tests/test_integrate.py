@@ -14,51 +14,31 @@ from ergodex.integrate import (
     integrate_ensemble,
     stability_limit,
 )
-from ergodex.scenarios import ou_surrogate
+from ergodex.scenarios import lorenz63_rhs, lorenz63_surrogate, lorenz96_rhs, lorenz96_surrogate, ou_surrogate
 from ergodex.surrogate import Surrogate, Term, polynomial_terms
-
-NAMES = ("flow", "dT_across", "dT_up")
-# Lorenz-63 parameters (Lorenz 1963, J. Atmos. Sci. 20, 130-141).
-SIGMA, RHO, BETA = 10.0, 28.0, 8.0 / 3.0
 
 
 def lorenz63(extra_z2: float = 0.0) -> Surrogate:
-    terms = polynomial_terms(3, 2)
+    """The project's Lorenz-63 surrogate, optionally with a destabilising ``+ extra_z2 dT_up^2``."""
+    truth = lorenz63_surrogate()
+    if not extra_z2:
+        return truth
+    terms = truth.terms + (Term("monomial", (0, 0, 2)),)
+    return Surrogate(truth.variables, terms, np.hstack([truth.coefficients, [[0.0], [0.0], [extra_z2]]]))
+
+
+def lorenz63_ode(_t, y):
+    return lorenz63_rhs(np.asarray(y))
+
+
+def lorenz96() -> Surrogate:
+    """The project's Lorenz-96 ring (40 sites, F = 8) spread over the full quadratic table."""
+    truth = lorenz96_surrogate()
+    terms = polynomial_terms(truth.n_variables, 2)
     index = {t.powers: k for k, t in enumerate(terms)}
-    coef = np.zeros((3, len(terms)))
-    coef[0, index[(1, 0, 0)]], coef[0, index[(0, 1, 0)]] = -SIGMA, SIGMA
-    coef[1, index[(1, 0, 0)]], coef[1, index[(0, 1, 0)]], coef[1, index[(1, 0, 1)]] = RHO, -1.0, -1.0
-    coef[2, index[(0, 0, 1)]], coef[2, index[(1, 1, 0)]] = -BETA, 1.0
-    coef[2, index[(0, 0, 2)]] = extra_z2
-    return Surrogate(NAMES, terms, coef)
-
-
-def lorenz63_rhs(_t, y):
-    return [SIGMA * (y[1] - y[0]), y[0] * (RHO - y[2]) - y[1], y[0] * y[1] - BETA * y[2]]
-
-
-def lorenz96(n: int = 40, forcing: float = 8.0) -> Surrogate:
-    """Lorenz (1996) ring: dx_i/dt = (x_{i+1} - x_{i-2}) x_{i-1} - x_i + F, as a quadratic table."""
-    terms = polynomial_terms(n, 2)
-    index = {t.powers: k for k, t in enumerate(terms)}
-
-    def mono(*vars_):
-        p = [0] * n
-        for v in vars_:
-            p[v % n] += 1
-        return index[tuple(p)]
-
-    coef = np.zeros((n, len(terms)))
-    for i in range(n):
-        coef[i, mono()] += forcing
-        coef[i, mono(i)] += -1.0
-        coef[i, mono(i + 1, i - 1)] += 1.0
-        coef[i, mono(i - 2, i - 1)] += -1.0
-    return Surrogate(tuple(f"s{i:02d}" for i in range(n)), terms, coef)
-
-
-def lorenz96_rhs(x: np.ndarray, forcing: float = 8.0) -> np.ndarray:
-    return (np.roll(x, -1, axis=-1) - np.roll(x, 2, axis=-1)) * np.roll(x, 1, axis=-1) - x + forcing
+    coef = np.zeros((truth.n_variables, len(terms)))
+    coef[:, [index[t.powers] for t in truth.terms]] = truth.coefficients
+    return Surrogate(truth.variables, terms, coef)
 
 
 def attractor_states(m: int, rng: np.random.Generator) -> np.ndarray:
@@ -70,7 +50,7 @@ def attractor_states(m: int, rng: np.random.Generator) -> np.ndarray:
 def test_rk4_converges_at_fourth_order(engine):
     x0 = np.array([-8.0, 7.0, 27.0])
     # Reference: scipy's DOP853 at rtol 1e-12, many orders below the RK4 errors measured here.
-    ref = solve_ivp(lorenz63_rhs, (0.0, 1.0), x0, method="DOP853", rtol=1e-12, atol=1e-12).y[:, -1]
+    ref = solve_ivp(lorenz63_ode, (0.0, 1.0), x0, method="DOP853", rtol=1e-12, atol=1e-12).y[:, -1]
     errors = []
     steps = (0.0025, 0.00125, 0.000625)
     for h in steps:
