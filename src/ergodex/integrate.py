@@ -466,12 +466,11 @@ def integrate_ensemble(
     alive = np.ones(M, dtype=np.bool_)
     blowup_time = np.full(M, np.nan)
     out = np.full((M, n_out, len(keep_idx)), np.nan)
-    tables = surrogate.term_tables()
 
     if engine == "numba":
         from ergodex import kernels
 
-        table_args = tuple(kernels.build_program(tables, n))
+        table_args = tuple(kernels.build_program(surrogate.term_tables(), n))
         code = kernels.METHOD_CODES[method]
 
         def run_block(t0: float, n_blocks: int, steps: int, noise: np.ndarray, j0: int, write: bool) -> None:
@@ -493,11 +492,13 @@ def integrate_ensemble(
     # Chunks keep the noise buffer near 2**20 numbers and let progress be reported.
     per_step = M * n
     max_steps = max(1, (1 << 20) // per_step) if stochastic else 1 << 30
+    # Deterministic spin-up also comes in chunks, bounding each compiled call.
+    spin_chunk = max_steps if stochastic else 100_000
 
     t = -spin_time
     done = 0
     while done < n_spin:
-        steps = min(n_spin - done, max_steps, 100_000 if not stochastic else max_steps)
+        steps = min(n_spin - done, spin_chunk)
         run_block(t, 1, steps, draw(steps), 0, False)
         done += steps
         t = -spin_time + done * h
