@@ -206,6 +206,7 @@ def run(args: argparse.Namespace) -> int:
 
     surrogate = load_model(args.model, getattr(args, "home", None))
     dt = _output_dt(surrogate, args.dt)
+    observed = _observed_index(surrogate)
     seed = args.seed if args.seed is not None else int(np.random.SeedSequence().entropy % (2**63))
     rng = np.random.default_rng(seed)
 
@@ -215,7 +216,7 @@ def run(args: argparse.Namespace) -> int:
         # Ten times the range of the given states (see blowup_bound); non-finite always counts.
         bound = blowup_bound(every_state) if len(every_state) > 1 else None
         if bound is not None:  # hidden variables have no data range to leave
-            hidden = np.setdiff1d(np.arange(surrogate.n_variables), _observed_index(surrogate))
+            hidden = np.setdiff1d(np.arange(surrogate.n_variables), observed)
             bound[hidden] = (-np.inf, np.inf)
     else:
         x0 = initial_states_from_model(surrogate, args.members, rng)
@@ -242,7 +243,7 @@ def run(args: argparse.Namespace) -> int:
             continue
         states = result.states[m, valid]
         if surrogate.transform is None:
-            states = states[:, _observed_index(surrogate)]  # hidden columns are not data
+            states = states[:, observed]  # hidden columns are not data
         runs.append(surrogate.to_data_space(states))
         labels.append(f"member-{m:03d}")
     names = _data_names(surrogate)
