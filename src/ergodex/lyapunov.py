@@ -108,13 +108,15 @@ class _PolynomialField:
         return all(t.kind == "monomial" for t in getattr(surrogate, "terms", ())) and bool(
             getattr(surrogate, "terms", ()))
 
+    def _monomials(self, x: np.ndarray) -> np.ndarray:
+        return np.prod(x[:, None, :] ** self.exponents[None, :, :], axis=2)
+
     def both(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        feats = np.prod(x[:, None, :] ** self.exponents[None, :, :], axis=2)
+        feats = self._monomials(x)
         return feats @ self.rhs_matrix, (feats @ self.jac_tensor).reshape(-1, self.n, self.n)
 
     def rhs(self, x: np.ndarray) -> np.ndarray:
-        feats = np.prod(x[:, None, :] ** self.exponents[None, :, :], axis=2)
-        return feats @ self.rhs_matrix
+        return self._monomials(x) @ self.rhs_matrix
 
 
 def _default_step(surrogate, states: np.ndarray) -> float:
