@@ -203,8 +203,8 @@ def data_provenance(series, **extra: Any) -> dict[str, Any]:
 
 
 def _source(series) -> str:
-    source = getattr(series, "source", "") or ""
-    return source if source else "the data"
+    """How messages name the data: its file or folder, else "the data"."""
+    return getattr(series, "source", "") or "the data"
 
 
 # -- the name → class table ------------------------------------------------------------------

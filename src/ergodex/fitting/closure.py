@@ -11,8 +11,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from ergodex.exceptions import DataError, SettingsError
-from ergodex.fitting.base import Fitter, data_provenance
+from ergodex.exceptions import DataError
+from ergodex.fitting.base import Fitter, _source, data_provenance
 from ergodex.fitting.settings import Rule
 from ergodex.fitting.tendencies import (
     check_library_rank,
@@ -22,7 +22,7 @@ from ergodex.fitting.tendencies import (
     r2_score,
     term_names,
 )
-from ergodex.fitting.transforming import fit_transform, model_space_runs
+from ergodex.fitting.transforming import reduce_series
 
 __all__ = ["QuadraticNoiseModel", "ridge_regression"]
 
@@ -129,15 +129,12 @@ class QuadraticNoiseModel(Fitter):
         self.standardise = standardise
 
     def _fit(self, series) -> None:
-        from ergodex.surrogate import Surrogate, Term, polynomial_terms
+        from ergodex.surrogate import Surrogate, polynomial_terms
 
         dt = float(series.dt)
-        if self.n_modes is not None and self.n_modes > series.n_variables:
-            raise SettingsError(
-                f"quadratic-noise setting 'n_modes' = {self.n_modes} exceeds the {series.n_variables} variables"
-            )
-        transform = fit_transform(series, n_modes=self.n_modes, standardise=self.standardise)
-        runs, names = model_space_runs(series, transform)
+        transform, runs, names = reduce_series(
+            series, method=self.method, n_modes=self.n_modes, standardise=self.standardise
+        )
         n = runs[0].shape[1]
         terms = polynomial_terms(n, self.degree)
         labels = term_names(terms, names)
@@ -182,7 +179,7 @@ class QuadraticNoiseModel(Fitter):
             )
         else:
             noise, ar1, surrogate = self._ar1_level(
-                pieces, terms, coefficients, names, dt, transform, settings, provenance, Surrogate, Term, series
+                pieces, terms, coefficients, names, dt, transform, settings, provenance
             )
 
         self.terms_ = terms
@@ -198,8 +195,10 @@ class QuadraticNoiseModel(Fitter):
         self.transform_ = transform
         self.surrogate_ = surrogate
 
-    def _ar1_level(self, pieces, terms, coefficients, names, dt, transform, settings, provenance, Surrogate, Term, series):
+    def _ar1_level(self, pieces, terms, coefficients, names, dt, transform, settings, provenance):
         """Second level of empirical model reduction: dr = (c + Bₓ x + B_r r) dt + dW."""
+        from ergodex.surrogate import Surrogate, Term
+
         n = len(names)
         rows_z, rows_dr = [], []
         for X, Y in pieces:
@@ -244,7 +243,3 @@ class QuadraticNoiseModel(Fitter):
             settings=settings, provenance=provenance,
         )
         return noise_hidden, B, surrogate
-
-
-def _source(series) -> str:
-    return getattr(series, "source", "") or "the data"

@@ -13,10 +13,10 @@ import numpy as np
 import scipy.linalg
 
 from ergodex.exceptions import DataError, SettingsError
-from ergodex.fitting.base import Fitter, data_provenance
+from ergodex.fitting.base import Fitter, _source, data_provenance
 from ergodex.fitting.settings import Rule
 from ergodex.fitting.tendencies import lagged_covariance, relative_tendency_error
-from ergodex.fitting.transforming import fit_transform, model_space_runs
+from ergodex.fitting.transforming import reduce_series
 
 __all__ = ["LinearInverseModel", "lim_operators"]
 
@@ -182,12 +182,9 @@ class LinearInverseModel(Fitter):
         from ergodex.surrogate import Surrogate, polynomial_terms
 
         dt = float(series.dt)
-        if self.n_modes is not None and self.n_modes > series.n_variables:
-            raise SettingsError(
-                f"linear-inverse setting 'n_modes' = {self.n_modes} exceeds the {series.n_variables} variables"
-            )
-        transform = fit_transform(series, n_modes=self.n_modes, standardise=self.standardise)
-        runs, names = model_space_runs(series, transform)
+        transform, runs, names = reduce_series(
+            series, method=self.method, n_modes=self.n_modes, standardise=self.standardise
+        )
         n = runs[0].shape[1]
         mean = np.concatenate(runs).mean(axis=0)
         C0, _ = lagged_covariance(runs, 0, mean)
@@ -346,7 +343,3 @@ class LinearInverseModel(Fitter):
 
 def _json_settings(params: dict) -> dict:
     return {k: (list(v) if isinstance(v, tuple) else v) for k, v in params.items()}
-
-
-def _source(series) -> str:
-    return getattr(series, "source", "") or "the data"

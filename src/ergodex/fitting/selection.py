@@ -325,8 +325,9 @@ def _run(jobs, series, reference, spec_dict, scheduler, n_jobs, show) -> tuple[l
         n_jobs = os.cpu_count() or 1
     n_jobs = max(1, min(int(n_jobs), len(tasks)))
     if n_jobs == 1:
-        return _collect((joblib.delayed(_evaluate)(k, m, s, series, reference, spec_dict) for k, m, s in jobs),
-                        len(tasks), show, sequential=True), "sequential"
+        # in this process, one candidate at a time (lazily, so the progress bar moves)
+        return _collect((func(*args, **kwargs) for func, args, kwargs in tasks),
+                        len(tasks), show), "sequential"
     with joblib.parallel_config(backend="loky", n_jobs=n_jobs):
         return _collect(joblib.Parallel(return_as="generator_unordered")(tasks), len(tasks), show), "loky"
 
@@ -364,7 +365,7 @@ def _run_dask(tasks, scheduler, show) -> list[dict]:
             client.close()
 
 
-def _collect(iterator, total: int, show: bool, sequential: bool = False) -> list[dict]:
+def _collect(iterator, total: int, show: bool) -> list[dict]:
     bar = None
     if show:
         try:
@@ -376,9 +377,6 @@ def _collect(iterator, total: int, show: bool, sequential: bool = False) -> list
     results = []
     try:
         for item in iterator:
-            if sequential:
-                func, args, kwargs = item
-                item = func(*args, **kwargs)
             results.append(item)
             if bar is not None:
                 bar.update(1)

@@ -16,7 +16,7 @@ from typing import Any
 import numpy as np
 
 from ergodex.exceptions import DataError, OptionalDependencyError, SettingsError
-from ergodex.fitting.base import Fitter, data_provenance
+from ergodex.fitting.base import Fitter, _source, data_provenance
 from ergodex.fitting.settings import Rule
 from ergodex.fitting.tendencies import (
     check_library_rank,
@@ -27,7 +27,7 @@ from ergodex.fitting.tendencies import (
     terms_from_feature_names,
     weak_matrices,
 )
-from ergodex.fitting.transforming import fit_transform, model_space_runs
+from ergodex.fitting.transforming import reduce_series
 
 __all__ = ["SparseODE", "sparse_settings_table"]
 
@@ -238,12 +238,9 @@ class SparseODE(Fitter):
         ps = _import_pysindy()
         if self.trapping:
             _require_cvxpy()
-        if self.n_modes is not None and self.n_modes > series.n_variables:
-            raise SettingsError(
-                f"sparse setting 'n_modes' = {self.n_modes} exceeds the {series.n_variables} variables"
-            )
-        transform = fit_transform(series, n_modes=self.n_modes, standardise=self.standardise)
-        runs, variables = model_space_runs(series, transform)
+        transform, runs, variables = reduce_series(
+            series, method=self.method, n_modes=self.n_modes, standardise=self.standardise
+        )
         n = len(variables)
         internal = [f"x{j}" for j in range(n)]
 
@@ -411,8 +408,6 @@ class _AsDrift:
         return evaluate_terms(self.terms, X) @ self.coefficients.T
 
 
-def _source(series) -> str:
-    return getattr(series, "source", "") or "the data"
 
 
 def _import_pysindy():

@@ -10,7 +10,22 @@ import numpy as np
 
 from ergodex.exceptions import SettingsError
 
-__all__ = ["fit_transform", "model_space_runs"]
+__all__ = ["fit_transform", "model_space_runs", "reduce_series"]
+
+
+def reduce_series(series, *, method: str, n_modes: int | None, standardise: bool):
+    """The shared start of every fitter: check ``n_modes``, fit the transform, map the runs.
+
+    Returns ``(transform, runs, names)``: the fitted transform (None when none is asked), the runs
+    in model space and the model-space variable names.
+    """
+    if n_modes is not None and n_modes > series.n_variables:
+        raise SettingsError(
+            f"{method} setting 'n_modes' = {n_modes} exceeds the {series.n_variables} variables"
+        )
+    transform = fit_transform(series, n_modes=n_modes, standardise=standardise)
+    runs, names = model_space_runs(series, transform)
+    return transform, runs, names
 
 
 def fit_transform(series, *, n_modes: int | None, standardise: bool):
@@ -26,10 +41,8 @@ def fit_transform(series, *, n_modes: int | None, standardise: bool):
     """
     if n_modes is None and not standardise:
         return None
-    try:
-        from ergodex import transforms
-    except ImportError as exc:  # pragma: no cover - only while the module is being written
-        raise SettingsError(f"n_modes/standardise need ergodex.transforms, which failed to import: {exc}") from None
+    from ergodex import transforms
+
     steps = []
     if standardise:
         steps.append(transforms.Standardise())
