@@ -50,7 +50,6 @@ import json
 import math
 import os
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
 from pathlib import Path
 
 import numpy as np
@@ -58,6 +57,7 @@ import numpy as np
 from ergodex import CAUTION, stats
 from ergodex.exceptions import DataError, ModelFileError, SettingsError
 from ergodex.files import atomic_write_path, atomic_write_text
+from ergodex.host import utc_now
 from ergodex.regimes import (
     NONE_NAME,
     RegimeSet,
@@ -289,8 +289,7 @@ class ScoreRow:
     def to_dict(self) -> dict:
         return {"statistic": self.statistic, "variable": self.variable,
                 "value": _finite_or_none(self.value), "noise_floor": _finite_or_none(self.noise_floor),
-                "ratio": _finite_or_none(self.ratio) if not (isinstance(self.ratio, float)
-                                                             and math.isinf(self.ratio)) else None,
+                "ratio": _finite_or_none(self.ratio),
                 "tolerance": float(self.tolerance), "verdict": self.verdict}
 
     @classmethod
@@ -786,9 +785,10 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
     to_model = (lambda x: np.asarray(x, dtype=float)) if in_model_space else surrogate.to_model_space
     to_data = (lambda z: np.asarray(z, dtype=float)) if in_model_space else surrogate.to_data_space
 
+    stacked = reference.stacked()
     regimes = spec.regimes
     if regimes is not None and regimes.needs_fit:
-        regimes = regimes.fit(reference.stacked(), variables)
+        regimes = regimes.fit(stacked, variables)
     statistics = tuple(s for s in spec.statistics if regimes is not None or s not in _REGIME_STATISTICS)
 
     # -- decorrelation time and derived settings -----------------------------------------
@@ -823,7 +823,6 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
 
     seeds = np.random.SeedSequence(spec.seed).generate_state(3)
     rng = np.random.default_rng(int(seeds[0]))
-    stacked = reference.stacked()
     if initial_states is None:
         starts = stacked[rng.choice(stacked.shape[0], size=spec.members, replace=True)]
         starts_note = "drawn from the reference"
@@ -949,9 +948,10 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
         verdict="pass" if passed else "fail", rows=rows, reasons=reasons, blowups=blowups,
         member_agreement=agreement, spec=spec, model_fingerprint=surrogate.fingerprint(),
         data_fingerprint=data_reference.fingerprint(),
-        created=datetime.now(timezone.utc).isoformat(timespec="seconds"),
+        created=utc_now(),
         ergodex_version=ergodex.__version__, settings=settings)
-    evidence = _evidence(reference, ref_pieces, model, alive, blowup_times, spec, ctx, rng)
+    evidence = _evidence(reference, stacked, ref_pieces, ref_stats, model, alive, blowup_times,
+                         spec, ctx, rng)
     return CheckResult(scorecard, evidence)
 
 
@@ -1000,8 +1000,8 @@ def _member_agreement(model, alive, L, ref_stats, ref_pieces, spec, ctx) -> dict
     variables = ctx["variables"]
     members = np.flatnonzero(alive)
     ref_sd = np.nanstd(ref_pieces.reshape(-1, ref_pieces.shape[2]), axis=0)
-    first = model[members][:, :L]
-    collapsed = [int(m) for m, p in zip(members, first)
+    first = model[members, :L]  # each member's first piece, without copying whole members
+    collapsed = [int(m) for m in members
                  if np.all(np.std(model[m], axis=0) < _COLLAPSE_FRACTION * ref_sd)]
     reasons = []
     if collapsed and len(collapsed) == len(members):
@@ -1041,11 +1041,13 @@ def _member_agreement(model, alive, L, ref_stats, ref_pieces, spec, ctx) -> dict
     return out
 
 
-def _evidence(reference, ref_pieces, model, alive, blowup_times, spec, ctx, rng) -> Evidence:
+def _evidence(reference, stacked, ref_pieces, ref_stats, model, alive, blowup_times, spec, ctx,
+              rng) -> Evidence:
+    """Arrays for the figures; per-piece reference statistics come from ``ref_stats`` when the
+    scored statistics already computed them."""
     variables = ctx["variables"]
     n_vars = len(variables)
     dt = ctx["dt"]
-    stacked = reference.stacked()
     live = [model[m] for m in np.flatnonzero(alive)]
     pooled = np.concatenate(live) if live else np.full((1, n_vars), np.nan)
 
@@ -1058,8 +1060,12 @@ def _evidence(reference, ref_pieces, model, alive, blowup_times, spec, ctx, rng)
     max_lag = ctx["max_lag_samples"]
     acf_ref = stats.autocorrelation(list(reference.runs), max_lag)
     freq, psd_ref = stats.power_spectrum(list(reference.runs), dt, nperseg=ctx["nperseg"])
-    psd_pieces = stats.welch_psd(np.ascontiguousarray(ref_pieces.transpose(0, 2, 1)), dt,
-                                 ctx["nperseg"])[1].transpose(0, 2, 1)
+    if hasattr(ref_stats, "psd"):
+        psd_pieces = ref_stats.psd
+    else:
+        psd_pieces = stats.welch_psd(np.ascontiguousarray(ref_pieces.transpose(0, 2, 1)), dt,
+                                     ctx["nperseg"])[1].transpose(0, 2, 1)
+    acf_pieces = ref_stats.acf if hasattr(ref_stats, "acf") else _acf_pieces(ref_pieces, max_lag)
     if live:
         acf_mod = stats.autocorrelation(live, max_lag)
         psd_mod = stats.power_spectrum(live, dt, nperseg=ctx["nperseg"])[1]
@@ -1072,10 +1078,9 @@ def _evidence(reference, ref_pieces, model, alive, blowup_times, spec, ctx, rng)
         nr = regimes.n_regimes
         names = np.array(list(regimes.names) + [NONE_NAME])
         ref_labels = [regimes.classify(r, variables) for r in reference.runs]
-        piece_labels = [regimes.classify(p, variables) for p in ref_pieces]
         mod_labels = [regimes.classify(x, variables) for x in live]
         occ_ref = occupancy(ref_labels, nr)
-        occ_pieces = np.stack([occupancy(l, nr) for l in piece_labels])
+        occ_pieces = ref_stats.occ  # regimes in ctx: _PieceStats always computes occupancy
         res_ref = mean_residence_times(ref_labels, dt, nr)
         trans_ref = transition_matrix(ref_labels, nr)
         if live:
@@ -1102,7 +1107,7 @@ def _evidence(reference, ref_pieces, model, alive, blowup_times, spec, ctx, rng)
         variables=np.array(variables), hist_edges=edges, hist_reference=hist(stacked),
         hist_reference_pieces=np.stack([hist(p) for p in ref_pieces]), hist_model=hist(pooled),
         acf_lags=np.arange(max_lag + 1) * dt, acf_reference=acf_ref,
-        acf_reference_pieces=_acf_pieces(ref_pieces, max_lag), acf_model=acf_mod,
+        acf_reference_pieces=acf_pieces, acf_model=acf_mod,
         psd_freq=freq, psd_reference=psd_ref, psd_reference_pieces=psd_pieces, psd_model=psd_mod,
         regime_names=names, occupancy_reference=occ_ref, occupancy_reference_pieces=occ_pieces,
         occupancy_model=occ_mod, residence_reference=res_ref, residence_model=res_mod,
