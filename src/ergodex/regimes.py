@@ -214,7 +214,10 @@ class Cluster(Regime):
         return np.sqrt(np.sum(((np.asarray(states, float)[:, idx] - c) / s) ** 2, axis=1))
 
     def contains(self, states, variables):
-        d = self.scaled_distance(states, variables)
+        return self.within_radius(self.scaled_distance(states, variables))
+
+    def within_radius(self, d: np.ndarray) -> np.ndarray:
+        """Which scaled distances ``d`` lie inside ``radius`` (all of them without a radius)."""
         return d <= self.radius if self.radius is not None else np.ones(d.shape, bool)
 
     def to_dict(self):
@@ -417,15 +420,18 @@ class RegimeSet:
         finite = np.all(np.isfinite(states), axis=1)
         clusters = [(i, r) for i, r in enumerate(self.regimes) if isinstance(r, Cluster)]
         nearest = None
+        distance = {}  # regime index -> scaled distance, computed once per cluster
         if clusters:
             d = np.stack([r.scaled_distance(states, variables) for _, r in clusters], axis=1)
             nearest = np.array([i for i, _ in clusters])[np.argmin(np.where(np.isfinite(d), d, np.inf),
                                                                     axis=1)]
+            distance = {i: d[:, k] for k, (i, _) in enumerate(clusters)}
         unset = finite.copy()
         for i, r in enumerate(self.regimes):
-            hit = r.contains(states, variables)
             if isinstance(r, Cluster):
-                hit &= nearest == i
+                hit = r.within_radius(distance[i]) & (nearest == i)
+            else:
+                hit = r.contains(states, variables)
             hit &= unset
             labels[hit] = i
             unset &= ~hit
