@@ -138,10 +138,6 @@ def file_sha256(path: Path, chunk: int = 1 << 20) -> str:
     return digest.hexdigest()
 
 
-def _now() -> str:
-    return utc_now()
-
-
 def _one_line(exc: BaseException) -> str:
     text = " ".join(str(exc).split())
     if isinstance(exc, ErgodexError):
@@ -210,7 +206,7 @@ class Ledger:
         conn.execute("BEGIN IMMEDIATE")
         try:
             row = self.get(file_name, size, sha256)
-            now = _now()
+            now = utc_now()
             if row is None:
                 conn.execute(
                     "INSERT INTO inbox_files (file_name, size, sha256, model_name, state, attempts,"
@@ -245,7 +241,7 @@ class Ledger:
         self._conn.execute(
             "UPDATE inbox_files SET state=?, outcome=?, exit_code=?, error=?, moved_to=?, updated=?"
             " WHERE file_name=? AND size=? AND sha256=?",
-            (state, outcome, exit_code, error, moved_to, _now(), file_name, size, sha256),
+            (state, outcome, exit_code, error, moved_to, utc_now(), file_name, size, sha256),
         )
 
     def rows(self) -> list[dict[str, Any]]:

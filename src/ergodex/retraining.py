@@ -62,7 +62,6 @@ import math
 import os
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
-from pathlib import Path
 from typing import Any
 
 from ergodex import CAUTION
@@ -248,7 +247,7 @@ class Decision:
         """The decision record as indented JSON; with ``path``, also written there atomically."""
         text = json.dumps(self.to_dict(), indent=2, allow_nan=False) + "\n"
         if path is not None:
-            _write_text_atomic(Path(path), text)
+            atomic_write_text(path, text)
         return text
 
     def summary(self) -> str:
@@ -497,7 +496,7 @@ def retrain(
     from ergodex.pipeline import fit_check_register
     from ergodex.validation import check
 
-    started = _now()
+    started = utc_now()
     step = progress or (lambda _name: None)
     if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
         raise SettingsError(f"seed must be a non-negative integer, got {seed!r}")
@@ -508,6 +507,7 @@ def retrain(
     log.info("read %s: %d runs; fitting on %d, reference %d", series.source or "data",
              series.n_runs, fit_part.n_runs, reference.n_runs)
     fingerprint = series.fingerprint()
+    fit_fingerprint, reference_fingerprint = fit_part.fingerprint(), reference.fingerprint()
 
     champion_info = find_champion(registry, name)
     champion_ref = None if champion_info is None else champion_info.ref
@@ -533,7 +533,7 @@ def retrain(
     flow = fit_check_register(fit_part, reference, method=method, settings=settings, spec=spec)
     step("register")
     info = _register_challenger(
-        registry, name, flow, series, fit_part, reference,
+        registry, name, flow, series.source or "", fit_fingerprint, reference_fingerprint,
         fit_settings={"method": method, "settings": settings},
         parent=None if champion_info is None else champion_info.ref,
         seed=seed, report=report,
@@ -563,8 +563,8 @@ def retrain(
         holdout=holdout,
         data={
             "fingerprint": fingerprint,
-            "fit_fingerprint": fit_part.fingerprint(),
-            "reference_fingerprint": reference.fingerprint(),
+            "fit_fingerprint": fit_fingerprint,
+            "reference_fingerprint": reference_fingerprint,
             "source": series.source,
             "names": list(series.names),
             "dt": series.dt,
@@ -574,19 +574,18 @@ def retrain(
         },
         spec=spec.to_dict(),
         started=started,
-        finished=_now(),
+        finished=utc_now(),
     )
     log.info("decision for %s: %s; standing %s", name, outcome, standing or "(none)")
     return decision
 
 
-def _register_challenger(registry: Any, name: str, flow: Any, series: Series, fit_part: Series,
-                         reference: Series, *, fit_settings: dict[str, Any], parent: str | None,
-                         seed: int, report: bool) -> Any:
+def _register_challenger(registry: Any, name: str, flow: Any, source: str, fit_fingerprint: str,
+                         reference_fingerprint: str, *, fit_settings: dict[str, Any],
+                         parent: str | None, seed: int, report: bool) -> Any:
     """Register the challenger as a candidate with its evidence, lineage and data fingerprints."""
     from ergodex.pipeline import register_checked
 
-    source = series.source or ""
     return register_checked(
         registry,
         name,
@@ -596,8 +595,8 @@ def _register_challenger(registry: Any, name: str, flow: Any, series: Series, fi
         note=f"retrain challenger on {source or 'new data'} (seed {seed})",
         parent=parent,
         datasets={
-            "fit": {"fingerprint": fit_part.fingerprint(), "source": source},
-            "check": {"fingerprint": reference.fingerprint(), "source": source},
+            "fit": {"fingerprint": fit_fingerprint, "source": source},
+            "check": {"fingerprint": reference_fingerprint, "source": source},
         },
         title=f"{name}: retrain challenger ({source or 'new data'})",
         report=report,
@@ -743,12 +742,3 @@ def _jsonable(value: Any) -> Any:
     if isinstance(value, float) and not math.isfinite(value):
         return None
     return value
-
-
-def _now() -> str:
-    return utc_now()
-
-
-def _write_text_atomic(target: Path, text: str) -> None:
-    """Write through a temporary file in the target folder, then rename (never half a file)."""
-    atomic_write_text(target, text)
