@@ -75,6 +75,7 @@ from ergodex.service.jobs import (  # noqa: E402
     hold_home_lock,
 )
 from ergodex.service.settings import ServiceSettings  # noqa: E402
+from ergodex.service.tasks import version_ref  # noqa: E402 - light: the numerics load lazily
 
 log = logging.getLogger(__name__)
 
@@ -212,10 +213,6 @@ def _event_out(event) -> schemas.EventOut:
     data = event.to_dict()
     fields = schemas.EventOut.model_fields
     return schemas.EventOut(**{k: v for k, v in data.items() if k in fields})
-
-
-def _ref(name: str, version: str | int) -> str:
-    return name if str(version) == "accepted" else f"{name}@{int(version)}"
 
 
 def _registry_get(registry, ref: str):
@@ -468,7 +465,7 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
     @writes.post("/jobs/validate", status_code=202, response_model=schemas.JobInfo, tags=["jobs"])
     def submit_validate(body: schemas.ValidateJobRequest) -> schemas.JobInfo:
         """Queue a check of a registered version against a dataset (scorecard in the result)."""
-        _registry_get(registry, _ref(body.name, body.version))
+        _registry_get(registry, version_ref(body.name, body.version))
         need_dataset(body.dataset)
         check_options(body.check)
         return submit("validate", body)
@@ -541,10 +538,10 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
     )
     def get_version(name: ModelName, version: VersionRef) -> schemas.VersionOut:
         """One version's status, artifact hashes and lineage."""
-        return _version_out(_registry_get(registry, _ref(name, version)))
+        return _version_out(_registry_get(registry, version_ref(name, version)))
 
     def download(name: str, version: str, filename: str) -> Response:
-        info = _registry_get(registry, _ref(name, version))
+        info = _registry_get(registry, version_ref(name, version))
         if filename not in info.artifacts:
             raise ApiError(
                 404, "not-found", f"{info.ref} has no {filename} (it holds "

@@ -370,6 +370,7 @@ def worker_main(jobs_path: str, home: str, parent_pid: int, control, poll_interv
     except (AttributeError, OSError):  # pragma: no cover - not POSIX
         pass
     from ergodex.service import tasks  # heavy imports happen lazily inside the tasks
+    from ergodex.service.errors import describe_error
 
     store = JobStore(jobs_path)
     pid = os.getpid()
@@ -387,7 +388,7 @@ def worker_main(jobs_path: str, home: str, parent_pid: int, control, poll_interv
         try:
             result = tasks.run(job.kind, job.params, home=Path(home), job_id=job.id)
         except Exception as exc:  # noqa: BLE001 - every failure must end up on the job row
-            code, message = tasks.describe_error(exc)
+            code, message = describe_error(exc)
             if code == "internal-error":
                 log.exception("job %s failed unexpectedly", job.id)
             store.fail(job.id, job.claim or "", code, message)

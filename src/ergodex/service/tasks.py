@@ -14,7 +14,6 @@ from pathlib import Path
 from typing import Any
 
 from ergodex.exceptions import DataError, RegistryError
-from ergodex.service.errors import describe_error  # noqa: F401 - re-exported for the workers
 from ergodex.service.settings import ServiceSettings
 
 
@@ -147,11 +146,7 @@ def run_retrain(params: dict[str, Any], *, home: Path, job_id: str) -> dict[str,
         kwargs["spec"] = check_spec(params["check"])
     if params.get("holdout"):
         kwargs["holdout"] = int(params["holdout"])
-    decision = retrain(Registry(home), params["name"], data, **kwargs)
-    result = dict(decision.to_dict())
-    result.setdefault("outcome", getattr(decision, "outcome", None))
-    result.setdefault("exit_code", getattr(decision, "exit_code", None))
-    return result
+    return retrain(Registry(home), params["name"], data, **kwargs).to_dict()
 
 
 RUNNERS: dict[str, Callable[..., dict[str, Any]]] = {
