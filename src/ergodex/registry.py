@@ -745,7 +745,7 @@ class Registry:
         files["model.json"] = model_bytes
         meta["model_fingerprint"] = self._model_fingerprint(model_bytes, what)
 
-        card = None
+        card: dict[str, Any] = {}
         if scorecard is not None:
             if hasattr(scorecard, "to_json"):
                 card_bytes = scorecard.to_json().encode("utf-8")
@@ -765,9 +765,9 @@ class Registry:
             if verdict not in ("pass", "fail"):
                 raise ModelFileError(f"{what}: 'verdict' must be 'pass' or 'fail', found {verdict!r}")
             files["scorecard.json"] = card_bytes
-        meta["verdict"] = card.get("verdict") if card else None
-        meta["data_fingerprint"] = (card.get("data_fingerprint") or None) if card else None
-        meta["scorecard_model_fingerprint"] = (card.get("model_fingerprint") or None) if card else None
+        meta["verdict"] = card.get("verdict")
+        meta["data_fingerprint"] = card.get("data_fingerprint") or None
+        meta["scorecard_model_fingerprint"] = card.get("model_fingerprint") or None
 
         if report_html is not None:
             if isinstance(report_html, str) and "<" in report_html:
