@@ -131,6 +131,19 @@ def _note_missing_model(ax, values: np.ndarray) -> None:
                 bbox={"facecolor": "white", "edgecolor": SURROGATE_COLOUR, "pad": 3.0})
 
 
+def _curve_panel(ax, x: np.ndarray, band: tuple[np.ndarray, np.ndarray] | None,
+                 reference: np.ndarray, model: np.ndarray, *, widths: tuple[float, float]) -> None:
+    """Reference band, reference curve and dashed surrogate curve on one panel (line and band
+    figures draw these alike); a surrogate curve with no finite value is noted on the panel."""
+    if band is not None:
+        ax.fill_between(x, band[0], band[1], color=REFERENCE_BAND, alpha=0.7, linewidth=0,
+                        label=BAND_LABEL)
+    ax.plot(x, reference, color=REFERENCE_COLOUR, linewidth=widths[0], label=REFERENCE_LABEL)
+    ax.plot(x, model, color=SURROGATE_COLOUR, linewidth=widths[1], linestyle=(0, (4, 2)),
+            label=SURROGATE_LABEL)
+    _note_missing_model(ax, np.asarray(model, dtype=float))
+
+
 def _band(pieces: np.ndarray | None, axis: int = 0) -> tuple[np.ndarray, np.ndarray] | None:
     """Lowest and highest value over reference pieces (the honest spread of the truth itself)."""
     if pieces is None or np.size(pieces) == 0 or np.shape(pieces)[axis] < 2:
@@ -229,14 +242,9 @@ def autocorrelation_figure(variables: Sequence[str], lags: np.ndarray, reference
     figure, axes = _grid_figure(len(variables))
     band = _band(reference_pieces)
     for j, (ax, name) in enumerate(zip(axes, variables)):
-        if band is not None:
-            ax.fill_between(lags, band[0][j], band[1][j], color=REFERENCE_BAND, alpha=0.7,
-                            linewidth=0, label=BAND_LABEL)
-        ax.plot(lags, reference[j], color=REFERENCE_COLOUR, linewidth=1.6, label=REFERENCE_LABEL)
-        ax.plot(lags, model[j], color=SURROGATE_COLOUR, linewidth=1.8, linestyle=(0, (4, 2)),
-                label=SURROGATE_LABEL)
+        _curve_panel(ax, lags, None if band is None else (band[0][j], band[1][j]),
+                     reference[j], model[j], widths=(1.6, 1.8))
         ax.axhline(0.0, color=MUTED_COLOUR, linewidth=0.7)
-        _note_missing_model(ax, np.asarray(model[j], dtype=float))
         ax.set_xlim(lags[0], lags[-1])
         ax.set_ylim(-1.05, 1.05)
         _title(ax, str(name))
@@ -269,14 +277,9 @@ def spectrum_figure(variables: Sequence[str], frequencies: np.ndarray, reference
         return np.where(values > 0, values, np.nan)
 
     for j, (ax, name) in enumerate(zip(axes, variables)):
-        if band is not None:
-            ax.fill_between(f, positive(band[0][j]), positive(band[1][j]), color=REFERENCE_BAND,
-                            alpha=0.7, linewidth=0, label=BAND_LABEL)
-        ax.plot(f, positive(reference[j]), color=REFERENCE_COLOUR, linewidth=1.4,
-                label=REFERENCE_LABEL)
-        ax.plot(f, positive(model[j]), color=SURROGATE_COLOUR, linewidth=1.6, linestyle=(0, (4, 2)),
-                label=SURROGATE_LABEL)
-        _note_missing_model(ax, positive(model[j]))
+        band_j = None if band is None else (positive(band[0][j]), positive(band[1][j]))
+        finite = positive(reference[j])
+        _curve_panel(ax, f, band_j, finite, positive(model[j]), widths=(1.4, 1.6))
         ax.set_xscale("log")
         ax.set_yscale("log")
         # Ticks on decades only: minor ticks add little on axes spanning many decades and cost
@@ -284,14 +287,13 @@ def spectrum_figure(variables: Sequence[str], frequencies: np.ndarray, reference
         ax.xaxis.set_minor_locator(NullLocator())
         ax.yaxis.set_minor_locator(NullLocator())
         ax.yaxis.set_major_locator(LogLocator(numticks=6))
-        finite = positive(reference[j])
         if np.any(np.isfinite(finite)):
             # Keep the reference's dynamic range in view; a surrogate that collapses to a fixed
             # point has a spectrum many decades lower, which should show as a line leaving the axes.
             low = np.nanmin(finite)
             high = np.nanmax(finite)
-            if band is not None:
-                high = max(high, np.nanmax(positive(band[1][j])))
+            if band_j is not None:
+                high = max(high, np.nanmax(band_j[1]))
             # ...but not more than nine decades below the peak, where only round-off lives.
             ax.set_ylim(max(low / 10, high * 1e-9), high * 3)
         ax.set_xlim(f[0], f[-1])

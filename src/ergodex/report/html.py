@@ -291,6 +291,14 @@ def _variable_names(evidence: Any, surrogate: Any) -> list[str]:
     return [str(n) for n in np.asarray(names).tolist()]
 
 
+def _curves(evidence: Any, prefix: str, n_points: int, n_vars: int) -> tuple:
+    """Reference, surrogate and reference-piece curves ``<prefix>_*`` in figure order."""
+    return tuple(
+        _by_variable(_array(evidence, f"{prefix}_{kind}"), n_points, n_vars)
+        for kind in ("reference", "model", "reference_pieces")
+    )
+
+
 def _distribution_sections(evidence: Any, names: list[str]) -> list[tuple[str, str, str]]:
     sections = []
     wide = len(names) >= 3  # three panels to a row fill the column; fewer keep their own size
@@ -313,10 +321,7 @@ def _distribution_sections(evidence: Any, names: list[str]) -> list[tuple[str, s
     n_vars = len(names)
     lags = _array(evidence, "acf_lags")
     if lags is not None:
-        n_lags = lags.size
-        acf_ref = _by_variable(_array(evidence, "acf_reference"), n_lags, n_vars)
-        acf_mod = _by_variable(_array(evidence, "acf_model"), n_lags, n_vars)
-        acf_pieces = _by_variable(_array(evidence, "acf_reference_pieces"), n_lags, n_vars)
+        acf_ref, acf_mod, acf_pieces = _curves(evidence, "acf", lags.size, n_vars)
         if acf_ref is not None and acf_mod is not None:
             svg = figures.autocorrelation_figure(names, lags, acf_ref, acf_mod, acf_pieces)
             body = (
@@ -328,10 +333,7 @@ def _distribution_sections(evidence: Any, names: list[str]) -> list[tuple[str, s
             sections.append(_section("autocorrelation", "Autocorrelation", body))
     freq = _array(evidence, "psd_freq")
     if freq is not None and np.any(freq > 0):
-        n_freq = freq.size
-        psd_ref = _by_variable(_array(evidence, "psd_reference"), n_freq, n_vars)
-        psd_mod = _by_variable(_array(evidence, "psd_model"), n_freq, n_vars)
-        psd_pieces = _by_variable(_array(evidence, "psd_reference_pieces"), n_freq, n_vars)
+        psd_ref, psd_mod, psd_pieces = _curves(evidence, "psd", freq.size, n_vars)
         if psd_ref is not None and psd_mod is not None:
             svg = figures.spectrum_figure(names, freq, psd_ref, psd_mod, psd_pieces)
             body = (
