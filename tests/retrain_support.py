@@ -8,6 +8,7 @@ about one time unit), and the check integrates several members of the same lengt
 
 from __future__ import annotations
 
+import gc
 import shutil
 from pathlib import Path
 
@@ -37,7 +38,13 @@ def write_csv(path: Path, series: Series) -> Path:
 
 
 def copy_home(source: Path, target: Path) -> Path:
-    """An independent copy of a registry home (the SQLite file is closed between calls)."""
+    """An independent copy of a registry home (the SQLite file is closed between calls).
+
+    A Registry a test did not close is closed by the garbage collector whenever it runs; if that
+    happened in the middle of the copy, SQLite would remove the -wal/-shm files the copy has
+    listed. Collecting first closes such connections before the folder is listed.
+    """
+    gc.collect()
     shutil.copytree(source, target)
     return target
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from ergodex import lyapunov, scenarios
+from ergodex import integrate, lyapunov, scenarios
 from ergodex.exceptions import SettingsError
 
 # Published exponents of Lorenz-63 at σ=10, ρ=28, β=8/3: 0.9056, 0, −14.5723
@@ -43,6 +43,30 @@ def test_two_trajectory_agrees_with_published_value():
     # Sprott (2003) 0.9056; 30 trajectories × 30 time units: measured sd per trajectory ≈ 0.04,
     # standard error ≈ 0.008, so 0.03 is about three standard errors plus the finite-time bias
     assert res.exponents[0] == pytest.approx(SPROTT_LARGEST, abs=0.03)
+
+
+def test_default_step_is_integrate_choice_and_keeps_published_value():
+    # The default step comes from integrate.choose_substep (one rule for the RK4 step in ergodex),
+    # at a tenth of the RK4 stability limit.
+    rng = np.random.default_rng(24)
+    sur = scenarios.lorenz63_surrogate()
+    starts = _starts(rng, 30)
+    res = lyapunov.lyapunov_spectrum(sur, starts, time=30.0, transient=20.0)
+    two = lyapunov.largest_lyapunov(sur, starts, method="two-trajectory", time=30.0,
+                                    transient=20.0)
+    # RK4's stability boundary on the negative real axis is h|λ| ≈ 2.785 (Hairer & Wanner,
+    # Solving ODEs II, sec. IV.2); a tenth of it at the fastest rate of the starting states
+    rho = np.max(np.abs(np.linalg.eigvals(sur.jacobian(starts))))
+    assert res.step == two.step == integrate.choose_substep(sur, starts, 30.0, safety=0.1)
+    assert res.step <= 0.2785 / rho
+    # the averaging time is a whole number of steps
+    assert res.time == pytest.approx(30.0, rel=1e-12)
+    # Sprott (2003) 0.9056; 30 trajectories × 30 time units: standard error measured ≈ 0.009,
+    # so 0.03 is about three standard errors plus the finite-time bias (≈ 0.7/T)
+    assert res.exponents[0] == pytest.approx(SPROTT_LARGEST, abs=0.03)
+    assert two.exponents[0] == pytest.approx(SPROTT_LARGEST, abs=0.03)
+    # sum = −(σ + 1 + β) (Lorenz 1963), only RK4 truncation separates them at this step
+    assert res.exponents.sum() == pytest.approx(-(10.0 + 1.0 + 8.0 / 3.0), abs=1e-2)
 
 
 def test_fixed_point_dynamics_have_negative_exponents():

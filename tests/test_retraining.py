@@ -13,6 +13,7 @@ import math
 
 import numpy as np
 import pytest
+from retrain_support import LOOP, WELL, copy_home, loop_data, well_data
 
 from ergodex.exceptions import DataError, SettingsError
 from ergodex.registry import Registry
@@ -28,7 +29,7 @@ from ergodex.retraining import (
 from ergodex.series import Series
 from ergodex.validation import CheckSpec, ScoreRow, check
 
-from retrain_support import LOOP, WELL, copy_home, loop_data, well_data
+
 
 # 16 members (the check's default) of one reference piece each; the reference is the 3 held-out
 # runs of 40 time units. Measured while writing these tests: the sparse fit of rho = 28 data
@@ -51,7 +52,13 @@ def _coefficient(surrogate, equation: str, term_powers: tuple[int, ...]) -> floa
 def loop_home(tmp_path_factory):
     """A registry whose convection-loop champion was fitted on rho = 28 data by a first retrain."""
     home = tmp_path_factory.mktemp("loop") / "home"
-    decision = retrain(Registry(home), LOOP, loop_data(2), spec=SPEC, seed=0, report=False)
+    registry = Registry(home)
+    try:
+        decision = retrain(registry, LOOP, loop_data(2), spec=SPEC, seed=0, report=False)
+    finally:
+        # closed before kept_pair copies the folder: a connection closed by the garbage collector
+        # in the middle of the copy removes the SQLite -wal/-shm files the copy has listed
+        registry.close()
     return home, decision
 
 

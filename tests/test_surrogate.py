@@ -365,3 +365,25 @@ def test_wrong_observed_variables_in_a_model_file_name_the_field():
     del d["settings"]["observed_variables"]
     with pytest.raises(ModelFileError, match="settings.observed_variables"):
         Surrogate.from_json(json.dumps(d))
+
+
+def test_hidden_variables_without_a_transform_are_dropped_in_data_space():
+    # A memory level beside the data variables themselves (no transform): data space is the
+    # observed columns, in settings.observed_variables order, whatever the hidden ones hold.
+    rng = np.random.default_rng(45)
+    variables = ("x", "r_y", "y", "r_x")
+    terms = polynomial_terms(4, 1)
+    s = Surrogate(variables, terms, rng.normal(size=(4, len(terms))),
+                  settings={"observed_variables": ["y", "x"]})
+    assert s.observed_variables == ("y", "x")
+    full = rng.normal(size=(3, 7, 4))
+    np.testing.assert_array_equal(s.to_data_space(full), full[..., [2, 0]])
+    observed_only = full[..., [2, 0]]
+    np.testing.assert_array_equal(s.to_data_space(observed_only), observed_only)
+    # without hidden variables the map stays the identity
+    plain = Surrogate(variables, terms, s.coefficients)
+    np.testing.assert_array_equal(plain.to_data_space(full), full)
+    # a name that is not a model variable cannot be mapped
+    odd = Surrogate(variables, terms, s.coefficients, settings={"observed_variables": ["x", "z"]})
+    with pytest.raises(SettingsError, match="settings.observed_variables: 'z' is not a model variable"):
+        odd.to_data_space(full)

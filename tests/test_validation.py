@@ -186,3 +186,68 @@ def test_given_initial_states_are_used_and_recorded():
     assert [r.value for r in a.rows] == [r.value for r in b.rows]
     with pytest.raises(DataError, match="initial_states"):
         validation.validate(scenarios.ou_surrogate(), data, spec, initial_states=starts[:2])
+
+
+def _rows_by_variable(scorecard):
+    return {(r.statistic, r.variable): (r.value, r.noise_floor) for r in scorecard.rows}
+
+
+def test_column_order_of_the_data_and_of_observed_variables_does_not_matter():
+    # The same states in another column order are the same data: with the same seed the members
+    # start from the same states, so every row must come out identical (up to round-off).
+    data = _ou(48)
+    sur = scenarios.ou_surrogate()
+    spec = CheckSpec(seed=8, members=4, min_pieces=4)
+    base = _rows_by_variable(validation.validate(sur, data, spec))
+    swapped = type(data).from_arrays([run[:, ::-1] for run in data.runs], data.names[::-1],
+                                     data.dt, source="swapped")
+    for sc in (validation.validate(sur, swapped, spec),
+               # observed_variables naming every variable in another order is no hidden level
+               validation.validate(Surrogate(sur.variables, sur.terms, sur.coefficients,
+                                             noise=sur.noise,
+                                             settings={"observed_variables": ["x2", "x1"]}),
+                                   data, spec)):
+        rows = _rows_by_variable(sc)
+        assert rows.keys() == base.keys()
+        for key, (value, floor) in base.items():
+            assert rows[key][0] == pytest.approx(value, rel=1e-9, abs=1e-12)
+            assert rows[key][1] == pytest.approx(floor, rel=1e-9, abs=1e-12)
+
+
+def test_observed_variables_that_are_not_model_variables_are_refused():
+    data = _ou(49)
+    sur = scenarios.ou_surrogate()
+    odd = Surrogate(sur.variables, sur.terms, sur.coefficients, noise=sur.noise,
+                    settings={"observed_variables": ["x1", "x3"]})
+    with pytest.raises(DataError, match="observed variables \\['x3'\\] that it does not have"):
+        validation.validate(odd, data, CheckSpec(seed=9, members=4, min_pieces=4))
+
+
+def test_evidence_reads_from_a_binary_file_object_without_a_path(tmp_path):
+    import io
+    import zipfile
+
+    data = _ou(50)
+    result = validation.check(scenarios.ou_surrogate(), data,
+                              CheckSpec(seed=10, members=4, min_pieces=4))
+    path = tmp_path / "evidence.npz"
+    result.evidence.to_npz(path)
+    raw = path.read_bytes()
+    from_path = Evidence.from_npz(path)
+    handle = io.BytesIO(raw)
+    from_bytes = Evidence.from_npz(handle, name="model@1: evidence.npz")
+    assert not handle.closed  # the caller's file object is left open
+    for name in validation.EVIDENCE_FIELDS:
+        np.testing.assert_array_equal(getattr(from_bytes, name), getattr(from_path, name))
+    # the stored members are the arrays that were written, read back by numpy itself
+    with zipfile.ZipFile(io.BytesIO(raw)) as archive:
+        assert {f"{k}.npy" for k in validation.EVIDENCE_FIELDS} <= set(archive.namelist())
+
+    # bad content: a clear error naming the file, never a crash and never an unpickle
+    bare = io.BytesIO()
+    np.save(bare, np.arange(3.0))
+    for content in (b"", b"not an archive at all", raw[: len(raw) // 2], bare.getvalue()):
+        with pytest.raises(ModelFileError, match="^model@1: evidence.npz: "):
+            Evidence.from_npz(io.BytesIO(content), name="model@1: evidence.npz")
+    with pytest.raises(ModelFileError, match="missing.npz: cannot read evidence"):
+        Evidence.from_npz(tmp_path / "missing.npz")

@@ -25,10 +25,16 @@ from dataclasses import dataclass
 import numpy as np
 
 from ergodex.exceptions import DataError, SettingsError
+from ergodex.integrate import choose_substep
 
 __all__ = ["LyapunovResult", "largest_lyapunov", "lyapunov_spectrum"]
 
 _METHODS = ("tangent", "two-trajectory")
+# The default RK4 step is integrate.choose_substep's with a tenth of the stability limit at the
+# fastest local rate (rather than the quarter used for ensembles): the truncation error then stays
+# well below the statistical error of finite-time exponents. The averaging time plays the output
+# interval, so it is a whole number of steps.
+_STEP_SAFETY = 0.1
 
 
 @dataclass
@@ -119,18 +125,6 @@ class _PolynomialField:
         return self._monomials(x) @ self.rhs_matrix
 
 
-def _default_step(surrogate, states: np.ndarray) -> float:
-    """An RK4 step safely inside the stability region for the states given.
-
-    RK4's real stability limit is h |λ| ≈ 2.79; a tenth of the limit of the fastest local rate
-    (largest Jacobian eigenvalue modulus) keeps the truncation error well below the statistical
-    error of finite-time exponents.
-    """
-    eig = np.abs(np.linalg.eigvals(surrogate.jacobian(states)))
-    fastest = float(np.max(eig[np.isfinite(eig)])) if np.any(np.isfinite(eig)) else 1.0
-    return 0.28 / max(fastest, 1e-6)
-
-
 def _check(initial_states, time, transient, renormalise_every, n):
     x = np.array(initial_states, dtype=float, ndmin=2)
     if x.ndim != 2 or x.shape[1] != n:
@@ -164,7 +158,8 @@ def lyapunov_spectrum(surrogate, initial_states, *, n_exponents: int | None = No
         Time integrated first and discarded, so that states settle on the attractor and the
         tangent vectors align with the growing directions.
     step : float, optional
-        RK4 step; default a tenth of the RK4 stability limit at the initial states.
+        RK4 step; default :func:`ergodex.integrate.choose_substep` at the initial states with
+        a tenth of the RK4 stability limit (``safety=0.1``) and ``time`` as the output interval.
     renormalise_every : int, default 5
         Steps between QR decompositions (tangent vectors must not grow beyond double precision
         or collapse onto one direction).
@@ -189,11 +184,12 @@ def lyapunov_spectrum(surrogate, initial_states, *, n_exponents: int | None = No
         raise SettingsError(f"n_exponents must be in 1..{n}; got {n_exponents}")
     x = _check(initial_states, time, transient, renormalise_every, n)
     m = x.shape[0]
-    h = _default_step(surrogate, x) if step is None else float(step)
+    h = (choose_substep(surrogate, x, time, safety=_STEP_SAFETY) if step is None
+         else float(step))
     rng = np.random.default_rng(seed)
     q, _ = np.linalg.qr(rng.standard_normal((m, n, k)))
-    n_transient = int(round(transient / h))
-    n_steps = int(round(time / h))
+    n_transient = round(transient / h)
+    n_steps = round(time / h)
     log_sum = np.zeros((m, k))
     alive = np.ones(m, bool)
     if _PolynomialField.usable(surrogate):
@@ -291,7 +287,7 @@ def largest_lyapunov(surrogate, initial_states, *, method: str = "tangent", time
     f = _PolynomialField(surrogate).rhs if _PolynomialField.usable(surrogate) else surrogate.rhs
     if step is None:
         try:
-            h = _default_step(surrogate, x)
+            h = choose_substep(surrogate, x, time, safety=_STEP_SAFETY)
         except (NotImplementedError, AttributeError):
             h = 0.01
     else:
@@ -303,8 +299,8 @@ def largest_lyapunov(surrogate, initial_states, *, method: str = "tangent", time
     y = x + d0 * u / np.linalg.norm(u, axis=1, keepdims=True)
     both = np.concatenate([x, y])
 
-    n_transient = int(round(transient / h))
-    n_steps = int(round(time / h))
+    n_transient = round(transient / h)
+    n_steps = round(time / h)
     log_sum = np.zeros(m)
     alive = np.ones(m, bool)
     total = n_transient + n_steps

@@ -68,6 +68,7 @@ from ergodex import CAUTION
 from ergodex.exceptions import DataError, SettingsError
 from ergodex.files import atomic_write_text
 from ergodex.host import utc_now
+from ergodex.jsonable import jsonable
 from ergodex.series import Series, split_blocks, split_runs
 
 log = logging.getLogger(__name__)
@@ -223,9 +224,9 @@ class Decision:
             "reasons": list(self.reasons),
             "score_definition": SCORE_DEFINITION,
             "seed": self.seed,
-            "holdout": _jsonable(self.holdout),
+            "holdout": jsonable(self.holdout),
             "data": dict(self.data),
-            "spec": _jsonable(self.spec),
+            "spec": jsonable(self.spec),
             "caution": CAUTION,
         }
 
@@ -539,7 +540,7 @@ def retrain(
         seed=seed, report=report,
     )
     step("decide")
-    fit_record = {"method": method, "settings": _jsonable(settings)}
+    fit_record = {"method": method, "settings": jsonable(settings)}
     ch = _verdict("challenger", flow.check.scorecard, ref=info.ref, version=info.version,
                   fit=fit_record)
     log.info("challenger %s: %s (score %.3g)", ch.ref, ch.verdict, ch.score)
@@ -608,8 +609,8 @@ def _decide(cp: ModelVerdict | None, ch: ModelVerdict) -> tuple[str, list[str]]:
     ch_score = _fmt(ch.score)
     if cp is None:
         if ch.passed:
-            return "first-accepted", [f"no accepted version existed; challenger {ch.ref} passed its "
-                                      f"check (score {ch_score}) and was accepted"]
+            return "first-accepted", [(f"no accepted version existed; challenger {ch.ref} passed its "
+                                       f"check (score {ch_score}) and was accepted")]
         return "no-acceptable-model", [
             f"no accepted version existed and challenger {ch.ref} failed its check "
             f"(score {ch_score}): " + _brief(ch.reasons)
@@ -729,16 +730,3 @@ def _fmt(score: float) -> str:
 
 def _json_float(value: float) -> float | None:
     return value if math.isfinite(value) else None
-
-
-def _jsonable(value: Any) -> Any:
-    """A JSON-ready copy (tuples to lists, non-finite floats to None, numpy scalars to Python)."""
-    if isinstance(value, Mapping):
-        return {str(k): _jsonable(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_jsonable(v) for v in value]
-    if hasattr(value, "item") and callable(value.item) and getattr(value, "ndim", 1) == 0:
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value

@@ -591,7 +591,8 @@ class Surrogate:
     def observed_variables(self) -> tuple[str, ...]:
         """Model variables that have a data-space counterpart (all of them unless some are hidden).
 
-        Read from ``settings["observed_variables"]`` when present.
+        Read from ``settings["observed_variables"]`` when present (in that order), as written:
+        :meth:`to_data_space` and the validator refuse names that are not model variables.
         """
         observed = self._settings.get("observed_variables")
         return tuple(observed) if observed else self._variables
@@ -609,16 +610,25 @@ class Surrogate:
         return np.asarray(self._transform.forward(X), dtype=np.float64)
 
     def to_data_space(self, Z: Any) -> np.ndarray:
-        """Map model-space states back to data space (identity without a transform).
+        """Map model-space states to data space: the observed columns, through the transform if any.
 
-        ``Z`` may hold every model variable or, with hidden variables beside a transform, only the
-        observed ones; hidden columns are dropped before the inverse transform.
+        ``Z`` (last axis: variables) may hold every model variable, in model order, or only the
+        observed ones, in :attr:`observed_variables` order. A model with hidden variables (see
+        :attr:`observed_variables`) returns only its observed columns, since hidden ones have no
+        data-space counterpart; a model without a transform returns them as they are, one with a
+        transform maps them through its inverse. Without hidden variables and without a transform
+        this is the identity.
         """
-        if self._transform is None:
-            return np.asarray(Z, dtype=np.float64)
         Z = np.asarray(Z, dtype=np.float64)
-        if self._observed_index is not None and Z.ndim >= 1 and Z.shape[-1] == self.n_variables:
-            Z = Z[..., self._observed_index]
+        if self._transform is None:
+            index = _observed_columns(self._variables, self._settings)
+        else:
+            # fixed at construction: the transform's outputs are the observed variables
+            index = self._observed_index
+        if index is not None and Z.ndim >= 1 and Z.shape[-1] == self.n_variables:
+            Z = Z[..., index]
+        if self._transform is None:
+            return Z
         return np.asarray(self._transform.inverse(Z), dtype=np.float64)
 
     # ------------------------------------------------------------------ serialisation
@@ -812,6 +822,32 @@ class Surrogate:
         return "sha256:" + hashlib.sha256(canon.encode("utf-8")).hexdigest()
 
 
+def _observed_columns(variables: tuple[str, ...],
+                      settings: Mapping[str, Any] | None) -> np.ndarray | None:
+    """Model columns named by ``settings["observed_variables"]``, in its order.
+
+    ``None`` when the setting is absent or empty (every variable is observed). The names must be
+    unique model variables.
+    """
+    observed = (settings or {}).get("observed_variables")
+    if observed is None:
+        return None
+    field = "settings.observed_variables"
+    if isinstance(observed, str) or not isinstance(observed, Sequence) or not all(
+        isinstance(v, str) for v in observed
+    ):
+        raise SettingsError(f"{field}: must be a list of variable names, got {observed!r}")
+    if not observed:
+        return None
+    observed = tuple(observed)
+    unknown = [v for v in observed if v not in variables]
+    if unknown:
+        raise SettingsError(f"{field}: {unknown[0]!r} is not a model variable (variables: {list(variables)})")
+    if len(set(observed)) != len(observed):
+        raise SettingsError(f"{field}: names must be unique, got {list(observed)}")
+    return np.array([variables.index(v) for v in observed], dtype=np.intp)
+
+
 def _observed_index(transform: Any, variables: tuple[str, ...],
                     settings: Mapping[str, Any] | None) -> np.ndarray:
     """Model columns a transform with fewer outputs than model variables maps onto.
@@ -822,29 +858,20 @@ def _observed_index(transform: Any, variables: tuple[str, ...],
     """
     outputs = tuple(transform.output_names)
     n = len(variables)
-    observed = (settings or {}).get("observed_variables")
-    if observed is None:
+    if (settings or {}).get("observed_variables") is None:
         raise SettingsError(
             f"transform: maps data to {len(outputs)} model variables, but the model has {n} "
             "(a model with hidden variables must list its observed ones in "
             "settings.observed_variables)"
         )
-    field = "settings.observed_variables"
-    if isinstance(observed, str) or not isinstance(observed, Sequence) or not all(
-        isinstance(v, str) for v in observed
-    ):
-        raise SettingsError(f"{field}: must be a list of variable names, got {observed!r}")
-    observed = tuple(observed)
-    unknown = [v for v in observed if v not in variables]
-    if unknown:
-        raise SettingsError(f"{field}: {unknown[0]!r} is not a model variable (variables: {list(variables)})")
-    if len(set(observed)) != len(observed):
-        raise SettingsError(f"{field}: names must be unique, got {list(observed)}")
+    index = _observed_columns(variables, settings)
+    observed = () if index is None else tuple(variables[i] for i in index)
     if observed != outputs:
         raise SettingsError(
-            f"{field}: {list(observed)} must be the transform's outputs in its order, {list(outputs)}"
+            f"settings.observed_variables: {list(observed)} must be the transform's outputs in its "
+            f"order, {list(outputs)}"
         )
-    return np.array([variables.index(v) for v in observed], dtype=np.intp)
+    return index
 
 
 def _format_json(d: Mapping[str, Any]) -> str:

@@ -49,8 +49,11 @@ import itertools
 import json
 import math
 import os
+import zipfile
+import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import BinaryIO
 
 import numpy as np
 
@@ -58,6 +61,7 @@ from ergodex import CAUTION, stats
 from ergodex.exceptions import DataError, ModelFileError, SettingsError
 from ergodex.files import atomic_write_path, atomic_write_text
 from ergodex.host import utc_now
+from ergodex.jsonable import jsonable
 from ergodex.regimes import (
     NONE_NAME,
     RegimeSet,
@@ -347,8 +351,8 @@ class Scorecard:
         return {
             "format": SCORECARD_FORMAT, "verdict": self.verdict,
             "rows": [r.to_dict() for r in self.rows], "reasons": list(self.reasons),
-            "blowups": _json_clean(self.blowups), "member_agreement": _json_clean(self.member_agreement),
-            "spec": self.spec.to_dict(), "settings": _json_clean(self.settings),
+            "blowups": jsonable(self.blowups), "member_agreement": jsonable(self.member_agreement),
+            "spec": self.spec.to_dict(), "settings": jsonable(self.settings),
             "model_fingerprint": self.model_fingerprint, "data_fingerprint": self.data_fingerprint,
             "created": self.created, "ergodex_version": self.ergodex_version,
         }
@@ -435,22 +439,6 @@ def _fmt(x: float) -> str:
     return f"{x:.3g}" if abs(x) < 1e4 else f"{x:.3e}"
 
 
-def _json_clean(obj):
-    if isinstance(obj, dict):
-        return {str(k): _json_clean(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_json_clean(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return _json_clean(obj.tolist())
-    if isinstance(obj, (bool, np.bool_)):
-        return bool(obj)
-    if isinstance(obj, (int, np.integer)):
-        return int(obj)
-    if isinstance(obj, (float, np.floating)):
-        return _finite_or_none(obj)
-    return obj
-
-
 #: Evidence arrays, in order: name → (dtype kind, description). The report reads these names.
 EVIDENCE_FIELDS = {
     "variables": "names of the data-space variables (n_vars,)",
@@ -525,20 +513,43 @@ class Evidence:
         atomic_write_path(path, write, make_folder=False)
 
     @classmethod
-    def from_npz(cls, path: str | os.PathLike) -> Evidence:
-        path = Path(path)
+    def from_npz(cls, source: str | os.PathLike | BinaryIO, *, name: str | None = None) -> Evidence:
+        """Read evidence written by :meth:`to_npz`, never unpickling anything.
+
+        Parameters
+        ----------
+        source : path or binary file object
+            The NPZ file, or a readable, seekable binary file object holding its bytes (e.g.
+            ``io.BytesIO`` of bytes a registry has verified), which is left open.
+        name : str, optional
+            What error messages call the file (default: the path, or the file object's name).
+
+        Raises
+        ------
+        ModelFileError
+            When the content is not an evidence file of this format or cannot be read.
+        """
+        if isinstance(source, (str, os.PathLike)):
+            source = Path(source)
+            label = name or str(source)
+        else:
+            label = name or str(getattr(source, "name", "") or "evidence")
         try:
-            with np.load(path, allow_pickle=False) as z:
+            loaded = np.load(source, allow_pickle=False)
+            if not isinstance(loaded, np.lib.npyio.NpzFile):  # a bare .npy array
+                raise ModelFileError(f"{label}: not an evidence file of format {EVIDENCE_FORMAT!r}")
+            with loaded as z:
                 if "format" not in z.files or str(z["format"]) != EVIDENCE_FORMAT:
-                    raise ModelFileError(f"{path}: not an evidence file of format {EVIDENCE_FORMAT!r}")
+                    raise ModelFileError(f"{label}: not an evidence file of format {EVIDENCE_FORMAT!r}")
                 missing = [k for k in EVIDENCE_FIELDS if k not in z.files]
                 if missing:
-                    raise ModelFileError(f"{path}: evidence file lacks {missing}")
+                    raise ModelFileError(f"{label}: evidence file lacks {missing}")
                 return cls(**{k: z[k] for k in EVIDENCE_FIELDS})
-        except (OSError, ValueError) as exc:
-            if isinstance(exc, ModelFileError):
-                raise
-            raise ModelFileError(f"{path}: cannot read evidence ({exc})") from None
+        except ModelFileError:
+            raise
+        # empty, truncated or corrupt content fails inside numpy, zipfile or zlib
+        except (OSError, ValueError, EOFError, zipfile.BadZipFile, zlib.error) as exc:
+            raise ModelFileError(f"{label}: cannot read evidence ({exc})") from None
 
 
 @dataclass
@@ -685,22 +696,20 @@ def _row_labels(statistic: str, variables, regimes) -> list[str]:
 
 
 def _observed_variables(surrogate) -> list[str]:
-    """The variables the surrogate claims to reproduce; the rest are hidden (unobserved) states.
+    """:attr:`Surrogate.observed_variables`, refused when it names variables the model lacks.
 
-    A surrogate with hidden variables (e.g. the memory level of empirical model reduction, Kravtsov,
-    Kondrashov & Ghil 2005) names its observed ones in ``settings["observed_variables"]``.
+    The rest of the model's variables are hidden (unobserved) states, e.g. the memory level of
+    empirical model reduction (Kravtsov, Kondrashov & Ghil 2005).
     """
-    observed = (surrogate.settings or {}).get("observed_variables")
-    if not observed:
-        return list(surrogate.variables)
+    observed = list(surrogate.observed_variables)
     unknown = [v for v in observed if v not in surrogate.variables]
     if unknown:
         raise DataError(f"the model's settings list observed variables {unknown} that it does not have "
                         f"(variables: {list(surrogate.variables)})")
-    return list(observed)
+    return observed
 
 
-def _compared_space(surrogate, reference):
+def _compared_space(surrogate, reference, observed):
     """The reference in the space the check compares in, and whether that is the model space.
 
     A surrogate whose transform changes the variables (PCA modes, a delay embedding) claims the
@@ -717,7 +726,6 @@ def _compared_space(surrogate, reference):
     from ergodex.transforms import transform_series
 
     mapped = transform_series(transform, reference)
-    observed = _observed_variables(surrogate)
     if observed != list(mapped.names):
         mapped = Series.from_arrays([run[:, [mapped.names.index(v) for v in observed]]
                                      for run in mapped.runs], observed, mapped.dt,
@@ -725,15 +733,18 @@ def _compared_space(surrogate, reference):
     return mapped, True
 
 
-def _data_space_names(surrogate, reference) -> np.ndarray | None:
-    """Column order mapping model output (data space) onto the reference's variables."""
+def _data_space_names(surrogate, reference, observed) -> np.ndarray | None:
+    """Column order mapping model output (data space) onto the reference's variables.
+
+    Without a transform, the model's data space is its ``observed`` variables (in that order);
+    they must be the reference's variables, in any order.
+    """
     if surrogate.transform is None:
-        sv = _observed_variables(surrogate)
-        if sorted(sv) != sorted(reference.names):
+        if sorted(observed) != sorted(reference.names):
             raise DataError(
                 f"{reference.source or 'reference data'}: variables {list(reference.names)} do not "
-                f"match the model's {sv}; check the data file or the model")
-        return np.array([sv.index(n) for n in reference.names])
+                f"match the model's {observed}; check the data file or the model")
+        return np.array([observed.index(n) for n in reference.names])
     return None
 
 
@@ -777,13 +788,27 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
         raise SettingsError(f"spec must be a CheckSpec; got {type(spec).__name__}")
     spec.check_settings()
     data_reference = reference
-    reference, in_model_space = _compared_space(surrogate, reference)
+    observed = _observed_variables(surrogate)
+    reference, in_model_space = _compared_space(surrogate, reference, observed)
     variables = tuple(reference.names)
     n_vars = len(variables)
     dt = float(reference.dt)
-    order = None if in_model_space else _data_space_names(surrogate, reference)
-    to_model = (lambda x: np.asarray(x, dtype=float)) if in_model_space else surrogate.to_model_space
-    to_data = (lambda z: np.asarray(z, dtype=float)) if in_model_space else surrogate.to_data_space
+    order = None if in_model_space else _data_space_names(surrogate, reference, observed)
+    if in_model_space:
+        def to_model(x):
+            return np.asarray(x, dtype=float)
+
+        to_data = to_model
+    elif order is None:
+        to_model, to_data = surrogate.to_model_space, surrogate.to_data_space
+    else:
+        # reference columns -> the model's observed order (the inverse of ``order``)
+        to_observed = np.argsort(order)
+
+        def to_model(x):
+            return surrogate.to_model_space(np.asarray(x, dtype=float)[:, to_observed])
+
+        to_data = surrogate.to_data_space
 
     stacked = reference.stacked()
     regimes = spec.regimes
@@ -815,7 +840,7 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
     # by default every member covers one pooled group, so there are as many model groups as
     # members and the model side of each row is averaged over all of them
     member_time = L * dt * pool if spec.length is None else float(spec.length)
-    n_out = int(round(member_time / dt))
+    n_out = round(member_time / dt)
     if n_out < L:
         raise SettingsError(f"length {member_time:g} is shorter than one reference piece "
                             f"({L * dt:g} time units); members must cover at least one piece")
@@ -842,17 +867,19 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
     z_ref = to_model(stacked)
     bound = blowup_bound(z_ref, factor=10.0)
     keep = None
-    observed = _observed_variables(surrogate)
     if observed != list(surrogate.variables):
         # hidden variables start at 0 (their level is unknown; the spin-up forgets the choice)
-        # and carry no blow-up bound (they have no reference range); only observed ones are kept
-        keep = [list(surrogate.variables).index(v) for v in observed]
+        # and carry no blow-up bound (they have no reference range); only observed ones are
+        # kept, which Surrogate.to_data_space accepts as they are
+        columns = [list(surrogate.variables).index(v) for v in observed]
         z_all = np.zeros((z0.shape[0], surrogate.n_variables))
-        z_all[:, keep] = z0
+        z_all[:, columns] = z0
         z0 = z_all
         bound_all = np.tile([-np.inf, np.inf], (surrogate.n_variables, 1))
-        bound_all[keep] = bound
+        bound_all[columns] = bound
         bound = bound_all
+        if len(observed) < surrogate.n_variables:
+            keep = columns
     run = integrate_ensemble(surrogate, z0, dt_out=dt, n_out=n_out, spinup=spinup, bound=bound,
                              seed=int(seeds[1]), keep=keep)
 
@@ -1056,7 +1083,7 @@ def _evidence(reference, stacked, ref_pieces, ref_stats, model, alive, blowup_ti
     if edges is None:  # Freedman–Diaconis gives a different count per variable: use the largest
         counts = [stats.histogram_edges(stacked[:, j], "fd").size - 1 for j in range(n_vars)]
         edges = np.stack([stats.histogram_edges(stacked[:, j], max(counts)) for j in range(n_vars)])
-    hist = lambda x: np.stack([stats.histogram(x[..., j], edges[j]) for j in range(n_vars)])  # noqa: E731
+    hist = lambda x: np.stack([stats.histogram(x[..., j], edges[j]) for j in range(n_vars)])
     max_lag = ctx["max_lag_samples"]
     acf_ref = stats.autocorrelation(list(reference.runs), max_lag)
     freq, psd_ref = stats.power_spectrum(list(reference.runs), dt, nperseg=ctx["nperseg"])

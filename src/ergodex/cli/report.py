@@ -9,8 +9,8 @@ current folder), never into the version folder.
 from __future__ import annotations
 
 import argparse
+import io
 import json
-import tempfile
 from pathlib import Path
 from typing import Any
 
@@ -86,13 +86,9 @@ def load_check_result(registry: Any, ref: str):
     scorecard = Scorecard.from_json(card_text)
     evidence = None
     if "evidence.npz" in info.artifacts:
-        # Read the verified bytes (not the stored file, which could change after the check)
-        # through a private temporary copy: Evidence.from_npz takes a path.
+        # Read the verified bytes (not the stored file, which could change after the check).
         data = registry.artifact(info, "evidence.npz")
-        with tempfile.TemporaryDirectory(prefix="ergodex-report-") as tmp:
-            copy = Path(tmp) / "evidence.npz"
-            copy.write_bytes(data)
-            evidence = Evidence.from_npz(copy)
+        evidence = Evidence.from_npz(io.BytesIO(data), name=f"{info.ref}: evidence.npz")
     fit_settings = None
     if "fit-settings.json" in info.artifacts:
         try:

@@ -41,7 +41,7 @@ import numpy as np
 
 from ergodex.exceptions import DataError, ModelFileError, SettingsError
 
-__all__ = ["add_parser", "run", "load_model", "initial_states_from_file", "initial_states_from_model"]
+__all__ = ["add_parser", "initial_states_from_file", "initial_states_from_model", "load_model", "run"]
 
 _FORMATS = {".csv": "csv", ".npz": "npz", ".nc": "nc", ".nc4": "nc", ".netcdf": "nc"}
 #: Size of the perturbations added to the start state of the model's own run (model units).
@@ -241,10 +241,8 @@ def run(args: argparse.Namespace) -> int:
         if valid.stop == 0 or (fmt == "nc" and result.blown_up[m]):
             dropped.append(m)
             continue
-        states = result.states[m, valid]
-        if surrogate.transform is None:
-            states = states[:, observed]  # hidden columns are not data
-        runs.append(surrogate.to_data_space(states))
+        # data space holds the observed variables only: hidden columns are not data
+        runs.append(surrogate.to_data_space(result.states[m, valid]))
         labels.append(f"member-{m:03d}")
     names = _data_names(surrogate)
 

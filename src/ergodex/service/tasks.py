@@ -8,12 +8,12 @@ a worker pays for pysindy only when a job needs it.
 
 from __future__ import annotations
 
-import math
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
 from ergodex.exceptions import DataError, RegistryError
+from ergodex.jsonable import jsonable
 from ergodex.service.settings import ServiceSettings
 
 
@@ -44,19 +44,6 @@ def check_spec(options: dict[str, Any] | None):
     from ergodex.validation import CheckSpec
 
     return CheckSpec.from_dict({k: v for k, v in (options or {}).items() if v is not None})
-
-
-def json_safe(value: Any) -> Any:
-    """``value`` with non-finite floats replaced by ``None`` (strict JSON has no NaN)."""
-    if isinstance(value, float):
-        return value if math.isfinite(value) else None
-    if isinstance(value, dict):
-        return {str(k): json_safe(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [json_safe(v) for v in value]
-    if hasattr(value, "item") and callable(value.item):  # numpy scalars
-        return json_safe(value.item())
-    return value
 
 
 def version_ref(name: str, version: int | str) -> str:
@@ -158,4 +145,4 @@ RUNNERS: dict[str, Callable[..., dict[str, Any]]] = {
 
 def run(kind: str, params: dict[str, Any], *, home: Path, job_id: str) -> dict[str, Any]:
     """Run one job of the given kind and return its JSON-ready result."""
-    return json_safe(RUNNERS[kind](params, home=home, job_id=job_id))
+    return jsonable(RUNNERS[kind](params, home=home, job_id=job_id))
