@@ -17,8 +17,9 @@ Cases (M = 64 members, RK4 at h = 0.01, outputs every 10 steps):
 3. The first call in a fresh process (import, load of the compiled kernel from numba's disk
    cache, a short run), and the same with an empty cache (compilation).
 
-Every figure is member-steps per second; the compiled contenders run in turn, five times each,
-and the best time of each counts, so that they see the same machine load.
+Every figure is member-steps per second; the compiled contenders run in turn, nine times each,
+and the best time of each counts, so that they see the same machine load; the median of the
+per-round ratios is printed beside it.
 """
 
 from __future__ import annotations
@@ -52,15 +53,29 @@ def best_of(fn, repeats: int = 3) -> float:
     return best
 
 
-def interleaved_best(fns: dict, repeats: int = 5) -> dict:
-    """Best time of each function, the runs taken in turn so that all see the same machine load."""
+def interleaved_best(fns: dict, repeats: int = 9) -> tuple[dict, dict]:
+    """Best time of each function, and every round's times, the runs taken in turn.
+
+    Taking the contenders in turn lets all of them see the same machine load; the per-round
+    times let the ratios also be read round by round (their median resists load that drifts
+    during the run, which the best times alone do not show).
+    """
     best = {name: np.inf for name in fns}
+    rounds: dict[str, list[float]] = {name: [] for name in fns}
     for _ in range(repeats):
         for name, fn in fns.items():
             t = time.perf_counter()
             fn()
-            best[name] = min(best[name], time.perf_counter() - t)
-    return best
+            sec = time.perf_counter() - t
+            rounds[name].append(sec)
+            best[name] = min(best[name], sec)
+    return best, rounds
+
+
+def round_ratio(rounds: dict, fast: str, slow: str) -> tuple[float, float, float]:
+    """Median, smallest and largest of the per-round speed ratios ``fast`` / ``slow``."""
+    r = np.array(rounds[slow]) / np.array(rounds[fast])
+    return float(np.median(r)), float(r.min()), float(r.max())
 
 
 # ---------------------------------------------------------------- the fitted Lorenz-63 surrogate
@@ -290,14 +305,16 @@ def main() -> None:
     out = np.empty((M, n_out, 3))
     l63_members_outer(x0, 3, K, H, *coefs, out)
     l63_steps_outer(x0, 3, K, H, *coefs, out)
-    best = interleaved_best({
+    best, rounds = interleaved_best({
         "ergodex": run_ergodex,
         "hand numba (members outer)": lambda: l63_members_outer(x0, n_out, K, H, *coefs, out),
         "hand numba (steps outer)": lambda: l63_steps_outer(x0, n_out, K, H, *coefs, out),
     })
     for name, sec in best.items():
         rates[name] = M * steps / sec
-    ceiling = max(rates["hand numba (members outer)"], rates["hand numba (steps outer)"])
+    ceiling_name = max(("hand numba (members outer)", "hand numba (steps outer)"), key=rates.get)
+    ceiling = rates[ceiling_name]
+    med63 = round_ratio(rounds, "ergodex", ceiling_name)
     if lorenz_shape:
         # Same model, same steps: the hand kernel and ergodex agree to round-off over a short run.
         short = integrate_ensemble(fitted, x0, dt_out=K * H, n_out=11, substep=H).states
@@ -311,6 +328,8 @@ def main() -> None:
     print(f"  ergodex / pysindy simulate     {rates['ergodex'] / rates['pysindy simulate']:14.1f}x   (target >= 1000)")
     print(f"  ergodex / numpy RK4            {rates['ergodex'] / rates['numpy RK4']:14.1f}x   (target >= 10)")
     print(f"  ergodex / hand numba (best)    {rates['ergodex'] / ceiling:14.2f}x   (target >= 0.5)")
+    print(f"  same, round by round: median {med63[0]:.2f}, range {med63[1]:.2f}-{med63[2]:.2f} "
+          f"({len(rounds['ergodex'])} rounds)")
 
     # Lorenz-96, 40 stations.
     l96 = dense_quadratic(lorenz96_surrogate())
@@ -326,7 +345,9 @@ def main() -> None:
 
     out96 = np.empty((M, n_out96, 40))
     l96_hand(y0, 3, K, H, 8.0, out96)
-    best = interleaved_best({"ergodex": run96, "hand numba": lambda: l96_hand(y0, n_out96, K, H, 8.0, out96)})
+    best, rounds = interleaved_best({"ergodex": run96,
+                                     "hand numba": lambda: l96_hand(y0, n_out96, K, H, 8.0, out96)})
+    med96 = round_ratio(rounds, "ergodex", "hand numba")
     for name, sec in best.items():
         r96[name] = M * steps96 / sec
     check = integrate_ensemble(l96, y0, dt_out=K * H, n_out=3, substep=H).states
@@ -337,6 +358,7 @@ def main() -> None:
     for name, r in r96.items():
         print(f"  {name:30s} {r:14.4g}")
     print(f"  ergodex / hand numba           {r96['ergodex'] / r96['hand numba']:14.2f}x   (target >= 0.3)")
+    print(f"  same, round by round: median {med96[0]:.2f}, range {med96[1]:.2f}-{med96[2]:.2f}")
     print(f"  max |ergodex - hand| after 0.2 time units: {np.max(np.abs(check - hand)):.2e}")
 
     if not args.no_first_call:

@@ -41,7 +41,7 @@ import math
 import numba as nb
 import numpy as np
 
-__all__ = ["METHOD_CODES", "Program", "build_program", "advance", "rhs_columns"]
+__all__ = ["METHOD_CODES", "Program", "advance", "build_program", "rhs_columns"]
 
 #: Stepper codes understood by :func:`advance`.
 METHOD_CODES = {"rk4": 0, "euler-maruyama": 1, "heun": 2}
@@ -254,8 +254,7 @@ def advance(method, state, alive, blowup_time, t0, h, n_outputs, k, noise, chol,
     Everything runs inside this one function, with no calls in the step loop: passing arrays to
     a helper makes numba count references to each of them on every call, which costs more than
     the arithmetic for small systems. RK4 keeps ``k1 + 2 k2 + 2 k3`` in ``Acc``; its first stage
-    computes ``0 * Acc + k1`` so that one loop body serves the first three stages, which is why
-    a column taken over by another member is zeroed (a stopped member may have left NaN there).
+    writes ``Acc = k1`` and the next two stages add ``2 k``.
     """
     M, n = state.shape
     idx = np.empty(M, dtype=np.int64)
@@ -321,22 +320,13 @@ def advance(method, state, alive, blowup_time, t0, h, n_outputs, k, noise, chol,
                 else:
                     src = ba
                     dst = bb
-                if stage == 0:
+                # RK4: the next stage input is x + a1 k (stages 1-3); the new state x + h/6 (Acc + k4).
+                if stage == 0 or stage == 1:
                     a1 = half
-                    ca = 0.0
-                    cb = 1.0
-                elif stage == 1:
-                    a1 = half
-                    ca = 1.0
-                    cb = 2.0
                 elif stage == 2:
                     a1 = h
-                    ca = 1.0
-                    cb = 2.0
                 else:
                     a1 = h / 6.0
-                    ca = 1.0
-                    cb = 1.0
                 # 1. Product rows (terms beyond quadratic, sines, cosines) from the state rows.
                 for r in range(n_prod):
                     row = n + r
@@ -527,7 +517,6 @@ def advance(method, state, alive, blowup_time, t0, h, n_outputs, k, noise, chol,
                         for i in range(n):
                             SS[bb, i, c] = SS[bb, i, na]
                             SS[cur, i, c] = SS[cur, i, na]
-                            Acc[i, c] = 0.0
             old = cur
             cur = bb
             bb = old
