@@ -182,29 +182,18 @@ def test_every_pass_shape_and_long_equations_follow_solve_ivp():
     terms = polynomial_terms(5, 3) + (Term("sin", variable=1, frequency=2.0), Term("cos", variable=2, frequency=0.5))
     col = {t.powers: k for k, t in enumerate(terms[:-2])}
     coef = np.zeros((5, len(terms)))
-
-    def put(eq, powers, value):
-        coef[eq, col[powers]] = value
-
-    put(0, (1, 0, 0, 0, 0), -1.0)
-    put(0, (0, 1, 0, 0, 0), 0.5)
-    put(1, (0, 1, 0, 0, 0), -1.0)
-    put(1, (1, 0, 1, 0, 0), 0.3)
-    put(2, (0, 0, 1, 0, 0), -1.0)
-    put(2, (0, 0, 0, 1, 0), 0.2)
-    put(2, (1, 1, 0, 0, 0), 0.4)
-    put(3, (0, 0, 0, 1, 0), -1.0)
-    put(3, (1, 0, 0, 0, 0), 0.1)
-    put(3, (0, 1, 1, 0, 0), 0.3)
-    put(3, (1, 0, 0, 1, 0), -0.2)
-    put(4, (0, 0, 0, 0, 0), 0.05)
-    put(4, (0, 0, 0, 0, 1), -1.0)
-    put(4, (1, 0, 0, 0, 0), 0.2)
-    put(4, (0, 1, 0, 0, 0), -0.1)
-    put(4, (3, 0, 0, 0, 0), 0.1)
-    put(4, (0, 2, 0, 0, 0), -0.2)
-    put(4, (0, 0, 1, 1, 0), 0.1)
-    put(4, (1, 0, 0, 0, 1), 0.15)
+    # equation: (powers of a..e, coefficient) for each term
+    table = {
+        0: [((1, 0, 0, 0, 0), -1.0), ((0, 1, 0, 0, 0), 0.5)],
+        1: [((0, 1, 0, 0, 0), -1.0), ((1, 0, 1, 0, 0), 0.3)],
+        2: [((0, 0, 1, 0, 0), -1.0), ((0, 0, 0, 1, 0), 0.2), ((1, 1, 0, 0, 0), 0.4)],
+        3: [((0, 0, 0, 1, 0), -1.0), ((1, 0, 0, 0, 0), 0.1), ((0, 1, 1, 0, 0), 0.3), ((1, 0, 0, 1, 0), -0.2)],
+        4: [((0, 0, 0, 0, 0), 0.05), ((0, 0, 0, 0, 1), -1.0), ((1, 0, 0, 0, 0), 0.2), ((0, 1, 0, 0, 0), -0.1),
+            ((3, 0, 0, 0, 0), 0.1), ((0, 2, 0, 0, 0), -0.2), ((0, 0, 1, 1, 0), 0.1), ((1, 0, 0, 0, 1), 0.15)],
+    }
+    for eq, entries in table.items():
+        for powers, value in entries:
+            coef[eq, col[powers]] = value
     coef[4, -2] = 0.2
     coef[4, -1] = 0.1
     model = Surrogate(("a", "b", "c", "d", "e"), terms, coef)
