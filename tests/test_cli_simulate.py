@@ -103,6 +103,33 @@ def test_simulate_reports_blowups_with_exit_code_1(tmp_path, capsys):
     assert series.n_runs == 6 and all(0 < n < 400 for n in series.lengths)
 
 
+def test_simulate_without_initial_states_stops_members_that_leave_the_fitted_range(tmp_path, capsys):
+    # x' = 1 from x0 = 0 (plus the 1e-3 start perturbations) is x(t) = t (analytic). With a recorded
+    # training range [0, 1] the bound is ten half-ranges either side of the centre, [-4.5, 5.5]
+    # (blowup_bound), so every member is stopped just after t = 5.5; without the record only an
+    # overflow would stop it, and x stays finite over the 10 time units.
+    drift = Surrogate(("x",), (Term("monomial", (0,)),), [[1.0]],
+                      provenance={"dt": 0.01, "model_range": {"x": [0.0, 1.0]}})
+    bounded = tmp_path / "bounded.json"
+    drift.to_json(bounded)
+    out = tmp_path / "sim.npz"
+    args = ["--members", "3", "--steps", "1000", "--spinup", "0", "--seed", "2", "--substep", "0.01"]
+    assert main(["simulate", str(bounded), *args, "--out", str(out)]) == 1
+    err = capsys.readouterr().err
+    assert "3 of 3 members blew up" in err
+    series = read_series(out)
+    assert series.n_runs == 3
+    for run in series.runs:
+        # The last output kept is the last one inside the bound: x within one output step of 5.5.
+        assert 5.5 - 0.02 <= run[-1, 0] <= 5.5
+
+    free = Surrogate(("x",), (Term("monomial", (0,)),), [[1.0]], provenance={"dt": 0.01})
+    unbounded = tmp_path / "free.json"
+    free.to_json(unbounded)
+    assert main(["simulate", str(unbounded), *args, "--out", str(tmp_path / "free.npz")]) == 0
+    assert read_series(tmp_path / "free.npz").runs[0][-1, 0] > 9.9
+
+
 @pytest.mark.parametrize(
     ("extra", "match"),
     [

@@ -60,6 +60,13 @@ def test_contract(method, series):
     assert surrogate.n_variables >= series.n_variables or surrogate.transform is not None
     assert surrogate.settings["method"] == method
     assert surrogate.provenance["data_fingerprint"] == series.fingerprint()
+    # the model-space range of the training data, which ergodex simulate bounds members with
+    # (no transform by default: the data's own range, computed here with numpy)
+    assert surrogate.transform is None
+    stacked = series.stacked()
+    assert surrogate.provenance["model_range"] == {
+        name: [float(stacked[:, j].min()), float(stacked[:, j].max())] for j, name in enumerate(series.names)
+    }
     assert np.all(np.isfinite(surrogate.rhs(np.zeros((4, surrogate.n_variables)))))
     assert np.isfinite(fitter.score_) and np.isfinite(fitter.tendency_error_)
     assert fitter.n_terms_ >= 1

@@ -15,6 +15,13 @@ Initial states
   model the perturbations grow apart during the spin-up, so the members sample its attractor;
   a model with a stable fixed point collapses onto it, which is what it would do in use too.
 
+Blow-up bound
+-------------
+A member is stopped when a state is not finite or leaves ten times the range (see
+:func:`ergodex.integrate.blowup_bound`) of the given ``--initial`` states or, without them, of the
+data the model was fitted on (``model_range`` in the model file's provenance, written by every
+ergodex fitter). A model file without that record is bounded only by floating-point overflow.
+
 Output
 ------
 One run per member (labels ``member-000`` …) at interval ``--dt`` in data space, through
@@ -41,7 +48,10 @@ import numpy as np
 
 from ergodex.exceptions import DataError, ModelFileError, SettingsError
 
-__all__ = ["add_parser", "initial_states_from_file", "initial_states_from_model", "load_model", "run"]
+__all__ = [
+    "add_parser", "bound_from_fitted_range", "initial_states_from_file", "initial_states_from_model", "load_model",
+    "run",
+]
 
 _FORMATS = {".csv": "csv", ".npz": "npz", ".nc": "nc", ".nc4": "nc", ".netcdf": "nc"}
 #: Size of the perturbations added to the start state of the model's own run (model units).
@@ -156,6 +166,31 @@ def _data_names(surrogate) -> tuple[str, ...]:
     return tuple(surrogate.observed_variables)
 
 
+def bound_from_fitted_range(surrogate) -> np.ndarray | None:
+    """Blow-up bound from the model-space range of the training data the fitter recorded.
+
+    Ten times that range per variable (:func:`ergodex.integrate.blowup_bound`); variables without
+    a recorded range (hidden levels) are unbounded. None when the model file has no record.
+    """
+    from ergodex.integrate import blowup_bound
+
+    recorded = (surrogate.provenance or {}).get("model_range")
+    if not isinstance(recorded, dict):
+        return None
+    columns = [j for j, name in enumerate(surrogate.variables) if name in recorded]
+    if not columns:
+        return None
+    try:
+        ends = np.array([recorded[surrogate.variables[j]] for j in columns], dtype=np.float64).T
+    except (TypeError, ValueError):
+        raise ModelFileError("provenance.model_range: expected [min, max] per variable") from None
+    if ends.shape != (2, len(columns)):
+        raise ModelFileError("provenance.model_range: expected [min, max] per variable")
+    bound = np.tile([-np.inf, np.inf], (surrogate.n_variables, 1))
+    bound[columns] = blowup_bound(ends)
+    return bound
+
+
 def initial_states_from_model(surrogate, members: int, rng: np.random.Generator) -> np.ndarray:
     """Start states for the model's own run: the origin plus seeded perturbations of 1e-3."""
     return rng.normal(scale=PERTURBATION, size=(members, surrogate.n_variables))
@@ -221,7 +256,7 @@ def run(args: argparse.Namespace) -> int:
     else:
         x0 = initial_states_from_model(surrogate, args.members, rng)
         spinup = SPINUP_STEPS * dt if args.spinup is None else args.spinup
-        bound = None
+        bound = bound_from_fitted_range(surrogate)
     if not (math.isfinite(spinup) and spinup >= 0):
         raise SettingsError(f"--spinup must be a number >= 0, got {spinup}")
 

@@ -185,21 +185,32 @@ def check_series(series) -> None:
             )
 
 
-def data_provenance(series, **extra: Any) -> dict[str, Any]:
-    """What every fitted surrogate records about its data: fingerprint, size and sampling interval.
+def data_provenance(series, model_runs=None, model_names=None, **extra: Any) -> dict[str, Any]:
+    """What every fitted surrogate records about its data: fingerprint, size, sampling interval, range.
 
-    The interval lets ``ergodex simulate`` default its output step to the data's.
+    The interval lets ``ergodex simulate`` default its output step to the data's. The range of
+    each model-space variable over the training runs (``model_runs``, named ``model_names``) lets
+    ``ergodex simulate`` stop a member that leaves it far behind (see
+    :func:`ergodex.integrate.blowup_bound`) when no reference states are given.
     """
     from ergodex import __version__
 
-    return {
+    record = {
         "data_fingerprint": series.fingerprint(),
         "fitted_on_runs": int(series.n_runs),
         "fitted_on_samples": int(series.n_samples),
         "dt": float(series.dt),
         "ergodex_version": __version__,
-        **extra,
     }
+    if model_runs is not None:
+        stacked = np.concatenate([np.asarray(r, dtype=np.float64) for r in model_runs])
+        stacked = stacked[np.all(np.isfinite(stacked), axis=1)]
+        if len(stacked):
+            record["model_range"] = {
+                str(name): [float(lo), float(hi)]
+                for name, lo, hi in zip(model_names, stacked.min(axis=0), stacked.max(axis=0))
+            }
+    return {**record, **extra}
 
 
 def _source(series) -> str:

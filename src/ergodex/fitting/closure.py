@@ -167,7 +167,7 @@ class QuadraticNoiseModel(Fitter):
         residual_cov = np.atleast_2d(np.cov(residual.T))
         r2 = r2_score(Y_all, fitted)
 
-        provenance = data_provenance(series, score=float(np.mean(r2)))
+        provenance = data_provenance(series, runs, names, score=float(np.mean(r2)))
         settings = {"method": self.method, **self.get_params()}
         ar1 = None
         if self.noise == "white":

@@ -271,6 +271,8 @@ class LinearInverseModel(Fitter):
             settings={"method": self.method, **_json_settings(self.get_params()), "tau0_used": tau0},
             provenance=data_provenance(
                 series,
+                runs,
+                names,
                 score=score,
                 stable=stable,
                 tau_test_flat=self.tau_test_flat_,

@@ -270,7 +270,7 @@ class SparseODE(Fitter):
         # the tendency error is measured pointwise with order-4 differences whatever the fit used,
         # so that candidates fitted in weak form and by differences compare on one scale
         self.tendency_error_ = relative_tendency_error(_AsDrift(terms, coefficients), runs, float(series.dt))
-        self.surrogate_ = self._build_surrogate(series, variables, transform, terms, coefficients, ps)
+        self.surrogate_ = self._build_surrogate(series, runs, variables, transform, terms, coefficients, ps)
 
     # ----------------------------------------------------------------------------------------
     def _make_library(self, ps):
@@ -378,14 +378,14 @@ class SparseODE(Fitter):
         coefficients[inclusion < self.inclusion_threshold] = 0.0
         return coefficients, {"inclusion": inclusion, "samples": samples}
 
-    def _build_surrogate(self, series, variables, transform, terms, coefficients: np.ndarray, ps):
+    def _build_surrogate(self, series, runs, variables, transform, terms, coefficients: np.ndarray, ps):
         from ergodex.surrogate import Surrogate
 
         active = np.flatnonzero(np.any(coefficients != 0.0, axis=0))
         if active.size == 0:
             active = np.array([0])  # keep one column so the surrogate has a well-formed table
         provenance = data_provenance(
-            series, pysindy_version=getattr(ps, "__version__", "unknown"), score=self.score_
+            series, runs, variables, pysindy_version=getattr(ps, "__version__", "unknown"), score=self.score_
         )
         return Surrogate(
             tuple(variables),
