@@ -70,8 +70,9 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         description=(
             "Integrate N members of a surrogate for K output steps and write them in data space. "
             "Members start from the model's own long run (origin + tiny seeded perturbations, "
-            "spun up for 1000 output steps) unless --initial gives start states. "
-            "Exit codes: 0 all members finished, 1 some member blew up, 2 bad input. "
+            "spun up for 1000 output steps) unless --initial gives start states. A member is "
+            "stopped (blew up) when it leaves ten times the range of the --initial states or, "
+            "without them, of the data the model was fitted on. Exit codes: 0 all members finished, 1 some member blew up, 2 bad input. "
             "A simulated ensemble is not a certification; defer to the applicable codes, "
             "standards and licensed practice."
         ),
