@@ -130,6 +130,20 @@ def test_simulate_without_initial_states_stops_members_that_leave_the_fitted_ran
     assert read_series(tmp_path / "free.npz").runs[0][-1, 0] > 9.9
 
 
+def test_simulate_without_initial_states_measures_stiffness_over_the_fitted_range(tmp_path, capsys):
+    # x' = -x^3 starts calm at 0 but has |J| = 3 x^2 up to 300 over the recorded range [-10, 10]
+    # (analytic): 256 uniform draws there reach |x| > 9.5 (probability of missing: 0.975^256 ~ 2e-3
+    # per side), so the measured spectral radius exceeds 3 * 9.5^2 = 270.
+    model = tmp_path / "cubic.json"
+    Surrogate(("x",), (Term("monomial", (3,)),), [[-1.0]],
+              provenance={"dt": 0.1, "model_range": {"x": [-10.0, 10.0]}}).to_json(model)
+    assert main(["simulate", str(model), "--members", "2", "--steps", "5", "--spinup", "0", "--seed", "4",
+                 "--out", str(tmp_path / "sim.npz")]) == 0
+    err = capsys.readouterr().err
+    rho = float(err.split("chosen from spectral radius ")[1].split(";")[0])
+    assert 270.0 < rho <= 300.0
+
+
 @pytest.mark.parametrize(
     ("extra", "match"),
     [

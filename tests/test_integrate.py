@@ -268,6 +268,16 @@ def test_choose_substep_follows_the_rk4_stability_limit():
     unstable = integrate_ensemble(stiff, np.ones((1, 2)), dt_out=0.1, n_out=200,
                                   substep=1.05 * 2.785 / lam, bound=[[-10, 10], [-10, 10]])
     assert unstable.status == "all-blowup"
+    # x' = -x^3 is calm at its start 0 (Jacobian -3 x^2 = 0) but stiff where the run may go:
+    # |J| = 300 at x = 10. States given for the stiffness set the substep by the same bound.
+    cubic = Surrogate(("x",), (Term("monomial", (3,)),), [[-1.0]])
+    calm = integrate_ensemble(cubic, np.zeros((2, 1)), dt_out=0.1, n_out=3)
+    assert calm.substep == pytest.approx(0.1)
+    wary = integrate_ensemble(cubic, np.zeros((2, 1)), dt_out=0.1, n_out=3, stiffness_states=[[10.0]])
+    assert wary.spectral_radius == pytest.approx(300.0)
+    assert wary.substep <= 0.25 * 2.785 / 300.0 and wary.substep == pytest.approx(choose_substep(cubic, [[10.0]], 0.1))
+    with pytest.raises(SettingsError, match="stiffness_states"):
+        integrate_ensemble(cubic, np.zeros((2, 1)), dt_out=0.1, n_out=3, stiffness_states=[[1.0, 2.0]])
 
 
 def test_blowup_bound_widens_the_reference_range():

@@ -337,6 +337,7 @@ def integrate_ensemble(
     n_out: int,
     spinup: float = 0.0,
     substep: float | None = None,
+    stiffness_states: Any = None,
     method: str = "auto",
     bound: Any = None,
     seed: int | np.random.Generator | None = None,
@@ -359,7 +360,11 @@ def integrate_ensemble(
         Time integrated before the first output and discarded (rounded up to whole substeps).
     substep : float, optional
         Integration step; rounded down so that ``dt_out`` is a whole multiple of it. Default:
-        :func:`choose_substep` on the initial states.
+        :func:`choose_substep` on ``stiffness_states``.
+    stiffness_states : array_like, shape (K, n_variables), optional
+        Model-space states at which the automatic substep measures the stiffness (default: the
+        initial states). Give states typical of the whole run when the members start in a calm
+        corner of it (e.g. near a fixed point before a spin-up).
     method : {"auto", "rk4", "euler-maruyama", "heun"}
         ``"auto"``: RK4 for deterministic surrogates, stochastic Heun for stochastic ones.
     bound : array_like, shape (n_variables, 2), optional
@@ -431,7 +436,13 @@ def integrate_ensemble(
 
     rho: float | None = None
     if substep is None:
-        h, k, rho = _choose(surrogate, x0, dt_out, method, SAFETY)
+        sample = x0
+        if stiffness_states is not None:
+            extra = np.asarray(stiffness_states, dtype=np.float64)
+            if extra.ndim != 2 or extra.shape[1] != n:
+                raise SettingsError(f"stiffness_states: shape {extra.shape}, expected (K, {n})")
+            sample = np.vstack([x0, extra])
+        h, k, rho = _choose(surrogate, sample, dt_out, method, SAFETY)
     else:
         h_req = _positive(substep, "substep")
         k = max(1, math.ceil(dt_out / h_req - 1e-9))

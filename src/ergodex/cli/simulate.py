@@ -22,6 +22,13 @@ A member is stopped when a state is not finite or leaves ten times the range (se
 data the model was fitted on (``model_range`` in the model file's provenance, written by every
 ergodex fitter). A model file without that record is bounded only by floating-point overflow.
 
+Substep
+-------
+Without ``--substep`` the RK4 substep is chosen from the stiffness (largest spectral radius of the
+Jacobian) at the start states and at states typical of the run: every state of ``--initial``, or
+256 states drawn uniformly from the recorded training range (see
+:func:`ergodex.integrate.choose_substep`).
+
 Output
 ------
 One run per member (labels ``member-000`` …) at interval ``--dt`` in data space, through
@@ -49,8 +56,8 @@ import numpy as np
 from ergodex.exceptions import DataError, ModelFileError, SettingsError
 
 __all__ = [
-    "add_parser", "bound_from_fitted_range", "initial_states_from_file", "initial_states_from_model", "load_model",
-    "run",
+    "add_parser", "bound_from_fitted_range", "fitted_range", "initial_states_from_file", "initial_states_from_model",
+    "load_model", "run", "states_in_fitted_range",
 ]
 
 _FORMATS = {".csv": "csv", ".npz": "npz", ".nc": "nc", ".nc4": "nc", ".netcdf": "nc"}
@@ -167,14 +174,12 @@ def _data_names(surrogate) -> tuple[str, ...]:
     return tuple(surrogate.observed_variables)
 
 
-def bound_from_fitted_range(surrogate) -> np.ndarray | None:
-    """Blow-up bound from the model-space range of the training data the fitter recorded.
+def fitted_range(surrogate) -> tuple[list[int], np.ndarray] | None:
+    """The training range the fitter recorded: model columns and their ``(2, k)`` [min; max].
 
-    Ten times that range per variable (:func:`ergodex.integrate.blowup_bound`); variables without
-    a recorded range (hidden levels) are unbounded. None when the model file has no record.
+    None when the model file has no ``provenance.model_range`` (files from before it existed);
+    hidden variables have no entry.
     """
-    from ergodex.integrate import blowup_bound
-
     recorded = (surrogate.provenance or {}).get("model_range")
     if not isinstance(recorded, dict):
         return None
@@ -185,11 +190,42 @@ def bound_from_fitted_range(surrogate) -> np.ndarray | None:
         ends = np.array([recorded[surrogate.variables[j]] for j in columns], dtype=np.float64).T
     except (TypeError, ValueError):
         raise ModelFileError("provenance.model_range: expected [min, max] per variable") from None
-    if ends.shape != (2, len(columns)):
-        raise ModelFileError("provenance.model_range: expected [min, max] per variable")
+    if ends.shape != (2, len(columns)) or not np.all(np.isfinite(ends)) or np.any(ends[0] > ends[1]):
+        raise ModelFileError("provenance.model_range: expected finite [min, max] per variable")
+    return columns, ends
+
+
+def bound_from_fitted_range(surrogate) -> np.ndarray | None:
+    """Blow-up bound from the recorded training range (None without a record).
+
+    Ten times that range per variable (:func:`ergodex.integrate.blowup_bound`); variables without
+    a recorded range (hidden levels) are unbounded.
+    """
+    from ergodex.integrate import blowup_bound
+
+    recorded = fitted_range(surrogate)
+    if recorded is None:
+        return None
+    columns, ends = recorded
     bound = np.tile([-np.inf, np.inf], (surrogate.n_variables, 1))
     bound[columns] = blowup_bound(ends)
     return bound
+
+
+def states_in_fitted_range(surrogate, rng: np.random.Generator, n_states: int = 256) -> np.ndarray | None:
+    """States drawn uniformly from the box of the recorded training range (hidden variables 0).
+
+    The members of a model's own run start near its origin, which can be much calmer than where
+    the run goes; the automatic substep measures the stiffness here as well. None without a
+    record.
+    """
+    recorded = fitted_range(surrogate)
+    if recorded is None:
+        return None
+    columns, ends = recorded
+    states = np.zeros((n_states, surrogate.n_variables))
+    states[:, columns] = rng.uniform(ends[0], ends[1], size=(n_states, len(columns)))
+    return states
 
 
 def initial_states_from_model(surrogate, members: int, rng: np.random.Generator) -> np.ndarray:
@@ -254,10 +290,12 @@ def run(args: argparse.Namespace) -> int:
         if bound is not None:  # hidden variables have no data range to leave
             hidden = np.setdiff1d(np.arange(surrogate.n_variables), observed)
             bound[hidden] = (-np.inf, np.inf)
+        stiffness_states = every_state
     else:
         x0 = initial_states_from_model(surrogate, args.members, rng)
         spinup = SPINUP_STEPS * dt if args.spinup is None else args.spinup
         bound = bound_from_fitted_range(surrogate)
+        stiffness_states = states_in_fitted_range(surrogate, np.random.default_rng([seed, 1]))
     if not (math.isfinite(spinup) and spinup >= 0):
         raise SettingsError(f"--spinup must be a number >= 0, got {spinup}")
 
@@ -265,6 +303,7 @@ def run(args: argparse.Namespace) -> int:
     try:
         result = integrate_ensemble(
             surrogate, x0, dt_out=dt, n_out=args.steps, spinup=spinup, substep=args.substep,
+            stiffness_states=stiffness_states,
             seed=int(rng.integers(0, 2**63 - 1)), bound=bound, progress=update,
         )
     finally:
