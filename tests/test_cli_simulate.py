@@ -170,6 +170,13 @@ def test_simulate_refuses_a_broken_model_file(tmp_path, capsys):
     assert main(["simulate", str(model), "--members", "2", "--steps", "5", "--dt", "0.1", "--out", str(out)]) == 2
     assert "format" in capsys.readouterr().err and not out.exists()
     assert main(["simulate", str(tmp_path / "missing.json"), "--members", "2", "--steps", "5", "--dt", "0.1"]) == 2
+    capsys.readouterr()
+    # observed_variables naming a variable the model lacks: refused (exit 2), not a traceback
+    odd = Surrogate(NAMES, lorenz63().terms, lorenz63().coefficients,
+                    settings={"observed_variables": ["flow", "pressure"]})
+    odd.to_json(model)
+    assert main(["simulate", str(model), "--members", "2", "--steps", "5", "--dt", "0.1", "--out", str(out)]) == 2
+    assert "observed_variables" in capsys.readouterr().err and not out.exists()
 
 
 @pytest.mark.slow

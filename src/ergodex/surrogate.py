@@ -597,6 +597,25 @@ class Surrogate:
         observed = self._settings.get("observed_variables")
         return tuple(observed) if observed else self._variables
 
+    @property
+    def observed_index(self) -> np.ndarray:
+        """Model columns of :attr:`observed_variables`, in that order (every column unless some are hidden).
+
+        Raises
+        ------
+        SettingsError
+            When ``settings["observed_variables"]`` names a variable the model lacks.
+        """
+        index = self._observed_columns()
+        return np.arange(self.n_variables) if index is None else index.copy()
+
+    def _observed_columns(self) -> np.ndarray | None:
+        """Observed model columns, or None when every variable is observed."""
+        if self._transform is not None:
+            # fixed at construction: the transform's outputs are the observed variables
+            return self._observed_index
+        return _observed_columns(self._variables, self._settings)
+
     def to_model_space(self, X: Any) -> np.ndarray:
         """Map data-space states to model space (identity without a transform).
 
@@ -620,11 +639,7 @@ class Surrogate:
         this is the identity.
         """
         Z = np.asarray(Z, dtype=np.float64)
-        if self._transform is None:
-            index = _observed_columns(self._variables, self._settings)
-        else:
-            # fixed at construction: the transform's outputs are the observed variables
-            index = self._observed_index
+        index = self._observed_columns()
         if index is not None and Z.ndim >= 1 and Z.shape[-1] == self.n_variables:
             Z = Z[..., index]
         if self._transform is None:

@@ -150,7 +150,7 @@ def initial_states_from_file(surrogate, path: str, members: int) -> tuple[np.nda
         raise DataError(
             f"{path}: columns {list(series.names)} do not match the model's data variables {list(names)}"
         )
-    observed = _observed_index(surrogate)
+    observed = surrogate.observed_index
     model_rows = [surrogate.to_model_space(run) for run in series.runs]
     given = np.concatenate([r for r in model_rows if len(r)], axis=0)
     # Hidden variables (a memory level) have no data: they start at 0, as in the validator.
@@ -160,11 +160,6 @@ def initial_states_from_file(surrogate, path: str, members: int) -> tuple[np.nda
         raise DataError(f"{path}: has {len(rows)} usable states, fewer than --members {members}")
     pick = np.linspace(0, len(rows) - 1, members).round().astype(np.int64)
     return rows[pick], rows
-
-
-def _observed_index(surrogate) -> np.ndarray:
-    """Model columns that have data-space counterparts (all of them unless some are hidden)."""
-    return np.array([surrogate.variables.index(v) for v in surrogate.observed_variables], dtype=int)
 
 
 def _data_names(surrogate) -> tuple[str, ...]:
@@ -278,7 +273,7 @@ def run(args: argparse.Namespace) -> int:
 
     surrogate = load_model(args.model, getattr(args, "home", None))
     dt = _output_dt(surrogate, args.dt)
-    observed = _observed_index(surrogate)
+    observed = surrogate.observed_index
     seed = args.seed if args.seed is not None else int(np.random.SeedSequence().entropy % (2**63))
     rng = np.random.default_rng(seed)
 
