@@ -56,7 +56,7 @@ import numpy as np
 from ergodex.exceptions import DataError, ModelFileError, SettingsError
 
 __all__ = [
-    "add_parser", "bound_from_fitted_range", "fitted_range", "initial_states_from_file", "initial_states_from_model",
+    "add_parser", "bound_from_fitted_range", "bound_over", "fitted_range", "initial_states_from_file", "initial_states_from_model",
     "load_model", "run", "states_in_fitted_range",
 ]
 
@@ -196,14 +196,20 @@ def bound_from_fitted_range(surrogate) -> np.ndarray | None:
     Ten times that range per variable (:func:`ergodex.integrate.blowup_bound`); variables without
     a recorded range (hidden levels) are unbounded.
     """
+    recorded = fitted_range(surrogate)
+    return None if recorded is None else bound_over(surrogate, *recorded)
+
+
+def bound_over(surrogate, columns, reference: np.ndarray) -> np.ndarray:
+    """Blow-up bound from ``reference`` states of the model ``columns``; other variables unbounded.
+
+    Ten times the reference range (:func:`ergodex.integrate.blowup_bound`); hidden variables have
+    no data range to leave.
+    """
     from ergodex.integrate import blowup_bound
 
-    recorded = fitted_range(surrogate)
-    if recorded is None:
-        return None
-    columns, ends = recorded
     bound = np.tile([-np.inf, np.inf], (surrogate.n_variables, 1))
-    bound[columns] = blowup_bound(ends)
+    bound[columns] = blowup_bound(reference)
     return bound
 
 
@@ -247,7 +253,7 @@ def _progress_bar(total: int):
 
 def run(args: argparse.Namespace) -> int:
     """Run ``ergodex simulate``; returns 0, or 1 when some member blew up."""
-    from ergodex.integrate import blowup_bound, integrate_ensemble
+    from ergodex.integrate import integrate_ensemble
     from ergodex.series import Series
     from ergodex.writers import write_csv, write_netcdf, write_npz
 
@@ -281,10 +287,7 @@ def run(args: argparse.Namespace) -> int:
         x0, every_state = initial_states_from_file(surrogate, args.initial, args.members)
         spinup = 0.0 if args.spinup is None else args.spinup
         # Ten times the range of the given states (see blowup_bound); non-finite always counts.
-        bound = blowup_bound(every_state) if len(every_state) > 1 else None
-        if bound is not None:  # hidden variables have no data range to leave
-            hidden = np.setdiff1d(np.arange(surrogate.n_variables), observed)
-            bound[hidden] = (-np.inf, np.inf)
+        bound = bound_over(surrogate, observed, every_state[:, observed]) if len(every_state) > 1 else None
         stiffness_states = every_state
     else:
         x0 = initial_states_from_model(surrogate, args.members, rng)
