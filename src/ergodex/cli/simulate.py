@@ -101,7 +101,9 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
                         help="time integrated and discarded before the first output "
                              "(default: 1000*dt from the model's own run, 0 with --initial)")
     parser.add_argument("--substep", type=float, default=None, metavar="H",
-                        help="integration step (default: chosen from the model's stiffness)")
+                        help="integration step (default: chosen from the model's stiffness at the start "
+                             "states and at the --initial states or, without them, states across the "
+                             "range the model was fitted on)")
     add_home_option(parser)
     parser.set_defaults(func=run)
     return parser
