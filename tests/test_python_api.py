@@ -112,3 +112,33 @@ def test_plots_draw_on_given_axes_and_return_figures_without_pyplot(result):
     with pytest.raises(Exception, match="needs 2 matplotlib Axes"):
         result.plot_histograms(ax=Figure().subplots())
     assert plt.get_fignums() == before  # nothing went through pyplot's figure list
+
+
+def test_select_takes_a_dataset_and_counts_candidates(model_and_data):
+    from ergodex.fitting import select
+
+    _, ds = model_and_data
+    fit_part, reference = ds.isel(member=[0, 1]), ds.isel(member=[2, 3])
+    calls = []
+    chosen = select(fit_part, [("linear-inverse", {}), ("linear-inverse", {"tau0": 0.2})],
+                    CheckSpec(members=8, seed=1), reference=reference,
+                    progress=lambda done, total: calls.append((done, total)))
+    assert calls == [(1, 2), (2, 2)]
+    assert len(chosen.candidates) == 2
+    from ergodex.frames import as_series
+
+    assert chosen.data_fingerprint == as_series(fit_part).fingerprint()
+
+
+def test_retrain_steps_follow_the_progress_convention_and_the_older_named_form():
+    from ergodex.retraining import _STEPS, _steps
+
+    counted, named = [], []
+    with _steps(lambda done, total: counted.append((done, total))) as step:
+        for name in _STEPS:
+            step(name)
+    assert counted[-1] == (5, 5) and [d for d, _ in counted] == [0, 1, 2, 3, 4, 5]
+    with _steps(named.append) as step:  # one argument: the step's name, as the CLI passes
+        for name in _STEPS:
+            step(name)
+    assert named == list(_STEPS)
