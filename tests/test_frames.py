@@ -64,7 +64,8 @@ def test_dataframe_without_times_needs_dt():
 
 def test_bad_tables_name_the_row_and_column():
     rng = np.random.default_rng(5)
-    frame = pd.DataFrame({"time": np.arange(10.0), "p": rng.normal(size=10), "q": rng.normal(size=10)})
+    frame = pd.DataFrame({"time": np.arange(10.0), "p": rng.normal(size=10),
+                          "q": rng.normal(size=10)})
     frame.loc[4, "q"] = np.nan
     with pytest.raises(DataError, match=r"row 5, column 'q'"):
         as_series(frame)

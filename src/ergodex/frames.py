@@ -67,7 +67,7 @@ def as_series(
     what: str = "data",
     source: str = "",
 ) -> Series:
-    """Return ``data`` as a :class:`Series`: a Series unchanged, a table or labelled array converted.
+    """``data`` as a :class:`Series`: a Series unchanged, a table or labelled array converted.
 
     Parameters
     ----------
@@ -114,7 +114,8 @@ def _unit_seconds(time_unit: str) -> float:
 
 
 def _times_as_numbers(values: Any, time_unit: str, source: str, column: str) -> np.ndarray:
-    """Times as float64: numbers as they are, datetimes/timedeltas in ``time_unit`` from the first."""
+    """Times as float64: numbers as they are, datetimes/timedeltas in ``time_unit`` since the
+    first."""
     t = np.asarray(values)
     if t.dtype.kind in "iuf":
         return t.astype(np.float64)
@@ -139,7 +140,7 @@ def _times_as_numbers(values: Any, time_unit: str, source: str, column: str) -> 
 
 def _finish_frame(values, names, times, bounds, *, dt, time_tolerance, source, column, where,
                   units=None, trim_padding=False, dt_is_hint=False):
-    """dt from the times (shared rules with the CSV reader), then runs through the readers' checks."""
+    """dt from the times (the CSV reader's rules), then the runs through the readers' checks."""
     from ergodex import readers
 
     tol = readers.DEFAULT_TIME_TOLERANCE if time_tolerance is None else time_tolerance
@@ -190,7 +191,8 @@ def from_pandas(
         raise DataError(f"{source}: expected a pandas DataFrame, got {type(frame).__name__}")
     index = frame.index
     index_names = [str(n).lower() if n is not None else None for n in index.names]
-    time_in_index = isinstance(index, (pd.DatetimeIndex, pd.TimedeltaIndex)) or "time" in index_names
+    time_like = isinstance(index, (pd.DatetimeIndex, pd.TimedeltaIndex))
+    time_in_index = time_like or "time" in index_names
     run_in_index = any(n in _RUN_NAMES for n in index_names if n)
     if time_in_index or run_in_index:
         if isinstance(index, (pd.DatetimeIndex, pd.TimedeltaIndex)) and index.name is None:
@@ -204,7 +206,9 @@ def from_pandas(
     time_col = columns[lower.index("time")] if "time" in lower else None
     run_matches = [columns[k] for k, c in enumerate(lower) if c in _RUN_NAMES]
     if len(run_matches) > 1:
-        raise DataError(f"{source}: both {run_matches[0]!r} and {run_matches[1]!r} columns; keep one")
+        raise DataError(
+            f"{source}: both {run_matches[0]!r} and {run_matches[1]!r} columns; keep one"
+        )
     run_col = run_matches[0] if run_matches else None
     var_cols = [c for c in columns if c not in (time_col, run_col)]
     if not var_cols:
@@ -264,10 +268,14 @@ def from_xarray(
     if isinstance(data, xr.DataArray):
         data = _dataarray_to_dataset(data, source)
     if not isinstance(data, xr.Dataset):
-        raise DataError(f"{source}: expected an xarray Dataset or DataArray, got {type(data).__name__}")
+        raise DataError(
+            f"{source}: expected an xarray Dataset or DataArray, got {type(data).__name__}"
+        )
     ds = data
     if "time" not in ds.dims:
-        raise DataError(f"{source}: no 'time' dimension; dimensions are {sorted(map(str, ds.dims))}")
+        raise DataError(
+            f"{source}: no 'time' dimension; dimensions are {sorted(map(str, ds.dims))}"
+        )
     member_dims = [d for d in _RUN_NAMES if d in ds.dims]
     if len(member_dims) > 1:
         raise DataError(f"{source}: both 'member' and 'run' dimensions; use one")

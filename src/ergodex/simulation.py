@@ -29,7 +29,8 @@ def _output_dt(surrogate, dt: float | None) -> float:
         if isinstance(value, (int, float)) and not isinstance(value, bool) and value > 0:
             return float(value)
         raise SettingsError("dt: the model does not record its sampling interval; pass dt=")
-    if isinstance(dt, bool) or not isinstance(dt, (int, float)) or not (math.isfinite(dt) and dt > 0):
+    if isinstance(dt, bool) or not isinstance(dt, (int, float)) or not (
+            math.isfinite(dt) and dt > 0):
         raise SettingsError(f"dt must be a positive number, got {dt!r}")
     return float(dt)
 

@@ -585,7 +585,7 @@ class CheckResult:
 
     # Figures (see ergodex.plotting): ax=None returns a new Figure, else draws on ax, returns it.
     def plot_histograms(self, *, variables=None, ax=None):
-        """Marginal densities of reference and surrogate (:func:`ergodex.plotting.plot_histograms`)."""
+        """Marginal densities, reference and surrogate (:func:`ergodex.plotting.plot_histograms`)."""
         from ergodex.plotting import plot_histograms
 
         return plot_histograms(self, variables=variables, ax=ax)

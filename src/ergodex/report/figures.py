@@ -373,7 +373,8 @@ def regime_figure(regime_names: Sequence[str], occupancy_reference: np.ndarray,
     return figure_to_svg(figure)
 
 
-def has_residence(residence_reference: np.ndarray | None, residence_model: np.ndarray | None) -> bool:
+def has_residence(residence_reference: np.ndarray | None,
+                  residence_model: np.ndarray | None) -> bool:
     """Whether the regime figure gets its second panel (mean residence times)."""
     return (residence_reference is not None and np.size(residence_reference) > 0
             and residence_model is not None and np.size(residence_model) > 0)
