@@ -73,6 +73,7 @@ def test_surrogate_and_version_displays(tmp_path, result, model_and_data):
     page = model._repr_html_()
     ET.fromstring(page)
     assert "d u/dt = -u + 0.5 v" in page and "linear-stochastic" in page
+    assert len(repr(model)) < 160
     info = register_checked(Registry(tmp_path / "home"), "ou", model, result, report=False)
     assert repr(info) == (f"VersionInfo('ou@1', status={info.status!r}, "
                           f"verdict={result.scorecard.verdict!r}, created={info.created!r})")
@@ -142,3 +143,16 @@ def test_retrain_steps_follow_the_progress_convention_and_the_older_named_form()
         for name in _STEPS:
             step(name)
     assert named == list(_STEPS)
+
+
+def test_progress_true_draws_a_text_bar_and_bad_values_are_refused(capsys):
+    from ergodex.exceptions import SettingsError
+    from ergodex.progress import reporter
+
+    with reporter(True, 4, desc="demo-bar") as update:
+        for k in range(1, 5):
+            update(k, 4)
+    assert "demo-bar" in capsys.readouterr().err  # tqdm writes to stderr
+    with pytest.raises(SettingsError, match="progress must be True, False or a callable"):
+        with reporter("yes", 4, desc="fit"):
+            pass

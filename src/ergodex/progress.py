@@ -3,7 +3,8 @@
 Each takes ``progress=``:
 
 - ``False`` or ``None``: silent (the library default; the command line decides for itself);
-- ``True``: a bar from ``tqdm.auto`` (a widget in a notebook, text on a terminal), on stderr;
+- ``True``: a bar from ``tqdm.auto`` (a widget in a notebook with ipywidgets, else text), on
+  stderr;
 - a callable ``progress(done, total)``: called with whole numbers as the work advances, the
   last call with ``done == total`` when the work completed.
 
@@ -55,7 +56,14 @@ def reporter(progress: Progress, total: int, *, desc: str,
         yield None
         return
     if progress is True:
-        from tqdm.auto import tqdm
+        import importlib.util
+
+        # tqdm.auto draws a widget in a notebook when ipywidgets is there; without it, it warns
+        # and falls back to text, so go straight to the text bar
+        if importlib.util.find_spec("ipywidgets") is None:
+            from tqdm.std import tqdm
+        else:
+            from tqdm.auto import tqdm
 
         bar = tqdm(total=int(total), desc=desc, unit=unit, leave=False)
 

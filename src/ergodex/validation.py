@@ -840,8 +840,9 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *, initial_states
     from ergodex.progress import reporter
 
     reference = as_series(reference, dt=dt, what="reference")
-    log.info("check: %s against %d runs (%d samples) of %s", type(surrogate).__name__,
-             reference.n_runs, reference.n_samples, ", ".join(reference.names))
+    log.info("check: %s surrogate against %d runs (%d samples) of %s",
+             getattr(surrogate, "kind", type(surrogate).__name__), reference.n_runs,
+             reference.n_samples, ", ".join(reference.names))
     with reporter(progress, 1, desc="check", unit="output") as update:
         result = _check(surrogate, reference, spec, initial_states, update)
     card = result.scorecard
