@@ -81,3 +81,57 @@ def test_contract(method, series):
     # 7. an unknown setting is refused, naming the key
     with pytest.raises(SettingsError, match=f"{method} has no setting 'no_such_key'"):
         make_fitter(method, {"no_such_key": 1})
+
+
+@pytest.mark.parametrize("method", list(FITTERS))
+def test_fitters_are_scikit_learn_estimators(method, series):
+    """scikit-learn's own tools work on every fitter: clone, check_is_fitted, params, display."""
+    from sklearn.base import BaseEstimator, clone
+    from sklearn.exceptions import NotFittedError as SklearnNotFitted
+    from sklearn.utils.validation import check_is_fitted
+
+    fitter = make_fitter(method, {})
+    assert isinstance(fitter, BaseEstimator)
+    with pytest.raises(SklearnNotFitted):
+        check_is_fitted(fitter)
+    # clone builds a new unfitted fitter with the same settings (its identity check passes only
+    # when get_params(deep) hands back the stored objects)
+    first = sorted(fitter.get_params(deep=True))
+    twin = clone(fitter)
+    assert twin is not fitter and twin.get_params(deep=False) == fitter.get_params(deep=False)
+    assert sorted(twin.get_params()) == first == sorted(cls_settings(method))
+    # set_params still checks against the table (stricter than scikit-learn)
+    with pytest.raises(SettingsError, match="no setting 'nope'"):
+        twin.set_params(nope=1)
+
+    fitter.fit(series)
+    check_is_fitted(fitter)  # raises if not fitted
+    refit = clone(fitter)  # settings only: the clone is not fitted
+    assert not refit.is_fitted
+    with pytest.raises(SklearnNotFitted):
+        check_is_fitted(refit)
+    # the notebook display and the short repr
+    html = fitter._repr_html_()
+    assert type(fitter).__name__ in html
+    assert len(repr(fitter)) < 120
+
+
+def cls_settings(method):
+    return FITTERS[method].settings_table
+
+
+def test_fit_accepts_a_dataframe_reports_progress_and_logs_its_substeps(series, caplog):
+    pd = pytest.importorskip("pandas")
+    rows = [pd.DataFrame({"run": str(i), "time": np.arange(len(r)) * series.dt, "u": r[:, 0],
+                          "v": r[:, 1]}) for i, r in enumerate(series.runs)]
+    frame = pd.concat(rows, ignore_index=True)
+    calls = []
+    with caplog.at_level("INFO", logger="ergodex.fitting"):
+        fitter = make_fitter("sparse", {}).fit(frame, progress=lambda d, t: calls.append((d, t)))
+    assert fitter.surrogate_.provenance["data_fingerprint"] == series.fingerprint()
+    total = len(FITTERS["sparse"].fit_stages) + 1
+    assert calls[-1] == (total, total)
+    assert [d for d, _ in calls] == sorted(d for d, _ in calls) and len(calls) >= 2
+    messages = [r.getMessage() for r in caplog.records]
+    assert any("sparse regression" in m for m in messages)
+    assert any(m.startswith("fit sparse done") for m in messages)

@@ -13,4 +13,15 @@ CAUTION = (
     "heat, structural loads), defer to the applicable codes, standards and licensed practice."
 )
 
-__all__ = ["CAUTION", "__version__"]
+__all__ = ["CAUTION", "__version__", "as_series", "simulate"]
+
+# The Python API, loaded on first use so that ``import ergodex`` stays cheap.
+_LAZY = {"as_series": "ergodex.frames", "simulate": "ergodex.simulation"}
+
+
+def __getattr__(name: str):
+    if name in _LAZY:
+        import importlib
+
+        return getattr(importlib.import_module(_LAZY[name]), name)
+    raise AttributeError(f"module 'ergodex' has no attribute {name!r}")

@@ -36,8 +36,8 @@ class FlowResult:
 
 
 def fit_check_register(
-    fit_data: Series,
-    check_data: Series,
+    fit_data: Any,
+    check_data: Any,
     *,
     method: str = "sparse",
     settings: dict[str, Any] | None = None,
@@ -49,6 +49,7 @@ def fit_check_register(
     parent: int | str | None = None,
     title: str | None = None,
     report: bool = True,
+    progress: Any = False,
 ) -> FlowResult:
     """Fit a surrogate on ``fit_data``, check it against ``check_data``, register and accept it.
 
@@ -56,7 +57,8 @@ def fit_check_register(
     ----------
     fit_data, check_data
         Runs to fit on and held-out runs to check against (never the same runs: a check on the
-        fitting data flatters the model).
+        fitting data flatters the model): Series, pandas DataFrames or xarray Datasets (see
+        :func:`ergodex.frames.as_series`).
     method, settings
         Fitter name from :data:`ergodex.fitting.FITTERS` and its constructor settings.
     spec
@@ -67,10 +69,15 @@ def fit_check_register(
         Accept the new version when its scorecard passes (it stays a candidate otherwise).
     parent, title, report
         Lineage, report title, and whether to draw the report (see :func:`register_checked`).
+    progress
+        Progress of the fit and of the check (see :mod:`ergodex.progress`).
     """
     from ergodex.fitting import make_fitter
+    from ergodex.frames import as_series
     from ergodex.validation import CheckSpec, check
 
+    fit_data = as_series(fit_data, what="fit data")
+    check_data = as_series(check_data, what="check data")
     if fit_data.names != check_data.names:
         raise SettingsError(
             f"fit data variables {list(fit_data.names)} differ from check data variables "
@@ -79,10 +86,10 @@ def fit_check_register(
     settings = dict(settings or {})
     spec = spec if spec is not None else CheckSpec()
     log.info("fitting %s on %d runs (%d samples)", method, fit_data.n_runs, fit_data.n_samples)
-    fitter = make_fitter(method, settings).fit(fit_data)
+    fitter = make_fitter(method, settings).fit(fit_data, progress=progress)
     surrogate = fitter.surrogate_
     log.info("checking against %d held-out runs", check_data.n_runs)
-    result = check(surrogate, check_data, spec)
+    result = check(surrogate, check_data, spec, progress=progress)
     flow = FlowResult(surrogate=surrogate, check=result, fitter=fitter)
     if registry is None:
         return flow
@@ -142,7 +149,7 @@ def register_checked(
     with tempfile.TemporaryDirectory(prefix="ergodex-evidence-") as tmp:
         evidence_path = Path(tmp) / "evidence.npz"
         result.evidence.to_npz(evidence_path)
-        return registry.register(
+        info = registry.register(
             name,
             surrogate,
             scorecard=result.scorecard,
@@ -153,6 +160,9 @@ def register_checked(
             parent=parent,
             datasets=datasets,
         )
+    log.info("registry %s: wrote %s (%s, scorecard %s) in %s", getattr(registry, "home", ""),
+             info.ref, info.status, result.scorecard.verdict, info.folder)
+    return info
 
 
 #: Demo scenarios: name -> sample dataset (and registry model) name.

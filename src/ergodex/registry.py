@@ -218,6 +218,17 @@ class VersionInfo:
     def ref(self) -> str:
         return f"{self.name}@{self.version}"
 
+    def __repr__(self) -> str:
+        from ergodex.display import version_repr
+
+        return version_repr(self)
+
+    def _repr_html_(self) -> str:
+        """A small table for notebooks: status, verdict, lineage, fingerprints, folder."""
+        from ergodex.display import version_html
+
+        return version_html(self)
+
     def to_dict(self) -> dict[str, Any]:
         """Plain JSON-ready dict (the ``--json`` shape of ``ergodex models show NAME@V``)."""
         d = asdict(self)

@@ -60,6 +60,7 @@ import json
 import logging
 import math
 import os
+import contextlib
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from typing import Any
@@ -455,7 +456,7 @@ def retrain(
     seed: int = 0,
     holdout: Any = DEFAULT_HOLDOUT,
     report: bool = True,
-    progress: Callable[[str], None] | None = None,
+    progress: Any = False,
 ) -> Decision:
     """Re-check the accepted model on new data, fit and check a challenger, and decide.
 
@@ -464,8 +465,9 @@ def retrain(
     registry : ergodex.registry.Registry
     name : str
         Registry name of the model.
-    data : Series or path-like
-        The new data (a path is read with :func:`ergodex.readers.read_series`).
+    data : Series, pandas.DataFrame, xarray.Dataset or path-like
+        The new data (a path is read with :func:`ergodex.readers.read_series`, a table converted
+        by :func:`ergodex.frames.as_series`).
     config : path-like, (method, settings) pair or mapping, optional
         Fit settings for the challenger; default: the champion's recorded fit settings (or the
         sparse fitter's defaults on a first run).
@@ -479,9 +481,10 @@ def retrain(
     report : bool, default True
         Store the challenger's HTML report in its version folder (a few seconds of plotting;
         an inbox that receives many files may turn it off).
-    progress : callable, optional
-        Called with a short step name before each of the five steps (``read``, ``drift check``,
-        ``fit challenger``, ``register``, ``decide``), e.g. to move a progress bar.
+    progress : bool or callable(done, total)
+        Progress over the five steps (``read``, ``drift check``, ``fit challenger``,
+        ``register``, ``decide``; see :mod:`ergodex.progress`), each also logged. A callable of
+        one argument is still called with the step's name before the step, as before.
 
     Returns
     -------
@@ -494,13 +497,65 @@ def retrain(
         Bad input (unreadable data, variables that differ from the champion's, bad settings).
         Raised before anything is written to the registry.
     """
-    from ergodex.pipeline import fit_check_register
-    from ergodex.validation import check
-
     started = utc_now()
-    step = progress or (lambda _name: None)
     if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
         raise SettingsError(f"seed must be a non-negative integer, got {seed!r}")
+    with _steps(progress) as step:
+        return _retrain(registry, name, data, config=config, spec=spec, seed=seed,
+                        holdout=holdout, report=report, step=step, started=started)
+
+
+_STEPS = ("read", "drift check", "fit challenger", "register", "decide")
+
+
+@contextlib.contextmanager
+def _steps(progress: Any):
+    """``step(name)`` for each of :data:`_STEPS`: logged, and passed on to ``progress``."""
+    from ergodex.progress import reporter
+
+    if callable(progress) and not isinstance(progress, bool) and _takes_one(progress):
+        named = progress  # the older form: called with the step's name before the step
+        progress = False
+    else:
+        named = None
+    with reporter(progress, len(_STEPS), desc="retrain") as update:
+        def step(name: str) -> None:
+            log.info("retrain: %s", name)
+            if named is not None:
+                named(name)
+            if update is not None and name in _STEPS:
+                update(_STEPS.index(name), len(_STEPS))
+
+        yield step
+        if update is not None:
+            update(len(_STEPS), len(_STEPS))
+
+
+def _takes_one(function: Any) -> bool:
+    """Whether ``function`` can be called with exactly one positional argument, not two."""
+    import inspect
+
+    try:
+        signature = inspect.signature(function)
+    except (TypeError, ValueError):
+        return False
+    try:
+        signature.bind(0, 0)
+        return False
+    except TypeError:
+        pass
+    try:
+        signature.bind("read")
+        return True
+    except TypeError:
+        return False
+
+
+def _retrain(registry: Any, name: str, data: Any, *, config: Any, spec: Any, seed: int,
+             holdout: Any, report: bool, step: Callable[[str], None], started: str) -> Decision:
+    """The body of :func:`retrain`; ``step(name)`` announces each step."""
+    from ergodex.pipeline import fit_check_register
+    from ergodex.validation import check
 
     step("read")
     series = _as_series(data)
@@ -672,7 +727,9 @@ def _as_series(data: Any) -> Series:
         from ergodex.readers import read_series
 
         return read_series(data)
-    raise DataError(f"retrain data must be a Series or a file path, got {type(data).__name__}")
+    from ergodex.frames import as_series
+
+    return as_series(data, what="retrain data")
 
 
 def _check_variables(surrogate: Any, series: Series, ref: str) -> None:

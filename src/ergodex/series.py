@@ -232,6 +232,32 @@ class Series:
             source=source,
         )
 
+    @classmethod
+    def from_pandas(cls, frame: Any, *, dt: float | None = None, time_unit: str = "s",
+                    source: str = "DataFrame") -> Series:
+        """A Series from a pandas DataFrame: a ``time`` column or time-like index, an optional
+        ``run`` column, one column per variable (see :mod:`ergodex.frames`; datetimes give ``dt``
+        in ``time_unit``, seconds by default)."""
+        from ergodex.frames import from_pandas
+
+        return from_pandas(frame, dt=dt, time_unit=time_unit, source=source)
+
+    @classmethod
+    def from_xarray(cls, data: Any, *, dt: float | None = None, time_unit: str = "s",
+                    source: str = "Dataset") -> Series:
+        """A Series from an xarray Dataset or DataArray with dims ``(time,)`` or
+        ``(member | run, time)`` (see :mod:`ergodex.frames`)."""
+        from ergodex.frames import from_xarray
+
+        return from_xarray(data, dt=dt, time_unit=time_unit, source=source)
+
+    def to_xarray(self) -> Any:
+        """The Series as an xarray Dataset with dims ``(run, time)`` (see
+        :func:`ergodex.frames.to_xarray`); :meth:`from_xarray` gives back the same fingerprint."""
+        from ergodex.frames import to_xarray
+
+        return to_xarray(self)
+
     # --- sizes -------------------------------------------------------------------------------
     @property
     def n_variables(self) -> int:

@@ -351,6 +351,12 @@ class Surrogate:
             f"stochastic={self.is_stochastic})"
         )
 
+    def _repr_html_(self) -> str:
+        """A small table for notebooks: kind, variables, terms, noise, the first equations."""
+        from ergodex.display import surrogate_html
+
+        return surrogate_html(self)
+
     def __eq__(self, other: object) -> bool:
         return isinstance(other, Surrogate) and self.fingerprint() == other.fingerprint()
 

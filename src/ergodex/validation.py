@@ -47,6 +47,7 @@ from __future__ import annotations
 
 import itertools
 import json
+import logging
 import math
 import os
 import zipfile
@@ -83,6 +84,8 @@ __all__ = [
     "check",
     "validate",
 ]
+
+log = logging.getLogger(__name__)
 
 SCORECARD_FORMAT = "ergodex-scorecard/1"
 EVIDENCE_FORMAT = "ergodex-evidence/1"
@@ -430,6 +433,17 @@ class Scorecard:
         lines.append(f"Caution: {CAUTION}")
         return "\n".join(lines)
 
+    def __repr__(self) -> str:
+        from ergodex.display import scorecard_repr
+
+        return scorecard_repr(self)
+
+    def _repr_html_(self) -> str:
+        """A small table for notebooks: verdict, rows (failing first), blow-ups, caution."""
+        from ergodex.display import scorecard_html
+
+        return scorecard_html(self)
+
 
 def _fmt(x: float) -> str:
     if x is None or (isinstance(x, float) and math.isnan(x)):
@@ -562,6 +576,43 @@ class CheckResult:
     @property
     def passed(self) -> bool:
         return self.scorecard.passed
+
+    def __repr__(self) -> str:
+        return f"CheckResult({self.scorecard!r})"
+
+    def _repr_html_(self) -> str:
+        return self.scorecard._repr_html_()
+
+    # Figures (see ergodex.plotting): ax=None returns a new Figure, else draws on ax, returns it.
+    def plot_histograms(self, *, variables=None, ax=None):
+        """Marginal densities, reference and surrogate (:func:`ergodex.plotting.plot_histograms`)."""
+        from ergodex.plotting import plot_histograms
+
+        return plot_histograms(self, variables=variables, ax=ax)
+
+    def plot_autocorrelation(self, *, variables=None, ax=None):
+        """Autocorrelation against lag (:func:`ergodex.plotting.plot_autocorrelation`)."""
+        from ergodex.plotting import plot_autocorrelation
+
+        return plot_autocorrelation(self, variables=variables, ax=ax)
+
+    def plot_spectra(self, *, variables=None, ax=None):
+        """Power spectra on log axes (:func:`ergodex.plotting.plot_spectra`)."""
+        from ergodex.plotting import plot_spectra
+
+        return plot_spectra(self, variables=variables, ax=ax)
+
+    def plot_regimes(self, *, ax=None):
+        """Regime occupancy and residence times (:func:`ergodex.plotting.plot_regimes`)."""
+        from ergodex.plotting import plot_regimes
+
+        return plot_regimes(self, ax=ax)
+
+    def plot_projection(self, *, ax=None):
+        """Reference and surrogate states in 2-D (:func:`ergodex.plotting.plot_projection`)."""
+        from ergodex.plotting import plot_projection
+
+        return plot_projection(self, ax=ax)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -748,20 +799,25 @@ def _data_space_names(surrogate, reference, observed) -> np.ndarray | None:
     return None
 
 
-def check(surrogate, reference, spec: CheckSpec | None = None, *,
-          initial_states=None) -> CheckResult:
+def check(surrogate, reference, spec: CheckSpec | None = None, *, initial_states=None,
+          dt: float | None = None, progress=False) -> CheckResult:
     """Validate a surrogate against reference data: scorecard plus evidence.
 
     Parameters
     ----------
     surrogate : Surrogate
-    reference : Series
-        The data, in data space. Its runs (or blocks of them) provide the noise floor.
+    reference : Series, pandas.DataFrame or xarray.Dataset/DataArray
+        The data, in data space (converted by :func:`ergodex.frames.as_series`). Its runs (or
+        blocks of them) provide the noise floor.
     spec : CheckSpec, optional
         Settings; defaults as documented on :class:`CheckSpec`.
     initial_states : array_like, shape (members, n_variables), optional
         Data-space starting states, one per member, instead of states drawn from the reference
         (their fingerprint goes into the scorecard's settings).
+    dt : float, optional
+        Sampling interval when ``reference`` is a table without times.
+    progress : bool or callable(done, total)
+        Progress of the ensemble integration and the scoring (see :mod:`ergodex.progress`).
 
     Returns
     -------
@@ -780,6 +836,29 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
     .. [2] P. D. Welch, IEEE Trans. Audio Electroacoust. 15, 70–73 (1967) (spectra).
     .. [3] A. D. Sokal (1997), Monte Carlo methods in statistical mechanics (decorrelation time).
     """
+    from ergodex.frames import as_series
+    from ergodex.progress import reporter
+
+    reference = as_series(reference, dt=dt, what="reference")
+    log.info("check: %s surrogate against %d runs (%d samples) of %s",
+             getattr(surrogate, "kind", type(surrogate).__name__), reference.n_runs,
+             reference.n_samples, ", ".join(reference.names))
+    with reporter(progress, 1, desc="check", unit="output") as update:
+        result = _check(surrogate, reference, spec, initial_states, update)
+    card = result.scorecard
+    settings = card.settings
+    log.info("check: %d members of %g time units after a spin-up of %g; %s",
+             card.spec.members, settings.get("member_length", float("nan")),
+             settings.get("spinup", float("nan")),
+             settings.get("integration", {}).get("message", ""))
+    log.info("check verdict: %s (largest ratio %s over %d rows)%s", card.verdict,
+             _fmt(card.largest_ratio), len(card.rows),
+             "; " + "; ".join(card.reasons[:3]) if card.reasons else "")
+    return result
+
+
+def _check(surrogate, reference, spec, initial_states, update) -> CheckResult:
+    """The check itself, on a Series; ``update(done, total)`` (or None) hears of its progress."""
     import ergodex
     from ergodex.integrate import blowup_bound, integrate_ensemble
 
@@ -881,7 +960,8 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
         if len(observed) < surrogate.n_variables:
             keep = columns
     run = integrate_ensemble(surrogate, z0, dt_out=dt, n_out=n_out, spinup=spinup, bound=bound,
-                             seed=int(seeds[1]), keep=keep)
+                             seed=int(seeds[1]), keep=keep,
+                             progress=None if update is None else (lambda d, t: update(d, t + 1)))
 
     # -- model output in data space -----------------------------------------------------------
     alive = ~np.asarray(run.blown_up, bool)
@@ -979,6 +1059,8 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
         ergodex_version=ergodex.__version__, settings=settings)
     evidence = _evidence(reference, stacked, ref_pieces, ref_stats, model, alive, blowup_times,
                          spec, ctx, rng)
+    if update is not None:
+        update(n_out + 1, n_out + 1)  # the integration's outputs, then the scoring
     return CheckResult(scorecard, evidence)
 
 
@@ -1144,6 +1226,7 @@ def _evidence(reference, stacked, ref_pieces, ref_stats, model, alive, blowup_ti
 
 
 def validate(surrogate, reference, spec: CheckSpec | None = None, *,
-             initial_states=None) -> Scorecard:
+             initial_states=None, dt: float | None = None, progress=False) -> Scorecard:
     """Like :func:`check`, returning only the scorecard."""
-    return check(surrogate, reference, spec, initial_states=initial_states).scorecard
+    return check(surrogate, reference, spec, initial_states=initial_states, dt=dt,
+                 progress=progress).scorecard

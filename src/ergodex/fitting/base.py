@@ -8,17 +8,22 @@ returns ``self``.
 
 from __future__ import annotations
 
+import copy
 import importlib
-import inspect
+import logging
 import os
+import time
 import tomllib
 from collections.abc import Mapping
 from typing import Any, ClassVar, Iterator
 
 import numpy as np
+from sklearn.base import BaseEstimator
 
 from ergodex.exceptions import DataError, NotFittedError, SettingsError
 from ergodex.fitting.settings import Rule, check_settings
+
+log = logging.getLogger(__name__)
 
 __all__ = [
     "Fitter",
@@ -33,8 +38,9 @@ __all__ = [
 ]
 
 
-class Fitter:
-    """Base class of every fitter.
+class Fitter(BaseEstimator):
+    """Base class of every fitter: a scikit-learn estimator (``get_params(deep)``, ``set_params``,
+    ``sklearn.base.clone``, ``check_is_fitted`` and the notebook display all work).
 
     An implementer provides:
 
@@ -53,6 +59,8 @@ class Fitter:
     4. Optionally ``_check_consistency(self)``: checks that involve several settings at once,
        raising :class:`~ergodex.exceptions.SettingsError`.
     5. A numpydoc docstring with a References section naming the published method.
+    6. Optionally ``fit_stages``: the names of the substeps ``_fit`` announces with
+       :meth:`_stage` (logged, and counted by ``progress``).
 
     Reading a learned attribute (a name ending in ``_``) before ``fit`` raises
     :class:`~ergodex.exceptions.NotFittedError`.
@@ -60,20 +68,11 @@ class Fitter:
 
     method: ClassVar[str] = ""
     settings_table: ClassVar[dict[str, Rule]] = {}
+    fit_stages: ClassVar[tuple[str, ...]] = ()
 
     # -- settings ---------------------------------------------------------------------------
-    @classmethod
-    def _param_names(cls) -> list[str]:
-        signature = inspect.signature(cls.__init__)
-        return [
-            name
-            for name, p in signature.parameters.items()
-            if name != "self" and p.kind in (p.KEYWORD_ONLY, p.POSITIONAL_OR_KEYWORD)
-        ]
-
-    def get_params(self) -> dict[str, Any]:
-        """Return the settings as a new dict (constructor argument name → value)."""
-        return {name: _copy_value(getattr(self, name)) for name in self._param_names()}
+    # get_params(deep=True) comes from scikit-learn's BaseEstimator: the settings as a new dict
+    # holding the stored objects themselves (clone checks that identity).
 
     def set_params(self, **settings: Any) -> "Fitter":
         """Change settings (checked at once against the table) and return ``self``."""
@@ -91,29 +90,68 @@ class Fitter:
         """Checks that involve several settings at once (overridden where needed)."""
 
     # -- fitting ----------------------------------------------------------------------------
-    def fit(self, series) -> "Fitter":
-        """Learn a surrogate from every run of ``series`` and return ``self``.
+    def fit(self, data, y=None, *, dt: float | None = None, progress=False) -> "Fitter":
+        """Learn a surrogate from every run of ``data`` and return ``self``.
 
         Parameters
         ----------
-        series : ergodex.series.Series
-            One or more runs of the same variables, sampled every ``series.dt``.
+        data : Series, pandas.DataFrame or xarray.Dataset/DataArray
+            One or more runs of the same variables, sampled every ``dt`` (converted by
+            :func:`ergodex.frames.as_series`).
+        y : None
+            Unused; present so that scikit-learn tools may call ``fit(X, y)``.
+        dt : float, optional
+            Sampling interval when ``data`` is a table without times.
+        progress : bool or callable(done, total)
+            Progress of the fit's substeps (see :mod:`ergodex.progress`).
 
         Returns
         -------
         self
         """
+        from ergodex.frames import as_series
+        from ergodex.progress import reporter
+
+        series = as_series(data, dt=dt, what="fit data")
         self.check_params()
         check_series(series)
-        before = self.get_params()
-        self._fit(series)
+        before = copy.deepcopy(self.get_params(deep=False))
+        total = len(self.fit_stages) + 1
+        log.info("fit %s: %d runs, %d samples of %d variables (%s), dt=%g",
+                 self.method, series.n_runs, series.n_samples, series.n_variables,
+                 ", ".join(series.names), series.dt)
+        started = time.perf_counter()
+        with reporter(progress, total, desc=f"fit {self.method}") as update:
+            self._stage_state = [0, total, update]
+            try:
+                self._fit(series)
+            finally:
+                del self._stage_state
+            if update is not None:
+                update(total, total)
         # fit must leave every setting as it found it (scikit-learn's rule; a sweep relies on it)
-        if not _same_params(before, self.get_params()):  # a programming error in the fitter
+        if not _same_params(before, self.get_params(deep=False)):  # a programming error
             raise RuntimeError(
                 f"{type(self).__name__}._fit changed a setting; learned state belongs in "
                 "attributes ending in '_'"
             )
+        log.info("fit %s done in %.2f s: %d terms, score %.4g", self.method,
+                 time.perf_counter() - started, getattr(self, "n_terms_", -1), self.score_)
         return self
+
+    def _stage(self, name: str) -> None:
+        """Announce a substep of ``_fit``: logged, and counted by the fit's progress."""
+        state = self.__dict__.get("_stage_state")
+        log.info("fit %s: %s", self.method, name)
+        if state is None:
+            return
+        state[0] = min(state[0] + 1, state[1] - 1)
+        if state[2] is not None:
+            state[2](state[0], state[1])
+
+    def __sklearn_is_fitted__(self) -> bool:
+        """What ``sklearn.utils.validation.check_is_fitted`` asks."""
+        return self.is_fitted
 
     def _fit(self, series) -> None:  # pragma: no cover - the abstract hook
         raise NotImplementedError
@@ -131,17 +169,8 @@ class Fitter:
             )
         raise AttributeError(f"{type(self).__name__!r} object has no attribute {name!r}")
 
-    def __repr__(self) -> str:
-        params = ", ".join(f"{k}={v!r}" for k, v in self.get_params().items())
-        return f"{type(self).__name__}({params})"
-
-
-def _copy_value(value: Any) -> Any:
-    if isinstance(value, list):
-        return list(value)
-    if isinstance(value, dict):
-        return dict(value)
-    return value
+    # __repr__ and _repr_html_ come from BaseEstimator: only the settings that differ from the
+    # defaults, so a repr stays one short line.
 
 
 def _same_params(a: dict[str, Any], b: dict[str, Any]) -> bool:

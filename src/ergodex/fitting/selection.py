@@ -16,6 +16,7 @@ depend on where it ran.
 
 from __future__ import annotations
 
+import logging
 import math
 import os
 import sys
@@ -26,6 +27,8 @@ import numpy as np
 
 from ergodex.exceptions import ErgodexError, SettingsError
 from ergodex.fitting.base import check_fit_settings, fitter_class, make_fitter
+
+log = logging.getLogger(__name__)
 
 __all__ = ["Candidate", "SelectionResult", "select", "threshold_sweep", "parse_selection", "DEFAULT_THRESHOLDS"]
 
@@ -208,19 +211,19 @@ def select(
     thresholds: Sequence[float] | None = None,
     scheduler: Any = None,
     n_jobs: int | None = None,
-    progress: bool | None = None,
+    progress: Any = None,
 ) -> SelectionResult:
     """Fit and check every candidate; choose the sparsest whose statistics pass.
 
     Parameters
     ----------
-    series : Series
-        Data to fit on.
+    series : Series, pandas.DataFrame or xarray.Dataset
+        Data to fit on (converted by :func:`ergodex.frames.as_series`).
     candidates : list of (method, settings), optional
         What to try. Default: a threshold sweep of the sparse fitter over ``thresholds``.
     spec : CheckSpec, optional
         How every candidate is checked (the same seed for all, so results are comparable).
-    reference : Series, optional
+    reference : Series, DataFrame or Dataset, optional
         Data to check against — held-out runs of the same system. Default: ``series`` itself,
         which flatters every candidate a little; pass held-out runs whenever there are some.
     thresholds : sequence of float, optional
@@ -233,8 +236,9 @@ def select(
         pysindy and compiling the integrator's kernels (seconds to tens of seconds on a busy
         machine), so processes only pay off when each candidate takes longer than that; -1 uses
         every CPU.
-    progress : bool, optional
-        Show a progress bar; default only when standard error is a terminal.
+    progress : bool or callable(done, total), optional
+        Progress over the candidates (see :mod:`ergodex.progress`); default: a bar only when
+        standard error is a terminal.
 
     Returns
     -------
@@ -245,8 +249,12 @@ def select(
     The sweep-then-check idea follows the model-selection step of Brunton, Proctor & Kutz (2016)
     with the tendency error replaced by a statistical check against the data's noise floor.
     """
+    from ergodex.frames import as_series
     from ergodex.validation import CheckSpec
 
+    series = as_series(series, what="fit data")
+    if reference is not None:
+        reference = as_series(reference, what="reference")
     if candidates is None:
         candidates = threshold_sweep(thresholds if thresholds is not None else DEFAULT_THRESHOLDS)
     elif thresholds is not None:
@@ -269,7 +277,9 @@ def select(
         )
 
     jobs = [(k, m, s) for k, (m, s) in enumerate(candidates)]
-    show = sys.stderr.isatty() if progress is None else bool(progress)
+    show = sys.stderr.isatty() if progress is None else progress
+    log.info("select: %d candidates on %d runs, checked against %d runs", len(jobs),
+             series.n_runs, reference.n_runs)
     results, backend = _run(jobs, series, reference, spec_dict, scheduler, n_jobs, show)
 
     by_index = {r["index"]: r for r in results}
@@ -302,6 +312,10 @@ def select(
             f"chose candidate {chosen} ({c.method}, {c.n_terms} terms, statistical score "
             f"{c.statistical_score:.3g}): the sparsest of {sum(x.passed for x in out)} passing candidates"
         )
+    for c in out:
+        log.info("select: candidate %d (%s %s): %s, %s terms, score %s", c.index, c.method,
+                 c.settings, c.verdict, c.n_terms, c.statistical_score)
+    log.info("select: %s", message)
     return SelectionResult(
         candidates=out,
         chosen=chosen,
@@ -365,24 +379,15 @@ def _run_dask(tasks, scheduler, show) -> list[dict]:
             client.close()
 
 
-def _collect(iterator, total: int, show: bool) -> list[dict]:
-    bar = None
-    if show:
-        try:
-            from tqdm import tqdm
+def _collect(iterator, total: int, show: Any) -> list[dict]:
+    from ergodex.progress import reporter
 
-            bar = tqdm(total=total, desc="candidates", unit="fit", file=sys.stderr)
-        except ImportError:  # pragma: no cover - tqdm is a core dependency
-            bar = None
     results = []
-    try:
+    with reporter(show, total, desc="candidates", unit="fit") as update:
         for item in iterator:
             results.append(item)
-            if bar is not None:
-                bar.update(1)
-    finally:
-        if bar is not None:
-            bar.close()
+            if update is not None:
+                update(len(results), total)
     return results
 
 

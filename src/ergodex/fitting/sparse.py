@@ -164,6 +164,7 @@ class SparseODE(Fitter):
 
     method = "sparse"
     settings_table = sparse_settings_table
+    fit_stages = ("term library", "regression rows", "sparse regression", "surrogate")
 
     def __init__(
         self,
@@ -244,15 +245,19 @@ class SparseODE(Fitter):
         n = len(variables)
         internal = [f"x{j}" for j in range(n)]
 
+        self._stage(f"term library ({self.library}, degree {self.degree}) on {n} variables")
         library = self._make_library(ps)
         library.fit([runs[0]])
         feature_names = list(library.get_feature_names(internal))
         terms = terms_from_feature_names(feature_names, n)
         names = term_names(terms, variables)
 
+        self._stage(f"regression rows: {len(terms)} terms, {self.differentiation} tendencies")
         Theta, Y = self._regression_rows(ps, runs, float(series.dt), terms, _source(series))
         check_library_rank(Theta, names, what=_source(series))
 
+        self._stage(f"sparse regression: {self.optimizer} on {Theta.shape[0]} rows"
+                    + (f", ensemble of {self.n_models}" if self.ensemble else ""))
         coefficients, extras = self._solve(ps, Theta, Y, n_features=len(terms))
         fitted = Theta @ coefficients.T
         r2 = r2_score(Y, fitted)
@@ -269,6 +274,7 @@ class SparseODE(Fitter):
         self.transform_ = transform
         # the tendency error is measured pointwise with order-4 differences whatever the fit used,
         # so that candidates fitted in weak form and by differences compare on one scale
+        self._stage("surrogate and tendency error")
         self.tendency_error_ = relative_tendency_error(_AsDrift(terms, coefficients), runs, float(series.dt))
         self.surrogate_ = self._build_surrogate(series, runs, variables, transform, terms, coefficients, ps)
 

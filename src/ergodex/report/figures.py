@@ -1,7 +1,11 @@
-"""Figures of the validation report: arrays in, one SVG document (text) out.
+"""Figures of the validation report: arrays in, panels drawn, one SVG document (text) out.
 
-Each function takes plain numpy arrays (no Evidence object, no files) and returns the SVG of one
-matplotlib figure, so that it can be tested and reused on its own. Figures are drawn on a
+Each figure has one drawing function, ``draw_*(axes, ...)``, that takes plain numpy arrays (no
+Evidence object, no files) and draws on the matplotlib axes it is given; the ``*_figure``
+functions lay out a grid of panels, call it and return the SVG of the figure. The report uses the
+SVG functions; :mod:`ergodex.plotting` (``CheckResult.plot_histograms(ax=...)`` and friends)
+calls the same drawing functions on a user's axes, so a notebook and the report show the same
+picture. Report figures are drawn on a
 :class:`matplotlib.figure.Figure` built directly rather than through ``pyplot``: ``pyplot`` keeps a
 global list of open figures and a global backend, which would leak into (and be disturbed by) any
 other code running in the same process, e.g. a notebook or the HTTP service. Saving to ``svg``
@@ -182,8 +186,17 @@ def histogram_figure(variables: Sequence[str], edges: np.ndarray, reference: np.
     reference_pieces : array (n_pieces, n_vars, n_bins + 2), optional
         Same for each reference piece; drawn as the band between the lowest and highest piece.
     """
-    edges = np.atleast_2d(np.asarray(edges, dtype=float))
     figure, axes = _grid_figure(len(variables))
+    draw_histograms(axes, variables, edges, reference, model, reference_pieces)
+    _legend(figure, axes)
+    return figure_to_svg(figure)
+
+
+def draw_histograms(axes: Sequence, variables: Sequence[str], edges: np.ndarray,
+                    reference: np.ndarray, model: np.ndarray,
+                    reference_pieces: np.ndarray | None = None) -> None:
+    """Draw :func:`histogram_figure`'s panels, one variable per axes (arguments alike)."""
+    edges = np.atleast_2d(np.asarray(edges, dtype=float))
     for j, (ax, name) in enumerate(zip(axes, variables)):
         ref_density, ref_below, ref_above = _densities(reference[j], edges[j])
         mod_density, mod_below, mod_above = _densities(model[j], edges[j])
@@ -223,8 +236,6 @@ def histogram_figure(variables: Sequence[str], edges: np.ndarray, reference: np.
                            f"surr {100 * (mod_below + mod_above):.1f}%")
         if outside:
             ax.set_xlabel(outside[0], fontsize=_FONT - 1, color=MUTED_COLOUR)
-    _legend(figure, axes)
-    return figure_to_svg(figure)
 
 
 def autocorrelation_figure(variables: Sequence[str], lags: np.ndarray, reference: np.ndarray,
@@ -238,8 +249,17 @@ def autocorrelation_figure(variables: Sequence[str], lags: np.ndarray, reference
     reference, model : array (n_vars, n_lags)
     reference_pieces : array (n_pieces, n_vars, n_lags), optional
     """
-    lags = np.asarray(lags, dtype=float)
     figure, axes = _grid_figure(len(variables))
+    draw_autocorrelation(axes, variables, lags, reference, model, reference_pieces)
+    _legend(figure, axes)
+    return figure_to_svg(figure)
+
+
+def draw_autocorrelation(axes: Sequence, variables: Sequence[str], lags: np.ndarray,
+                         reference: np.ndarray, model: np.ndarray,
+                         reference_pieces: np.ndarray | None = None) -> None:
+    """Draw :func:`autocorrelation_figure`'s panels, one variable per axes (arguments alike)."""
+    lags = np.asarray(lags, dtype=float)
     band = _band(reference_pieces)
     for j, (ax, name) in enumerate(zip(axes, variables)):
         _curve_panel(ax, lags, None if band is None else (band[0][j], band[1][j]),
@@ -250,8 +270,6 @@ def autocorrelation_figure(variables: Sequence[str], lags: np.ndarray, reference
         _title(ax, str(name))
         ax.set_xlabel("lag (time units)", fontsize=_FONT)
         ax.set_ylabel("autocorrelation", fontsize=_FONT)
-    _legend(figure, axes)
-    return figure_to_svg(figure)
 
 
 def spectrum_figure(variables: Sequence[str], frequencies: np.ndarray, reference: np.ndarray,
@@ -266,10 +284,19 @@ def spectrum_figure(variables: Sequence[str], frequencies: np.ndarray, reference
     reference, model : array (n_vars, n_freq)
     reference_pieces : array (n_pieces, n_vars, n_freq), optional
     """
+    figure, axes = _grid_figure(len(variables))
+    draw_spectra(axes, variables, frequencies, reference, model, reference_pieces)
+    _legend(figure, axes)
+    return figure_to_svg(figure)
+
+
+def draw_spectra(axes: Sequence, variables: Sequence[str], frequencies: np.ndarray,
+                 reference: np.ndarray, model: np.ndarray,
+                 reference_pieces: np.ndarray | None = None) -> None:
+    """Draw :func:`spectrum_figure`'s panels, one variable per axes (arguments alike)."""
     frequencies = np.asarray(frequencies, dtype=float)
     keep = frequencies > 0
     f = frequencies[keep]
-    figure, axes = _grid_figure(len(variables))
     band = _band(reference_pieces)
 
     def positive(values: np.ndarray) -> np.ndarray:
@@ -300,8 +327,6 @@ def spectrum_figure(variables: Sequence[str], frequencies: np.ndarray, reference
         _title(ax, str(name))
         ax.set_xlabel("frequency (cycles per time unit)", fontsize=_FONT)
         ax.set_ylabel("power spectral density", fontsize=_FONT)
-    _legend(figure, axes)
-    return figure_to_svg(figure)
 
 
 def _grouped_bars(ax, names: Sequence[str], reference: np.ndarray, model: np.ndarray,
@@ -337,21 +362,37 @@ def regime_figure(regime_names: Sequence[str], occupancy_reference: np.ndarray,
     residence_reference, residence_model : array (n_regimes,), optional
         Mean residence time per regime, time units.
     """
-    with_residence = (residence_reference is not None and np.size(residence_reference) > 0
-                      and residence_model is not None and np.size(residence_model) > 0)
+    with_residence = has_residence(residence_reference, residence_model)
     n_panels = 2 if with_residence else 1
     width = max(_PANEL_WIDTH, 0.75 * len(regime_names) + 1.2)
     figure, axes = _grid_figure(n_panels, width=width, height=2.5, columns=2)
+    draw_regimes(axes, regime_names, occupancy_reference, occupancy_model,
+                 occupancy_pieces=occupancy_pieces, residence_reference=residence_reference,
+                 residence_model=residence_model)
+    _legend(figure, axes)
+    return figure_to_svg(figure)
+
+
+def has_residence(residence_reference: np.ndarray | None,
+                  residence_model: np.ndarray | None) -> bool:
+    """Whether the regime figure gets its second panel (mean residence times)."""
+    return (residence_reference is not None and np.size(residence_reference) > 0
+            and residence_model is not None and np.size(residence_model) > 0)
+
+
+def draw_regimes(axes: Sequence, regime_names: Sequence[str], occupancy_reference: np.ndarray,
+                 occupancy_model: np.ndarray, *, occupancy_pieces: np.ndarray | None = None,
+                 residence_reference: np.ndarray | None = None,
+                 residence_model: np.ndarray | None = None) -> None:
+    """Draw :func:`regime_figure`'s panels: occupancy on ``axes[0]``, residence on ``axes[1]``."""
     _grouped_bars(axes[0], regime_names, occupancy_reference, occupancy_model,
                   _band(occupancy_pieces))
     _title(axes[0], "time spent in each regime")
     axes[0].set_ylabel("fraction of time", fontsize=_FONT)
-    if with_residence:
+    if has_residence(residence_reference, residence_model) and len(axes) > 1:
         _grouped_bars(axes[1], regime_names, residence_reference, residence_model)
         _title(axes[1], "mean residence time")
         axes[1].set_ylabel("time units", fontsize=_FONT)
-    _legend(figure, axes)
-    return figure_to_svg(figure)
 
 
 def transition_figure(regime_names: Sequence[str], reference: np.ndarray, model: np.ndarray) -> str:
@@ -421,6 +462,15 @@ def projection_figure(variables: Sequence[str], reference_sample: np.ndarray,
     With two variables the projection is the variables themselves; with more, the two leading
     principal components of the standardised reference sample (PCA), applied to both samples.
     """
+    figure, axes = _grid_figure(2, width=3.6, height=3.2, columns=2, legend=False)
+    draw_projection(axes, variables, reference_sample, model_sample)
+    return figure_to_svg(figure)
+
+
+def draw_projection(axes: Sequence, variables: Sequence[str], reference_sample: np.ndarray,
+                    model_sample: np.ndarray) -> None:
+    """Draw :func:`projection_figure`'s two panels: reference on ``axes[0]``, surrogate on
+    ``axes[1]`` (arguments alike)."""
     reference_sample = np.asarray(reference_sample, dtype=float)
     model_sample = np.asarray(model_sample, dtype=float)
     reference_sample = reference_sample[np.all(np.isfinite(reference_sample), axis=1)]
@@ -440,7 +490,6 @@ def projection_figure(variables: Sequence[str], reference_sample: np.ndarray,
         mod_xy = ((model_finite - centre) / scale) @ directions
         labels = (f"principal component 1 ({100 * explained[0]:.0f}% of variance)",
                   f"principal component 2 ({100 * explained[1]:.0f}% of variance)")
-    figure, axes = _grid_figure(2, width=3.6, height=3.2, columns=2, legend=False)
     limits_from = ref_xy if len(ref_xy) else mod_xy
     pad_x = 0.08 * (np.ptp(limits_from[:, 0]) or 1.0)
     pad_y = 0.08 * (np.ptp(limits_from[:, 1]) or 1.0)
@@ -458,7 +507,6 @@ def projection_figure(variables: Sequence[str], reference_sample: np.ndarray,
         ax.set_ylabel(labels[1], fontsize=_FONT)
         title_colour = REFERENCE_COLOUR if label == REFERENCE_LABEL else SURROGATE_DARK
         _title(ax, f"{label} ({len(points)} states)", title_colour)
-    return figure_to_svg(figure)
 
 
 def selection_figure(complexity: np.ndarray, score: np.ndarray, chosen: int | None, *,

@@ -1,0 +1,165 @@
+"""Figures of a check, for notebooks and scripts: the report's figures on your own axes.
+
+Each function takes a :class:`~ergodex.validation.CheckResult` (or its
+:class:`~ergodex.validation.Evidence`) and draws with the same drawing function the HTML report
+uses (:mod:`ergodex.report.figures`), so the two always agree.
+
+- ``ax=None``: a new :class:`matplotlib.figure.Figure` (built without ``pyplot``, so no global
+  figure list grows) laid out like the report's, which is returned; a notebook shows it.
+- ``ax=`` one Axes, or a sequence with one Axes per panel: drawn there, and ``ax`` is returned.
+
+Nothing here calls ``pyplot.show``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+
+from ergodex.exceptions import DataError, SettingsError
+
+__all__ = [
+    "plot_histograms",
+    "plot_autocorrelation",
+    "plot_spectra",
+    "plot_regimes",
+    "plot_projection",
+]
+
+
+def _evidence(result: Any) -> Any:
+    evidence = getattr(result, "evidence", result)
+    if not hasattr(evidence, "hist_edges"):
+        raise SettingsError(
+            f"expected a CheckResult or its Evidence, got {type(result).__name__} (a Scorecard "
+            "alone holds no curves: keep the CheckResult that check() returns)"
+        )
+    return evidence
+
+
+def _pick(evidence: Any, variables: str | Sequence[str] | None) -> tuple[list[str], list[int]]:
+    names = [str(n) for n in np.asarray(evidence.variables).tolist()]
+    if variables is None:
+        return names, list(range(len(names)))
+    wanted = [variables] if isinstance(variables, str) else list(variables)
+    missing = [v for v in wanted if v not in names]
+    if missing:
+        raise DataError(f"no variable named {missing[0]!r} in the check; the variables are "
+                        f"{', '.join(names)}")
+    return wanted, [names.index(v) for v in wanted]
+
+
+def _panels(ax: Any, n: int, what: str, **grid: Any) -> tuple[Any, list]:
+    """(figure or None, axes): a new report-style grid, or the caller's axes checked for count."""
+    from matplotlib.axes import Axes
+
+    from ergodex.report import figures
+
+    if ax is None:
+        return figures._grid_figure(n, **grid)
+    axes = [ax] if isinstance(ax, Axes) else list(np.ravel(np.asarray(ax, dtype=object)))
+    if len(axes) != n or not all(isinstance(a, Axes) for a in axes):
+        raise SettingsError(
+            f"ax: {what} needs {n} matplotlib Axes (one per panel), got {len(axes)}; pass that "
+            "many, or choose fewer with variables=[...]"
+        )
+    return None, axes
+
+
+def _done(figure: Any, axes: list, ax: Any, legend: bool = True) -> Any:
+    from ergodex.report import figures
+
+    if figure is None:
+        return ax
+    if legend:
+        figures._legend(figure, axes)
+    return figure
+
+
+def _curves(evidence: Any, prefix: str, index: list[int]) -> tuple:
+    """Reference, surrogate and piece curves of the chosen variables, one row per variable."""
+    ref = np.asarray(getattr(evidence, f"{prefix}_reference"), dtype=float)[:, index].T
+    mod = np.asarray(getattr(evidence, f"{prefix}_model"), dtype=float)[:, index].T
+    pieces = np.asarray(getattr(evidence, f"{prefix}_reference_pieces"), dtype=float)
+    pieces = np.swapaxes(pieces[:, :, index], 1, 2) if pieces.ndim == 3 and len(pieces) else None
+    return ref, mod, pieces
+
+
+def plot_histograms(result: Any, *, variables: str | Sequence[str] | None = None,
+                    ax: Any = None) -> Any:
+    """Marginal densities of reference and surrogate, with the spread of reference pieces.
+
+    Returns the new Figure (``ax=None``) or ``ax``.
+    """
+    from ergodex.report import figures
+
+    evidence = _evidence(result)
+    names, index = _pick(evidence, variables)
+    figure, axes = _panels(ax, len(names), "plot_histograms")
+    pieces = np.asarray(evidence.hist_reference_pieces, dtype=float)
+    figures.draw_histograms(axes, names, np.asarray(evidence.hist_edges)[index],
+                            np.asarray(evidence.hist_reference)[index],
+                            np.asarray(evidence.hist_model)[index],
+                            pieces[:, index] if pieces.ndim == 3 and len(pieces) else None)
+    return _done(figure, axes, ax)
+
+
+def plot_autocorrelation(result: Any, *, variables: str | Sequence[str] | None = None,
+                         ax: Any = None) -> Any:
+    """Autocorrelation against lag (time units) of reference and surrogate, per variable."""
+    from ergodex.report import figures
+
+    evidence = _evidence(result)
+    names, index = _pick(evidence, variables)
+    figure, axes = _panels(ax, len(names), "plot_autocorrelation")
+    figures.draw_autocorrelation(axes, names, evidence.acf_lags, *_curves(evidence, "acf", index))
+    return _done(figure, axes, ax)
+
+
+def plot_spectra(result: Any, *, variables: str | Sequence[str] | None = None,
+                 ax: Any = None) -> Any:
+    """Power spectral densities (log-log) of reference and surrogate, per variable."""
+    from ergodex.report import figures
+
+    evidence = _evidence(result)
+    names, index = _pick(evidence, variables)
+    figure, axes = _panels(ax, len(names), "plot_spectra")
+    figures.draw_spectra(axes, names, evidence.psd_freq, *_curves(evidence, "psd", index))
+    return _done(figure, axes, ax)
+
+
+def plot_regimes(result: Any, *, ax: Any = None) -> Any:
+    """Time spent in each regime, and mean residence times (two panels) when the check had them."""
+    from ergodex.report import figures
+
+    evidence = _evidence(result)
+    regime_names = [str(n) for n in np.asarray(evidence.regime_names).tolist()]
+    if not regime_names:
+        raise SettingsError("plot_regimes: the check had no regimes (give CheckSpec(regimes=...))")
+    n_panels = 2 if figures.has_residence(evidence.residence_reference,
+                                          evidence.residence_model) else 1
+    if ax is not None and not isinstance(ax, (list, tuple, np.ndarray)):
+        n_panels = 1  # one Axes given: occupancy only
+    width = max(figures._PANEL_WIDTH, 0.75 * len(regime_names) + 1.2)
+    figure, axes = _panels(ax, n_panels, "plot_regimes", width=width, height=2.5, columns=2)
+    pieces = np.asarray(evidence.occupancy_reference_pieces)
+    figures.draw_regimes(axes, regime_names, evidence.occupancy_reference,
+                         evidence.occupancy_model,
+                         occupancy_pieces=pieces if pieces.size else None,
+                         residence_reference=evidence.residence_reference,
+                         residence_model=evidence.residence_model)
+    return _done(figure, axes, ax)
+
+
+def plot_projection(result: Any, *, ax: Any = None) -> Any:
+    """Sampled states of reference (first panel) and surrogate (second) on the same 2-D axes."""
+    from ergodex.report import figures
+
+    evidence = _evidence(result)
+    names = [str(n) for n in np.asarray(evidence.variables).tolist()]
+    figure, axes = _panels(ax, 2, "plot_projection", width=3.6, height=3.2, columns=2,
+                           legend=False)
+    figures.draw_projection(axes, names, evidence.sample_reference, evidence.sample_model)
+    return _done(figure, axes, ax, legend=False)
