@@ -8,17 +8,24 @@ the inbox's bookkeeping is.
 
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import shutil
+import sqlite3
+import subprocess
+import sys
 import threading
+import time
 from pathlib import Path
 
 import pytest
 
+import ergodex
 from ergodex.cli import main
 from ergodex.exceptions import SettingsError
 from ergodex.inbox import (
+    CLAIMED_FOLDER,
     DONE_FOLDER,
     LEDGER_NAME,
     MAX_ATTEMPTS,
@@ -71,7 +78,7 @@ def test_temporary_and_hidden_names_are_not_datasets():
 def test_a_file_is_taken_only_after_two_polls_with_the_same_size(tmp_path):
     inbox = tmp_path / "inbox"
     inbox.mkdir()
-    watcher = _Watcher(inbox, NAME, Registry(tmp_path / "home"), {})
+    watcher = _Watcher(inbox, NAME, Registry(tmp_path / "home"), {})  # settle 0: two polls
     try:
         growing = inbox / "growing.csv"
         growing.write_text("a,b\n")
@@ -85,6 +92,97 @@ def test_a_file_is_taken_only_after_two_polls_with_the_same_size(tmp_path):
         watcher.ledger.close()
 
 
+class _Clock:
+    """A clock the test moves by hand, so the quiet-period rule is checked to the tick."""
+
+    def __init__(self) -> None:
+        self.now = 0.0
+
+    def __call__(self) -> float:
+        return self.now
+
+
+def test_a_file_is_taken_only_once_unchanged_for_the_quiet_period(tmp_path):
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    clock = _Clock()
+    watcher = _Watcher(inbox, NAME, Registry(tmp_path / "home"), {}, settle=0.5, clock=clock)
+    try:
+        slow = inbox / "slow.csv"
+        slow.write_text("time,x\n0,1\n")
+        (inbox / "slow.csv.part").write_text("time,x\n")  # a temporary name: never taken
+        assert watcher.stable_files() == []  # first sight at t = 0
+        clock.now = 0.3
+        assert watcher.stable_files() == []  # unchanged, but only for 0.3 s of 0.5
+        with open(slow, "a") as handle:  # the writer goes on before the quiet period ends
+            handle.write("1,2\n")
+        clock.now = 0.6
+        assert watcher.stable_files() == []  # changed: the quiet period starts again at 0.6
+        clock.now = 1.0
+        assert watcher.stable_files() == []  # 0.4 s quiet
+        clock.now = 1.1
+        assert watcher.stable_files() == ["slow.csv"]  # 0.5 s quiet: settled
+        # Replaced by write-then-rename (a new inode, same size and time): settles afresh.
+        twin = inbox / "twin.tmp"
+        twin.write_text(slow.read_text())
+        os.utime(twin, ns=(slow.stat().st_atime_ns, slow.stat().st_mtime_ns))
+        os.replace(twin, slow)
+        clock.now = 1.2
+        assert watcher.stable_files() == []
+        clock.now = 1.7
+        assert watcher.stable_files() == ["slow.csv"]
+    finally:
+        watcher.ledger.close()
+
+
+def test_a_file_that_vanishes_or_changes_after_it_settled_is_not_claimed(tmp_path):
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    clock = _Clock()
+    watcher = _Watcher(inbox, NAME, Registry(tmp_path / "home"), {}, settle=0.5, clock=clock)
+    try:
+        gone = inbox / "gone.csv"
+        late = inbox / "late.csv"
+        gone.write_text("time,x\n0,1\n")
+        late.write_text("time,x\n0,1\n")
+        watcher.stable_files()
+        clock.now = 1.0
+        assert watcher.stable_files() == ["gone.csv", "late.csv"]
+        gone.unlink()  # removed by its owner between the scan and the claim
+        assert watcher.take("gone.csv") is None
+        with open(late, "a") as handle:  # written to between the scan and the claim
+            handle.write("1,2\n")
+        assert watcher.take("late.csv") is None
+        # Back in the inbox, whole, waiting to settle again; nothing in the ledger or work area.
+        assert late.read_text() == "time,x\n0,1\n1,2\n"
+        assert watcher.ledger.rows() == []
+        assert list((inbox / CLAIMED_FOLDER).iterdir()) == []
+        assert watcher.stable_files() == []
+    finally:
+        watcher.ledger.close()
+
+
+def test_an_older_ledger_gains_the_new_columns_and_keeps_its_rows(tmp_path):
+    path = tmp_path / LEDGER_NAME
+    with sqlite3.connect(path) as conn:  # the first ledger format, as written before
+        conn.execute(
+            "CREATE TABLE inbox_files (file_name TEXT NOT NULL, size INTEGER NOT NULL, sha256 TEXT"
+            " NOT NULL, model_name TEXT NOT NULL, state TEXT NOT NULL CHECK (state IN"
+            " ('processing', 'done', 'rejected')), attempts INTEGER NOT NULL DEFAULT 0, outcome"
+            " TEXT, exit_code INTEGER, error TEXT, moved_to TEXT, owner TEXT, first_seen TEXT NOT"
+            " NULL, updated TEXT NOT NULL, PRIMARY KEY (file_name, size, sha256))"
+        )
+        conn.execute("INSERT INTO inbox_files VALUES ('a.csv', 3, 'abc', 'm', 'done', 1, 'kept',"
+                     " 0, NULL, 'done/a.csv', 'h:1', 't', 't')")
+    conn.close()
+    with Ledger(path) as ledger:
+        (row,) = ledger.rows()
+        assert row["state"] == "done" and row["reason"] is None
+        assert ledger.claim("a.csv", 3, "abc", "m", settings_fingerprint="f")[0] == "done"
+        assert ledger.claim("b.csv", 3, "abd", "m", settings_fingerprint="f")[0] == "go"
+    assert sorted(r["file_name"] for r in read_ledger(tmp_path)) == ["a.csv", "b.csv"]
+
+
 def test_watch_refuses_a_missing_folder_and_bad_settings(tmp_path):
     registry = Registry(tmp_path / "home")
     with pytest.raises(SettingsError, match="does not exist"):
@@ -92,6 +190,8 @@ def test_watch_refuses_a_missing_folder_and_bad_settings(tmp_path):
     (tmp_path / "inbox").mkdir()
     with pytest.raises(SettingsError, match="poll interval"):
         watch(tmp_path / "inbox", NAME, registry=registry, poll_interval=0)
+    with pytest.raises(SettingsError, match="quiet period"):
+        watch(tmp_path / "inbox", NAME, registry=registry, settle=-1.0)
     with pytest.raises(SettingsError, match="not found"):
         watch(tmp_path / "inbox", NAME, registry=registry, config=tmp_path / "missing.toml")
 
@@ -105,7 +205,8 @@ def test_a_file_interrupted_too_often_is_moved_aside_without_a_retrain(tmp_path)
         for _ in range(MAX_ATTEMPTS):
             ledger.claim("stuck.csv", path.stat().st_size, file_sha256(path), NAME)
     registry = Registry(tmp_path / "home")
-    items = watch(inbox, NAME, registry=registry, once=True, poll_interval=0.05)
+    items = watch(inbox, NAME, registry=registry, once=True, poll_interval=0.05,
+                  settle=0.05)
     assert [(i.file_name, i.state) for i in items] == [("stuck.csv", "rejected")]
     assert "interrupted" in items[0].error
     assert (inbox / REJECTED_FOLDER / "stuck.csv").exists()
@@ -129,14 +230,16 @@ def test_a_file_claimed_by_another_live_watcher_is_left_to_it(tmp_path):
         with sqlite3.connect(inbox / LEDGER_NAME) as conn:  # the claim now belongs to `other`
             conn.execute("UPDATE inbox_files SET owner=?", (f"{socket.gethostname()}:{other.pid}",))
         registry = Registry(tmp_path / "home")
-        assert watch(inbox, NAME, registry=registry, once=True, poll_interval=0.05) == []
+        assert watch(inbox, NAME, registry=registry, once=True, poll_interval=0.05,
+                     settle=0.05) == []
         assert path.exists()
     finally:
         other.kill()
         other.wait()
     # Its owner is gone: the claim is stale, the file gets its second attempt (and, unreadable,
     # is moved aside with its error).
-    items = watch(inbox, NAME, registry=registry, once=True, poll_interval=0.05)
+    items = watch(inbox, NAME, registry=registry, once=True, poll_interval=0.05,
+                  settle=0.05)
     assert [(i.file_name, i.state) for i in items] == [("busy.csv", "rejected")]
     assert "broken" in items[0].error
     assert read_ledger(inbox)[0]["attempts"] == 2
@@ -157,7 +260,8 @@ def test_twenty_files_dropped_quickly_are_each_retrained_once(tmp_path):
     def run_watcher():
         try:
             handled.extend(watch(inbox, NAME, registry=registry, spec=TINY, report=False,
-                                 poll_interval=0.05, max_files=21, stop_event=stop))
+                                 poll_interval=0.05, settle=0.1, max_files=21,
+                                 stop_event=stop))
         except BaseException as exc:  # surfaced in the main thread below
             errors.append(exc)
 
@@ -201,7 +305,7 @@ def test_twenty_files_dropped_quickly_are_each_retrained_once(tmp_path):
     shutil.copy(done / good[0], inbox / good[0])
     _drop(inbox, "batch-20.csv", texts[20])
     again = watch(inbox, NAME, registry=registry, spec=TINY, report=False, once=True,
-                  poll_interval=0.05)
+                  poll_interval=0.05, settle=0.1)
     by_name = {i.file_name: i for i in again}
     assert set(by_name) == {good[0], "batch-20.csv"}
     assert by_name[good[0]].skipped and by_name[good[0]].state == "done"
@@ -210,16 +314,22 @@ def test_twenty_files_dropped_quickly_are_each_retrained_once(tmp_path):
     assert (done / "batch-00.2.csv").exists()  # moved beside the first copy, never overwritten
 
 
-def test_watch_command_handles_a_bad_file_and_exits_cleanly(tmp_path, capsys):
+def test_watch_command_says_what_it_watches_and_handles_a_bad_file(tmp_path, capsys):
     inbox = tmp_path / "inbox"
     inbox.mkdir()
     _drop(inbox, "garbage.npz", "this is not an npz archive")
     code = main(["watch", str(inbox), "--name", NAME, "--once", "--interval", "0.05",
-                 "--home", str(tmp_path / "home"), "--no-report", "--log-level", "INFO"])
+                 "--settle", "0.1", "--home", str(tmp_path / "home"), "--no-report",
+                 "--log-level", "INFO"])
     assert code == 0
-    out = capsys.readouterr().out
-    assert out.startswith("garbage.npz: rejected: ")
+    start, line, *rest = capsys.readouterr().out.splitlines()
+    assert rest == []
+    assert start.startswith(f"watching {inbox} ") and NAME in start
+    for part in ("0.1 s", CLAIMED_FOLDER, str(inbox / DONE_FOLDER), str(inbox / REJECTED_FOLDER)):
+        assert part in start
+    assert line.startswith("garbage.npz: rejected (bad data): ")
     assert (inbox / REJECTED_FOLDER / "garbage.npz.error.txt").exists()
+    assert read_ledger(inbox)[0]["reason"] == "data"
     assert not (tmp_path / "home" / NAME).exists()
 
 
