@@ -20,6 +20,7 @@ import time
 from pathlib import Path
 
 import pytest
+from retrain_support import write_csv
 
 import ergodex
 from ergodex.cli import main
@@ -40,8 +41,6 @@ from ergodex.inbox import (
 from ergodex.readers import read_series
 from ergodex.registry import Registry
 from ergodex.validation import CheckSpec
-
-from retrain_support import write_csv
 
 NAME = "loop-inbox"
 TINY = CheckSpec(members=4)
@@ -338,3 +337,279 @@ def test_watch_command_bad_folder_is_bad_input(tmp_path, capsys):
                  "--home", str(tmp_path / "home")])
     assert code == 2
     assert "does not exist" in capsys.readouterr().err
+
+
+# --- end to end: real retrains, real threads and processes ------------------------------------
+def _watch_in_thread(inbox: Path, registry: Registry, *, timeout: float = 240.0, **kw):
+    """Run :func:`watch` in its own thread (as a service would); fail if it does not return."""
+    stop = threading.Event()
+    handled: list = []
+    errors: list = []
+
+    def run():
+        try:
+            handled.extend(watch(inbox, NAME, registry=registry, spec=TINY, report=False,
+                                 poll_interval=0.02, stop_event=stop, **kw))
+        except BaseException as exc:  # surfaced in the test thread below
+            errors.append(exc)
+
+    thread = threading.Thread(target=run)
+    thread.start()
+    return thread, stop, handled, errors
+
+
+def _finish(thread, stop, errors, timeout: float = 240.0) -> None:
+    thread.join(timeout=timeout)
+    stop.set()
+    thread.join(timeout=30)
+    assert not thread.is_alive(), "the watcher did not return"
+    assert not errors, errors
+
+
+def _sha(text: str) -> str:
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def _started(event: threading.Event, handled: list, timeout: float = 120.0) -> bool:
+    """Wait for ``event``; give up early once the watcher handled a file without setting it."""
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline and not handled:
+        if event.wait(0.05):
+            return True
+    return event.is_set()
+
+
+def _before_last_run(text: str) -> int:
+    """Offset of the last run's first line in a CSV written by ``write_csv`` (run, time, ...)."""
+    last = text.rstrip("\n").rsplit("\n", 1)[1].split(",", 1)[0]
+    return text.index(f"\n{last},") + 1
+
+
+def test_a_file_replaced_while_the_previous_one_is_retrained_is_retrained_too(tmp_path):
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    registry = Registry(tmp_path / "home")
+    first, second = _csv_texts(tmp_path, 2)
+    _drop(inbox, "feed.csv", first)
+    busy, replaced = threading.Event(), threading.Event()
+
+    def progress(step: str) -> None:
+        if step == "fit challenger" and not busy.is_set():
+            busy.set()  # the first retrain is under way: let the writer replace the file now
+            assert replaced.wait(60)
+
+    thread, stop, handled, errors = _watch_in_thread(inbox, registry, settle=0.2, max_files=2,
+                                                     progress=progress)
+    try:
+        assert _started(busy, handled), f"the first retrain never started: {handled}"
+        _drop(inbox, "feed.csv", second)  # write-then-rename, as documented, mid-retrain
+        replaced.set()
+        _finish(thread, stop, errors)
+    finally:
+        replaced.set()
+        stop.set()
+    assert [(i.file_name, i.state, i.skipped) for i in handled] == [
+        ("feed.csv", "done", False), ("feed.csv", "done", False)]
+    assert [i.sha256 for i in handled] == [_sha(first), _sha(second)]
+    assert len(registry.versions(NAME)) == 2  # both contents retrained
+    done = inbox / DONE_FOLDER
+    assert (done / "feed.csv").read_text() == first
+    assert (done / "feed.2.csv").read_text() == second
+    rows = {r["sha256"]: r for r in read_ledger(inbox)}
+    assert set(rows) == {_sha(first), _sha(second)}
+    assert [rows[_sha(t)]["size"] for t in (first, second)] == [
+        len(first.encode()), len(second.encode())]
+    assert {r["state"] for r in rows.values()} == {"done"}
+
+
+def test_a_slowly_written_file_is_taken_whole(tmp_path):
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    registry = Registry(tmp_path / "home")
+    (text,) = _csv_texts(tmp_path, 1)
+    full = text.encode("utf-8")
+    # Three of the four runs first, as an instrument that writes one run at a time would.
+    cut = _before_last_run(text)
+    thread, stop, handled, errors = _watch_in_thread(inbox, registry, settle=1.0, max_files=1)
+    try:
+        with open(inbox / "slow.csv", "wb") as handle:  # written in place, under its final name
+            handle.write(full[:cut])
+            handle.flush()
+            os.fsync(handle.fileno())
+            time.sleep(0.1)  # a pause far shorter than the quiet period (the watcher polls 0.02)
+            handle.write(full[cut:])
+        _finish(thread, stop, errors)
+    finally:
+        stop.set()
+    (item,) = handled
+    assert item.state == "done" and item.sha256 == hashlib.sha256(full).hexdigest()
+    assert item.decision.data["n_runs"] == 4
+    (row,) = read_ledger(inbox)
+    assert row["size"] == len(full) == (inbox / DONE_FOLDER / "slow.csv").stat().st_size
+
+
+def test_a_settings_rejection_is_retried_once_the_settings_are_fixed(tmp_path):
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    registry = Registry(tmp_path / "home")
+    good, fixed = _csv_texts(tmp_path, 2)
+    rejected = inbox / REJECTED_FOLDER
+    _drop(inbox, "a.csv", good)
+    _drop(inbox, "broken.csv", "time,flow\n0.0,1.0\n0.02,not-a-number\n")
+    quick = {"spec": TINY, "report": False, "once": True, "poll_interval": 0.05, "settle": 0.1}
+
+    # A watcher configured to hold out 5 runs of files that have 4: a mistake of the watcher.
+    items = watch(inbox, NAME, registry=registry, holdout=5, **quick)
+    assert {i.file_name: (i.state, i.reason) for i in items} == {
+        "a.csv": ("rejected", "settings"), "broken.csv": ("rejected", "data")}
+    assert registry.list_models() == []
+    # Restarted with the same mistake: nothing is tried again.
+    assert watch(inbox, NAME, registry=registry, holdout=5, **quick) == []
+    assert (rejected / "a.csv").exists()
+
+    # The setting fixed: a.csv comes back from rejected/ and is retrained; the bad data stay.
+    items = watch(inbox, NAME, registry=registry, **quick)
+    assert [(i.file_name, i.state, i.outcome is not None) for i in items] == [
+        ("a.csv", "done", True)]
+    assert (inbox / DONE_FOLDER / "a.csv").read_text() == good
+    assert not (rejected / "a.csv").exists() and not (rejected / "a.csv.error.txt").exists()
+    assert (rejected / "broken.csv").exists() and (rejected / "broken.csv.error.txt").exists()
+    assert len(registry.versions(NAME)) == 1
+
+    # A corrected broken.csv is new content under the old name: processed.
+    _drop(inbox, "broken.csv", fixed)
+    items = watch(inbox, NAME, registry=registry, **quick)
+    assert [(i.file_name, i.state) for i in items] == [("broken.csv", "done")]
+    assert len(registry.versions(NAME)) == 2
+
+    # Asked explicitly, the bad-data file is tried again (and, the same bytes, fails the same).
+    items = watch(inbox, NAME, registry=registry, retry_rejected=True, **quick)
+    assert [(i.file_name, i.state, i.reason, i.skipped) for i in items] == [
+        ("broken.csv", "rejected", "data", False)]
+    assert "not-a-number" in (rejected / "broken.csv.error.txt").read_text()
+    states = sorted((r["file_name"], r["state"], r["reason"]) for r in read_ledger(inbox))
+    assert states == [("a.csv", "done", None), ("broken.csv", "done", None),
+                      ("broken.csv", "rejected", "data")]
+
+
+def test_a_file_removed_mid_retrain_does_not_stop_the_queue(tmp_path):
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    registry = Registry(tmp_path / "home")
+    texts = _csv_texts(tmp_path, 2)
+    _drop(inbox, "a.csv", texts[0])
+    _drop(inbox, "b.csv", texts[1])
+    os.utime(inbox / "a.csv", (1_000_000, 1_000_000))  # a.csv is the older: handled first
+    removed: list[Path] = []
+
+    def progress(step: str) -> None:
+        if step == "fit challenger" and not removed:
+            # Someone tidies the watcher's work area while the first retrain runs.
+            removed.extend((inbox / CLAIMED_FOLDER).glob("*/a.csv"))
+            for path in removed:
+                path.unlink()
+
+    thread, stop, handled, errors = _watch_in_thread(inbox, registry, settle=0.1, max_files=2,
+                                                     progress=progress)
+    try:
+        _finish(thread, stop, errors)
+    finally:
+        stop.set()
+    assert len(removed) == 1
+    first, second = handled
+    assert (first.file_name, first.state, first.moved_to) == ("a.csv", "done", None)
+    assert "removed during the retrain" in first.error
+    assert (inbox / DONE_FOLDER / "a.csv.decision.json").exists()  # the decision stands
+    assert (second.file_name, second.state) == ("b.csv", "done")
+    assert (inbox / DONE_FOLDER / "b.csv").read_text() == texts[1]
+    assert sorted((r["file_name"], r["state"]) for r in read_ledger(inbox)) == [
+        ("a.csv", "done"), ("b.csv", "done")]
+
+
+def test_a_watcher_killed_mid_retrain_is_recovered_at_the_next_start(tmp_path):
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    home = tmp_path / "home"
+    (text,) = _csv_texts(tmp_path, 1)
+    _drop(inbox, "feed.csv", text)
+    script = (
+        "import os, signal, sys\n"
+        "from ergodex.inbox import watch\n"
+        "from ergodex.registry import Registry\n"
+        "from ergodex.validation import CheckSpec\n"
+        "def progress(step):\n"
+        "    if step == 'fit challenger':\n"
+        "        os.kill(os.getpid(), signal.SIGKILL)\n"
+        "watch(sys.argv[1], sys.argv[2], registry=Registry(sys.argv[3]), spec=CheckSpec(members=4),"
+        " report=False, poll_interval=0.02, settle=0.1, max_files=1, progress=progress)\n"
+    )
+    env = dict(os.environ, PYTHONPATH=str(Path(ergodex.__file__).parents[1]))
+    killed = subprocess.run([sys.executable, "-c", script, str(inbox), NAME, str(home)],
+                            env=env, timeout=180, capture_output=True, text=True, check=False)
+    assert killed.returncode == -9, killed.stderr
+    (row,) = read_ledger(inbox)
+    assert (row["state"], row["attempts"]) == ("processing", 1)
+    claimed = Path(row["claimed_path"])
+    assert claimed.read_text() == text and not (inbox / "feed.csv").exists()
+    # A file caught half-way through its claim by the same dead watcher goes back to the inbox.
+    host, _, pid = row["owner"].rpartition(":")
+    take = inbox / CLAIMED_FOLDER / f".take-{pid}@{host}-9"
+    take.mkdir()
+    (take / "late.csv").write_text("time,flow\n0.0,1.0\n0.02,not-a-number\n")
+
+    registry = Registry(home)
+    items = watch(inbox, NAME, registry=registry, spec=TINY, report=False, once=True,
+                  poll_interval=0.05, settle=0.1)
+    assert [(i.file_name, i.state, i.reason) for i in items] == [
+        ("feed.csv", "done", None), ("late.csv", "rejected", "data")]
+    rows = {r["file_name"]: r for r in read_ledger(inbox)}
+    assert (rows["feed.csv"]["state"], rows["feed.csv"]["attempts"]) == ("done", 2)
+    assert (inbox / DONE_FOLDER / "feed.csv").read_text() == text
+    assert len(registry.versions(NAME)) == 1
+    assert list((inbox / CLAIMED_FOLDER).iterdir()) == []
+
+
+def test_a_file_its_writer_goes_on_writing_after_the_claim_is_retrained_whole(tmp_path):
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    registry = Registry(tmp_path / "home")
+    (text,) = _csv_texts(tmp_path, 1)
+    full = text.encode("utf-8")
+    cut = _before_last_run(text)
+    busy, written = threading.Event(), threading.Event()
+
+    def progress(step: str) -> None:
+        if step == "fit challenger" and not busy.is_set():
+            busy.set()  # the claimed bytes are being retrained: let the writer go on now
+            assert written.wait(60)
+
+    # A writer that pauses longer than the quiet period, keeping its file open: the first part
+    # is claimed, and the rest lands in the claimed copy (the same open file) mid-retrain.
+    with open(inbox / "stalls.csv", "wb") as writer:
+        writer.write(full[:cut])
+        writer.flush()
+        thread, stop, handled, errors = _watch_in_thread(inbox, registry, settle=0.2,
+                                                         max_files=2, progress=progress)
+        try:
+            assert _started(busy, handled), f"the first retrain never started: {handled}"
+            writer.write(full[cut:])
+            writer.flush()
+        finally:
+            written.set()
+    try:
+        _finish(thread, stop, errors)
+    finally:
+        stop.set()
+    first, second = handled
+    assert first.state == "done" and "written to during the retrain" in first.error
+    assert first.sha256 == hashlib.sha256(full[:cut]).hexdigest()
+    assert first.decision.data["n_runs"] == 3
+    assert (second.state, second.sha256) == ("done", hashlib.sha256(full).hexdigest())
+    assert second.decision.data["n_runs"] == 4
+    # The first decision's record keeps its name; the whole file is filed beside it.
+    done = inbox / DONE_FOLDER
+    assert sorted(p.name for p in done.iterdir()) == [
+        "stalls.2.csv", "stalls.2.csv.decision.json", "stalls.csv.decision.json"]
+    assert (done / "stalls.2.csv").read_bytes() == full
+    sizes = sorted(r["size"] for r in read_ledger(inbox))
+    assert sizes == [cut, len(full)]

@@ -28,11 +28,12 @@ Rules, and why:
 4. **Rejections say why, and some are retried.** Every rejection records a reason (see
    :data:`REASONS`): ``data`` (the bytes cannot be read as a dataset: that content stays rejected;
    send a corrected file), ``settings`` (the file reads but does not fit the watcher's settings:
-   model name, holdout, fit or check settings, registry), ``internal``, ``interrupted`` and
-   ``vanished``. The ledger keeps a fingerprint of the watcher's settings with each file; a file
-   rejected for ``settings`` or ``internal`` is taken back from ``rejected/`` and retried when a
-   watcher starts with different settings. ``retry_rejected=True`` (``--retry-rejected``) retries
-   every rejected file still in ``rejected/``.
+   model name, holdout, fit or check settings, registry), ``internal``, ``interrupted``,
+   ``vanished`` and ``changed`` (still being written after the claim: back into the inbox). The
+   ledger keeps a fingerprint of the watcher's settings with each file; a file rejected for
+   ``settings`` or ``internal`` is taken back from ``rejected/`` and retried when a watcher starts
+   with different settings. ``retry_rejected=True`` (``--retry-rejected``) retries every rejected
+   file still in ``rejected/``.
 5. **One file never stops the queue.** Every step of every file is guarded: an error becomes a
    ledger state with a one-line message, never a traceback that ends the loop. A file removed
    from the work area mid-retrain is recorded (its decision stands when the retrain finished).
@@ -102,9 +103,12 @@ REASONS: dict[str, str] = {
     "internal": "unexpected error; retried when a watcher starts with other settings",
     "interrupted": f"the watcher stopped mid-retrain {MAX_ATTEMPTS} times",
     "vanished": "the claimed copy disappeared; retried when the file is dropped again",
+    "changed": "the file was still being written after it was claimed; it went back into the "
+    "inbox to settle again",
 }
 _SHORT_REASON = {"data": "bad data", "settings": "settings", "internal": "internal error",
-                 "interrupted": "interrupted", "vanished": "vanished"}
+                 "interrupted": "interrupted", "vanished": "vanished",
+                 "changed": "still being written"}
 #: Prefix of the folders that hold a file while it is being claimed (``.take-<pid>@<host>-<n>``).
 _TAKE_PREFIX = ".take-"
 
@@ -418,7 +422,7 @@ def should_retry(row: Any, fingerprint: str | None, retry_rejected: bool = False
     if retry_rejected:
         return True
     reason = row["reason"]
-    if reason == "vanished":
+    if reason in ("vanished", "changed"):
         return True
     if reason in ("settings", "internal"):
         return fingerprint is not None and row["settings_fingerprint"] != fingerprint
@@ -550,7 +554,7 @@ class _Watcher:
         folder.mkdir(parents=True)
         return folder
 
-    def _put_back(self, path: Path, name: str) -> None:
+    def _put_back(self, path: Path, name: str) -> Path | None:
         """Return a file to the inbox (under a free name) to settle again; never overwrite."""
         self.seen.pop(name, None)
         target = _move_no_clobber(path, self.folder, name)
@@ -558,6 +562,7 @@ class _Watcher:
             log.info("%s went back into the inbox as %s (the name was taken)", name, target.name)
         if path.parent.name.startswith(_TAKE_PREFIX):
             _remove_empty(path.parent)
+        return target
 
     def take(self, file_name: str) -> InboxItem | None:
         """Claim a settled inbox file and handle it; ``None`` if it was not taken after all."""
@@ -618,7 +623,7 @@ class _Watcher:
                 _remove_empty(path.parent)
         if before is not None and before["state"] == "rejected":
             log.info("retrying %s (rejected earlier: %s)", file_name, before["error"])
-        return self._run(file_name, final, size, sha)
+        return self._run(file_name, final, sig, sha)
 
     def _already(self, file_name: str, path: Path, sha: str, before: Any) -> InboxItem:
         """Same name and bytes as a file handled before: never twice; file it beside the first."""
@@ -634,18 +639,20 @@ class _Watcher:
                          moved_to=target, skipped=True, reason=before["reason"], sha256=sha)
 
     # --- running -------------------------------------------------------------------------------
-    def _run(self, file_name: str, claimed: Path, size: int, sha: str) -> InboxItem:
+    def _run(self, file_name: str, claimed: Path, sig: Signature, sha: str) -> InboxItem:
         """Read the claimed copy and retrain on it; every failure becomes a ledger state."""
         from ergodex.readers import read_series
         from ergodex.retraining import retrain
 
-        log.info("retraining %s on %s (%d bytes, sha256 %s…)", self.name, file_name, size,
+        log.info("retraining %s on %s (%d bytes, sha256 %s…)", self.name, file_name, sig[1],
                  sha[:12])
         shown = str(self.folder / file_name)
         reading = True
         try:
             series = read_series(claimed)
             reading = False
+            if claimed.exists() and _changed(claimed, sig):
+                return self._still_written(file_name, claimed, sha)
             decision = retrain(self.registry, self.name, series, **self.retrain_kwargs)
         except Exception as exc:  # one bad file must never stop the inbox
             if not claimed.exists():
@@ -655,23 +662,33 @@ class _Watcher:
                 log.exception("unexpected error while retraining on %s", file_name)
             error = _one_line(exc).replace(str(claimed), shown)
             return self._reject(file_name, claimed, sha, error, reason)
-        return self._done(file_name, claimed, sha, decision)
+        return self._done(file_name, claimed, sig, sha, decision)
 
-    def _done(self, file_name: str, claimed: Path, sha: str, decision: Any) -> InboxItem:
+    def _done(self, file_name: str, claimed: Path, sig: Signature, sha: str, decision: Any
+              ) -> InboxItem:
         code, outcome = decision.exit_code, decision.outcome
         planned = _unique_target(self.done_dir, file_name)
         # The ledger first: a crash before the move leaves a done row whose file the next
         # start files into done/, never a second retrain.
         self.ledger.finish(file_name, sha, state="done", outcome=outcome, exit_code=code,
                            moved_to=str(planned))
-        target = _move_no_clobber(claimed, self.done_dir, file_name)
-        _remove_empty(claimed.parent)
         note = None
+        if _changed(claimed, sig) and claimed.exists():
+            # Written to during the retrain: the decision is about the bytes claimed; the
+            # grown file is new data and goes back into the inbox to be claimed afresh.
+            self._put_back(claimed, file_name)
+            target = None
+            note = (f"{file_name}: was written to during the retrain; the decision stands for "
+                    "the bytes claimed and the grown file went back into the inbox")
+        else:
+            target = _move_no_clobber(claimed, self.done_dir, file_name)
+            if target is None:
+                note = (f"{file_name}: the claimed copy {claimed} was removed during the "
+                        f"retrain; the decision stands (recorded in {planned.name}.decision.json)"
+                        " but the data file is not in done/")
+        _remove_empty(claimed.parent)
         record = target if target is not None else planned
-        if target is None:
-            note = (f"{file_name}: the claimed copy {claimed} was removed during the retrain; "
-                    f"the decision stands (recorded in {record.name}.decision.json) but the "
-                    "data file is not in done/")
+        if note is not None:
             log.warning("%s", note)
         if target != planned:
             self.ledger.finish(file_name, sha, state="done", outcome=outcome, exit_code=code,
@@ -701,6 +718,19 @@ class _Watcher:
                     target)
         return InboxItem(file_name, "rejected", exit_code=2, error=error, moved_to=target,
                          reason=reason, sha256=sha)
+
+    def _still_written(self, file_name: str, claimed: Path, sha: str) -> InboxItem:
+        """A claimed file that grew before the retrain: back to the inbox, nothing retrained."""
+        error = (f"{file_name}: was still being written after it was claimed; it went back into "
+                 "the inbox to settle again (writers should write to a temporary name and "
+                 "rename, or the quiet period --settle should be longer than their pauses)")
+        self.ledger.finish(file_name, sha, state="rejected", exit_code=2, error=error,
+                           reason="changed")
+        target = self._put_back(claimed, file_name)
+        _remove_empty(claimed.parent)
+        log.warning("%s", error)
+        return InboxItem(file_name, "rejected", exit_code=2, error=error, reason="changed",
+                         moved_to=target, sha256=sha)
 
     def _vanished(self, file_name: str, path: Path, sha: str) -> InboxItem:
         error = (f"{file_name}: the claimed copy {path} disappeared before the retrain could "
@@ -777,6 +807,14 @@ class _Watcher:
         log.info("taking %s back from %s to retry it (%s)", row["file_name"], source,
                  "--retry-rejected" if self.retry_rejected else "the settings changed")
         return held
+
+
+def _changed(path: Path, sig: Signature) -> bool:
+    """Whether a claimed file is no longer what was hashed (written to, or gone)."""
+    try:
+        return _signature(path.stat()) != sig
+    except FileNotFoundError:
+        return True
 
 
 def _write_note(target: Path, error: str) -> None:
