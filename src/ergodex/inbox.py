@@ -575,6 +575,10 @@ class _Watcher:
             log.info("%s disappeared before it could be claimed; skipped", file_name)
             _remove_empty(take_dir)
             return None
+        except OSError as exc:  # e.g. no permission to move it: try again once it settles again
+            log.warning("could not claim %s (%s); trying again later", file_name, exc)
+            _remove_empty(take_dir)
+            return None
         return self.handle(file_name, held, expected=expected)
 
     def handle(self, file_name: str, path: Path, *, expected: Signature | None = None
@@ -591,17 +595,20 @@ class _Watcher:
                 log.info("%s changed while it was hashed; back to the inbox", file_name)
                 self._put_back(path, file_name)
                 return None
+            final = self.claimed_root / sha / file_name
+            verdict, before = self.ledger.claim(
+                file_name, sig[1], sha, self.name, settings_fingerprint=self.fingerprint,
+                claimed_path=str(final), retry_rejected=self.retry_rejected,
+            )
         except FileNotFoundError:
             log.info("%s disappeared from %s while it was claimed; skipped", file_name, path.parent)
             if path.parent.name.startswith(_TAKE_PREFIX):
                 _remove_empty(path.parent)
             return None
-        size = sig[1]
-        final = self.claimed_root / sha / file_name
-        verdict, before = self.ledger.claim(
-            file_name, size, sha, self.name, settings_fingerprint=self.fingerprint,
-            claimed_path=str(final), retry_rejected=self.retry_rejected,
-        )
+        except (OSError, sqlite3.Error) as exc:  # unreadable, or the ledger is locked or full
+            log.warning("could not claim %s (%s); back to the inbox to try again", file_name, exc)
+            self._put_back(path, file_name)
+            return None
         if verdict == "busy":
             log.info("%s is being retrained by %s; leaving it", file_name, before["owner"])
             if path != final:
@@ -765,7 +772,7 @@ class _Watcher:
                     self._put_back(path, path.name)
                 _remove_empty(folder)
                 continue
-            for path in sorted(folder.iterdir()):
+            for path in sorted(p for p in folder.iterdir() if p.is_file()):
                 row = self.ledger.get(path.name, folder.name)
                 state = None if row is None else row["state"]
                 if state in ("done", "rejected"):
