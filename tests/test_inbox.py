@@ -613,3 +613,31 @@ def test_a_file_its_writer_goes_on_writing_after_the_claim_is_retrained_whole(tm
     assert (done / "stalls.2.csv").read_bytes() == full
     sizes = sorted(r["size"] for r in read_ledger(inbox))
     assert sizes == [cut, len(full)]
+
+
+def test_the_watch_command_says_what_it_watches_before_any_file_arrives(tmp_path):
+    import selectors
+
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    env = dict(os.environ, PYTHONPATH=str(Path(ergodex.__file__).parents[1]))
+    command = [sys.executable, "-c", "import sys; from ergodex.cli import main; sys.exit(main())",
+               "watch", str(inbox), "--name", NAME, "--settle", "0.2", "--interval", "0.05",
+               "--max-files", "1", "--home", str(tmp_path / "home"), "--no-report"]
+    proc = subprocess.Popen(command, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                            text=True)
+    try:
+        with selectors.DefaultSelector() as selector:  # the line must come while it waits
+            selector.register(proc.stdout, selectors.EVENT_READ)
+            assert selector.select(timeout=60), "no start line within 60 s"
+        start = proc.stdout.readline()
+        assert start.startswith(f"watching {inbox} ") and "0.2 s" in start
+        assert proc.poll() is None  # still watching: nothing has arrived yet
+        _drop(inbox, "late.csv", "time,flow\n0.0,1.0\n0.02,not-a-number\n")
+        out, err = proc.communicate(timeout=60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    assert proc.returncode == 0, err
+    assert out.startswith("late.csv: rejected (bad data): ")

@@ -549,10 +549,15 @@ class _Watcher:
 
     # --- claiming ------------------------------------------------------------------------------
     def _new_take_dir(self) -> Path:
-        label = f"{_TAKE_PREFIX}{os.getpid()}@{socket.gethostname()}-{next(self._takes)}"
-        folder = self.claimed_root / label
-        folder.mkdir(parents=True)
-        return folder
+        """A fresh folder ``.take-<pid>@<host>-<n>`` naming this process as the claimer."""
+        while True:
+            label = f"{_TAKE_PREFIX}{os.getpid()}@{socket.gethostname()}-{next(self._takes)}"
+            folder = self.claimed_root / label
+            try:
+                folder.mkdir(parents=True)
+            except FileExistsError:  # left by an earlier process that had the same pid
+                continue
+            return folder
 
     def _put_back(self, path: Path, name: str) -> Path | None:
         """Return a file to the inbox (under a free name) to settle again; never overwrite."""
@@ -665,8 +670,8 @@ class _Watcher:
             if not claimed.exists():
                 return self._vanished(file_name, claimed, sha)
             reason = _reason_of(exc, reading=reading)
-            if reason == "internal":
-                log.exception("unexpected error while retraining on %s", file_name)
+            if reason == "internal":  # the trace, for a bug report, only at DEBUG level
+                log.debug("unexpected error while retraining on %s", file_name, exc_info=True)
             error = _one_line(exc).replace(str(claimed), shown)
             return self._reject(file_name, claimed, sha, error, reason)
         return self._done(file_name, claimed, sig, sha, decision)
@@ -935,9 +940,10 @@ def watch(
         """Run one file's step, guarded; True when the call should return now."""
         try:
             item = step(*args)
-        except Exception:  # a bug or a broken disk must not end the loop
-            log.exception("unexpected error while handling %s; going on with the next file",
-                          args[0])
+        except Exception as exc:  # a bug or a broken disk must not end the loop
+            log.error("unexpected error while handling %s (%s); going on with the next file",
+                      args[0], _one_line(exc))
+            log.debug("the trace of that error", exc_info=True)
             item = None
         if item is not None:
             handled.append(item)
@@ -949,8 +955,10 @@ def watch(
     try:
         try:
             queue = watcher.recover()
-        except Exception:  # recovery is tidying; the inbox still works without it
-            log.exception("could not recover the work area %s", watcher.claimed_root)
+        except Exception as exc:  # recovery is tidying; the inbox still works without it
+            log.error("could not recover the work area %s (%s)", watcher.claimed_root,
+                      _one_line(exc))
+            log.debug("the trace of that error", exc_info=True)
             queue = []
         for file_name, path in queue:
             if run_one(watcher.handle, file_name, path):
