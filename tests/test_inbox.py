@@ -207,7 +207,7 @@ def test_a_file_interrupted_too_often_is_moved_aside_without_a_retrain(tmp_path)
     items = watch(inbox, NAME, registry=registry, once=True, poll_interval=0.05,
                   settle=0.05)
     assert [(i.file_name, i.state) for i in items] == [("stuck.csv", "rejected")]
-    assert "interrupted" in items[0].error
+    assert "interrupted" in items[0].error and items[0].reason == "interrupted"
     assert (inbox / REJECTED_FOLDER / "stuck.csv").exists()
     assert registry.list_models() == []  # no retrain ran
     assert read_ledger(inbox)[0]["state"] == "rejected"
@@ -641,3 +641,45 @@ def test_the_watch_command_says_what_it_watches_before_any_file_arrives(tmp_path
             proc.wait()
     assert proc.returncode == 0, err
     assert out.startswith("late.csv: rejected (bad data): ")
+
+
+@pytest.mark.slow
+def test_two_watcher_processes_on_one_folder_retrain_each_file_once(tmp_path):
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    home = tmp_path / "home"
+    texts = _csv_texts(tmp_path, 6)
+    names = [f"part-{i}.csv" for i in range(6)]
+    for name, text in zip(names, texts):
+        _drop(inbox, name, text)
+    script = (
+        "import sys\n"
+        "from ergodex.inbox import watch\n"
+        "from ergodex.registry import Registry\n"
+        "from ergodex.validation import CheckSpec\n"
+        "items = watch(sys.argv[1], sys.argv[2], registry=Registry(sys.argv[3]),"
+        " spec=CheckSpec(members=4), report=False, once=True, poll_interval=0.05, settle=0.3)\n"
+        "print(' '.join(i.file_name for i in items))\n"
+    )
+    env = dict(os.environ, PYTHONPATH=str(Path(ergodex.__file__).parents[1]))
+    procs = [subprocess.Popen([sys.executable, "-c", script, str(inbox), NAME, str(home)],
+                              env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+             for _ in range(2)]
+    outputs = []
+    try:
+        for proc in procs:
+            out, err = proc.communicate(timeout=300)
+            assert proc.returncode == 0, err
+            outputs.append(out.split())
+    finally:
+        for proc in procs:
+            if proc.poll() is None:
+                proc.kill()
+                proc.wait()
+    assert sorted(outputs[0] + outputs[1]) == names  # every file once, by one of the two
+    assert len(Registry(home).versions(NAME)) == 6
+    rows = read_ledger(inbox)
+    assert sorted((r["file_name"], r["state"], r["attempts"]) for r in rows) == [
+        (name, "done", 1) for name in names]
+    assert sorted(p.name for p in (inbox / DONE_FOLDER).glob("*.csv")) == names
+    assert list((inbox / CLAIMED_FOLDER).iterdir()) == []
