@@ -686,3 +686,38 @@ def test_two_watcher_processes_on_one_folder_retrain_each_file_once(tmp_path):
         (name, state, 1) for name, state in handled)
     assert sorted(p.name for p in (inbox / DONE_FOLDER).glob("*.csv")) == done
     assert list((inbox / CLAIMED_FOLDER).iterdir()) == []
+
+
+def test_a_watcher_stopped_with_ctrl_c_mid_retrain_runs_the_file_again_uncounted(tmp_path):
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    home = tmp_path / "home"
+    (text,) = _csv_texts(tmp_path, 1)
+    _drop(inbox, "feed.csv", text)
+    script = (
+        "import os, signal, sys\n"
+        "from ergodex.inbox import watch\n"
+        "from ergodex.registry import Registry\n"
+        "from ergodex.validation import CheckSpec\n"
+        "def progress(step):\n"
+        "    if step == 'fit challenger':\n"
+        "        os.kill(os.getpid(), signal.SIGINT)  # as Ctrl-C in a terminal\n"
+        "try:\n"
+        "    watch(sys.argv[1], sys.argv[2], registry=Registry(sys.argv[3]),"
+        " spec=CheckSpec(members=4), report=False, poll_interval=0.02, settle=0.1, max_files=1,"
+        " progress=progress)\n"
+        "except KeyboardInterrupt:\n"
+        "    sys.exit(130)\n"
+    )
+    env = dict(os.environ, PYTHONPATH=str(Path(ergodex.__file__).parents[1]))
+    stopped = subprocess.run([sys.executable, "-c", script, str(inbox), NAME, str(home)],
+                             env=env, timeout=180, capture_output=True, text=True, check=False)
+    assert stopped.returncode == 130, stopped.stderr
+    (row,) = read_ledger(inbox)
+    assert (row["state"], row["attempts"], row["owner"]) == ("processing", 0, None)
+    assert Path(row["claimed_path"]).read_text() == text
+    items = watch(inbox, NAME, registry=Registry(home), spec=TINY, report=False, once=True,
+                  poll_interval=0.05, settle=0.1)
+    assert [(i.file_name, i.state) for i in items] == [("feed.csv", "done")]
+    (row,) = read_ledger(inbox)
+    assert (row["state"], row["attempts"]) == ("done", 1)

@@ -39,9 +39,10 @@ Rules, and why:
    from the work area mid-retrain is recorded (its decision stands when the retrain finished).
 6. **Crash recovery.** A file claimed by a watcher that died (its ledger row still
    ``processing``, its owner ``host:pid`` gone) is retried from the work area at the next start,
-   at most :data:`MAX_ATTEMPTS` times in all, then moved aside (``interrupted``); a file caught
-   half-way through being claimed goes back into the inbox. A file another live watcher on this
-   machine is retraining right now is left to it. Run one watcher per folder per process.
+   at most :data:`MAX_ATTEMPTS` times in all, then moved aside (``interrupted``); a watcher
+   stopped with Ctrl-C gives its attempt back first, so stopping it is never counted. A file
+   caught half-way through being claimed goes back into the inbox. A file another live watcher
+   on this machine is retraining right now is left to it. Run one watcher per folder per process.
 7. **One log line per step** through the standard :mod:`logging` module (logger
    ``ergodex.inbox``); the command line sets the level with ``--log-level``.
 
@@ -479,6 +480,13 @@ class _Watcher:
                 log.debug("unexpected error while retraining on %s", file_name, exc_info=True)
             error = _one_line(exc).replace(str(claimed), shown)
             return self._reject(file_name, claimed, sha, error, reason)
+        except KeyboardInterrupt:
+            # Ctrl-C is how a person stops the watcher: not a crash, so the attempt is given
+            # back and the file runs again from the work area at the next start.
+            self.ledger.release(file_name, sha)
+            log.info("stopped during the retrain on %s; it runs again at the next start",
+                     file_name)
+            raise
         return self._done(file_name, claimed, sig, sha, decision)
 
     def _done(self, file_name: str, claimed: Path, sig: Signature, sha: str, decision: Any

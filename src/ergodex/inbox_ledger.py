@@ -150,6 +150,14 @@ class Ledger:
             raise
         return verdict, row
 
+    def release(self, file_name: str, sha256: str) -> None:
+        """Give back this process's claim on a file it stopped working on (not counted)."""
+        self._conn.execute(
+            "UPDATE inbox_files SET attempts=MAX(attempts-1, 0), owner=NULL, updated=?"
+            " WHERE file_name=? AND sha256=? AND state='processing' AND owner=?",
+            (utc_now(), file_name, sha256, _owner()),
+        )
+
     def finish(
         self,
         file_name: str,

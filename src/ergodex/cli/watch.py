@@ -49,7 +49,9 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument("folder", metavar="FOLDER", help="the inbox folder")
     parser.add_argument("--name", required=True, help="registry name of the model to retrain")
     parser.add_argument(
-        "--once", action="store_true", help="handle the files present now (after one quiet period), then return"
+        "--once",
+        action="store_true",
+        help="handle the files present now (after one quiet period), then return",
     )
     parser.add_argument(
         "--interval",
