@@ -283,7 +283,8 @@ def _scan(folder: Path) -> dict[str, Signature]:
     found: dict[str, Signature] = {}
     try:
         entries = list(os.scandir(folder))
-    except FileNotFoundError:
+    except OSError as exc:  # gone or unreadable for now: nothing to take this time
+        log.warning("cannot list the inbox %s (%s); trying again at the next poll", folder, exc)
         return found
     for entry in entries:
         if not is_candidate_name(entry.name):
@@ -292,7 +293,7 @@ def _scan(folder: Path) -> dict[str, Signature]:
             if not entry.is_file(follow_symlinks=False):
                 continue
             st = entry.stat(follow_symlinks=False)
-        except FileNotFoundError:  # renamed away between listing and stat
+        except OSError:  # renamed away between listing and stat, or not ours to read
             continue
         found[entry.name] = _signature(st)
     return found
@@ -777,10 +778,8 @@ def watch(
             if run_one(watcher.handle, file_name, path):
                 return handled
         watcher.stable_files()  # first look: nothing can be stable before a second one
-        first = True
+        wait = max(poll_interval, settle) if once else poll_interval
         while True:
-            wait = max(poll_interval, settle) if (once and first) else poll_interval
-            first = False
             if _wait(stop_event, wait):
                 log.info("stop requested; leaving %s", inbox)
                 break

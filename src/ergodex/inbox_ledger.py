@@ -26,7 +26,7 @@ REASONS: dict[str, str] = {
     "settings": "does not fit the watcher's settings (model, holdout, fit or check settings, "
     "registry); retried when a watcher starts with other settings",
     "internal": "unexpected error; retried when a watcher starts with other settings",
-    "interrupted": f"the watcher stopped mid-retrain {MAX_ATTEMPTS} times",
+    "interrupted": f"a crash cut the retrain short {MAX_ATTEMPTS} times; retried on request",
     "vanished": "the claimed copy disappeared; retried when the file is dropped again",
     "changed": "the file was still being written after it was claimed; it went back into the "
     "inbox to settle again",
@@ -53,6 +53,8 @@ CREATE TABLE IF NOT EXISTS inbox_files (
     PRIMARY KEY (file_name, size, sha256)
 )
 """
+# The key is name + sha256 (the size follows from the bytes; it stays in the primary key so that
+# ledgers written before need no rebuild).
 #: Columns added after the first ledger format; an older ledger gains them when opened.
 _ADDED_COLUMNS = {"reason": "TEXT", "settings_fingerprint": "TEXT", "claimed_path": "TEXT"}
 
