@@ -1,13 +1,17 @@
 """``ergodex watch FOLDER --name NAME``: retrain once on every new dataset file in an inbox.
 
-Complete files only (written then renamed; temporary names such as ``*.part`` and dotfiles are
-ignored; the size must be the same on two polls). Each file is handled once, even across
-restarts (a ledger ``.ergodex-inbox.sqlite3`` in the inbox folder); processed files go to
-``done/`` with their decision record, unreadable ones to ``rejected/`` with ``<file>.error.txt``.
-See :mod:`ergodex.inbox`.
+A file is taken once it has stayed unchanged for a quiet period (``--settle``; temporary names
+such as ``*.part`` and dotfiles are ignored), claimed into the watcher's work area
+``.ergodex-claimed/`` and retrained from there. Each content is handled once, even across restarts
+(a ledger ``.ergodex-inbox.sqlite3`` in the inbox folder keys on name + sha256); processed files
+go to ``done/`` with their decision record, rejected ones to ``rejected/`` with
+``<file>.error.txt``. A file rejected because it did not fit the settings is retried when the
+watcher starts with other settings; ``--retry-rejected`` retries every rejected file. Prints one
+line saying what it watches, then one line per file. See :mod:`ergodex.inbox`.
 
 Exit code 0 after a clean stop (``--once``, ``--max-files``, Ctrl-C); each file's outcome is in the
-log, the ledger and the decision record next to it. 2 on bad input (no such folder, bad config).
+output, the log, the ledger and the decision record next to it. 2 on bad input (no such folder,
+bad config).
 """
 
 from __future__ import annotations
@@ -20,6 +24,7 @@ from ergodex.cli.retrain import (
     parse_holdout,
     spec_from_args,
 )
+from ergodex.inbox import DEFAULT_SETTLE
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
@@ -27,9 +32,14 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
         "watch",
         help="retrain a model once on every new dataset file that lands in a folder",
         description=(
-            "Watch FOLDER and run one retrain of NAME for each new complete dataset file; move "
-            "it to done/ (with its decision record) or, if it cannot be read, to rejected/ "
-            "(with its error). Each file is handled once, even across restarts."
+            "Watch FOLDER and run one retrain of NAME for each new dataset file once it has "
+            "stayed unchanged for the quiet period (--settle). The file is first moved into the "
+            "watcher's work area FOLDER/.ergodex-claimed/ and read from there, then moved to "
+            "done/ (with its decision record) or rejected/ (with its error and the reason: bad "
+            "data, or data that do not fit the settings). Each content is handled once, even "
+            "across restarts; a file written again under the same name is new data. Files "
+            "rejected because they did not fit the settings are retried when the watcher starts "
+            "with other settings. Prints one line saying what it watches, then one per file."
         ),
         epilog=(
             "Caution: a passed statistical check is not a certification; defer to the applicable "
@@ -39,14 +49,30 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument("folder", metavar="FOLDER", help="the inbox folder")
     parser.add_argument("--name", required=True, help="registry name of the model to retrain")
     parser.add_argument(
-        "--once", action="store_true", help="handle the files present now, then return"
+        "--once",
+        action="store_true",
+        help="handle the files present now (after one quiet period), then return",
     )
     parser.add_argument(
         "--interval",
         type=float,
         default=2.0,
         metavar="S",
-        help="seconds between polls (default 2); a file must be unchanged over one interval",
+        help="seconds between polls (default 2)",
+    )
+    parser.add_argument(
+        "--settle",
+        type=float,
+        default=DEFAULT_SETTLE,
+        metavar="S",
+        help=f"quiet period: seconds a file's size and modification time must stay unchanged "
+        f"before it is taken (default {DEFAULT_SETTLE:g})",
+    )
+    parser.add_argument(
+        "--retry-rejected",
+        action="store_true",
+        help="take every file in rejected/ back and try it again (also a rejected file "
+        "dropped again), whatever the reason it was rejected",
     )
     parser.add_argument(
         "--max-files", type=int, default=None, metavar="N", help="stop after N files"
@@ -64,8 +90,12 @@ def run(args: argparse.Namespace) -> int:
     from ergodex.inbox import watch
 
     registry = registry_from_args(args)
+
+    def echo(line: str) -> None:
+        print(line, flush=True)
+
     try:
-        items = watch(
+        watch(
             args.folder,
             args.name,
             registry=registry,
@@ -75,16 +105,13 @@ def run(args: argparse.Namespace) -> int:
             holdout=parse_holdout(args.holdout),
             report=not args.no_report,
             poll_interval=args.interval,
+            settle=args.settle,
+            retry_rejected=args.retry_rejected,
             once=args.once,
             max_files=args.max_files,
+            echo=echo,
         )
     except KeyboardInterrupt:
         logging.getLogger("ergodex.inbox").info("interrupted; stopping")
         return 0
-    for item in items:
-        what = item.outcome or item.state
-        if item.skipped:
-            what = f"already {item.state}"
-        extra = f": {item.error}" if item.error else ""
-        print(f"{item.file_name}: {what}{extra}")
     return 0
