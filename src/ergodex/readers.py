@@ -78,6 +78,9 @@ DT_SIGNIFICANT_DIGITS = 12
 
 _MANIFEST = "dataset.toml"
 
+#: How to ask for a run to be split at a missing value, in Python and on the command line.
+GAP_HINTS = {"python_hint": "(read with split_at_gaps=True)", "cli_hint": "(use --split-at-gaps)"}
+
 
 class _DtMismatch(DataError):
     """A dt given by the caller disagrees with the file's own; ``own`` holds the file's."""
@@ -145,7 +148,8 @@ def _finish(
             raise DataError(
                 f"{source}: {run.where(r)}, column {names[c]!r}: value "
                 f"{_show(run.values[r, c])} is missing or not finite; fix or remove the row, or "
-                "read with split_at_gaps=True to split the run there"
+                "split the run there",
+                **GAP_HINTS,
             )
         else:
             # Each maximal block of finite rows becomes a run; gap rows are never interpolated.
@@ -703,7 +707,8 @@ def read_csv(
             found = "is empty (a missing value)" if text == "" else f"{text!r} is not finite"
             raise DataError(
                 f"{source}: line {r + 2}, column {var_names[c]!r}: the cell {found}; fix or "
-                "remove the row, or read with split_at_gaps=True to split the run there"
+                "remove the row, or split the run there",
+                **GAP_HINTS,
             )
 
     runs = []
