@@ -88,9 +88,14 @@ def load_model_info(ref: str, home: str | os.PathLike[str] | None = None):
         )
     from ergodex.registry import Registry
 
-    registry = Registry(root)
+    info, surrogate = resolve_registered(Registry(root), ref)
+    return surrogate, info
+
+
+def resolve_registered(registry: Any, ref: str):
+    """``(VersionInfo, Surrogate)`` of ``NAME@VERSION``, or of NAME's accepted version."""
     info = registry.get(ref)
-    return registry.load(info.ref), info
+    return info, registry.load(info.ref)
 
 
 def is_model_file(ref: str) -> bool:

@@ -130,12 +130,10 @@ def initial_states_from_file(surrogate, path: str, members: int) -> tuple[np.nda
     """
     from ergodex.readers import read_series
 
-    series = read_series(path)
-    names = _data_names(surrogate)
-    if tuple(series.names) != tuple(names):
-        raise DataError(
-            f"{path}: columns {list(series.names)} do not match the model's data variables {list(names)}"
-        )
+    from ergodex.validation import align_columns
+
+    # the model's variables in any column order, as validate accepts them
+    series = align_columns(surrogate, read_series(path))
     observed = surrogate.observed_index
     model_rows = [surrogate.to_model_space(run) for run in series.runs]
     given = np.concatenate([r for r in model_rows if len(r)], axis=0)
