@@ -36,6 +36,8 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument("name", metavar="NAME", help="registry name of the model")
     parser.add_argument("data", metavar="DATA", help="new data: CSV, NPZ, NetCDF or dataset folder")
     add_common_retrain_options(parser)
+    parser.add_argument("--dt", type=float, default=None,
+                        help="sampling interval when DATA has no time column or manifest")
     parser.add_argument(
         "--split-at-gaps",
         action="store_true",
@@ -117,12 +119,14 @@ def read_new_data(args: argparse.Namespace):
 
     holdout = parse_holdout(args.holdout)
     path = args.data
-    if (Path(path).is_dir() and (Path(path) / "dataset.toml").exists()) or path.endswith(".toml"):
+    is_dataset = (Path(path).is_dir() and (Path(path) / "dataset.toml").exists()
+                  or path.endswith(".toml"))
+    if is_dataset and args.dt is None:
         dataset = read_dataset(path, split_at_gaps=args.split_at_gaps)
         if args.holdout is None and dataset.holdout:
             holdout = list(dataset.holdout)
         return dataset.series, holdout
-    return read_series(path, split_at_gaps=args.split_at_gaps), holdout
+    return read_series(path, dt=args.dt, split_at_gaps=args.split_at_gaps), holdout
 
 
 def run(args: argparse.Namespace) -> int:
