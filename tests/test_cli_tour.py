@@ -203,3 +203,19 @@ def test_fitted_settings_come_back_from_the_model_file(fitted):
     with pytest.raises(SettingsError, match="config=") as info:
         fit_settings_from_model(bare)
     assert "--config FILE" in info.value.for_command_line()
+
+
+def test_select_checks_candidates_on_the_held_out_runs_and_explains_its_columns(
+        dataset, tmp_path, capsys):
+    fit_part, held_out = read_dataset(dataset).split()
+    front = tmp_path / "front.json"
+    assert main(["fit", str(dataset), "--select", "--method", "linear-inverse", "--members", "6",
+                 "--statistics", "histogram,autocorrelation", "--out", str(tmp_path / "m.json"),
+                 "--json", str(front)]) in (0, 1)
+    record = json.loads(front.read_text())
+    assert record["data_fingerprint"] == fit_part.fingerprint()
+    assert record["reference_fingerprint"] == held_out.fingerprint()
+    assert record["spec"]["members"] == 6
+    assert record["spec"]["statistics"] == ["histogram", "autocorrelation"]
+    out = capsys.readouterr().out
+    assert "stat.score: largest ratio" in out and "tend.err: RMS error" in out
