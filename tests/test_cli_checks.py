@@ -27,7 +27,8 @@ def ou_files(tmp_path_factory):
                                   noise=2 * np.asarray(true.noise))
     fast.to_json(d / "fast.json")
     (d / "regimes.toml").write_text(
-        '[[regime]]\nname = "high"\nkind = "threshold"\nrules = [{ variable = "x1", above = 0.5 }]\n'
+        '[[regime]]\nname = "high"\nkind = "threshold"\n'
+        'rules = [{ variable = "x1", above = 0.5 }]\n'
     )
     return d
 

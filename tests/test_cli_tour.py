@@ -219,3 +219,23 @@ def test_select_checks_candidates_on_the_held_out_runs_and_explains_its_columns(
     assert record["spec"]["statistics"] == ["histogram", "autocorrelation"]
     out = capsys.readouterr().out
     assert "stat.score: largest ratio" in out and "tend.err: RMS error" in out
+
+
+def test_register_ignores_evidence_older_than_the_scorecard(dataset, fitted, tmp_path, capsys):
+    import os
+
+    card = tmp_path / "card.json"
+    main(["validate", str(fitted), str(dataset), "--members", "8", "--statistics", "histogram",
+          "--json", str(card), "--quiet"])
+    beside = tmp_path / "card.evidence.npz"
+    stamp = card.stat().st_mtime_ns
+    os.utime(beside, ns=(stamp - 10**9, stamp - 10**9))  # as if left by an earlier check
+    home = tmp_path / "home"
+    assert main(["register", str(fitted), "--name", "ou", "--scorecard", str(card),
+                 "--home", str(home)]) == 0
+    assert "evidence.npz" not in {p.name for p in (home / "ou" / "1").iterdir()}
+    os.utime(beside, ns=(stamp, stamp))
+    assert main(["register", str(fitted), "--name", "ou", "--scorecard", str(card),
+                 "--home", str(home)]) == 0
+    assert "found beside the scorecard" in capsys.readouterr().out
+    assert "evidence.npz" in {p.name for p in (home / "ou" / "2").iterdir()}

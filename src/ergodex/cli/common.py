@@ -188,7 +188,8 @@ def read_data(path: str, *, part: str, holdout: str | None = None, dt: float | N
         why = "--holdout none" if chosen == 0 else "no hold-out"
         # the manifest's split still tells the own-data warning what a fit would have used
         parts = split_runs(whole, list(manifest_holdout)) if manifest_holdout else (None, None)
-        return DataChoice(whole, whole, *parts, note=f"using all {whole.n_runs} runs of {path} ({why})")
+        note = f"using all {whole.n_runs} runs of {path} ({why})"
+        return DataChoice(whole, whole, *parts, note=note)
     if whole.n_runs < 2:
         raise DataError(
             f"{path}: has a single run, so no run can be held out; give --holdout none "

@@ -70,14 +70,26 @@ def check_fit_settings_file(path: str) -> None:
     parse_fit_settings(document, source=path)
 
 
+def _written_with(scorecard: str) -> bool:
+    """Whether the evidence beside ``scorecard`` came from the same check: ``ergodex validate``
+    writes it right after the scorecard, so an older file belongs to an earlier check."""
+    from ergodex.cli.validate import evidence_beside
+
+    beside = evidence_beside(scorecard)
+    try:
+        return beside.stat().st_mtime_ns >= Path(scorecard).stat().st_mtime_ns
+    except OSError:
+        return False
+
+
 def run(args: argparse.Namespace) -> int:
     from ergodex.cli.validate import evidence_beside
 
     if args.fit_settings:
         check_fit_settings_file(args.fit_settings)
-    evidence = args.evidence
-    if evidence is None and args.scorecard and evidence_beside(args.scorecard).exists():
-        evidence = str(evidence_beside(args.scorecard))
+    evidence, found = args.evidence, False
+    if evidence is None and args.scorecard and _written_with(args.scorecard):
+        evidence, found = str(evidence_beside(args.scorecard)), True
     registry = registry_from_args(args)
     info = registry.register(
         args.name,
@@ -95,4 +107,6 @@ def run(args: argparse.Namespace) -> int:
         verdict = info.verdict or "no scorecard"
         print(f"registered {info.ref} ({info.status}; scorecard: {verdict}) in {registry.home}")
         print(f"folder: {info.folder}")
+        if found:
+            print(f"evidence: {evidence} (found beside the scorecard)")
     return 0

@@ -146,6 +146,8 @@ def run(args: argparse.Namespace) -> int:
 
     from ergodex.report import write_report
 
+    if args.holdout is not None and args.data is None:
+        raise SettingsError("--holdout only applies with --data")
     registry = registry_from_args(args)
     info, result, surrogate, fit_settings = load_check_result(registry, args.ref)
     target = _output_path(args.out, info.name, info.version, registry.home)

@@ -135,8 +135,9 @@ def run(args: argparse.Namespace) -> int:
 
     if "@" in args.name:
         raise SettingsError(
-            f"retrain works on a name's accepted version (the champion); give {args.name.split('@')[0]} "
-            "without @VERSION (to check one version on new data use 'ergodex validate NAME@VERSION DATA')"
+            "retrain works on a name's accepted version (the champion); give "
+            f"{args.name.split('@')[0]} without @VERSION (to check one version on new data use "
+            "'ergodex validate NAME@VERSION DATA')"
         )
     registry = registry_from_args(args)
     spec = spec_from_args(args)

@@ -71,13 +71,14 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
 
 
 def evidence_beside(json_path: str | Path) -> Path:
-    """Where the evidence of a scorecard file goes by default: ``card.json`` → ``card.evidence.npz``."""
+    """Default evidence file of a scorecard file: ``card.json`` → ``card.evidence.npz``."""
     path = Path(json_path)
     return path.with_name(path.stem + ".evidence.npz")
 
 
 def default_report_path(model_ref: str, info: Any, home: Path) -> Path:
-    """``--report`` without a file: next to a model file, else ``HOME/reports/NAME-vV-check.html``."""
+    """``--report`` without a file: next to a model file, else under the registry home
+    (``HOME/reports/NAME-vV-check.html``)."""
     if info is None:
         path = Path(model_ref)
         return path.with_name(path.stem + ".report.html")
