@@ -239,3 +239,11 @@ def test_register_ignores_evidence_older_than_the_scorecard(dataset, fitted, tmp
                  "--home", str(home)]) == 0
     assert "found beside the scorecard" in capsys.readouterr().out
     assert "evidence.npz" in {p.name for p in (home / "ou" / "2").iterdir()}
+
+
+def test_select_without_held_out_runs_warns_that_it_checks_on_the_fit_data(dataset, tmp_path,
+                                                                          capsys):
+    main(["fit", str(dataset), "--select", "--method", "linear-inverse", "--members", "4",
+          "--statistics", "histogram", "--holdout", "none", "--out", str(tmp_path / "m.json")])
+    assert "warning: --select checks the candidates on the data they are fitted on" in (
+        capsys.readouterr().err)

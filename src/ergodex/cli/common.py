@@ -136,6 +136,11 @@ class DataChoice:
     check: Any = None
     note: str = ""
 
+    @property
+    def held_out(self) -> Any:
+        """The runs held out from a fit on :attr:`series` (``None`` when it uses every run)."""
+        return self.check if self.fit is not None and self.series is self.fit else None
+
 
 def parse_holdout_option(text: str | None) -> int | list[str] | None:
     """``--holdout``: ``None`` (not given), ``0`` for ``none``, a run count, or run labels."""

@@ -140,7 +140,11 @@ def run(args: argparse.Namespace) -> int:
     if args.reference:
         reference = read_series(args.reference, dt=args.dt, split_at_gaps=args.split_at_gaps)
     else:
-        reference = choice.check  # the held-out runs, when DATA holds some out
+        reference = choice.held_out  # the held-out runs, when DATA holds some out
+    if reference is None or reference.fingerprint() == series.fingerprint():
+        print("ergodex fit: warning: --select checks the candidates on the data they are fitted "
+              "on, which says little about new data; hold runs out (--holdout, or a dataset.toml "
+              "'holdout' list) or give --reference", file=sys.stderr)
     result = select(series, candidates, spec, reference=reference, scheduler=args.scheduler, n_jobs=args.n_jobs)
     if not args.quiet:
         print(result.table())
