@@ -247,3 +247,21 @@ def test_select_without_held_out_runs_warns_that_it_checks_on_the_fit_data(datas
           "--statistics", "histogram", "--holdout", "none", "--out", str(tmp_path / "m.json")])
     assert "warning: --select checks the candidates on the data they are fitted on" in (
         capsys.readouterr().err)
+
+
+def test_simulate_initial_states_in_another_column_order_start_the_same_members(
+        dataset, fitted, tmp_path):
+    whole = read_dataset(dataset).series
+    first = whole.select_runs([0])
+    swapped = Series.from_arrays([run[:, ::-1] for run in first.runs], first.names[::-1],
+                                 first.dt)
+    outputs = []
+    for name, series in (("straight", first), ("swapped", swapped)):
+        initial = write_csv(tmp_path / f"{name}.csv", series)
+        out = tmp_path / f"{name}-sim.npz"
+        assert main(["simulate", str(fitted), "--members", "3", "--steps", "20", "--seed", "2",
+                     "--initial", str(initial), "--out", str(out)]) == 0
+        with np.load(out, allow_pickle=False) as archive:
+            outputs.append((list(archive["names"]), archive["values"].copy()))
+    assert outputs[0][0] == outputs[1][0] == list(whole.names)
+    np.testing.assert_array_equal(outputs[0][1], outputs[1][1])
