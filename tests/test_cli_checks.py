@@ -161,3 +161,14 @@ def test_check_options_apply_to_fit_only_with_select(ou_files, tmp_path, capsys)
                  "--members", "4"]) == 2
     assert "--members only applies with --select" in capsys.readouterr().err
     assert not (tmp_path / "m.json").exists()
+
+
+def test_advice_survives_the_trip_through_a_worker_process():
+    import pickle
+
+    from ergodex.exceptions import DataError
+
+    # candidate sweeps run in joblib workers, whose errors come back pickled
+    error = pickle.loads(pickle.dumps(DataError("bad row", python_hint="(a=1)", cli_hint="(--a)")))
+    assert str(error) == "bad row (a=1)" and error.for_command_line() == "bad row (--a)"
+    assert isinstance(error, ValueError)
