@@ -5,14 +5,17 @@ and the registered model name and makes one documented decision:
 
 1. **Split.** The new data are split into a fitting part and a held-out *reference* part
    (:func:`split_for_retrain`): whole runs when there are several, the last blocks of the run
-   otherwise. Neither model is ever checked on the runs the challenger was fitted on.
+   otherwise. Neither model is ever checked on the runs the challenger was fitted on. The new
+   data may list the champion's variables in any column order; they are put in its order first
+   (:func:`ergodex.validation.align_columns`).
 2. **Drift check.** The accepted version (the *champion*, the newest accepted version of the
    name) is checked against the reference with the seed given and the check spec recorded in its
    own scorecard (:func:`resolve_spec`; so the re-check repeats the check it was accepted on),
    or the spec given. A champion that fails has *drifted*: the system no longer behaves as the
    data it was accepted on.
 3. **Challenger.** A new model is fitted on the fitting part with the champion's recorded fit
-   settings (or the settings given), and checked against the *same* reference with the *same*
+   settings (its ``fit-settings`` file, else the method and settings its own model file records:
+   :func:`fit_settings_from_model`), or the settings given, and checked against the *same* reference with the *same*
    spec and seed, so the two scorecards stand side by side on the same evidence.
 4. **Register and decide.** The challenger is always registered (as a candidate, with lineage:
    ``parent`` = the champion's version, ``datasets`` = fingerprints of the fitting and reference
@@ -493,8 +496,9 @@ def retrain(
     data : Series or path-like
         The new data (a path is read with :func:`ergodex.readers.read_series`).
     config : path-like, (method, settings) pair or mapping, optional
-        Fit settings for the challenger; default: the champion's recorded fit settings (or the
-        sparse fitter's defaults on a first run).
+        Fit settings for the challenger; default: the champion's recorded fit settings (its
+        ``fit-settings`` file, else its model file's record; the sparse fitter's defaults on a
+        first run).
     spec : ergodex.validation.CheckSpec or mapping, optional
         Check settings for both models (see :func:`resolve_spec`); a mapping overrides single
         settings of the default. The seed is always ``seed``.
