@@ -47,16 +47,47 @@ def test_report_command_writes_the_page_from_the_registry(registered, tmp_path, 
     assert "report.html" not in {p.name for p in info.folder.iterdir()}
 
 
-def test_report_without_evidence_goes_to_the_current_folder(registered, without_evidence,
-                                                            tmp_path, monkeypatch):
+def test_report_without_evidence_refuses_unless_asked_and_never_writes_to_cwd(
+        registered, without_evidence, tmp_path, monkeypatch, capsys):
     home, _, result = registered
     info = without_evidence
     monkeypatch.chdir(tmp_path)
-    assert main(["report", f"loop@{info.version}", "--home", str(home)]) == 0
-    page = (tmp_path / f"loop-v{info.version}-report.html").read_text(encoding="utf-8")
-    # No evidence stored: the scorecard and the model are shown, the figures left out.
+    # No evidence stored and no data to recompute it: refused (one line naming --data), no page.
+    assert main(["report", f"loop@{info.version}", "--home", str(home)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "--data DATA" in err[0] and result.scorecard.data_fingerprint in err[0]
+    assert not (home / "reports").exists()
+    # Asked for a page without figures: written under the registry home, not the current folder.
+    assert main(["report", f"loop@{info.version}", "--home", str(home), "--no-figures"]) == 0
+    target = home / "reports" / f"loop-v{info.version}-report.html"
+    assert capsys.readouterr().out.strip() == str(target)
+    page = target.read_text(encoding="utf-8")
     assert f'data-verdict="{result.scorecard.verdict}"' in page
     assert "<img " not in page and "No evidence arrays" in page
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_report_recomputes_missing_evidence_from_the_checked_data(registered, without_evidence,
+                                                                   tmp_path, capsys):
+    from ergodex.writers import write_npz
+    from report_support import loop_reference
+
+    home, _, result = registered
+    info = without_evidence
+    data = write_npz(tmp_path / "reference.npz", loop_reference())
+    out = tmp_path / "page.html"
+    assert main(["report", f"loop@{info.version}", "--home", str(home), "--data", str(data),
+                 "--holdout", "none", "--out", str(out)]) == 0
+    page = out.read_text(encoding="utf-8")
+    # The recorded spec and seed give the same figures as the stored evidence of version 1.
+    assert page.count("<img ") == 6
+    # Other data (one run less) are not the checked data: refused, naming both fingerprints.
+    other = write_npz(tmp_path / "other.npz", loop_reference().select_runs([0]))
+    assert main(["report", f"loop@{info.version}", "--home", str(home), "--data", str(other),
+                 "--holdout", "none", "--out", str(tmp_path / "x.html")]) == 2
+    err = capsys.readouterr().err
+    assert "not the data" in err and result.scorecard.data_fingerprint in err
+    assert not (tmp_path / "x.html").exists()
 
 
 @pytest.mark.parametrize("ref", ["nosuch@1", "loop@99"])

@@ -11,7 +11,29 @@ from __future__ import annotations
 
 
 class ErgodexError(Exception):
-    """Base class of every error ergodex raises on purpose."""
+    """Base class of every error ergodex raises on purpose.
+
+    Advice that names a way to call ergodex comes in two forms, so that each user reads their
+    own: ``python_hint`` (a keyword argument, e.g. ``"(read with split_at_gaps=True)"``) ends
+    ``str(exc)``, and ``cli_hint`` (an option, e.g. ``"(use --split-at-gaps)"``) ends
+    :meth:`for_command_line`, which the command line prints instead.
+    """
+
+    def __init__(self, *args: object, python_hint: str = "", cli_hint: str = "") -> None:
+        super().__init__(*args)
+        self.python_hint = python_hint
+        self.cli_hint = cli_hint
+
+    def _with(self, hint: str) -> str:
+        base = super().__str__()
+        return f"{base} {hint}" if hint else base
+
+    def __str__(self) -> str:
+        return self._with(self.python_hint)
+
+    def for_command_line(self) -> str:
+        """The message with the command-line form of its advice (the Python form without one)."""
+        return self._with(self.cli_hint or self.python_hint)
 
 
 class DataError(ErgodexError, ValueError):

@@ -78,6 +78,11 @@ DT_SIGNIFICANT_DIGITS = 12
 
 _MANIFEST = "dataset.toml"
 
+#: How to ask for a run to be split at a missing value, in Python and on the command line.
+GAP_HINTS = {"python_hint": "(read with split_at_gaps=True)", "cli_hint": "(use --split-at-gaps)"}
+#: How to give the sampling interval of a file that does not carry one.
+DT_HINTS = {"python_hint": "(pass dt=...)", "cli_hint": "(use --dt DT)"}
+
 
 class _DtMismatch(DataError):
     """A dt given by the caller disagrees with the file's own; ``own`` holds the file's."""
@@ -145,7 +150,8 @@ def _finish(
             raise DataError(
                 f"{source}: {run.where(r)}, column {names[c]!r}: value "
                 f"{_show(run.values[r, c])} is missing or not finite; fix or remove the row, or "
-                "read with split_at_gaps=True to split the run there"
+                "split the run there",
+                **GAP_HINTS,
             )
         else:
             # Each maximal block of finite rows becomes a run; gap rows are never interpolated.
@@ -703,7 +709,8 @@ def read_csv(
             found = "is empty (a missing value)" if text == "" else f"{text!r} is not finite"
             raise DataError(
                 f"{source}: line {r + 2}, column {var_names[c]!r}: the cell {found}; fix or "
-                "remove the row, or read with split_at_gaps=True to split the run there"
+                "remove the row, or split the run there",
+                **GAP_HINTS,
             )
 
     runs = []
@@ -733,7 +740,8 @@ def _check_time(t, bounds, tname, dt_arg, tol, source, where) -> float:
         if dt_arg is None:
             raise DataError(
                 f"{source}: there is no 'time' column and no dt was given; add a time column "
-                "or pass dt"
+                "or give the sampling interval",
+                **DT_HINTS,
             )
         return dt_arg
     bad = np.flatnonzero(~np.isfinite(t))
@@ -756,7 +764,9 @@ def _check_time(t, bounds, tname, dt_arg, tol, source, where) -> float:
     if not run_steps:
         if dt_arg is None:
             raise DataError(
-                f"{source}: every run has a single row, so the time column gives no dt; pass dt"
+                f"{source}: every run has a single row, so the time column gives no dt; give "
+                "the sampling interval",
+                **DT_HINTS,
             )
         return dt_arg
     steps_total = sum(d.size for _, d in run_steps)
@@ -847,7 +857,8 @@ def read_npz(
         raise DataError(f"{source}: no 'names' array (one name per variable)")
     if dt_arg is None:
         if "dt" not in data:
-            raise DataError(f"{source}: no 'dt' in the archive and none given; pass dt")
+            raise DataError(f"{source}: no 'dt' in the archive and none given; give the sampling "
+                            "interval", **DT_HINTS)
         dt_arr = data["dt"]
         if dt_arr.dtype.kind not in "iuf" or dt_arr.size != 1:
             raise DataError(f"{source}: 'dt' must be one number, got {dt_arr!r}")
@@ -996,7 +1007,8 @@ def read_netcdf(
     elif dt_arg is not None:
         dt_val = dt_arg
     else:
-        raise DataError(f"{source}: no time coordinate and no dt given; pass dt")
+        raise DataError(f"{source}: no time coordinate and no dt given; give the sampling "
+                        "interval", **DT_HINTS)
 
     units = None
     unit_list = [ds[n].attrs.get("units") for n in names]
@@ -1271,7 +1283,8 @@ def read_series(
         if p.is_dir() and not (p / _MANIFEST).exists():
             raise DataError(f"{p}: is a folder without a {_MANIFEST}; cannot read it as a dataset")
         if dt is not None:
-            raise DataError(f"{p}: dt comes from {_MANIFEST}; do not pass dt for a dataset")
+            raise DataError(f"{p}: dt comes from {_MANIFEST}; do not give the sampling interval "
+                            "for a dataset", python_hint="(drop dt=)", cli_hint="(drop --dt)")
         return read_dataset(
             p, split_at_gaps=split_at_gaps, min_samples=min_samples, time_tolerance=time_tolerance
         ).series

@@ -1218,7 +1218,9 @@ class Registry:
         if problems and not override:
             raise RegistryError(
                 f"{info.ref} cannot be accepted: {'; '.join(problems)}. Check it again, or accept "
-                "with override=True (--override) and a reason, which the history records"
+                "by override with a reason, which the history records",
+                python_hint="(override=True, reason=...)",
+                cli_hint="(use --override --reason TEXT)",
             )
         if problems and not (reason and reason.strip()):
             raise RegistryError(f"accepting {info.ref} by override needs a non-empty reason")

@@ -5,14 +5,17 @@ and the registered model name and makes one documented decision:
 
 1. **Split.** The new data are split into a fitting part and a held-out *reference* part
    (:func:`split_for_retrain`): whole runs when there are several, the last blocks of the run
-   otherwise. Neither model is ever checked on the runs the challenger was fitted on.
+   otherwise. Neither model is ever checked on the runs the challenger was fitted on. The new
+   data may list the champion's variables in any column order; they are put in its order first
+   (:func:`ergodex.validation.align_columns`).
 2. **Drift check.** The accepted version (the *champion*, the newest accepted version of the
    name) is checked against the reference with the seed given and the check spec recorded in its
    own scorecard (:func:`resolve_spec`; so the re-check repeats the check it was accepted on),
    or the spec given. A champion that fails has *drifted*: the system no longer behaves as the
    data it was accepted on.
 3. **Challenger.** A new model is fitted on the fitting part with the champion's recorded fit
-   settings (or the settings given), and checked against the *same* reference with the *same*
+   settings (its ``fit-settings`` file, else the method and settings its own model file records:
+   :func:`fit_settings_from_model`), or the settings given, and checked against the *same* reference with the *same*
    spec and seed, so the two scorecards stand side by side on the same evidence.
 4. **Register and decide.** The challenger is always registered (as a candidate, with lineage:
    ``parent`` = the champion's version, ``datasets`` = fingerprints of the fitting and reference
@@ -267,6 +270,7 @@ class Decision:
                 f" {side.status or ''}"
             )
         lines.append(f"  standing   {self.standing or '(no accepted model)'}")
+        lines.append(f"  (score: {SCORE_DEFINITION})")
         for reason in self.reasons:
             lines.append(f"  - {reason}")
         lines.append(f"  {CAUTION}")
@@ -337,8 +341,33 @@ def split_for_retrain(series: Series, holdout: Any = DEFAULT_HOLDOUT) -> tuple[S
     return split_runs(series, holdout)
 
 
-def _resolve_fit(config: Any, registry: Any, champion_info: Any) -> tuple[str, dict]:
-    """(method, settings) for the challenger: the config given, else the champion's record."""
+def fit_settings_from_model(surrogate: Any, *, source: str = "model") -> tuple[str, dict]:
+    """``(method, settings)`` recorded in a fitted model's ``settings``.
+
+    Every ergodex fitter writes ``method`` and its constructor settings into the model file,
+    beside facts it learned (``tau0_used``, ``observed_variables``); only the keys of the
+    method's settings table are kept, and they are checked like a fit-settings file.
+    """
+    from ergodex.fitting import fitter_class, parse_fit_settings
+
+    recorded = dict(getattr(surrogate, "settings", None) or {})
+    method = recorded.get("method")
+    if not isinstance(method, str):
+        raise SettingsError(
+            f"{source} records no fit method in its settings, so it cannot be refitted "
+            "from its own record; give fit settings (a TOML file with method and [settings])",
+            python_hint="(config=...)", cli_hint="(use --config FILE)",
+        )
+    table = fitter_class(method).settings_table
+    settings = {k: v for k, v in recorded.items() if k in table}
+    return parse_fit_settings({"method": method, "settings": settings},
+                              source=f"fit settings recorded in {source}")
+
+
+def _resolve_fit(config: Any, registry: Any, champion_info: Any,
+                 champion: Any = None) -> tuple[str, dict]:
+    """(method, settings) for the challenger: the config given, else the champion's record
+    (its ``fit-settings`` file, else the settings in its model file)."""
     from ergodex.fitting import load_fit_settings, parse_fit_settings
 
     if config is not None:
@@ -368,9 +397,9 @@ def _resolve_fit(config: Any, registry: Any, champion_info: Any) -> tuple[str, d
         return parse_fit_settings(recorded, source=f"fit settings recorded with {ref}")
     if "fit-settings.toml" in champion_info.artifacts:
         return load_fit_settings(registry.artifact_path(ref, "fit-settings.toml"))
-    raise SettingsError(
-        f"{ref} has no recorded fit settings to refit with; pass a fit-settings file with --config"
-    )
+    if champion is None:
+        champion = registry.load(ref)
+    return fit_settings_from_model(champion, source=ref)
 
 
 def resolve_spec(spec: Any, registry: Any, champion_info: Any, seed: int) -> Any:
@@ -469,8 +498,9 @@ def retrain(
         The new data (a path is read with :func:`ergodex.readers.read_series`, a table converted
         by :func:`ergodex.frames.as_series`).
     config : path-like, (method, settings) pair or mapping, optional
-        Fit settings for the challenger; default: the champion's recorded fit settings (or the
-        sparse fitter's defaults on a first run).
+        Fit settings for the challenger; default: the champion's recorded fit settings (its
+        ``fit-settings`` file, else its model file's record; the sparse fitter's defaults on a
+        first run).
     spec : ergodex.validation.CheckSpec or mapping, optional
         Check settings for both models (see :func:`resolve_spec`); a mapping overrides single
         settings of the default. The seed is always ``seed``.
@@ -559,22 +589,23 @@ def _retrain(registry: Any, name: str, data: Any, *, config: Any, spec: Any, see
 
     step("read")
     series = _as_series(data)
+    champion_info = find_champion(registry, name)
+    champion_ref = None if champion_info is None else champion_info.ref
+    champion = None if champion_info is None else registry.load(champion_ref)
+    if champion is not None:
+        series = _check_variables(champion, series, champion_ref)
     fit_part, reference = split_for_retrain(series, holdout)
     log.info("read %s: %d runs; fitting on %d, reference %d", series.source or "data",
              series.n_runs, fit_part.n_runs, reference.n_runs)
     fingerprint = series.fingerprint()
     fit_fingerprint, reference_fingerprint = fit_part.fingerprint(), reference.fingerprint()
 
-    champion_info = find_champion(registry, name)
-    champion_ref = None if champion_info is None else champion_info.ref
-    method, settings = _resolve_fit(config, registry, champion_info)
+    method, settings = _resolve_fit(config, registry, champion_info, champion)
     spec = resolve_spec(spec, registry, champion_info, seed)
 
     step("drift check")
     champion_result = None
-    if champion_info is not None:
-        champion = registry.load(champion_ref)
-        _check_variables(champion, series, champion_ref)
+    if champion is not None:
         log.info("drift check: %s against %d reference runs (seed %d)", champion_ref,
                  reference.n_runs, seed)
         champion_result = check(champion, reference, spec)
@@ -732,26 +763,17 @@ def _as_series(data: Any) -> Series:
     return as_series(data, what="retrain data")
 
 
-def _check_variables(surrogate: Any, series: Series, ref: str) -> None:
-    """The champion must describe the same variables as the new data (else: bad input)."""
-    names = _data_variables(surrogate)
-    if names is not None and tuple(names) != tuple(series.names):
-        raise DataError(
-            f"{series.source or 'data'}: variables {list(series.names)} differ from those of "
-            f"{ref} {list(names)}; retrain needs new data of the same variables in the same order"
-        )
+def _check_variables(surrogate: Any, series: Series, ref: str) -> Series:
+    """The new data with its columns in the champion's order (the same variables in any order
+    are accepted, as :func:`ergodex.validation.check` accepts them); other variables are bad
+    input."""
+    from ergodex.validation import align_columns
 
-
-def _data_variables(surrogate: Any) -> Sequence[str] | None:
-    """Data-space variable names of a surrogate (through its transform when it has one)."""
-    transform = getattr(surrogate, "transform", None)
-    if transform is None:
-        return tuple(surrogate.variables)
-    for attr in ("input_names", "names", "data_variables"):
-        value = getattr(transform, attr, None)
-        if value:
-            return tuple(value)
-    return None  # the check itself will refuse data of the wrong width
+    try:
+        return align_columns(surrogate, series)
+    except DataError as exc:
+        raise DataError(f"{exc} (the accepted version is {ref}; retrain needs new data of the "
+                        "same variables)") from None
 
 
 def _status(registry: Any, ref: str | None) -> str | None:

@@ -81,7 +81,9 @@ __all__ = [
     "Evidence",
     "ScoreRow",
     "Scorecard",
+    "align_columns",
     "check",
+    "data_variables",
     "validate",
 ]
 
@@ -771,6 +773,8 @@ def _compared_space(surrogate, reference, observed):
     no ratio, and the check stays in data space.
     """
     transform = surrogate.transform
+    if transform is not None:
+        reference = align_columns(surrogate, reference)  # the same variables in any order
     if transform is None or tuple(transform.output_names) == tuple(reference.names):
         return reference, False
     from ergodex.series import Series
@@ -791,12 +795,51 @@ def _data_space_names(surrogate, reference, observed) -> np.ndarray | None:
     they must be the reference's variables, in any order.
     """
     if surrogate.transform is None:
-        if sorted(observed) != sorted(reference.names):
-            raise DataError(
-                f"{reference.source or 'reference data'}: variables {list(reference.names)} do not "
-                f"match the model's {observed}; check the data file or the model")
-        return np.array([observed.index(n) for n in reference.names])
+        return _column_order(observed, reference)[1]
     return None
+
+
+def _column_order(names, series) -> tuple[list[int], np.ndarray]:
+    """Where each of ``names`` is in ``series`` and back: the one column matcher.
+
+    Returns ``(take, back)``: ``series`` columns ``take`` are ``names`` in order, and ``back``
+    maps ``names`` order onto the series' columns. The same set of names in any order is
+    accepted; another set raises :class:`DataError`.
+    """
+    names = list(names)
+    if sorted(names) != sorted(series.names):
+        raise DataError(
+            f"{series.source or 'reference data'}: variables {list(series.names)} do not "
+            f"match the model's {names}; check the data file or the model")
+    return [series.names.index(n) for n in names], np.array([names.index(n) for n in series.names])
+
+
+def data_variables(surrogate) -> tuple[str, ...]:
+    """Names of the data columns a surrogate reads: its transform's inputs, else its observed
+    variables (hidden variables have no data)."""
+    if surrogate.transform is not None:
+        return tuple(surrogate.transform.input_names)
+    return tuple(_observed_variables(surrogate))
+
+
+def align_columns(surrogate, series):
+    """``series`` with its columns in the surrogate's data order (:func:`data_variables`).
+
+    Data files may list the same variables in another order; :func:`check` accepts that, and
+    every other path that hands data to a model (retraining, simulation start states, a
+    transform) goes through here to accept it the same way. Another set of variables raises
+    :class:`DataError`.
+    """
+    names = data_variables(surrogate)
+    if tuple(series.names) == names:
+        return series
+    take = _column_order(names, series)[0]
+    from ergodex.series import Series
+
+    return Series.from_arrays([run[:, take] for run in series.runs], names, series.dt,
+                              units=None if series.units is None
+                              else [series.units[j] for j in take],
+                              run_labels=series.run_labels, source=series.source)
 
 
 def check(surrogate, reference, spec: CheckSpec | None = None, *, initial_states=None,

@@ -82,7 +82,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         return int(args.func(args))
     except ErgodexError as exc:
-        message = " ".join(str(exc).split())  # one line, whatever the library wrote
+        # one line, whatever the library wrote, with its advice in command-line form
+        message = " ".join(exc.for_command_line().split())
         print(f"ergodex: error: {message}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:

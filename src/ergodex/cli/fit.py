@@ -12,12 +12,24 @@ import sys
 from pathlib import Path
 from typing import Any
 
+from ergodex.cli.checks import OPTIONS, add_check_options, build_spec
+from ergodex.cli.common import add_data_options, read_data
 from ergodex.exceptions import SettingsError
 
 EXIT_OK = 0
 EXIT_NONE_PASSED = 1
 
 METHODS = ("sparse", "linear-inverse", "quadratic-noise")
+
+#: What the fit's ``score`` means, printed beside it.
+SCORE_LEGEND = ("score: the fit's R², the share of the variance of the fitted tendencies "
+                "(for linear-inverse: of the state one lag later) that the model explains; 1 is "
+                "perfect; it is not the statistical check")
+#: What the selection table's columns mean, printed under it.
+SELECT_LEGEND = ("stat.score: largest ratio of the candidate's distance from the reference "
+                 "statistics to their noise floor (lower is better; the verdict compares it with "
+                 "the tolerance); tend.err: RMS error of the model's tendencies over their RMS "
+                 "(lower is better); * marks the chosen candidate")
 
 
 def add_parser(subparsers: Any) -> argparse.ArgumentParser:
@@ -39,22 +51,21 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     parser.add_argument("--config", metavar="FILE", default=None,
                         help="fit settings (TOML): method = \"...\", a [settings] table, optional [select] table")
     parser.add_argument("--out", metavar="MODEL.json", required=True, help="where to write the model")
-    parser.add_argument("--dt", type=float, default=None,
-                        help="sampling interval when DATA has no time column or manifest")
+    add_data_options(parser)
     parser.add_argument("--select", action="store_true",
                         help="sweep candidates (the config's [select] table, else a threshold sweep) "
                              "and keep the sparsest whose statistics pass")
     parser.add_argument("--reference", metavar="DATA", default=None,
-                        help="--select: held-out data to check candidates against (default: DATA itself)")
+                        help="--select: data to check candidates against (default: DATA's "
+                             "held-out runs, else DATA itself)")
     parser.add_argument("--scheduler", metavar="ADDRESS", default=None,
                         help="--select: run candidates on a Dask cluster (e.g. tcp://127.0.0.1:8786)")
     parser.add_argument("--n-jobs", type=int, default=None,
                         help="--select: local worker processes (default 1: in this process; -1: every CPU)")
-    parser.add_argument("--members", type=int, default=16, help="--select: ensemble members per check (default 16)")
-    parser.add_argument("--seed", type=int, default=0, help="--select: seed of starts and noise (default 0)")
     parser.add_argument("--json", metavar="OUT", default=None,
                         help="write a JSON summary (fit diagnostics, or the selection front) here")
     parser.add_argument("--quiet", action="store_true", help="print nothing on success")
+    add_check_options(parser, title="check settings (--select)")
     parser.set_defaults(func=run)
     return parser
 
@@ -80,8 +91,10 @@ def run(args: argparse.Namespace) -> int:
     _check_target("json", args.json)
     if args.select is False and (args.scheduler or args.reference or args.n_jobs is not None):
         raise SettingsError("--scheduler, --reference and --n-jobs only apply with --select")
-    if args.members < 2:
-        raise SettingsError(f"--members must be at least 2; got {args.members}")
+    given = [OPTIONS[k] for k in OPTIONS if getattr(args, k, None) is not None]
+    if args.select is False and (given or args.check_config):
+        raise SettingsError(f"{(given or ['--check-config'])[0]} only applies with --select")
+    spec = build_spec(args) if args.select else None
     document: dict = {}
     if args.config is not None:
         document = read_fit_document(args.config)
@@ -93,7 +106,11 @@ def run(args: argparse.Namespace) -> int:
     if args.method is not None:
         document = {**document, "method": args.method}
     method, settings = parse_fit_settings(document, source=args.config or "--method")
-    series = read_series(args.data, dt=args.dt)
+    choice = read_data(args.data, part="fit", holdout=args.holdout, dt=args.dt,
+                       split_at_gaps=args.split_at_gaps)
+    series = choice.series
+    if not args.quiet:
+        print(f"ergodex fit: {choice.note}", file=sys.stderr)
 
     if not args.select:
         fitter = make_fitter(method, settings).fit(series)
@@ -111,20 +128,27 @@ def run(args: argparse.Namespace) -> int:
         if not args.quiet:
             print(f"fitted {method} model to {args.data} ({series.n_runs} runs, {series.n_samples} samples): "
                   f"{fitter.n_terms_} terms, score {fitter.score_:.4g}")
+            print(f"  ({SCORE_LEGEND})")
             for line in surrogate.equations():
                 print(f"  {line}")
             print(f"wrote {args.out}")
         return EXIT_OK
 
     from ergodex.fitting.selection import parse_selection, select
-    from ergodex.validation import CheckSpec
 
     candidates = parse_selection(document, method=method, settings=settings, source=args.config or "defaults")
-    reference = read_series(args.reference, dt=args.dt) if args.reference else None
-    spec = CheckSpec(members=args.members, seed=args.seed)
+    if args.reference:
+        reference = read_series(args.reference, dt=args.dt, split_at_gaps=args.split_at_gaps)
+    else:
+        reference = choice.held_out  # the held-out runs, when DATA holds some out
+    if reference is None or reference.fingerprint() == series.fingerprint():
+        print("ergodex fit: warning: --select checks the candidates on the data they are fitted "
+              "on, which says little about new data; hold runs out (--holdout, or a dataset.toml "
+              "'holdout' list) or give --reference", file=sys.stderr)
     result = select(series, candidates, spec, reference=reference, scheduler=args.scheduler, n_jobs=args.n_jobs)
     if not args.quiet:
         print(result.table())
+        print(SELECT_LEGEND)
         print(result.message)
     if result.chosen is None:
         if args.json is not None:

@@ -2,8 +2,14 @@
 
 The page is rebuilt from what the registry stored for that version — ``model.json``,
 ``scorecard.json``, ``evidence.npz`` and, when present, the fit settings — each checked against
-its recorded hash. Versions are immutable, so the report is written to ``--out`` (default: the
-current folder), never into the version folder.
+its recorded hash. A version stored without evidence gets its figures recomputed from ``--data``
+(the data it was checked on, recognised by the scorecard's data fingerprint, checked again with
+the recorded settings and seed); without either, the command refuses rather than write a page
+without figures, unless ``--no-figures`` asks for one.
+
+Versions are immutable (their folder holds only the hash-checked files registered with them), so
+the report goes to ``--out``, else to ``HOME/reports/NAME-vVERSION-report.html`` under the
+registry home — never silently into the current folder.
 """
 
 from __future__ import annotations
@@ -25,16 +31,18 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         help="(re)write the HTML validation report of a registered version",
         description=(
             "Rebuild the self-contained HTML validation report of a registered version from its "
-            "stored model, scorecard and evidence (all hash-checked). Versions are immutable, so "
-            "the report is written to --out (default: the current folder), never into the "
-            "version folder. Caution: a passed statistical check is not a certification; defer "
-            "to the applicable codes, standards and licensed practice."
+            "stored model, scorecard and evidence (all hash-checked); without stored evidence, "
+            "the figures are recomputed from --data. The report goes to --out, else to "
+            "HOME/reports/NAME-vVERSION-report.html under the registry home (versions are "
+            "immutable, so never into the version folder). Caution: a passed statistical check "
+            "is not a certification; defer to the applicable codes, standards and licensed "
+            "practice."
         ),
     )
     parser.add_argument(
         "ref",
         metavar="NAME[@VERSION]",
-        help="the version to report on; NAME alone means the newest accepted version",
+        help="the version to report on; NAME alone means the accepted version",
     )
     parser.add_argument(
         "--out",
@@ -42,21 +50,31 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         default=None,
         help=(
             "where to write the report: an .html file, or an existing folder to write "
-            "NAME-vVERSION-report.html into (default: that file in the current folder)"
+            "NAME-vVERSION-report.html into (default: HOME/reports/)"
         ),
     )
     parser.add_argument(
         "--title", default=None, help="page title (default: 'NAME@VERSION: validation report')"
     )
+    parser.add_argument(
+        "--data", metavar="DATA", default=None,
+        help="the data the version was checked on, to recompute figures a version stored "
+             "without evidence (recognised by the scorecard's data fingerprint)",
+    )
+    parser.add_argument("--holdout", metavar="H", default=None,
+                        help="--data: the held-out runs, as for 'ergodex validate'")
+    parser.add_argument("--no-figures", action="store_true",
+                        help="write the page without figures when no evidence is stored and "
+                             "no --data is given (default: refuse)")
     add_home_option(parser)
     parser.set_defaults(func=run)
     return parser
 
 
-def _output_path(out: str | None, name: str, version: int) -> Path:
+def _output_path(out: str | None, name: str, version: int, home: Path) -> Path:
     default_name = f"{name}-v{version}-report.html"
     if out is None:
-        return Path.cwd() / default_name
+        return home / "reports" / default_name
     path = Path(out)
     if path.is_dir():
         return path / default_name
@@ -75,8 +93,9 @@ def load_check_result(registry: Any, ref: str):
     """
     from ergodex.validation import CheckResult, Evidence, Scorecard
 
-    info = registry.get(ref)
-    surrogate = registry.load(info.ref)
+    from ergodex.cli.common import resolve_registered
+
+    info, surrogate = resolve_registered(registry, ref)
     if "scorecard.json" not in info.artifacts:
         raise RegistryError(
             f"{info.ref} has no scorecard.json, so there is no check to report on; run "
@@ -98,19 +117,60 @@ def load_check_result(registry: Any, ref: str):
     return info, CheckResult(scorecard=scorecard, evidence=evidence), surrogate, fit_settings
 
 
+def recompute_evidence(surrogate: Any, scorecard: Any, data: str, holdout: str | None,
+                       ref: str):
+    """Evidence of a stored check, recomputed from the data it was checked on.
+
+    The runs of ``data`` whose fingerprint is the scorecard's (the held-out runs, or every run)
+    are checked again with the recorded settings and seed; other data are refused.
+    """
+    from ergodex.cli.common import read_data
+    from ergodex.exceptions import DataError
+    from ergodex.validation import check
+
+    choice = read_data(data, part="check", holdout=holdout)
+    recorded = scorecard.data_fingerprint
+    for candidate in (choice.series, choice.whole):
+        if candidate.fingerprint() == recorded:
+            return check(surrogate, candidate, scorecard.spec).evidence
+    raise DataError(
+        f"{data}: not the data {ref} was checked on (its scorecard records data fingerprint "
+        f"{recorded}; these runs have {choice.series.fingerprint()}); give the same data, "
+        "or --holdout to pick the same runs"
+    )
+
+
 def run(args: argparse.Namespace) -> int:
     """Write the report; print its path. Exit 0, or 2 (via ErgodexError) on bad input."""
+    from dataclasses import replace
+
     from ergodex.report import write_report
 
+    if args.holdout is not None and args.data is None:
+        raise SettingsError("--holdout only applies with --data")
     registry = registry_from_args(args)
     info, result, surrogate, fit_settings = load_check_result(registry, args.ref)
-    target = _output_path(args.out, info.name, info.version)
+    target = _output_path(args.out, info.name, info.version, registry.home)
+    if result.evidence is None:
+        if args.data is not None:
+            evidence = recompute_evidence(surrogate, result.scorecard, args.data, args.holdout,
+                                          info.ref)
+            result = replace(result, evidence=evidence)
+        elif not args.no_figures:
+            raise RegistryError(
+                f"{info.ref} was registered without evidence, so its figures must be recomputed: "
+                f"give --data DATA (the data it was checked on, fingerprint "
+                f"{result.scorecard.data_fingerprint}), or --no-figures for a page without them"
+            )
+    elif args.data is not None:
+        raise SettingsError(f"--data: {info.ref} has stored evidence; the figures come from it")
     title = args.title or f"{info.ref}: validation report"
     summary = {"registered": info.created, "status": info.status}
     if info.note:
         summary["note"] = info.note
     if isinstance(fit_settings, dict):
         summary.update(fit_settings)
+    target.parent.mkdir(parents=True, exist_ok=True)
     write_report(target, result, surrogate, title=title, fit_summary=summary)
     print(target)
     return 0

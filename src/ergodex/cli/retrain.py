@@ -10,8 +10,10 @@ from __future__ import annotations
 
 import argparse
 import sys
+from pathlib import Path
 
 from ergodex.cli.common import add_home_option, add_log_level_option
+from ergodex.exceptions import SettingsError
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
@@ -34,6 +36,13 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument("name", metavar="NAME", help="registry name of the model")
     parser.add_argument("data", metavar="DATA", help="new data: CSV, NPZ, NetCDF or dataset folder")
     add_common_retrain_options(parser)
+    parser.add_argument("--dt", type=float, default=None,
+                        help="sampling interval when DATA has no time column or manifest")
+    parser.add_argument(
+        "--split-at-gaps",
+        action="store_true",
+        help="split a run at rows with missing or non-finite values instead of refusing the file",
+    )
     parser.add_argument(
         "--json",
         metavar="OUT",
@@ -58,26 +67,22 @@ def add_common_retrain_options(parser: argparse.ArgumentParser) -> None:
         "--holdout",
         default=None,
         metavar="H",
-        help="held-out reference: a fraction of the runs (0.5, the default), a run count (2) "
-        "or comma-separated run labels",
+        help="held-out reference: a fraction of the runs, a run count (2) or comma-separated "
+        "run labels (default: the dataset.toml 'holdout' list, else 0.5)",
     )
     parser.add_argument(
         "--no-report",
         action="store_true",
         help="do not store an HTML report with the challenger (saves a few seconds per retrain)",
     )
-    parser.add_argument(
-        "--members",
-        type=int,
-        default=None,
-        metavar="N",
-        help="ensemble members per check (default: as in the champion's recorded check, else 16)",
-    )
+    from ergodex.cli.checks import add_check_options
+
+    add_check_options(parser, seed=False,
+                      title="check settings (default: as in the champion's recorded check)")
 
 
 def parse_holdout(text: str | None):
     """``--holdout``: a fraction, a run count, or comma-separated run labels."""
-    from ergodex.exceptions import SettingsError
     from ergodex.retraining import DEFAULT_HOLDOUT
 
     if text is None:
@@ -97,19 +102,46 @@ def parse_holdout(text: str | None):
 
 
 def spec_from_args(args: argparse.Namespace):
-    """Check settings overridden on the command line (``None``: the champion's recorded spec)."""
-    if getattr(args, "members", None) is None:
+    """Check settings given on the command line or in ``--check-config`` (``None``: none, so the
+    champion's recorded spec is used as it is); each is checked with a one-line error."""
+    from ergodex.cli.checks import build_spec, check_overrides
+
+    settings, _origin = check_overrides(args)
+    if not settings:
         return None
-    return {"members": args.members}
+    build_spec(args)  # refuse a bad value here, naming its option or file
+    return settings
+
+
+def read_new_data(args: argparse.Namespace):
+    """DATA as a Series, and the hold-out: ``--holdout``, else the manifest's list, else 0.5."""
+    from ergodex.readers import read_dataset, read_series
+
+    holdout = parse_holdout(args.holdout)
+    path = args.data
+    is_dataset = (Path(path).is_dir() and (Path(path) / "dataset.toml").exists()
+                  or path.endswith(".toml"))
+    if is_dataset and args.dt is None:
+        dataset = read_dataset(path, split_at_gaps=args.split_at_gaps)
+        if args.holdout is None and dataset.holdout:
+            holdout = list(dataset.holdout)
+        return dataset.series, holdout
+    return read_series(path, dt=args.dt, split_at_gaps=args.split_at_gaps), holdout
 
 
 def run(args: argparse.Namespace) -> int:
     from ergodex.cli.common import is_terminal, registry_from_args
     from ergodex.retraining import retrain
 
+    if "@" in args.name:
+        raise SettingsError(
+            "retrain works on a name's accepted version (the champion); give "
+            f"{args.name.split('@')[0]} without @VERSION (to check one version on new data use "
+            "'ergodex validate NAME@VERSION DATA')"
+        )
     registry = registry_from_args(args)
-    holdout = parse_holdout(args.holdout)
     spec = spec_from_args(args)
+    data, holdout = read_new_data(args)
     bar = None
     if is_terminal():
         from tqdm import tqdm
@@ -122,7 +154,7 @@ def run(args: argparse.Namespace) -> int:
             bar.update(1)
 
     try:
-        decision = retrain(registry, args.name, args.data, config=args.config, spec=spec,
+        decision = retrain(registry, args.name, data, config=args.config, spec=spec,
                            seed=args.seed, holdout=holdout, report=not args.no_report,
                            progress=progress)
     finally:

@@ -53,6 +53,7 @@ from typing import Any
 
 import numpy as np
 
+from ergodex.cli.common import MODEL_HELP, load_model
 from ergodex.exceptions import DataError, ModelFileError, SettingsError
 
 __all__ = [
@@ -84,7 +85,7 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
             "standards and licensed practice."
         ),
     )
-    parser.add_argument("model", metavar="MODEL", help="model.json file, or NAME[@VERSION] in the registry")
+    parser.add_argument("model", metavar="MODEL", help=MODEL_HELP)
     parser.add_argument("--members", type=int, required=True, metavar="N", help="number of members (>= 1)")
     parser.add_argument("--steps", type=int, required=True, metavar="K", help="outputs per member (>= 1)")
     parser.add_argument("--seed", type=int, default=None, metavar="S",
@@ -109,23 +110,6 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     return parser
 
 
-def load_model(ref: str, home: str | None = None):
-    """A Surrogate from a model.json path, or from the registry by ``NAME[@VERSION]``."""
-    from ergodex.surrogate import Surrogate
-
-    path = Path(ref)
-    if path.exists() or ref.endswith(".json"):
-        return Surrogate.from_json(path)
-    from ergodex.cli.common import resolve_home
-
-    root = resolve_home(home)
-    if not (root / "registry.sqlite3").exists():
-        raise ModelFileError(f"{ref}: no such model file, and no registry at {root} to look it up in")
-    from ergodex.registry import Registry
-
-    return Registry(root).load(ref)
-
-
 def _output_dt(surrogate, dt: float | None) -> float:
     if dt is None:
         for where in (surrogate.provenance, surrogate.settings):
@@ -146,12 +130,10 @@ def initial_states_from_file(surrogate, path: str, members: int) -> tuple[np.nda
     """
     from ergodex.readers import read_series
 
-    series = read_series(path)
-    names = _data_names(surrogate)
-    if tuple(series.names) != tuple(names):
-        raise DataError(
-            f"{path}: columns {list(series.names)} do not match the model's data variables {list(names)}"
-        )
+    from ergodex.validation import align_columns
+
+    # the model's variables in any column order, as validate accepts them
+    series = align_columns(surrogate, read_series(path))
     observed = surrogate.observed_index
     model_rows = [surrogate.to_model_space(run) for run in series.runs]
     given = np.concatenate([r for r in model_rows if len(r)], axis=0)

@@ -1,5 +1,11 @@
 """``ergodex validate MODEL DATA``: check a surrogate's long-run statistics against data.
 
+MODEL is a ``model.json`` file or a registry reference (``NAME@VERSION``; ``NAME`` alone is the
+accepted version). DATA's held-out runs are the reference: the ``holdout`` list of a dataset's
+``dataset.toml``, or ``--holdout``; a warning goes to stderr when the check would use data the
+model was fitted on. Every check setting has an option, and ``--check-config FILE`` reads them
+from TOML (see :mod:`ergodex.cli.checks`).
+
 Exit codes: 0 the model passed, 1 it failed its check (the scorecard says why), 2 bad input
 (raised as :class:`~ergodex.exceptions.ErgodexError` and turned into one line on stderr by
 :mod:`ergodex.cli`). Every input is read and checked before anything is written.
@@ -12,10 +18,21 @@ import sys
 from pathlib import Path
 from typing import Any
 
+from ergodex.cli.checks import add_check_options, build_spec
+from ergodex.cli.common import (
+    MODEL_HELP,
+    add_data_options,
+    add_home_option,
+    own_data_warning,
+    read_data,
+)
 from ergodex.exceptions import SettingsError
 
 EXIT_PASS = 0
 EXIT_FAIL = 1
+
+#: ``--report`` given without a file: the default place (see :func:`default_report_path`).
+_DEFAULT = "\0default"
 
 
 def add_parser(subparsers: Any) -> argparse.ArgumentParser:
@@ -26,73 +43,91 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         description=(
             "Integrate the surrogate from many states drawn from the data and compare its long-run "
             "statistics (histograms, autocorrelation, spectra, quantiles, regimes) with the data's, "
-            "against the data's own sampling noise. Exit 0 when it passes, 1 when it fails, 2 on "
+            "against the data's own sampling noise. The reference is DATA's held-out runs "
+            "(dataset.toml 'holdout', or --holdout). Exit 0 when it passes, 1 when it fails, 2 on "
             "bad input. Caution: a passed statistical check is not a certification; defer to the "
             "applicable codes, standards and licensed practice."
         ),
     )
-    parser.add_argument("model", metavar="MODEL", help="surrogate file (model.json)")
+    parser.add_argument("model", metavar="MODEL", help=MODEL_HELP)
     parser.add_argument("data", metavar="DATA",
                         help="reference data: .csv, .npz, .nc, or a folder with dataset.toml")
-    parser.add_argument("--regimes", metavar="FILE", default=None,
-                        help="regime definitions (TOML) for occupancy rows")
-    parser.add_argument("--members", type=int, default=16, help="ensemble members (default 16)")
-    parser.add_argument("--length", type=float, default=None, metavar="T",
-                        help="time per member after spin-up (default: one reference piece)")
-    parser.add_argument("--spinup", type=float, default=None, metavar="T",
-                        help="spin-up time discarded (default: 5 decorrelation times)")
-    parser.add_argument("--seed", type=int, default=0, help="seed of starts and noise (default 0)")
-    parser.add_argument("--tolerance", type=float, default=None,
-                        help="largest allowed ratio of model distance to noise floor "
-                             "(default: the calibrated value)")
-    parser.add_argument("--dt", type=float, default=None,
-                        help="sampling interval when DATA has no time column or manifest")
-    parser.add_argument("--json", metavar="OUT", default=None, help="write the scorecard JSON here")
+    add_data_options(parser)
+    parser.add_argument("--json", metavar="OUT", default=None,
+                        help="write the scorecard JSON here (and the evidence beside it, as "
+                             "OUT's name with .evidence.npz, unless --evidence says where)")
     parser.add_argument("--evidence", metavar="OUT.npz", default=None,
                         help="write the evidence arrays (NPZ) here")
-    parser.add_argument("--report", metavar="OUT.html", default=None,
-                        help="write a self-contained HTML report here")
-    parser.add_argument("--quiet", action="store_true", help="do not print the scorecard table")
+    parser.add_argument("--report", metavar="OUT.html", nargs="?", const=_DEFAULT, default=None,
+                        help="write a self-contained HTML report here (without a file name: next "
+                             "to a model file as MODEL.report.html, or under the registry home "
+                             "in reports/ for NAME@VERSION)")
+    parser.add_argument("--quiet", action="store_true",
+                        help="print only the verdict line and, on failure, its reasons")
+    add_home_option(parser)
+    add_check_options(parser)
     parser.set_defaults(func=run)
     return parser
 
 
+def evidence_beside(json_path: str | Path) -> Path:
+    """Default evidence file of a scorecard file: ``card.json`` → ``card.evidence.npz``."""
+    path = Path(json_path)
+    return path.with_name(path.stem + ".evidence.npz")
+
+
+def default_report_path(model_ref: str, info: Any, home: Path) -> Path:
+    """``--report`` without a file: next to a model file, else under the registry home
+    (``HOME/reports/NAME-vV-check.html``)."""
+    if info is None:
+        path = Path(model_ref)
+        return path.with_name(path.stem + ".report.html")
+    return home / "reports" / f"{info.name}-v{info.version}-check.html"
+
+
+def quiet_lines(scorecard: Any) -> list[str]:
+    """``--quiet`` output: the verdict, and on failure the reasons that drove it."""
+    lines = [f"verdict: {scorecard.verdict}"]
+    lines.extend(f"- {reason}" for reason in scorecard.reasons)
+    return lines
+
+
 def run(args: argparse.Namespace) -> int:
     """Run the check; return 0 (pass) or 1 (fail). Bad input raises ErgodexError."""
-    from ergodex.readers import read_series
-    from ergodex.regimes import RegimeSet
-    from ergodex.surrogate import Surrogate
-    from ergodex.validation import CheckSpec, check
+    from ergodex.cli.common import load_model_info, resolve_home
+    from ergodex.validation import check
 
     # read and check everything first: nothing is written when an input is bad
-    surrogate = Surrogate.from_json(Path(args.model))
-    reference = read_series(args.data, dt=args.dt)
-    regimes = RegimeSet.from_toml(args.regimes) if args.regimes else None
-    spec_kw: dict[str, Any] = {"members": args.members, "length": args.length,
-                               "spinup": args.spinup, "seed": args.seed, "regimes": regimes}
-    if args.tolerance is not None:
-        spec_kw["tolerance"] = args.tolerance
-    spec = CheckSpec(**spec_kw)
-    spec.check_settings()
-    for option in ("json", "evidence", "report"):
-        target = getattr(args, option)
+    surrogate, info = load_model_info(args.model, args.home)
+    choice = read_data(args.data, part="check", holdout=args.holdout, dt=args.dt,
+                       split_at_gaps=args.split_at_gaps)
+    spec = build_spec(args)
+    evidence = args.evidence or (evidence_beside(args.json) if args.json else None)
+    report = args.report
+    if report == _DEFAULT:
+        report = default_report_path(args.model, info, resolve_home(args.home))
+    for option, target in (("json", args.json), ("evidence", evidence), ("report", report)):
         if target is not None and Path(target).is_dir():
             raise SettingsError(f"--{option} {target}: is a folder; give a file name")
+    if not args.quiet:
+        print(f"ergodex validate: {choice.note}", file=sys.stderr)
+    warning = own_data_warning(surrogate, choice)
+    if warning:
+        print(f"ergodex validate: warning: {warning}", file=sys.stderr)
 
-    result = check(surrogate, reference, spec)
+    result = check(surrogate, choice.series, spec)
     scorecard = result.scorecard
     if args.json:
         Path(args.json).parent.mkdir(parents=True, exist_ok=True)
         scorecard.to_json(args.json)
-    if args.evidence:
-        Path(args.evidence).parent.mkdir(parents=True, exist_ok=True)
-        result.evidence.to_npz(args.evidence)
-    if args.report:
+    if evidence:
+        Path(evidence).parent.mkdir(parents=True, exist_ok=True)
+        result.evidence.to_npz(evidence)
+    if report:
         from ergodex.report import write_report
 
-        write_report(args.report, result, surrogate)
-    if not args.quiet:
-        print(scorecard.table())
-    else:
-        print(f"verdict: {scorecard.verdict}", file=sys.stdout)
+        Path(report).parent.mkdir(parents=True, exist_ok=True)
+        write_report(report, result, surrogate)
+        print(f"ergodex validate: report written to {report}", file=sys.stderr)
+    print("\n".join(quiet_lines(scorecard)) if args.quiet else scorecard.table())
     return EXIT_PASS if scorecard.passed else EXIT_FAIL
