@@ -55,6 +55,9 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     parser.add_argument("--json", metavar="OUT", default=None,
                         help="write a JSON summary (fit diagnostics, or the selection front) here")
     parser.add_argument("--quiet", action="store_true", help="print nothing on success")
+    from ergodex.cli.fields import add_fit_options
+
+    add_fit_options(parser)
     parser.set_defaults(func=run)
     return parser
 
@@ -93,11 +96,13 @@ def run(args: argparse.Namespace) -> int:
     if args.method is not None:
         document = {**document, "method": args.method}
     method, settings = parse_fit_settings(document, source=args.config or "--method")
-    series = read_series(args.data, dt=args.dt)
+    from ergodex.cli.fields import read_fit_input
+
+    series, finish, data_note = read_fit_input(args, read_series)
 
     if not args.select:
         fitter = make_fitter(method, settings).fit(series)
-        surrogate = fitter.surrogate_
+        surrogate = finish(fitter.surrogate_)
         summary = {
             "method": method,
             "settings": fitter.get_params(),
@@ -111,6 +116,7 @@ def run(args: argparse.Namespace) -> int:
         if not args.quiet:
             print(f"fitted {method} model to {args.data} ({series.n_runs} runs, {series.n_samples} samples): "
                   f"{fitter.n_terms_} terms, score {fitter.score_:.4g}")
+            print(f"  data: {data_note}")
             for line in surrogate.equations():
                 print(f"  {line}")
             print(f"wrote {args.out}")
@@ -132,7 +138,7 @@ def run(args: argparse.Namespace) -> int:
 
             write_json_atomic(args.json, result.to_dict())
         return EXIT_NONE_PASSED
-    _write(args, result.surrogate, result.to_dict())
+    _write(args, finish(result.surrogate), result.to_dict())
     if not args.quiet:
         print(f"wrote {args.out}")
     return EXIT_OK

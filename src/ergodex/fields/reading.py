@@ -149,6 +149,16 @@ class Field:
         out[..., self.mask] = points
         return out
 
+    def select_members(self, indices) -> Field:
+        """The same field restricted to some members (e.g. fit and held-out runs)."""
+        from dataclasses import replace
+
+        idx = [int(i) for i in indices]
+        if not idx or min(idx) < 0 or max(idx) >= self.n_members:
+            raise DataError(f"{self.source}: members {idx} out of range 0..{self.n_members - 1}")
+        return replace(self, values=self.values[idx],
+                       member_labels=tuple(self.member_labels[i] for i in idx))
+
     def loaded(self) -> Field:
         """The same field with its values in memory (computes a lazy array)."""
         if not self.is_lazy:

@@ -52,8 +52,9 @@ class FieldModes(Transform):
         neither ``n_modes`` nor ``north`` is given).
     north : bool, default False
         Keep the modes separated by North's rule (capped by ``max_modes``).
-    climatology : {"month", "day", None}, default "month"
-        Seasonal cycle removed before the EOFs (fitted on the fit data only).
+    climatology : {"auto", "month", "day", None}, default "auto"
+        Seasonal cycle removed before the EOFs (fitted on the fit data only); ``auto``: none for
+        yearly samples, calendar months for monthly ones, the smooth daily cycle for finer ones.
     detrend : bool, default False
         Remove a per-point linear trend (after the seasonal cycle).
     max_modes : int, optional
@@ -74,7 +75,7 @@ class FieldModes(Transform):
     kind = "field-modes"
 
     def __init__(self, n_modes: int | None = None, *, variance: float | None = None,
-                 north: bool = False, climatology: str | None = "month", detrend: bool = False,
+                 north: bool = False, climatology: str | None = "auto", detrend: bool = False,
                  max_modes: int | None = None, solver: str = "auto", seed: int = 0) -> None:
         super().__init__()
         self.n_modes = n_modes
@@ -97,8 +98,8 @@ class FieldModes(Transform):
         chosen = sum([self.n_modes is not None, self.variance is not None, bool(self.north)])
         if chosen > 1:
             raise SettingsError("give at most one of --modes, --variance and --north")
-        if self.climatology not in (None, *CLIMATOLOGIES):
-            raise SettingsError(f"climatology must be month, day or none; got "
+        if self.climatology not in (None, "auto", *CLIMATOLOGIES):
+            raise SettingsError(f"climatology must be auto, month, day or none; got "
                                 f"{self.climatology!r}")
         if not isinstance(self.detrend, bool):
             raise SettingsError(f"detrend must be True or False; got {self.detrend!r}")
@@ -126,9 +127,13 @@ class FieldModes(Transform):
         steps = np.tile(field.steps, field.n_members)
         self.cycle_ = None
         self.trend_ = None
-        if self.climatology is not None:
+        self.climatology_ = self.climatology
+        if self.climatology == "auto":
+            self.climatology_ = {"years": None, "months": "month"}.get(self.clock_.unit, "day")
+        if self.climatology_ is not None:
             dates = self.clock_.dates_at(steps)
-            self.cycle_ = SeasonalCycle(self.climatology).fit(values, dates, self.clock_.calendar)
+            self.cycle_ = SeasonalCycle(self.climatology_).fit(values, dates,
+                                                                self.clock_.calendar)
         if self.detrend:
             self.mean_ = np.zeros(field.n_points)
             self.trend_ = LinearTrend().fit(_minus(values, steps, self._cycle_only), steps)
@@ -217,7 +222,8 @@ class FieldModes(Transform):
             "grid": [int(self.lat_.size), int(self.lon_.size)],
             "valid_points": int(self.mask_.sum()), "area_weights": self.area_source_,
             "dt": self.clock_.step, "time_unit": self.clock_.unit,
-            "calendar": self.clock_.calendar, "climatology": self.climatology,
+            "calendar": self.clock_.calendar,
+            "climatology": None if self.cycle_ is None else self.cycle_.kind,
             "detrend": self.detrend, "mode_rule": self.rule, "n_modes": self.n_modes_,
             "variance_fraction": [float(f) for f in self.variance_fraction_],
             "variance_captured": float(np.sum(self.variance_fraction_)),
