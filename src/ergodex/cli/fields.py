@@ -16,7 +16,8 @@ from typing import Any
 
 from ergodex.exceptions import DataError, SettingsError
 
-__all__ = ["add_check_options", "add_fit_options", "read_check_input", "read_fit_input"]
+__all__ = ["add_check_options", "add_fit_options", "check_field_arg", "read_check_input",
+           "read_fit_input"]
 
 
 def _common(group) -> None:
@@ -160,3 +161,12 @@ def read_check_input(args: argparse.Namespace, surrogate, read_series: Callable)
 
     field = read_field_arg(args)
     return modes_series(transform, field), field
+
+
+def check_field_arg(args: argparse.Namespace, surrogate, field, spec):
+    """Run the field check (mode rows plus grid rows) with the ``--region`` boxes."""
+    from ergodex.fields import parse_box
+    from ergodex.fields.checking import check_field
+
+    regions = [parse_box(text) for text in args.region]
+    return check_field(surrogate, field, spec, regions=regions)

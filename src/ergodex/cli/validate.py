@@ -53,6 +53,9 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     parser.add_argument("--report", metavar="OUT.html", default=None,
                         help="write a self-contained HTML report here")
     parser.add_argument("--quiet", action="store_true", help="do not print the scorecard table")
+    from ergodex.cli.fields import add_check_options
+
+    add_check_options(parser)
     parser.set_defaults(func=run)
     return parser
 
@@ -66,7 +69,9 @@ def run(args: argparse.Namespace) -> int:
 
     # read and check everything first: nothing is written when an input is bad
     surrogate = Surrogate.from_json(Path(args.model))
-    reference = read_series(args.data, dt=args.dt)
+    from ergodex.cli.fields import read_check_input
+
+    reference, field = read_check_input(args, surrogate, read_series)
     regimes = RegimeSet.from_toml(args.regimes) if args.regimes else None
     spec_kw: dict[str, Any] = {"members": args.members, "length": args.length,
                                "spinup": args.spinup, "seed": args.seed, "regimes": regimes}
@@ -79,7 +84,14 @@ def run(args: argparse.Namespace) -> int:
         if target is not None and Path(target).is_dir():
             raise SettingsError(f"--{option} {target}: is a folder; give a file name")
 
-    result = check(surrogate, reference, spec)
+    extra_sections: list = []
+    if field is None:
+        result = check(surrogate, reference, spec)
+    else:
+        from ergodex.cli.fields import check_field_arg
+
+        field_check = check_field_arg(args, surrogate, field, spec)
+        result, extra_sections = field_check.result, field_check.report_sections()
     scorecard = result.scorecard
     if args.json:
         Path(args.json).parent.mkdir(parents=True, exist_ok=True)
@@ -90,7 +102,7 @@ def run(args: argparse.Namespace) -> int:
     if args.report:
         from ergodex.report import write_report
 
-        write_report(args.report, result, surrogate)
+        write_report(args.report, result, surrogate, extra_sections=extra_sections)
     if not args.quiet:
         print(scorecard.table())
     else:

@@ -99,12 +99,19 @@ def basin_field(n_members: int = 6, n_years: int = 60, *, seed: int = 2026):
     return values, lat, lon, mask, clock
 
 
-def write_basin(path: str | os.PathLike, *, n_members: int = 6, n_years: int = 60,
-                seed: int = 2026) -> Path:
-    """Write the basin scenario as a CF NetCDF file (see the module docstring)."""
+def write_basin(folder: str | os.PathLike, *, n_fit: int = 4, n_check: int = 2,
+                n_years: int = 60, seed: int = 2026) -> tuple[Path, Path]:
+    """Write the basin scenario as two CF NetCDF files: fit runs and held-out check runs."""
+    values, lat, lon, mask, clock = basin_field(n_fit + n_check, n_years, seed=seed)
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    return (_write(folder / "basin_sst_fit.nc", values[:n_fit], lat, lon, mask, clock, seed),
+            _write(folder / "basin_sst_check.nc", values[n_fit:], lat, lon, mask, clock, seed))
+
+
+def _write(path: Path, values, lat, lon, mask, clock, seed: int) -> Path:
     from ergodex.fields.writing import write_field
 
-    values, lat, lon, mask, clock = basin_field(n_members, n_years, seed=seed)
     return write_field(
         path, values, variable=BASIN_VARIABLE, lat=lat, lon=lon, mask=mask, clock=clock,
         steps=np.arange(values.shape[1]), time_units=_TIME_UNITS, units="degC",

@@ -52,11 +52,18 @@ class FieldCheck:
     maps: dict[str, np.ndarray] = field(default_factory=dict)   # name -> (n_lat, n_lon)
     lat: np.ndarray | None = None
     lon: np.ndarray | None = None
+    mask: np.ndarray | None = None
     summary: dict = field(default_factory=dict)
 
     @property
     def scorecard(self):
         return self.result.scorecard
+
+    def report_sections(self) -> list:
+        """Extra report sections (the maps) for :func:`ergodex.report.render_report`."""
+        from ergodex.fields.maps import map_section
+
+        return [map_section(self)]
 
 
 def _weighted_rms(a: np.ndarray, b: np.ndarray, w: np.ndarray) -> np.ndarray:
@@ -261,4 +268,5 @@ def check_field(surrogate, reference: Field, spec=None, *, regions: list[Box] = 
                              "members_for_grid_rows": len(alive)}
     summary = transform.summary()
     return FieldCheck(result=result, maps=extra["maps"], lat=transform.lat_, lon=transform.lon_,
-                      summary=summary)
+                      mask=transform.mask_, summary=summary)
+
