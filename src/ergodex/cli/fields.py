@@ -11,13 +11,15 @@ from __future__ import annotations
 
 import argparse
 import glob
+
+import numpy as np
 from collections.abc import Callable
 from typing import Any
 
 from ergodex.exceptions import DataError, SettingsError
 
-__all__ = ["add_check_options", "add_fit_options", "check_field_arg", "read_check_input",
-           "read_fit_input"]
+__all__ = ["add_check_options", "add_fit_options", "check_field_arg", "field_output_map",
+           "read_check_input", "read_fit_input", "write_simulated_field"]
 
 
 def _common(group) -> None:
@@ -170,3 +172,44 @@ def check_field_arg(args: argparse.Namespace, surrogate, field, spec):
 
     regions = [parse_box(text) for text in args.region]
     return check_field(surrogate, field, spec, regions=regions)
+
+
+def field_output_map(surrogate, dt: float):
+    """For a field model: model states → absolute grid values on dates after the fit record.
+
+    Output sample ``i`` lies ``i + 1`` steps after the last sample of the fit data, so the seasonal
+    cycle (and a fitted trend, extrapolated) follow the model calendar. None for other models.
+    """
+    from ergodex.fields.modelling import field_transform_of
+
+    transform = field_transform_of(surrogate)
+    if transform is None:
+        return None
+    if abs(dt - transform.clock_.step) > 1e-9 * transform.clock_.step:
+        raise SettingsError(f"--dt {dt:g}: a field model writes its grid at its own step, "
+                            f"{transform.dt_text}; leave --dt out")
+    return lambda z: transform.inverse_at(z, transform.record_end_ + np.arange(len(z)))
+
+
+def write_simulated_field(path, surrogate, series, args: argparse.Namespace):
+    """Write simulated grid values as CF NetCDF on the model's grid, mask and calendar."""
+    from ergodex import __version__
+    from ergodex.fields.modelling import field_transform_of
+    from ergodex.fields.writing import write_field
+
+    t = field_transform_of(surrogate)
+    n = min(series.lengths)
+    values = np.stack([r[:n] for r in series.runs])
+    model_name = getattr(args, "model", "")
+    return write_field(
+        path, values, variable=t.variable_, lat=t.lat_, lon=t.lon_, mask=t.mask_,
+        clock=t.clock_, steps=t.record_end_ + np.arange(n),
+        time_units=t.dims_.get("time_units") or t.clock_.epoch, units=t.units_,
+        attrs=t.attrs_, member_dim="member", dims=t.dims_,
+        global_attrs={"title": f"ergodex simulation of {t.variable_}",
+                      "ergodex_model": str(model_name),
+                      "ergodex_model_fingerprint": surrogate.fingerprint(),
+                      "ergodex_model_version": str((surrogate.provenance or {}).get(
+                          "registry_version", "")) or None,
+                      "ergodex_version": __version__,
+                      "ergodex_members": ", ".join(series.run_labels or ())})

@@ -153,6 +153,7 @@ class FieldModes(Transform):
         self.singular_values_ = eof.singular_values
         self.eof_solver_ = eof.solver
         self.n_fit_samples_ = int(values.shape[0])
+        self.record_end_ = int(field.steps[-1]) + 1   # first step after the fit record
         self.input_names_ = field.point_names()
         return self
 
@@ -261,6 +262,7 @@ class FieldModes(Transform):
             "total_variance": float(self.total_variance_),
             "singular_values": self.singular_values_.tolist(),
             "eof_solver": self.eof_solver_, "n_fit_samples": int(self.n_fit_samples_),
+            "record_end": int(self.record_end_),
         }
 
     @classmethod
@@ -301,6 +303,7 @@ class FieldModes(Transform):
         t.singular_values_ = _floats(d.get("singular_values", []), "singular_values")
         t.eof_solver_ = str(d.get("eof_solver", ""))
         t.n_fit_samples_ = int(d.get("n_fit_samples", 0))
+        t.record_end_ = int(d.get("record_end", 0))
         iy, ix = np.nonzero(t.mask_)
         t.input_names_ = tuple(f"{t.variable_}_{a}_{b}" for a, b in zip(iy, ix))
         return t
