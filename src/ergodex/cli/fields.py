@@ -28,7 +28,7 @@ def _common(group) -> None:
                             "[level], lat, lon); DATA may be a quoted glob of files along time")
     group.add_argument("--box", metavar="LAT0,LAT1,LON0,LON1", default=None,
                        help="keep this latitude-longitude box (degrees; LON0 > LON1 crosses the "
-                            "date line)")
+                            "date line; write --box=-20,20,... when LAT0 is negative)")
     group.add_argument("--level", type=float, default=None, metavar="VALUE",
                        help="select this value of a level (or other extra) coordinate")
     group.add_argument("--chunks", type=int, default=None, metavar="N",
@@ -66,7 +66,8 @@ def add_check_options(parser: argparse.ArgumentParser) -> None:
     group = parser.add_argument_group("gridded fields (NetCDF)")
     _common(group)
     group.add_argument("--region", metavar="LAT0,LAT1,LON0,LON1", action="append", default=[],
-                       help="--variable: also compare the mean over this box (repeatable)")
+                       help="--variable: also compare the mean over this box (repeatable; "
+                            "write --region=-20,... when LAT0 is negative)")
 
 
 def _paths(data: str) -> list[str]:
