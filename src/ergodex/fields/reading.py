@@ -78,8 +78,9 @@ class Field:
     Attributes
     ----------
     values : ndarray or dask array, shape (n_members, n_time, n_points)
-        The valid grid points in row-major (lat, lon) order, float64 (a lazy dask array when
-        read with ``chunks``).
+        The valid grid points in row-major (lat, lon) order, float32 or float64 as decoded from
+        the file (a lazy dask array when read with ``chunks``); every computation on them is
+        done in float64.
     lat, lon : ndarray (n_lat,), (n_lon,)
         Grid coordinates in degrees (latitude ascending).
     mask : ndarray (n_lat, n_lon) of bool
@@ -380,8 +381,10 @@ def _assemble(xr, parts: list[_Part], variable: str, *, box, level, lazy, min_sa
         import dask.array as dsa
 
         full = dsa.concatenate(arrays, axis=-3) if len(arrays) > 1 else arrays[0]
+    elif len(arrays) == 1:
+        full = np.asarray(arrays[0])
     else:
-        full = np.concatenate([np.asarray(a, dtype=np.float64) for a in arrays], axis=-3)
+        full = np.concatenate([np.asarray(a) for a in arrays], axis=-3)
     if member_dim is None:
         full = full[None]
     labels = _member_labels(das[0], member_dim)
@@ -398,8 +401,9 @@ def _assemble(xr, parts: list[_Part], variable: str, *, box, level, lazy, min_sa
                         f"{n_time * full.shape[0]} times (dimension 'time'); a field needs each "
                         f"point present always or never: fill the gaps or choose a --box")
     values = full.reshape(full.shape[:2] + (-1,))[..., mask.ravel()]
-    if lazy:
+    if values.dtype not in (np.float32, np.float64):
         values = values.astype(np.float64)
+    del full
     area, area_source = _area(first, das[0], lat, lon, lat_dim, lon_dim, mask, box)
     attrs = {str(k): v for k, v in da0.attrs.items()
              if isinstance(v, (str, int, float, np.number)) and k not in ("_FillValue",)}

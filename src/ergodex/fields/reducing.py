@@ -99,6 +99,7 @@ def weighted_eof(
     max_modes: int | None = None,
     solver: str = "auto",
     seed: int = 0,
+    overwrite: bool = False,
 ) -> EOFResult:
     """Leading area-weighted EOFs of anomalies (n_samples, n_points), centred in time already.
 
@@ -117,6 +118,8 @@ def weighted_eof(
         entries; dask arrays always use dask's compressed SVD.
     seed : int
         Seeds the randomized solvers.
+    overwrite : bool, default False
+        Weight a numpy ``anomalies`` in place instead of a copy (saves one copy of the field).
     """
     _check(rule, n_modes, variance)
     if solver not in ("auto", "full", "randomized"):
@@ -133,8 +136,12 @@ def weighted_eof(
     if lazy:
         s, vt, total, used = _lazy_svd(anomalies, sqrt_w, want, seed)
     else:
-        aw = anomalies * sqrt_w
-        total = float(np.sum(aw * aw))
+        if overwrite and anomalies.dtype == np.float64:
+            aw = anomalies
+            aw *= sqrt_w
+        else:
+            aw = anomalies * sqrt_w
+        total = float(np.einsum("ij,ij->", aw, aw))
         big = n * p > RANDOMIZED_ABOVE
         if solver == "full" or (solver == "auto" and not big) or want >= min(n, p):
             _, s, vt = np.linalg.svd(aw, full_matrices=False)

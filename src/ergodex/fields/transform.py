@@ -134,19 +134,27 @@ class FieldModes(Transform):
             dates = self.clock_.dates_at(steps)
             self.cycle_ = SeasonalCycle(self.climatology_).fit(values, dates,
                                                                 self.clock_.calendar)
-        if self.detrend:
-            self.mean_ = np.zeros(field.n_points)
-            self.trend_ = LinearTrend().fit(_minus(values, steps, self._cycle_only), steps)
         self.mean_ = np.zeros(field.n_points)
-        mean = _minus(values, steps, self._baseline).mean(axis=0)
-        self.mean_ = np.asarray(mean.compute() if hasattr(mean, "compute") else mean)
-        anomalies = _minus(values, steps, self._baseline)
+        if isinstance(values, np.ndarray):
+            # one float64 working copy, changed in place (the benchmark's memory budget)
+            anomalies = _anomalies(values, steps, self._cycle_only)
+            if self.detrend:
+                self.trend_ = LinearTrend().fit(anomalies, steps)
+                _subtract_rows(anomalies, steps, self.trend_.evaluate)
+            self.mean_ = anomalies.mean(axis=0)
+            anomalies -= self.mean_
+        else:
+            if self.detrend:
+                self.trend_ = LinearTrend().fit(_minus(values, steps, self._cycle_only), steps)
+            self.mean_ = np.asarray(_minus(values, steps, self._baseline).mean(axis=0).compute())
+            anomalies = _minus(values, steps, self._baseline)
         variance = self.variance if (self.variance is not None or self.rule != "variance") \
             else 0.9
         eof: EOFResult = weighted_eof(anomalies, self.area_, rule=self.rule,
                                       n_modes=self.n_modes, variance=variance,
                                       max_modes=self.max_modes, solver=self.solver,
-                                      seed=self.seed)
+                                      seed=self.seed, overwrite=True)
+        del anomalies
         self.components_ = eof.components
         self.variance_fraction_ = eof.variance_fraction
         self.total_variance_ = eof.total_variance
@@ -330,10 +338,36 @@ def modes_series(transform: FieldModes, field: Field) -> Series:
     w = transform.components_ * transform.sqrt_weights
     runs = []
     for m in range(field.n_members):
-        x = _minus(field.values[m], steps, transform._baseline) @ w.T
-        runs.append(np.asarray(x.compute() if hasattr(x, "compute") else x))
+        x = field.values[m]
+        if isinstance(x, np.ndarray):
+            z = np.concatenate([(x[a:b] - transform._baseline(steps[a:b])) @ w.T
+                                for a, b in _blocks(x.shape[0])])
+        else:
+            z = np.asarray((_minus(x, steps, transform._baseline) @ w.T).compute())
+        runs.append(z)
     return Series.from_arrays(runs, transform.output_names, transform.clock_.step,
                               run_labels=list(field.member_labels), source=field.source)
+
+
+_BLOCK_ROWS = 256
+
+
+def _blocks(n: int) -> list[tuple[int, int]]:
+    return [(a, min(n, a + _BLOCK_ROWS)) for a in range(0, n, _BLOCK_ROWS)]
+
+
+def _anomalies(values: np.ndarray, steps: np.ndarray, baseline) -> np.ndarray:
+    """``values − baseline(steps)`` as a new float64 array, filled a block of rows at a time."""
+    out = np.empty(values.shape, dtype=np.float64)
+    for a, b in _blocks(values.shape[0]):
+        np.subtract(values[a:b], baseline(steps[a:b]), out=out[a:b])
+    return out
+
+
+def _subtract_rows(x: np.ndarray, steps: np.ndarray, rows) -> None:
+    """``x −= rows(steps)`` in place, a block of rows at a time."""
+    for a, b in _blocks(x.shape[0]):
+        x[a:b] -= rows(steps[a:b])
 
 
 def _minus(values: Any, steps: np.ndarray, baseline) -> Any:
