@@ -19,7 +19,7 @@ from typing import Any
 from ergodex.exceptions import DataError, SettingsError
 
 __all__ = ["add_check_options", "add_fit_options", "check_field_arg", "field_output_map",
-           "read_check_input", "read_fit_input", "write_simulated_field"]
+           "read_check_input", "read_fit_input", "time_unit_note", "write_simulated_field"]
 
 
 def _common(group) -> None:
@@ -214,3 +214,14 @@ def write_simulated_field(path, surrogate, series, args: argparse.Namespace):
                           "registry_version", "")) or None,
                       "ergodex_version": __version__,
                       "ergodex_members": ", ".join(series.run_labels or ())})
+
+
+def time_unit_note(surrogate) -> str | None:
+    """One line naming a field model's time unit (its rates and times are in that unit)."""
+    from ergodex.fields.modelling import field_transform_of
+
+    t = field_transform_of(surrogate)
+    if t is None:
+        return None
+    return (f"time unit: {t.clock_.unit} (dt = {t.dt_text}, {t.clock_.calendar} calendar); "
+            f"times and rates above are in {t.clock_.unit}")

@@ -325,6 +325,10 @@ def run(args: argparse.Namespace) -> int:
     names = _data_names(surrogate)
 
     print(f"ergodex simulate: {result.message}; seed {seed}", file=sys.stderr)
+    from ergodex.cli.fields import time_unit_note
+
+    if time_unit_note(surrogate):
+        print(f"ergodex simulate: {time_unit_note(surrogate)}", file=sys.stderr)
     if result.n_blown_up:
         which = ", ".join(
             f"{m} (t={t:.6g})" for m, t in zip(np.flatnonzero(result.blown_up), result.blowup_time[result.blown_up])

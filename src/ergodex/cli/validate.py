@@ -105,6 +105,10 @@ def run(args: argparse.Namespace) -> int:
         write_report(args.report, result, surrogate, extra_sections=extra_sections)
     if not args.quiet:
         print(scorecard.table())
+        if field is not None:
+            from ergodex.cli.fields import time_unit_note
+
+            print(time_unit_note(surrogate))
     else:
         print(f"verdict: {scorecard.verdict}", file=sys.stdout)
     return EXIT_PASS if scorecard.passed else EXIT_FAIL

@@ -7,7 +7,7 @@ fraction, a fixed count, or the North et al. rule of thumb [2]_: a mode is kept 
 eigenvalue stands clear of its neighbours by more than its sampling error
 ``λ sqrt(2 / n)``. Large grids go through a randomized SVD [3]_ (scikit-learn's
 ``randomized_svd``) that never forms the full decomposition; a lazy (dask) array goes through
-dask's compressed SVD, one chunk at a time.
+the same algorithm streamed over its row chunks (one pass per product with the matrix).
 
 References
 ----------
@@ -115,7 +115,7 @@ def weighted_eof(
         Upper bound on the count chosen by ``variance`` or ``north``.
     solver : {"auto", "full", "randomized"}
         ``auto``: full SVD for small matrices, randomized above :data:`RANDOMIZED_ABOVE`
-        entries; dask arrays always use dask's compressed SVD.
+        entries; dask arrays always use the streamed randomized SVD (:func:`_lazy_svd`).
     seed : int
         Seeds the randomized solvers.
     overwrite : bool, default False
@@ -166,14 +166,40 @@ def weighted_eof(
                      total_variance=total, variance_fraction=fractions[:k], solver=used)
 
 
-def _lazy_svd(anomalies, sqrt_w, want: int, seed: int):
-    """Compressed SVD of a dask array, chunk by chunk (never the whole matrix in memory)."""
-    import dask
-    import dask.array as da
+def _lazy_svd(anomalies, sqrt_w, want: int, seed: int, n_iter: int = 4, oversample: int = 20):
+    """Randomized SVD (Halko et al. 2011, algorithm 4.4) of a dask array, one row chunk at a time.
 
-    aw = anomalies * sqrt_w[None, :]
-    aw = aw.rechunk({1: -1})
-    total = (aw * aw).sum()
-    u, s, vt = da.linalg.svd_compressed(aw, k=want, n_power_iter=4, seed=seed)
-    s, vt, total = dask.compute(s, vt, total)
-    return np.asarray(s), np.asarray(vt), float(total), "dask-compressed"
+    Every product with the matrix is its own pass over the row chunks, each computed and
+    dropped before the next is read, so memory holds a chunk plus (n_samples + n_points) x
+    (k + oversampling) numbers, never the matrix: a file larger than memory goes through. Each
+    pass rereads the file (2 n_iter + 2 passes).
+    """
+    n, p = anomalies.shape
+    ell = min(want + oversample, n, p)
+    rows = np.cumsum((0,) + tuple(anomalies.chunks[0]))
+
+    def blocks():
+        for i in range(len(rows) - 1):
+            yield rows[i], rows[i + 1], np.asarray(anomalies.blocks[i].compute()) * sqrt_w
+
+    rng = np.random.default_rng(seed)
+    omega = rng.standard_normal((p, ell))
+    y = np.empty((n, ell))
+    total = 0.0
+    for a, b, blk in blocks():                      # Y = A Ω, and the total sum of squares
+        y[a:b] = blk @ omega
+        total += float(np.einsum("ij,ij->", blk, blk))
+    q, _ = np.linalg.qr(y)
+    for _ in range(n_iter):                          # power iterations, re-orthonormalised
+        z = np.zeros((p, ell))
+        for a, b, blk in blocks():
+            z += blk.T @ q[a:b]
+        z, _ = np.linalg.qr(z)
+        for a, b, blk in blocks():
+            y[a:b] = blk @ z
+        q, _ = np.linalg.qr(y)
+    bt = np.zeros((p, ell))                          # B^T = A^T Q
+    for a, b, blk in blocks():
+        bt += blk.T @ q[a:b]
+    _, s, vt = np.linalg.svd(bt.T, full_matrices=False)
+    return s[:want], vt[:want], total, "streamed-randomized"
