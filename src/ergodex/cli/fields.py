@@ -201,7 +201,8 @@ def write_simulated_field(path, surrogate, series, args: argparse.Namespace):
     t = field_transform_of(surrogate)
     n = min(series.lengths)
     values = np.stack([r[:n] for r in series.runs])
-    model_name = getattr(args, "model", "")
+    model_name = str(getattr(args, "model", ""))
+    version = _registered_version(model_name, getattr(args, "home", None))
     return write_field(
         path, values, variable=t.variable_, lat=t.lat_, lon=t.lon_, mask=t.mask_,
         clock=t.clock_, steps=t.record_end_ + np.arange(n),
@@ -210,8 +211,7 @@ def write_simulated_field(path, surrogate, series, args: argparse.Namespace):
         global_attrs={"title": f"ergodex simulation of {t.variable_}",
                       "ergodex_model": str(model_name),
                       "ergodex_model_fingerprint": surrogate.fingerprint(),
-                      "ergodex_model_version": str((surrogate.provenance or {}).get(
-                          "registry_version", "")) or None,
+                      "ergodex_model_version": version,
                       "ergodex_version": __version__,
                       "ergodex_members": ", ".join(series.run_labels or ())})
 
@@ -225,3 +225,16 @@ def time_unit_note(surrogate) -> str | None:
         return None
     return (f"time unit: {t.clock_.unit} (dt = {t.dt_text}, {t.clock_.calendar} calendar); "
             f"times and rates above are in {t.clock_.unit}")
+
+
+def _registered_version(ref: str, home) -> str | None:
+    """``NAME@VERSION`` of a registered model reference (None for a model file)."""
+    from pathlib import Path
+
+    if Path(ref).exists() or ref.endswith(".json"):
+        return None
+    from ergodex.cli.common import resolve_home
+    from ergodex.registry import Registry
+
+    info = Registry(resolve_home(home)).get(ref)
+    return f"{info.name}@{info.version}"
