@@ -1,4 +1,4 @@
-"""Writing small CF NetCDF files for the field tests (xarray + cftime; files only under tmp_path)."""
+"""Small CF NetCDF files for the field tests (xarray + cftime; files only under tmp_path)."""
 
 from __future__ import annotations
 

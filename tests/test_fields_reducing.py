@@ -10,12 +10,12 @@ import pytest
 pytest.importorskip("xarray")
 cftime = pytest.importorskip("cftime")
 
-from ergodex.exceptions import DataError  # noqa: E402
-from ergodex.fields import FieldModes, modes_series, read_field  # noqa: E402
-from ergodex.fields.preparing import LinearTrend, SeasonalCycle  # noqa: E402
-from ergodex.fields.reducing import north_mode_count, weighted_eof  # noqa: E402
-from ergodex.transforms import transform_from_dict  # noqa: E402
-from fields_support import eofs_example, noise_field, write_cf  # noqa: E402
+from fields_support import eofs_example, noise_field, write_cf
+
+from ergodex.exceptions import DataError
+from ergodex.fields import FieldModes, modes_series, read_field
+from ergodex.fields.preparing import LinearTrend, SeasonalCycle
+from ergodex.fields.reducing import north_mode_count, weighted_eof
 
 LAT = np.array([-10.0, -5.0, 0.0, 5.0, 10.0, 15.0])
 LON = np.arange(8) * 10.0 + 120.0
@@ -131,7 +131,7 @@ def _monthly_file(tmp_path, rng, n=48, calendar="noleap", trend=0.0):
 
 def test_round_trip_grid_modes_grid(tmp_path):
     rng = np.random.default_rng(15)
-    path, x = _monthly_file(tmp_path, rng, trend=0.05)
+    path, _ = _monthly_file(tmp_path, rng, trend=0.05)
     field = read_field(path, "tas")
     every = FieldModes(n_modes=field.n_points, detrend=True).fit(field)
     z = every.forward(field.values[0])

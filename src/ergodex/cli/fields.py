@@ -11,10 +11,10 @@ from __future__ import annotations
 
 import argparse
 import glob
-
-import numpy as np
 from collections.abc import Callable
 from typing import Any
+
+import numpy as np
 
 from ergodex.exceptions import DataError, SettingsError
 

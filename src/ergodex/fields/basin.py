@@ -25,7 +25,7 @@ import numpy as np
 
 from ergodex.fields.calendar import Clock
 
-__all__ = ["BASIN_VARIABLE", "basin_grid", "basin_field", "write_basin"]
+__all__ = ["BASIN_VARIABLE", "basin_field", "basin_grid", "write_basin"]
 
 BASIN_VARIABLE = "sst"
 _TIME_UNITS = "days since 1900-01-01"

@@ -69,7 +69,8 @@ class Clock:
     step : float
         Sampling interval in ``unit`` (the ``dt`` a fitted model sees).
     origin : float
-        Position of sample 0: days (or hours) since ``epoch``, or a month count ``12 year + month - 1``.
+        Position of sample 0: days (or hours) since ``epoch``, or a month count
+        ``12 year + month - 1``.
     epoch : str
         ``"days since ..."`` units of the elapsed-time origin (the file's own reference date).
     calendar : str

@@ -239,7 +239,7 @@ def check_field(surrogate, reference: Field, spec=None, *, regions: list[Box] = 
     rng = np.random.default_rng([spec.seed, 17])
     stacked = modes.stacked()
     starts = stacked[rng.choice(stacked.shape[0], size=spec.members, replace=True)]
-    n_out = max(L, int(round(float(st["member_length"]) / dt)))
+    n_out = max(L, round(float(st["member_length"]) / dt))
     run = integrate_ensemble(surrogate, starts, dt_out=dt, n_out=n_out, spinup=float(st["spinup"]),
                              bound=blowup_bound(stacked, factor=10.0),
                              seed=int(rng.integers(2**31)))

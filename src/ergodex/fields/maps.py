@@ -11,7 +11,7 @@ from collections.abc import Mapping
 
 import numpy as np
 
-__all__ = ["plot_map", "grid_maps_svg", "map_section"]
+__all__ = ["grid_maps_svg", "map_section", "plot_map"]
 
 
 def _edges(c: np.ndarray) -> np.ndarray:

@@ -21,7 +21,7 @@ import numpy as np
 from ergodex.exceptions import DataError, ModelFileError, SettingsError
 from ergodex.fields.calendar import days_in_year
 
-__all__ = ["SeasonalCycle", "LinearTrend", "CLIMATOLOGIES", "year_fraction"]
+__all__ = ["CLIMATOLOGIES", "LinearTrend", "SeasonalCycle", "year_fraction"]
 
 CLIMATOLOGIES = ("month", "day")
 

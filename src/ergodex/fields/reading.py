@@ -23,10 +23,10 @@ from typing import Any
 
 import numpy as np
 
-from ergodex.exceptions import DataError, ErgodexError, require
+from ergodex.exceptions import DataError, require
 from ergodex.fields.calendar import Clock, clock_from_times, decode_times
 
-__all__ = ["Box", "Field", "MEMBER_DIMS", "parse_box", "read_field"]
+__all__ = ["MEMBER_DIMS", "Box", "Field", "parse_box", "read_field"]
 
 MEMBER_DIMS = ("member", "realization", "ensemble", "run", "number")
 _LAT_NAMES = ("lat", "latitude", "nav_lat", "y")
@@ -305,8 +305,6 @@ def read_field(
     try:
         return _assemble(xr, parts, variable, box=box, level=level, lazy=chunks is not None,
                          min_samples=min_samples)
-    except ErgodexError:
-        raise
     finally:
         if chunks is None:
             for p in parts:
@@ -364,7 +362,8 @@ def _assemble(xr, parts: list[_Part], variable: str, *, box, level, lazy, min_sa
         iy, ix = box.lat_index(lat), box.lon_index(lon)
         if iy.size == 0 or ix.size == 0:
             raise DataError(f"{where}: the box {box.to_list()} holds no grid points (latitudes "
-                            f"{lat.min():g}..{lat.max():g}, longitudes {lon.min():g}..{lon.max():g})")
+                            f"{lat.min():g}..{lat.max():g}, longitudes "
+                            f"{lon.min():g}..{lon.max():g})")
         das = [da.isel({lat_dim: iy, lon_dim: ix}) for da in das]
         lat, lon = lat[iy], lon[ix]
     # time: one clock across files

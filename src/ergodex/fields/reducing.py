@@ -28,7 +28,7 @@ import numpy as np
 
 from ergodex.exceptions import DataError, SettingsError
 
-__all__ = ["EOFResult", "north_mode_count", "weighted_eof", "RULES"]
+__all__ = ["RULES", "EOFResult", "north_mode_count", "weighted_eof"]
 
 RULES = ("variance", "count", "north")
 #: Above this many matrix entries (samples × points) the automatic solver is randomized.
