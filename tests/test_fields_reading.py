@@ -207,3 +207,39 @@ def test_lazy_read_matches_the_in_memory_read(tmp_path):
     lazy = read_field(path, "tas", chunks=7)
     assert lazy.is_lazy
     np.testing.assert_array_equal(lazy.loaded().values, read_field(path, "tas").values)
+
+
+def test_clock_places_dates_and_refuses_off_grid_ones():
+    from ergodex.fields.calendar import clock_from_times
+
+    dates = np.array([cftime.datetime(2000 + y, 1, 16, calendar="360_day") for y in range(5)])
+    clock = clock_from_times(dates, "days since 1990-01-01", "360_day", where="f.nc")
+    assert clock.dt_text == "360 days"  # 360_day years are 360 days long (cftime)
+    later = np.array([cftime.datetime(2007, 1, 16, calendar="360_day")])
+    assert clock.steps_of(later, where="g.nc").tolist() == [7]
+    # numbers written back equal cftime's own encoding of the same dates (reference)
+    np.testing.assert_allclose(clock.numbers_at(np.arange(5), "days since 1990-01-01"),
+                               cftime.date2num(list(dates), "days since 1990-01-01",
+                                               calendar="360_day"))
+    off = np.array([cftime.datetime(2003, 7, 1, calendar="360_day")])
+    with pytest.raises(DataError, match="falls between the model's samples every 360 days"):
+        clock.steps_of(off, where="g.nc")
+
+
+def test_written_field_reads_back_with_mask_packing_and_calendar(tmp_path):
+    from ergodex.fields.calendar import Clock
+    from ergodex.fields.writing import write_field
+
+    rng = np.random.default_rng(10)
+    mask = np.ones((LAT.size, LON.size), bool)
+    mask[2, 3:5] = False
+    values = 20.0 + rng.standard_normal((2, 24, mask.sum()))
+    clock = Clock("months", 1.0, 12.0 * 2001, "days since 2000-01-01", "noleap", 15.0)
+    path = write_field(tmp_path / "w.nc", values, variable="tos", lat=LAT, lon=LON, mask=mask,
+                       clock=clock, steps=np.arange(24), time_units="days since 2000-01-01",
+                       units="degC", packing={"dtype": "int16", "scale_factor": 0.001,
+                                              "add_offset": 20.0, "_FillValue": np.int16(-32767)})
+    field = read_field(path, "tos")
+    assert np.array_equal(field.mask, mask) and field.n_members == 2 and field.units == "degC"
+    assert (field.clock.unit, field.clock.calendar) == ("months", "noleap")
+    np.testing.assert_allclose(field.values, values, atol=0.0005 + 1e-9)  # half the scale factor

@@ -192,3 +192,24 @@ def test_lazy_fit_matches_in_memory_fit(tmp_path):
     a = modes_series(lazy, lazy_field).runs[0]
     b = modes_series(eager, read_field(path, "tas")).runs[0]
     np.testing.assert_allclose(np.abs(a), np.abs(b), rtol=1e-5, atol=1e-6)
+
+
+def test_north_rule_on_the_eofs_example_matches_numpy_eigenvalues():
+    path = eofs_example()
+    field = read_field(path, "sst")
+    t = FieldModes(north=True, climatology=None).fit(field)
+    import xarray as xr
+
+    with xr.open_dataset(path) as ds:
+        sst = ds["sst"].values
+        lat = ds["latitude"].values.astype(np.float64)
+    valid = np.isfinite(sst).all(axis=0)
+    w = np.sqrt(np.cos(np.deg2rad(lat)))[:, None] * np.ones(sst.shape[1:])
+    s = np.linalg.svd((sst - sst.mean(axis=0))[:, valid] * w[valid], compute_uv=False)
+    lam = s**2 / (sst.shape[0] - 1)
+    # North et al. (1982): keep modes while λ_k − λ_{k+1} > λ_k sqrt(2/n), reference by hand
+    err = lam * np.sqrt(2.0 / sst.shape[0])
+    k = 0
+    while lam[k] - lam[k + 1] > err[k]:
+        k += 1
+    assert t.n_modes_ == max(1, k) and t.rule == "north"
