@@ -47,7 +47,7 @@ def run(args: argparse.Namespace) -> int:
     if args.scenario == "basin":
         from ergodex.fields.demo import run_basin_demo
 
-        demo = lambda **kw: run_basin_demo(**{k: v for k, v in kw.items() if k != "scenario"})  # noqa: E731
+        demo = run_basin_demo
     result = demo(
         scenario=args.scenario,
         home=resolve_home(args.home),

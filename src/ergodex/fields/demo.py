@@ -20,8 +20,17 @@ __all__ = ["BASIN_NAME", "run_basin_demo"]
 BASIN_NAME = "basin-sst"
 
 
-def run_basin_demo(*, home=None, data_root="datasets", seed: int | None = None) -> DemoResult:
-    """Build the basin data, fit, check on the grid, register, report; see the module docstring."""
+def run_basin_demo(*, scenario: str = "basin", home=None, data_root="datasets",
+                   seed: int | None = None) -> DemoResult:
+    """Build the basin data, fit, check on the grid, register, report; see the module docstring.
+
+    ``scenario`` is accepted (and must be ``"basin"``) so that the call matches
+    :func:`ergodex.pipeline.run_demo`.
+    """
+    if scenario != "basin":
+        from ergodex.exceptions import SettingsError
+
+        raise SettingsError(f"run_basin_demo runs the basin scenario, not {scenario!r}")
     from ergodex.fields import Box, FieldModes, modes_series, read_field
     from ergodex.fields.basin import BASIN_VARIABLE, write_basin
     from ergodex.fields.checking import check_field
