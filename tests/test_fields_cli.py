@@ -122,14 +122,40 @@ def test_fit_refuses_bad_field_options(tmp_path, capsys, argv, pattern):
     assert not out.exists()
 
 
-def test_fit_exit_2_names_variable_and_dimension(tmp_path, capsys):
+@pytest.mark.parametrize("case, expected", [
+    ("units", "variable 'tas', dimension 'time': the time coordinate has no CF 'units'"),
+    ("no-time", "variable 'tas' has no time dimension"),
+    ("lat", "variable 'tas', dimension 'lat': coordinate is not monotonic"),
+    ("all-nan", "variable 'tas': every value is missing"),
+    ("calendars", "variable 'tas', dimension 'time': calendar '360_day' differs"),
+])
+def test_fit_exit_2_names_variable_and_dimension(tmp_path, capsys, case, expected):
+    import xarray as xr
+
     rng = np.random.default_rng(25)
-    path = write_cf(tmp_path / "bad.nc", rng.standard_normal((10, 6, 8)), lat=LAT, lon=LON,
-                    times=np.arange(10.0), time_attrs={"standard_name": "time"})
+    x = rng.standard_normal((10, 6, 8))
+    data = str(tmp_path / "bad.nc")
+    if case == "units":
+        write_cf(tmp_path / "bad.nc", x, lat=LAT, lon=LON, times=np.arange(10.0),
+                 time_attrs={"standard_name": "time"})
+    elif case == "no-time":
+        xr.Dataset({"tas": (("lat", "lon"), x[0], {"units": "K"})},
+                   coords={"lat": LAT, "lon": LON}).to_netcdf(data)
+    elif case == "lat":
+        write_cf(tmp_path / "bad.nc", x, lat=LAT[[1, 0, 2, 3, 4, 5]], lon=LON,
+                 times=np.arange(10.0))
+    elif case == "all-nan":
+        write_cf(tmp_path / "bad.nc", np.full_like(x, np.nan), lat=LAT, lon=LON,
+                 times=np.arange(10.0))
+    else:
+        write_cf(tmp_path / "bad_1.nc", x, lat=LAT, lon=LON, times=np.arange(10.0))
+        write_cf(tmp_path / "bad_2.nc", x, lat=LAT, lon=LON, times=np.arange(10.0, 20.0),
+                 calendar="360_day")
+        data = str(tmp_path / "bad_*.nc")  # a glob of files along time
     out = tmp_path / "m.json"
-    assert main(["fit", str(path), "--variable", "tas", "--out", str(out)]) == 2
+    assert main(["fit", data, "--variable", "tas", "--out", str(out)]) == 2
     err = capsys.readouterr().err
-    assert "variable 'tas', dimension 'time'" in err and "units" in err and not out.exists()
+    assert expected in err and err.count("\n") == 1 and not out.exists()
 
 
 @pytest.mark.slow
