@@ -100,6 +100,7 @@ def read_fit_input(args: argparse.Namespace, read_series: Callable) -> tuple[Any
     if args.variable is None:
         used = [o for o in field_only if getattr(args, o) is not None]
         used += [o for o in ("north", "detrend") if getattr(args, o)]
+        used += ["climatology"] if args.climatology != "auto" else []
         if used:
             raise SettingsError(f"--{used[0].replace('_', '-')} needs --variable NAME "
                                 f"(a gridded NetCDF field)")
