@@ -22,7 +22,9 @@ carry them* (projected and mapped back), so these rows test the dynamics on the 
 truncation loses is the ``variance captured`` row, whose value is the share of each check piece's
 area-weighted variance that the model's modes capture, compared with the share on the fit data.
 Model pieces come from an ensemble of their own, started from reference states drawn with the
-check's seed.
+check's seed. Grid rows compare single pieces (no pooling) cut end to end from each reference
+run (no gap between them), and use the check's tolerance, which was calibrated on the mode-space
+rows; their own calibration is still to be measured.
 
 A passed check is evidence, not a certification: defer to the applicable codes, standards and
 licensed practice.
