@@ -979,6 +979,7 @@ def read_netcdf(
             raise DataError(
                 f"{source}: variable {name!r} has dimensions {dims}; expected ('time',)"
                 + (f" or ({member!r}, 'time')" if member else "")
+                + ("; for a gridded field pass --variable NAME" if len(dims) >= 2 else "")
             )
         if ds[name].dtype.kind not in "biuf":
             raise DataError(f"{source}: variable {name!r} is not numeric ({ds[name].dtype})")

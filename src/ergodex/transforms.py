@@ -539,6 +539,12 @@ TRANSFORMS: dict[str, type[Transform]] = {
 }
 
 
+#: Kinds defined in modules that build on this one, imported when a model file names them.
+_ELSEWHERE: dict[str, tuple[str, str]] = {
+    "field-modes": ("ergodex.fields.transform", "FieldModes"),
+}
+
+
 def transform_from_dict(d: Mapping[str, Any]) -> Transform:
     """Rebuild a fitted transform from :meth:`Transform.to_dict` output.
 
@@ -550,6 +556,11 @@ def transform_from_dict(d: Mapping[str, Any]) -> Transform:
     if not isinstance(d, Mapping):
         raise ModelFileError(f"a transform must be an object, got {type(d).__name__}")
     kind = d.get("kind")
+    if kind in _ELSEWHERE and kind not in TRANSFORMS:
+        import importlib
+
+        module, name = _ELSEWHERE[kind]
+        TRANSFORMS[kind] = getattr(importlib.import_module(module), name)
     if kind not in TRANSFORMS:
         raise ModelFileError(
             f"unknown transform kind {kind!r}; known: {', '.join(TRANSFORMS)}"
@@ -561,7 +572,8 @@ def transform_from_dict(d: Mapping[str, Any]) -> Transform:
         t = TRANSFORMS[kind]._from_state(d, len(names))
     except KeyError as exc:
         raise ModelFileError(f"{kind} transform is missing field {exc}") from None
-    t.input_names_ = tuple(names)
+    if getattr(t, "input_names_", None) is None:  # a kind may rebuild its own (field points)
+        t.input_names_ = tuple(names)
     return t
 
 

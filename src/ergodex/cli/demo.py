@@ -20,10 +20,12 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     )
     parser.add_argument(
         "--scenario",
-        choices=["convection-loop", "ring"],
+        choices=["convection-loop", "ring", "basin"],
         default="convection-loop",
         help="convection-loop: a heated loop whose flow reverses (3 sensors, default); "
-        "ring: 40 weather stations around a latitude circle, reduced to a few modes",
+        "ring: 40 weather stations around a latitude circle, reduced to a few modes; "
+        "basin: monthly sea-surface temperature of an ocean basin (CF NetCDF, land mask), "
+        "reduced to EOF modes and checked on the grid",
     )
     parser.add_argument("--seed", type=int, default=None, help="seed of data and check (default: the committed sample datasets' seed, 2026)")
     parser.add_argument(
@@ -41,7 +43,12 @@ def run(args: argparse.Namespace) -> int:
     from ergodex.cli.common import resolve_home
     from ergodex.pipeline import run_demo
 
-    result = run_demo(
+    demo = run_demo
+    if args.scenario == "basin":
+        from ergodex.fields.demo import run_basin_demo
+
+        demo = run_basin_demo
+    result = demo(
         scenario=args.scenario,
         home=resolve_home(args.home),
         data_root=args.data_root,
@@ -52,6 +59,10 @@ def run(args: argparse.Namespace) -> int:
     print("Equations found:")
     for line in flow.surrogate.equations():
         print(f"  {line}")
+    transform = flow.surrogate.transform
+    if getattr(transform, "kind", "") == "field-modes":
+        print(f"  (time in {transform.clock_.unit}: dt = {transform.dt_text}, "
+              f"{transform.clock_.calendar} calendar; rates are per {transform.clock_.unit[:-1]})")
     print()
     print(card.table())
     print()

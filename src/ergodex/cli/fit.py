@@ -66,6 +66,9 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
                         help="write a JSON summary (fit diagnostics, or the selection front) here")
     parser.add_argument("--quiet", action="store_true", help="print nothing on success")
     add_check_options(parser, title="check settings (--select)")
+    from ergodex.cli.fields import add_fit_options
+
+    add_fit_options(parser)
     parser.set_defaults(func=run)
     return parser
 
@@ -106,15 +109,20 @@ def run(args: argparse.Namespace) -> int:
     if args.method is not None:
         document = {**document, "method": args.method}
     method, settings = parse_fit_settings(document, source=args.config or "--method")
-    choice = read_data(args.data, part="fit", holdout=args.holdout, dt=args.dt,
-                       split_at_gaps=args.split_at_gaps)
-    series = choice.series
-    if not args.quiet:
-        print(f"ergodex fit: {choice.note}", file=sys.stderr)
+    from ergodex.cli.fields import read_fit_input
+
+    def read_fit_part(path: str, dt: float | None = None):
+        choice = read_data(path, part="fit", holdout=args.holdout, dt=dt,
+                           split_at_gaps=args.split_at_gaps)
+        if not args.quiet:
+            print(f"ergodex fit: {choice.note}", file=sys.stderr)
+        return choice.series
+
+    series, finish, data_note = read_fit_input(args, read_fit_part)
 
     if not args.select:
         fitter = make_fitter(method, settings).fit(series)
-        surrogate = fitter.surrogate_
+        surrogate = finish(fitter.surrogate_)
         summary = {
             "method": method,
             "settings": fitter.get_params(),
@@ -129,6 +137,7 @@ def run(args: argparse.Namespace) -> int:
             print(f"fitted {method} model to {args.data} ({series.n_runs} runs, {series.n_samples} samples): "
                   f"{fitter.n_terms_} terms, score {fitter.score_:.4g}")
             print(f"  ({SCORE_LEGEND})")
+            print(f"  data: {data_note}")
             for line in surrogate.equations():
                 print(f"  {line}")
             print(f"wrote {args.out}")
@@ -156,7 +165,7 @@ def run(args: argparse.Namespace) -> int:
 
             write_json_atomic(args.json, result.to_dict())
         return EXIT_NONE_PASSED
-    _write(args, result.surrogate, result.to_dict())
+    _write(args, finish(result.surrogate), result.to_dict())
     if not args.quiet:
         print(f"wrote {args.out}")
     return EXIT_OK

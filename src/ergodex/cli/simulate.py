@@ -292,6 +292,9 @@ def run(args: argparse.Namespace) -> int:
         if bar is not None:
             bar.close()
 
+    from ergodex.cli.fields import field_output_map, write_simulated_field
+
+    to_data = field_output_map(surrogate, dt) or surrogate.to_data_space
     runs, labels, dropped = [], [], []
     for m in range(result.n_members):
         valid = result.valid(m)
@@ -299,11 +302,15 @@ def run(args: argparse.Namespace) -> int:
             dropped.append(m)
             continue
         # data space holds the observed variables only: hidden columns are not data
-        runs.append(surrogate.to_data_space(result.states[m, valid]))
+        runs.append(to_data(result.states[m, valid]))
         labels.append(f"member-{m:03d}")
     names = _data_names(surrogate)
 
     print(f"ergodex simulate: {result.message}; seed {seed}", file=sys.stderr)
+    from ergodex.cli.fields import time_unit_note
+
+    if time_unit_note(surrogate):
+        print(f"ergodex simulate: {time_unit_note(surrogate)}", file=sys.stderr)
     if result.n_blown_up:
         which = ", ".join(
             f"{m} (t={t:.6g})" for m, t in zip(np.flatnonzero(result.blown_up), result.blowup_time[result.blown_up])
@@ -324,7 +331,10 @@ def run(args: argparse.Namespace) -> int:
             sys.stdout.write(target.read_text(encoding="utf-8"))
     else:
         writer = {"csv": write_csv, "npz": write_npz, "nc": write_netcdf}[fmt]
-        target = writer(args.out, series)
+        if fmt == "nc" and field_output_map(surrogate, dt) is not None:
+            target = write_simulated_field(args.out, surrogate, series, args)
+        else:
+            target = writer(args.out, series)
         print(f"ergodex simulate: wrote {series.n_runs} members x {args.steps} outputs to {target}",
               file=sys.stderr)
     return 1 if result.n_blown_up else 0

@@ -65,6 +65,9 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     parser.add_argument("--quiet", action="store_true",
                         help="print only the verdict line and, on failure, its reasons")
     add_home_option(parser)
+    from ergodex.cli.fields import add_check_options as add_field_check_options
+
+    add_field_check_options(parser)
     add_check_options(parser)
     parser.set_defaults(func=run)
     return parser
@@ -99,8 +102,17 @@ def run(args: argparse.Namespace) -> int:
 
     # read and check everything first: nothing is written when an input is bad
     surrogate, info = load_model_info(args.model, args.home)
-    choice = read_data(args.data, part="check", holdout=args.holdout, dt=args.dt,
-                       split_at_gaps=args.split_at_gaps)
+    from ergodex.cli.fields import read_check_input
+
+    holder: dict[str, Any] = {}
+
+    def read_check_part(path: str, dt: float | None = None):
+        holder["choice"] = read_data(path, part="check", holdout=args.holdout, dt=dt,
+                                     split_at_gaps=args.split_at_gaps)
+        return holder["choice"].series
+
+    reference, field = read_check_input(args, surrogate, read_check_part)
+    choice = holder.get("choice")
     spec = build_spec(args)
     evidence = args.evidence or (evidence_beside(args.json) if args.json else None)
     report = args.report
@@ -109,13 +121,21 @@ def run(args: argparse.Namespace) -> int:
     for option, target in (("json", args.json), ("evidence", evidence), ("report", report)):
         if target is not None and Path(target).is_dir():
             raise SettingsError(f"--{option} {target}: is a folder; give a file name")
-    if not args.quiet:
-        print(f"ergodex validate: {choice.note}", file=sys.stderr)
-    warning = own_data_warning(surrogate, choice)
-    if warning:
-        print(f"ergodex validate: warning: {warning}", file=sys.stderr)
+    if choice is not None:
+        if not args.quiet:
+            print(f"ergodex validate: {choice.note}", file=sys.stderr)
+        warning = own_data_warning(surrogate, choice)
+        if warning:
+            print(f"ergodex validate: warning: {warning}", file=sys.stderr)
 
-    result = check(surrogate, choice.series, spec)
+    extra_sections: list = []
+    if field is None:
+        result = check(surrogate, reference, spec)
+    else:
+        from ergodex.cli.fields import check_field_arg
+
+        field_check = check_field_arg(args, surrogate, field, spec)
+        result, extra_sections = field_check.result, field_check.report_sections()
     scorecard = result.scorecard
     if args.json:
         Path(args.json).parent.mkdir(parents=True, exist_ok=True)
@@ -127,7 +147,11 @@ def run(args: argparse.Namespace) -> int:
         from ergodex.report import write_report
 
         Path(report).parent.mkdir(parents=True, exist_ok=True)
-        write_report(report, result, surrogate)
+        write_report(report, result, surrogate, extra_sections=extra_sections)
         print(f"ergodex validate: report written to {report}", file=sys.stderr)
     print("\n".join(quiet_lines(scorecard)) if args.quiet else scorecard.table())
+    if field is not None and not args.quiet:
+        from ergodex.cli.fields import time_unit_note
+
+        print(time_unit_note(surrogate))
     return EXIT_PASS if scorecard.passed else EXIT_FAIL

@@ -696,7 +696,8 @@ footer { margin-top: 2.5rem; padding-top: 0.6rem; border-top: 1px solid var(--ru
 
 
 def render_report(result: Any, surrogate: Any, *, title: str | None = None,
-                  fit_summary: Mapping[str, Any] | None = None, selection: Any = None) -> str:
+                  fit_summary: Mapping[str, Any] | None = None, selection: Any = None,
+                  extra_sections: Sequence[tuple[str, str, str]] = ()) -> str:
     """Render the validation report of one check as a self-contained HTML page.
 
     Parameters
@@ -715,6 +716,8 @@ def render_report(result: Any, surrogate: Any, *, title: str | None = None,
     selection : ergodex.fitting.selection.SelectionResult, mapping or sequence, optional
         The candidates of a sweep (``front`` and the chosen index); shown as a table, and as a
         complexity-against-score plot when the candidates carry such numbers.
+    extra_sections : sequence of (anchor, heading, html), optional
+        Sections drawn right after the scorecard (e.g. the maps of a gridded field's check).
 
     Returns
     -------
@@ -736,7 +739,7 @@ def render_report(result: Any, surrogate: Any, *, title: str | None = None,
     names = _variable_names(evidence, surrogate)
     if title is None:
         title = "Validation report: " + ", ".join(names) if names else "Validation report"
-    sections: list[tuple[str, str, str]] = [_scorecard_section(scorecard)]
+    sections: list[tuple[str, str, str]] = [_scorecard_section(scorecard), *extra_sections]
     if evidence is not None:
         sections.extend(_distribution_sections(evidence, names))
         regime = _regime_section(evidence)
