@@ -111,14 +111,17 @@ def run(args: argparse.Namespace) -> int:
     method, settings = parse_fit_settings(document, source=args.config or "--method")
     from ergodex.cli.fields import read_fit_input
 
+    holder: dict[str, Any] = {}
+
     def read_fit_part(path: str, dt: float | None = None):
-        choice = read_data(path, part="fit", holdout=args.holdout, dt=dt,
-                           split_at_gaps=args.split_at_gaps)
+        holder["choice"] = read_data(path, part="fit", holdout=args.holdout, dt=dt,
+                                     split_at_gaps=args.split_at_gaps)
         if not args.quiet:
-            print(f"ergodex fit: {choice.note}", file=sys.stderr)
-        return choice.series
+            print(f"ergodex fit: {holder['choice'].note}", file=sys.stderr)
+        return holder["choice"].series
 
     series, finish, data_note = read_fit_input(args, read_fit_part)
+    choice = holder.get("choice")
 
     if not args.select:
         fitter = make_fitter(method, settings).fit(series)
@@ -149,7 +152,8 @@ def run(args: argparse.Namespace) -> int:
     if args.reference:
         reference = read_series(args.reference, dt=args.dt, split_at_gaps=args.split_at_gaps)
     else:
-        reference = choice.held_out  # the held-out runs, when DATA holds some out
+        # the held-out runs, when DATA holds some out (a gridded field holds none out)
+        reference = choice.held_out if choice is not None else None
     if reference is None or reference.fingerprint() == series.fingerprint():
         print("ergodex fit: warning: --select checks the candidates on the data they are fitted "
               "on, which says little about new data; hold runs out (--holdout, or a dataset.toml "
