@@ -84,7 +84,7 @@ from ergodex.service.jobs import (  # noqa: E402
     WorkerPool,
     hold_home_lock,
 )
-from ergodex.service.limits import check_memory_estimate  # noqa: E402
+from ergodex.service.limits import CHECK_MEMORY_FACTOR, check_memory_estimate  # noqa: E402
 from ergodex.service.settings import ServiceSettings  # noqa: E402
 from ergodex.service.tasks import version_ref  # noqa: E402 - light: the numerics load lazily
 
@@ -477,9 +477,9 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
                 422,
                 "invalid-settings",
                 f"check options: members × length ask for about {estimate / 2**20:.0f} MiB "
-                f"(members × steps × variables × 8 bytes × 3), over this server's job memory "
-                f"limit of {settings.job_memory_bytes / 2**20:.0f} MiB; use fewer members or "
-                "a shorter length",
+                f"(members × steps × variables × 8 bytes × {CHECK_MEMORY_FACTOR}), over this "
+                f"server's job memory limit of {settings.job_memory_bytes / 2**20:.0f} MiB; use "
+                "fewer members or a shorter length",
             )
 
     def check_fit(method: str, fit_settings: dict[str, Any]) -> None:

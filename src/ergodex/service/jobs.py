@@ -141,7 +141,7 @@ class JobRecord:
             error_code=row["error_code"],
             error_message=row["error_message"],
             claim=row["claim"],
-            owner=row["owner"] if "owner" in row.keys() else None,
+            owner=row["owner"] if "owner" in row.keys() else None,  # noqa: SIM118 - a Row
         )
 
 
@@ -401,7 +401,7 @@ def _parse_job_time(text: str) -> float:
     """Seconds since the epoch of a job time (ISO 8601 UTC, as written by :func:`_job_time`)."""
     from datetime import datetime
 
-    return datetime.fromisoformat(text.replace("Z", "+00:00")).timestamp()
+    return datetime.fromisoformat(text).timestamp()
 
 
 def _dataset_dict(row: sqlite3.Row) -> dict[str, Any]:

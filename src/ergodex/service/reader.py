@@ -89,7 +89,8 @@ def read_isolated(
     ]
     try:
         done = subprocess.run(
-            command, capture_output=True, text=True, timeout=timeout, stdin=subprocess.DEVNULL
+            command, capture_output=True, text=True, timeout=timeout, stdin=subprocess.DEVNULL,
+            check=False,
         )
     except subprocess.TimeoutExpired:
         raise ApiError(

@@ -145,9 +145,9 @@ def check_token(token: str) -> None:
     bad = [c for c in token if not (" " < c <= "~")]
     if bad:
         raise SettingsError(
-            f"the service token holds {len(bad)} character(s) outside printable ASCII "
-            f"(first: {bad[0]!r}); HTTP clients cannot send it in a header; use letters, digits "
-            "and punctuation only (for example: python -c \"import secrets; "
+            f"the service token holds {len(bad)} character(s) that are spaces or outside "
+            f"printable ASCII (first: {bad[0]!r}); HTTP clients cannot send it in a header; use "
+            "letters, digits and punctuation only (for example: python -c \"import secrets; "
             "print(secrets.token_urlsafe(32))\")"
         )
     if len(token) < MIN_TOKEN_LENGTH:
