@@ -411,6 +411,10 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
     ) -> schemas.DatasetInfo:
         """Upload a dataset file; it is read and checked like on the command line.
 
+        The server does not read it itself: an NPZ archive's declared inflated size is checked
+        first (413 ``dataset-too-large``), then a short-lived process under the job memory
+        limit reads the file and returns what the record needs.
+
         Refused with 4xx and nothing stored: names with folder parts, unknown file types,
         content that is not of its type, data the reader rejects, files over the size limit.
         """

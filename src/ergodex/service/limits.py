@@ -15,6 +15,7 @@ Three guards share this module, all cheap and free of the web framework:
 
 from __future__ import annotations
 
+import errno
 import math
 import zipfile
 from pathlib import Path
@@ -54,10 +55,13 @@ def apply_memory_limit(nbytes: int | None) -> bool:
 
 
 def is_memory_error(exc: BaseException | None) -> bool:
-    """True when ``exc`` is a ``MemoryError`` or was raised while handling / because of one."""
+    """True when ``exc`` is a ``MemoryError`` (or an ``OSError`` ENOMEM, as from ``mmap`` or a
+    thread start under the limit), or was raised while handling / because of one."""
     seen = 0
     while exc is not None and seen < 20:
         if isinstance(exc, MemoryError):
+            return True
+        if isinstance(exc, OSError) and exc.errno == errno.ENOMEM:
             return True
         exc = exc.__cause__ or exc.__context__
         seen += 1
