@@ -276,7 +276,7 @@ def test_the_queue_bound_answers_429_and_cancel_frees_a_place(limited):
 
 
 def test_check_options_beyond_the_job_memory_limit_are_refused(limited):
-    server, client = limited
+    _server, client = limited
     dataset = upload(client, "loop.csv", convection_csv(seed=31, n_runs=2, duration=10.0))
     body = {"name": "truth", "version": 1, "dataset": dataset.json()["id"],
             "check": {"members": 1024, "length": 1e5}}

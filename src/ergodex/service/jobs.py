@@ -530,10 +530,13 @@ def worker_main(
             if is_memory_error(exc):
                 out_of_memory = True
                 code = MEMORY_LIMIT
+                allowed = (
+                    f"this server allows one job ({memory_bytes / 2**20:.0f} MiB, "
+                    "--job-memory-mb)" if memory_bytes else "this machine could give it"
+                )
                 message = (
-                    f"the job needed more memory than this server allows one job "
-                    f"({(memory_bytes or 0) / 2**20:.0f} MiB, --job-memory-mb); ask for less "
-                    "(fewer members, a shorter length, a smaller dataset)"
+                    f"the job needed more memory than {allowed}; ask for less (fewer members, "
+                    "a shorter length, a smaller dataset)"
                 )
             else:
                 code, message = describe_error(exc)

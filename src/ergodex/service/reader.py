@@ -64,6 +64,9 @@ def main(argv: list[str] | None = None) -> int:
     """Child entry point: ``FILE NAME OPTIONS_JSON MEMORY_BYTES``; one JSON line on stdout."""
     argv = sys.argv[1:] if argv is None else argv
     path, filename, options_text, memory = argv
+    from ergodex.service.jobs import _die_with_parent
+
+    _die_with_parent(os.getppid())  # a killed server leaves no reader behind
     # numpy starts its BLAS threads when imported; do that before the ceiling so that thread
     # stacks are not what the limit catches.
     import numpy  # noqa: F401
