@@ -27,7 +27,7 @@ POST     …/versions/{n}/accept|reject|retire                write
 Limits: uploads are read in a child process (:mod:`ergodex.service.reader`), never here; a
 submission beyond the queue bounds gets 429 ``queue-full`` with ``Retry-After``; check options
 whose estimated memory exceeds the job memory limit get 422 ``invalid-settings``; the supervisor
-task fails jobs over the wall-clock limit and replaces dead workers.
+thread fails jobs over the wall-clock limit and replaces dead workers.
 """
 
 # No ``from __future__ import annotations``: FastAPI reads the annotations of the handlers
@@ -38,9 +38,9 @@ from ergodex.exceptions import require
 require("fastapi", "service", "the HTTP service")
 require("python_multipart", "service", "dataset uploads to the HTTP service")
 
-import asyncio  # noqa: E402
 import json  # noqa: E402
 import logging  # noqa: E402
+import threading  # noqa: E402
 from contextlib import asynccontextmanager  # noqa: E402
 from typing import Annotated, Any, Literal  # noqa: E402
 
@@ -285,23 +285,25 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
             log.warning("marked %d interrupted job(s) failed: %s", len(failed), ", ".join(failed))
         pool.start()
 
-        def supervise_once() -> None:
-            pool.enforce_time_limit(store, settings.job_time_limit)
-            pool.replace_dead(store)
+        # A thread of its own, not the request thread pool: when every pooled thread is busy
+        # (slow clients, uploads being read), time limits and dead workers are still handled.
+        stop_supervisor = threading.Event()
 
-        async def supervise() -> None:
-            while True:
-                await asyncio.sleep(SUPERVISE_INTERVAL)
+        def supervise() -> None:
+            while not stop_supervisor.wait(SUPERVISE_INTERVAL):
                 try:
-                    await run_in_threadpool(supervise_once)
+                    pool.enforce_time_limit(store, settings.job_time_limit)
+                    pool.replace_dead(store)
                 except Exception:  # noqa: BLE001 - the supervisor must outlive a bad round
                     log.exception("supervisor round failed; trying again")
 
-        supervisor = asyncio.create_task(supervise())
+        supervisor = threading.Thread(target=supervise, name="ergodex-supervisor", daemon=True)
+        supervisor.start()
         try:
             yield
         finally:
-            supervisor.cancel()
+            stop_supervisor.set()
+            await run_in_threadpool(supervisor.join, 30.0)
             await run_in_threadpool(pool.stop, store)
             lock.close()
 

@@ -178,11 +178,20 @@ def store_upload(
                 out.write(chunk)
         check_content(filename, fmt, head)
         check_inflated_size(path, filename, fmt, settings.max_dataset_bytes)
-        with _READERS:
+        if not _READERS.acquire(timeout=settings.parse_time_limit):
+            raise UploadRefused(
+                503,
+                "server-busy",
+                f"{filename}: other uploads are being read; send it again in a minute",
+                headers={"Retry-After": "60"},
+            )
+        try:
             summary = read_isolated(
                 path, filename, options,
                 memory_bytes=settings.job_memory_bytes, timeout=settings.parse_time_limit,
             )
+        finally:
+            _READERS.release()
         log.info("upload %s read by process %s", filename, summary.pop("reader_pid", "?"))
         fingerprint = summary["fingerprint"]
         dataset_id = fingerprint.split(":", 1)[-1]
