@@ -149,6 +149,48 @@ def test_check_memory_estimate_scales_with_members_length_and_variables():
     assert check_memory_estimate({"members": 8}, dt=0.01, variables=3, samples=2000) == base
 
 
+def _lying_npz(shape: tuple[int, ...]) -> bytes:
+    """An NPZ whose values.npy header declares ``shape`` but holds only 800 bytes of data.
+
+    The zip directory tells the truth about the small member, so only reading it shows the
+    lie: the array the header asks for is allocated before its bytes are read.
+    """
+    from numpy.lib import format as npy_format
+
+    member = io.BytesIO()
+    npy_format.write_array_header_1_0(
+        member, {"descr": "<f8", "fortran_order": False, "shape": shape}
+    )
+    member.write(b"\0" * 800)
+    buffer = io.BytesIO()
+    with zipfile.ZipFile(buffer, "w", zipfile.ZIP_DEFLATED) as archive:
+        archive.writestr("values.npy", member.getvalue())
+        for key, value in {"names": np.array(["a", "b", "c"]), "dt": np.array(0.1)}.items():
+            item = io.BytesIO()
+            np.save(item, value)
+            archive.writestr(f"{key}.npy", item.getvalue())
+    return buffer.getvalue()
+
+
+def test_uploads_are_read_in_another_process_under_a_memory_ceiling(tmp_path):
+    from ergodex.service.errors import ApiError
+    from ergodex.service.reader import read_isolated
+
+    good = tmp_path / "good.npz"
+    good.write_bytes(_periodic_npz(256 * 40)[0])
+    summary = read_isolated(good, "good.npz", {}, memory_bytes=2048 * MiB, timeout=120)
+    assert summary["reader_pid"] != os.getpid()
+    assert (summary["samples"], summary["runs"], summary["variables"]) == (10240, 1, ["a", "b", "c"])
+    # 24 GB asked for by a 1 kB file: the reader's ceiling stops it, the server is untouched.
+    lying = tmp_path / "lying.npz"
+    lying.write_bytes(_lying_npz((1, 10**9, 3)))
+    assert declared_inflated_size(lying) < 2000
+    with pytest.raises(ApiError) as refused:
+        read_isolated(lying, "lying.npz", {}, memory_bytes=2048 * MiB, timeout=120)
+    assert (refused.value.status, refused.value.code) == (413, "dataset-too-large")
+    assert "lying.npz" in str(refused.value) and str(tmp_path) not in str(refused.value)
+
+
 # -- the job table (no server) -----------------------------------------------------------------
 
 
@@ -177,6 +219,40 @@ def test_queue_bounds_count_queued_and_running_jobs_per_owner_and_in_all(tmp_pat
     assert not store.succeed(job.id, job.claim, {"late": True})  # the claim is gone
     store.submit("fit", {}, owner=bob, **bounds)
     assert store.counts()[QUEUED] == 3 and store.counts()[CANCELLED] == 1
+
+
+_SUBMITTER = """
+import json, sys
+from ergodex.service.jobs import JobStore, QueueFull
+store = JobStore(sys.argv[1])
+accepted = 0
+for _ in range(10):
+    try:
+        store.submit("fit", {}, owner=sys.argv[2], per_owner=100, total=12)
+        accepted += 1
+    except QueueFull:
+        pass
+print(accepted)
+"""
+
+
+def test_concurrent_submissions_never_overshoot_the_bound(tmp_path):
+    import subprocess
+    import sys
+
+    store = JobStore(tmp_path / "jobs.sqlite3")
+    procs = [
+        subprocess.Popen([sys.executable, "-c", _SUBMITTER, str(store.path), f"owner-{i}"],
+                         stdout=subprocess.PIPE)
+        for i in range(3)
+    ]
+    accepted = []
+    for proc in procs:
+        out, _ = proc.communicate(timeout=120)
+        assert proc.returncode == 0
+        accepted.append(int(out))
+    # 30 attempts against a bound of 12: exactly 12 rows, however the processes interleaved.
+    assert sum(accepted) == 12 and store.counts()[QUEUED] == 12
 
 
 # -- against a server without workers: uploads, queue bound, cancel of queued jobs -------------
