@@ -180,7 +180,8 @@ def test_uploads_are_read_in_another_process_under_a_memory_ceiling(tmp_path):
     good.write_bytes(_periodic_npz(256 * 40)[0])
     summary = read_isolated(good, "good.npz", {}, memory_bytes=2048 * MiB, timeout=120)
     assert summary["reader_pid"] != os.getpid()
-    assert (summary["samples"], summary["runs"], summary["variables"]) == (10240, 1, ["a", "b", "c"])
+    assert (summary["samples"], summary["runs"]) == (10240, 1)
+    assert summary["variables"] == ["a", "b", "c"]
     # 24 GB asked for by a 1 kB file: the reader's ceiling stops it, the server is untouched.
     lying = tmp_path / "lying.npz"
     lying.write_bytes(_lying_npz((1, 10**9, 3)))
