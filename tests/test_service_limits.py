@@ -105,6 +105,8 @@ def test_bad_serve_options_exit_2_with_one_line(tmp_path, capsys):
     a_file.write_text("x")
     non_ascii = tmp_path / "token"
     non_ascii.write_text("jeton-très-secret-0123456789\n", encoding="utf-8")
+    not_text = tmp_path / "binary-token"
+    not_text.write_bytes(b"abc\xffdefghijklmnopqrstuv\n")
     cases = [
         (["--max-upload-mb", "inf"], "--max-upload-mb"),
         (["--max-upload-mb", "nan"], "--max-upload-mb"),
@@ -116,6 +118,7 @@ def test_bad_serve_options_exit_2_with_one_line(tmp_path, capsys):
         (["--queue-limit", "-3"], "--queue-limit"),
         (["--home", str(a_file)], "is a file, not a folder"),
         (["--token-file", str(non_ascii)], "printable ASCII"),
+        (["--token-file", str(not_text)], "not text"),
     ]
     for extra, expected in cases:
         args = ["serve", "--port", "0", "--home", str(tmp_path / "home"), *extra]

@@ -171,6 +171,11 @@ def read_token(token_file: str | os.PathLike[str] | None = None, *, environ=None
             text = path.read_text(encoding="utf-8")
         except OSError as exc:
             raise SettingsError(f"cannot read the token file {path}: {exc.strerror}") from exc
+        except UnicodeDecodeError as exc:
+            raise SettingsError(
+                f"the token file {path} is not text (byte {exc.start} is not UTF-8); write the "
+                "token in printable ASCII on its first line"
+            ) from None
         lines = text.strip().splitlines()
         token = lines[0].strip() if lines else ""
         if not token:
