@@ -103,6 +103,8 @@ def test_tokens_must_be_printable_ascii_and_long(tmp_path, token, rule):
 def test_bad_serve_options_exit_2_with_one_line(tmp_path, capsys):
     a_file = tmp_path / "not-a-folder"
     a_file.write_text("x")
+    (tmp_path / "odd-home").mkdir()
+    (tmp_path / "odd-home" / "service").write_text("not a folder")
     non_ascii = tmp_path / "token"
     non_ascii.write_text("jeton-très-secret-0123456789\n", encoding="utf-8")
     not_text = tmp_path / "binary-token"
@@ -117,6 +119,7 @@ def test_bad_serve_options_exit_2_with_one_line(tmp_path, capsys):
         (["--queue-per-token", "0"], "--queue-per-token"),
         (["--queue-limit", "-3"], "--queue-limit"),
         (["--home", str(a_file)], "is a file, not a folder"),
+        (["--home", str(tmp_path / "odd-home")], "move the file"),
         (["--token-file", str(non_ascii)], "printable ASCII"),
         (["--token-file", str(not_text)], "not text"),
     ]

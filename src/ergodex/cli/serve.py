@@ -22,6 +22,7 @@ from ergodex.service.settings import (
     DEFAULT_JOB_TIME_LIMIT,
     DEFAULT_QUEUE_PER_TOKEN,
     DEFAULT_QUEUE_TOTAL,
+    SERVICE_DIR,
 )
 
 DEFAULT_PORT = 8752
@@ -124,6 +125,10 @@ def _home_folder(home: Path) -> Path:
                             f"{exc.strerror or exc}") from None
     if not os.access(home, os.W_OK | os.X_OK):
         raise SettingsError(f"--home {home}: the folder is not writable by this user")
+    service = home / SERVICE_DIR
+    if service.exists() and not service.is_dir():
+        raise SettingsError(f"--home {home}: {service} is a file, but the service keeps its "
+                            "job table and uploads in a folder of that name; move the file")
     return home
 
 
