@@ -7,6 +7,8 @@ Importing this package is cheap and needs no web framework; :func:`create_app` i
 Modules: :mod:`~ergodex.service.settings` (configuration), :mod:`~ergodex.service.auth` (bearer
 token), :mod:`~ergodex.service.jobs` (SQLite job table and worker processes),
 :mod:`~ergodex.service.tasks` (what a job runs), :mod:`~ergodex.service.datasets` (uploads),
+:mod:`~ergodex.service.reader` (reads an upload in a child process),
+:mod:`~ergodex.service.limits` (memory ceilings, archive sizes, the cost of a check),
 :mod:`~ergodex.service.schemas` and :mod:`~ergodex.service.app` (the FastAPI application).
 """
 

@@ -14,6 +14,7 @@ GET      /health                                            open
 POST     /datasets            (multipart ``file``, ``dt``)  write
 GET      /datasets, /datasets/{id}                          read
 POST     /jobs/fit, /jobs/validate, /jobs/retrain           write
+POST     /jobs/{id}/cancel                                  write
 GET      /jobs, /jobs/{id}                                  read
 GET      /models, /models/{name}, /models/{name}/history    read
 GET      /models/{name}/versions/{version}                  read
@@ -22,6 +23,11 @@ POST     …/versions/{n}/accept|reject|retire                write
 =======  =================================================  =====
 
 "read" endpoints are open unless the server runs with ``protect_reads``.
+
+Limits: uploads are read in a child process (:mod:`ergodex.service.reader`), never here; a
+submission beyond the queue bounds gets 429 ``queue-full`` with ``Retry-After``; check options
+whose estimated memory exceeds the job memory limit get 422 ``invalid-settings``; the supervisor
+thread fails jobs over the wall-clock limit and replaces dead workers.
 """
 
 # No ``from __future__ import annotations``: FastAPI reads the annotations of the handlers
@@ -32,9 +38,9 @@ from ergodex.exceptions import require
 require("fastapi", "service", "the HTTP service")
 require("python_multipart", "service", "dataset uploads to the HTTP service")
 
-import asyncio  # noqa: E402
 import json  # noqa: E402
 import logging  # noqa: E402
+import threading  # noqa: E402
 from contextlib import asynccontextmanager  # noqa: E402
 from typing import Annotated, Any, Literal  # noqa: E402
 
@@ -64,16 +70,21 @@ from ergodex.service.auth import (  # noqa: E402
     MESSAGES,
     NO_TOKEN_CONFIGURED,
     authorize,
+    bearer_token,
+    owner_key,
 )
 from ergodex.service.datasets import store_upload  # noqa: E402
 from ergodex.service.errors import HTTP_CODES, ApiError, describe_error, one_line  # noqa: E402
 from ergodex.service.jobs import (  # noqa: E402
     JOB_STATES,
+    RUNNING,
     JobRecord,
     JobStore,
+    QueueFull,
     WorkerPool,
     hold_home_lock,
 )
+from ergodex.service.limits import CHECK_MEMORY_FACTOR, check_memory_estimate  # noqa: E402
 from ergodex.service.settings import ServiceSettings  # noqa: E402
 from ergodex.service.tasks import version_ref  # noqa: E402 - light: the numerics load lazily
 
@@ -83,6 +94,12 @@ log = logging.getLogger(__name__)
 MAX_JSON_BODY = 1 << 20
 #: Allowance for the multipart envelope around an uploaded file.
 MULTIPART_SLACK = 1 << 16
+
+#: Seconds a client refused for a full queue is told to wait (``Retry-After``).
+RETRY_AFTER_SECONDS = 30
+
+#: Seconds between the supervisor's rounds (dead workers, jobs over the time limit).
+SUPERVISE_INTERVAL = 0.5
 
 #: Reason stored on jobs that a previous server process left running.
 INTERRUPTED_REASON = (
@@ -104,8 +121,11 @@ ARTIFACTS = {
 
 
 
-def _error_response(status: int, code: str, message: str) -> JSONResponse:
-    headers = {"WWW-Authenticate": "Bearer"} if status == 401 else None
+def _error_response(
+    status: int, code: str, message: str, extra_headers: dict[str, str] | None = None
+) -> JSONResponse:
+    headers = {"WWW-Authenticate": "Bearer"} if status == 401 else {}
+    headers.update(extra_headers or {})
     return JSONResponse(
         status_code=status, content={"code": code, "message": message}, headers=headers
     )
@@ -252,6 +272,7 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
         settings.home,
         size=settings.workers if start_workers else 0,
         poll_interval=settings.poll_interval,
+        memory_bytes=settings.job_memory_bytes,
     )
 
     @asynccontextmanager
@@ -264,16 +285,25 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
             log.warning("marked %d interrupted job(s) failed: %s", len(failed), ", ".join(failed))
         pool.start()
 
-        async def supervise() -> None:
-            while True:
-                await asyncio.sleep(1.0)
-                await run_in_threadpool(pool.replace_dead, store)
+        # A thread of its own, not the request thread pool: when every pooled thread is busy
+        # (slow clients, uploads being read), time limits and dead workers are still handled.
+        stop_supervisor = threading.Event()
 
-        supervisor = asyncio.create_task(supervise())
+        def supervise() -> None:
+            while not stop_supervisor.wait(SUPERVISE_INTERVAL):
+                try:
+                    pool.enforce_time_limit(store, settings.job_time_limit)
+                    pool.replace_dead(store)
+                except Exception:  # noqa: BLE001 - the supervisor must outlive a bad round
+                    log.exception("supervisor round failed; trying again")
+
+        supervisor = threading.Thread(target=supervise, name="ergodex-supervisor", daemon=True)
+        supervisor.start()
         try:
             yield
         finally:
-            supervisor.cancel()
+            stop_supervisor.set()
+            await run_in_threadpool(supervisor.join, 30.0)
             await run_in_threadpool(pool.stop, store)
             lock.close()
 
@@ -303,7 +333,7 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
 
     @app.exception_handler(ApiError)
     async def _api_error(request: Request, exc: ApiError):
-        return _error_response(exc.status, exc.code, clean(str(exc)))
+        return _error_response(exc.status, exc.code, clean(str(exc)), exc.headers)
 
     @app.exception_handler(RequestValidationError)
     async def _invalid(request: Request, exc: RequestValidationError):
@@ -383,6 +413,10 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
     ) -> schemas.DatasetInfo:
         """Upload a dataset file; it is read and checked like on the command line.
 
+        The server does not read it itself: an NPZ archive's declared inflated size is checked
+        first (413 ``dataset-too-large``), then a short-lived process under the job memory
+        limit reads the file and returns what the record needs.
+
         Refused with 4xx and nothing stored: names with folder parts, unknown file types,
         content that is not of its type, data the reader rejects, files over the size limit.
         """
@@ -414,21 +448,45 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
 
     # -- jobs ---------------------------------------------------------------------------------
 
-    def need_dataset(dataset_id: str) -> None:
-        if store.get_dataset(dataset_id) is None:
+    def need_dataset(dataset_id: str) -> dict[str, Any]:
+        record = store.get_dataset(dataset_id)
+        if record is None:
             raise ApiError(404, "not-found", f"no uploaded dataset with id {dataset_id}")
+        return record
 
-    def check_options(options: schemas.CheckOptions | None) -> None:
-        if options is None:
-            return
-        from ergodex.service.tasks import check_spec
+    def check_options(
+        options: schemas.CheckOptions | None, reference: dict[str, Any]
+    ) -> None:
+        """Refuse bad check options, and options whose ensemble cannot fit the memory limit.
 
-        try:
-            check_spec(options.model_dump())
-        except Exception as exc:  # noqa: BLE001 - whatever the options break, they are the client's
-            if not isinstance(exc, ErgodexError):
-                log.info("check options refused with %r", exc)
-            raise ApiError(422, "invalid-settings", one_line(f"check options: {exc}")) from None
+        ``reference`` is the record of the dataset the check compares with (its ``dt`` turns a
+        length into steps, its variables and samples size the ensemble).
+        """
+        values = options.model_dump() if options is not None else {}
+        if options is not None:
+            from ergodex.service.tasks import check_spec
+
+            try:
+                check_spec(values)
+            except Exception as exc:  # noqa: BLE001 - whatever the options break, the client's
+                if not isinstance(exc, ErgodexError):
+                    log.info("check options refused with %r", exc)
+                raise ApiError(422, "invalid-settings", one_line(f"check options: {exc}")) from None
+        estimate = check_memory_estimate(
+            values,
+            dt=float(reference["dt"]),
+            variables=len(reference["variables"]),
+            samples=int(reference["samples"]),
+        )
+        if estimate > settings.job_memory_bytes:
+            raise ApiError(
+                422,
+                "invalid-settings",
+                f"check options: members × length ask for about {estimate / 2**20:.0f} MiB "
+                f"(members × steps × variables × 8 bytes × {CHECK_MEMORY_FACTOR}), over this "
+                f"server's job memory limit of {settings.job_memory_bytes / 2**20:.0f} MiB; use "
+                "fewer members or a shorter length",
+            )
 
     def check_fit(method: str, fit_settings: dict[str, Any]) -> None:
         from ergodex.fitting import check_fit_settings
@@ -448,30 +506,48 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
         except RegistryError as exc:
             raise ApiError(422, "invalid-name", one_line(str(exc))) from None
 
-    def submit(kind: str, body) -> schemas.JobInfo:
-        return _job_out(store.submit(kind, body.model_dump(mode="json")), clean)
+    def submit(kind: str, body, request: Request) -> schemas.JobInfo:
+        owner = owner_key(bearer_token(request.headers.get("authorization")))
+        try:
+            job = store.submit(
+                kind,
+                body.model_dump(mode="json"),
+                owner=owner,
+                per_owner=settings.queue_per_token,
+                total=settings.queue_total,
+            )
+        except QueueFull as exc:
+            whose = "this token has" if exc.scope == "token" else "the server has"
+            option = "--queue-per-token" if exc.scope == "token" else "--queue-limit"
+            raise ApiError(
+                429,
+                "queue-full",
+                f"{whose} {exc.limit} jobs queued or running, its limit ({option}); wait for "
+                "some to finish or cancel some, then submit again",
+                headers={"Retry-After": str(RETRY_AFTER_SECONDS)},
+            ) from None
+        return _job_out(job, clean)
 
     @writes.post("/jobs/fit", status_code=202, response_model=schemas.JobInfo, tags=["jobs"])
-    def submit_fit(body: schemas.FitJobRequest) -> schemas.JobInfo:
+    def submit_fit(body: schemas.FitJobRequest, request: Request) -> schemas.JobInfo:
         """Queue a fit: fit on the dataset, check on held-out runs, register a new version."""
         check_name(body.name)
         check_fit(body.method, body.settings)
-        need_dataset(body.dataset)
+        reference = need_dataset(body.dataset)
         if body.check_dataset:
-            need_dataset(body.check_dataset)
-        check_options(body.check)
-        return submit("fit", body)
+            reference = need_dataset(body.check_dataset)
+        check_options(body.check, reference)
+        return submit("fit", body, request)
 
     @writes.post("/jobs/validate", status_code=202, response_model=schemas.JobInfo, tags=["jobs"])
-    def submit_validate(body: schemas.ValidateJobRequest) -> schemas.JobInfo:
+    def submit_validate(body: schemas.ValidateJobRequest, request: Request) -> schemas.JobInfo:
         """Queue a check of a registered version against a dataset (scorecard in the result)."""
         _registry_get(registry, version_ref(body.name, body.version))
-        need_dataset(body.dataset)
-        check_options(body.check)
-        return submit("validate", body)
+        check_options(body.check, need_dataset(body.dataset))
+        return submit("validate", body, request)
 
     @writes.post("/jobs/retrain", status_code=202, response_model=schemas.JobInfo, tags=["jobs"])
-    def submit_retrain(body: schemas.RetrainJobRequest) -> schemas.JobInfo:
+    def submit_retrain(body: schemas.RetrainJobRequest, request: Request) -> schemas.JobInfo:
         """Queue a retrain: check the accepted model on new data, refit, promote or keep."""
         try:
             registry.versions(body.name)
@@ -479,9 +555,33 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
             raise ApiError(404, "not-found", one_line(str(exc))) from None
         if body.method is not None or body.settings:
             check_fit(body.method or "sparse", body.settings or {})
-        need_dataset(body.dataset)
-        check_options(body.check)
-        return submit("retrain", body)
+        check_options(body.check, need_dataset(body.dataset))
+        return submit("retrain", body, request)
+
+    @writes.post(
+        "/jobs/{job_id}/cancel",
+        response_model=schemas.JobInfo,
+        tags=["jobs"],
+        responses={409: {"model": schemas.ErrorBody, "description": "the job had finished"}},
+    )
+    def cancel_job(job_id: Annotated[str, Path(pattern=schemas.JOB_PATTERN)]) -> schemas.JobInfo:
+        """Cancel a queued or running job (a running job's worker is ended and replaced).
+
+        Cancelling a cancelled job again returns it unchanged; a job that succeeded or failed
+        is refused with 409 ``job-finished``.
+        """
+        before, after = store.cancel(job_id)
+        if before is None:
+            raise ApiError(404, "not-found", f"no job with id {job_id}")
+        if after is None:
+            if before.state == "cancelled":
+                return _job_out(before, clean)
+            raise ApiError(
+                409, "job-finished", f"job {job_id} has already {before.state}; nothing to cancel"
+            )
+        if before.state == RUNNING:
+            pool.end_worker(before.worker_pid)
+        return _job_out(after, clean)
 
     @reads.get("/jobs", response_model=schemas.JobList, tags=["jobs"])
     def list_jobs(

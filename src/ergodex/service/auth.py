@@ -8,6 +8,7 @@ takes tells an attacker nothing about how many leading characters were right.
 
 from __future__ import annotations
 
+import hashlib
 import hmac
 
 #: Why a write was refused, by case; the HTTP layer turns these into 401/403 JSON errors.
@@ -60,3 +61,14 @@ def authorize(authorization: str | None, expected: str | None) -> str | None:
     if not tokens_match(presented, expected):
         return WRONG_TOKEN
     return None
+
+
+def owner_key(token: str | None) -> str | None:
+    """A stable, non-secret key for the holder of ``token`` (queue bounds count per key).
+
+    A hash rather than the token itself, so the job table never stores the secret; with several
+    tokens one day, each gets its own bound without changing the table.
+    """
+    if token is None:
+        return None
+    return hashlib.sha256(b"ergodex-owner:" + token.encode("utf-8")).hexdigest()[:32]

@@ -1,6 +1,9 @@
 """Accepting an uploaded dataset file: name and type checks, reading, storing, recording.
 
-An upload is only kept when the same reader the command line uses accepts it; until then it
+An upload is only kept when the same reader the command line uses accepts it. The server never
+reads it itself: an NPZ archive's declared inflated size is checked on its zip directory first,
+then the file is read in a short-lived child process under the job memory limit
+(:mod:`ergodex.service.reader`), which returns the summary the record needs. Until then it
 lives in a private staging folder that is removed whatever happens, so a refused upload leaves
 nothing behind. Accepted files are stored under ``home/service/datasets/<id>/<file name>``, where
 the id is the hex digest of the data's fingerprint: uploading the same data twice (even in another
@@ -15,13 +18,16 @@ import os
 import re
 import secrets
 import shutil
+import threading
+import zipfile
 from pathlib import Path
 from typing import Any
 
-from ergodex.exceptions import ErgodexError
 from ergodex.host import utc_now
 from ergodex.service.errors import ApiError, one_line
 from ergodex.service.jobs import JobStore
+from ergodex.service.limits import declared_inflated_size
+from ergodex.service.reader import read_isolated
 from ergodex.service.settings import ServiceSettings
 
 log = logging.getLogger(__name__)
@@ -93,6 +99,35 @@ def check_content(filename: str, fmt: str, head: bytes) -> None:
             raise UploadRefused(422, "invalid-dataset", f"{filename}: a CSV file holds no NUL bytes")
 
 
+def check_inflated_size(path: Path, filename: str, fmt: str, limit: int) -> None:
+    """Refuse an NPZ archive whose members declare more than ``limit`` bytes once inflated.
+
+    Only the zip directory is read (see :func:`~ergodex.service.limits.declared_inflated_size`),
+    so a compression bomb is refused before any of it is inflated. CSV is stored as sent, and
+    NetCDF has no cheap directory of sizes: both are bounded by the reader process's memory
+    limit instead.
+    """
+    if fmt != "npz":
+        return
+    try:
+        declared = declared_inflated_size(path)
+    except (zipfile.BadZipFile, OSError, ValueError, EOFError) as exc:
+        raise UploadRefused(
+            422, "invalid-dataset", one_line(f"{filename}: not a readable NPZ (zip) archive: {exc}")
+        ) from None
+    if declared > limit:
+        raise UploadRefused(
+            413,
+            "dataset-too-large",
+            f"{filename} declares {declared} bytes of arrays once inflated, over this server's "
+            f"limit of {limit} bytes (--max-dataset-mb); send less data per file",
+        )
+
+
+#: Uploads read at the same time, each in its own process (the rest wait their turn).
+_READERS = threading.BoundedSemaphore(2)
+
+
 def store_upload(
     settings: ServiceSettings,
     store: JobStore,
@@ -142,22 +177,23 @@ def store_upload(
                 digest.update(chunk)
                 out.write(chunk)
         check_content(filename, fmt, head)
-        from ergodex.readers import read_series
-
-        try:
-            series = read_series(path, **options)
-        except ErgodexError as exc:
-            # Name the file as the client knows it, not by its staging path on the server.
-            message = str(exc).replace(str(path), filename)
-            raise UploadRefused(422, "invalid-dataset", one_line(message)) from None
-        except Exception as exc:  # noqa: BLE001 - a malformed upload is the client's, never a 500
-            log.info("upload %s refused by the reader: %r", filename, exc)
+        check_inflated_size(path, filename, fmt, settings.max_dataset_bytes)
+        if not _READERS.acquire(timeout=settings.parse_time_limit):
             raise UploadRefused(
-                422,
-                "invalid-dataset",
-                one_line(f"{filename}: cannot be read as {fmt}: {exc}".replace(str(path), filename)),
-            ) from None
-        fingerprint = series.fingerprint()
+                503,
+                "server-busy",
+                f"{filename}: other uploads are being read; send it again in a minute",
+                headers={"Retry-After": "60"},
+            )
+        try:
+            summary = read_isolated(
+                path, filename, options,
+                memory_bytes=settings.job_memory_bytes, timeout=settings.parse_time_limit,
+            )
+        finally:
+            _READERS.release()
+        log.info("upload %s read by process %s", filename, summary.pop("reader_pid", "?"))
+        fingerprint = summary["fingerprint"]
         dataset_id = fingerprint.split(":", 1)[-1]
         record = {
             "id": dataset_id,
@@ -166,10 +202,10 @@ def store_upload(
             "format": fmt,
             "size_bytes": size,
             "sha256": digest.hexdigest(),
-            "variables": list(series.names),
-            "dt": float(series.dt),
-            "runs": int(series.n_runs),
-            "samples": int(series.n_samples),
+            "variables": list(summary["variables"]),
+            "dt": float(summary["dt"]),
+            "runs": int(summary["runs"]),
+            "samples": int(summary["samples"]),
             "options": options,
             "created": utc_now(),
         }

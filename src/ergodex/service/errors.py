@@ -49,10 +49,13 @@ def describe_error(exc: BaseException) -> tuple[str, str]:
 class ApiError(ErgodexError):
     """A request the service refuses: carries the HTTP status and the stable error code."""
 
-    def __init__(self, status: int, code: str, message: str):
+    def __init__(
+        self, status: int, code: str, message: str, *, headers: dict[str, str] | None = None
+    ):
         super().__init__(message)
         self.status = int(status)
         self.code = code
+        self.headers = dict(headers or {})
 
 
 #: HTTP status → code for errors raised by the web framework itself (unknown route, wrong method).
@@ -66,4 +69,5 @@ HTTP_CODES = {
     413: "upload-too-large",
     415: "unsupported-type",
     422: "invalid-request",
+    429: "queue-full",
 }

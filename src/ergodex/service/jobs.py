@@ -13,7 +13,14 @@ Every claim carries a fresh random ``claim`` value, and a worker may only finish
 claim it holds. A worker orphaned by a killed server (it notices and exits within a second, but
 could be mid-write) therefore cannot overwrite the verdict the restarted server recorded.
 
-Job states: ``queued`` → ``running`` → ``succeeded`` | ``failed``.
+Job states: ``queued`` → ``running`` → ``succeeded`` | ``failed``; a queued or running job can be
+``cancelled`` by a client (a running one by ending its worker process, which the pool replaces).
+
+Limits: each job carries the hash of the token that submitted it (``owner``), and
+:meth:`JobStore.submit` refuses a job beyond the bound of queued + running jobs per owner or in
+all (:class:`QueueFull`). A worker runs each job under an address-space limit (``RLIMIT_AS``),
+and the server's supervisor ends a worker whose job outlives the wall-clock limit; both end as
+failed jobs with their own codes (``memory-limit``, ``time-limit``).
 """
 
 from __future__ import annotations
@@ -40,7 +47,10 @@ QUEUED = "queued"
 RUNNING = "running"
 SUCCEEDED = "succeeded"
 FAILED = "failed"
-JOB_STATES = (QUEUED, RUNNING, SUCCEEDED, FAILED)
+CANCELLED = "cancelled"
+JOB_STATES = (QUEUED, RUNNING, SUCCEEDED, FAILED, CANCELLED)
+#: States in which a job is finished for good.
+FINISHED_STATES = (SUCCEEDED, FAILED, CANCELLED)
 
 #: Job kinds the workers know how to run (see :mod:`ergodex.service.tasks`).
 JOB_KINDS = ("fit", "validate", "retrain")
@@ -50,6 +60,13 @@ WORKER_NICENESS = 10
 
 #: Error code stored on a job that a stopped or crashed server left running.
 INTERRUPTED = "interrupted"
+#: Error codes of jobs stopped by the per-job limits.
+TIME_LIMIT = "time-limit"
+MEMORY_LIMIT = "memory-limit"
+
+#: Exit status of a worker that stops after losing the claim on its job (cancelled or timed out
+#: meanwhile): a fresh worker replaces it, so it never picks up a job it might be killed during.
+CLAIM_LOST_EXIT = 75
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS jobs (
@@ -65,7 +82,8 @@ CREATE TABLE IF NOT EXISTS jobs (
     worker_pid     INTEGER,
     result         TEXT,
     error_code     TEXT,
-    error_message  TEXT
+    error_message  TEXT,
+    owner          TEXT
 );
 CREATE INDEX IF NOT EXISTS jobs_state ON jobs(state, seq);
 CREATE TABLE IF NOT EXISTS datasets (
@@ -106,6 +124,7 @@ class JobRecord:
     error_code: str | None
     error_message: str | None
     claim: str | None = None
+    owner: str | None = None
 
     @classmethod
     def from_row(cls, row: sqlite3.Row) -> JobRecord:
@@ -122,7 +141,17 @@ class JobRecord:
             error_code=row["error_code"],
             error_message=row["error_message"],
             claim=row["claim"],
+            owner=row["owner"] if "owner" in row.keys() else None,  # noqa: SIM118 - a Row
         )
+
+
+class QueueFull(Exception):
+    """A submission beyond a queue bound; ``scope`` is ``"token"`` or ``"server"``."""
+
+    def __init__(self, scope: str, limit: int):
+        super().__init__(f"{scope} queue bound {limit} reached")
+        self.scope = scope
+        self.limit = int(limit)
 
 
 class JobStore:
@@ -144,6 +173,9 @@ class JobStore:
             # WAL lets readers (status polls) proceed while a worker writes a result.
             db.execute("PRAGMA journal_mode=WAL")
             db.executescript(_SCHEMA)
+            columns = {row["name"] for row in db.execute("PRAGMA table_info(jobs)")}
+            if "owner" not in columns:  # a job table written before queue bounds existed
+                db.execute("ALTER TABLE jobs ADD COLUMN owner TEXT")
 
     @contextmanager
     def _connect(self) -> Iterator[sqlite3.Connection]:
@@ -157,16 +189,50 @@ class JobStore:
 
     # -- jobs ---------------------------------------------------------------------------------
 
-    def submit(self, kind: str, params: dict[str, Any]) -> JobRecord:
-        """Queue a job and return its record (state ``queued``)."""
+    def submit(
+        self,
+        kind: str,
+        params: dict[str, Any],
+        *,
+        owner: str | None = None,
+        per_owner: int | None = None,
+        total: int | None = None,
+    ) -> JobRecord:
+        """Queue a job and return its record (state ``queued``).
+
+        With ``per_owner`` / ``total``, refuse (:class:`QueueFull`) when the owner already has
+        that many jobs queued or running, or the server has. Counting and inserting happen in
+        one write transaction, so concurrent submissions cannot overshoot a bound.
+        """
         if kind not in JOB_KINDS:
             raise ValueError(f"unknown job kind {kind!r}; known: {list(JOB_KINDS)}")
         job_id = secrets.token_hex(16)
+        active = "state IN (?, ?)"
         with self._connect() as db:
-            db.execute(
-                "INSERT INTO jobs (id, kind, params, state, created) VALUES (?, ?, ?, ?, ?)",
-                (job_id, kind, json.dumps(params, sort_keys=True), QUEUED, _job_time()),
-            )
+            db.execute("BEGIN IMMEDIATE")
+            try:
+                if total is not None:
+                    (n,) = db.execute(
+                        f"SELECT COUNT(*) FROM jobs WHERE {active}", (QUEUED, RUNNING)
+                    ).fetchone()
+                    if n >= total:
+                        raise QueueFull("server", total)
+                if per_owner is not None:
+                    (n,) = db.execute(
+                        f"SELECT COUNT(*) FROM jobs WHERE {active} AND owner IS ?",
+                        (QUEUED, RUNNING, owner),
+                    ).fetchone()
+                    if n >= per_owner:
+                        raise QueueFull("token", per_owner)
+                db.execute(
+                    "INSERT INTO jobs (id, kind, params, state, created, owner) "
+                    "VALUES (?, ?, ?, ?, ?, ?)",
+                    (job_id, kind, json.dumps(params, sort_keys=True), QUEUED, _job_time(), owner),
+                )
+            except BaseException:
+                db.execute("ROLLBACK")
+                raise
+            db.execute("COMMIT")
         record = self.get(job_id)
         assert record is not None
         return record
@@ -233,6 +299,50 @@ class JobStore:
             )
             return cursor.rowcount == 1
 
+    def cancel(self, job_id: str) -> tuple[JobRecord | None, JobRecord | None]:
+        """Cancel a queued or running job; return ``(job before, job after)``.
+
+        ``after`` is ``None`` when nothing changed (unknown job, or already finished); a job
+        that was running still has its worker busy, and the caller must end that worker (the
+        worker cannot record anything any more: its claim is withdrawn).
+        """
+        with self._connect() as db:
+            row = db.execute("SELECT * FROM jobs WHERE id = ?", (job_id,)).fetchone()
+            if row is None:
+                return None, None
+            before = JobRecord.from_row(row)
+            if before.state not in (QUEUED, RUNNING):
+                return before, None
+            after = db.execute(
+                "UPDATE jobs SET state = ?, finished = ?, claim = NULL, error_code = ?, "
+                "error_message = ? WHERE id = ? AND state = ? AND claim IS ? RETURNING *",
+                (CANCELLED, _job_time(), "cancelled", "cancelled at a client's request",
+                 job_id, before.state, before.claim),
+            ).fetchone()
+        if after is None:  # it moved on meanwhile (claimed or finished): look again
+            return self.cancel(job_id)
+        return before, JobRecord.from_row(after)
+
+    def overdue(self, seconds: float) -> list[JobRecord]:
+        """Running jobs started more than ``seconds`` ago (by the job table's clock)."""
+        with self._connect() as db:
+            rows = db.execute("SELECT * FROM jobs WHERE state = ?", (RUNNING,)).fetchall()
+        now = _parse_job_time(_job_time())
+        return [
+            job for job in map(JobRecord.from_row, rows)
+            if job.started is not None and now - _parse_job_time(job.started) > seconds
+        ]
+
+    def fail_claimed(self, job: JobRecord, code: str, message: str) -> bool:
+        """Fail a running job whose claim is still ``job.claim`` (withdrawing the claim)."""
+        with self._connect() as db:
+            cursor = db.execute(
+                "UPDATE jobs SET state = ?, error_code = ?, error_message = ?, finished = ?, "
+                "claim = NULL WHERE id = ? AND claim IS ? AND state = ?",
+                (FAILED, code, message, _job_time(), job.id, job.claim, RUNNING),
+            )
+            return cursor.rowcount == 1
+
     def fail_running(self, reason: str, *, worker_pids: list[int] | None = None) -> list[str]:
         """Mark running jobs failed (all, or those of the given workers); return their ids.
 
@@ -285,6 +395,13 @@ class JobStore:
                 "SELECT * FROM datasets ORDER BY created DESC LIMIT ?", (int(limit),)
             ).fetchall()
         return [_dataset_dict(row) for row in rows]
+
+
+def _parse_job_time(text: str) -> float:
+    """Seconds since the epoch of a job time (ISO 8601 UTC, as written by :func:`_job_time`)."""
+    from datetime import datetime
+
+    return datetime.fromisoformat(text).timestamp()
 
 
 def _dataset_dict(row: sqlite3.Row) -> dict[str, Any]:
@@ -355,15 +472,31 @@ def _die_with_parent(parent_pid: int) -> None:
     threading.Thread(target=watch, name="ergodex-parent-watch", daemon=True).start()
 
 
-def worker_main(jobs_path: str, home: str, parent_pid: int, control, poll_interval: float) -> None:
+def worker_main(
+    jobs_path: str,
+    home: str,
+    parent_pid: int,
+    control,
+    poll_interval: float,
+    memory_bytes: int | None = None,
+) -> None:
     """Loop of one worker process: claim a queued job, run it, record the outcome.
 
     ``control`` is the reading end of a pipe whose writing end the server holds: the worker
     stops when the server sends on it or closes it (which also happens when the server dies).
     Every outcome is recorded: an :class:`~ergodex.exceptions.ErgodexError` as a failure with a
-    code named after its class, anything else as ``internal-error`` with its type and message.
+    code named after its class, a ``MemoryError`` (the job hit ``memory_bytes``, set as the
+    address-space limit while it runs) as ``memory-limit``, anything else as
+    ``internal-error`` with its type and message. After a memory failure, or when its claim was
+    withdrawn (the job was cancelled or timed out meanwhile), the worker exits and the pool
+    starts a fresh one.
     """
     _die_with_parent(parent_pid)
+    # numpy starts its BLAS threads on import: do it before any ceiling, once per worker.
+    import numpy  # noqa: F401
+
+    from ergodex.service.limits import apply_memory_limit, is_memory_error
+
     try:
         # Jobs are batch work: when cores are short, the server's request thread goes first.
         os.nice(WORKER_NICENESS)
@@ -385,16 +518,39 @@ def worker_main(jobs_path: str, home: str, parent_pid: int, control, poll_interv
                 return
             continue
         log.info("worker %d runs job %s (%s)", pid, job.id, job.kind)
+        out_of_memory = False
         try:
-            result = tasks.run(job.kind, job.params, home=Path(home), job_id=job.id)
+            apply_memory_limit(memory_bytes)
+            try:
+                result = tasks.run(job.kind, job.params, home=Path(home), job_id=job.id)
+            finally:
+                apply_memory_limit(None)
         except Exception as exc:  # noqa: BLE001 - every failure must end up on the job row
-            code, message = describe_error(exc)
-            if code == "internal-error":
-                log.exception("job %s failed unexpectedly", job.id)
-            store.fail(job.id, job.claim or "", code, message)
+            apply_memory_limit(None)
+            if is_memory_error(exc):
+                out_of_memory = True
+                code = MEMORY_LIMIT
+                allowed = (
+                    f"this server allows one job ({memory_bytes / 2**20:.0f} MiB, "
+                    "--job-memory-mb)" if memory_bytes else "this machine could give it"
+                )
+                message = (
+                    f"the job needed more memory than {allowed}; ask for less (fewer members, "
+                    "a shorter length, a smaller dataset)"
+                )
+            else:
+                code, message = describe_error(exc)
+                if code == "internal-error":
+                    log.exception("job %s failed unexpectedly", job.id)
+            recorded = store.fail(job.id, job.claim or "", code, message)
         else:
-            if not store.succeed(job.id, job.claim or "", result):
-                log.warning("job %s finished after its claim was withdrawn", job.id)
+            recorded = store.succeed(job.id, job.claim or "", result)
+        if not recorded:
+            log.warning("job %s finished after its claim was withdrawn; worker %d stops", job.id,
+                        pid)
+            os._exit(CLAIM_LOST_EXIT)
+        if out_of_memory:  # a heap that hit its ceiling may be fragmented: start afresh
+            os._exit(CLAIM_LOST_EXIT)
         if control.poll(0):
             return
 
@@ -410,13 +566,26 @@ class WorkerPool:
         Number of worker processes.
     poll_interval
         Seconds an idle worker waits before looking for work again.
+    memory_bytes
+        Address-space limit of a worker while it runs a job (``None``: none).
     """
 
-    def __init__(self, jobs_path: Path, home: Path, *, size: int, poll_interval: float = 0.2):
+    def __init__(
+        self,
+        jobs_path: Path,
+        home: Path,
+        *,
+        size: int,
+        poll_interval: float = 0.2,
+        memory_bytes: int | None = None,
+    ):
         self.jobs_path = Path(jobs_path)
         self.home = Path(home)
         self.size = int(size)
         self.poll_interval = float(poll_interval)
+        self.memory_bytes = memory_bytes
+        # The supervisor thread and request threads (cancel) both replace workers.
+        self._lock = threading.RLock()
         # spawn, not fork: the server process has threads (event loop, thread pool), and forking
         # a threaded process can copy a held lock into the child.
         self._context = multiprocessing.get_context("spawn")
@@ -427,7 +596,8 @@ class WorkerPool:
         reader, writer = self._context.Pipe(duplex=False)
         process = self._context.Process(
             target=worker_main,
-            args=(str(self.jobs_path), str(self.home), os.getpid(), reader, self.poll_interval),
+            args=(str(self.jobs_path), str(self.home), os.getpid(), reader, self.poll_interval,
+                  self.memory_bytes),
             name=f"ergodex-worker-{index}",
             daemon=True,
         )
@@ -449,22 +619,63 @@ class WorkerPool:
         job whose worker vanished is never left ``running`` until the next restart.
         """
         failed: list[str] = []
-        for index, process in enumerate(self.processes):
-            if process.is_alive() or process.exitcode is None:
-                continue
-            log.warning("worker %s (pid %s) died with exit code %s; starting another",
-                        process.name, process.pid, process.exitcode)
-            failed += store.fail_running(
-                f"the worker process running this job died (exit code {process.exitcode}); "
-                "submit it again",
-                worker_pids=[process.pid] if process.pid is not None else [],
-            )
-            try:
-                self._controls[index].close()
-            except OSError:  # pragma: no cover - already closed
-                pass
-            self._controls[index], self.processes[index] = self._spawn(index)
+        with self._lock:
+            for index, process in enumerate(self.processes):
+                if process.is_alive() or process.exitcode is None:
+                    continue
+                if process.exitcode == CLAIM_LOST_EXIT:
+                    log.info("worker %s (pid %s) stopped after its job; starting another",
+                             process.name, process.pid)
+                else:
+                    log.warning("worker %s (pid %s) died with exit code %s; starting another",
+                                process.name, process.pid, process.exitcode)
+                failed += store.fail_running(
+                    f"the worker process running this job died (exit code {process.exitcode}); "
+                    "submit it again",
+                    worker_pids=[process.pid] if process.pid is not None else [],
+                )
+                self._respawn(index)
         return failed
+
+    def _respawn(self, index: int) -> None:
+        try:
+            self._controls[index].close()
+        except OSError:  # pragma: no cover - already closed
+            pass
+        self._controls[index], self.processes[index] = self._spawn(index)
+
+    def end_worker(self, pid: int | None) -> bool:
+        """End the worker with this pid (its job's row was already settled) and replace it.
+
+        Returns ``False`` when no worker of this pool has that pid (it ended already).
+        """
+        with self._lock:
+            for index, process in enumerate(self.processes):
+                if pid is None or process.pid != pid or not process.is_alive():
+                    continue
+                process.kill()  # SIGKILL: the job may hold the GIL in a long C call
+                process.join(10.0)
+                log.info("ended worker %s (pid %s) and started another", process.name, pid)
+                self._respawn(index)
+                return True
+        return False
+
+    def enforce_time_limit(self, store: JobStore, seconds: float) -> list[str]:
+        """Fail every job running longer than ``seconds`` (code ``time-limit``), end its worker.
+
+        The row is settled first, withdrawing the claim, so a worker that finishes in the
+        meantime records nothing and stops by itself instead of taking another job.
+        """
+        ended = []
+        for job in store.overdue(seconds):
+            message = (
+                f"the job ran longer than this server allows one job ({seconds:g} s, "
+                "--job-time-limit) and was stopped; ask for less work or a longer limit"
+            )
+            if store.fail_claimed(job, TIME_LIMIT, message):
+                self.end_worker(job.worker_pid)
+                ended.append(job.id)
+        return ended
 
     def alive(self) -> int:
         """How many workers are running."""

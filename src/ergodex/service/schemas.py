@@ -124,13 +124,15 @@ class RetrainJobRequest(_Strict):
 class JobInfo(BaseModel):
     id: str
     kind: Literal["fit", "validate", "retrain"]
-    state: Literal["queued", "running", "succeeded", "failed"]
+    state: Literal["queued", "running", "succeeded", "failed", "cancelled"]
     params: dict[str, Any]
     created: str
     started: str | None = None
     finished: str | None = None
     result: dict[str, Any] | None = Field(None, description="set when state is 'succeeded'")
-    error: ErrorBody | None = Field(None, description="set when state is 'failed'")
+    error: ErrorBody | None = Field(
+        None, description="set when state is 'failed' or 'cancelled' (code 'cancelled')"
+    )
 
 
 class JobList(BaseModel):
