@@ -749,7 +749,8 @@ def _data_space_names(surrogate, reference, observed) -> np.ndarray | None:
 
 
 def check(surrogate, reference, spec: CheckSpec | None = None, *,
-          initial_states=None) -> CheckResult:
+          initial_states=None, time_limit: float | None = None,
+          max_memory: int | str | None = None) -> CheckResult:
     """Validate a surrogate against reference data: scorecard plus evidence.
 
     Parameters
@@ -762,6 +763,11 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
     initial_states : array_like, shape (members, n_variables), optional
         Data-space starting states, one per member, instead of states drawn from the reference
         (their fingerprint goes into the scorecard's settings).
+    time_limit : float, optional
+        Wall-clock budget of the ensemble integration in seconds (default: none).
+    max_memory : int or str, optional
+        Memory limit (default: ``$ERGODEX_MAX_MEMORY``, else half the available memory); a check
+        whose ensemble would need more is refused before anything is allocated.
 
     Returns
     -------
@@ -772,7 +778,11 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
     DataError
         When the reference is too short for a noise floor or its variables do not match the model.
     SettingsError
-        For bad settings. A surrogate that blows up is a finding in the scorecard, never an error.
+        For bad settings, or an ensemble whose estimated memory exceeds the limit. A surrogate
+        that blows up is a finding in the scorecard, never an error.
+    ModelLimitError
+        When the surrogate is too stiff for the substep floor or the integration exceeds
+        ``time_limit`` (a model failure: exit code 1 on the command line).
 
     References
     ----------
@@ -781,7 +791,8 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
     .. [3] A. D. Sokal (1997), Monte Carlo methods in statistical mechanics (decorrelation time).
     """
     import ergodex
-    from ergodex.integrate import blowup_bound, integrate_ensemble
+    from ergodex.integrate import blowup_bound, ensemble_memory, integrate_ensemble
+    from ergodex.limits import check_memory
 
     spec = CheckSpec() if spec is None else spec
     if not isinstance(spec, CheckSpec):
@@ -845,6 +856,12 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
         raise SettingsError(f"length {member_time:g} is shorter than one reference piece "
                             f"({L * dt:g} time units); members must cover at least one piece")
     pieces_per_member = n_out // L
+    # refuse before the start states, the run and the model array are allocated
+    check_memory(ensemble_memory(spec.members, n_out, surrogate.n_variables, surrogate.n_variables,
+                                 surrogate.n_terms),
+                 f"a check of {spec.members} members x {n_out} outputs x "
+                 f"{surrogate.n_variables} variables", "use fewer members or a shorter length",
+                 max_memory)
 
     seeds = np.random.SeedSequence(spec.seed).generate_state(3)
     rng = np.random.default_rng(int(seeds[0]))
@@ -881,7 +898,8 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
         if len(observed) < surrogate.n_variables:
             keep = columns
     run = integrate_ensemble(surrogate, z0, dt_out=dt, n_out=n_out, spinup=spinup, bound=bound,
-                             seed=int(seeds[1]), keep=keep)
+                             seed=int(seeds[1]), keep=keep, time_limit=time_limit,
+                             max_memory=max_memory)
 
     # -- model output in data space -----------------------------------------------------------
     alive = ~np.asarray(run.blown_up, bool)
