@@ -16,6 +16,8 @@ from ergodex.exceptions import SettingsError
 
 EXIT_PASS = 0
 EXIT_FAIL = 1
+#: Default wall-clock budget of the ensemble integration (one hour).
+DEFAULT_TIME_LIMIT = 3600.0
 
 
 def add_parser(subparsers: Any) -> argparse.ArgumentParser:
@@ -26,7 +28,8 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         description=(
             "Integrate the surrogate from many states drawn from the data and compare its long-run "
             "statistics (histograms, autocorrelation, spectra, quantiles, regimes) with the data's, "
-            "against the data's own sampling noise. Exit 0 when it passes, 1 when it fails, 2 on "
+            "against the data's own sampling noise. Exit 0 when it passes, 1 when it fails (also "
+            "when it is too stiff for the substep floor or exceeds --time-limit), 2 on "
             "bad input. Caution: a passed statistical check is not a certification; defer to the "
             "applicable codes, standards and licensed practice."
         ),
@@ -53,6 +56,9 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     parser.add_argument("--report", metavar="OUT.html", default=None,
                         help="write a self-contained HTML report here")
     parser.add_argument("--quiet", action="store_true", help="do not print the scorecard table")
+    from ergodex.cli.common import add_limit_options
+
+    add_limit_options(parser, time_limit=DEFAULT_TIME_LIMIT)
     parser.set_defaults(func=run)
     return parser
 
@@ -64,7 +70,11 @@ def run(args: argparse.Namespace) -> int:
     from ergodex.surrogate import Surrogate
     from ergodex.validation import CheckSpec, check
 
+    from ergodex.cli.common import check_limit_options
+    from ergodex.files import check_writable
+
     # read and check everything first: nothing is written when an input is bad
+    check_limit_options(args)
     surrogate = Surrogate.from_json(Path(args.model))
     reference = read_series(args.data, dt=args.dt)
     regimes = RegimeSet.from_toml(args.regimes) if args.regimes else None
@@ -78,8 +88,11 @@ def run(args: argparse.Namespace) -> int:
         target = getattr(args, option)
         if target is not None and Path(target).is_dir():
             raise SettingsError(f"--{option} {target}: is a folder; give a file name")
+        if target is not None:
+            check_writable(target, f"--{option}")
 
-    result = check(surrogate, reference, spec)
+    result = check(surrogate, reference, spec, time_limit=args.time_limit,
+                   max_memory=args.max_memory)
     scorecard = result.scorecard
     if args.json:
         Path(args.json).parent.mkdir(parents=True, exist_ok=True)
