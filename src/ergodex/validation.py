@@ -388,16 +388,14 @@ class Scorecard:
         source = "scorecard"
         text = str(text_or_path)
         if not text.lstrip().startswith("{"):
+            from ergodex.limits import read_text_file
+
             p = Path(text_or_path)
-            try:
-                text = p.read_text(encoding="utf-8")
-            except OSError as exc:
-                raise ModelFileError(f"{p}: cannot read scorecard ({exc.strerror})") from None
+            text = read_text_file(p, "a scorecard (JSON)", error=ModelFileError)
             source = str(p)
-        try:
-            d = json.loads(text)
-        except json.JSONDecodeError as exc:
-            raise ModelFileError(f"{source}: not valid JSON (line {exc.lineno}: {exc.msg})") from None
+        from ergodex.limits import load_json_text
+
+        d = load_json_text(text, source, error=ModelFileError)
         return cls.from_dict(d, source=source)
 
     def table(self) -> str:

@@ -111,7 +111,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         where = f"{exc.filename}: " if getattr(exc, "filename", None) else ""
         print(f"ergodex: error: {where}{exc.strerror or _one_line(exc)}", file=sys.stderr)
         return EXIT_BAD_INPUT
-    except Exception as exc:  # noqa: BLE001 - the last line of defence of the command line
+    except Exception as exc:  # the last line of defence of the command line
         if debug:
             raise
         print(f"ergodex: internal error: {type(exc).__name__}: {_one_line(exc)[:300]} "

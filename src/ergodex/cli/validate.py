@@ -65,13 +65,12 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
 
 def run(args: argparse.Namespace) -> int:
     """Run the check; return 0 (pass) or 1 (fail). Bad input raises ErgodexError."""
+    from ergodex.cli.common import check_limit_options
+    from ergodex.files import check_writable
     from ergodex.readers import read_series
     from ergodex.regimes import RegimeSet
     from ergodex.surrogate import Surrogate
     from ergodex.validation import CheckSpec, check
-
-    from ergodex.cli.common import check_limit_options
-    from ergodex.files import check_writable
 
     # read and check everything first: nothing is written when an input is bad
     check_limit_options(args)
