@@ -378,10 +378,14 @@ def _package_versions() -> dict[str, str]:
 
 
 def _read_json_object(data: bytes, what: str) -> dict:
+    from ergodex.limits import load_json_text
+
     try:
-        obj = json.loads(data.decode("utf-8"))
-    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as exc:
         raise ModelFileError(f"{what} is not valid UTF-8 JSON: {exc}") from exc
+    # strict parse: bounded nesting, no NaN/Infinity, no integers of thousands of digits
+    obj = load_json_text(text, what, error=ModelFileError)
     if not isinstance(obj, dict):
         raise ModelFileError(f"{what} must hold a JSON object, found {type(obj).__name__}")
     return obj
@@ -804,6 +808,10 @@ class Registry:
 
     @staticmethod
     def _read_input(path: str | os.PathLike[str], what: str) -> bytes:
+        from ergodex.limits import check_regular_file
+
+        if os.path.lexists(path):  # a device or pipe (e.g. /dev/zero) would be read forever
+            check_regular_file(path, what, error=RegistryError)
         try:
             return Path(path).read_bytes()
         except FileNotFoundError:
