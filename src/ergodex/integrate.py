@@ -307,7 +307,8 @@ def blowup_bound(reference_states: Any, factor: float = 10.0) -> np.ndarray:
     lo, hi = x.min(axis=0), x.max(axis=0)
     centre, half = (hi + lo) / 2.0, (hi - lo) / 2.0
     half = np.where(half > 0.0, half, np.maximum(np.abs(centre), 1.0))
-    return np.column_stack([centre - factor * half, centre + factor * half])
+    with np.errstate(over="ignore"):  # a range near the float limit widens to +-inf: unbounded
+        return np.column_stack([centre - factor * half, centre + factor * half])
 
 
 def _positive(value: Any, name: str) -> float:

@@ -308,9 +308,12 @@ def parse_ref(ref: object) -> tuple[str, int | None]:
     validate_name(name)
     if not sep:
         return name, None
-    if not version_text.isdigit() or int(version_text) < 1 or len(version_text) > 9:
+    # length and ASCII first: int() refuses 5000 digits and digits such as '²' with ValueError
+    if (len(version_text) > 9 or not (version_text.isascii() and version_text.isdigit())
+            or int(version_text) < 1):
+        shown = ref if len(ref) <= 80 else ref[:77] + "..."
         raise RegistryError(
-            f"model reference {ref!r}: the version after '@' must be a positive whole number"
+            f"model reference {shown!r}: the version after '@' must be a positive whole number"
         )
     return name, int(version_text)
 

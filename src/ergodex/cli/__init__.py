@@ -82,13 +82,16 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     if getattr(args, "func", None) is None:
-        parser.print_help(sys.stderr)
+        # one line, like every refusal: the usage and where the full help is
+        usage = " ".join(parser.format_usage().split())
+        print(f"ergodex: error: no command given; {usage} (see 'ergodex --help')", file=sys.stderr)
         return EXIT_BAD_INPUT
     logging.basicConfig(
         level=getattr(args, "log_level", None) or "WARNING",
         format="%(asctime)s %(levelname)s %(name)s: %(message)s",
     )
-    debug = bool(getattr(args, "debug", False)) or os.environ.get("ERGODEX_DEBUG", "") not in ("", "0")
+    debug = bool(getattr(args, "debug", False)) or os.environ.get("ERGODEX_DEBUG", "") not in (
+        "", "0")
     try:
         return int(args.func(args))
     except ErgodexError as exc:

@@ -331,6 +331,10 @@ def run(args: argparse.Namespace) -> int:
     surrogate = load_model(args.model, getattr(args, "home", None))
     dt = _output_dt(surrogate, args.dt)
     _check_memory(surrogate, args)
+    from ergodex.series import check_name
+
+    for name in _data_names(surrogate):  # refused before the run, not after it
+        check_name(name, what="the model's variable name", source=str(args.model))
     observed = surrogate.observed_index
     seed = args.seed if args.seed is not None else int(np.random.SeedSequence().entropy % (2**63))
     rng = np.random.default_rng(seed)
