@@ -22,7 +22,6 @@ from hypothesis import strategies as st
 
 from ergodex import scenarios
 from ergodex.cli import main
-from ergodex.surrogate import Surrogate
 from ergodex.writers import write_csv, write_npz
 
 EXIT_CODES = {0, 1, 2, 3}
@@ -664,7 +663,7 @@ def test_full_disk_is_one_line_and_leaves_no_file(hostile, isolated, capsys, mon
 @pytest.mark.timeout(60)
 def test_unexpected_error_is_one_line_and_debug_shows_the_traceback(hostile, isolated, capsys,
                                                                     monkeypatch):
-    import ergodex.cli.simulate as simulate
+    from ergodex.cli import simulate
 
     def broken(*_args, **_kw):
         raise ZeroDivisionError("made up for the test")

@@ -21,10 +21,10 @@ from hypothesis import strategies as st
 pytest.importorskip("fastapi")
 pytest.importorskip("httpx")
 
-from fastapi.testclient import TestClient  # noqa: E402
+from fastapi.testclient import TestClient
 
-from ergodex.service.app import create_app  # noqa: E402
-from ergodex.service.settings import ServiceSettings  # noqa: E402
+from ergodex.service.app import create_app
+from ergodex.service.settings import ServiceSettings
 
 TOKEN = "fuzz-token-0123456789abcdef"
 AUTH = {"Authorization": f"Bearer {TOKEN}"}
@@ -162,7 +162,7 @@ _FIT_BAD = {
     "check-bins-huge": _with(FIT, check={"bins": 10**9}),
     "check-not-object": _with(FIT, check=[1]),
 }
-for _name, _body in _FIT_BAD.items():
+for _body in _FIT_BAD.values():
     CASES.append(_json("POST", "/jobs/fit", _body, AUTH))
 _VALIDATE_BAD = {
     "version-zero": _with(VALIDATE, version=0),
@@ -176,7 +176,7 @@ _VALIDATE_BAD = {
     "check-members-one": _with(VALIDATE, check={"members": 1}),
     "extra": _with(VALIDATE, extra=True),
 }
-for _name, _body in _VALIDATE_BAD.items():
+for _body in _VALIDATE_BAD.values():
     CASES.append(_json("POST", "/jobs/validate", _body, AUTH))
 _RETRAIN_BAD = {
     "unknown-model": RETRAIN,
@@ -187,7 +187,7 @@ _RETRAIN_BAD = {
     "settings-str": _with(RETRAIN, settings="degree=2"),
     "name-empty": _with(RETRAIN, name=""),
 }
-for _name, _body in _RETRAIN_BAD.items():
+for _body in _RETRAIN_BAD.values():
     CASES.append(_json("POST", "/jobs/retrain", _body, AUTH))
 # reads with hostile paths and queries
 for _path in ("/models/../../etc/passwd", "/models/%2e%2e/%2e%2e", "/models/..%2f..%2fetc",
