@@ -116,7 +116,8 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     parser.add_argument("--substep", type=float, default=None, metavar="H",
                         help="integration step (default: chosen from the model's stiffness at the start "
                              "states and at the --initial states or, without them, states across the "
-                             "range the model was fitted on)")
+                             "range the model was fitted on; never below DT/1e6: a model that needs "
+                             "less fails as too stiff, exit 1)")
     add_home_option(parser)
     from ergodex.cli.common import add_limit_options
 
