@@ -151,6 +151,9 @@ def hostile(tmp_path_factory) -> Path:
     _write(h / "stiff4.json", json.dumps(_ou_model(-1e4 * np.eye(2))))
     _write(h / "explode.json", json.dumps(_ou_model(1e3 * np.eye(2))))
     _write(h / "settle.json", json.dumps(_ou_model(-50.0 * np.eye(2))))
+    # decays as exp(-200 t): below the smallest double (~1e-308, ln = -709) after t ~ 3.5, so its
+    # output is exactly constant after the validator's spin-up
+    _write(h / "zeroes.json", json.dumps(_ou_model(-200.0 * np.eye(2))))
     _write(h / "still.json", json.dumps(_ou_model(np.zeros((2, 2)))))
     cubic = _ou_model()
     cubic["terms"].append({"kind": "monomial", "powers": [32, 0]})
@@ -631,6 +634,17 @@ def test_settled_simulation_is_a_model_failure_not_bad_input(hostile, isolated, 
                                       hostile, isolated), capsys)
     assert code == 1 and "settled on a fixed point" in err
     assert _files_under(isolated) == []
+
+
+@pytest.mark.timeout(120)
+def test_validate_of_a_model_settled_exactly_is_a_failure_not_bad_input(hostile, isolated, capsys):
+    # issue 14: the undefined autocorrelation of a constant output made this exit 2
+    code, out, err = run_cli(_expand(["validate", "{H}/zeroes.json", "{H}/data.csv", "--members",
+                                      "2", "--json", "{T}/card.json"], hostile, isolated), capsys)
+    assert code == 1, err
+    card = json.loads((isolated / "card.json").read_text())
+    assert card["verdict"] == "fail"
+    assert "every surviving member settles on a fixed point" in card["reasons"]
 
 
 @pytest.mark.timeout(60)

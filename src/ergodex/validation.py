@@ -1084,6 +1084,24 @@ def _member_agreement(model, alive, L, ref_stats, ref_pieces, spec, ctx) -> dict
     return out
 
 
+def _model_acf(live: list[np.ndarray], max_lag: int, like: np.ndarray) -> np.ndarray:
+    """Autocorrelation of the model output; NaN for a variable that never moves.
+
+    A surrogate that settled on a fixed point is a model failure (the scorecard says so), not
+    bad input: its undefined autocorrelation is shown as missing rather than raised.
+    """
+    try:
+        return stats.autocorrelation(live, max_lag)
+    except DataError:
+        out = np.full_like(like, np.nan)
+        for j in range(like.shape[1]):
+            try:
+                out[:, j] = stats.autocorrelation([x[:, [j]] for x in live], max_lag)[:, 0]
+            except DataError:
+                continue
+        return out
+
+
 def _evidence(reference, stacked, ref_pieces, ref_stats, model, alive, blowup_times, spec, ctx,
               rng) -> Evidence:
     """Arrays for the figures; per-piece reference statistics come from ``ref_stats`` when the
@@ -1110,7 +1128,7 @@ def _evidence(reference, stacked, ref_pieces, ref_stats, model, alive, blowup_ti
                                      ctx["nperseg"])[1].transpose(0, 2, 1)
     acf_pieces = ref_stats.acf if hasattr(ref_stats, "acf") else _acf_pieces(ref_pieces, max_lag)
     if live:
-        acf_mod = stats.autocorrelation(live, max_lag)
+        acf_mod = _model_acf(live, max_lag, acf_ref)
         psd_mod = stats.power_spectrum(live, dt, nperseg=ctx["nperseg"])[1]
     else:
         acf_mod = np.full_like(acf_ref, np.nan)
