@@ -257,6 +257,23 @@ def hostile(tmp_path_factory) -> Path:
     _write(h / "cfg_degree.toml", "[sparse]\ndegree = 99\n")
     _write(h / "cfg_binary.toml", rng.bytes(512))
 
+    # exported folders for `models import`
+    export = h / "export_zero"
+    export.mkdir()
+    _write(export / "manifest.json", json.dumps({"format": "x", "files": {"model.json": "0"}}))
+    bad_export = h / "export_devzero"
+    bad_export.mkdir()
+    _write(bad_export / "manifest.json", json.dumps({"format": "ergodex-export/1",
+                                                     "files": {"model.json": "0" * 64}}))
+    os.symlink("/dev/zero", bad_export / "model.json")
+    deep_export = h / "export_deep"
+    deep_export.mkdir()
+    _write(deep_export / "manifest.json", '{"a": ' + "[" * 100_000 + "]" * 100_000 + "}")
+    traversal = h / "export_traversal"
+    traversal.mkdir()
+    _write(traversal / "manifest.json", json.dumps({"format": "ergodex-export/1",
+                                                    "files": {"../../etc/passwd": "0" * 64}}))
+
     # scorecards for register
     _write(h / "card_deep.json", '{"a": ' + "[" * 100_000 + "]" * 100_000 + "}")
     _write(h / "card_bigint.json", '{"verdict": ' + "7" * 5001 + "}")
@@ -269,8 +286,9 @@ SIM = ["simulate", "{H}/ok.json", "--members", "2", "--steps", "5", "--dt", "0.1
 VAL = ["validate", "{H}/ok.json", "{H}/data.csv", "--members", "4", "--quiet"]
 
 
-def _case(name, argv, codes=frozenset({2}), env=None):
-    return pytest.param(list(argv), frozenset(codes), env or {}, id=name)
+def _case(name, argv, codes=frozenset({2}), env=None, slow=False):
+    marks = [pytest.mark.slow] if slow else []
+    return pytest.param(list(argv), frozenset(codes), env or {}, id=name, marks=marks)
 
 
 _MODEL_REFUSALS = [
@@ -532,6 +550,31 @@ CASES += [
                                        "{T}/home"], {2}),
     _case("models-show-superscript-version", ["models", "show", "m@²", "--home", "{T}/home"],
           {2}),
+    _case("import-wrong-format", ["models", "import", "{H}/export_zero", "--home", "{T}/home"]),
+    _case("import-dev-zero", ["models", "import", "{H}/export_devzero", "--home", "{T}/home"]),
+    _case("import-deep-manifest", ["models", "import", "{H}/export_deep", "--home", "{T}/home"]),
+    _case("import-traversal", ["models", "import", "{H}/export_traversal", "--home",
+                               "{T}/home"]),
+    _case("import-not-a-folder", ["models", "import", "{H}/data.csv", "--home", "{T}/home"]),
+    # a first retrain fits, checks and registers: real work, any verdict
+    _case("retrain-no-registry", ["retrain", "m", "{H}/data.csv", "--home", "{T}/home"], ANY,
+          slow=True),
+    _case("retrain-data-dev-zero", ["retrain", "m", "{H}/zero.csv", "--home", "{T}/home"]),
+    _case("retrain-config-deep", ["retrain", "m", "{H}/data.csv", "--config",
+                                  "{H}/cfg_deep.toml", "--home", "{T}/home"]),
+    _case("retrain-config-latin1", ["retrain", "m", "{H}/data.csv", "--config",
+                                    "{H}/cfg_latin1.toml", "--home", "{T}/home"]),
+    _case("retrain-seed-negative", ["retrain", "m", "{H}/data.csv", "--seed", "-5", "--home",
+                                    "{T}/home"]),
+    _case("retrain-name-traversal", ["retrain", "../x", "{H}/data.csv", "--home", "{T}/home"]),
+    _case("retrain-json-proc", ["retrain", "m", "{H}/data.csv", "--json", "/proc/r.json",
+                                "--home", "{T}/home"]),
+    _case("report-out-proc", ["report", "m@1", "--home", "{T}/home", "--out", "/proc/r.html"]),
+    _case("report-bad-ref", ["report", "m@zero", "--home", "{T}/home"]),
+    _case("models-accept-missing", ["models", "accept", "m@1", "--home", "{T}/home"]),
+    _case("models-list-missing-home", ["models", "list", "--home", "{T}/home"], ANY),
+    _case("demo-bad-scenario", ["demo", "--scenario", "volcano"]),
+    _case("demo-seed-negative", ["demo", "--seed", "-5"]),
     _case("report-missing", ["report", "nothing@1", "--home", "{T}/home", "--out",
                              "{T}/r.html"], {2}),
 ]
@@ -639,7 +682,7 @@ def test_settled_simulation_is_a_model_failure_not_bad_input(hostile, isolated, 
 @pytest.mark.timeout(120)
 def test_validate_of_a_model_settled_exactly_is_a_failure_not_bad_input(hostile, isolated, capsys):
     # issue 14: the undefined autocorrelation of a constant output made this exit 2
-    code, out, err = run_cli(_expand(["validate", "{H}/zeroes.json", "{H}/data.csv", "--members",
+    code, _out, err = run_cli(_expand(["validate", "{H}/zeroes.json", "{H}/data.csv", "--members",
                                       "2", "--json", "{T}/card.json"], hostile, isolated), capsys)
     assert code == 1, err
     card = json.loads((isolated / "card.json").read_text())

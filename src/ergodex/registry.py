@@ -1417,6 +1417,10 @@ class Registry:
             if not isinstance(filename, str) or Path(filename).name != filename or filename in ("", ".", ".."):
                 raise RegistryError(f"{manifest_path} lists an unsafe file name {filename!r}")
             file_path = folder / filename
+            if os.path.lexists(file_path):  # never read a device or pipe (e.g. /dev/zero) forever
+                from ergodex.limits import check_regular_file
+
+                check_regular_file(file_path, "an exported file", error=RegistryError)
             try:
                 data = file_path.read_bytes()
             except FileNotFoundError:

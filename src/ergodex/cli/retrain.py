@@ -107,6 +107,10 @@ def run(args: argparse.Namespace) -> int:
     from ergodex.cli.common import is_terminal, registry_from_args
     from ergodex.retraining import retrain
 
+    if args.json not in (None, "-"):  # refused before the work, not after it
+        from ergodex.files import check_writable
+
+        check_writable(args.json, "--json")
     registry = registry_from_args(args)
     holdout = parse_holdout(args.holdout)
     spec = spec_from_args(args)
