@@ -51,11 +51,12 @@ def test_memory_refusal_names_estimate_limit_and_remedies():
     check_memory(1024**3, "a run", "use fewer members", "1G")  # at the limit: allowed
 
 
-def test_ensemble_memory_counts_outputs_three_times():
+def test_ensemble_memory_counts_each_copy_of_the_outputs():
     # 1000 members x 500 outputs x 3 variables of float64 = 12 MB per copy
-    small = ensemble_memory(1000, 500, 3, 3)
-    assert 3 * 12_000_000 <= small <= 3 * 12_000_000 + 10 * 2**20
-    assert ensemble_memory(2000, 500, 3, 3) > 2 * small - 10 * 2**20
+    one = ensemble_memory(1000, 500, 3, 3)
+    assert 12_000_000 <= one <= 12_000_000 + 10 * 2**20
+    three = ensemble_memory(1000, 500, 3, 3, copies=3)
+    assert three - one == 2 * 12_000_000
 
 
 def test_special_files_and_oversize_files_are_refused(tmp_path, monkeypatch):

@@ -76,9 +76,6 @@ MAX_SUBSTEPS_PER_OUTPUT = 10**6
 #: member stops (common practice, no source).
 _WORK_PER_CALL = 1 << 22
 
-#: The estimate of :func:`ensemble_memory` counts the kept outputs this many times: the run's
-#: own array and the copies a caller makes (data space, statistics pieces).
-_OUTPUT_COPIES = 3
 
 
 @dataclass
@@ -278,15 +275,15 @@ def _choose(surrogate, sample_states, dt_out, method, safety) -> tuple[float, in
 
 
 def ensemble_memory(n_members: int, n_out: int, n_kept: int, n_variables: int,
-                    n_terms: int = 0) -> int:
-    """Estimated bytes an ensemble run and its caller's copies of the outputs allocate.
+                    n_terms: int = 0, *, copies: int = 1) -> int:
+    """Estimated bytes an ensemble run (and ``copies - 1`` copies of its outputs) allocates.
 
-    Counts the kept outputs (``n_members * n_out * n_kept`` float64) three times (the run's array
-    plus the data-space and statistics copies callers make), the states and the compiled kernel's
-    work arrays (a few rows per variable and term, per member) and the noise buffer (2**20
-    numbers). Used to refuse a run before anything is allocated.
+    Counts the kept outputs (``n_members * n_out * n_kept`` float64) ``copies`` times (the run's
+    own array, plus the copies a caller makes: data space, statistics pieces), the states and the
+    compiled kernel's work arrays (a few rows per variable and term, per member) and the noise
+    buffer (2**20 numbers). Used to refuse a run before anything is allocated.
     """
-    outputs = 8.0 * float(n_members) * float(n_out) * float(n_kept) * _OUTPUT_COPIES
+    outputs = 8.0 * float(n_members) * float(n_out) * float(n_kept) * max(1, int(copies))
     work = 8.0 * float(n_members) * (3.0 * (n_variables + n_terms + 3) + 8.0 * n_variables)
     return int(outputs + work + 8.0 * (1 << 20))
 

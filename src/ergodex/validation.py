@@ -855,8 +855,9 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *,
                             f"({L * dt:g} time units); members must cover at least one piece")
     pieces_per_member = n_out // L
     # refuse before the start states, the run and the model array are allocated
+    # the run's outputs, the data-space model array and the statistics' pieces: three copies
     check_memory(ensemble_memory(spec.members, n_out, surrogate.n_variables, surrogate.n_variables,
-                                 surrogate.n_terms),
+                                 surrogate.n_terms, copies=3),
                  f"a check of {spec.members} members x {n_out} outputs x "
                  f"{surrogate.n_variables} variables", "use fewer members or a shorter length",
                  max_memory)

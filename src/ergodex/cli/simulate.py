@@ -261,8 +261,9 @@ def _check_memory(surrogate, args: argparse.Namespace) -> None:
     n_data = len(_data_names(surrogate))
     # the written text: about 25 characters per value (CSV or netCDF encodings are smaller)
     output = 25.0 * float(args.members) * float(args.steps) * n_data
+    # the run's outputs, the data-space runs and the Series' checked copy: three copies
     estimate = ensemble_memory(args.members, args.steps, surrogate.n_variables,
-                               surrogate.n_variables, surrogate.n_terms) + output
+                               surrogate.n_variables, surrogate.n_terms, copies=3) + output
     check_memory(estimate, f"simulating {args.members} members x {args.steps} outputs x "
                            f"{surrogate.n_variables} variables",
                  "use fewer --members or --steps", args.max_memory)
