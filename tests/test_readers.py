@@ -273,7 +273,7 @@ _CELL = st.one_of(
 @HYPOTHESIS
 @given(
     # header cells without line breaks, so that the test knows where the header ends
-    names=st.lists(st.text(st.characters(blacklist_characters="\r\n"), max_size=6), min_size=1,
+    names=st.lists(st.text(st.characters(blacklist_characters="\r\n", codec="utf-8"), max_size=6), min_size=1,
                    max_size=4),
     rows=st.lists(st.lists(_CELL, min_size=0, max_size=5), min_size=0, max_size=6),
 )

@@ -1,7 +1,8 @@
 """Errors raised by ergodex.
 
 Every error a user can cause derives from :class:`ErgodexError`; the command line catches that one
-class and exits with code 2 after printing the message on one line. Subclasses also derive from the
+class and exits with code 2 after printing the message on one line (a class may name another code
+in ``exit_code``: :class:`ModelLimitError` is a model failure, exit 1). Subclasses also derive from the
 matching built-in so that callers who expect ``ValueError`` or ``KeyError`` still catch them.
 A message names the thing (file, row, column, parameter), the rule broken, the value received and
 what to do.
@@ -58,6 +59,14 @@ class RegistryError(ErgodexError):
 
 class IntegrityError(RegistryError):
     """A stored artifact no longer matches the hash recorded when it was written."""
+
+
+class ModelLimitError(ErgodexError, RuntimeError):
+    """The surrogate cannot be integrated within the limits: too stiff for the substep floor, or
+    over the wall-time budget. A finding about the model, not bad input: the command line exits
+    with :attr:`exit_code` 1 ("the model failed"), not 2."""
+
+    exit_code = 1
 
 
 class OptionalDependencyError(ErgodexError, ImportError):

@@ -9,6 +9,7 @@ Windows when both names are on one file system.
 from __future__ import annotations
 
 import os
+import stat
 import tempfile
 from collections.abc import Callable
 from pathlib import Path
@@ -32,11 +33,15 @@ def atomic_write_path(
     """
     target = Path(path)
     folder = target.parent
-    if make_folder:
-        folder.mkdir(parents=True, exist_ok=True)
-    elif not folder.is_dir():
-        raise DataError(f"{target}: the folder {folder} does not exist; create it first")
-    fd, name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=folder)
+    _refuse_special(target)
+    try:
+        if make_folder:
+            folder.mkdir(parents=True, exist_ok=True)
+        elif not folder.is_dir():
+            raise DataError(f"{target}: the folder {folder} does not exist; create it first")
+        fd, name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=folder)
+    except OSError as exc:
+        raise DataError(f"{target}: cannot write there ({exc.strerror or exc})") from None
     os.close(fd)
     tmp = Path(name)
     try:
@@ -45,9 +50,60 @@ def atomic_write_path(
             os.fsync(handle.fileno())
         os.chmod(tmp, 0o644)  # mkstemp makes owner-only files; give the result usual permissions
         os.replace(tmp, target)
+    except OSError as exc:
+        # a full disk or a vanished folder: the old file (if any) stays, the temporary one goes
+        tmp.unlink(missing_ok=True)
+        raise DataError(f"{target}: cannot write ({exc.strerror or exc}); nothing was "
+                        "changed") from None
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
+    return target
+
+
+def _refuse_special(target: Path) -> None:
+    """An existing target must be a regular file (or a link): never replace a device or folder."""
+    try:
+        info = os.lstat(target)
+    except (OSError, ValueError):
+        return
+    if stat.S_ISDIR(info.st_mode):
+        raise DataError(f"{target}: is a folder; give a file name")
+    if not (stat.S_ISREG(info.st_mode) or stat.S_ISLNK(info.st_mode)):
+        raise DataError(f"{target}: is a device, pipe or socket; give a regular file name")
+
+
+def check_writable(path: str | os.PathLike[str], what: str = "output") -> Path:
+    """Refuse early an output that cannot be written, before hours of work are spent on it.
+
+    The target must not be a folder or a special file, and a file must be creatable in its
+    folder (or, when the folder is still to be made, in its nearest existing ancestor): a
+    temporary probe file is created there and removed. Nothing is left behind.
+
+    Raises
+    ------
+    DataError
+        Naming ``what`` (e.g. ``--out``), the path and the reason.
+    """
+    target = Path(path)
+    try:
+        _refuse_special(target)
+    except DataError as exc:
+        raise DataError(f"{what} {exc}") from None
+    if len(os.fsencode(target.name)) > 255:
+        raise DataError(f"{what} {str(target)[:80]}...: the file name is longer than 255 bytes")
+    probe = target.parent
+    try:
+        while not probe.exists() and probe != probe.parent:
+            probe = probe.parent
+        if not probe.is_dir():
+            raise DataError(f"{what} {target}: {probe} is not a folder")
+        fd, name = tempfile.mkstemp(prefix=f".{target.name[:100]}.", suffix=".probe", dir=probe)
+    except (OSError, ValueError) as exc:
+        reason = getattr(exc, "strerror", None) or exc
+        raise DataError(f"{what} {target}: cannot write in {probe} ({reason})") from None
+    os.close(fd)
+    os.unlink(name)
     return target
 
 

@@ -24,13 +24,14 @@ Memory grows with what is kept (members x outputs x kept variables), not with th
 from __future__ import annotations
 
 import math
+import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 
-from ergodex.exceptions import SettingsError
+from ergodex.exceptions import ModelLimitError, SettingsError
 from ergodex.surrogate import Surrogate
 
 __all__ = [
@@ -41,6 +42,8 @@ __all__ = [
     "choose_substep",
     "blowup_bound",
     "stability_limit",
+    "ensemble_memory",
+    "MAX_SUBSTEPS_PER_OUTPUT",
 ]
 
 #: Steppers: name -> (stochastic?, distance of the stability region boundary along the negative
@@ -62,6 +65,17 @@ ENGINES = ("auto", "numba", "numpy")
 SAFETY = 0.25
 
 _MAX_FLOAT = float(np.finfo(np.float64).max)
+
+#: Substep floor: at most a million substeps per output interval (substep >= dt_out / 1e6). A
+#: surrogate that needs more is too stiff to integrate explicitly in useful time (a long check
+#: takes 1e4-1e6 outputs); it fails with :class:`~ergodex.exceptions.ModelLimitError`.
+MAX_SUBSTEPS_PER_OUTPUT = 10**6
+
+#: Member-substeps per compiled call of a deterministic run: bounds how long one call runs, so
+#: that the time limit is checked every fraction of a second and a run that has lost every
+#: member stops (common practice, no source).
+_WORK_PER_CALL = 1 << 22
+
 
 
 @dataclass
@@ -179,15 +193,28 @@ def _spectral_radius(surrogate: Surrogate, sample_states: Any, max_states: int =
     x = x[np.all(np.isfinite(x), axis=1)]
     if len(x) == 0:
         raise SettingsError("sample_states: no finite state to measure the stiffness at")
+    n = surrogate.n_variables
+    # Eigenvalues cost ~n**3 per state: a model of hundreds of variables gets fewer states so
+    # that measuring its stiffness stays within seconds (common practice, no source).
+    max_states = max(8, min(max_states, (1 << 27) // max(1, n**3)))
     if len(x) > max_states:
         # Evenly spaced picks: deterministic and spread over the whole sample.
         x = x[np.linspace(0, len(x) - 1, max_states).astype(np.int64)]
-    with np.errstate(all="ignore"):
-        jac = surrogate.jacobian(x)
-    jac = jac[np.all(np.isfinite(jac), axis=(1, 2))]
-    if len(jac) == 0:
-        return 0.0
-    return float(np.max(np.abs(np.linalg.eigvals(jac))))
+    # The Jacobian's work array is states x active terms x variables: batches keep it near 64 MB.
+    n_active = max(1, len(surrogate.term_tables()["active"]))
+    batch = max(1, (1 << 23) // (n_active * n))
+    rho = 0.0
+    for start in range(0, len(x), batch):
+        with np.errstate(all="ignore"):
+            jac = surrogate.jacobian(x[start:start + batch])
+        jac = jac[np.all(np.isfinite(jac), axis=(1, 2))]
+        if len(jac):
+            try:
+                radius = float(np.max(np.abs(np.linalg.eigvals(jac))))
+            except np.linalg.LinAlgError:  # no convergence: the row-sum norm bounds the radius
+                radius = float(np.max(np.abs(jac).sum(axis=2)))
+            rho = max(rho, radius)
+    return rho
 
 
 def choose_substep(surrogate: Surrogate, sample_states: Any, dt_out: float, *,
@@ -214,6 +241,11 @@ def choose_substep(surrogate: Surrogate, sample_states: Any, dt_out: float, *,
     float
         ``dt_out / k`` for the smallest integer ``k >= 1`` that satisfies the bound.
 
+    Raises
+    ------
+    ModelLimitError
+        When ``k`` would exceed :data:`MAX_SUBSTEPS_PER_OUTPUT` (the substep floor).
+
     References
     ----------
     .. [1] Hairer, E. & Wanner, G. (1996). Solving Ordinary Differential Equations II: Stiff and
@@ -231,8 +263,29 @@ def _choose(surrogate, sample_states, dt_out, method, safety) -> tuple[float, in
     if rho <= 0.0:
         return dt_out, 1, rho
     h_max = float(safety) * limit / rho
+    if dt_out / h_max > MAX_SUBSTEPS_PER_OUTPUT:
+        raise ModelLimitError(
+            f"too stiff: needs substep {h_max:.3g} < floor {dt_out / MAX_SUBSTEPS_PER_OUTPUT:.3g} "
+            f"(output interval / {MAX_SUBSTEPS_PER_OUTPUT:.0e}; largest spectral radius of the "
+            f"Jacobian {rho:.3g} at states typical of the run); the surrogate's fastest mode is far "
+            "faster than the data's sampling"
+        )
     k = max(1, math.ceil(dt_out / h_max - 1e-9))
     return dt_out / k, k, rho
+
+
+def ensemble_memory(n_members: int, n_out: int, n_kept: int, n_variables: int,
+                    n_terms: int = 0, *, copies: int = 1) -> int:
+    """Estimated bytes an ensemble run (and ``copies - 1`` copies of its outputs) allocates.
+
+    Counts the kept outputs (``n_members * n_out * n_kept`` float64) ``copies`` times (the run's
+    own array, plus the copies a caller makes: data space, statistics pieces), the states and the
+    compiled kernel's work arrays (a few rows per variable and term, per member) and the noise
+    buffer (2**20 numbers). Used to refuse a run before anything is allocated.
+    """
+    outputs = 8.0 * float(n_members) * float(n_out) * float(n_kept) * max(1, int(copies))
+    work = 8.0 * float(n_members) * (3.0 * (n_variables + n_terms + 3) + 8.0 * n_variables)
+    return int(outputs + work + 8.0 * (1 << 20))
 
 
 def blowup_bound(reference_states: Any, factor: float = 10.0) -> np.ndarray:
@@ -264,7 +317,8 @@ def blowup_bound(reference_states: Any, factor: float = 10.0) -> np.ndarray:
     lo, hi = x.min(axis=0), x.max(axis=0)
     centre, half = (hi + lo) / 2.0, (hi - lo) / 2.0
     half = np.where(half > 0.0, half, np.maximum(np.abs(centre), 1.0))
-    return np.column_stack([centre - factor * half, centre + factor * half])
+    with np.errstate(over="ignore"):  # a range near the float limit widens to +-inf: unbounded
+        return np.column_stack([centre - factor * half, centre + factor * half])
 
 
 def _positive(value: Any, name: str) -> float:
@@ -344,6 +398,8 @@ def integrate_ensemble(
     keep: Sequence[int | str] | None = None,
     engine: str = "auto",
     progress: Callable[[int, int], None] | None = None,
+    time_limit: float | None = None,
+    max_memory: int | str | None = None,
 ) -> EnsembleResult:
     """Integrate ``M`` members of a surrogate together and record outputs, blow-ups and status.
 
@@ -379,6 +435,13 @@ def integrate_ensemble(
         ``"auto"`` uses the compiled kernel.
     progress : callable(done, total), optional
         Called after each block of outputs (for progress bars).
+    time_limit : float, optional
+        Wall-clock budget in seconds (default: none), checked between compiled calls (each a
+        fraction of a second); over it the run stops with :class:`ModelLimitError`.
+    max_memory : int or str, optional
+        Memory limit for :func:`ensemble_memory` (default: :func:`ergodex.limits.memory_limit`,
+        i.e. ``$ERGODEX_MAX_MEMORY`` or half the available memory); over it the run is refused
+        before anything is allocated.
 
     Returns
     -------
@@ -387,7 +450,16 @@ def integrate_ensemble(
     Raises
     ------
     SettingsError
-        For bad settings or non-finite initial states. Never for a blow-up.
+        For bad settings, non-finite initial states, or a run whose estimated memory exceeds the
+        limit. Never for a blow-up.
+    ModelLimitError
+        When the automatic substep would fall below the floor (``dt_out /``
+        :data:`MAX_SUBSTEPS_PER_OUTPUT`) or the run exceeds ``time_limit``.
+
+    Notes
+    -----
+    The run stops as soon as every member has blown up (also during spin-up); the remaining
+    outputs are NaN and the status is ``"all-blowup"``.
 
     References
     ----------
@@ -433,6 +505,17 @@ def integrate_ensemble(
         raise SettingsError(f"engine {engine!r} is not one of {', '.join(ENGINES)}")
     if engine == "auto":
         engine = "numba" if _numba_available() else "numpy"
+    if time_limit is not None:
+        time_limit = _positive(time_limit, "time_limit")
+    deadline = None if time_limit is None else time.monotonic() + time_limit
+    from ergodex.limits import check_memory
+
+    n_kept = n if keep is None else len(_resolve_keep(surrogate, keep))
+    check_memory(
+        ensemble_memory(M, n_out, n_kept, n, surrogate.n_terms),
+        f"an ensemble of {M} members x {n_out} outputs x {n_kept} variables",
+        "use fewer members or outputs", max_memory,
+    )
 
     rho: float | None = None
     if substep is None:
@@ -445,6 +528,11 @@ def integrate_ensemble(
         h, k, rho = _choose(surrogate, sample, dt_out, method, SAFETY)
     else:
         h_req = _positive(substep, "substep")
+        if dt_out / h_req > MAX_SUBSTEPS_PER_OUTPUT:
+            raise SettingsError(
+                f"substep {h_req:g} is below the floor {dt_out / MAX_SUBSTEPS_PER_OUTPUT:.3g} "
+                f"(output interval / {MAX_SUBSTEPS_PER_OUTPUT:.0e}); give a larger substep"
+            )
         k = max(1, math.ceil(dt_out / h_req - 1e-9))
         h = dt_out / k
 
@@ -470,6 +558,9 @@ def integrate_ensemble(
         if surrogate.noise is not None:
             chol = np.ascontiguousarray(_noise_factor(np.asarray(surrogate.noise)))
 
+    if spinup / h > 2.0**62:
+        raise SettingsError(f"spinup {spinup:g} is {spinup / h:.3g} substeps of {h:.3g}; "
+                            "give a shorter spin-up")
     n_spin = math.ceil(spinup / h - 1e-9) if spinup > 0 else 0
     spin_time = n_spin * h
 
@@ -500,19 +591,29 @@ def integrate_ensemble(
             return empty_noise
         return rng.standard_normal((n_steps, M, n))
 
-    # Chunks keep the noise buffer near 2**20 numbers and let progress be reported.
+    # Chunks keep the noise buffer near 2**20 numbers (stochastic) or each compiled call near
+    # _WORK_PER_CALL member-substeps (deterministic), so that progress is reported, the time
+    # limit is checked and a run whose members have all blown up stops.
     per_step = M * n
-    max_steps = max(1, (1 << 20) // per_step) if stochastic else 1 << 30
-    # Deterministic spin-up also comes in chunks, bounding each compiled call.
-    spin_chunk = max_steps if stochastic else 100_000
+    max_steps = max(1, (1 << 20) // per_step) if stochastic else max(1, _WORK_PER_CALL // M)
+    spin_chunk = max_steps
+
+    def over_time(where: str) -> None:
+        if deadline is not None and time.monotonic() > deadline:
+            raise ModelLimitError(
+                f"time limit of {time_limit:g} s reached {where} ({M} members, substep {h:.3g}, "
+                f"{k} per output); the surrogate is too costly to integrate in that time: "
+                "raise the time limit, or use fewer members or outputs"
+            )
 
     t = -spin_time
     done = 0
-    while done < n_spin:
+    while done < n_spin and alive.any():
         steps = min(n_spin - done, spin_chunk)
         run_block(t, 1, steps, draw(steps), 0, False)
         done += steps
         t = -spin_time + done * h
+        over_time(f"during the spin-up (t={t:.6g} of 0)")
     t = 0.0
     # Output 0: the state at the end of spin-up.
     out[alive, 0, :] = state[alive][:, keep_idx]
@@ -520,7 +621,7 @@ def integrate_ensemble(
     outputs_per_block = max(1, min(max_steps // k, math.ceil((n_out - 1) / 100)) if n_out > 1 else 1)
     if progress is not None:
         progress(1, n_out)
-    while j < n_out:
+    while j < n_out and alive.any():
         if k <= max_steps:
             nb = min(outputs_per_block, n_out - j)
             run_block((j - 1) * dt_out, nb, k, draw(nb * k), j, True)
@@ -532,7 +633,9 @@ def integrate_ensemble(
                 steps = min(k - done, max_steps)
                 run_block((j - 1) * dt_out + done * h, 1, steps, draw(steps), j, done + steps == k)
                 done += steps
+                over_time(f"at output {j} of {n_out}")
         j += nb
+        over_time(f"at output {j} of {n_out}")
         if progress is not None:
             progress(j, n_out)
 

@@ -53,6 +53,12 @@ from typing import Any
 import numpy as np
 
 from ergodex.exceptions import DataError, ErgodexError, require
+from ergodex.limits import (
+    MAX_NESTING,
+    MAX_TEXT_FILE_SIZE,
+    check_regular_file,
+    nesting_depth,
+)
 from ergodex.series import Series, check_name, split_runs
 
 __all__ = [
@@ -192,14 +198,14 @@ _FAST_PARSE_MIN_BYTES = 4 << 20
 
 
 def _check_file(path: Path, expected: str) -> None:
-    """Refuse a folder or a missing path before a reader library gets to word the error."""
-    if path.is_dir():
-        raise DataError(f"{path}: is a folder, expected {expected}")
-    if not path.exists():
-        raise DataError(f"{path}: file not found")
+    """Refuse a folder, a missing path, a device/pipe (even through a symlink) or a file over the
+    size limit (:func:`ergodex.limits.file_size_limit`) before a reader library gets to word the
+    error or to read forever."""
+    check_regular_file(path, expected)
 
 
 def _read_bytes(path: Path) -> bytes:
+    _check_file(path, "a file")
     try:
         return path.read_bytes()
     except FileNotFoundError:
@@ -808,6 +814,21 @@ def _npz_strings(data, key: str, expected: int | None, source: str) -> list[str]
     return out
 
 
+def _check_npz_size(path: Path) -> None:
+    """Refuse an archive whose members unpack to more than the file size limit (a zip bomb)."""
+    from ergodex.limits import FILE_SIZE_ENV, file_size_limit, format_bytes
+
+    try:
+        with zipfile.ZipFile(path) as archive:
+            total = sum(info.file_size for info in archive.infolist())
+    except (zipfile.BadZipFile, OSError, ValueError, EOFError):
+        return  # np.load words the error (a single .npy, a corrupt file)
+    limit = file_size_limit()
+    if total > limit:
+        raise DataError(f"{path}: unpacks to {format_bytes(total)}, over the limit of "
+                        f"{format_bytes(limit)}; raise it with {FILE_SIZE_ENV}")
+
+
 def read_npz(
     path: str | os.PathLike,
     *,
@@ -830,6 +851,7 @@ def read_npz(
     dt_arg = _check_dt_argument(dt, source)
     min_samples = _check_min_samples(min_samples)
     _check_file(path, "an NPZ file")
+    _check_npz_size(path)
     try:
         with np.load(path, allow_pickle=False) as archive:
             if not isinstance(archive, np.lib.npyio.NpzFile):
@@ -1099,6 +1121,9 @@ def read_dataset(
     path = Path(path)
     manifest = path / _MANIFEST if path.is_dir() else path
     folder = manifest.parent
+    if not os.path.lexists(manifest):
+        raise DataError(f"{manifest}: not found; a dataset folder needs a {_MANIFEST}")
+    check_regular_file(manifest, "a dataset manifest", max_bytes=MAX_TEXT_FILE_SIZE)
     try:
         raw = manifest.read_bytes()
     except FileNotFoundError:
@@ -1111,6 +1136,10 @@ def read_dataset(
         raise _manifest_error(manifest, "is not UTF-8 text") from None
     except tomllib.TOMLDecodeError as exc:
         raise _manifest_error(manifest, f"is not valid TOML ({_one_line(exc)})") from None
+    except RecursionError:
+        raise _manifest_error(manifest, "nests arrays or tables too deeply") from None
+    if nesting_depth(doc) > MAX_NESTING:
+        raise _manifest_error(manifest, "nests arrays or tables too deeply")
     unknown = sorted(set(doc) - _MANIFEST_KEYS)
     if unknown:
         raise _manifest_error(

@@ -37,7 +37,7 @@ dictionaries) is::
 from __future__ import annotations
 
 import math
-import tomllib
+import os
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -270,8 +270,10 @@ class KMeansRule(Regime):
         if isinstance(k, bool) or not isinstance(k, int) or k < 2:
             raise SettingsError(f"{where}: key 'clusters' must be an integer ≥ 2; got {k!r}")
         seed = d.get("seed", 0)
-        if isinstance(seed, bool) or not isinstance(seed, int):
-            raise SettingsError(f"{where}: key 'seed' must be an integer; got {seed!r}")
+        if isinstance(seed, bool) or not isinstance(seed, int) or not 0 <= seed < 2**32:
+            # scikit-learn's KMeans takes seeds in 0 .. 2**32 - 1
+            raise SettingsError(f"{where}: key 'seed' must be an integer from 0 to 2**32 - 1; "
+                                f"got {seed!r}")
         variables = d.get("variables")
         if variables is not None and (not isinstance(variables, list)
                                       or not all(isinstance(v, str) for v in variables)):
@@ -378,14 +380,12 @@ class RegimeSet:
     @classmethod
     def from_toml(cls, path) -> RegimeSet:
         """Read a regime file (see the module docstring for its layout)."""
+        from ergodex.limits import load_toml_file
+
         path = Path(path)
-        try:
-            with path.open("rb") as fh:
-                d = tomllib.load(fh)
-        except FileNotFoundError:
-            raise DataError(f"{path}: regime file not found") from None
-        except tomllib.TOMLDecodeError as exc:
-            raise DataError(f"{path}: not valid TOML: {exc}") from None
+        if not os.path.lexists(path):
+            raise DataError(f"{path}: regime file not found")
+        d = load_toml_file(path, "a regime file (TOML)")
         return cls.from_dict(d, source=str(path))
 
     def to_dict(self) -> dict:

@@ -319,9 +319,12 @@ def parse_ref(ref: object) -> tuple[str, int | None]:
     validate_name(name)
     if not sep:
         return name, None
-    if not version_text.isdigit() or int(version_text) < 1 or len(version_text) > 9:
+    # length and ASCII first: int() refuses 5000 digits and digits such as '²' with ValueError
+    if (len(version_text) > 9 or not (version_text.isascii() and version_text.isdigit())
+            or int(version_text) < 1):
+        shown = ref if len(ref) <= 80 else ref[:77] + "..."
         raise RegistryError(
-            f"model reference {ref!r}: the version after '@' must be a positive whole number"
+            f"model reference {shown!r}: the version after '@' must be a positive whole number"
         )
     return name, int(version_text)
 
@@ -389,10 +392,14 @@ def _package_versions() -> dict[str, str]:
 
 
 def _read_json_object(data: bytes, what: str) -> dict:
+    from ergodex.limits import load_json_text
+
     try:
-        obj = json.loads(data.decode("utf-8"))
-    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as exc:
         raise ModelFileError(f"{what} is not valid UTF-8 JSON: {exc}") from exc
+    # strict parse: bounded nesting, no NaN/Infinity, no integers of thousands of digits
+    obj = load_json_text(text, what, error=ModelFileError)
     if not isinstance(obj, dict):
         raise ModelFileError(f"{what} must hold a JSON object, found {type(obj).__name__}")
     return obj
@@ -815,6 +822,10 @@ class Registry:
 
     @staticmethod
     def _read_input(path: str | os.PathLike[str], what: str) -> bytes:
+        from ergodex.limits import check_regular_file
+
+        if os.path.lexists(path):  # a device or pipe (e.g. /dev/zero) would be read forever
+            check_regular_file(path, what, error=RegistryError)
         try:
             return Path(path).read_bytes()
         except FileNotFoundError:
@@ -1419,6 +1430,10 @@ class Registry:
             if not isinstance(filename, str) or Path(filename).name != filename or filename in ("", ".", ".."):
                 raise RegistryError(f"{manifest_path} lists an unsafe file name {filename!r}")
             file_path = folder / filename
+            if os.path.lexists(file_path):  # never read a device or pipe (e.g. /dev/zero) forever
+                from ergodex.limits import check_regular_file
+
+                check_regular_file(file_path, "an exported file", error=RegistryError)
             try:
                 data = file_path.read_bytes()
             except FileNotFoundError:

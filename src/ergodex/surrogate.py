@@ -43,6 +43,13 @@ __all__ = [
 #: Version string written to and required in the ``format`` field of ``model.json``.
 FORMAT = "ergodex-model/1"
 
+#: Largest total degree of a monomial in a model file. Fitters write degree 5 at most; far higher
+#: powers overflow at ordinary states and make each evaluation slow.
+MAX_DEGREE = 32
+#: Largest coefficient magnitude (and sine/cosine frequency) in a model file: 1e100. Beyond it
+#: one term overflows double precision (1.8e308) at states of order 1e2 in a single evaluation.
+MAX_COEFFICIENT = 1e100
+
 #: Kinds of terms a surrogate can hold.
 TERM_KINDS = ("monomial", "sin", "cos")
 
@@ -257,6 +264,10 @@ class Surrogate:
         if not np.all(np.isfinite(coef)):
             i, t = np.argwhere(~np.isfinite(coef))[0]
             raise SettingsError(f"coefficients: non-finite value {coef[i, t]} at row {i}, column {t}")
+        if np.any(np.abs(coef) > MAX_COEFFICIENT):
+            i, t = np.argwhere(np.abs(coef) > MAX_COEFFICIENT)[0]
+            raise SettingsError(f"coefficients: value {coef[i, t]:.3g} at row {i}, column {t} is beyond "
+                                f"the largest allowed magnitude {MAX_COEFFICIENT:g}")
         coef.setflags(write=False)
 
         noise_arr = None
@@ -730,9 +741,12 @@ class Surrogate:
                 if not isinstance(powers, list) or not all(
                     isinstance(p, int) and not isinstance(p, bool) and p >= 0 for p in powers
                 ):
-                    raise fail(f"{where}.powers must be a list of non-negative integers, got {powers!r}")
+                    raise fail(f"{where}.powers must be a list of non-negative integers, got {_short(powers)}")
                 if len(powers) != n:
                     raise fail(f"{where}.powers has {len(powers)} entries, expected {n} (one per variable)")
+                if sum(powers) > MAX_DEGREE:
+                    raise fail(f"{where}.powers has total degree {sum(powers)}; the largest allowed "
+                               f"is {MAX_DEGREE}")
                 terms.append(Term("monomial", tuple(powers)))
             elif tk in ("sin", "cos"):
                 if set(entry) != {"kind", "variable", "frequency"}:
@@ -742,8 +756,12 @@ class Surrogate:
                 var, freq = entry["variable"], entry["frequency"]
                 if not isinstance(var, int) or isinstance(var, bool) or not 0 <= var < n:
                     raise fail(f"{where}.variable must be an integer in 0..{n - 1}, got {var!r}")
-                if not isinstance(freq, (int, float)) or isinstance(freq, bool) or not math.isfinite(freq):
+                if not isinstance(freq, (int, float)) or isinstance(freq, bool) or (
+                        isinstance(freq, float) and not math.isfinite(freq)):
                     raise fail(f"{where}.frequency must be a finite number, got {freq!r}")
+                if abs(freq) > MAX_COEFFICIENT:
+                    raise fail(f"{where}.frequency {_short(freq)} is beyond the largest allowed "
+                               f"magnitude {MAX_COEFFICIENT:g}")
                 terms.append(Term(tk, variable=var, frequency=float(freq)))
             else:
                 raise fail(f"{where}.kind {tk!r} is not supported (use one of {', '.join(TERM_KINDS)})")
@@ -810,25 +828,17 @@ class Surrogate:
             The file is missing, not JSON, or breaks the model-file rules (the message names the
             file and the field).
         """
+        from ergodex.limits import load_json_text, read_text_file
+
         if isinstance(text_or_path, str) and text_or_path.lstrip().startswith("{"):
             text, source = text_or_path, "model JSON"
         else:
             path = Path(text_or_path)
             source = str(path)
-            try:
-                text = path.read_text(encoding="utf-8")
-            except FileNotFoundError:
-                raise ModelFileError(f"{source}: no such model file") from None
-            except (OSError, UnicodeDecodeError) as exc:
-                raise ModelFileError(f"{source}: cannot read model file ({exc})") from None
-        try:
-            data = json.loads(text, parse_constant=_refuse_constant)
-        except json.JSONDecodeError as exc:
-            raise ModelFileError(
-                f"{source}: not valid JSON at line {exc.lineno}, column {exc.colno} ({exc.msg})"
-            ) from None
-        except ValueError as exc:
-            raise ModelFileError(f"{source}: {exc}") from None
+            if not os.path.lexists(path):
+                raise ModelFileError(f"{source}: no such model file")
+            text = read_text_file(path, "a model file (model.json)", error=ModelFileError)
+        data = load_json_text(text, source, error=ModelFileError)
         return cls.from_dict(data, source=source)
 
     def fingerprint(self) -> str:
@@ -909,8 +919,10 @@ def _format_json(d: Mapping[str, Any]) -> str:
     return "{\n" + ",\n".join(items) + "\n}\n"
 
 
-def _refuse_constant(name: str) -> float:
-    raise ValueError(f"JSON constant {name} is not allowed (numbers must be finite)")
+def _short(x: Any) -> str:
+    """repr of a value for a message, cut to 40 characters (a huge integer has 4000 digits)."""
+    text = repr(x) if not isinstance(x, int) or abs(x) < 10**30 else f"an integer of {len(str(abs(x)))} digits"
+    return text if len(text) <= 40 else text[:37] + "..."
 
 
 def _read_matrix(value: Any, shape: tuple[int, int], field: str, fail) -> np.ndarray:
@@ -922,8 +934,12 @@ def _read_matrix(value: Any, shape: tuple[int, int], field: str, fail) -> np.nda
             got = len(row) if isinstance(row, list) else type(row).__name__
             raise fail(f"field '{field}[{i}]' must have {shape[1]} entries, got {got}")
         for j, x in enumerate(row):
-            if not isinstance(x, (int, float)) or isinstance(x, bool) or not math.isfinite(x):
-                raise fail(f"field '{field}[{i}][{j}]' must be a finite number, got {x!r}")
+            if not isinstance(x, (int, float)) or isinstance(x, bool) or (
+                    isinstance(x, float) and not math.isfinite(x)):
+                raise fail(f"field '{field}[{i}][{j}]' must be a finite number, got {_short(x)}")
+            if abs(x) > MAX_COEFFICIENT:
+                raise fail(f"field '{field}[{i}][{j}]' is {_short(x)}, beyond the largest allowed "
+                           f"magnitude {MAX_COEFFICIENT:g}")
     return np.array(value, dtype=np.float64)
 
 

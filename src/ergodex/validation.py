@@ -393,16 +393,14 @@ class Scorecard:
         source = "scorecard"
         text = str(text_or_path)
         if not text.lstrip().startswith("{"):
+            from ergodex.limits import read_text_file
+
             p = Path(text_or_path)
-            try:
-                text = p.read_text(encoding="utf-8")
-            except OSError as exc:
-                raise ModelFileError(f"{p}: cannot read scorecard ({exc.strerror})") from None
+            text = read_text_file(p, "a scorecard (JSON)", error=ModelFileError)
             source = str(p)
-        try:
-            d = json.loads(text)
-        except json.JSONDecodeError as exc:
-            raise ModelFileError(f"{source}: not valid JSON (line {exc.lineno}: {exc.msg})") from None
+        from ergodex.limits import load_json_text
+
+        d = load_json_text(text, source, error=ModelFileError)
         return cls.from_dict(d, source=source)
 
     def table(self) -> str:
@@ -843,7 +841,8 @@ def align_columns(surrogate, series):
 
 
 def check(surrogate, reference, spec: CheckSpec | None = None, *, initial_states=None,
-          dt: float | None = None, progress=False) -> CheckResult:
+          dt: float | None = None, progress=False, time_limit: float | None = None,
+          max_memory: int | str | None = None) -> CheckResult:
     """Validate a surrogate against reference data: scorecard plus evidence.
 
     Parameters
@@ -861,6 +860,11 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *, initial_states
         Sampling interval when ``reference`` is a table without times.
     progress : bool or callable(done, total)
         Progress of the ensemble integration and the scoring (see :mod:`ergodex.progress`).
+    time_limit : float, optional
+        Wall-clock budget of the ensemble integration in seconds (default: none).
+    max_memory : int or str, optional
+        Memory limit (default: ``$ERGODEX_MAX_MEMORY``, else half the available memory); a check
+        whose ensemble would need more is refused before anything is allocated.
 
     Returns
     -------
@@ -871,7 +875,11 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *, initial_states
     DataError
         When the reference is too short for a noise floor or its variables do not match the model.
     SettingsError
-        For bad settings. A surrogate that blows up is a finding in the scorecard, never an error.
+        For bad settings, or an ensemble whose estimated memory exceeds the limit. A surrogate
+        that blows up is a finding in the scorecard, never an error.
+    ModelLimitError
+        When the surrogate is too stiff for the substep floor or the integration exceeds
+        ``time_limit`` (a model failure: exit code 1 on the command line).
 
     References
     ----------
@@ -887,7 +895,8 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *, initial_states
              getattr(surrogate, "kind", type(surrogate).__name__), reference.n_runs,
              reference.n_samples, ", ".join(reference.names))
     with reporter(progress, 1, desc="check", unit="output") as update:
-        result = _check(surrogate, reference, spec, initial_states, update)
+        result = _check(surrogate, reference, spec, initial_states, update,
+                        time_limit=time_limit, max_memory=max_memory)
     card = result.scorecard
     settings = card.settings
     log.info("check: %d members of %g time units after a spin-up of %g; %s",
@@ -900,10 +909,12 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *, initial_states
     return result
 
 
-def _check(surrogate, reference, spec, initial_states, update) -> CheckResult:
+def _check(surrogate, reference, spec, initial_states, update, *,
+           time_limit: float | None = None, max_memory: int | str | None = None) -> CheckResult:
     """The check itself, on a Series; ``update(done, total)`` (or None) hears of its progress."""
     import ergodex
-    from ergodex.integrate import blowup_bound, integrate_ensemble
+    from ergodex.integrate import blowup_bound, ensemble_memory, integrate_ensemble
+    from ergodex.limits import check_memory
 
     spec = CheckSpec() if spec is None else spec
     if not isinstance(spec, CheckSpec):
@@ -967,6 +978,13 @@ def _check(surrogate, reference, spec, initial_states, update) -> CheckResult:
         raise SettingsError(f"length {member_time:g} is shorter than one reference piece "
                             f"({L * dt:g} time units); members must cover at least one piece")
     pieces_per_member = n_out // L
+    # refuse before the start states, the run and the model array are allocated
+    # the run's outputs, the data-space model array and the statistics' pieces: three copies
+    check_memory(ensemble_memory(spec.members, n_out, surrogate.n_variables, surrogate.n_variables,
+                                 surrogate.n_terms, copies=3),
+                 f"a check of {spec.members} members x {n_out} outputs x "
+                 f"{surrogate.n_variables} variables", "use fewer members or a shorter length",
+                 max_memory)
 
     seeds = np.random.SeedSequence(spec.seed).generate_state(3)
     rng = np.random.default_rng(int(seeds[0]))
@@ -1003,7 +1021,8 @@ def _check(surrogate, reference, spec, initial_states, update) -> CheckResult:
         if len(observed) < surrogate.n_variables:
             keep = columns
     run = integrate_ensemble(surrogate, z0, dt_out=dt, n_out=n_out, spinup=spinup, bound=bound,
-                             seed=int(seeds[1]), keep=keep,
+                             seed=int(seeds[1]), keep=keep, time_limit=time_limit,
+                             max_memory=max_memory,
                              progress=None if update is None else (lambda d, t: update(d, t + 1)))
 
     # -- model output in data space -----------------------------------------------------------
@@ -1193,6 +1212,24 @@ def _member_agreement(model, alive, L, ref_stats, ref_pieces, spec, ctx) -> dict
     return out
 
 
+def _model_acf(live: list[np.ndarray], max_lag: int, like: np.ndarray) -> np.ndarray:
+    """Autocorrelation of the model output; NaN for a variable that never moves.
+
+    A surrogate that settled on a fixed point is a model failure (the scorecard says so), not
+    bad input: its undefined autocorrelation is shown as missing rather than raised.
+    """
+    try:
+        return stats.autocorrelation(live, max_lag)
+    except DataError:
+        out = np.full_like(like, np.nan)
+        for j in range(like.shape[1]):
+            try:
+                out[:, j] = stats.autocorrelation([x[:, [j]] for x in live], max_lag)[:, 0]
+            except DataError:
+                continue
+        return out
+
+
 def _evidence(reference, stacked, ref_pieces, ref_stats, model, alive, blowup_times, spec, ctx,
               rng) -> Evidence:
     """Arrays for the figures; per-piece reference statistics come from ``ref_stats`` when the
@@ -1219,7 +1256,7 @@ def _evidence(reference, stacked, ref_pieces, ref_stats, model, alive, blowup_ti
                                      ctx["nperseg"])[1].transpose(0, 2, 1)
     acf_pieces = ref_stats.acf if hasattr(ref_stats, "acf") else _acf_pieces(ref_pieces, max_lag)
     if live:
-        acf_mod = stats.autocorrelation(live, max_lag)
+        acf_mod = _model_acf(live, max_lag, acf_ref)
         psd_mod = stats.power_spectrum(live, dt, nperseg=ctx["nperseg"])[1]
     else:
         acf_mod = np.full_like(acf_ref, np.nan)

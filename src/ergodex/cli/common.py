@@ -239,3 +239,30 @@ def own_data_warning(surrogate: Any, choice: DataChoice) -> str | None:
             return ("the model was fitted on runs that this check uses (its data fingerprint "
                     "matches part of these data); check on runs it was not fitted on (--holdout)")
     return None
+
+
+def add_limit_options(parser: argparse.ArgumentParser, *, time_limit: float | None) -> None:
+    """Add ``--time-limit SECONDS`` (default ``time_limit``; none when None) and ``--max-memory``."""
+    default = "none" if time_limit is None else f"{time_limit:g} s"
+    parser.add_argument(
+        "--time-limit", type=float, default=time_limit, metavar="SECONDS",
+        help=f"wall-clock budget of the integration (default: {default}); a surrogate that needs "
+             "longer fails (exit 1) instead of running for hours")
+    parser.add_argument(
+        "--max-memory", default=None, metavar="SIZE",
+        help="refuse (exit 2) a run whose estimated memory exceeds SIZE, e.g. 512M or 4G "
+             "(default: $ERGODEX_MAX_MEMORY, else half the memory available)")
+
+
+def check_limit_options(args: argparse.Namespace) -> None:
+    """Refuse a non-positive or non-finite ``--time-limit`` and a malformed ``--max-memory``."""
+    import math
+
+    from ergodex.exceptions import SettingsError
+    from ergodex.limits import parse_size
+
+    limit = getattr(args, "time_limit", None)
+    if limit is not None and not (math.isfinite(limit) and limit > 0):
+        raise SettingsError(f"--time-limit must be a positive number of seconds, got {limit}")
+    if getattr(args, "max_memory", None) is not None:
+        parse_size(args.max_memory, "--max-memory")

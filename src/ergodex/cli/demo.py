@@ -43,6 +43,10 @@ def run(args: argparse.Namespace) -> int:
     from ergodex.cli.common import resolve_home
     from ergodex.pipeline import run_demo
 
+    if args.seed is not None and args.seed < 0:
+        from ergodex.exceptions import SettingsError
+
+        raise SettingsError(f"--seed must be a non-negative integer, got {args.seed}")
     demo = run_demo
     if args.scenario == "basin":
         from ergodex.fields.demo import run_basin_demo

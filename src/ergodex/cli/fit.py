@@ -81,6 +81,9 @@ def _check_target(option: str, target: str | None) -> None:
         raise SettingsError(f"--{option} {target}: is a folder; give a file name")
     if not path.parent.exists():
         raise SettingsError(f"--{option} {target}: folder {str(path.parent)!r} does not exist")
+    from ergodex.files import check_writable
+
+    check_writable(path, f"--{option}")  # e.g. /proc/x.json: refused before the fit, not after
 
 
 def run(args: argparse.Namespace) -> int:

@@ -139,6 +139,10 @@ def run(args: argparse.Namespace) -> int:
             f"{args.name.split('@')[0]} without @VERSION (to check one version on new data use "
             "'ergodex validate NAME@VERSION DATA')"
         )
+    if args.json not in (None, "-"):  # refused before the work, not after it
+        from ergodex.files import check_writable
+
+        check_writable(args.json, "--json")
     registry = registry_from_args(args)
     spec = spec_from_args(args)
     data, holdout = read_new_data(args)

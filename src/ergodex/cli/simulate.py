@@ -37,7 +37,18 @@ One run per member (labels ``member-000`` …) at interval ``--dt`` in data spac
 ends at its last finite output (members that blew up during spin-up, and for NetCDF every member
 that blew up, are left out), stderr says which members and when, and the exit code is 1.
 
-Exit codes: 0 every member integrated; 1 some member blew up; 2 bad input (nothing written).
+Limits
+------
+The memory the run needs (members x outputs x variables, see
+:func:`ergodex.integrate.ensemble_memory`, plus the output file's text) is estimated before
+anything is allocated; over ``--max-memory`` (default ``$ERGODEX_MAX_MEMORY``, else half the memory
+available) the run is refused with exit 2. ``--time-limit`` bounds the wall-clock time (default:
+none); a surrogate that needs a substep below ``dt / 1e6`` or more time than that fails with exit 1.
+A run stops as soon as every member has blown up.
+
+Exit codes: 0 every member integrated; 1 some member blew up, every member settled on a fixed
+point (a variable constant in the whole output), or the surrogate was too stiff or too slow; 2 bad
+input (nothing written).
 Caution: a simulated ensemble is not a certification of the model; defer to the applicable codes,
 standards and licensed practice.
 """
@@ -80,7 +91,9 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
             "Members start from the model's own long run (origin + tiny seeded perturbations, "
             "spun up for 1000 output steps) unless --initial gives start states. A member is "
             "stopped (blew up) when it leaves ten times the range of the --initial states or, "
-            "without them, of the data the model was fitted on. Exit codes: 0 all members finished, 1 some member blew up, 2 bad input. "
+            "without them, of the data the model was fitted on. Exit codes: 0 all members finished, "
+            "1 some member blew up, the output settled on a fixed point, or the surrogate was too "
+            "stiff or too slow (--time-limit), 2 bad input (also a run over --max-memory). "
             "A simulated ensemble is not a certification; defer to the applicable codes, "
             "standards and licensed practice."
         ),
@@ -104,8 +117,12 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     parser.add_argument("--substep", type=float, default=None, metavar="H",
                         help="integration step (default: chosen from the model's stiffness at the start "
                              "states and at the --initial states or, without them, states across the "
-                             "range the model was fitted on)")
+                             "range the model was fitted on; never below DT/1e6: a model that needs "
+                             "less fails as too stiff, exit 1)")
     add_home_option(parser)
+    from ergodex.cli.common import add_limit_options
+
+    add_limit_options(parser, time_limit=None)
     parser.set_defaults(func=run)
     return parser
 
@@ -218,6 +235,31 @@ def initial_states_from_model(surrogate, members: int, rng: np.random.Generator)
     return rng.normal(scale=PERTURBATION, size=(members, surrogate.n_variables))
 
 
+def _check_memory(surrogate, args: argparse.Namespace) -> None:
+    """Refuse before allocating when the run and its output would exceed the memory limit."""
+    from ergodex.integrate import ensemble_memory
+    from ergodex.limits import check_memory
+
+    n_data = len(_data_names(surrogate))
+    # the written text: about 25 characters per value (CSV or netCDF encodings are smaller)
+    output = 25.0 * float(args.members) * float(args.steps) * n_data
+    # the run's outputs, the data-space runs and the Series' checked copy: three copies
+    estimate = ensemble_memory(args.members, args.steps, surrogate.n_variables,
+                               surrogate.n_variables, surrogate.n_terms, copies=3) + output
+    check_memory(estimate, f"simulating {args.members} members x {args.steps} outputs x "
+                           f"{surrogate.n_variables} variables",
+                 "use fewer --members or --steps", args.max_memory)
+
+
+def _constant_columns(runs: list[np.ndarray]) -> list[int]:
+    """Data columns that hold one value across every run and output (a settled ensemble)."""
+    if not runs:
+        return []
+    lo = np.min([r.min(axis=0) for r in runs], axis=0)
+    hi = np.max([r.max(axis=0) for r in runs], axis=0)
+    return [int(c) for c in np.flatnonzero(lo == hi)]
+
+
 def _progress_bar(total: int):
     from ergodex.cli.common import is_terminal
 
@@ -245,6 +287,9 @@ def run(args: argparse.Namespace) -> int:
         raise SettingsError(f"--members must be at least 1, got {args.members}")
     if args.steps is None or args.steps < 1:
         raise SettingsError(f"--steps must be at least 1, got {args.steps}")
+    if args.members * args.steps < 2:
+        raise SettingsError("one member with one output is a single state; a data file needs "
+                            "at least two; use --steps 2 or more")
     if args.seed is not None and args.seed < 0:
         raise SettingsError(f"--seed must be a non-negative integer, got {args.seed}")
     fmt = args.format
@@ -260,9 +305,20 @@ def run(args: argparse.Namespace) -> int:
         fmt = "csv"
     if args.out is not None and not Path(args.out).parent.exists():
         raise SettingsError(f"--out {args.out}: folder {Path(args.out).parent} does not exist")
+    from ergodex.cli.common import check_limit_options
+    from ergodex.files import check_writable
+
+    check_limit_options(args)
+    if args.out is not None:
+        check_writable(args.out, "--out")
 
     surrogate = load_model(args.model, getattr(args, "home", None))
     dt = _output_dt(surrogate, args.dt)
+    _check_memory(surrogate, args)
+    from ergodex.series import check_name
+
+    for name in _data_names(surrogate):  # refused before the run, not after it
+        check_name(name, what="the model's variable name", source=str(args.model))
     observed = surrogate.observed_index
     seed = args.seed if args.seed is not None else int(np.random.SeedSequence().entropy % (2**63))
     rng = np.random.default_rng(seed)
@@ -287,6 +343,7 @@ def run(args: argparse.Namespace) -> int:
             surrogate, x0, dt_out=dt, n_out=args.steps, spinup=spinup, substep=args.substep,
             stiffness_states=stiffness_states,
             seed=int(rng.integers(0, 2**63 - 1)), bound=bound, progress=update,
+            time_limit=args.time_limit, max_memory=args.max_memory,
         )
     finally:
         if bar is not None:
@@ -324,6 +381,13 @@ def run(args: argparse.Namespace) -> int:
               file=sys.stderr)
         return 1
 
+    settled = _constant_columns(runs)
+    if settled:
+        stays = ", ".join(f"{names[c]} stays at {runs[0][0, c]:.6g}" for c in settled[:4])
+        print(f"ergodex simulate: the ensemble settled on a fixed point ({stays} in every member "
+              "and output); a data file cannot hold a constant variable; nothing written",
+              file=sys.stderr)
+        return 1
     series = Series.from_arrays(runs, names, dt, run_labels=labels, source=str(args.model))
     if args.out is None:
         with tempfile.TemporaryDirectory() as tmp:

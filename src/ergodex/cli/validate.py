@@ -30,6 +30,8 @@ from ergodex.exceptions import SettingsError
 
 EXIT_PASS = 0
 EXIT_FAIL = 1
+#: Default wall-clock budget of the ensemble integration (one hour).
+DEFAULT_TIME_LIMIT = 3600.0
 
 #: ``--report`` given without a file: the default place (see :func:`default_report_path`).
 _DEFAULT = "\0default"
@@ -44,7 +46,8 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
             "Integrate the surrogate from many states drawn from the data and compare its long-run "
             "statistics (histograms, autocorrelation, spectra, quantiles, regimes) with the data's, "
             "against the data's own sampling noise. The reference is DATA's held-out runs "
-            "(dataset.toml 'holdout', or --holdout). Exit 0 when it passes, 1 when it fails, 2 on "
+            "(dataset.toml 'holdout', or --holdout). Exit 0 when it passes, 1 when it fails (also "
+            "when it is too stiff for the substep floor or exceeds --time-limit), 2 on "
             "bad input. Caution: a passed statistical check is not a certification; defer to the "
             "applicable codes, standards and licensed practice."
         ),
@@ -69,6 +72,9 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
 
     add_field_check_options(parser)
     add_check_options(parser)
+    from ergodex.cli.common import add_limit_options
+
+    add_limit_options(parser, time_limit=DEFAULT_TIME_LIMIT)
     parser.set_defaults(func=run)
     return parser
 
@@ -97,10 +103,12 @@ def quiet_lines(scorecard: Any) -> list[str]:
 
 def run(args: argparse.Namespace) -> int:
     """Run the check; return 0 (pass) or 1 (fail). Bad input raises ErgodexError."""
-    from ergodex.cli.common import load_model_info, resolve_home
+    from ergodex.cli.common import check_limit_options, load_model_info, resolve_home
+    from ergodex.files import check_writable
     from ergodex.validation import check
 
     # read and check everything first: nothing is written when an input is bad
+    check_limit_options(args)
     surrogate, info = load_model_info(args.model, args.home)
     from ergodex.cli.fields import read_check_input
 
@@ -121,6 +129,8 @@ def run(args: argparse.Namespace) -> int:
     for option, target in (("json", args.json), ("evidence", evidence), ("report", report)):
         if target is not None and Path(target).is_dir():
             raise SettingsError(f"--{option} {target}: is a folder; give a file name")
+        if target is not None:
+            check_writable(target, f"--{option}")
     if choice is not None:
         if not args.quiet:
             print(f"ergodex validate: {choice.note}", file=sys.stderr)
@@ -130,7 +140,8 @@ def run(args: argparse.Namespace) -> int:
 
     extra_sections: list = []
     if field is None:
-        result = check(surrogate, reference, spec)
+        result = check(surrogate, reference, spec, time_limit=args.time_limit,
+                       max_memory=args.max_memory)
     else:
         from ergodex.cli.fields import check_field_arg
 

@@ -13,7 +13,6 @@ import importlib
 import logging
 import os
 import time
-import tomllib
 from collections.abc import Mapping
 from typing import Any, ClassVar, Iterator
 
@@ -378,13 +377,9 @@ def read_fit_document(path: str | os.PathLike) -> dict:
     SettingsError
         When the file is missing, unreadable, or not valid TOML (the message gives the line).
     """
+    from ergodex.limits import load_toml_file
+
     path = os.fspath(path)
-    try:
-        with open(path, "rb") as handle:
-            return tomllib.load(handle)
-    except FileNotFoundError:
-        raise SettingsError(f"{path}: fit settings file not found") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise SettingsError(f"{path}: not valid TOML: {exc}") from None
-    except OSError as exc:
-        raise SettingsError(f"{path}: cannot read fit settings: {exc.strerror}") from None
+    if not os.path.lexists(path):
+        raise SettingsError(f"{path}: fit settings file not found")
+    return load_toml_file(path, "a fit settings file (TOML)", error=SettingsError)
