@@ -131,12 +131,6 @@ def run(args: argparse.Namespace) -> int:
             raise SettingsError(f"--{option} {target}: is a folder; give a file name")
         if target is not None:
             check_writable(target, f"--{option}")
-    if choice is not None:
-        if not args.quiet:
-            print(f"ergodex validate: {choice.note}", file=sys.stderr)
-        warning = own_data_warning(surrogate, choice)
-        if warning:
-            print(f"ergodex validate: warning: {warning}", file=sys.stderr)
 
     extra_sections: list = []
     if field is None:
@@ -148,6 +142,12 @@ def run(args: argparse.Namespace) -> int:
         field_check = check_field_arg(args, surrogate, field, spec)
         result, extra_sections = field_check.result, field_check.report_sections()
     scorecard = result.scorecard
+    if choice is not None:  # said after the work, so that a refusal stays one line
+        if not args.quiet:
+            print(f"ergodex validate: {choice.note}", file=sys.stderr)
+        warning = own_data_warning(surrogate, choice)
+        if warning:
+            print(f"ergodex validate: warning: {warning}", file=sys.stderr)
     if args.json:
         Path(args.json).parent.mkdir(parents=True, exist_ok=True)
         scorecard.to_json(args.json)
