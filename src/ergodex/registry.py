@@ -745,7 +745,7 @@ class Registry:
                 validate_name(name_dir.name)
             except RegistryError:
                 continue
-            for version_dir in name_dir.iterdir():
+            for version_dir in sorted(name_dir.iterdir(), key=lambda p: (len(p.name), p.name)):
                 text = version_dir.name
                 if not text.isdigit() or text != str(int(text)) or not version_dir.is_dir():
                     continue
