@@ -4,20 +4,34 @@ Downstream users load "the accepted surrogate for X" and must receive exactly th
 the check, with the evidence beside them. Teams register from scripts and schedulers at the same
 time. So the registry guarantees:
 
-* **Immutability.** A version folder ``<home>/<name>/<version>/`` is written once and never
-  changed. Its files are ``model.json`` and ``record.json`` (always), and ``scorecard.json``,
-  ``report.html``, ``fit-settings.json`` (or ``.toml``) and ``evidence.npz`` when given.
-* **Integrity.** The sha256 of every file is stored in the index and checked on every load; a
-  changed byte raises :class:`~ergodex.exceptions.IntegrityError` naming the file, the expected
-  and the actual hash.
+* **Immutability.** The files of a version folder ``<home>/<name>/<version>/`` are written once
+  and never changed: ``model.json`` and ``record.json`` (always), and ``scorecard.json``,
+  ``report.html``, ``fit-settings.json`` (or ``.toml``) and ``evidence.npz`` when given. Beside
+  them, ``status.json`` is the folder's own status record (name, version, status, every event,
+  the sha256 of ``record.json``, a ``committed`` flag); it is the one file that changes, replaced
+  atomically inside the same write transaction as every status change or event.
+* **Integrity.** The sha256 of every file is stored in the index (and in ``record.json``) and
+  checked on every load; a changed byte raises :class:`~ergodex.exceptions.IntegrityError` naming
+  the file, the expected and the actual hash. Reads that show a status or a verdict
+  (:meth:`Registry.get`, :meth:`Registry.versions`, :meth:`Registry.list_models`) hash every file
+  too and mark a changed version ``integrity="failed"`` instead of raising.
 * **Concurrency.** Version numbers are handed out inside one ``BEGIN IMMEDIATE`` transaction, so
   several processes registering the same name at once receive 1, 2, 3, … with no gap or repeat.
 * **Crash safety.** Files are first written (and fsynced) into ``<home>/.staging/<entry>/``; then,
   inside one write transaction, the next number is chosen, the staging folder is renamed to
   ``<home>/<name>/<version>/`` and the version is indexed; the commit is the moment the version
-  exists. A process killed before the commit leaves either a staging folder or an unindexed version
-  folder; neither is ever visible (readers go through the index) and both are swept away when a
-  :class:`Registry` is next opened (or when the same number is handed out again).
+  exists, and the folder's ``status.json`` is then marked committed. A process killed before the
+  commit leaves a staging entry or an uncommitted folder; neither is ever visible, and both are
+  *moved* to ``<home>/.quarantine/`` when a :class:`Registry` is next opened.
+* **Recovery, never deletion.** Opening a registry compares the index with the folders' own
+  records. A committed folder the index lacks, or knows only in an older state (fewer events),
+  is indexed again from ``record.json`` and ``status.json`` (a ``recovered`` event is added and a
+  warning logged): this rebuilds a missing, emptied or older index, and a corrupt index file is
+  moved to the quarantine and replaced by a rebuilt one. A numbered folder without a valid record
+  under a model's folder is quarantined. Nothing under the home is ever deleted by a read.
+* **One accepted version per name.** Accepting a version retires the previously accepted one in
+  the same transaction (event ``retired``, reason ``replaced by version N``), so ``load(name)``
+  has exactly one candidate to return.
 * **No code execution.** Everything is JSON, HTML or NPZ without object arrays; nothing is
   unpickled, so a registry copied from someone else can be loaded safely.
 
@@ -30,13 +44,16 @@ DESIGN.md says numbers are never reused or lost. Here a number is *taken* only b
 makes the version visible: the number, the rename and the index rows are one transaction. A crashed
 registration therefore never consumed a number, and the next registration receives the number the
 crashed one would have had — a number nobody ever saw. Committed numbers are never deleted, so a
-number is never reused, and there are no gaps to explain. (The alternative, reserving a number
+number is never reused, and there are no gaps to explain. The next number is one past both the
+index's highest and the highest numbered folder on disk, so even a lost index cannot make a
+registration overwrite an existing version. (The alternative, reserving a number
 before writing the files, would leave a gap for every crash and need a status for reserved but
 abandoned numbers.)
 
 Statuses (DESIGN.md)
 --------------------
-``candidate`` → ``accepted`` | ``rejected``; ``accepted`` → ``retired``. Accepting needs a
+``candidate`` → ``accepted`` | ``rejected``; ``accepted`` → ``retired`` (by hand, or when another
+version of the name is accepted). Accepting needs a
 passing scorecard computed on data whose fingerprint is recorded (and, when the scorecard names the
 model's fingerprint, computed on this very model); otherwise it is refused unless
 ``override=True`` with a non-empty reason, and the override is marked in the history. Every status
@@ -125,6 +142,7 @@ _RESERVED_NAMES = {
 # when this old. No registration takes a day.
 _STALE_STAGING_AGE = 24 * 3600.0
 BUSY_TIMEOUT_MS = 60_000
+_WAL_SWITCH_SECONDS = 30.0
 
 # Index connections inherited through fork, kept alive so that they are never closed in the child.
 _INHERITED_CONNECTIONS: list[sqlite3.Connection] = []
@@ -622,17 +640,32 @@ class Registry:
     @staticmethod
     def _set_wal(conn: sqlite3.Connection) -> None:
         # Switching to WAL needs a moment of exclusive access; busy_timeout does not always cover
-        # it when many processes open a new index at once, so retry briefly.
-        for attempt in range(200):
-            try:
-                mode = conn.execute("PRAGMA journal_mode = WAL").fetchone()[0]
-                if mode.lower() == "wal":
-                    return
-            except sqlite3.OperationalError as exc:
-                if "locked" not in str(exc) and "busy" not in str(exc):
-                    raise
-            time.sleep(0.01 * (1 + attempt % 10))
-        raise RegistryError("could not switch the registry index to WAL mode (index busy)")
+        # it when many processes open a new index at once, so retry briefly, with a short wait
+        # per try and an overall deadline (an index emptied or replaced while another process
+        # holds it open stays locked: say so instead of waiting for ever).
+        deadline = time.monotonic() + _WAL_SWITCH_SECONDS
+        conn.execute("PRAGMA busy_timeout = 500")
+        try:
+            attempt = 0
+            while True:
+                try:
+                    mode = conn.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+                    if mode.lower() == "wal":
+                        return
+                except sqlite3.OperationalError as exc:
+                    if "locked" not in str(exc) and "busy" not in str(exc):
+                        raise
+                if time.monotonic() > deadline:
+                    break
+                time.sleep(0.01 * (1 + attempt % 10))
+                attempt += 1
+        finally:
+            conn.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
+        raise RegistryError(
+            "could not switch the registry index to WAL mode: the index is busy. If it was "
+            "emptied or replaced while another process (e.g. 'ergodex serve') had it open, stop "
+            "that process and try again"
+        )
 
     def _migrate(self, conn: sqlite3.Connection) -> None:
         current = self._schema_version(conn)
