@@ -269,3 +269,27 @@ def test_cli_warns_on_stderr_when_it_rebuilds(populated):
     assert proc.returncode == 0
     assert "WARNING" in proc.stderr and "rebuilt loop@1, loop@2, ring@1" in proc.stderr
     assert "loop" in proc.stdout and "ring" in proc.stdout and "no models" not in proc.stdout
+
+
+@pytest.mark.slow
+def test_service_marks_a_changed_version_and_keeps_server_paths_out(populated):
+    httpx = pytest.importorskip("httpx")
+    pytest.importorskip("fastapi")
+    from ergodex.service.process import ServerProcess
+
+    home, truth, _ = populated
+    card = home / "loop" / "1" / "scorecard.json"
+    expected = _sha256(card)
+    os.chmod(card, 0o644)
+    card.write_text(json.dumps({**_card(truth), "edited": True}))
+    actual = _sha256(card)
+    with ServerProcess(home, workers=1) as server:
+        with httpx.Client(base_url=server.url, timeout=60) as client:
+            shown = client.get("/models/loop/versions/accepted").json()
+            listing = client.get("/models").json()["models"]
+            fine = client.get("/models/loop/versions/2").json()
+    assert (shown["status"], shown["integrity"]) == ("accepted", "failed")
+    assert shown["integrity_problems"] == [
+        f"loop@1/scorecard.json: expected sha256 {expected}, actual {actual}"]
+    assert [m["integrity_failed"] for m in listing] == [[1], []]
+    assert fine["integrity"] == "ok" and fine["integrity_problems"] == []

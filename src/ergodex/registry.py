@@ -534,7 +534,11 @@ class Registry:
         self.index_path = self.home / INDEX_FILE
         self._connections: dict[tuple[int, int], sqlite3.Connection] = {}
         if self.home.is_dir():
-            self.sweep()
+            try:
+                self.sweep()
+            except OSError as exc:  # e.g. a read-only copy of a registry: still readable
+                log.warning("registry %s could not be checked against its folders: %s",
+                            self.home, exc)
 
     def __repr__(self) -> str:
         return f"Registry({str(self.home)!r})"
@@ -1280,8 +1284,14 @@ class Registry:
             finally:
                 if stage.exists():
                     shutil.rmtree(stage, ignore_errors=True)
-            with self._write(conn):
-                self._write_status(conn, name, version, committed=True)
+            try:
+                with self._write(conn):
+                    self._write_status(conn, name, version, committed=True)
+            except (OSError, sqlite3.Error, RegistryError) as exc:
+                # The version exists (committed); the next sweep marks its folder.
+                log.warning("%s@%s is registered, but its status record could not be marked "
+                            "committed (%s); the next open of the registry does it", name,
+                            version, exc)
             # Every file was read back and compared while writing.
             return replace(self._info(conn, name, version), integrity="ok")
 
@@ -1547,7 +1557,7 @@ class Registry:
         return info.folder / filename
 
     def load(self, ref: str | VersionInfo):
-        """The surrogate of ``"name@v"``, or of the newest accepted version for ``"name"``.
+        """The surrogate of ``"name@v"``, or of the accepted version for ``"name"`` (at most one).
 
         Every artifact of the version is checked against its sha256 first, so the surrogate
         returned is exactly the one registered, with its evidence intact.

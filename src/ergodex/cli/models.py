@@ -18,7 +18,7 @@ Subcommands::
   "accepted": int | null, "statuses": {"candidate": int, "accepted": int, "rejected": int,
   "retired": int}, "integrity_failed": [int]}]}`` (versions whose files no longer match their
   recorded sha256)
-* ``show NAME@V`` (or ``show NAME``: its newest accepted version): ``{"ref": "name@v",
+* ``show NAME@V`` (or ``show NAME``: its accepted version): ``{"ref": "name@v",
   "name": str, "version": int, "status": str, "created": str (UTC ISO 8601), "note": str,
   "parent": "name@v" | null, "datasets": [{"role", "fingerprint", "source"}], "verdict": "pass" |
   "fail" | null, "data_fingerprint": str | null, "model_fingerprint": str | null,
