@@ -223,10 +223,16 @@ def test_sigkill_at_each_step_of_a_registration(tmp_path, point):
     _, status = os.waitpid(pid, 0)
     assert os.WIFSIGNALED(status) and os.WTERMSIG(status) == signal.SIGKILL
     if point == "moved-into-place":
-        # The folder is in place but unindexed: invisible to readers until the sweep removes it.
+        # The folder is in place but unindexed and marked uncommitted: invisible to readers
+        # until the sweep moves it to the quarantine.
         assert (home / "convection-loop" / "2").exists()
     reopened = Registry(home)
     assert _assert_consistent(reopened, "convection-loop") == 1
+    # Moved aside, never deleted (and never indexed: its registration did not commit).
+    kept = sorted(p.name for p in (home / ".quarantine").iterdir())
+    assert kept and all("-staging" in n or n.endswith("-convection-loop-2") for n in kept)
+    if point == "moved-into-place":
+        assert any(n.endswith("-convection-loop-2") for n in kept)
     # The crashed registration never took a number: the next one receives 2.
     assert reopened.register("convection-loop", model, scorecard=card).version == 2
     assert reopened.load("convection-loop@2") == truth
