@@ -793,10 +793,12 @@ class Registry:
         """(name, version) -> (status, number of events) for every indexed version."""
         counts = {(r[0], int(r[1])): int(r[2]) for r in conn.execute(
             "SELECT name, version, COUNT(*) FROM events GROUP BY name, version")}
-        return {(r["name"], int(r["version"])): (r["status"], counts.get((r["name"], r["version"]), 0))
-                for r in conn.execute("SELECT name, version, status FROM versions")}
+        rows = conn.execute("SELECT name, version, status FROM versions").fetchall()
+        return {(r["name"], int(r["version"])):
+                (r["status"], counts.get((r["name"], int(r["version"])), 0)) for r in rows}
 
-    def _plan(self, conn: sqlite3.Connection, folders: list[_FolderState]) -> list[tuple[str, _FolderState]]:
+    def _plan(self, conn: sqlite3.Connection,
+              folders: list[_FolderState]) -> list[tuple[str, _FolderState]]:
         """What each folder needs: 'reindex', 'mark' (write its status record) or 'quarantine'."""
         indexed = self._index_state(conn)
         names = {r[0] for r in conn.execute("SELECT name FROM models")}
