@@ -14,7 +14,7 @@ from ergodex.scenarios import lorenz63_surrogate
 
 VERSION_KEYS = {"ref", "name", "version", "status", "created", "note", "parent", "datasets",
                 "verdict", "data_fingerprint", "model_fingerprint", "scorecard_model_fingerprint",
-                "artifacts", "folder"}
+                "artifacts", "folder", "integrity", "integrity_problems"}
 
 
 @pytest.fixture()
@@ -55,7 +55,8 @@ def test_register_list_show_accept_history(files, capsys):
     listing = json.loads(out)
     assert listing["home"] == str(Registry(home).home)
     assert listing["models"] == [{"name": "loop", "versions": 2, "latest": 2, "accepted": None,
-                                  "statuses": {"candidate": 2, "accepted": 0, "rejected": 0, "retired": 0}}]
+                                  "statuses": {"candidate": 2, "accepted": 0, "rejected": 0, "retired": 0},
+                                  "integrity_failed": []}]
 
     code, _, err = _run(capsys, "models", "accept", "loop@2", "--home", home)
     assert code == 2
@@ -63,6 +64,8 @@ def test_register_list_show_accept_history(files, capsys):
     code, _, err = _run(capsys, "models", "accept", "loop@2", "--override", "--home", home)
     assert code == 2 and "needs a non-empty reason" in err
     assert _run(capsys, "models", "accept", "loop@1", "--home", home)[0] == 0
+    code, out, _ = _run(capsys, "models", "show", "loop@1", "--home", home)
+    assert code == 0 and "loop@1  [accepted]" in out and "not a certification" in out
     code, _, _ = _run(capsys, "models", "accept", "loop@2", "--override", "--reason",
                       "regime occupancy failed by a hair; reviewed", "--home", home)
     assert code == 0
@@ -70,19 +73,21 @@ def test_register_list_show_accept_history(files, capsys):
     code, out, _ = _run(capsys, "models", "show", "loop", "--home", home, "--json")
     shown = json.loads(out)
     assert set(shown) == VERSION_KEYS
-    assert (shown["version"], shown["status"]) == (2, "accepted")  # newest accepted
+    assert (shown["version"], shown["status"], shown["integrity"]) == (2, "accepted", "ok")
     code, out, _ = _run(capsys, "models", "show", "loop", "--all", "--home", home, "--json")
-    assert [v["version"] for v in json.loads(out)["versions"]] == [1, 2]
-    code, out, _ = _run(capsys, "models", "show", "loop@1", "--home", home)
-    assert code == 0 and "loop@1  [accepted]" in out and "not a certification" in out
+    # Exactly one accepted version per name: accepting 2 retired 1.
+    assert [(v["version"], v["status"]) for v in json.loads(out)["versions"]] == [
+        (1, "retired"), (2, "accepted")]
 
-    assert _run(capsys, "models", "retire", "loop@1", "--reason", "superseded", "--home", home)[0] == 0
+    assert _run(capsys, "models", "retire", "loop@2", "--reason", "superseded", "--home", home)[0] == 0
     code, out, _ = _run(capsys, "models", "history", "loop", "--home", home, "--json")
     history = json.loads(out)
     assert history["name"] == "loop"
     assert [(e["version"], e["event"], e["override"]) for e in history["events"]] == [
         (1, "registered", False), (2, "registered", False), (1, "accepted", False),
-        (2, "accepted", True), (1, "retired", False)]
+        (2, "accepted", True), (1, "retired", False), (2, "retired", False)]
+    assert history["events"][4]["reason"] == "replaced by version 2"
+    assert history["integrity_failed"] == []
     assert set(history["events"][0]) == {"id", "time", "name", "version", "event", "from_status",
                                           "to_status", "actor", "reason", "override"}
     code, out, _ = _run(capsys, "models", "history", "loop", "--home", home)

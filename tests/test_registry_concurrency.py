@@ -13,7 +13,7 @@ import time
 import numpy as np
 import pytest
 
-from ergodex.registry import STAGING_DIR, Registry
+from ergodex.registry import STAGING_DIR, STATUS_FILE, Registry
 from ergodex.scenarios import lorenz63_surrogate
 
 pytestmark = pytest.mark.skipif(not hasattr(os, "fork"), reason="needs POSIX processes and signals")
@@ -59,7 +59,10 @@ def _assert_consistent(reg: Registry, name: str, verify_from: int = 1) -> int:
     assert numbers == list(range(1, len(numbers) + 1))
     for info in infos[verify_from - 1:]:
         reg.verify(info.ref)
-        assert {p.name for p in info.folder.iterdir()} == set(info.artifacts)
+        # The artifacts plus the folder's own status record (mutable, so not an artifact).
+        assert {p.name for p in info.folder.iterdir()} == set(info.artifacts) | {STATUS_FILE}
+        status = json.loads((info.folder / STATUS_FILE).read_text())
+        assert status["committed"] and status["status"] == info.status
     on_disk = sorted(int(p.name) for p in (reg.home / name).iterdir()) if (reg.home / name).exists() else []
     assert on_disk == numbers, "a version folder exists that the index does not name"
     staging = reg.home / STAGING_DIR
@@ -220,10 +223,16 @@ def test_sigkill_at_each_step_of_a_registration(tmp_path, point):
     _, status = os.waitpid(pid, 0)
     assert os.WIFSIGNALED(status) and os.WTERMSIG(status) == signal.SIGKILL
     if point == "moved-into-place":
-        # The folder is in place but unindexed: invisible to readers until the sweep removes it.
+        # The folder is in place but unindexed and marked uncommitted: invisible to readers
+        # until the sweep moves it to the quarantine.
         assert (home / "convection-loop" / "2").exists()
     reopened = Registry(home)
     assert _assert_consistent(reopened, "convection-loop") == 1
+    # Moved aside, never deleted (and never indexed: its registration did not commit).
+    kept = sorted(p.name for p in (home / ".quarantine").iterdir())
+    assert kept and all("-staging" in n or n.endswith("-convection-loop-2") for n in kept)
+    if point == "moved-into-place":
+        assert any(n.endswith("-convection-loop-2") for n in kept)
     # The crashed registration never took a number: the next one receives 2.
     assert reopened.register("convection-loop", model, scorecard=card).version == 2
     assert reopened.load("convection-loop@2") == truth

@@ -143,8 +143,11 @@ def test_changed_heating_replaces_the_drifted_champion_with_lineage(loop_home, t
     assert roles["check"] == decision.data["reference_fingerprint"]
     drift = [e for e in registry.history(f"{LOOP}@1") if e.event == "drift-detected"]
     assert len(drift) == 1 and new.fingerprint() in drift[0].reason
-    # Nothing deleted: the old champion still loads, by version.
-    assert registry.get(f"{LOOP}@1").status == "accepted"
+    # One accepted version per name: the old champion is retired by the promotion, with its
+    # own event; nothing deleted, it still loads by version.
+    assert registry.get(f"{LOOP}@1").status == "retired"
+    retired = [e for e in registry.history(f"{LOOP}@1") if e.event == "retired"]
+    assert [e.reason for e in retired] == ["replaced by version 2"]
     registry.load(f"{LOOP}@1")
     # The challenger learned the new heating (Lorenz 1963 form; SINDy recovery as above).
     rho = _coefficient(registry.load(LOOP), "dT_across", (1, 0, 0))

@@ -4,20 +4,34 @@ Downstream users load "the accepted surrogate for X" and must receive exactly th
 the check, with the evidence beside them. Teams register from scripts and schedulers at the same
 time. So the registry guarantees:
 
-* **Immutability.** A version folder ``<home>/<name>/<version>/`` is written once and never
-  changed. Its files are ``model.json`` and ``record.json`` (always), and ``scorecard.json``,
-  ``report.html``, ``fit-settings.json`` (or ``.toml``) and ``evidence.npz`` when given.
-* **Integrity.** The sha256 of every file is stored in the index and checked on every load; a
-  changed byte raises :class:`~ergodex.exceptions.IntegrityError` naming the file, the expected
-  and the actual hash.
+* **Immutability.** The files of a version folder ``<home>/<name>/<version>/`` are written once
+  and never changed: ``model.json`` and ``record.json`` (always), and ``scorecard.json``,
+  ``report.html``, ``fit-settings.json`` (or ``.toml``) and ``evidence.npz`` when given. Beside
+  them, ``status.json`` is the folder's own status record (name, version, status, every event,
+  the sha256 of ``record.json``, a ``committed`` flag); it is the one file that changes, replaced
+  atomically inside the same write transaction as every status change or event.
+* **Integrity.** The sha256 of every file is stored in the index (and in ``record.json``) and
+  checked on every load; a changed byte raises :class:`~ergodex.exceptions.IntegrityError` naming
+  the file, the expected and the actual hash. Reads that show a status or a verdict
+  (:meth:`Registry.get`, :meth:`Registry.versions`, :meth:`Registry.list_models`) hash every file
+  too and mark a changed version ``integrity="failed"`` instead of raising.
 * **Concurrency.** Version numbers are handed out inside one ``BEGIN IMMEDIATE`` transaction, so
   several processes registering the same name at once receive 1, 2, 3, … with no gap or repeat.
 * **Crash safety.** Files are first written (and fsynced) into ``<home>/.staging/<entry>/``; then,
   inside one write transaction, the next number is chosen, the staging folder is renamed to
   ``<home>/<name>/<version>/`` and the version is indexed; the commit is the moment the version
-  exists. A process killed before the commit leaves either a staging folder or an unindexed version
-  folder; neither is ever visible (readers go through the index) and both are swept away when a
-  :class:`Registry` is next opened (or when the same number is handed out again).
+  exists, and the folder's ``status.json`` is then marked committed. A process killed before the
+  commit leaves a staging entry or an uncommitted folder; neither is ever visible, and both are
+  *moved* to ``<home>/.quarantine/`` when a :class:`Registry` is next opened.
+* **Recovery, never deletion.** Opening a registry compares the index with the folders' own
+  records. A committed folder the index lacks, or knows only in an older state (fewer events),
+  is indexed again from ``record.json`` and ``status.json`` (a ``recovered`` event is added and a
+  warning logged): this rebuilds a missing, emptied or older index, and a corrupt index file is
+  moved to the quarantine and replaced by a rebuilt one. A numbered folder without a valid record
+  under a model's folder is quarantined. Nothing under the home is ever deleted by a read.
+* **One accepted version per name.** Accepting a version retires the previously accepted one in
+  the same transaction (event ``retired``, reason ``replaced by version N``), so ``load(name)``
+  has exactly one candidate to return.
 * **No code execution.** Everything is JSON, HTML or NPZ without object arrays; nothing is
   unpickled, so a registry copied from someone else can be loaded safely.
 
@@ -30,13 +44,16 @@ DESIGN.md says numbers are never reused or lost. Here a number is *taken* only b
 makes the version visible: the number, the rename and the index rows are one transaction. A crashed
 registration therefore never consumed a number, and the next registration receives the number the
 crashed one would have had — a number nobody ever saw. Committed numbers are never deleted, so a
-number is never reused, and there are no gaps to explain. (The alternative, reserving a number
+number is never reused, and there are no gaps to explain. The next number is one past both the
+index's highest and the highest numbered folder on disk, so even a lost index cannot make a
+registration overwrite an existing version. (The alternative, reserving a number
 before writing the files, would leave a gap for every crash and need a status for reserved but
 abandoned numbers.)
 
 Statuses (DESIGN.md)
 --------------------
-``candidate`` → ``accepted`` | ``rejected``; ``accepted`` → ``retired``. Accepting needs a
+``candidate`` → ``accepted`` | ``rejected``; ``accepted`` → ``retired`` (by hand, or when another
+version of the name is accepted). Accepting needs a
 passing scorecard computed on data whose fingerprint is recorded (and, when the scorecard names the
 model's fingerprint, computed on this very model); otherwise it is refused unless
 ``override=True`` with a non-empty reason, and the override is marked in the history. Every status
@@ -52,6 +69,7 @@ import getpass
 import hashlib
 import io
 import json
+import logging
 import os
 import re
 import shutil
@@ -62,7 +80,7 @@ import threading
 import time
 import uuid
 import zipfile
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from typing import Any, Iterator, Mapping
 
@@ -81,9 +99,18 @@ __all__ = [
     "validate_name",
 ]
 
+log = logging.getLogger(__name__)
+
 INDEX_FILE = "registry.sqlite3"
 STAGING_DIR = ".staging"
+# Where recovery moves what it cannot account for (never deleted): killed writers' leftovers,
+# unknown numbered folders, a corrupt index file.
+QUARANTINE_DIR = ".quarantine"
 RECORD_FORMAT = "ergodex-record/1"
+# Each version folder's own, mutable status record (status, events, committed flag); rewritten
+# atomically with every status change so that a lost index can be rebuilt from the folders.
+STATUS_FILE = "status.json"
+STATUS_FORMAT = "ergodex-status/1"
 EXPORT_FORMAT = "ergodex-export/1"
 STATUSES = ("candidate", "accepted", "rejected", "retired")
 # Allowed status changes (DESIGN.md, Registry): from -> set of targets.
@@ -94,7 +121,7 @@ TRANSITIONS = {
     "retired": set(),
 }
 # Events that change a status, or that registration writes; record_event may not use these names.
-RESERVED_EVENTS = {"registered", "imported", "accepted", "rejected", "retired"}
+RESERVED_EVENTS = {"registered", "imported", "accepted", "rejected", "retired", "recovered"}
 
 MAX_NAME_LENGTH = 64
 # A conservative name: letters, digits, '.', '_' and '-', starting with a letter or digit. No path
@@ -115,6 +142,7 @@ _RESERVED_NAMES = {
 # when this old. No registration takes a day.
 _STALE_STAGING_AGE = 24 * 3600.0
 BUSY_TIMEOUT_MS = 60_000
+_WAL_SWITCH_SECONDS = 30.0
 
 # Index connections inherited through fork, kept alive so that they are never closed in the child.
 _INHERITED_CONNECTIONS: list[sqlite3.Connection] = []
@@ -198,6 +226,12 @@ class VersionInfo:
         Fingerprint of the data the scorecard was computed on.
     model_fingerprint : str or None
         Fingerprint of the stored surrogate (``Surrogate.fingerprint()``).
+    integrity : str or None
+        ``"ok"`` when every file matched its recorded sha256 as this info was read, ``"failed"``
+        when one did not (the status and verdict must then not be trusted), None when not checked
+        (internal reads that verify the bytes they use).
+    integrity_problems : list of str
+        One line per changed or missing file: path, expected and actual sha256.
     """
 
     name: str
@@ -213,6 +247,8 @@ class VersionInfo:
     data_fingerprint: str | None = None
     model_fingerprint: str | None = None
     scorecard_model_fingerprint: str | None = None
+    integrity: str | None = None
+    integrity_problems: list[str] = field(default_factory=list)
 
     @property
     def ref(self) -> str:
@@ -258,13 +294,17 @@ class Event:
 
 @dataclass(frozen=True)
 class ModelSummary:
-    """One registered name: how many versions, the newest, the newest accepted, counts per status."""
+    """One registered name: how many versions, the newest, the one accepted, counts per status.
+
+    ``integrity_failed`` lists the versions whose files no longer match their recorded sha256.
+    """
 
     name: str
     versions: int
     latest: int
     accepted: int | None
     statuses: dict[str, int]
+    integrity_failed: list[int] = field(default_factory=list)
 
     def to_dict(self) -> dict[str, Any]:
         return asdict(self)
@@ -337,6 +377,15 @@ def sha256_hex(data: bytes) -> str:
     return hashlib.sha256(data).hexdigest()
 
 
+def _hash_file(path: Path) -> str:
+    """sha256 of a file, read in chunks (evidence files may be large)."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            digest.update(chunk)
+    return digest.hexdigest()
+
+
 def _fsync_dir(path: Path) -> None:
     # A rename is durable only once the folder holding the entry is synced (POSIX).
     if os.name != "posix":  # pragma: no cover - Windows cannot open folders
@@ -363,8 +412,29 @@ def _write_file(path: Path, data: bytes, *, read_only: bool = True) -> None:
         )
 
 
+class _CorruptIndex(Exception):
+    """The index file is not a readable SQLite database (recovery moves it aside)."""
+
+
+def _is_corruption(exc: sqlite3.DatabaseError) -> bool:
+    text = str(exc).lower()
+    if isinstance(exc, sqlite3.OperationalError) and ("locked" in text or "busy" in text):
+        return False
+    return "not a database" in text or "malformed" in text or "corrupt" in text
+
+
 def _bare_hash(fingerprint: str) -> str:
     return fingerprint.split(":", 1)[-1].strip().lower()
+
+
+def _refuse_foreign_scorecard(meta: Mapping[str, Any], what: str) -> None:
+    """Refuse a scorecard whose model fingerprint names another model than the one stored."""
+    named, actual = meta.get("scorecard_model_fingerprint"), meta.get("model_fingerprint")
+    if named and actual and _bare_hash(str(named)) != _bare_hash(str(actual)):
+        raise RegistryError(
+            f"{what} was made for another model (it names model fingerprint {named}; the model "
+            f"being registered has {actual}); validate this model and register its own scorecard"
+        )
 
 
 def _now() -> str:
@@ -420,6 +490,39 @@ def _check_npz(data: bytes, what: str) -> None:
         ) from exc
 
 
+@dataclass
+class _FolderState:
+    """What one numbered folder says about itself: its ``record.json`` and ``status.json``."""
+
+    name: str
+    version: int
+    folder: Path
+    record: dict | None
+    record_bytes: bytes | None
+    status: dict | None
+
+    @property
+    def events(self) -> list[dict]:
+        events = (self.status or {}).get("events")
+        return [e for e in events if isinstance(e, dict)] if isinstance(events, list) else []
+
+    @classmethod
+    def read(cls, name: str, version: int, folder: Path) -> _FolderState:
+        record = status = record_bytes = None
+        with contextlib.suppress(OSError, ValueError):
+            record_bytes = (folder / "record.json").read_bytes()
+            candidate = json.loads(record_bytes)
+            if isinstance(candidate, dict) and candidate.get("format") == RECORD_FORMAT \
+                    and candidate.get("name") == name:
+                record = candidate
+        with contextlib.suppress(OSError, ValueError):
+            candidate = json.loads((folder / STATUS_FILE).read_bytes())
+            if isinstance(candidate, dict) and candidate.get("format") == STATUS_FORMAT \
+                    and candidate.get("name") == name and candidate.get("version") == version:
+                status = candidate
+        return cls(name, version, folder, record, record_bytes, status)
+
+
 # --------------------------------------------------------------------------------------------
 # The registry
 
@@ -435,11 +538,11 @@ class Registry:
 
     Notes
     -----
-    Opening a registry sweeps leftovers of killed registrations: staging folders whose process is
-    gone, and version folders that were moved into place but never indexed. SQLite connections
-    are kept per process and thread, so a ``Registry`` may be shared by threads and survives a
-    fork. Versions are found only through the index: a folder the index does not name is never
-    returned.
+    Opening a registry recovers (:meth:`sweep`): leftovers of killed registrations are moved to
+    ``.quarantine/`` (nothing is ever deleted), and a missing, empty, corrupt or older index is
+    rebuilt from the version folders' own records, with a warning. SQLite connections are kept
+    per process and thread, so a ``Registry`` may be shared by threads and survives a fork.
+    Versions are read through the index, which recovery keeps in step with the folders.
     """
 
     def __init__(self, home: str | os.PathLike[str] | None = None) -> None:
@@ -448,8 +551,12 @@ class Registry:
         self.home = Path(home).expanduser().absolute()
         self.index_path = self.home / INDEX_FILE
         self._connections: dict[tuple[int, int], sqlite3.Connection] = {}
-        if self.index_path.exists():
-            self.sweep()
+        if self.home.is_dir():
+            try:
+                self.sweep()
+            except OSError as exc:  # e.g. a read-only copy of a registry: still readable
+                log.warning("registry %s could not be checked against its folders: %s",
+                            self.home, exc)
 
     def __repr__(self) -> str:
         return f"Registry({str(self.home)!r})"
@@ -468,15 +575,24 @@ class Registry:
         conn = self._connections.get(key)
         if conn is None:
             self._drop_inherited()
-            if not self.index_path.exists():
+            new_index = not self.index_path.exists()
+            if new_index:
                 if not create:
                     yield None
                     return
                 if self.home.exists() and not self.home.is_dir():
                     raise RegistryError(f"registry home {self.home} exists and is not a folder")
                 self.home.mkdir(parents=True, exist_ok=True)
-            conn = self._open()
+            try:
+                conn = self._open()
+            except _CorruptIndex as exc:
+                self._quarantine_index(str(exc))
+                new_index = True
+                conn = self._open()
             self._connections[key] = conn
+            if new_index:
+                # A new index beside existing version folders: index them from their records.
+                self._reconcile()
         try:
             yield conn
         except sqlite3.DatabaseError as exc:
@@ -498,8 +614,12 @@ class Registry:
             conn.execute("PRAGMA synchronous = FULL")
             conn.execute("PRAGMA foreign_keys = ON")
             self._migrate(conn)
+            if conn.execute("PRAGMA quick_check").fetchone()[0] != "ok":
+                raise sqlite3.DatabaseError("database disk image is malformed (quick_check)")
         except sqlite3.DatabaseError as exc:
             conn.close()
+            if _is_corruption(exc):
+                raise _CorruptIndex(str(exc)) from exc
             raise RegistryError(
                 f"registry index {self.index_path} cannot be used: {exc}; if another program "
                 "wrote this file it is not an ergodex registry"
@@ -508,6 +628,15 @@ class Registry:
             conn.close()
             raise
         return conn
+
+    def _quarantine_index(self, problem: str) -> None:
+        """Move a corrupt index (and its WAL files) aside; the folders rebuild a new one."""
+        for suffix in ("-wal", "-shm", "-journal", ""):
+            path = self.home / (INDEX_FILE + suffix)
+            if path.exists():
+                target = self._quarantine(path, INDEX_FILE + suffix)
+                log.warning("registry index file %s is corrupt (%s): moved to %s; a new index "
+                            "is built from the version folders", path, problem, target)
 
     def _drop_inherited(self) -> None:
         # Connections made by the parent of a fork must be neither used nor closed here: closing
@@ -533,17 +662,32 @@ class Registry:
     @staticmethod
     def _set_wal(conn: sqlite3.Connection) -> None:
         # Switching to WAL needs a moment of exclusive access; busy_timeout does not always cover
-        # it when many processes open a new index at once, so retry briefly.
-        for attempt in range(200):
-            try:
-                mode = conn.execute("PRAGMA journal_mode = WAL").fetchone()[0]
-                if mode.lower() == "wal":
-                    return
-            except sqlite3.OperationalError as exc:
-                if "locked" not in str(exc) and "busy" not in str(exc):
-                    raise
-            time.sleep(0.01 * (1 + attempt % 10))
-        raise RegistryError("could not switch the registry index to WAL mode (index busy)")
+        # it when many processes open a new index at once, so retry briefly, with a short wait
+        # per try and an overall deadline (an index emptied or replaced while another process
+        # holds it open stays locked: say so instead of waiting for ever).
+        deadline = time.monotonic() + _WAL_SWITCH_SECONDS
+        conn.execute("PRAGMA busy_timeout = 500")
+        try:
+            attempt = 0
+            while True:
+                try:
+                    mode = conn.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+                    if mode.lower() == "wal":
+                        return
+                except sqlite3.OperationalError as exc:
+                    if "locked" not in str(exc) and "busy" not in str(exc):
+                        raise
+                if time.monotonic() > deadline:
+                    break
+                time.sleep(0.01 * (1 + attempt % 10))
+                attempt += 1
+        finally:
+            conn.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
+        raise RegistryError(
+            "could not switch the registry index to WAL mode: the index is busy. If it was "
+            "emptied or replaced while another process (e.g. 'ergodex serve') had it open, stop "
+            "that process and try again"
+        )
 
     def _migrate(self, conn: sqlite3.Connection) -> None:
         current = self._schema_version(conn)
@@ -585,17 +729,19 @@ class Registry:
         else:
             conn.execute("COMMIT")
 
-    # ---------------------------------------------------------------- sweeping leftovers
+    # ---------------------------------------------------------------- recovery (never deletes)
 
     def sweep(self) -> list[Path]:
-        """Remove leftovers of killed registrations; return what was removed.
+        """Bring the index and the version folders into agreement; return what was quarantined.
 
-        Staging entries are removed when their process (named in the entry) is gone on this
-        machine, or once a day old (another machine's, or a pid reused by another program). Version folders that no index
-        row names were moved into place by a registration killed before its commit; they are
-        removed while holding the write lock, so a registration in progress is never touched.
+        Nothing is ever deleted. Staging entries of dead writers (their process, named in the
+        entry, is gone on this machine, or the entry is a day old) and version folders the
+        registry cannot account for are *moved* to ``<home>/.quarantine/``. A version folder whose
+        own record says it was committed but that the index lacks (or knows only an older state
+        of) is indexed again from that record, with a warning: the index was lost, emptied,
+        restored from an older copy or replaced after corruption.
         """
-        removed: list[Path] = []
+        moved: list[Path] = []
         staging = self.home / STAGING_DIR
         if staging.is_dir():
             host = socket.gethostname()
@@ -610,40 +756,227 @@ class Registry:
                     # No registration takes a day; this also covers a pid reused by another
                     # program and entries written by another machine sharing the folder.
                     stale = time.time() - entry.stat().st_mtime > _STALE_STAGING_AGE
-                except OSError:  # removed meanwhile
+                except OSError:  # moved meanwhile
                     continue
-                dead = stale or (entry_host == host and pid > 0 and not pid_alive(pid))
-                if dead:
-                    shutil.rmtree(entry, ignore_errors=True)
-                    removed.append(entry)
-        removed.extend(self._sweep_unindexed())
-        return removed
+                if stale or (entry_host == host and pid > 0 and not pid_alive(pid)):
+                    target = self._quarantine(entry, "staging")
+                    if target is not None:
+                        log.info("moved the leftover of a killed registration %s to %s",
+                                 entry, target)
+                        moved.append(target)
+        moved.extend(self._reconcile())
+        return moved
 
-    def _unindexed_folders(self, conn: sqlite3.Connection) -> list[Path]:
-        """Version folders moved into place but never indexed.
+    def recover(self) -> list[Path]:
+        """Public name of :meth:`sweep`: repair the index from the folders' own records."""
+        return self.sweep()
 
-        Only a folder that carries our ``record.json`` naming that model is taken for one, so
-        that a sweep never deletes anything the registry did not write (other tools may keep
-        folders under the home).
-        """
-        indexed = {(r["name"], r["version"]) for r in conn.execute("SELECT name, version FROM versions")}
-        orphans = []
-        for name_dir in self.home.iterdir():
+    def _quarantine(self, path: Path, label: str) -> Path | None:
+        """Move ``path`` to ``<home>/.quarantine/<UTC time>-<label>``; None if it vanished."""
+        root = self.home / QUARANTINE_DIR
+        root.mkdir(exist_ok=True)
+        stamp = _now().replace(":", "").replace("-", "")
+        target = root / f"{stamp}-{label}"
+        suffix = 1
+        while target.exists():
+            suffix += 1
+            target = root / f"{stamp}-{label}.{suffix}"
+        try:
+            os.rename(path, target)
+        except FileNotFoundError:
+            return None
+        _fsync_dir(root)
+        return target
+
+    def _scan_folders(self) -> list[_FolderState]:
+        """Every numbered folder under every folder that looks like a model name (no lock)."""
+        found: list[_FolderState] = []
+        if not self.home.is_dir():
+            return found
+        for name_dir in sorted(self.home.iterdir()):
             if name_dir.name.startswith(".") or not name_dir.is_dir():
                 continue
-            for version_dir in name_dir.iterdir():
-                if not version_dir.name.isdigit() or version_dir.name != str(int(version_dir.name)):
+            try:
+                validate_name(name_dir.name)
+            except RegistryError:
+                continue
+            for version_dir in sorted(name_dir.iterdir(), key=lambda p: (len(p.name), p.name)):
+                text = version_dir.name
+                if not text.isdigit() or text != str(int(text)) or not version_dir.is_dir():
                     continue
-                if (name_dir.name, int(version_dir.name)) in indexed:
-                    continue
-                try:
-                    record = json.loads((version_dir / "record.json").read_bytes())
-                except (OSError, ValueError):
-                    continue
-                if isinstance(record, dict) and record.get("format") == RECORD_FORMAT \
-                        and record.get("name") == name_dir.name:
-                    orphans.append(version_dir)
-        return orphans
+                found.append(_FolderState.read(name_dir.name, int(text), version_dir))
+        return found
+
+    def _index_state(self, conn: sqlite3.Connection) -> dict[tuple[str, int], tuple[str, int]]:
+        """(name, version) -> (status, number of events) for every indexed version."""
+        counts = {(r[0], int(r[1])): int(r[2]) for r in conn.execute(
+            "SELECT name, version, COUNT(*) FROM events GROUP BY name, version")}
+        rows = conn.execute("SELECT name, version, status FROM versions").fetchall()
+        return {(r["name"], int(r["version"])):
+                (r["status"], counts.get((r["name"], int(r["version"])), 0)) for r in rows}
+
+    def _plan(self, conn: sqlite3.Connection,
+              folders: list[_FolderState]) -> list[tuple[str, _FolderState]]:
+        """What each folder needs: 'reindex', 'mark' (write its status record) or 'quarantine'."""
+        indexed = self._index_state(conn)
+        names = {r[0] for r in conn.execute("SELECT name FROM models")}
+        ours = names | {f.name for f in folders if f.record is not None}
+        plan = []
+        for f in folders:
+            known = indexed.get((f.name, f.version))
+            if f.record is None:
+                # Not written by this registry (or its record is gone): never indexed from here.
+                if known is None and f.name in ours:
+                    plan.append(("quarantine", f))
+                continue
+            if f.status is None:  # written before folders carried a status record
+                plan.append(("mark", f) if known else ("reindex", f))
+            elif known is None:
+                plan.append(("reindex", f) if f.status.get("committed") else ("quarantine", f))
+            elif len(f.events) > known[1]:
+                plan.append(("reindex", f))  # the index is older than the folder
+            elif not f.status.get("committed") or len(f.events) < known[1] \
+                    or f.status.get("status") != known[0]:
+                plan.append(("mark", f))  # the folder lags: a writer died after its commit
+        return plan
+
+    def _reconcile(self) -> list[Path]:
+        folders = self._scan_folders()
+        if not folders:
+            return []
+        with self._connect(create=True) as conn:
+            if not self._plan(conn, folders):
+                return []
+            moved: list[Path] = []
+            reindexed: list[str] = []
+            # Seen without the lock, a folder may belong to a registration about to commit:
+            # look again while holding the write lock.
+            with self._write(conn):
+                for action, f in self._plan(conn, self._scan_folders()):
+                    if action == "mark":
+                        self._write_status(conn, f.name, f.version, committed=True)
+                    elif action == "reindex":
+                        try:
+                            self._reindex(conn, f)
+                        except RegistryError as exc:
+                            log.warning("%s cannot be indexed (%s); quarantining it", f.folder, exc)
+                            action = "quarantine"
+                        else:
+                            reindexed.append(f"{f.name}@{f.version}")
+                    if action == "quarantine":
+                        target = self._quarantine(f.folder, f"{f.name}-{f.version}")
+                        if target is not None:
+                            why = ("an unfinished registration (killed before its commit)"
+                                   if f.record is not None else "not written by this registry")
+                            log.warning("moved %s (%s) to %s; nothing was deleted",
+                                        f.folder, why, target)
+                            moved.append(target)
+            if reindexed:
+                log.warning(
+                    "registry index %s was missing, empty, older than the version folders or "
+                    "corrupt: rebuilt %s from the folders' own records (hashes are checked on "
+                    "every read; run 'ergodex models verify')",
+                    self.index_path, ", ".join(reindexed))
+            return moved
+
+    def _reindex(self, conn: sqlite3.Connection, f: _FolderState) -> None:
+        """Replace the index rows of one version with what its folder's records say."""
+        record = f.record or {}
+        status = f.status or {}
+        current = status.get("status", "candidate")
+        if current not in STATUSES:
+            raise RegistryError(f"its status record names an unknown status {current!r}")
+        files = record.get("files")
+        if not isinstance(files, dict):
+            raise RegistryError("its record.json lists no files")
+        hashes = {str(k): str(v) for k, v in files.items()}
+        record_hash = status.get("record_sha256") or sha256_hex(f.record_bytes or b"")
+        hashes["record.json"] = str(record_hash)
+        card = record.get("scorecard") if isinstance(record.get("scorecard"), dict) else {}
+        created = str(record.get("created") or _now())
+        self._claim_name(conn, f.name, created)
+        key = (f.name, f.version)
+        conn.execute("DELETE FROM events WHERE name = ? AND version = ?", key)
+        conn.execute("DELETE FROM artifacts WHERE name = ? AND version = ?", key)
+        conn.execute("DELETE FROM versions WHERE name = ? AND version = ?", key)
+        conn.execute(
+            """INSERT INTO versions (name, version, status, created, note, parent, datasets,
+                   verdict, data_fingerprint, model_fingerprint, scorecard_model_fingerprint)
+               VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)""",
+            (f.name, f.version, current, created, str(record.get("note") or ""),
+             record.get("parent"), json.dumps(record.get("datasets") or []),
+             card.get("verdict"), card.get("data_fingerprint"),
+             record.get("model_fingerprint"), card.get("model_fingerprint")),
+        )
+        sizes = {}
+        for fn in hashes:
+            try:
+                sizes[fn] = (f.folder / fn).stat().st_size
+            except OSError:
+                sizes[fn] = 0
+        conn.executemany(
+            "INSERT INTO artifacts (name, version, filename, sha256, size) VALUES (?, ?, ?, ?, ?)",
+            [(f.name, f.version, fn, hashes[fn], sizes[fn]) for fn in sorted(hashes)],
+        )
+        events = f.events or [{"time": created, "event": "registered", "from_status": None,
+                               "to_status": "candidate", "actor": "unknown", "reason": "",
+                               "override": False}]
+        for e in events:
+            conn.execute(
+                """INSERT INTO events (time, name, version, event, from_status, to_status, actor,
+                       reason, override) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)""",
+                (str(e.get("time", "")), f.name, f.version, str(e.get("event", "")),
+                 e.get("from_status"), e.get("to_status"), str(e.get("actor", "unknown")),
+                 str(e.get("reason", "")), int(bool(e.get("override")))),
+            )
+        self._insert_event(conn, f.name, f.version, "recovered", current, current,
+                           "indexed again from the version folder's own records", False)
+        self._write_status(conn, f.name, f.version, committed=True)
+
+    def _status_bytes(self, conn: sqlite3.Connection, name: str, version: int, *,
+                      committed: bool) -> bytes:
+        row = self._row(conn, name, version)
+        record_hash = conn.execute(
+            "SELECT sha256 FROM artifacts WHERE name = ? AND version = ? AND filename = ?",
+            (name, version, "record.json")).fetchone()
+        events = [
+            {"time": r["time"], "event": r["event"], "from_status": r["from_status"],
+             "to_status": r["to_status"], "actor": r["actor"], "reason": r["reason"],
+             "override": bool(r["override"])}
+            for r in conn.execute("SELECT * FROM events WHERE name = ? AND version = ? "
+                                  "ORDER BY time, id", (name, version))
+        ]
+        payload = {
+            "format": STATUS_FORMAT,
+            "name": name,
+            "version": version,
+            "status": row["status"],
+            "committed": committed,
+            "record_sha256": record_hash[0] if record_hash else None,
+            "events": events,
+        }
+        return (json.dumps(payload, indent=2, sort_keys=True) + "\n").encode()
+
+    def _write_status(self, conn: sqlite3.Connection, name: str, version: int, *,
+                      committed: bool, folder: Path | None = None) -> None:
+        """Atomically replace the folder's ``status.json`` with the index's view of the version.
+
+        Called while holding the write lock, so the folder and the index change together.
+        """
+        folder = folder or self.home / name / str(version)
+        data = self._status_bytes(conn, name, version, committed=committed)
+        temp = self._staging_entry()
+        with open(temp, "xb") as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+        try:
+            os.replace(temp, folder / STATUS_FILE)
+        except BaseException:
+            with contextlib.suppress(OSError):
+                os.unlink(temp)
+            raise
+        _fsync_dir(folder)
 
     def _staging_entry(self) -> Path:
         """A new, unique path under ``.staging`` that names its owner (pid, host) for the sweep."""
@@ -652,11 +985,11 @@ class Registry:
         return staging_root / f"{os.getpid()}.{uuid.uuid4().hex}.{socket.gethostname()}"
 
     def _discard(self, folder: Path) -> None:
-        """Remove a folder atomically as far as readers and sweeps can tell.
+        """Remove this process's own failed registration (its caller receives the error).
 
         It is first renamed into ``.staging`` (one atomic step), then deleted: a process killed
-        while deleting leaves a staging entry that the next sweep removes, never a half-deleted
-        folder in a version's place.
+        while deleting leaves a staging entry that the next sweep quarantines, never a
+        half-deleted folder in a version's place.
         """
         trash = self._staging_entry()
         try:
@@ -665,17 +998,13 @@ class Registry:
             return
         shutil.rmtree(trash, ignore_errors=True)
 
-    def _sweep_unindexed(self) -> list[Path]:
-        with self._connect() as conn:
-            if conn is None or not self._unindexed_folders(conn):
-                return []
-            # Seen without the lock, a folder may belong to a registration about to commit:
-            # look again while holding the write lock.
-            with self._write(conn):
-                orphans = self._unindexed_folders(conn)
-                for folder in orphans:
-                    self._discard(folder)
-            return orphans
+    @staticmethod
+    def _max_folder_version(name_dir: Path) -> int:
+        """The highest numbered folder under ``name_dir`` (0 if none): numbers are never reused."""
+        if not name_dir.is_dir():
+            return 0
+        numbers = [int(p.name) for p in name_dir.iterdir() if p.name.isdigit()]
+        return max(numbers, default=0)
 
     # ---------------------------------------------------------------- registering
 
@@ -786,6 +1115,7 @@ class Registry:
         meta["verdict"] = card.get("verdict")
         meta["data_fingerprint"] = card.get("data_fingerprint") or None
         meta["scorecard_model_fingerprint"] = card.get("model_fingerprint") or None
+        _refuse_foreign_scorecard(meta, what)
 
         if report_html is not None:
             if isinstance(report_html, str) and "<" in report_html:
@@ -941,20 +1271,13 @@ class Registry:
                     row = conn.execute(
                         "SELECT COALESCE(MAX(version), 0) FROM versions WHERE name = ?", (name,)
                     ).fetchone()
-                    version = int(row[0]) + 1
                     name_dir = self.home / name
+                    # Folders count too: a number is never handed out twice, even when the
+                    # index lost track of a version.
+                    version = max(int(row[0]), self._max_folder_version(name_dir)) + 1
                     new_name_dir = not name_dir.exists()
                     name_dir.mkdir(exist_ok=True)
                     final = name_dir / str(version)
-                    if final.exists():
-                        # Moved into place by a registration killed before its commit (we hold
-                        # the write lock, so no live registration owns it): never indexed, never
-                        # seen; replace it.
-                        self._discard(final)
-                    os.rename(stage, final)
-                    _fsync_dir(name_dir)
-                    if new_name_dir:
-                        _fsync_dir(self.home)
                     conn.execute(
                         """INSERT INTO versions (name, version, status, created, note, parent,
                                datasets, verdict, data_fingerprint, model_fingerprint,
@@ -970,6 +1293,13 @@ class Registry:
                         [(name, version, fn, hashes[fn], len(files[fn])) for fn in sorted(files)],
                     )
                     self._insert_event(conn, name, version, event, None, "candidate", reason, False)
+                    # The folder's own status record; "committed" is set once the index commit
+                    # is done, so that recovery can tell a killed registration from a lost index.
+                    self._write_status(conn, name, version, committed=False, folder=stage)
+                    os.rename(stage, final)
+                    _fsync_dir(name_dir)
+                    if new_name_dir:
+                        _fsync_dir(self.home)
             except BaseException:
                 if final is not None and final.exists() and not stage.exists():
                     # The transaction rolled back after the move: nothing indexed, remove it.
@@ -978,7 +1308,16 @@ class Registry:
             finally:
                 if stage.exists():
                     shutil.rmtree(stage, ignore_errors=True)
-            return self._info(conn, name, version)
+            try:
+                with self._write(conn):
+                    self._write_status(conn, name, version, committed=True)
+            except (OSError, sqlite3.Error, RegistryError) as exc:
+                # The version exists (committed); the next sweep marks its folder.
+                log.warning("%s@%s is registered, but its status record could not be marked "
+                            "committed (%s); the next open of the registry does it", name,
+                            version, exc)
+            # Every file was read back and compared while writing.
+            return replace(self._info(conn, name, version), integrity="ok")
 
     @staticmethod
     def _claim_name(conn: sqlite3.Connection, name: str, created: str) -> None:
@@ -1077,18 +1416,61 @@ class Registry:
         return row
 
     def get(self, ref: str | VersionInfo) -> VersionInfo:
-        """Metadata of ``"name@v"``, or of the newest accepted version for ``"name"``."""
+        """Metadata of ``"name@v"``, or of the accepted version for ``"name"``.
+
+        Every file is hashed on the way: ``integrity`` is ``"ok"`` or ``"failed"`` (with
+        ``integrity_problems``), so a status or verdict is never shown for changed bytes unmarked.
+        """
+        return self._checked(self._get(ref))
+
+    def _get(self, ref: str | VersionInfo) -> VersionInfo:
+        """Metadata without hashing the files (for callers that verify what they read)."""
         with self._connect() as conn:
             return self._info_from_row(conn, self._resolve(conn, ref))
 
     def versions(self, name: str) -> list[VersionInfo]:
-        """Every version of ``name``, oldest first."""
+        """Every version of ``name``, oldest first, each with its files' integrity checked."""
         with self._connect() as conn:
             self._resolve_name(conn, name)
             rows = conn.execute(
                 "SELECT * FROM versions WHERE name = ? ORDER BY version", (name,)
             ).fetchall()
-            return [self._info_from_row(conn, r) for r in rows]
+            infos = [self._info_from_row(conn, r) for r in rows]
+        return [self._checked(i) for i in infos]
+
+    def _checked(self, info: VersionInfo) -> VersionInfo:
+        problems = self._integrity_problems(info)
+        return replace(info, integrity="failed" if problems else "ok",
+                       integrity_problems=problems)
+
+    @staticmethod
+    def _integrity_problems(info: VersionInfo) -> list[str]:
+        """One line per file of ``info`` that is missing or whose sha256 changed."""
+        problems = []
+        for filename, expected in sorted(info.artifacts.items()):
+            path = info.folder / filename
+            try:
+                actual = _hash_file(path)
+            except FileNotFoundError:
+                problems.append(f"{path}: missing (expected sha256 {expected})")
+                continue
+            except OSError as exc:
+                problems.append(f"{path}: cannot be read ({exc}; expected sha256 {expected})")
+                continue
+            if actual != expected:
+                problems.append(f"{path}: expected sha256 {expected}, actual {actual}")
+        return problems
+
+    def check_integrity(self, ref: str | None = None) -> list[VersionInfo]:
+        """Hash every file of every version (of ``"name"``, or one ``"name@v"``); return them.
+
+        Each returned info has ``integrity`` ``"ok"`` or ``"failed"``; nothing raises for a
+        changed file, so that one damaged version does not hide the state of the others.
+        """
+        if ref is None:
+            return [i for m in self.list_models() for i in self.versions(m.name)]
+        name, version = parse_ref(ref)
+        return self.versions(name) if version is None else [self.get(ref)]
 
     def _resolve_name(self, conn, name: str) -> None:
         validate_name(name)
@@ -1103,6 +1485,11 @@ class Registry:
             if conn is None:
                 return []
             out = []
+            # Hash every file: the summary shows statuses, which changed bytes must not hide.
+            failed: dict[str, list[int]] = {}
+            for row in conn.execute("SELECT * FROM versions ORDER BY name, version").fetchall():
+                if self._integrity_problems(self._info_from_row(conn, row)):
+                    failed.setdefault(row["name"], []).append(int(row["version"]))
             for (name,) in conn.execute("SELECT name FROM models ORDER BY name").fetchall():
                 counts = dict(conn.execute(
                     "SELECT status, COUNT(*) FROM versions WHERE name = ? GROUP BY status", (name,)
@@ -1116,6 +1503,7 @@ class Registry:
                     name=name, versions=int(sum(counts.values())), latest=int(latest or 0),
                     accepted=None if accepted is None else int(accepted),
                     statuses={s: int(counts.get(s, 0)) for s in STATUSES},
+                    integrity_failed=failed.get(name, []),
                 ))
             return out
 
@@ -1126,11 +1514,11 @@ class Registry:
             if version is None:
                 self._resolve_name(conn, base)
                 rows = conn.execute(
-                    "SELECT * FROM events WHERE name = ? ORDER BY id", (base,)).fetchall()
+                    "SELECT * FROM events WHERE name = ? ORDER BY time, id", (base,)).fetchall()
             else:
                 self._resolve(conn, name)
                 rows = conn.execute(
-                    "SELECT * FROM events WHERE name = ? AND version = ? ORDER BY id",
+                    "SELECT * FROM events WHERE name = ? AND version = ? ORDER BY time, id",
                     (base, version)).fetchall()
             return [
                 Event(id=r["id"], time=r["time"], name=r["name"], version=r["version"],
@@ -1150,10 +1538,10 @@ class Registry:
             A file is missing or its hash differs; the message names the file, both hashes and
             the likely cause.
         """
-        info = self.get(ref)
+        info = self._get(ref)
         for filename in info.artifacts:
             self._verified_bytes(info, filename)
-        return info
+        return replace(info, integrity="ok")
 
     def _verified_bytes(self, info: VersionInfo, filename: str) -> bytes:
         if filename not in info.artifacts:
@@ -1180,7 +1568,7 @@ class Registry:
 
     def artifact(self, ref: str | VersionInfo, filename: str) -> bytes:
         """The bytes of one file of a version, checked against its recorded sha256."""
-        return self._verified_bytes(self.get(ref), filename)
+        return self._verified_bytes(self._get(ref), filename)
 
     def artifact_path(self, ref: str | VersionInfo, filename: str) -> Path:
         """The path of one file of a version, after checking its sha256.
@@ -1188,12 +1576,12 @@ class Registry:
         The file may be changed after this returns; read it with :meth:`artifact` when the bytes
         themselves matter.
         """
-        info = self.get(ref)
+        info = self._get(ref)
         self._verified_bytes(info, filename)
         return info.folder / filename
 
     def load(self, ref: str | VersionInfo):
-        """The surrogate of ``"name@v"``, or of the newest accepted version for ``"name"``.
+        """The surrogate of ``"name@v"``, or of the accepted version for ``"name"`` (at most one).
 
         Every artifact of the version is checked against its sha256 first, so the surrogate
         returned is exactly the one registered, with its evidence intact.
@@ -1206,7 +1594,7 @@ class Registry:
 
     def scorecard(self, ref: str | VersionInfo) -> dict | None:
         """The stored scorecard as a dict (verified), or None if the version has none."""
-        info = self.get(ref)
+        info = self._get(ref)
         if "scorecard.json" not in info.artifacts:
             return None
         return json.loads(self._verified_bytes(info, "scorecard.json").decode("utf-8"))
@@ -1215,6 +1603,9 @@ class Registry:
 
     def accept(self, ref: str | VersionInfo, *, reason: str = "", override: bool = False) -> VersionInfo:
         """Promote a candidate to ``accepted``: downstream ``load(name)`` then returns it.
+
+        A name has at most one accepted version: the one accepted before is retired in the same
+        transaction, with its own ``retired`` event (reason ``"replaced by version N"``).
 
         Refused (RegistryError) unless the version has a passing scorecard computed on data whose
         fingerprint is recorded, and computed on this model (when the scorecard names the model's
@@ -1289,7 +1680,24 @@ class Registry:
                 )
                 self._insert_event(conn, row["name"], row["version"], target, current, target,
                                    reason, override)
-            return self._info(conn, row["name"], int(row["version"]))
+                touched = [int(row["version"])]
+                if target == "accepted":
+                    touched += self._retire_others(conn, row["name"], int(row["version"]))
+                for number in touched:
+                    self._write_status(conn, row["name"], number, committed=True)
+            return self._checked(self._info(conn, row["name"], int(row["version"])))
+
+    def _retire_others(self, conn: sqlite3.Connection, name: str, version: int) -> list[int]:
+        """Retire every other accepted version of ``name`` (inside the caller's transaction)."""
+        others = [int(r[0]) for r in conn.execute(
+            "SELECT version FROM versions WHERE name = ? AND status = 'accepted' AND version != ?",
+            (name, version))]
+        for number in others:
+            conn.execute("UPDATE versions SET status = 'retired' WHERE name = ? AND version = ?",
+                         (name, number))
+            self._insert_event(conn, name, number, "retired", "accepted", "retired",
+                               f"replaced by version {version}", False)
+        return others
 
     def record_event(self, ref: str | VersionInfo, event: str, reason: str = "") -> Event:
         """Record an event that does not change the status (e.g. ``"drift-detected"``)."""
@@ -1310,6 +1718,7 @@ class Registry:
                 self._insert_event(conn, row["name"], row["version"], event, row["status"],
                                    row["status"], reason, False)
                 event_id = conn.execute("SELECT last_insert_rowid()").fetchone()[0]
+                self._write_status(conn, row["name"], int(row["version"]), committed=True)
             r = conn.execute("SELECT * FROM events WHERE id = ?", (event_id,)).fetchone()
             return Event(id=r["id"], time=r["time"], name=r["name"], version=r["version"],
                          event=r["event"], from_status=r["from_status"], to_status=r["to_status"],
@@ -1469,6 +1878,7 @@ class Registry:
         }
         if meta["verdict"] not in (None, "pass", "fail"):
             raise ModelFileError(f"{folder / 'scorecard.json'}: unknown verdict {meta['verdict']!r}")
+        _refuse_foreign_scorecard(meta, str(folder / "scorecard.json"))
         datasets = manifest.get("datasets") if isinstance(manifest.get("datasets"), list) else None
         meta["datasets"] = self._normalise_datasets(datasets, model_dict, meta["data_fingerprint"])
         extra = {"imported_from": {"ref": origin, "status": manifest.get("status"),

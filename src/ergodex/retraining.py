@@ -38,8 +38,9 @@ and the registered model name and makes one documented decision:
    *rejected* with its reasons. Every re-check leaves an event in the champion's history,
    ``drift-check-passed`` or ``drift-detected`` (with the score, the rows that failed and the
    data fingerprint); a passing challenger that is not promoted gets ``not-promoted`` with the
-   reason. A drifted champion is not retired automatically (when replaced, the newer accepted
-   version is the one that loads). Nothing is ever deleted.
+   reason. A name has one accepted version: promoting the challenger retires the champion in
+   the same registry transaction (event ``retired``, reason ``replaced by version N``); a
+   drifted champion that is not replaced stays accepted. Nothing is ever deleted.
 
 **The shared score** (:func:`shared_score`) is the scorecard's *largest row ratio*: the largest,
 over every statistic × variable (or regime) row, of model distance ÷ reference noise floor. Lower is

@@ -10,24 +10,35 @@ Subcommands::
     ergodex models retire NAME@VERSION --reason R
     ergodex models export NAME[@VERSION] --to DIR
     ergodex models import DIR [--name NAME]
+    ergodex models verify [NAME[@VERSION]] [--json]
 
 ``--json`` output (stable keys; new keys may be added, none removed or renamed):
 
 * ``list``: ``{"home": str, "models": [{"name": str, "versions": int, "latest": int,
   "accepted": int | null, "statuses": {"candidate": int, "accepted": int, "rejected": int,
-  "retired": int}}]}``
-* ``show NAME@V`` (or ``show NAME``: its newest accepted version): ``{"ref": "name@v",
+  "retired": int}, "integrity_failed": [int]}]}`` (versions whose files no longer match their
+  recorded sha256)
+* ``show NAME@V`` (or ``show NAME``: its accepted version): ``{"ref": "name@v",
   "name": str, "version": int, "status": str, "created": str (UTC ISO 8601), "note": str,
   "parent": "name@v" | null, "datasets": [{"role", "fingerprint", "source"}], "verdict": "pass" |
   "fail" | null, "data_fingerprint": str | null, "model_fingerprint": str | null,
-  "scorecard_model_fingerprint": str | null, "artifacts": {filename: sha256}, "folder": str}``.
+  "scorecard_model_fingerprint": str | null, "artifacts": {filename: sha256}, "folder": str,
+  "integrity": "ok" | "failed", "integrity_problems": [str]}``.
   ``show NAME --all`` lists every version: ``{"name": str, "versions": [<as above>]}``.
 * ``history``: ``{"name": str, "events": [{"id": int, "time": str, "name": str, "version": int,
   "event": str, "from_status": str | null, "to_status": str | null, "actor": str,
-  "reason": str, "override": bool}]}``
+  "reason": str, "override": bool}], "integrity_failed": [int]}``
+* ``verify``: ``{"home": str, "ok": bool, "versions": [{"ref": "name@v", "status": str,
+  "integrity": "ok" | "failed", "problems": [str]}]}``
 
-Exit codes: 0 done; 2 bad input (unknown name or version, forbidden status change, bad name,
-changed file) with one line on stderr and nothing changed.
+Every status or verdict shown is read with every file of the version hashed: a version whose
+files changed is marked INTEGRITY FAILED (``"integrity": "failed"`` in JSON), its status and
+verdict are not to be trusted. ``models verify`` names each changed or missing file with its
+expected and actual sha256.
+
+Exit codes: 0 done (``verify``: every file matches); 1 ``verify`` found a changed or missing file;
+2 bad input (unknown name or version, forbidden status change, bad name, changed file when
+accepting or exporting) with one line on stderr and nothing changed.
 """
 
 from __future__ import annotations
@@ -45,11 +56,14 @@ from ergodex.registry import parse_ref
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
     parser = subparsers.add_parser(
         "models",
-        help="list, show, accept, reject, retire, export or import registered models",
+        help="list, show, accept, reject, retire, verify, export or import registered models",
         description=(
             "Work with the registry (--home DIR, else $ERGODEX_HOME, else ./models). Versions "
             "are immutable; statuses go candidate -> accepted | rejected, accepted -> retired, "
-            "and every change is recorded with time, user and reason."
+            "and every change is recorded with time, user and reason. A name has at most one "
+            "accepted version: accepting one retires the previous. Files are hashed whenever a "
+            "status is shown; a missing, empty, corrupt or older index is rebuilt from the "
+            "version folders' own records (with a warning), and nothing is ever deleted."
         ),
     )
     actions = parser.add_subparsers(dest="models_command", metavar="ACTION",
@@ -60,7 +74,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     _common(p, json_output=True)
     p.set_defaults(func=run_list)
 
-    p = actions.add_parser("show", help="one version (NAME@V) or the newest accepted (NAME)")
+    p = actions.add_parser("show", help="one version (NAME@V) or the accepted one (NAME)")
     p.add_argument("ref", metavar="NAME[@VERSION]")
     p.add_argument("--all", action="store_true", help="every version of NAME")
     _common(p, json_output=True)
@@ -73,7 +87,8 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
 
     p = actions.add_parser(
         "accept",
-        help="promote a candidate; needs a passing scorecard unless --override with --reason",
+        help="promote a candidate (the previously accepted version is retired); needs a "
+             "passing scorecard unless --override with --reason",
     )
     p.add_argument("ref", metavar="NAME@VERSION")
     p.add_argument("--reason", default="", help="why (required with --override)")
@@ -92,6 +107,14 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
         p.add_argument("--reason", required=True, help="why (recorded in the history)")
         _common(p)
         p.set_defaults(func=run_reject if action == "reject" else run_retire)
+
+    p = actions.add_parser(
+        "verify",
+        help="hash every file of every version (or of NAME, or NAME@V); exit 1 if one changed",
+    )
+    p.add_argument("ref", metavar="NAME[@VERSION]", nargs="?", default=None)
+    _common(p, json_output=True)
+    p.set_defaults(func=run_verify)
 
     p = actions.add_parser("export", help="write a self-contained folder for someone without ergodex")
     p.add_argument("ref", metavar="NAME[@VERSION]")
@@ -137,8 +160,22 @@ def run_list(args: argparse.Namespace) -> int:
     for m in models:
         counts = ", ".join(f"{n} {s}" for s, n in m.statuses.items() if n)
         accepted = "-" if m.accepted is None else str(m.accepted)
+        if m.integrity_failed:
+            counts += "  INTEGRITY FAILED: " + ", ".join(f"@{v}" for v in m.integrity_failed)
         print(f"{m.name:<32} {m.versions:>8} {m.latest:>6} {accepted:>8}  {counts}")
+    if any(m.integrity_failed for m in models):
+        print("files changed after registration: run 'ergodex models verify' for details")
     return 0
+
+
+def _status_text(info) -> str:
+    """The status, marked when the version's files no longer match their hashes."""
+    return info.status if info.integrity != "failed" else f"{info.status}, INTEGRITY FAILED"
+
+
+def _verdict_text(info) -> str:
+    verdict = info.verdict or "none"
+    return verdict if info.integrity != "failed" else f"{verdict} (unverified: files changed)"
 
 
 def run_show(args: argparse.Namespace) -> int:
@@ -151,15 +188,19 @@ def run_show(args: argparse.Namespace) -> int:
         else:
             for info in infos:
                 verdict = info.verdict or "-"
-                print(f"{info.ref:<24} {info.status:<10} {verdict:<5} {info.created}  {info.note}")
+                flag = "  INTEGRITY FAILED" if info.integrity == "failed" else ""
+                print(f"{info.ref:<24} {info.status:<10} {verdict:<5} {info.created}  "
+                      f"{info.note}{flag}")
         return 0
     info = registry.get(args.ref)
     if args.json:
         _print_json(info.to_dict())
         return 0
-    print(f"{info.ref}  [{info.status}]")
+    print(f"{info.ref}  [{_status_text(info)}]")
+    for problem in info.integrity_problems:
+        print(f"  changed:     {problem}")
     print(f"  created:     {info.created}")
-    print(f"  scorecard:   {info.verdict or 'none'}")
+    print(f"  scorecard:   {_verdict_text(info)}")
     if info.note:
         print(f"  note:        {info.note}")
     if info.parent:
@@ -176,13 +217,39 @@ def run_show(args: argparse.Namespace) -> int:
     return 0
 
 
+def run_verify(args: argparse.Namespace) -> int:
+    registry = registry_from_args(args)
+    infos = registry.check_integrity(args.ref)
+    ok = all(i.integrity == "ok" for i in infos)
+    if args.json:
+        _print_json({"home": str(registry.home), "ok": ok, "versions": [
+            {"ref": i.ref, "status": i.status, "integrity": i.integrity,
+             "problems": i.integrity_problems} for i in infos]})
+        return 0 if ok else 1
+    for info in infos:
+        if info.integrity == "ok":
+            print(f"ok      {info.ref} ({info.status}, {len(info.artifacts)} files)")
+        else:
+            print(f"FAILED  {info.ref} ({info.status})")
+            for problem in info.integrity_problems:
+                print(f"        {problem}")
+    failed = sum(i.integrity != "ok" for i in infos)
+    print(f"{len(infos)} versions checked in {registry.home}; {failed} with changed files")
+    return 0 if ok else 1
+
+
 def run_history(args: argparse.Namespace) -> int:
     registry = registry_from_args(args)
     events = registry.history(args.ref)
     name, _ = parse_ref(args.ref)
+    failed = [i for i in registry.check_integrity(args.ref) if i.integrity != "ok"]
     if args.json:
-        _print_json({"name": name, "events": [e.to_dict() for e in events]})
+        _print_json({"name": name, "events": [e.to_dict() for e in events],
+                     "integrity_failed": [i.version for i in failed]})
         return 0
+    for info in failed:
+        print(f"warning: {info.ref} INTEGRITY FAILED (its files changed after registration; "
+              "its status and verdict are not to be trusted): run 'ergodex models verify'")
     for e in events:
         change = f"{e.from_status or '-'} -> {e.to_status}" if e.from_status != e.to_status else e.to_status
         flag = "  OVERRIDE" if e.override else ""

@@ -21,7 +21,8 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
             "Copy MODEL (a model.json) and, if given, its scorecard, report and fit settings into "
             "the registry as the next version of NAME, with status 'candidate'. Nothing is "
             "accepted here: use 'ergodex models accept NAME@VERSION'. Exit code 2 and nothing "
-            "written when an input is bad."
+            "written when an input is bad, including a scorecard made for another model (its "
+            "model fingerprint differs from MODEL's). Version numbers are never reused."
         ),
     )
     parser.add_argument("model", metavar="MODEL", help="the surrogate file (model.json)")
@@ -30,7 +31,10 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
         required=True,
         help="model name: letters, digits, '.', '_', '-' (at most 64 characters)",
     )
-    parser.add_argument("--scorecard", metavar="FILE", help="scorecard.json from 'ergodex validate'")
+    parser.add_argument(
+        "--scorecard", metavar="FILE",
+        help="scorecard.json from 'ergodex validate' of this very MODEL (refused otherwise)",
+    )
     parser.add_argument("--report", metavar="FILE", help="HTML report from 'ergodex validate'")
     parser.add_argument("--evidence", metavar="FILE",
                         help="evidence .npz saved with the check (default: the one 'ergodex "

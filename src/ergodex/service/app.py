@@ -40,6 +40,7 @@ require("python_multipart", "service", "dataset uploads to the HTTP service")
 
 import json  # noqa: E402
 import logging  # noqa: E402
+import os  # noqa: E402
 import threading  # noqa: E402
 from contextlib import asynccontextmanager  # noqa: E402
 from typing import Annotated, Any, Literal  # noqa: E402
@@ -225,6 +226,9 @@ def _job_out(job: JobRecord, clean=one_line) -> schemas.JobInfo:
 def _version_out(info) -> schemas.VersionOut:
     data = info.to_dict()
     data.pop("folder", None)  # a server path tells a client nothing it can use
+    prefix = f"{info.folder}{os.sep}"
+    data["integrity_problems"] = [p.replace(prefix, f"{info.ref}/")
+                                  for p in data.get("integrity_problems", [])]
     fields = schemas.VersionOut.model_fields
     return schemas.VersionOut(**{k: v for k, v in data.items() if k in fields})
 

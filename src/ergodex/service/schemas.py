@@ -149,6 +149,9 @@ class ModelSummaryOut(BaseModel):
     latest: int
     accepted: int | None
     statuses: dict[str, int]
+    integrity_failed: list[int] = Field(
+        default_factory=list, description="versions whose files no longer match their sha256"
+    )
 
 
 class ModelList(BaseModel):
@@ -168,6 +171,10 @@ class VersionOut(BaseModel):
     verdict: str | None = None
     data_fingerprint: str | None = None
     model_fingerprint: str | None = None
+    integrity: Literal["ok", "failed"] | None = Field(
+        None, description="'failed' when a file no longer matches its sha256: distrust the status"
+    )
+    integrity_problems: list[str] = Field(default_factory=list)
 
 
 class VersionList(BaseModel):
