@@ -34,7 +34,8 @@ ROOT = Path(__file__).resolve().parents[1]
 #: module → (source file, test files that exercise it). Only fast tests run (``-m "not slow"``).
 MODULES: dict[str, tuple[str, list[str]]] = {
     "validation": ("src/ergodex/validation.py",
-                   ["tests/test_verdict.py", "tests/test_defaults.py", "tests/test_validation.py",
+                   ["tests/test_verdict.py", "tests/test_scorecard_io.py", "tests/test_defaults.py",
+                    "tests/test_validation.py",
                     "tests/test_validation_hidden.py"]),
     "stats": ("src/ergodex/stats.py",
               ["tests/test_stats.py", "tests/test_stats_edges.py", "tests/test_verdict.py",

@@ -444,3 +444,32 @@ def test_largest_ratio_ignores_nan_and_a_null_failing_ratio_reads_back_as_infini
     back = ScoreRow.from_dict(_row(math.inf, "fail").to_dict())
     assert back.ratio == math.inf and back.verdict == "fail"
     assert math.isnan(ScoreRow.from_dict(_row(NAN, "pass").to_dict()).ratio)
+
+
+def test_collapse_is_judged_per_variable_against_that_variable_spread():
+    # _member_agreement docstring/constant: a member has settled when *every* variable varies
+    # less than 1e-6 of the reference's standard deviation of that variable.
+    rng = np.random.default_rng(26)
+    ref_pieces = rng.normal(size=(2, 8, 2)) * np.array([1000.0, 1.0])  # very different scales
+    ctx = _ctx(2)
+    sd = np.std(ref_pieces.reshape(-1, 2), axis=0)
+    wiggle = np.tile([1.0, -1.0], 4)[:, None]  # standard deviation exactly 1
+    moving = rng.normal(size=(8, 2)) * sd
+    still = np.array([5.0, -5.0]) + wiggle * np.array([1e-8, 1e-8]) * sd  # both below 1e-6 sd
+    # 1e-5 is below 1e-6 × 1000 for the first variable but above 1e-6 × 1 for the second
+    mixed = np.array([5.0, -5.0]) + wiggle * np.array([1e-5, 1e-5])
+    model = np.stack([moving, still, mixed, moving[::-1]])
+    out = _member_agreement(model, np.ones(4, bool), 4, _PieceStats(ref_pieces, ctx), ref_pieces,
+                            CheckSpec(), ctx)
+    assert out["collapsed_members"] == [1]
+
+
+def test_single_survivor_record_has_every_key():
+    base = np.array([0.0, 1.0, 2.0, 3.0])
+    ref_pieces = np.stack([base, base + 1.0])[:, :, None]
+    ctx = _ctx()
+    out = _member_agreement(np.tile(base, (1, 1))[:, :, None], np.array([True]), 4,
+                            _PieceStats(ref_pieces, ctx), ref_pieces, CheckSpec(tolerance=2.0),
+                            ctx)
+    assert out == {"tolerance": 2.0, "collapsed_members": [], "outlying_members": [],
+                   "per_variable": {}, "ratio": None, "verdict": "pass", "_reasons": []}
