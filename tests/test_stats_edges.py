@@ -55,10 +55,11 @@ def test_histogram_edges_bins_and_freedman_diaconis_by_hand():
 
 
 def test_distance_refusals_name_the_problem():
-    with pytest.raises(DataError, match="first sample has no finite values"):
-        stats.wasserstein1([np.nan], [1.0])
-    with pytest.raises(DataError, match="second sample has no finite values"):
-        stats.ks_distance([1.0], [])
+    for distance in (stats.wasserstein1, stats.ks_distance):
+        with pytest.raises(DataError, match="^first sample has no finite values$"):
+            distance([np.nan], [1.0])
+        with pytest.raises(DataError, match="^second sample has no finite values$"):
+            distance([1.0], [])
     with pytest.raises(DataError, match="histograms must have 3 entries for 2 edges"):
         stats.wasserstein1_histogram([0.5, 0.5], [0.5, 0.5], [0.0, 1.0])
     with pytest.raises(DataError, match="histograms must have 3 entries"):
@@ -67,7 +68,7 @@ def test_distance_refusals_name_the_problem():
         stats.hellinger([1.0, 0.0], [1.0])
     for p, q in (([0.0, 0.0], [1.0, 1.0]), ([1.0, 1.0], [0.0, 0.0]), ([2.0, -1.0], [1.0, 1.0]),
                  ([1.0, 1.0], [2.0, -1.0])):
-        with pytest.raises(DataError, match="non-negative with positive total mass"):
+        with pytest.raises(DataError, match="^distributions must be non-negative with positive total mass$"):
             stats.hellinger(p, q)
     with pytest.raises(DataError, match="sample has no finite values"):
         stats.quantile_function([np.nan], 4)
@@ -86,6 +87,14 @@ def test_ks_distance_with_ties_matches_scipy():
     # reference library: scipy.stats.ks_2samp (ties between the samples are frequent here)
     assert stats.ks_distance(u, v) == pytest.approx(scipy.stats.ks_2samp(u, v).statistic,
                                                     abs=1e-12)
+
+
+def test_any_array_like_is_one_run():
+    pd = pytest.importorskip("pandas")
+    x = np.random.default_rng(77).normal(size=200)
+    # a pandas Series is one run (array_like), not a list of runs
+    np.testing.assert_allclose(stats.autocorrelation(pd.Series(x), 5),
+                               stats.autocorrelation(x, 5), atol=0)
 
 
 def test_quantile_function_with_fewer_points_than_samples():
@@ -112,11 +121,11 @@ def test_autocorrelation_lags_runs_and_refusals():
         with pytest.raises(SettingsError, match=rf"max_lag must be in \[0, 39\] for runs of 40 "
                                                 rf"samples; got {bad}"):
             stats.autocorrelation(x, bad)
-    with pytest.raises(DataError, match="autocorrelation needs finite values"):
+    with pytest.raises(DataError, match="^autocorrelation needs finite values; drop blown-up runs first$"):
         stats.autocorrelation(np.array([1.0, np.nan, 2.0]), 1)
-    with pytest.raises(DataError, match="autocorrelation of a constant variable is undefined"):
+    with pytest.raises(DataError, match="^autocorrelation of a constant variable is undefined$"):
         stats.autocorrelation(np.ones(10), 2)
-    with pytest.raises(DataError, match="no runs given"):
+    with pytest.raises(DataError, match="^no runs given$"):
         stats.autocorrelation([], 1)
     with pytest.raises(DataError, match=r"different numbers of variables: \[1, 2\]"):
         stats.autocorrelation([np.zeros((5, 1)), np.zeros((5, 2))], 1)
@@ -163,10 +172,17 @@ def test_power_spectrum_weights_runs_by_their_number_of_segments():
     weights = [(300 - 64) // 32 + 1, (1000 - 64) // 32 + 1]
     expected = (weights[0] * per_run[0] + weights[1] * per_run[1]) / sum(weights)
     np.testing.assert_allclose(psd, expected, rtol=1e-12)
+    # an odd segment length: segments start every 63 − 63 // 2 = 32 samples (scipy's noverlap
+    # is nperseg // 2); 315 samples give (315 − 63) // 32 + 1 = 8 segments
+    odd = [runs[0][:315], runs[1]]
+    per_run = [scipy.signal.welch(r, fs=10.0, nperseg=63, axis=0)[1] for r in odd]
+    expected = (8 * per_run[0] + ((1000 - 63) // 32 + 1) * per_run[1]) / (8 + 30)
+    np.testing.assert_allclose(stats.power_spectrum(odd, 0.1, nperseg=63)[1], expected,
+                               rtol=1e-12)
     assert stats.power_spectrum(runs[0][:4, 0], 1.0)[0].size == 3  # 4 samples: the shortest
     with pytest.raises(DataError, match="runs of 3 samples are too short for a spectrum"):
         stats.power_spectrum(runs[0][:3], 1.0)
-    with pytest.raises(DataError, match="power_spectrum needs finite values"):
+    with pytest.raises(DataError, match="^power_spectrum needs finite values; drop blown-up runs first$"):
         stats.power_spectrum(np.array([1.0, 2.0, np.nan, 4.0, 5.0]), 1.0)
 
 
@@ -195,9 +211,12 @@ def test_exceedance_rates_on_a_short_series_by_hand():
     # below 1 (strictly): 0, 0 → 2/5; down-crossings: 2→0 once over 2 time units
     assert stats.exceedance_rate(x, 1.0, below=True) == pytest.approx(2 / 5)
     assert stats.exceedance_rate(x, 1.0, dt=0.5, below=True) == pytest.approx(0.5)
+    assert isinstance(stats.exceedance_rate(x, 1.0), float)
     two = np.array([[0.0, 3.0], [2.0, np.nan], [3.0, 5.0]])
     # per column; NaN is not beyond and is left out of the count of samples
     np.testing.assert_allclose(stats.exceedance_rate(two, [1.0, 4.0]), [2 / 3, 1 / 2])
+    one = np.array([[0.0, np.nan], [2.0, np.nan], [3.0, 5.0]])
+    np.testing.assert_allclose(stats.exceedance_rate(one, [1.0, 4.0]), [2 / 3, 1.0])
     assert stats.exceedance_rate(np.array([0.0, 2.0]), 1.0, dt=1.0) == 1.0
-    with pytest.raises(DataError, match="an excursion rate needs at least two samples"):
+    with pytest.raises(DataError, match="^an excursion rate needs at least two samples$"):
         stats.exceedance_rate(np.array([2.0]), 1.0, dt=1.0)
