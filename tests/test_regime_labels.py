@@ -36,7 +36,8 @@ def test_residence_times_leave_out_visits_cut_by_a_run_edge():
 
 
 def test_transition_matrix_is_the_jump_chain():
-    # departures: 0→1 (A), 1→none (A), none→0 (A), 0→1 ([0, 1]), 0→none ([0, −1]); B stays put
+    # departures: 0→1 (A), 1→none (A), none→0 (A), 0→1 ([0, 1]), 0→none ([0, −1]);
+    # B and [1, 1, 1] stay put
     P = transition_matrix([A, B, [0, 1], [0, -1], [1, 1, 1]], 2)
     np.testing.assert_allclose(P, [[0, 2 / 3, 1 / 3], [0, 0, 1], [1, 0, 0]])
     np.testing.assert_array_equal(transition_matrix([B], 2), np.zeros((3, 3)))

@@ -94,8 +94,11 @@ def test_bad_scorecard_files_give_one_clear_line(tmp_path):
     with pytest.raises(ModelFileError, match=r"^scorecard: not a scorecard of format "
                                              r"'ergodex-scorecard/1' \(format: 'list'\)"):
         Scorecard.from_dict([])
-    with pytest.raises(ModelFileError, match=r"\(format: 'other/2'\)"):
+    with pytest.raises(ModelFileError,
+                       match=r"^scorecard: not a scorecard .*\(format: 'other/2'\)"):
         Scorecard.from_json('{"format": "other/2"}')
+    with pytest.raises(ModelFileError, match=r"^scorecard: not valid JSON \(line 1: "):
+        Scorecard.from_json('{"format": ')
     d = _card().to_dict()
     del d["rows"]
     with pytest.raises(ModelFileError, match="^scorecard: missing key 'rows'$"):
@@ -148,6 +151,12 @@ def test_table_of_a_card_without_rows_or_agreement():
     assert lines[3:] == ["", "blow-ups: 0 of 4 members", "", f"Caution: {CAUTION}"]
     none_ratio = _card(member_agreement={"ratio": None, "tolerance": 2.0, "verdict": "fail"})
     assert "member agreement: ratio n/a (tolerance 2.00) fail" in none_ratio.table()
+    bare = _card(member_agreement={"ratio": 1.0}).table().splitlines()
+    assert "member agreement: ratio 1 (tolerance nan) " in bare
+    # a NaN row is never the "largest ratio", even when every other ratio is below 1
+    rows = [ScoreRow("spectrum", "x", NAN, 1.0, NAN, 2.75, "fail"),
+            ScoreRow("histogram", "y", 0.5, 1.0, 0.5, 2.75, "pass")]
+    assert "largest ratio 0.5 (histogram y)" in _card(rows=rows).table().splitlines()[0]
 
 
 def test_large_and_infinite_numbers_in_the_table():
@@ -159,3 +168,40 @@ def test_large_and_infinite_numbers_in_the_table():
     assert lines[4].split()[2:5] == ["1e+04", "0", "inf"]  # 9999 below 1e4: 3 digits
     assert _card(rows=[ScoreRow("spectrum", "x", 1e4, 1.0, 1e4, 2.75, "fail")]).table(
         ).splitlines()[3].split()[2] == "1.000e+04"  # 1e4 itself is written in e-notation
+
+
+def _evidence():
+    import numpy as np
+
+    from ergodex.validation import EVIDENCE_FIELDS, Evidence
+
+    return Evidence(**{k: np.zeros(2) for k in EVIDENCE_FIELDS})
+
+
+def test_evidence_files_name_themselves_in_errors(tmp_path):
+    import io
+
+    import numpy as np
+
+    from ergodex.validation import Evidence
+
+    with pytest.raises(DataError, match="missing-folder does not exist"):
+        _evidence().to_npz(tmp_path / "missing-folder" / "e.npz")
+    good = tmp_path / "e.npz"
+    _evidence().to_npz(good)
+    with open(good, "rb") as handle:  # a named file object: errors and reads use its name
+        assert Evidence.from_npz(handle).blowup_times.shape == (2,)
+    wrong = tmp_path / "wrong.npz"
+    np.savez(wrong, format=np.array("ergodex-evidence/0"), variables=np.zeros(1))
+    with open(wrong, "rb") as handle:
+        with pytest.raises(ModelFileError, match=rf"^{wrong}: not an evidence file of format "
+                                                 rf"'ergodex-evidence/1'$"):
+            Evidence.from_npz(handle)
+    with pytest.raises(ModelFileError, match="^evidence: not an evidence file"):
+        Evidence.from_npz(io.BytesIO(wrong.read_bytes()))
+    partial = tmp_path / "partial.npz"
+    np.savez(partial, format=np.array("ergodex-evidence/1"), variables=np.zeros(1))
+    with pytest.raises(ModelFileError, match=rf"^{partial}: evidence file lacks \['hist_edges'"):
+        Evidence.from_npz(partial)
+    with pytest.raises(ModelFileError, match="^evidence: cannot read evidence"):
+        Evidence.from_npz(io.BytesIO(b"PK\x03\x04 broken"))

@@ -68,7 +68,8 @@ def test_distance_refusals_name_the_problem():
         stats.hellinger([1.0, 0.0], [1.0])
     for p, q in (([0.0, 0.0], [1.0, 1.0]), ([1.0, 1.0], [0.0, 0.0]), ([2.0, -1.0], [1.0, 1.0]),
                  ([1.0, 1.0], [2.0, -1.0])):
-        with pytest.raises(DataError, match="^distributions must be non-negative with positive total mass$"):
+        with pytest.raises(DataError, match="^distributions must be non-negative with positive "
+                                            "total mass$"):
             stats.hellinger(p, q)
     with pytest.raises(DataError, match="sample has no finite values"):
         stats.quantile_function([np.nan], 4)
@@ -121,7 +122,8 @@ def test_autocorrelation_lags_runs_and_refusals():
         with pytest.raises(SettingsError, match=rf"max_lag must be in \[0, 39\] for runs of 40 "
                                                 rf"samples; got {bad}"):
             stats.autocorrelation(x, bad)
-    with pytest.raises(DataError, match="^autocorrelation needs finite values; drop blown-up runs first$"):
+    with pytest.raises(DataError, match="^autocorrelation needs finite values; drop blown-up "
+                                        "runs first$"):
         stats.autocorrelation(np.array([1.0, np.nan, 2.0]), 1)
     with pytest.raises(DataError, match="^autocorrelation of a constant variable is undefined$"):
         stats.autocorrelation(np.ones(10), 2)
@@ -182,7 +184,8 @@ def test_power_spectrum_weights_runs_by_their_number_of_segments():
     assert stats.power_spectrum(runs[0][:4, 0], 1.0)[0].size == 3  # 4 samples: the shortest
     with pytest.raises(DataError, match="runs of 3 samples are too short for a spectrum"):
         stats.power_spectrum(runs[0][:3], 1.0)
-    with pytest.raises(DataError, match="^power_spectrum needs finite values; drop blown-up runs first$"):
+    with pytest.raises(DataError, match="^power_spectrum needs finite values; drop blown-up "
+                                        "runs first$"):
         stats.power_spectrum(np.array([1.0, 2.0, np.nan, 4.0, 5.0]), 1.0)
 
 

@@ -255,20 +255,22 @@ def _ctx(n_vars=1, statistics=("histogram",), max_lag=1, nperseg=8, regimes=None
             "regimes": regimes, "variables": tuple(f"v{j}" for j in range(n_vars))}
 
 
-def _agreement_case(tolerance):
-    """Two reference pieces one unit apart; members shifted by 0, 1 and 3 (member 1 blown up).
+def _agreement_case(tolerance, shifts=((0, 0.0), (2, 2.0), (3, 6.0))):
+    """Two reference pieces two units apart; members shifted by 0, 2 and 6 (member 1 blown up).
 
     Wasserstein-1 between a sample and its copy shifted by c is c (analytic). Floor: d(ref0,
-    ref1) = 1 (one pair, no self-pair). Members 0, 2, 3 at shifts 0, 1, 3: pair distances
-    1, 3, 2, mean 2 → ratio 2. Each member's mean distance to the others: 2, 1.5, 2.5.
+    ref1) = 2 (one pair, no self-pair). Members 0, 2, 3 at shifts 0, 2, 6: pair distances
+    2, 6, 4, mean 4 → ratio 2. Each member's mean distance to the others: 4, 3, 5 → 2, 1.5, 2.5
+    floors. A second variable is the first times ten: the same ratios, per variable.
     """
     base = np.array([0.0, 1.0, 2.0, 3.0])
-    ref_pieces = np.stack([base, base + 1.0])[:, :, None]
-    ctx = _ctx()
-    model = np.full((4, 8, 1), NAN)
-    for m, shift in ((0, 0.0), (2, 1.0), (3, 3.0)):
+    ref_pieces = np.stack([base, base + 2.0])[:, :, None] * np.array([1.0, 10.0])
+    ctx = _ctx(2)
+    model = np.full((4, 8, 2), NAN)
+    for m, shift in shifts:
         model[m, :, 0] = np.concatenate([base + shift, base[::-1] + shift])
-    alive = np.array([True, False, True, True])
+        model[m, :, 1] = 10 * model[m, :, 0]
+    alive = ~np.isnan(model[:, 0, 0])
     spec = CheckSpec(tolerance=tolerance)
     return _member_agreement(model, alive, 4, _PieceStats(ref_pieces, ctx), ref_pieces, spec, ctx)
 
@@ -276,7 +278,8 @@ def _agreement_case(tolerance):
 def test_member_agreement_ratio_against_hand_computed_floor():
     out = _agreement_case(2.0)
     assert out["ratio"] == pytest.approx(2.0, rel=1e-12)
-    assert out["per_variable"] == {"v0": pytest.approx(2.0, rel=1e-12)}
+    assert out["per_variable"] == {"v0": pytest.approx(2.0, rel=1e-12),
+                                   "v1": pytest.approx(2.0, rel=1e-12)}
     assert out["verdict"] == "pass"  # at the tolerance: passes (ratio <= tolerance)
     assert out["tolerance"] == 2.0
     assert out["outlying_members"] == [3]  # mean distance 2.5 > 2; indices of the full ensemble
@@ -290,6 +293,23 @@ def test_member_agreement_beyond_tolerance_fails_with_the_outliers_named():
     assert out["_reasons"] == [
         "members disagree: their marginal distributions differ 2× the reference noise floor "
         "(tolerance 1.9); the surrogate may have several attractors (outlying members: [0, 3])"]
+
+
+def test_two_members_are_compared():
+    out = _agreement_case(2.75, shifts=((0, 0.0), (3, 6.0)))
+    assert out["ratio"] == pytest.approx(3.0, rel=1e-12)  # d = 6 over the floor 2
+    assert out["verdict"] == "fail" and out["outlying_members"] == [0, 3]
+
+
+def test_at_most_eight_outlying_members_are_named():
+    base = np.array([0.0, 1.0, 2.0, 3.0])
+    ref_pieces = np.stack([base, base + 1.0])[:, :, None]
+    ctx = _ctx()
+    model = np.stack([base + 5.0 * m for m in range(10)])[:, :, None]
+    out = _member_agreement(model, np.ones(10, bool), 4, _PieceStats(ref_pieces, ctx),
+                            ref_pieces, CheckSpec(), ctx)
+    assert out["outlying_members"] == list(range(10))
+    assert out["_reasons"][0].endswith("(outlying members: [0, 1, 2, 3, 4, 5, 6, 7])")
 
 
 def test_a_collapsed_member_fails_agreement():
@@ -473,3 +493,8 @@ def test_single_survivor_record_has_every_key():
                             ctx)
     assert out == {"tolerance": 2.0, "collapsed_members": [], "outlying_members": [],
                    "per_variable": {}, "ratio": None, "verdict": "pass", "_reasons": []}
+    # a single survivor that has settled fails
+    out = _member_agreement(np.full((1, 4, 1), 0.5), np.array([True]), 4,
+                            _PieceStats(ref_pieces, ctx), ref_pieces, CheckSpec(), ctx)
+    assert out["verdict"] == "fail" and out["collapsed_members"] == [0]
+    assert out["_reasons"] == ["every surviving member settles on a fixed point"]
