@@ -1054,17 +1054,9 @@ def _check(surrogate, reference, spec, initial_states, update, *,
     }
 
     # -- blow-ups -------------------------------------------------------------------------
-    reasons: list[str] = []
-    n_blown = int(np.count_nonzero(~alive))
     blowup_times = np.where(alive, np.nan, np.asarray(run.blowup_time, float))
-    blowups = {"count": n_blown, "members": [int(m) for m in np.flatnonzero(~alive)],
-               "times": [float(t) for t in blowup_times[~alive]],
-               "allowed_fraction": spec.max_blowup_fraction}
-    blowup_fail = n_blown > spec.max_blowup_fraction * spec.members
-    if n_blown:
-        first = float(np.nanmin(blowup_times))
-        reasons.append(f"{n_blown} of {spec.members} members blew up (left the data range ten-fold or "
-                       f"became non-finite), the first at t = {first:.4g} after spin-up")
+    blowups, blowup_fail, blowup_reasons = _blowup_accounting(blowup_times,
+                                                              spec.max_blowup_fraction)
 
     ref_stats = _PieceStats(ref_pieces, ctx)
     # A group is its pieces laid end to end. The autocorrelation and Welch segments then span
@@ -1092,29 +1084,21 @@ def _check(surrogate, reference, spec, initial_states, update, *,
         mod_stats = _PieceStats(model_groups, ctx)
         settings["n_model_groups"] = int(n_groups)
         for s in statistics:
-            tol = spec.tolerance_for(s)
             floor = np.nanmean(_pair_distances(s, group_stats, group_stats, floor_index), axis=0)
             value = np.nanmean(_pair_distances(s, mod_stats, group_stats), axis=0)
-            for label, v, f in zip(_row_labels(s, variables, regimes), value, floor):
-                ratio = _ratio(v, f)
-                verdict = "pass" if ratio <= tol else "fail"
-                rows.append(ScoreRow(s, label, float(v), float(f), ratio, tol, verdict))
+            rows.extend(_score_rows(s, _row_labels(s, variables, regimes), value, floor,
+                                    spec.tolerance_for(s)))
         agreement = _member_agreement(model, alive, L, ref_stats, ref_pieces, spec, ctx)
     else:
-        reasons.insert(0, "every member blew up: no statistics can be compared")
         agreement = {"ratio": None, "tolerance": spec.tolerance, "verdict": "fail",
                      "collapsed_members": [], "outlying_members": [], "per_variable": {}}
 
-    failing = sorted((r for r in rows if r.verdict == "fail"),
-                     key=lambda r: -r.ratio if not math.isnan(r.ratio) else 0.0)
-    for r in failing:
-        reasons.append(f"{r.statistic} of {r.variable}: distance {_fmt(r.ratio)}× the noise floor "
-                       f"(tolerance {r.tolerance:g})")
-    reasons.extend(agreement.pop("_reasons", []))
-    passed = (not blowup_fail and alive.any() and not failing
-              and agreement.get("verdict") == "pass")
+    verdict, reasons = _decide(rows, blowup_fail=blowup_fail, blowup_reasons=blowup_reasons,
+                               any_alive=bool(alive.any()),
+                               agreement_verdict=agreement.get("verdict"),
+                               agreement_reasons=agreement.pop("_reasons", []))
     scorecard = Scorecard(
-        verdict="pass" if passed else "fail", rows=rows, reasons=reasons, blowups=blowups,
+        verdict=verdict, rows=rows, reasons=reasons, blowups=blowups,
         member_agreement=agreement, spec=spec, model_fingerprint=surrogate.fingerprint(),
         data_fingerprint=data_reference.fingerprint(),
         created=utc_now(),
@@ -1124,6 +1108,62 @@ def _check(surrogate, reference, spec, initial_states, update, *,
     if update is not None:
         update(n_out + 1, n_out + 1)  # the integration's outputs, then the scoring
     return CheckResult(scorecard, evidence)
+
+
+def _blowup_accounting(blowup_times: np.ndarray,
+                       max_fraction: float) -> tuple[dict, bool, list[str]]:
+    """The scorecard's blow-up record, whether the blow-ups fail the check, and the reason.
+
+    ``blowup_times`` holds one time per member, NaN for the members that survived. The check
+    fails when more than ``max_fraction`` of the members blew up (any blow-up at the default 0).
+    """
+    times = np.asarray(blowup_times, float)
+    blown = ~np.isnan(times)
+    members = times.size
+    n_blown = int(np.count_nonzero(blown))
+    blowups = {"count": n_blown, "members": [int(m) for m in np.flatnonzero(blown)],
+               "times": [float(t) for t in times[blown]], "allowed_fraction": max_fraction}
+    reasons = []
+    if n_blown:
+        reasons.append(f"{n_blown} of {members} members blew up (left the data range ten-fold "
+                       f"or became non-finite), the first at t = {float(np.min(times[blown])):.4g} "
+                       f"after spin-up")
+    return blowups, n_blown > max_fraction * members, reasons
+
+
+def _score_rows(statistic: str, labels, value, floor, tolerance: float) -> list[ScoreRow]:
+    """One row per label: ``ratio = value / floor``, passing when ``ratio <= tolerance``.
+
+    A NaN ratio (no finite distance) compares false and so fails.
+    """
+    rows = []
+    for label, v, f in zip(labels, value, floor):
+        ratio = _ratio(v, f)
+        verdict = "pass" if ratio <= tolerance else "fail"
+        rows.append(ScoreRow(statistic, label, float(v), float(f), ratio, tolerance, verdict))
+    return rows
+
+
+def _decide(rows: list[ScoreRow], *, blowup_fail: bool, blowup_reasons: list[str],
+            any_alive: bool, agreement_verdict: str | None,
+            agreement_reasons: list[str]) -> tuple[str, list[str]]:
+    """The family-wise verdict and its reasons, in the order the scorecard lists them.
+
+    Pass only when no blow-up limit is exceeded, some member survived, no row fails and the
+    members agree. Reasons: every member blowing up first, then blow-ups, then failing rows
+    (largest ratio first, NaN ratios last), then member disagreement.
+    """
+    reasons = list(blowup_reasons)
+    if not any_alive:
+        reasons.insert(0, "every member blew up: no statistics can be compared")
+    failing = sorted((r for r in rows if r.verdict == "fail"),
+                     key=lambda r: -r.ratio if not math.isnan(r.ratio) else 0.0)
+    for r in failing:
+        reasons.append(f"{r.statistic} of {r.variable}: distance {_fmt(r.ratio)}× the noise floor "
+                       f"(tolerance {r.tolerance:g})")
+    reasons.extend(agreement_reasons)
+    passed = not blowup_fail and any_alive and not failing and agreement_verdict == "pass"
+    return ("pass" if passed else "fail"), reasons
 
 
 def _reference_groups(n: int, pool: int, rng, max_splits: int = 64):
