@@ -122,6 +122,7 @@ def test_bad_serve_options_exit_2_with_one_line(tmp_path, capsys):
         (["--home", str(tmp_path / "odd-home")], "move the file"),
         (["--token-file", str(non_ascii)], "printable ASCII"),
         (["--token-file", str(not_text)], "not text"),
+        (["--token-file", "/dev/zero"], "not a regular file"),  # a device would read forever
     ]
     for extra, expected in cases:
         args = ["serve", "--port", "0", "--home", str(tmp_path / "home"), *extra]

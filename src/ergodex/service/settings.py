@@ -167,6 +167,10 @@ def read_token(token_file: str | os.PathLike[str] | None = None, *, environ=None
     environ = os.environ if environ is None else environ
     if token_file is not None:
         path = Path(token_file)
+        from ergodex.limits import check_regular_file
+
+        # a token is a line: refuse devices, pipes and anything over 64 KiB before reading
+        check_regular_file(path, "a token file", max_bytes=65536, error=SettingsError)
         try:
             text = path.read_text(encoding="utf-8")
         except OSError as exc:
