@@ -275,3 +275,55 @@ def test_exit_codes_follow_the_outcome():
     d.outcome = "no-acceptable-model"
     assert d.exit_code == 1
     assert "no-acceptable-model" in d.summary() and "not a certification" in d.summary()
+
+
+@pytest.mark.slow
+def test_a_champion_too_stiff_to_integrate_is_a_failed_drift_check_not_a_crash(tmp_path):
+    # A linear decay rate of 1e9 needs an RK4 substep below 2.8e-9 (RK4's real stability bound
+    # is |h lambda| <= 2.785; Hairer & Wanner, Solving ODEs II, sec. IV.2), under the substep
+    # floor of dt / 1e6 = 2e-8 at dt = 0.02: the check cannot run it (ModelLimitError).
+    from ergodex.surrogate import Surrogate, polynomial_terms
+
+    data = loop_data(7)
+    terms = polynomial_terms(3, 1)
+    coefficients = np.zeros((3, len(terms)))
+    for i in range(3):
+        powers = tuple(1 if j == i else 0 for j in range(3))
+        coefficients[i, terms.index(next(t for t in terms if t.powers == powers))] = -1e9
+    # recorded as a sparse fit, so that retrain refits with the method the champion names
+    stiff = Surrogate(data.names, terms, coefficients,
+                      settings={"method": "sparse", "threshold": 0.1})
+    registry = Registry(tmp_path / "home")
+    info = registry.register(LOOP, stiff)
+    registry.accept(info.ref, reason="test: a champion that cannot be integrated", override=True)
+
+    decision = retrain(registry, LOOP, data, spec=SPEC, seed=0, report=False)
+
+    assert decision.champion.verdict == "fail"
+    assert math.isinf(decision.champion.score)
+    assert "could not be integrated" in decision.champion.reasons[0]
+    assert "too stiff" in decision.champion.reasons[0]
+    # the drift check's failure is recorded in the champion's history, never hidden
+    events = [e.event for e in registry.history(LOOP)]
+    assert "drift-detected" in events
+    assert decision.outcome in ("replaced", "no-acceptable-model")
+
+
+def test_a_challenger_too_stiff_to_integrate_is_a_failed_challenger_not_a_crash(tmp_path,
+                                                                                monkeypatch):
+    # The fit -> check path is made to raise as a too-stiff model does (the integrator's floor
+    # is tested in test_integrate/test_limits); what is checked here is the decision around it.
+    import ergodex.pipeline
+    from ergodex.exceptions import ModelLimitError
+
+    def too_stiff(*args, **kwargs):
+        raise ModelLimitError("too stiff: needs substep 1e-12 < floor 2e-08")
+
+    monkeypatch.setattr(ergodex.pipeline, "fit_check_register", too_stiff)
+    registry = Registry(tmp_path / "home")
+    decision = retrain(registry, LOOP, loop_data(3, n_runs=4, duration=20.0), spec=SPEC, seed=0,
+                       report=False)
+    assert decision.outcome == "no-acceptable-model"
+    assert decision.challenger.ref is None and decision.challenger.verdict == "fail"
+    assert "could not be integrated" in " ".join(decision.reasons)
+    assert registry.list_models() == []  # nothing registered for a model that never ran

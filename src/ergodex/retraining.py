@@ -70,7 +70,7 @@ from dataclasses import dataclass, field, replace
 from typing import Any
 
 from ergodex import CAUTION
-from ergodex.exceptions import DataError, SettingsError
+from ergodex.exceptions import DataError, ModelLimitError, SettingsError
 from ergodex.files import atomic_write_text
 from ergodex.host import utc_now
 from ergodex.jsonable import jsonable
@@ -606,35 +606,57 @@ def _retrain(registry: Any, name: str, data: Any, *, config: Any, spec: Any, see
 
     step("drift check")
     champion_result = None
+    champion_limit: str | None = None
     if champion is not None:
         log.info("drift check: %s against %d reference runs (seed %d)", champion_ref,
                  reference.n_runs, seed)
-        champion_result = check(champion, reference, spec)
-        log.info("drift check: %s %s (score %.3g)", champion_ref, champion_result.scorecard.verdict,
-                 shared_score(champion_result.scorecard))
+        try:
+            champion_result = check(champion, reference, spec)
+        except ModelLimitError as exc:  # too stiff or too slow on these data: a failed check
+            champion_limit = str(exc)
+            log.info("drift check: %s could not be integrated: %s", champion_ref, exc)
+        else:
+            log.info("drift check: %s %s (score %.3g)", champion_ref,
+                     champion_result.scorecard.verdict, shared_score(champion_result.scorecard))
     else:
         log.info("no accepted version of %s: first run", name)
 
     step("fit challenger")
     log.info("fitting challenger (%s) on %d runs", method, fit_part.n_runs)
     # The shared fit -> check path (no registry: registration, with lineage, is done below).
-    flow = fit_check_register(fit_part, reference, method=method, settings=settings, spec=spec)
-    step("register")
-    info = _register_challenger(
-        registry, name, flow, series.source or "", fit_fingerprint, reference_fingerprint,
-        fit_settings={"method": method, "settings": settings},
-        parent=None if champion_info is None else champion_info.ref,
-        seed=seed, report=report,
-    )
-    step("decide")
     fit_record = {"method": method, "settings": jsonable(settings)}
-    ch = _verdict("challenger", flow.check.scorecard, ref=info.ref, version=info.version,
-                  fit=fit_record)
+    try:
+        flow = fit_check_register(fit_part, reference, method=method, settings=settings,
+                                  spec=spec)
+    except ModelLimitError as exc:
+        # a challenger too stiff or too slow to integrate is a failed challenger, not a crash;
+        # with no scorecard it is not registered
+        step("register")
+        step("decide")
+        ch = ModelVerdict(role="challenger", ref=None, version=None, verdict="fail",
+                          score=math.inf, reasons=[f"it could not be integrated: {exc}"],
+                          fit=fit_record)
+    else:
+        step("register")
+        info = _register_challenger(
+            registry, name, flow, series.source or "", fit_fingerprint, reference_fingerprint,
+            fit_settings={"method": method, "settings": settings},
+            parent=None if champion_info is None else champion_info.ref,
+            seed=seed, report=report,
+        )
+        step("decide")
+        ch = _verdict("challenger", flow.check.scorecard, ref=info.ref, version=info.version,
+                      fit=fit_record)
     log.info("challenger %s: %s (score %.3g)", ch.ref, ch.verdict, ch.score)
     cp = None
     if champion_result is not None:
         cp = _verdict("champion", champion_result.scorecard, ref=champion_ref,
                       version=champion_info.version)
+    elif champion_limit is not None:
+        cp = ModelVerdict(role="champion", ref=champion_ref, version=champion_info.version,
+                          verdict="fail", score=math.inf,
+                          reasons=[f"it could not be integrated: {champion_limit}"],
+                          model_fingerprint=champion.fingerprint())
 
     outcome, reasons = _decide(cp, ch)
     _apply(registry, outcome, cp, ch, reasons, fingerprint)
@@ -696,31 +718,31 @@ def _decide(cp: ModelVerdict | None, ch: ModelVerdict) -> tuple[str, list[str]]:
     ch_score = _fmt(ch.score)
     if cp is None:
         if ch.passed:
-            return "first-accepted", [(f"no accepted version existed; challenger {ch.ref} passed its "
+            return "first-accepted", [(f"no accepted version existed; challenger {ch.ref or '(not registered)'} passed its "
                                        f"check (score {ch_score}) and was accepted")]
         return "no-acceptable-model", [
-            f"no accepted version existed and challenger {ch.ref} failed its check "
+            f"no accepted version existed and challenger {ch.ref or '(not registered)'} failed its check "
             f"(score {ch_score}): " + _brief(ch.reasons)
         ]
     cp_score = _fmt(cp.score)
     if cp.passed:
         reasons = [f"champion {cp.ref} still passes on the new data (score {cp_score}); it stays"]
         if ch.passed:
-            reasons.append(f"challenger {ch.ref} also passed (score {ch_score}); left as a "
+            reasons.append(f"challenger {ch.ref or '(not registered)'} also passed (score {ch_score}); left as a "
                            "candidate, not promoted over a champion that still matches")
         else:
-            reasons.append(f"challenger {ch.ref} failed its check (score {ch_score}): "
+            reasons.append(f"challenger {ch.ref or '(not registered)'} failed its check (score {ch_score}): "
                            + _brief(ch.reasons))
         return "kept", reasons
     reasons = [f"champion {cp.ref} failed the drift check (score {cp_score}): " + _brief(cp.reasons)]
     if ch.passed and ch.score <= cp.score:
-        reasons.append(f"challenger {ch.ref} passed (score {ch_score} <= {cp_score}) and replaces it")
+        reasons.append(f"challenger {ch.ref or '(not registered)'} passed (score {ch_score} <= {cp_score}) and replaces it")
         return "replaced", reasons
     if ch.passed:
-        reasons.append(f"challenger {ch.ref} passed but scored worse than the champion "
+        reasons.append(f"challenger {ch.ref or '(not registered)'} passed but scored worse than the champion "
                        f"({ch_score} > {cp_score}); not accepted")
     else:
-        reasons.append(f"challenger {ch.ref} failed its check (score {ch_score}): "
+        reasons.append(f"challenger {ch.ref or '(not registered)'} failed its check (score {ch_score}): "
                        + _brief(ch.reasons))
     reasons.append("no acceptable model for the new data: downstream users must be warned")
     return "no-acceptable-model", reasons
@@ -740,9 +762,10 @@ def _apply(registry: Any, outcome: str, cp: ModelVerdict | None, ch: ModelVerdic
         registry.accept(ch.ref, reason=why + on_data)
         ch.status = "accepted"
     elif not ch.passed:
-        registry.reject(ch.ref, reason="retrain challenger failed its check: "
-                        + _brief(ch.reasons) + on_data)
-        ch.status = "rejected"
+        if ch.ref is not None:  # a challenger that could not be integrated was never registered
+            registry.reject(ch.ref, reason="retrain challenger failed its check: "
+                            + _brief(ch.reasons) + on_data)
+            ch.status = "rejected"
     else:
         about = next((r for r in reasons if str(ch.ref) in r), reasons[-1])
         registry.record_event(ch.ref, "not-promoted", about + on_data)
