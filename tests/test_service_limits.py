@@ -475,3 +475,16 @@ def test_a_job_over_the_memory_limit_fails_and_the_pool_goes_on(tmp_path):
         last = one.run(SMALL_CHECK)
         assert last["state"] == SUCCEEDED, last["error"]
         one.wait_for_worker()
+
+
+def test_job_error_codes_name_the_kind_of_failure():
+    # the codes scripts branch on (README, "Errors"): a model too stiff to integrate is its own
+    # code, not a generic library error; an unexpected exception is an internal error
+    from ergodex.exceptions import DataError, IntegrityError, ModelLimitError
+    from ergodex.service.errors import describe_error
+
+    assert describe_error(ModelLimitError("too stiff: needs substep 1e-12 < floor 2e-08")) == (
+        "model-limit", "too stiff: needs substep 1e-12 < floor 2e-08")
+    assert describe_error(IntegrityError("x"))[0] == "integrity-error"
+    assert describe_error(DataError("a.csv: row 3"))[0] == "data-error"
+    assert describe_error(KeyError("boom"))[0] == "internal-error"

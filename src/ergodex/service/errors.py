@@ -11,6 +11,7 @@ from ergodex.exceptions import (
     ErgodexError,
     IntegrityError,
     ModelFileError,
+    ModelLimitError,
     OptionalDependencyError,
     RegistryError,
     SettingsError,
@@ -23,6 +24,7 @@ _CODES: tuple[tuple[type[BaseException], str], ...] = (
     (DataError, "data-error"),
     (SettingsError, "settings-error"),
     (ModelFileError, "model-file-error"),
+    (ModelLimitError, "model-limit"),  # too stiff for the substep floor, or over its time
     (OptionalDependencyError, "missing-dependency"),
     (ErgodexError, "ergodex-error"),
 )
