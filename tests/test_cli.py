@@ -13,7 +13,7 @@ from ergodex.cli import COMMAND_MODULES, build_parser, main
 def test_every_command_module_is_wired_in():
     parser = build_parser()
     subparsers = next(a for a in parser._actions if a.dest == "command")
-    # Each module contributes its command under its own name (DESIGN.md command line contract).
+    # Each module contributes its command under its own name (the README's command list).
     assert set(COMMAND_MODULES) <= set(subparsers.choices)
 
 

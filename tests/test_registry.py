@@ -29,7 +29,7 @@ from ergodex.surrogate import Surrogate
 
 
 def _card(surrogate: Surrogate | None = None, verdict: str = "pass", data_fp: str | None = None) -> dict:
-    """A scorecard dict shaped per DESIGN.md (verdict, rows, fingerprints)."""
+    """A scorecard dict shaped as docs/formats.md describes (verdict, rows, fingerprints)."""
     return {
         "verdict": verdict,
         "rows": [{"statistic": "wasserstein1", "variable": "flow", "value": 0.1,

@@ -121,7 +121,7 @@ def test_report_shows_the_verdict_scorecard_and_caution(true_model, true_page):
     parsed = _parse(page)
     verdict = re.search(r'id="verdict" data-verdict="(\w+)">(\w+)<', page)
     assert verdict is not None
-    # The true equations must pass their own check (DESIGN.md: a perfect surrogate must pass).
+    # The true equations must pass their own check (a perfect surrogate must pass).
     assert card.verdict == "pass"
     assert verdict.group(1) == verdict.group(2) == card.verdict
     assert len(parsed.rows) == len(card.rows)

@@ -40,8 +40,8 @@ processes that open the index, which network filesystems do not provide reliably
 
 Version numbers
 ---------------
-DESIGN.md says numbers are never reused or lost. Here a number is *taken* only by the commit that
-makes the version visible: the number, the rename and the index rows are one transaction. A crashed
+Version numbers are never reused or lost (docs/formats.md, "Registry home"). Here a number is
+*taken* only by the commit that makes the version visible: the number, the rename and the index rows are one transaction. A crashed
 registration therefore never consumed a number, and the next registration receives the number the
 crashed one would have had — a number nobody ever saw. Committed numbers are never deleted, so a
 number is never reused, and there are no gaps to explain. The next number is one past both the
@@ -50,8 +50,8 @@ registration overwrite an existing version. (The alternative, reserving a number
 before writing the files, would leave a gap for every crash and need a status for reserved but
 abandoned numbers.)
 
-Statuses (DESIGN.md)
---------------------
+Statuses (docs/formats.md)
+--------------------------
 ``candidate`` → ``accepted`` | ``rejected``; ``accepted`` → ``retired`` (by hand, or when another
 version of the name is accepted). Accepting needs a
 passing scorecard computed on data whose fingerprint is recorded (and, when the scorecard names the
@@ -113,7 +113,7 @@ STATUS_FILE = "status.json"
 STATUS_FORMAT = "ergodex-status/1"
 EXPORT_FORMAT = "ergodex-export/1"
 STATUSES = ("candidate", "accepted", "rejected", "retired")
-# Allowed status changes (DESIGN.md, Registry): from -> set of targets.
+# Allowed status changes (docs/formats.md, "Registry home"): from -> set of targets.
 TRANSITIONS = {
     "candidate": {"accepted", "rejected"},
     "accepted": {"retired"},

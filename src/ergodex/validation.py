@@ -1,6 +1,6 @@
 """Validation: do a surrogate's long-run statistics match the data's, within the data's own noise?
 
-The check (see DESIGN.md, "Statistics and the noise floor"):
+The check (README, "How the check decides"):
 
 1. The reference data is cut into *pieces* of equal length that are close to independent:
    separate runs, or blocks of one run separated by a gap of several decorrelation times.

@@ -2,7 +2,7 @@
 
 Each command group lives in its own module exposing ``add_parser(subparsers)``, which adds its
 subparser and sets ``func=run`` where ``run(args) -> int`` returns the exit code. Exit codes
-(DESIGN.md): 0 success (for ``validate``/``retrain``: the model passed / an accepted model stands),
+(README, "Exit codes"): 0 success (for ``validate``/``retrain``: the model passed / an accepted model stands),
 1 the work ran but the model failed its check, 2 bad input or usage — one line on stderr, nothing
 written. The library never calls ``sys.exit``; this module is the one place that turns an
 :class:`~ergodex.exceptions.ErgodexError` into exit code 2 (or the ``exit_code`` the class names:
