@@ -199,23 +199,6 @@ def _constant_columns(runs: list[np.ndarray]) -> list[int]:
     return [int(c) for c in np.flatnonzero(lo == hi)]
 
 
-def _progress_bar(total: int):
-    from ergodex.cli.common import is_terminal
-
-    if not is_terminal():
-        return None, None
-    try:
-        from tqdm import tqdm
-    except ImportError:  # pragma: no cover - tqdm is a dependency
-        return None, None
-    bar = tqdm(total=total, unit="output", desc="simulate", file=sys.stderr, leave=False)
-
-    def update(done: int, _total: int) -> None:
-        bar.update(done - bar.n)
-
-    return bar, update
-
-
 def run(args: argparse.Namespace) -> int:
     """Run ``ergodex simulate``; returns 0, or 1 when some member blew up."""
     from ergodex.integrate import integrate_ensemble
@@ -276,17 +259,16 @@ def run(args: argparse.Namespace) -> int:
     if not (math.isfinite(spinup) and spinup >= 0):
         raise SettingsError(f"--spinup must be a number >= 0, got {spinup}")
 
-    bar, update = _progress_bar(args.steps)
-    try:
+    from ergodex.cli.common import show_progress
+    from ergodex.progress import reporter
+
+    with reporter(show_progress(args), args.steps, desc="simulate", unit="output") as update:
         result = integrate_ensemble(
             surrogate, x0, dt_out=dt, n_out=args.steps, spinup=spinup, substep=args.substep,
             stiffness_states=stiffness_states,
             seed=int(rng.integers(0, 2**63 - 1)), bound=bound, progress=update,
             time_limit=args.time_limit, max_memory=args.max_memory,
         )
-    finally:
-        if bar is not None:
-            bar.close()
 
     from ergodex.cli.fields import field_output_map, write_simulated_field
 
