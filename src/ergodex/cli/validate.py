@@ -104,7 +104,10 @@ def quiet_lines(scorecard: Any) -> list[str]:
 def run(args: argparse.Namespace) -> int:
     """Run the check; return 0 (pass) or 1 (fail). Bad input raises ErgodexError."""
     from ergodex.cli.common import (
-        check_limit_options, load_model_info, resolve_home, show_progress,
+        check_limit_options,
+        load_model_info,
+        resolve_home,
+        show_progress,
     )
     from ergodex.files import check_writable
     from ergodex.validation import check
