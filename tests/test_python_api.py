@@ -139,7 +139,7 @@ def test_retrain_steps_follow_the_progress_convention_and_the_older_named_form()
         for name in _STEPS:
             step(name)
     assert counted[-1] == (5, 5) and [d for d, _ in counted] == [0, 1, 2, 3, 4, 5]
-    with _steps(named.append) as step:  # one argument: the step's name, as the CLI passes
+    with _steps(named.append) as step:  # one argument: the step's name (the older form)
         for name in _STEPS:
             step(name)
     assert named == list(_STEPS)

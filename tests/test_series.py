@@ -65,8 +65,11 @@ def test_non_finite_value_names_source_run_row_column_value():
     rng = np.random.default_rng(4)
     runs = [rng.normal(size=(10, 2)), rng.normal(size=(10, 2))]
     runs[1][6, 1] = np.inf
-    with pytest.raises(DataError, match=r"^data\.npz: run 1, row 7, column 'b': value inf"):
+    with pytest.raises(DataError, match=r"^data\.npz: run 1, row 7, column 'b': value inf") as info:
         Series.from_arrays(runs, ["a", "b"], 0.1, source="data.npz")
+    # the advice in the caller's own terms: a keyword in Python, an option on the command line
+    assert str(info.value).endswith("split the run there (read with split_at_gaps=True)")
+    assert info.value.for_command_line().endswith("split the run there (use --split-at-gaps)")
 
 
 @pytest.mark.parametrize("dt", [0.0, -1.0, float("nan"), float("inf"), "x"])

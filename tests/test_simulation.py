@@ -80,3 +80,23 @@ def test_blow_up_is_a_status_not_an_exception():
     assert bool(ds["blown_up"].all())
     assert np.all(ds["blowup_time"].values < np.pi / 2 + 0.1)
     assert np.isnan(ds["x"].values[:, -1]).all()
+
+
+def test_a_simulated_dataframe_reads_back_as_the_models_variables_only():
+    import ergodex
+    from ergodex.frames import as_series
+
+    model = _linear_model(-np.eye(2), np.zeros(2), 0.5 * np.eye(2), dt=0.1, names=("u", "v"))
+    ds = ergodex.simulate(model, members=3, steps=50, seed=4, spinup=1.0)
+    frame = ds.to_dataframe()
+    # xarray writes the non-index coordinates as columns (xarray docs, Dataset.to_dataframe)
+    assert {"blown_up", "blowup_time"} <= set(frame.columns)
+    series = as_series(frame)
+    assert series.names == ("u", "v") and series.n_runs == 3 and series.dt == pytest.approx(0.1)
+    for m, run in enumerate(series.runs):
+        np.testing.assert_array_equal(run, np.column_stack([ds["u"].values[m], ds["v"].values[m]]))
+    # one member alone (scalar coordinates become constant columns) reads back the same way
+    assert as_series(ds.isel(member=1).to_dataframe()).names == ("u", "v")
+    # a column of that name that changes within a run is data, and is kept
+    frame["blown_up"] = np.random.default_rng(0).normal(size=len(frame))
+    assert as_series(frame).names == ("u", "v", "blown_up")

@@ -9,7 +9,10 @@ pandas ``DataFrame``
     One column per state variable. Time comes from a ``time`` column (any letter case) or from the
     index when it is a ``DatetimeIndex``, a ``TimedeltaIndex`` or an index named ``time``; without
     either, pass ``dt``. Runs come from a ``run`` (or ``member``) column, or an index level of that
-    name (as ``Dataset.to_dataframe()`` writes); the rows of one run must be contiguous.
+    name (as ``Dataset.to_dataframe()`` writes); the rows of one run must be contiguous. The
+    per-member coordinates of :func:`ergodex.simulate` (:data:`MEMBER_COORDINATES`), which
+    ``to_dataframe()`` turns into columns, are not variables: a column of that name holding one
+    value per run is left out.
 xarray ``Dataset``
     Every data variable is a state variable over ``(time,)`` or ``(member, time)`` (the run
     dimension may also be called ``run``). Time comes from the ``time`` coordinate, else pass
@@ -41,6 +44,18 @@ __all__ = ["as_series", "from_pandas", "from_xarray", "to_xarray", "TIME_UNITS"]
 TIME_UNITS = {"s": 1.0, "min": 60.0, "h": 3600.0, "D": 86400.0, "ms": 1e-3}
 
 _RUN_NAMES = ("run", "member")
+#: Per-member coordinates of a simulated ensemble (see :func:`ergodex.simulate`); not variables.
+MEMBER_COORDINATES = ("blown_up", "blowup_time")
+
+
+def _is_member_coordinate(frame: Any, column: str, run_col: str | None) -> bool:
+    """Whether ``column`` is a simulated ensemble's bookkeeping: its name, one value per run."""
+    if column not in MEMBER_COORDINATES:
+        return False
+    values = frame[column]
+    if run_col is None:
+        return values.nunique(dropna=False) <= 1
+    return bool((values.groupby(frame[run_col], sort=False).nunique(dropna=False) <= 1).all())
 
 
 def _kind(data: Any) -> str:
@@ -210,7 +225,8 @@ def from_pandas(
             f"{source}: both {run_matches[0]!r} and {run_matches[1]!r} columns; keep one"
         )
     run_col = run_matches[0] if run_matches else None
-    var_cols = [c for c in columns if c not in (time_col, run_col)]
+    var_cols = [c for c in columns if c not in (time_col, run_col)
+                and not _is_member_coordinate(frame, c, run_col)]
     if not var_cols:
         raise DataError(f"{source}: no state-variable columns (only time/run)")
     for k, c in enumerate(var_cols):

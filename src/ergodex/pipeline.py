@@ -185,6 +185,7 @@ def run_demo(
     home: str | Path | None = None,
     data_root: str | Path = "datasets",
     seed: int | None = None,
+    progress: Any = False,
 ) -> DemoResult:
     """Build the demo data, fit, validate, register and report, all under the current folder.
 
@@ -192,7 +193,8 @@ def run_demo(
     (three sensors); ``ring`` is a ring of 40 weather stations reduced to a few modes. The data
     go to ``<data_root>/<dataset>/`` exactly as the committed sample (same seed, same digits),
     are read back through the same reader a user's data goes through, fitted on the runs the
-    manifest does not hold out, and checked on the held-out runs.
+    manifest does not hold out, and checked on the held-out runs. ``progress`` is passed to the
+    fit and the check (see :mod:`ergodex.progress`).
     """
     from ergodex import readers, scenarios
     from ergodex.registry import Registry
@@ -219,6 +221,7 @@ def run_demo(
         name=dataset,
         note=f"ergodex demo ({scenario}), seed {seed}",
         title=recipe["title"],
+        progress=progress,
     )
     report = flow.folder / "report.html" if flow.folder is not None else None
     return DemoResult(

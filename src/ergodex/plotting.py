@@ -1,8 +1,9 @@
 """Figures of a check, for notebooks and scripts: the report's figures on your own axes.
 
 Each function takes a :class:`~ergodex.validation.CheckResult` (or its
-:class:`~ergodex.validation.Evidence`) and draws with the same drawing function the HTML report
-uses (:mod:`ergodex.report.figures`), so the two always agree.
+:class:`~ergodex.validation.Evidence`), or for :func:`plot_selection_front` a
+:class:`~ergodex.fitting.selection.SelectionResult`, and draws with the same drawing function the
+HTML report uses (:mod:`ergodex.report.figures`), so the two always agree.
 
 - ``ax=None``: a new :class:`matplotlib.figure.Figure` (built without ``pyplot``, so no global
   figure list grows) laid out like the report's, which is returned; a notebook shows it.
@@ -25,7 +26,9 @@ __all__ = [
     "plot_autocorrelation",
     "plot_spectra",
     "plot_regimes",
+    "plot_transitions",
     "plot_projection",
+    "plot_selection_front",
 ]
 
 
@@ -153,6 +156,30 @@ def plot_regimes(result: Any, *, ax: Any = None) -> Any:
     return _done(figure, axes, ax)
 
 
+def plot_transitions(result: Any, *, ax: Any = None) -> Any:
+    """Regime transition matrices of reference and surrogate (two panels, row: from, to: column).
+
+    With ``ax=None`` the new Figure carries the shared colour bar, as in the report.
+    """
+    from ergodex.report import figures
+
+    evidence = _evidence(result)
+    regime_names = [str(n) for n in np.asarray(evidence.regime_names).tolist()]
+    reference = np.asarray(getattr(evidence, "transitions_reference", []), dtype=float)
+    if not regime_names or reference.size == 0:
+        raise SettingsError(
+            "plot_transitions: the check had no regimes (give CheckSpec(regimes=...))")
+    if ax is None:
+        figure, axes = figures.transition_panels(regime_names)
+    else:
+        figure, axes = _panels(ax, 2, "plot_transitions")
+    image = figures.draw_transitions(axes, regime_names, reference,
+                                     np.asarray(evidence.transitions_model, dtype=float))
+    if figure is not None:
+        figures.colour_bar(figure, axes[1], image)
+    return _done(figure, axes, ax, legend=False)
+
+
 def plot_projection(result: Any, *, ax: Any = None) -> Any:
     """Sampled states of reference (first panel) and surrogate (second) on the same 2-D axes."""
     from ergodex.report import figures
@@ -163,3 +190,30 @@ def plot_projection(result: Any, *, ax: Any = None) -> Any:
                            legend=False)
     figures.draw_projection(axes, names, evidence.sample_reference, evidence.sample_model)
     return _done(figure, axes, ax, legend=False)
+
+
+def plot_selection_front(selection: Any, *, ax: Any = None) -> Any:
+    """Candidates of a sweep: number of terms against statistical score, the chosen one ringed.
+
+    ``selection`` is a :class:`~ergodex.fitting.selection.SelectionResult`; candidates whose fit
+    failed have no point. The dotted line is the check's tolerance.
+    """
+    from ergodex.report import figures
+
+    front = getattr(selection, "front", None)
+    if front is None:
+        raise SettingsError(f"expected a SelectionResult (what select() returns), got "
+                            f"{type(selection).__name__}")
+
+    def number(value: Any) -> float:
+        return float("nan") if value is None else float(value)
+
+    terms = np.array([number(c.n_terms) for c in front])
+    scores = np.array([number(c.statistical_score) for c in front])
+    chosen = next((k for k, c in enumerate(front) if c.index == selection.chosen), None)
+    tolerance = (selection.spec or {}).get("tolerance")
+    figure, axes = _panels(ax, 1, "plot_selection_front", width=4.6, height=2.8)
+    figures.draw_selection(axes[0], terms, scores, chosen,
+                           score_label="statistical score (ratio to noise floor)",
+                           tolerance=None if tolerance is None else float(tolerance))
+    return _done(figure, axes, ax)

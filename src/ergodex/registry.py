@@ -437,6 +437,11 @@ def _refuse_foreign_scorecard(meta: Mapping[str, Any], what: str) -> None:
         )
 
 
+def _log_status(name: str, version: int, old: str | None, new: str, reason: str) -> None:
+    """One line on the ``ergodex.registry`` logger per committed status decision."""
+    log.info("%s@%s: %s -> %s (%s)", name, version, old or "new", new, reason or "no reason given")
+
+
 def _now() -> str:
     return utc_now("milliseconds").replace("+00:00", "Z")
 
@@ -849,6 +854,7 @@ class Registry:
                 return []
             moved: list[Path] = []
             reindexed: list[str] = []
+            recovered: list[tuple[str, int, dict]] = []
             # Seen without the lock, a folder may belong to a registration about to commit:
             # look again while holding the write lock.
             with self._write(conn):
@@ -863,6 +869,7 @@ class Registry:
                             action = "quarantine"
                         else:
                             reindexed.append(f"{f.name}@{f.version}")
+                            recovered.append((f.name, f.version, f.status or {}))
                     if action == "quarantine":
                         target = self._quarantine(f.folder, f"{f.name}-{f.version}")
                         if target is not None:
@@ -871,6 +878,10 @@ class Registry:
                             log.warning("moved %s (%s) to %s; nothing was deleted",
                                         f.folder, why, target)
                             moved.append(target)
+            for name, version, status in recovered:
+                current = status.get("status", "candidate")
+                _log_status(name, version, current, current,
+                            "recovered: indexed again from the version folder's own records")
             if reindexed:
                 log.warning(
                     "registry index %s was missing, empty, older than the version folders or "
@@ -1316,6 +1327,8 @@ class Registry:
                 log.warning("%s@%s is registered, but its status record could not be marked "
                             "committed (%s); the next open of the registry does it", name,
                             version, exc)
+            _log_status(name, version, None, "candidate",
+                        f"{event}; scorecard verdict {meta['verdict'] or 'none'}")
             # Every file was read back and compared while writing.
             return replace(self._info(conn, name, version), integrity="ok")
 
@@ -1685,6 +1698,11 @@ class Registry:
                     touched += self._retire_others(conn, row["name"], int(row["version"]))
                 for number in touched:
                     self._write_status(conn, row["name"], number, committed=True)
+            _log_status(row["name"], row["version"], current, target,
+                        ("override: " if override else "") + (reason or ""))
+            for number in touched[1:]:
+                _log_status(row["name"], number, "accepted", "retired",
+                            f"replaced by version {row['version']}")
             return self._checked(self._info(conn, row["name"], int(row["version"])))
 
     def _retire_others(self, conn: sqlite3.Connection, name: str, version: int) -> list[int]:

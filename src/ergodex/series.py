@@ -413,8 +413,8 @@ def _validate(runs, names, dt, units, labels, source):
             r, c = np.argwhere(~finite)[0]
             raise DataError(
                 f"{where}run {i}, row {r + 1}, column {names[c]!r}: value "
-                f"{float(arr[r, c])!r} is not finite; remove it, or read with "
-                "split_at_gaps=True to split the run there"
+                f"{float(arr[r, c])!r} is not finite; remove it, or split the run there",
+                python_hint="(read with split_at_gaps=True)", cli_hint="(use --split-at-gaps)",
             )
         if arr.flags.writeable:
             arr.setflags(write=False)

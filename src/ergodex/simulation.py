@@ -15,11 +15,19 @@ from typing import Any
 
 import numpy as np
 
-from ergodex.exceptions import DataError, SettingsError, require
+from ergodex.exceptions import DataError, ModelFileError, SettingsError, require
 
-__all__ = ["simulate"]
+__all__ = [
+    "bound_from_fitted_range", "bound_over", "fitted_range", "initial_states_from_model",
+    "simulate", "states_in_fitted_range",
+]
 
 log = logging.getLogger(__name__)
+
+#: Size of the perturbations added to the start state of the model's own run (model units).
+PERTURBATION = 1e-3
+#: Default spin-up of the model's own run, in output intervals.
+SPINUP_STEPS = 1000
 
 
 def _output_dt(surrogate, dt: float | None) -> float:
@@ -39,6 +47,74 @@ def _data_names(surrogate) -> tuple[str, ...]:
     if surrogate.transform is not None:
         return tuple(surrogate.transform.input_names)
     return tuple(surrogate.observed_variables)
+
+
+def fitted_range(surrogate) -> tuple[list[int], np.ndarray] | None:
+    """The training range the fitter recorded: model columns and their ``(2, k)`` [min; max].
+
+    None when the model file has no ``provenance.model_range`` (files from before it existed);
+    hidden variables have no entry.
+    """
+    recorded = (surrogate.provenance or {}).get("model_range")
+    if not isinstance(recorded, dict):
+        return None
+    columns = [j for j, name in enumerate(surrogate.variables) if name in recorded]
+    if not columns:
+        return None
+    try:
+        ends = np.array([recorded[surrogate.variables[j]] for j in columns], dtype=np.float64).T
+    except (TypeError, ValueError):
+        raise ModelFileError("provenance.model_range: expected [min, max] per variable") from None
+    if (ends.shape != (2, len(columns)) or not np.all(np.isfinite(ends))
+            or np.any(ends[0] > ends[1])):
+        raise ModelFileError("provenance.model_range: expected finite [min, max] per variable")
+    return columns, ends
+
+
+def bound_from_fitted_range(surrogate) -> np.ndarray | None:
+    """Blow-up bound from the recorded training range (None without a record).
+
+    Ten times that range per variable (:func:`ergodex.integrate.blowup_bound`); variables without
+    a recorded range (hidden levels) are unbounded.
+    """
+    recorded = fitted_range(surrogate)
+    return None if recorded is None else bound_over(surrogate, *recorded)
+
+
+def bound_over(surrogate, columns, reference: np.ndarray) -> np.ndarray:
+    """Blow-up bound from ``reference`` states of the model ``columns``; other variables unbounded.
+
+    Ten times the reference range (:func:`ergodex.integrate.blowup_bound`); hidden variables have
+    no data range to leave.
+    """
+    from ergodex.integrate import blowup_bound
+
+    bound = np.tile([-np.inf, np.inf], (surrogate.n_variables, 1))
+    bound[columns] = blowup_bound(reference)
+    return bound
+
+
+def states_in_fitted_range(
+    surrogate, rng: np.random.Generator, n_states: int = 256
+) -> np.ndarray | None:
+    """States drawn uniformly from the box of the recorded training range (hidden variables 0).
+
+    The members of a model's own run start near its origin, which can be much calmer than where
+    the run goes; the automatic substep measures the stiffness here as well. None without a
+    record.
+    """
+    recorded = fitted_range(surrogate)
+    if recorded is None:
+        return None
+    columns, ends = recorded
+    states = np.zeros((n_states, surrogate.n_variables))
+    states[:, columns] = rng.uniform(ends[0], ends[1], size=(n_states, len(columns)))
+    return states
+
+
+def initial_states_from_model(surrogate, members: int, rng: np.random.Generator) -> np.ndarray:
+    """Start states for the model's own run: the origin plus seeded perturbations of 1e-3."""
+    return rng.normal(scale=PERTURBATION, size=(members, surrogate.n_variables))
 
 
 def _starts_from_data(surrogate, data: Any, members: int) -> tuple[np.ndarray, np.ndarray]:
@@ -114,13 +190,6 @@ def simulate(
     SettingsError, DataError
         For bad settings or start data. Never for a blow-up.
     """
-    from ergodex.cli.simulate import (  # the start and bound rules of ``ergodex simulate``
-        SPINUP_STEPS,
-        bound_from_fitted_range,
-        bound_over,
-        initial_states_from_model,
-        states_in_fitted_range,
-    )
     from ergodex.integrate import integrate_ensemble
     from ergodex.progress import reporter
     from ergodex.surrogate import Surrogate

@@ -608,6 +608,12 @@ class CheckResult:
 
         return plot_regimes(self, ax=ax)
 
+    def plot_transitions(self, *, ax=None):
+        """Regime transition matrices (:func:`ergodex.plotting.plot_transitions`)."""
+        from ergodex.plotting import plot_transitions
+
+        return plot_transitions(self, ax=ax)
+
     def plot_projection(self, *, ax=None):
         """Reference and surrogate states in 2-D (:func:`ergodex.plotting.plot_projection`)."""
         from ergodex.plotting import plot_projection

@@ -60,6 +60,15 @@ def is_terminal() -> bool:
     return sys.stderr.isatty() and not os.environ.get("CI")
 
 
+def show_progress(args: argparse.Namespace | None = None) -> bool:
+    """The library's ``progress=`` for a command: a bar on stderr only on a terminal.
+
+    Every command that does long work passes this on (see :mod:`ergodex.progress`); scripts, CI
+    logs and ``--quiet`` get no bar.
+    """
+    return is_terminal() and not getattr(args, "quiet", False)
+
+
 # --- models: one resolver for every command that takes a model --------------------------------
 MODEL_HELP = "model.json file, or NAME@VERSION in the registry (NAME alone: its accepted version)"
 

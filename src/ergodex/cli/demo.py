@@ -40,23 +40,24 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from ergodex.cli.common import resolve_home
+    from ergodex.cli.common import resolve_home, show_progress
     from ergodex.pipeline import run_demo
 
     if args.seed is not None and args.seed < 0:
         from ergodex.exceptions import SettingsError
 
         raise SettingsError(f"--seed must be a non-negative integer, got {args.seed}")
-    demo = run_demo
+    demo, options = run_demo, {"progress": show_progress(args)}
     if args.scenario == "basin":
         from ergodex.fields.demo import run_basin_demo
 
-        demo = run_basin_demo
+        demo, options = run_basin_demo, {}  # its field check takes no progress (yet)
     result = demo(
         scenario=args.scenario,
         home=resolve_home(args.home),
         data_root=args.data_root,
         seed=args.seed,
+        **options,
     )
     flow = result.flow
     card = flow.check.scorecard

@@ -88,6 +88,7 @@ def _check_target(option: str, target: str | None) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Fit (or select) and write the model; return the exit code. Bad input raises ErgodexError."""
+    from ergodex.cli.common import show_progress
     from ergodex.fitting import make_fitter
     from ergodex.fitting.base import parse_fit_settings, read_fit_document
     from ergodex.readers import read_series
@@ -127,7 +128,7 @@ def run(args: argparse.Namespace) -> int:
     choice = holder.get("choice")
 
     if not args.select:
-        fitter = make_fitter(method, settings).fit(series)
+        fitter = make_fitter(method, settings).fit(series, progress=show_progress(args))
         surrogate = finish(fitter.surrogate_)
         summary = {
             "method": method,
@@ -161,7 +162,8 @@ def run(args: argparse.Namespace) -> int:
         print("ergodex fit: warning: --select checks the candidates on the data they are fitted "
               "on, which says little about new data; hold runs out (--holdout, or a dataset.toml "
               "'holdout' list) or give --reference", file=sys.stderr)
-    result = select(series, candidates, spec, reference=reference, scheduler=args.scheduler, n_jobs=args.n_jobs)
+    result = select(series, candidates, spec, reference=reference, scheduler=args.scheduler,
+                    n_jobs=args.n_jobs, progress=show_progress(args))
     if not args.quiet:
         print(result.table())
         print(SELECT_LEGEND)

@@ -130,7 +130,7 @@ def read_new_data(args: argparse.Namespace):
 
 
 def run(args: argparse.Namespace) -> int:
-    from ergodex.cli.common import is_terminal, registry_from_args
+    from ergodex.cli.common import registry_from_args, show_progress
     from ergodex.retraining import retrain
 
     if "@" in args.name:
@@ -146,24 +146,9 @@ def run(args: argparse.Namespace) -> int:
     registry = registry_from_args(args)
     spec = spec_from_args(args)
     data, holdout = read_new_data(args)
-    bar = None
-    if is_terminal():
-        from tqdm import tqdm
-
-        bar = tqdm(total=5, desc="retrain", unit="step", file=sys.stderr, leave=False)
-
-    def progress(step: str) -> None:
-        if bar is not None:
-            bar.set_postfix_str(step)
-            bar.update(1)
-
-    try:
-        decision = retrain(registry, args.name, data, config=args.config, spec=spec,
-                           seed=args.seed, holdout=holdout, report=not args.no_report,
-                           progress=progress)
-    finally:
-        if bar is not None:
-            bar.close()
+    decision = retrain(registry, args.name, data, config=args.config, spec=spec,
+                       seed=args.seed, holdout=holdout, report=not args.no_report,
+                       progress=show_progress(args))
     if args.json == "-":
         sys.stdout.write(decision.to_json())
         print(decision.summary(), file=sys.stderr)

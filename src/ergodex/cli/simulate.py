@@ -65,7 +65,15 @@ from typing import Any
 import numpy as np
 
 from ergodex.cli.common import MODEL_HELP, load_model
-from ergodex.exceptions import DataError, ModelFileError, SettingsError
+from ergodex.exceptions import DataError, SettingsError
+from ergodex.simulation import (
+    SPINUP_STEPS,
+    bound_from_fitted_range,
+    bound_over,
+    fitted_range,
+    initial_states_from_model,
+    states_in_fitted_range,
+)
 
 __all__ = [
     "add_parser", "bound_from_fitted_range", "bound_over", "fitted_range", "initial_states_from_file", "initial_states_from_model",
@@ -73,10 +81,6 @@ __all__ = [
 ]
 
 _FORMATS = {".csv": "csv", ".npz": "npz", ".nc": "nc", ".nc4": "nc", ".netcdf": "nc"}
-#: Size of the perturbations added to the start state of the model's own run (model units).
-PERTURBATION = 1e-3
-#: Default spin-up of the model's own run, in output intervals.
-SPINUP_STEPS = 1000
 
 
 def add_parser(subparsers: Any) -> argparse.ArgumentParser:
@@ -170,71 +174,6 @@ def _data_names(surrogate) -> tuple[str, ...]:
     return tuple(surrogate.observed_variables)
 
 
-def fitted_range(surrogate) -> tuple[list[int], np.ndarray] | None:
-    """The training range the fitter recorded: model columns and their ``(2, k)`` [min; max].
-
-    None when the model file has no ``provenance.model_range`` (files from before it existed);
-    hidden variables have no entry.
-    """
-    recorded = (surrogate.provenance or {}).get("model_range")
-    if not isinstance(recorded, dict):
-        return None
-    columns = [j for j, name in enumerate(surrogate.variables) if name in recorded]
-    if not columns:
-        return None
-    try:
-        ends = np.array([recorded[surrogate.variables[j]] for j in columns], dtype=np.float64).T
-    except (TypeError, ValueError):
-        raise ModelFileError("provenance.model_range: expected [min, max] per variable") from None
-    if ends.shape != (2, len(columns)) or not np.all(np.isfinite(ends)) or np.any(ends[0] > ends[1]):
-        raise ModelFileError("provenance.model_range: expected finite [min, max] per variable")
-    return columns, ends
-
-
-def bound_from_fitted_range(surrogate) -> np.ndarray | None:
-    """Blow-up bound from the recorded training range (None without a record).
-
-    Ten times that range per variable (:func:`ergodex.integrate.blowup_bound`); variables without
-    a recorded range (hidden levels) are unbounded.
-    """
-    recorded = fitted_range(surrogate)
-    return None if recorded is None else bound_over(surrogate, *recorded)
-
-
-def bound_over(surrogate, columns, reference: np.ndarray) -> np.ndarray:
-    """Blow-up bound from ``reference`` states of the model ``columns``; other variables unbounded.
-
-    Ten times the reference range (:func:`ergodex.integrate.blowup_bound`); hidden variables have
-    no data range to leave.
-    """
-    from ergodex.integrate import blowup_bound
-
-    bound = np.tile([-np.inf, np.inf], (surrogate.n_variables, 1))
-    bound[columns] = blowup_bound(reference)
-    return bound
-
-
-def states_in_fitted_range(surrogate, rng: np.random.Generator, n_states: int = 256) -> np.ndarray | None:
-    """States drawn uniformly from the box of the recorded training range (hidden variables 0).
-
-    The members of a model's own run start near its origin, which can be much calmer than where
-    the run goes; the automatic substep measures the stiffness here as well. None without a
-    record.
-    """
-    recorded = fitted_range(surrogate)
-    if recorded is None:
-        return None
-    columns, ends = recorded
-    states = np.zeros((n_states, surrogate.n_variables))
-    states[:, columns] = rng.uniform(ends[0], ends[1], size=(n_states, len(columns)))
-    return states
-
-
-def initial_states_from_model(surrogate, members: int, rng: np.random.Generator) -> np.ndarray:
-    """Start states for the model's own run: the origin plus seeded perturbations of 1e-3."""
-    return rng.normal(scale=PERTURBATION, size=(members, surrogate.n_variables))
-
-
 def _check_memory(surrogate, args: argparse.Namespace) -> None:
     """Refuse before allocating when the run and its output would exceed the memory limit."""
     from ergodex.integrate import ensemble_memory
@@ -258,23 +197,6 @@ def _constant_columns(runs: list[np.ndarray]) -> list[int]:
     lo = np.min([r.min(axis=0) for r in runs], axis=0)
     hi = np.max([r.max(axis=0) for r in runs], axis=0)
     return [int(c) for c in np.flatnonzero(lo == hi)]
-
-
-def _progress_bar(total: int):
-    from ergodex.cli.common import is_terminal
-
-    if not is_terminal():
-        return None, None
-    try:
-        from tqdm import tqdm
-    except ImportError:  # pragma: no cover - tqdm is a dependency
-        return None, None
-    bar = tqdm(total=total, unit="output", desc="simulate", file=sys.stderr, leave=False)
-
-    def update(done: int, _total: int) -> None:
-        bar.update(done - bar.n)
-
-    return bar, update
 
 
 def run(args: argparse.Namespace) -> int:
@@ -337,17 +259,16 @@ def run(args: argparse.Namespace) -> int:
     if not (math.isfinite(spinup) and spinup >= 0):
         raise SettingsError(f"--spinup must be a number >= 0, got {spinup}")
 
-    bar, update = _progress_bar(args.steps)
-    try:
+    from ergodex.cli.common import show_progress
+    from ergodex.progress import reporter
+
+    with reporter(show_progress(args), args.steps, desc="simulate", unit="output") as update:
         result = integrate_ensemble(
             surrogate, x0, dt_out=dt, n_out=args.steps, spinup=spinup, substep=args.substep,
             stiffness_states=stiffness_states,
             seed=int(rng.integers(0, 2**63 - 1)), bound=bound, progress=update,
             time_limit=args.time_limit, max_memory=args.max_memory,
         )
-    finally:
-        if bar is not None:
-            bar.close()
 
     from ergodex.cli.fields import field_output_map, write_simulated_field
 

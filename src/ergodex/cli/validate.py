@@ -103,7 +103,12 @@ def quiet_lines(scorecard: Any) -> list[str]:
 
 def run(args: argparse.Namespace) -> int:
     """Run the check; return 0 (pass) or 1 (fail). Bad input raises ErgodexError."""
-    from ergodex.cli.common import check_limit_options, load_model_info, resolve_home
+    from ergodex.cli.common import (
+        check_limit_options,
+        load_model_info,
+        resolve_home,
+        show_progress,
+    )
     from ergodex.files import check_writable
     from ergodex.validation import check
 
@@ -135,7 +140,7 @@ def run(args: argparse.Namespace) -> int:
     extra_sections: list = []
     if field is None:
         result = check(surrogate, reference, spec, time_limit=args.time_limit,
-                       max_memory=args.max_memory)
+                       max_memory=args.max_memory, progress=show_progress(args))
     else:
         from ergodex.cli.fields import check_field_arg
 

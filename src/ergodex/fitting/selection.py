@@ -121,6 +121,12 @@ class SelectionResult:
         """Candidates ordered by number of terms (failed fits last)."""
         return sorted(self.candidates, key=lambda c: (c.n_terms is None, c.n_terms or 0, c.index))
 
+    def plot_front(self, *, ax=None):
+        """Terms against score per candidate (:func:`ergodex.plotting.plot_selection_front`)."""
+        from ergodex.plotting import plot_selection_front
+
+        return plot_selection_front(self, ax=ax)
+
     def to_dict(self) -> dict:
         """JSON-ready record for reports and ``--json`` output."""
         return {

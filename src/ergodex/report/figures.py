@@ -30,6 +30,7 @@ from __future__ import annotations
 import io
 import math
 from collections.abc import Sequence
+from typing import Any
 
 import numpy as np
 from matplotlib.figure import Figure
@@ -400,12 +401,28 @@ def transition_figure(regime_names: Sequence[str], reference: np.ndarray, model:
 
     Both share one colour scale from 0 to 1 (cividis [2]) and print each probability in its cell.
     """
+    figure, axes = transition_panels(regime_names)
+    image = draw_transitions(axes, regime_names, reference, model)
+    colour_bar(figure, axes[1], image)
+    return figure_to_svg(figure)
+
+
+def transition_panels(regime_names: Sequence[str]) -> tuple[Figure, list]:
+    """The two square panels of :func:`transition_figure`, with room for the names and a bar."""
     names = [str(n) for n in regime_names]
     size = max(2.6, 0.62 * len(names) + 1.5)
     label_room = 0.2 + 0.065 * max(len(n) for n in names)  # inches for the longest regime name
-    figure, axes = _grid_figure(2, width=size + label_room, height=size, columns=2, legend=False,
-                                left=label_room + 0.35, bottom=label_room * 0.6 + 0.45,
-                                right=1.1)
+    return _grid_figure(2, width=size + label_room, height=size, columns=2, legend=False,
+                        left=label_room + 0.35, bottom=label_room * 0.6 + 0.45, right=1.1)
+
+
+def draw_transitions(axes: Sequence, regime_names: Sequence[str], reference: np.ndarray,
+                     model: np.ndarray) -> Any:
+    """Draw the reference matrix on ``axes[0]``, the surrogate's on ``axes[1]``.
+
+    Returns the surrogate's image (one colour scale, 0 to 1, for both) for a colour bar.
+    """
+    names = [str(n) for n in regime_names]
     image = None
     for ax, matrix, label in ((axes[0], reference, REFERENCE_LABEL),
                               (axes[1], model, SURROGATE_LABEL)):
@@ -423,13 +440,16 @@ def transition_figure(regime_names: Sequence[str], reference: np.ndarray, model:
                     color="white" if (np.isfinite(value) and value < 0.55) else "black")
         colour = REFERENCE_COLOUR if label == REFERENCE_LABEL else SURROGATE_DARK
         _title(ax, label, colour)
-    if image is not None:
-        right_edge = axes[1].get_position()
-        bar_axes = figure.add_axes((right_edge.x1 + 0.15 / figure.get_figwidth(), right_edge.y0,
-                                    0.12 / figure.get_figwidth(), right_edge.height))
-        bar = figure.colorbar(image, cax=bar_axes)
-        bar.ax.tick_params(labelsize=_FONT - 1)
-    return figure_to_svg(figure)
+    return image
+
+
+def colour_bar(figure: Figure, beside: Any, image: Any) -> None:
+    """A slim colour bar just right of the ``beside`` axes (in the room the layout left)."""
+    right_edge = beside.get_position()
+    bar_axes = figure.add_axes((right_edge.x1 + 0.15 / figure.get_figwidth(), right_edge.y0,
+                                0.12 / figure.get_figwidth(), right_edge.height))
+    bar = figure.colorbar(image, cax=bar_axes)
+    bar.ax.tick_params(labelsize=_FONT - 1)
 
 
 def projection_basis(reference_sample: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray,
@@ -514,10 +534,20 @@ def selection_figure(complexity: np.ndarray, score: np.ndarray, chosen: int | No
                      score_label: str = "largest ratio to noise floor",
                      tolerance: float | None = None) -> str:
     """Candidates of a sweep: complexity against check score, the chosen one marked."""
+    figure, axes = _grid_figure(1, width=4.6, height=2.8)
+    draw_selection(axes[0], complexity, score, chosen, complexity_label=complexity_label,
+                   score_label=score_label, tolerance=tolerance)
+    _legend(figure, axes)
+    return figure_to_svg(figure)
+
+
+def draw_selection(ax: Any, complexity: np.ndarray, score: np.ndarray, chosen: int | None, *,
+                   complexity_label: str = "number of terms",
+                   score_label: str = "largest ratio to noise floor",
+                   tolerance: float | None = None) -> None:
+    """Draw :func:`selection_figure`'s panel: one point per candidate, ``chosen`` ringed."""
     complexity = np.asarray(complexity, dtype=float)
     score = np.asarray(score, dtype=float)
-    figure, axes = _grid_figure(1, width=4.6, height=2.8)
-    ax = axes[0]
     ax.scatter(complexity, score, s=22, color=MUTED_COLOUR, label="candidate", zorder=3)
     if chosen is not None and 0 <= chosen < len(score):
         ax.scatter([complexity[chosen]], [score[chosen]], s=80, facecolors="none",
@@ -530,5 +560,3 @@ def selection_figure(complexity: np.ndarray, score: np.ndarray, chosen: int | No
         ax.set_yscale("log")
     ax.set_xlabel(complexity_label, fontsize=_FONT)
     ax.set_ylabel(score_label, fontsize=_FONT)
-    _legend(figure, axes)
-    return figure_to_svg(figure)
