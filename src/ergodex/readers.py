@@ -142,6 +142,7 @@ def _finish(
     split_at_gaps: bool,
     min_samples: int,
     units: Sequence[str] | None = None,
+    time_unit: str | None = None,
 ) -> Series:
     """Gap handling, length checks and Series construction, shared by every reader."""
     out_values: list[np.ndarray] = []
@@ -178,7 +179,8 @@ def _finish(
     if not out_values:
         raise DataError(f"{source}: every row has a missing or non-finite value; no data left")
     return Series.from_arrays(
-        out_values, names, dt, units=units, run_labels=out_labels, source=source
+        out_values, names, dt, units=units, run_labels=out_labels, source=source,
+        time_unit=time_unit,
     )
 
 

@@ -782,7 +782,8 @@ def _compared_space(surrogate, reference, observed):
     if observed != list(mapped.names):
         mapped = Series.from_arrays([run[:, [mapped.names.index(v) for v in observed]]
                                      for run in mapped.runs], observed, mapped.dt,
-                                    run_labels=mapped.run_labels, source=mapped.source)
+                                    run_labels=mapped.run_labels, source=mapped.source,
+                                    time_unit=mapped.time_unit)
     return mapped, True
 
 
@@ -837,7 +838,8 @@ def align_columns(surrogate, series):
     return Series.from_arrays([run[:, take] for run in series.runs], names, series.dt,
                               units=None if series.units is None
                               else [series.units[j] for j in take],
-                              run_labels=series.run_labels, source=series.source)
+                              run_labels=series.run_labels, source=series.source,
+                              time_unit=series.time_unit)
 
 
 def check(surrogate, reference, spec: CheckSpec | None = None, *, initial_states=None,
@@ -1037,6 +1039,9 @@ def _check(surrogate, reference, spec, initial_states, update, *,
 
     ctx = {"statistics": statistics, "max_lag_samples": max_lag, "dt": dt, "nperseg": nperseg,
            "regimes": regimes, "variables": variables}
+    from ergodex.series import format_dt
+
+    time_unit = getattr(data_reference, "time_unit", None)
     settings = {
         **piece_info,
         "piece_length_time": L * dt, "gap": gap, "spinup": spinup, "max_lag": max_lag * dt,
@@ -1044,6 +1049,9 @@ def _check(surrogate, reference, spec, initial_states, update, *,
         "integrated_autocorrelation_time": {v: float(t) for v, t in zip(variables, tau)},
         "member_length": n_out * dt, "pieces_per_member": pieces_per_member,
         "statistics": list(statistics), "dt": dt,
+        # every time above is in this unit; "dt_text" is dt as printed (format_dt)
+        "time_unit": time_unit,
+        "dt_text": format_dt(dt, time_unit),
         "start_seed": int(seeds[0]), "starts": starts_note, "noise_seed": run.seed,
         "integration": run.summary(),
         "regimes_used": None if regimes is None else regimes.to_dict(),

@@ -161,8 +161,8 @@ def run(args: argparse.Namespace) -> int:
         write_report(report, result, surrogate, extra_sections=extra_sections)
         print(f"ergodex validate: report written to {report}", file=sys.stderr)
     print("\n".join(quiet_lines(scorecard)) if args.quiet else scorecard.table())
-    if field is not None and not args.quiet:
-        from ergodex.cli.fields import time_unit_note
+    from ergodex.cli.fields import time_unit_note
 
+    if time_unit_note(surrogate) and not args.quiet:
         print(time_unit_note(surrogate))
     return EXIT_PASS if scorecard.passed else EXIT_FAIL
