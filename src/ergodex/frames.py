@@ -24,8 +24,8 @@ Times
 Numeric times are in the data's own unit, which the Series keeps as its ``time_unit`` when the
 data name it (a ``time_unit`` attribute, or a plain ``units`` attribute such as ``"hours"`` on the
 time coordinate). Datetimes and timedeltas are converted to ``time_unit`` (default seconds):
-``dt`` is then the step in seconds unless told otherwise, and the Series' ``time_unit`` says so. Steps
-must be uniform within ``time_tolerance`` of the step, as in the CSV reader.
+``dt`` is then the step in seconds unless told otherwise, and the Series' ``time_unit`` says
+so. Steps must be uniform within ``time_tolerance`` of the step, as in the CSV reader.
 """
 
 from __future__ import annotations
