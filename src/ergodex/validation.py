@@ -515,11 +515,20 @@ class Evidence:
     sample_model: np.ndarray
     blowup_times: np.ndarray
 
-    def to_npz(self, path: str | os.PathLike) -> None:
-        """Write every array to ``path`` (compressed NPZ, atomically)."""
+    def to_npz(self, path: str | os.PathLike, *,
+               extra: dict[str, np.ndarray] | None = None) -> None:
+        """Write every array to ``path`` (compressed NPZ, atomically).
+
+        ``extra`` arrays (e.g. a field check's grid maps) are stored beside the fixed ones under
+        their own keys; :meth:`from_npz` ignores them, so files with and without them read alike.
+        """
         path = Path(path)
+        clash = sorted(set(extra or {}) & {*EVIDENCE_FIELDS, "format"})
+        if clash:
+            raise SettingsError(f"evidence: extra array {clash[0]!r} would replace a fixed field")
         arrays = {name: np.asarray(getattr(self, name)) for name in EVIDENCE_FIELDS}
         arrays["format"] = np.array(EVIDENCE_FORMAT)
+        arrays.update({key: np.asarray(value) for key, value in (extra or {}).items()})
         def write(tmp: Path) -> None:
             with open(tmp, "wb") as handle:  # a file object: savez must not add ".npz"
                 np.savez_compressed(handle, **arrays)

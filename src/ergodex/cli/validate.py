@@ -133,6 +133,7 @@ def run(args: argparse.Namespace) -> int:
             check_writable(target, f"--{option}")
 
     extra_sections: list = []
+    extra_arrays = None
     if field is None:
         result = check(surrogate, reference, spec, time_limit=args.time_limit,
                        max_memory=args.max_memory)
@@ -141,6 +142,9 @@ def run(args: argparse.Namespace) -> int:
 
         field_check = check_field_arg(args, surrogate, field, spec)
         result, extra_sections = field_check.result, field_check.report_sections()
+        from ergodex.fields.maps import evidence_maps
+
+        extra_arrays = evidence_maps(field_check)  # so 'ergodex report' redraws the maps
     scorecard = result.scorecard
     if choice is not None:  # said after the work, so that a refusal stays one line
         if not args.quiet:
@@ -153,7 +157,7 @@ def run(args: argparse.Namespace) -> int:
         scorecard.to_json(args.json)
     if evidence:
         Path(evidence).parent.mkdir(parents=True, exist_ok=True)
-        result.evidence.to_npz(evidence)
+        result.evidence.to_npz(evidence, extra=extra_arrays)
     if report:
         from ergodex.report import write_report
 
