@@ -98,6 +98,26 @@ def test_unreadable_or_non_elapsed_time_units_are_refused_naming_the_time(tmp_pa
         read_netcdf(bad)
 
 
+def test_months_since_decode_on_360_day_only(tmp_path):
+    rng = np.random.default_rng(32)
+    values = rng.normal(size=12)
+    ok = _write(tmp_path / "m.nc", values, np.arange(12.0),
+                {"units": "months since 1900-01-01", "calendar": "360_day"})
+    # cftime decodes 'months since' on the 360_day calendar (equal 30-day months) only
+    # (source: cftime.num2date, which refuses it on other calendars)
+    assert cftime.num2date(1.0, "months since 1900-01-01", calendar="360_day").month == 2
+    assert (read_netcdf(ok).dt, read_netcdf(ok).time_unit) == (1.0, "months")
+    bad = _write(tmp_path / "g.nc", values, np.arange(12.0),
+                 {"units": "months since 1900-01-01", "calendar": "standard"})
+    with pytest.raises(DataError, match=r"g\.nc: time: cannot decode times with units "
+                                        r"'months since 1900-01-01' and calendar 'standard'"):
+        read_netcdf(bad)
+    weeks = _write(tmp_path / "w.nc", values, np.arange(12.0),
+                   {"units": "weeks since 1900-01-01", "calendar": "standard"})
+    with pytest.raises(DataError, match=r"w\.nc: time"):
+        read_netcdf(weeks)
+
+
 def test_plain_time_units_are_kept_and_no_units_leave_dt_unitless(tmp_path):
     rng = np.random.default_rng(26)
     plain = _write(tmp_path / "plain.nc", rng.normal(size=10), np.arange(10.0) * 0.5,

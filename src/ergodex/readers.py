@@ -970,6 +970,8 @@ _TIME_UNIT_WORDS = {
     "minutes": "minutes", "minute": "minutes", "mins": "minutes", "min": "minutes",
     "hours": "hours", "hour": "hours", "hrs": "hours", "hr": "hours", "h": "hours",
     "days": "days", "day": "days", "d": "days",
+    # cftime decodes "months since" on the 360_day calendar only, where months are equal
+    "months": "months", "month": "months",
 }
 
 
@@ -1063,7 +1065,7 @@ def _netcdf_dt(ds, source: str, n_time: int, dt_arg: float | None,
     calendar = str(attrs.get("calendar", "standard")).strip().lower() or "standard"
     dates = decode_times(t, units, calendar, where=f"{source}: time")
     if unit is None:
-        raise DataError(f"{source}: time units {units!r}: {word!r} is not a unit of elapsed time;"
+        raise DataError(f"{source}: time units {units!r}: {word!r} is not a unit ergodex reads;"
                         " write the times in seconds, minutes, hours or days since a date")
     try:
         return elapsed(), unit
