@@ -134,6 +134,20 @@ def test_series_written_with_a_time_unit_reads_back_with_it(tmp_path):
     assert back.time_unit == "hours" and back.fingerprint() == series.fingerprint()
 
 
+def test_npz_keeps_the_time_unit_and_refuses_a_malformed_one(tmp_path):
+    from ergodex.readers import read_npz
+    from ergodex.writers import write_npz
+
+    rng = np.random.default_rng(33)
+    series = Series.from_arrays(rng.normal(size=(2, 30, 2)), ("u", "v"), 0.25, time_unit="days")
+    back = read_npz(write_npz(tmp_path / "s.npz", series))
+    assert back.time_unit == "days" and back.fingerprint() == series.fingerprint()
+    np.savez(tmp_path / "bad.npz", values=rng.normal(size=(30, 2)), names=np.array(["u", "v"]),
+             dt=0.25, time_unit=np.array(["days", "hours"]))
+    with pytest.raises(DataError, match=r"bad\.npz: 'time_unit' must be one string"):
+        read_npz(tmp_path / "bad.npz")
+
+
 def test_station_dimension_becomes_one_variable_per_station(tmp_path):
     rng = np.random.default_rng(28)
     values = rng.normal(size=(50, 3))

@@ -23,7 +23,7 @@ NPZ layout
 ``values``: float array, 2-D (n_samples, n_variables) for one run or 3-D
 (n_runs, n_samples, n_variables); or 2-D stacked runs with ``lengths`` (1-D int, one per run);
 ``names``: 1-D string array; ``dt``: scalar (or pass ``dt=``); optional ``units`` and
-``run_labels`` (1-D string arrays). Loaded with ``allow_pickle=False``.
+``run_labels`` (1-D string arrays) and ``time_unit`` (one string, the unit of ``dt``). Loaded with ``allow_pickle=False``.
 
 NetCDF layout
 -------------
@@ -934,6 +934,13 @@ def read_npz(
             f"{source}: 'names' has {len(names)} entries but 'values' has {n_var} columns"
         )
     units = _npz_strings(data, "units", n_var, source)
+    time_unit = None
+    if "time_unit" in data:
+        raw = np.asarray(data["time_unit"])
+        if raw.ndim != 0 or raw.dtype.kind != "U":
+            raise DataError(f"{source}: 'time_unit' must be one string such as 'hours', got an "
+                            f"array of shape {raw.shape} and dtype {raw.dtype}")
+        time_unit = str(raw[()])
     labels = _npz_strings(data, "run_labels", len(arrays), source)
     if labels is None:
         labels = [f"{path.stem}" if len(arrays) == 1 else str(i) for i in range(len(arrays))]
@@ -953,7 +960,7 @@ def read_npz(
     ]
     return _finish(
         runs, names, dt_val, source=source, split_at_gaps=split_at_gaps,
-        min_samples=min_samples, units=units,
+        min_samples=min_samples, units=units, time_unit=time_unit,
     )
 
 

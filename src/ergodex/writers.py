@@ -124,6 +124,8 @@ def write_npz(path: str | os.PathLike, series: Series) -> Path:
         arrays["units"] = np.asarray(series.units, dtype=str)
     if series.run_labels is not None:
         arrays["run_labels"] = np.asarray(series.run_labels, dtype=str)
+    if series.time_unit is not None:
+        arrays["time_unit"] = np.asarray(series.time_unit, dtype=str)
     _savez_atomic(path, arrays)
     return path
 
