@@ -148,6 +148,19 @@ def test_npz_keeps_the_time_unit_and_refuses_a_malformed_one(tmp_path):
         read_npz(tmp_path / "bad.npz")
 
 
+def test_dataset_folder_keeps_the_unit_its_files_share(tmp_path):
+    from ergodex.readers import read_dataset
+    from ergodex.writers import write_dataset
+
+    rng = np.random.default_rng(34)
+    series = Series.from_arrays(rng.normal(size=(2, 30, 2)), ("u", "v"), 6.0,
+                                run_labels=("a", "b"), time_unit="hours")
+    write_dataset(tmp_path / "ds", series, name="six", fmt="nc")
+    assert read_dataset(tmp_path / "ds").series.time_unit == "hours"
+    write_dataset(tmp_path / "csv", series, name="six", fmt="csv")
+    assert read_dataset(tmp_path / "csv").series.time_unit is None  # CSV has no place for it
+
+
 def test_station_dimension_becomes_one_variable_per_station(tmp_path):
     rng = np.random.default_rng(28)
     values = rng.normal(size=(50, 3))

@@ -1287,6 +1287,7 @@ def read_dataset(
     root = folder.resolve()
     run_arrays: list[np.ndarray] = []
     labels: list[str] = []
+    time_units: set[str | None] = set()
     for entry in files:
         rel = Path(entry)
         if rel.is_absolute() or ".." in rel.parts or entry.strip() == "":
@@ -1318,6 +1319,7 @@ def read_dataset(
                 + (f"; not in the manifest {extra}" if extra else "")
             )
         order = [part.names.index(v) for v in variables]
+        time_units.add(part.time_unit)
         stem = rel.with_suffix("").as_posix()
         for r, arr in enumerate(part.runs):
             run_arrays.append(arr[:, order])
@@ -1330,8 +1332,11 @@ def read_dataset(
             manifest,
             f"held-out run(s) {unknown_holdout} not found; the runs are {', '.join(labels)}",
         )
+    # the files' time unit, when every file names the same one (the manifest's dt has none)
+    time_unit = next(iter(time_units)) if len(time_units) == 1 else None
     series = Series.from_arrays(
-        run_arrays, variables, dt, units=units, run_labels=labels, source=str(folder)
+        run_arrays, variables, dt, units=units, run_labels=labels, source=str(folder),
+        time_unit=time_unit,
     )
     return Dataset(
         series=series,

@@ -284,7 +284,7 @@ def write_dataset(
     # Relabel so that the labels the reader produces (file stems) are the ones recorded.
     labelled = Series.from_arrays(
         list(series.runs), series.names, series.dt, units=units, run_labels=stems,
-        source=series.source,
+        source=series.source, time_unit=series.time_unit,
     )
     held: list[str] = []
     if holdout is not None:
