@@ -23,7 +23,8 @@ NPZ layout
 ``values``: float array, 2-D (n_samples, n_variables) for one run or 3-D
 (n_runs, n_samples, n_variables); or 2-D stacked runs with ``lengths`` (1-D int, one per run);
 ``names``: 1-D string array; ``dt``: scalar (or pass ``dt=``); optional ``units`` and
-``run_labels`` (1-D string arrays) and ``time_unit`` (one string, the unit of ``dt``). Loaded with ``allow_pickle=False``.
+``run_labels`` (1-D string arrays) and ``time_unit`` (one string, the unit of ``dt``). Loaded
+with ``allow_pickle=False``.
 
 NetCDF layout
 -------------

@@ -363,7 +363,8 @@ class Series:
 
         Every length is written before the bytes it counts, so no two different Series share an
         encoding. Units, the time unit, run labels and the source are not part of the data's
-        identity and are not hashed. The same numbers read from CSV, NPZ or NetCDF give the same fingerprint.
+        identity and are not hashed. The same numbers read from CSV, NPZ or NetCDF give the same
+        fingerprint.
         """
         h = hashlib.sha256()
         h.update(_FINGERPRINT_TAG)
