@@ -24,9 +24,11 @@ xarray ``DataArray``
 
 Times
 -----
-Numeric times are in the data's own unit. Datetimes and timedeltas are converted to
-``time_unit`` (default seconds): ``dt`` is then the step in seconds unless told otherwise. Steps
-must be uniform within ``time_tolerance`` of the step, as in the CSV reader.
+Numeric times are in the data's own unit, which the Series keeps as its ``time_unit`` when the
+data name it (a ``time_unit`` attribute, or a plain ``units`` attribute such as ``"hours"`` on the
+time coordinate). Datetimes and timedeltas are converted to ``time_unit`` (default seconds):
+``dt`` is then the step in seconds unless told otherwise, and the Series' ``time_unit`` says
+so. Steps must be uniform within ``time_tolerance`` of the step, as in the CSV reader.
 """
 
 from __future__ import annotations
@@ -42,6 +44,9 @@ __all__ = ["as_series", "from_pandas", "from_xarray", "to_xarray", "TIME_UNITS"]
 
 #: Units a datetime or timedelta time axis can be converted to, with their length in seconds.
 TIME_UNITS = {"s": 1.0, "min": 60.0, "h": 3600.0, "D": 86400.0, "ms": 1e-3}
+#: The word a Series keeps as its ``time_unit`` for each of :data:`TIME_UNITS`.
+TIME_UNIT_WORDS = {"s": "seconds", "min": "minutes", "h": "hours", "D": "days",
+                   "ms": "milliseconds"}
 
 _RUN_NAMES = ("run", "member")
 #: Per-member coordinates of a simulated ensemble (see :func:`ergodex.simulate`); not variables.
@@ -153,8 +158,19 @@ def _times_as_numbers(values: Any, time_unit: str, source: str, column: str) -> 
     )
 
 
+def _unit_word(values: Any, time_unit: str, stored: Any) -> str | None:
+    """The Series' ``time_unit``: the conversion unit for datetimes/timedeltas, else a plain
+    unit the data state (an attribute such as ``units = "hours"``), else None."""
+    kind = np.asarray(values).dtype.kind
+    if kind in "Mm":
+        return TIME_UNIT_WORDS.get(time_unit)
+    if isinstance(stored, str) and stored.strip() and " since " not in stored:
+        return stored.strip()
+    return None
+
+
 def _finish_frame(values, names, times, bounds, *, dt, time_tolerance, source, column, where,
-                  units=None, trim_padding=False, dt_is_hint=False):
+                  units=None, trim_padding=False, dt_is_hint=False, time_unit=None):
     """dt from the times (the CSV reader's rules), then the runs through the readers' checks."""
     from ergodex import readers
 
@@ -180,7 +196,7 @@ def _finish_frame(values, names, times, bounds, *, dt, time_tolerance, source, c
                 raise DataError(f"{source}: run {label!r} has no values (every row is missing)")
         runs.append(readers._Run(values=block, label=label, where=lambda r, a=a: where(a + r)))
     return readers._finish(runs, names, dt_final, source=source, split_at_gaps=False,
-                           min_samples=2, units=units)
+                           min_samples=2, units=units, time_unit=time_unit)
 
 
 # --- pandas ------------------------------------------------------------------------------------
@@ -259,15 +275,16 @@ def from_pandas(
             if bounds:
                 bounds[-1] = (bounds[-1][0], i, bounds[-1][2])
             bounds.append((i, n, label))
-    times = None
+    times, unit_word = None, None
     if time_col is not None:
         column = frame[time_col]
         if isinstance(column.dtype, pd.DatetimeTZDtype):
             column = column.dt.tz_convert("UTC").dt.tz_localize(None)
+        unit_word = _unit_word(column.to_numpy(), time_unit, frame.attrs.get("time_unit"))
         times = _times_as_numbers(column.to_numpy(), time_unit, source, time_col)
     return _finish_frame(values, var_cols, times, bounds, dt=dt, time_tolerance=time_tolerance,
                          source=source, column=time_col or "time",
-                         where=lambda i: f"row {i + 1}")
+                         where=lambda i: f"row {i + 1}", time_unit=unit_word)
 
 
 # --- xarray ------------------------------------------------------------------------------------
@@ -321,8 +338,10 @@ def from_xarray(
         labels = [str(x) for x in np.asarray(ds[member].values).tolist()]
     else:
         labels = [str(i) for i in range(n_runs)]
-    times = None
+    times, unit_word = None, None
     if "time" in ds.coords:
+        stored = ds.attrs.get("time_unit") or ds["time"].attrs.get("units")
+        unit_word = _unit_word(ds["time"].values, time_unit, stored)
         one = _times_as_numbers(ds["time"].values, time_unit, source, "time")
         times = np.tile(one, n_runs)
     bounds = [(i * n_time, (i + 1) * n_time, labels[i]) for i in range(n_runs)]
@@ -338,7 +357,7 @@ def from_xarray(
     return _finish_frame(cube.reshape(n_runs * n_time, len(names)), names, times, bounds,
                          dt=float(recorded) if hint else dt, time_tolerance=time_tolerance,
                          source=source, column="time", where=where, units=units,
-                         trim_padding=True, dt_is_hint=hint)
+                         trim_padding=True, dt_is_hint=hint, time_unit=unit_word)
 
 
 def _dataarray_to_dataset(da: Any, source: str) -> Any:
@@ -360,7 +379,9 @@ def to_xarray(series: Series) -> Any:
 
     ``time`` holds ``i * dt``; ``run`` the run labels (``"0"``, ``"1"`` ... without labels);
     shorter runs are padded with NaN at the end (dropped again by :func:`from_xarray`). Units go
-    to each variable's ``units`` attribute, ``dt`` and the source to the Dataset's attributes.
+    to each variable's ``units`` attribute, ``dt`` and the source to the Dataset's attributes,
+    the time unit (when known) to the ``time`` coordinate's ``units`` and the ``time_unit``
+    attribute, so :func:`from_xarray` gives it back.
     """
     xr = require("xarray", "netcdf", "converting to xarray")
     n_time = max(series.lengths)
@@ -372,7 +393,10 @@ def to_xarray(series: Series) -> Any:
     for k, name in enumerate(series.names):
         attrs = {"units": series.units[k]} if series.units is not None else {}
         data_vars[name] = (("run", "time"), cube[:, :, k], attrs)
+    time_attrs = {"units": series.time_unit} if series.time_unit else {}
     coords = {"run": ("run", np.asarray(labels, dtype=str)),
-              "time": ("time", np.arange(n_time) * series.dt)}
+              "time": ("time", np.arange(n_time) * series.dt, time_attrs)}
     attrs = {"dt": series.dt, "source": series.source, "data_fingerprint": series.fingerprint()}
+    if series.time_unit:
+        attrs["time_unit"] = series.time_unit
     return xr.Dataset(data_vars, coords=coords, attrs=attrs)

@@ -33,6 +33,7 @@ __all__ = [
     "split_runs",
     "cut_blocks",
     "split_blocks",
+    "format_dt",
 ]
 
 #: Column names with a meaning of their own in CSV files; they cannot name a state variable.
@@ -156,6 +157,13 @@ class Series:
         A label per run (e.g. the values of a CSV ``run`` column).
     source : str
         File or folder the data came from; used in error messages.
+    time_unit : str or None
+        Unit of ``dt`` and of every time derived from it (``"hours"``, ``"days"``,
+        ``"seconds"``...), when the data say it: NetCDF times carry it, a CSV time column does
+        not. Kept out of :meth:`fingerprint` on purpose: the fingerprint identifies the numbers,
+        and the same numbers written to CSV or NPZ (which have no place for the unit) must keep
+        the fingerprint that registered models and evidence files already record. The fitters
+        record the unit beside the fingerprint in a model's provenance instead.
     """
 
     runs: tuple[np.ndarray, ...]
@@ -164,11 +172,18 @@ class Series:
     units: tuple[str, ...] | None = None
     run_labels: tuple[str, ...] | None = None
     source: str = ""
+    time_unit: str | None = None
 
     def __post_init__(self) -> None:
         runs, names, dt, units, labels = _validate(
             self.runs, self.names, self.dt, self.units, self.run_labels, self.source
         )
+        if self.time_unit is not None and (
+            not isinstance(self.time_unit, str) or not self.time_unit.strip()
+            or not self.time_unit.isprintable()
+        ):
+            raise DataError(f"{_where(self.source)}time_unit must be a non-empty word such as "
+                            f"'hours' or None, got {self.time_unit!r}")
         object.__setattr__(self, "runs", runs)
         object.__setattr__(self, "names", names)
         object.__setattr__(self, "dt", dt)
@@ -185,6 +200,7 @@ class Series:
         units: Sequence[str] | None = None,
         run_labels: Sequence[str] | None = None,
         source: str = "",
+        time_unit: str | None = None,
     ) -> Series:
         """Validate arrays and build a Series.
 
@@ -204,6 +220,8 @@ class Series:
             One unique label per run.
         source : str, optional
             Where the data came from, quoted in error messages.
+        time_unit : str, optional
+            Unit of ``dt`` (``"hours"``, ``"days"``...), printed beside it; not hashed.
 
         Returns
         -------
@@ -230,6 +248,7 @@ class Series:
             units=None if units is None else tuple(units),
             run_labels=None if run_labels is None else tuple(run_labels),
             source=source,
+            time_unit=time_unit,
         )
 
     @classmethod
@@ -326,6 +345,7 @@ class Series:
             units=self.units,
             run_labels=labels,
             source=self.source,
+            time_unit=self.time_unit,
         )
 
     # --- identity ----------------------------------------------------------------------------
@@ -342,8 +362,9 @@ class Series:
            little-endian in C order (row by row), with ``-0.0`` written as ``0.0``.
 
         Every length is written before the bytes it counts, so no two different Series share an
-        encoding. Units, run labels and the source are not part of the data's identity and are
-        not hashed. The same numbers read from CSV, NPZ or NetCDF give the same fingerprint.
+        encoding. Units, the time unit, run labels and the source are not part of the data's
+        identity and are not hashed. The same numbers read from CSV, NPZ or NetCDF give the same
+        fingerprint.
         """
         h = hashlib.sha256()
         h.update(_FINGERPRINT_TAG)
@@ -364,8 +385,20 @@ class Series:
     def __repr__(self) -> str:
         return (
             f"Series(n_runs={self.n_runs}, lengths={self.lengths}, names={self.names}, "
-            f"dt={self.dt!r}{', source=' + repr(self.source) if self.source else ''})"
+            f"dt={self.dt!r}{', time_unit=' + repr(self.time_unit) if self.time_unit else ''}"
+            f"{', source=' + repr(self.source) if self.source else ''})"
         )
+
+
+def format_dt(dt: float, unit: str | None) -> str:
+    """The sampling interval as printed everywhere: ``"6 hours"``, or ``"0.01"`` without a unit.
+
+    Examples
+    --------
+    >>> format_dt(6.0, "hours"), format_dt(0.01, None)
+    ('6 hours', '0.01')
+    """
+    return f"{dt:g} {unit}" if unit else f"{dt:g}"
 
 
 def _validate(runs, names, dt, units, labels, source):
@@ -545,6 +578,7 @@ def cut_blocks(series: Series, n_blocks: int, gap: float) -> Series:
         units=series.units,
         run_labels=tuple(block_labels),
         source=series.source,
+        time_unit=series.time_unit,
     )
 
 

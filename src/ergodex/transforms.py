@@ -590,6 +590,6 @@ def transform_series(transform: Transform, series: Series) -> Series:
     runs = [transform.forward(r) for r in series.runs]
     return Series.from_arrays(
         runs, transform.output_names, series.dt, run_labels=series.run_labels,
-        source=series.source,
+        source=series.source, time_unit=series.time_unit,
     )
 

@@ -515,11 +515,20 @@ class Evidence:
     sample_model: np.ndarray
     blowup_times: np.ndarray
 
-    def to_npz(self, path: str | os.PathLike) -> None:
-        """Write every array to ``path`` (compressed NPZ, atomically)."""
+    def to_npz(self, path: str | os.PathLike, *,
+               extra: dict[str, np.ndarray] | None = None) -> None:
+        """Write every array to ``path`` (compressed NPZ, atomically).
+
+        ``extra`` arrays (e.g. a field check's grid maps) are stored beside the fixed ones under
+        their own keys; :meth:`from_npz` ignores them, so files with and without them read alike.
+        """
         path = Path(path)
+        clash = sorted(set(extra or {}) & {*EVIDENCE_FIELDS, "format"})
+        if clash:
+            raise SettingsError(f"evidence: extra array {clash[0]!r} would replace a fixed field")
         arrays = {name: np.asarray(getattr(self, name)) for name in EVIDENCE_FIELDS}
         arrays["format"] = np.array(EVIDENCE_FORMAT)
+        arrays.update({key: np.asarray(value) for key, value in (extra or {}).items()})
         def write(tmp: Path) -> None:
             with open(tmp, "wb") as handle:  # a file object: savez must not add ".npz"
                 np.savez_compressed(handle, **arrays)
@@ -788,7 +797,8 @@ def _compared_space(surrogate, reference, observed):
     if observed != list(mapped.names):
         mapped = Series.from_arrays([run[:, [mapped.names.index(v) for v in observed]]
                                      for run in mapped.runs], observed, mapped.dt,
-                                    run_labels=mapped.run_labels, source=mapped.source)
+                                    run_labels=mapped.run_labels, source=mapped.source,
+                                    time_unit=mapped.time_unit)
     return mapped, True
 
 
@@ -843,7 +853,8 @@ def align_columns(surrogate, series):
     return Series.from_arrays([run[:, take] for run in series.runs], names, series.dt,
                               units=None if series.units is None
                               else [series.units[j] for j in take],
-                              run_labels=series.run_labels, source=series.source)
+                              run_labels=series.run_labels, source=series.source,
+                              time_unit=series.time_unit)
 
 
 def check(surrogate, reference, spec: CheckSpec | None = None, *, initial_states=None,
@@ -1043,6 +1054,9 @@ def _check(surrogate, reference, spec, initial_states, update, *,
 
     ctx = {"statistics": statistics, "max_lag_samples": max_lag, "dt": dt, "nperseg": nperseg,
            "regimes": regimes, "variables": variables}
+    from ergodex.series import format_dt
+
+    time_unit = getattr(data_reference, "time_unit", None)
     settings = {
         **piece_info,
         "piece_length_time": L * dt, "gap": gap, "spinup": spinup, "max_lag": max_lag * dt,
@@ -1050,6 +1064,9 @@ def _check(surrogate, reference, spec, initial_states, update, *,
         "integrated_autocorrelation_time": {v: float(t) for v, t in zip(variables, tau)},
         "member_length": n_out * dt, "pieces_per_member": pieces_per_member,
         "statistics": list(statistics), "dt": dt,
+        # every time above is in this unit; "dt_text" is dt as printed (format_dt)
+        "time_unit": time_unit,
+        "dt_text": format_dt(dt, time_unit),
         "start_seed": int(seeds[0]), "starts": starts_note, "noise_seed": run.seed,
         "integration": run.summary(),
         "regimes_used": None if regimes is None else regimes.to_dict(),

@@ -124,6 +124,8 @@ def write_npz(path: str | os.PathLike, series: Series) -> Path:
         arrays["units"] = np.asarray(series.units, dtype=str)
     if series.run_labels is not None:
         arrays["run_labels"] = np.asarray(series.run_labels, dtype=str)
+    if series.time_unit is not None:
+        arrays["time_unit"] = np.asarray(series.time_unit, dtype=str)
     _savez_atomic(path, arrays)
     return path
 
@@ -131,7 +133,8 @@ def write_npz(path: str | os.PathLike, series: Series) -> Path:
 def write_netcdf(path: str | os.PathLike, series: Series) -> Path:
     """Write a Series as NetCDF (``netcdf`` extra): dims ``(time,)`` or ``(member, time)``.
 
-    All runs must have the same length for the ``member`` dimension.
+    All runs must have the same length for the ``member`` dimension. A known time unit goes to
+    the ``time`` coordinate's ``units`` as a plain word (``"hours"``), which the reader keeps.
     """
     xr = require("xarray", "netcdf", "writing NetCDF files")
     engine = _netcdf_engine()
@@ -151,7 +154,8 @@ def write_netcdf(path: str | os.PathLike, series: Series) -> Path:
             data_vars[name] = (("time",), series.runs[0][:, k], attrs)
         else:
             data_vars[name] = (("member", "time"), np.stack([r[:, k] for r in series.runs]), attrs)
-    coords: dict[str, Any] = {"time": ("time", times)}
+    time_attrs = {"units": series.time_unit} if series.time_unit else {}
+    coords: dict[str, Any] = {"time": ("time", times, time_attrs)}
     if series.n_runs > 1:
         labels = series.run_labels or tuple(str(i) for i in range(series.n_runs))
         coords["member"] = ("member", np.asarray(labels, dtype=str))
@@ -280,7 +284,7 @@ def write_dataset(
     # Relabel so that the labels the reader produces (file stems) are the ones recorded.
     labelled = Series.from_arrays(
         list(series.runs), series.names, series.dt, units=units, run_labels=stems,
-        source=series.source,
+        source=series.source, time_unit=series.time_unit,
     )
     held: list[str] = []
     if holdout is not None:

@@ -64,10 +64,10 @@ def run(args: argparse.Namespace) -> int:
     print("Equations found:")
     for line in flow.surrogate.equations():
         print(f"  {line}")
-    transform = flow.surrogate.transform
-    if getattr(transform, "kind", "") == "field-modes":
-        print(f"  (time in {transform.clock_.unit}: dt = {transform.dt_text}, "
-              f"{transform.clock_.calendar} calendar; rates are per {transform.clock_.unit[:-1]})")
+    from ergodex.cli.fields import time_unit_note
+
+    if time_unit_note(flow.surrogate):
+        print(f"  ({time_unit_note(flow.surrogate)})")
     print()
     print(card.table())
     print()

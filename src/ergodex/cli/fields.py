@@ -17,6 +17,7 @@ from typing import Any
 import numpy as np
 
 from ergodex.exceptions import DataError, SettingsError
+from ergodex.series import format_dt
 
 __all__ = ["add_check_options", "add_fit_options", "check_field_arg", "field_output_map",
            "read_check_input", "read_fit_input", "time_unit_note", "write_simulated_field"]
@@ -106,14 +107,14 @@ def read_fit_input(args: argparse.Namespace, read_series: Callable) -> tuple[Any
                                 f"(a gridded NetCDF field)")
         series = read_series(args.data, dt=args.dt)
         if args.delays is None:
-            return series, (lambda s: s), f"dt {series.dt:g}"
+            return series, (lambda s: s), f"dt {format_dt(series.dt, series.time_unit)}"
         from ergodex.fields.modelling import attach_transform, delay_series
 
         if args.delays < 2 or args.delay_step < 1:
             raise SettingsError(f"--delays must be at least 2 and --delay-step at least 1; got "
                                 f"{args.delays} and {args.delay_step}")
         transform, embedded = delay_series(series, args.delays, args.delay_step)
-        note = (f"dt {series.dt:g}; {args.delays} delay coordinates "
+        note = (f"dt {format_dt(series.dt, series.time_unit)}; {args.delays} delay coordinates "
                 f"{args.delay_step} sample(s) apart")
         return embedded, (lambda s: attach_transform(s, transform)), note
     if getattr(args, "reference", None):
@@ -168,12 +169,15 @@ def read_check_input(args: argparse.Namespace, surrogate, read_series: Callable)
 
 
 def check_field_arg(args: argparse.Namespace, surrogate, field, spec):
-    """Run the field check (mode rows plus grid rows) with the ``--region`` boxes."""
+    """Run the field check (mode rows plus grid rows) with the ``--region`` boxes, under the
+    ``--time-limit`` and ``--max-memory`` of ``validate``."""
     from ergodex.fields import parse_box
     from ergodex.fields.checking import check_field
 
     regions = [parse_box(text) for text in args.region]
-    return check_field(surrogate, field, spec, regions=regions)
+    return check_field(surrogate, field, spec, regions=regions,
+                       time_limit=getattr(args, "time_limit", None),
+                       max_memory=getattr(args, "max_memory", None))
 
 
 def field_output_map(surrogate, dt: float):
@@ -218,14 +222,23 @@ def write_simulated_field(path, surrogate, series, args: argparse.Namespace):
 
 
 def time_unit_note(surrogate) -> str | None:
-    """One line naming a field model's time unit (its rates and times are in that unit)."""
+    """One line naming a model's time unit (its rates and times are in that unit), or None.
+
+    The one place fit, validate, simulate and demo word it: a field model's clock (with its
+    calendar), else the ``time_unit`` its fitter recorded from the data (NetCDF times).
+    """
     from ergodex.fields.modelling import field_transform_of
 
     t = field_transform_of(surrogate)
-    if t is None:
-        return None
-    return (f"time unit: {t.clock_.unit} (dt = {t.dt_text}, {t.clock_.calendar} calendar); "
-            f"times and rates above are in {t.clock_.unit}")
+    if t is not None:
+        unit, dt, calendar = t.clock_.unit, t.clock_.step, f", {t.clock_.calendar} calendar"
+    else:
+        provenance = surrogate.provenance
+        unit, dt, calendar = provenance.get("time_unit"), provenance.get("dt"), ""
+        if not isinstance(unit, str) or not unit or not isinstance(dt, (int, float)):
+            return None
+    return (f"time unit: {unit} (dt = {format_dt(float(dt), unit)}{calendar}); "
+            f"times and rates are in {unit}")
 
 
 def _registered_version(ref: str, home) -> str | None:

@@ -170,7 +170,16 @@ def run(args: argparse.Namespace) -> int:
         summary["note"] = info.note
     if isinstance(fit_settings, dict):
         summary.update(fit_settings)
+    sections: list = []
+    field_model = getattr(surrogate.transform, "kind", "") == "field-modes"
+    if field_model and "evidence.npz" in info.artifacts:
+        from ergodex.fields.maps import stored_map_sections
+
+        # a field model's check stores its grid maps beside the evidence arrays
+        sections = stored_map_sections(surrogate, registry.artifact(info, "evidence.npz"),
+                                       name=f"{info.ref}: evidence.npz")
     target.parent.mkdir(parents=True, exist_ok=True)
-    write_report(target, result, surrogate, title=title, fit_summary=summary)
+    write_report(target, result, surrogate, title=title, fit_summary=summary,
+                 extra_sections=sections)
     print(target)
     return 0

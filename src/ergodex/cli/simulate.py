@@ -309,7 +309,8 @@ def run(args: argparse.Namespace) -> int:
               "and output); a data file cannot hold a constant variable; nothing written",
               file=sys.stderr)
         return 1
-    series = Series.from_arrays(runs, names, dt, run_labels=labels, source=str(args.model))
+    series = Series.from_arrays(runs, names, dt, run_labels=labels, source=str(args.model),
+                                time_unit=surrogate.provenance.get("time_unit") or None)
     if args.out is None:
         with tempfile.TemporaryDirectory() as tmp:
             target = write_csv(Path(tmp) / "simulation.csv", series)

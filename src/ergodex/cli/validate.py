@@ -138,6 +138,7 @@ def run(args: argparse.Namespace) -> int:
             check_writable(target, f"--{option}")
 
     extra_sections: list = []
+    extra_arrays = None
     if field is None:
         result = check(surrogate, reference, spec, time_limit=args.time_limit,
                        max_memory=args.max_memory, progress=show_progress(args))
@@ -146,6 +147,9 @@ def run(args: argparse.Namespace) -> int:
 
         field_check = check_field_arg(args, surrogate, field, spec)
         result, extra_sections = field_check.result, field_check.report_sections()
+        from ergodex.fields.maps import evidence_maps
+
+        extra_arrays = evidence_maps(field_check)  # so 'ergodex report' redraws the maps
     scorecard = result.scorecard
     if choice is not None:  # said after the work, so that a refusal stays one line
         if not args.quiet:
@@ -158,7 +162,7 @@ def run(args: argparse.Namespace) -> int:
         scorecard.to_json(args.json)
     if evidence:
         Path(evidence).parent.mkdir(parents=True, exist_ok=True)
-        result.evidence.to_npz(evidence)
+        result.evidence.to_npz(evidence, extra=extra_arrays)
     if report:
         from ergodex.report import write_report
 
@@ -166,8 +170,8 @@ def run(args: argparse.Namespace) -> int:
         write_report(report, result, surrogate, extra_sections=extra_sections)
         print(f"ergodex validate: report written to {report}", file=sys.stderr)
     print("\n".join(quiet_lines(scorecard)) if args.quiet else scorecard.table())
-    if field is not None and not args.quiet:
-        from ergodex.cli.fields import time_unit_note
+    from ergodex.cli.fields import time_unit_note
 
+    if time_unit_note(surrogate) and not args.quiet:
         print(time_unit_note(surrogate))
     return EXIT_PASS if scorecard.passed else EXIT_FAIL

@@ -89,7 +89,9 @@ class Clock:
     @property
     def dt_text(self) -> str:
         """The step with its unit, as printed everywhere (``"6 hours"``, ``"1 months"``)."""
-        return f"{self.step:g} {self.unit}"
+        from ergodex.series import format_dt
+
+        return format_dt(self.step, self.unit)
 
     def steps_of(self, dates: np.ndarray, *, where: str) -> np.ndarray:
         """Sample indices (relative to ``origin``) of the given dates; DataError when off-grid."""

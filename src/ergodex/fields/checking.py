@@ -203,7 +203,9 @@ def _box_weights(transform: FieldModes, regions: list[Box]) -> dict[str, np.ndar
     return out
 
 
-def check_field(surrogate, reference: Field, spec=None, *, regions: list[Box] = ()) -> FieldCheck:
+def check_field(surrogate, reference: Field, spec=None, *, regions: list[Box] = (),
+                time_limit: float | None = None,
+                max_memory: int | str | None = None) -> FieldCheck:
     """Check a field surrogate on the reference field: mode rows plus grid rows, one verdict.
 
     Parameters
@@ -215,8 +217,17 @@ def check_field(surrogate, reference: Field, spec=None, *, regions: list[Box] = 
     spec : CheckSpec, optional
     regions : list of Box
         Boxes whose mean series get histogram, autocorrelation and spectrum rows.
+    time_limit : float, optional
+        Wall-clock seconds for the whole check, both ensembles together (as for
+        :func:`ergodex.validation.check`); over it :class:`ModelLimitError` (a model failure).
+    max_memory : int or str, optional
+        Memory limit (``"2GB"``) for each ensemble and for the grid pieces of the grid rows;
+        over it :class:`SettingsError` before the work starts.
     """
+    import time
+
     from ergodex.integrate import blowup_bound, integrate_ensemble
+    from ergodex.limits import check_memory
     from ergodex.surrogate import Surrogate
     from ergodex.validation import CheckSpec, check
 
@@ -231,7 +242,8 @@ def check_field(surrogate, reference: Field, spec=None, *, regions: list[Box] = 
     bare = Surrogate(surrogate.variables, surrogate.terms, surrogate.coefficients,
                      kind=surrogate.kind, noise=surrogate.noise, settings=surrogate.settings,
                      provenance=surrogate.provenance)
-    result = check(bare, modes, spec)
+    started = time.monotonic()
+    result = check(bare, modes, spec, time_limit=time_limit, max_memory=max_memory)
     card = result.scorecard
     card.model_fingerprint = surrogate.fingerprint()
     st = card.settings
@@ -242,9 +254,21 @@ def check_field(surrogate, reference: Field, spec=None, *, regions: list[Box] = 
     stacked = modes.stacked()
     starts = stacked[rng.choice(stacked.shape[0], size=spec.members, replace=True)]
     n_out = max(L, round(float(st["member_length"]) / dt))
+    # grid pieces of reference and model, each a stack and its reconstruction (two copies)
+    n_pieces = sum(n // L for n in modes.lengths) + spec.members * (n_out // L)
+    check_memory(2.0 * 8 * n_pieces * L * transform.area_.size,
+                 f"the grid rows ({n_pieces} pieces x {L} samples x {transform.area_.size} grid "
+                 "points)", "use fewer members, a smaller --box or a shorter record",
+                 max_memory)
+    remaining = None
+    if time_limit is not None:
+        # what the mode-space check left of the limit (a sliver, not zero, when it used it all:
+        # the grid ensemble then stops at its first check of the clock)
+        remaining = max(float(time_limit) - (time.monotonic() - started), 1e-3)
     run = integrate_ensemble(surrogate, starts, dt_out=dt, n_out=n_out, spinup=float(st["spinup"]),
                              bound=blowup_bound(stacked, factor=10.0),
-                             seed=int(rng.integers(2**31)))
+                             seed=int(rng.integers(2**31)), time_limit=remaining,
+                             max_memory=max_memory)
     alive = [run.states[m] for m in range(spec.members) if not run.blown_up[m]]
     steps = transform.clock_.steps_of(reference.clock.dates_at(reference.steps),
                                       where=reference.source)

@@ -34,6 +34,7 @@ def run_basin_demo(*, scenario: str = "basin", home=None, data_root="datasets",
     from ergodex.fields import Box, FieldModes, modes_series, read_field
     from ergodex.fields.basin import BASIN_VARIABLE, write_basin
     from ergodex.fields.checking import check_field
+    from ergodex.fields.maps import evidence_maps
     from ergodex.fields.modelling import attach_transform
     from ergodex.fitting import make_fitter
     from ergodex.registry import Registry
@@ -67,7 +68,7 @@ def run_basin_demo(*, scenario: str = "basin", home=None, data_root="datasets",
     registry = Registry(home)
     with tempfile.TemporaryDirectory(prefix="ergodex-evidence-") as tmp:
         evidence = Path(tmp) / "evidence.npz"
-        result.evidence.to_npz(evidence)
+        result.evidence.to_npz(evidence, extra=evidence_maps(field_check))
         info = registry.register(
             BASIN_NAME, surrogate, scorecard=result.scorecard, report_html=html,
             evidence_path=evidence, fit_settings={"method": "linear-inverse",

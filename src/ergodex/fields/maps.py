@@ -11,7 +11,12 @@ from collections.abc import Mapping
 
 import numpy as np
 
-__all__ = ["grid_maps_svg", "map_section", "plot_map"]
+__all__ = ["MAP_KEY_PREFIX", "evidence_maps", "grid_maps_svg", "map_section", "plot_map",
+           "stored_map_sections"]
+
+#: Key prefix of the grid maps stored in an evidence NPZ beside its fixed fields
+#: (``grid_map_reference_variance`` holds the map ``reference variance`` on the valid points).
+MAP_KEY_PREFIX = "grid_map_"
 
 
 def _edges(c: np.ndarray) -> np.ndarray:
@@ -94,3 +99,45 @@ def map_section(field_check) -> tuple[str, str, str]:
     table = _key_value_table(s)
     body = _figure(svg, "maps of variance and lag-one autocorrelation", caption, wide=True) + table
     return _section("grid-maps", "Maps on the grid", body)
+
+
+def evidence_maps(field_check) -> dict[str, np.ndarray]:
+    """A field check's maps (values on the valid points) as extra arrays of its evidence file,
+    so that ``ergodex report`` redraws them from the registry (grid and mask come from the
+    model's transform)."""
+    return {MAP_KEY_PREFIX + name.replace(" ", "_"): np.asarray(values, dtype=np.float64)
+            for name, values in field_check.maps.items()}
+
+
+def stored_map_sections(surrogate, evidence_bytes: bytes, *, name: str) -> list:
+    """The map section of a field model's stored check, from its evidence bytes.
+
+    Empty for a model of plain columns, or evidence written without maps (before they were
+    stored, or by the plain check). A map whose size is not the model's number of valid points
+    raises :class:`~ergodex.exceptions.ModelFileError` naming ``name`` and the map.
+    """
+    import io
+
+    from ergodex.exceptions import ModelFileError
+    from ergodex.fields.checking import FieldCheck
+    from ergodex.fields.modelling import field_transform_of
+
+    transform = field_transform_of(surrogate)
+    if transform is None:
+        return []
+    try:
+        with np.load(io.BytesIO(evidence_bytes), allow_pickle=False) as z:
+            maps = {key[len(MAP_KEY_PREFIX):].replace("_", " "): np.asarray(z[key], float)
+                    for key in z.files if key.startswith(MAP_KEY_PREFIX)}
+    except (OSError, ValueError) as exc:
+        raise ModelFileError(f"{name}: cannot read the grid maps ({exc})") from None
+    n_valid = int(np.count_nonzero(transform.mask_))
+    for key, values in maps.items():
+        if values.shape != (n_valid,):
+            raise ModelFileError(f"{name}: grid map {key!r} has shape {values.shape}; the model "
+                                 f"has {n_valid} valid grid points")
+    if not maps:
+        return []
+    check = FieldCheck(result=None, maps=maps, lat=transform.lat_, lon=transform.lon_,
+                       mask=transform.mask_, summary=transform.summary())
+    return [map_section(check)]

@@ -346,7 +346,8 @@ def modes_series(transform: FieldModes, field: Field) -> Series:
             z = np.asarray((_minus(x, steps, transform._baseline) @ w.T).compute())
         runs.append(z)
     return Series.from_arrays(runs, transform.output_names, transform.clock_.step,
-                              run_labels=list(field.member_labels), source=field.source)
+                              run_labels=list(field.member_labels), source=field.source,
+                              time_unit=transform.clock_.unit)
 
 
 _BLOCK_ROWS = 256

@@ -216,7 +216,9 @@ def check_series(series) -> None:
 def data_provenance(series, model_runs=None, model_names=None, **extra: Any) -> dict[str, Any]:
     """What every fitted surrogate records about its data: fingerprint, size, sampling interval, range.
 
-    The interval lets ``ergodex simulate`` default its output step to the data's. The range of
+    The interval lets ``ergodex simulate`` default its output step to the data's; its unit
+    (``time_unit``, recorded when the data name it) is what every time and rate of the model is
+    in, printed beside dt. The range of
     each model-space variable over the training runs (``model_runs``, named ``model_names``) lets
     ``ergodex simulate`` stop a member that leaves it far behind (see
     :func:`ergodex.integrate.blowup_bound`) when no reference states are given.
@@ -230,6 +232,8 @@ def data_provenance(series, model_runs=None, model_names=None, **extra: Any) -> 
         "dt": float(series.dt),
         "ergodex_version": __version__,
     }
+    if getattr(series, "time_unit", None):
+        record["time_unit"] = str(series.time_unit)
     if model_runs is not None:
         stacked = np.concatenate([np.asarray(r, dtype=np.float64) for r in model_runs])
         stacked = stacked[np.all(np.isfinite(stacked), axis=1)]
