@@ -19,7 +19,7 @@ from ergodex.exceptions import DataError
 from ergodex.fitting.calibration import ensemble_kalman_inversion
 from ergodex.fitting.linear_inverse import LinearInverseModel
 from ergodex.fitting.settings import Rule
-from ergodex.fitting.transforming import model_space_runs
+from ergodex.fitting.transforming import cyclic_rotations, model_space_runs, reduce_series
 
 __all__ = [
     "CalibratedLinearInverse",
@@ -58,7 +58,9 @@ def statistics_vector(runs: list[np.ndarray], lags: tuple[int, ...]) -> np.ndarr
     return np.concatenate(blocks)
 
 
-def piece_noise_covariance(runs: list[np.ndarray], lags: tuple[int, ...], n_pieces: int) -> np.ndarray:
+def piece_noise_covariance(
+    runs: list[np.ndarray], lags: tuple[int, ...], n_pieces: int
+) -> np.ndarray:
     """Diagonal sampling covariance of :func:`statistics_vector` on ``runs``, from their pieces.
 
     Each run is cut into pieces of equal length (``n_pieces`` in all); the variance of a
@@ -135,6 +137,12 @@ class CalibratedLinearInverse(LinearInverseModel):
         Pieces the fit runs are cut into to estimate the noise of the target statistics.
     seed : int, default 0
         Seeds the calibration (parameter ensemble, perturbed observations and forward runs).
+    homogeneous : bool, default False
+        The variables are stations on a ring with the same statistics under a cyclic shift
+        (say so only when that is known): the transform, the linear model and the target
+        statistics use the runs plus all their rotations around the ring (see
+        :func:`~ergodex.fitting.transforming.cyclic_rotations`), so the modes are Fourier pairs;
+        the noise of the targets still comes from pieces of the runs as given.
 
     Attributes
     ----------
@@ -155,8 +163,8 @@ class CalibratedLinearInverse(LinearInverseModel):
     anomalies. J. Climate 8, 1999–2024.
     Iglesias, M. A., Law, K. J. H. & Stuart, A. M. (2013). Ensemble Kalman methods for inverse
     problems. Inverse Problems 29, 045001.
-    Cleary, E., Garbuno-Inigo, A., Lan, S., Schneider, T. & Stuart, A. M. (2021). Calibrate, emulate,
-    sample. J. Comput. Phys. 424, 109716.
+    Cleary, E., Garbuno-Inigo, A., Lan, S., Schneider, T. & Stuart, A. M. (2021). Calibrate,
+    emulate, sample. J. Comput. Phys. 424, 109716.
     """
 
     method = "calibrated-linear-inverse"
@@ -171,6 +179,7 @@ class CalibratedLinearInverse(LinearInverseModel):
                                   help="forward run length, multiple of the fit runs' length"),
         "n_pieces": Rule("int", low=2, help="pieces of the fit runs for the statistics' noise"),
         "seed": Rule("int", low=0, help="seed of the calibration"),
+        "homogeneous": Rule("bool", help="variables on a homogeneous ring: fit on all rotations"),
     }
     fit_stages = ("linear inverse model", "calibration")
 
@@ -191,6 +200,7 @@ class CalibratedLinearInverse(LinearInverseModel):
         simulation_length: float = 2.0,
         n_pieces: int = 8,
         seed: int = 0,
+        homogeneous: bool = False,
     ) -> None:
         super().__init__(
             tau0=tau0, tau_test=tau_test, tau_test_tolerance=tau_test_tolerance, n_modes=n_modes,
@@ -203,12 +213,22 @@ class CalibratedLinearInverse(LinearInverseModel):
         self.simulation_length = simulation_length
         self.n_pieces = n_pieces
         self.seed = seed
+        self.homogeneous = homogeneous
+
+    def _reduce(self, series):
+        if not self.homogeneous:
+            return super()._reduce(series)
+        return reduce_series(cyclic_rotations(series), method=self.method, n_modes=self.n_modes,
+                             standardise=self.standardise)
 
     def _fit(self, series) -> None:
         self._stage("linear inverse model")
         super()._fit(series)
         linear = self.surrogate_
         runs, _ = model_space_runs(series, linear.transform)
+        pooled = runs
+        if self.homogeneous:
+            pooled = model_space_runs(cyclic_rotations(series), linear.transform)[0]
         dt = float(series.dt)
         lag0 = int(round(self.tau0_ / dt))
         lags = tuple(sorted({max(1, int(round(f * lag0))) for f in self.calibration_lags}))
@@ -220,7 +240,7 @@ class CalibratedLinearInverse(LinearInverseModel):
             )
         self._stage("calibration")
         n = len(self.mean_)
-        target = statistics_vector(runs, lags)
+        target = statistics_vector(pooled, lags)
         n_members_sim = max(2, len(runs))
         total = sum(len(r) for r in runs)
         n_out = max(4 * max(lags), int(np.ceil(self.simulation_length * total / n_members_sim)))
@@ -229,11 +249,12 @@ class CalibratedLinearInverse(LinearInverseModel):
 
         rng = np.random.default_rng(self.seed)
         forward_seed = int(rng.integers(2**31))
-        stacked = np.concatenate(runs)
+        stacked = np.concatenate(pooled)
         starts = stacked[rng.choice(len(stacked), size=n_members_sim, replace=False)]
         from ergodex.integrate import blowup_bound
 
         bound = blowup_bound(stacked)
+        stiffness_states = stacked[:: max(1, len(stacked) // 256)]
         sigma2 = np.diag(self.C0_)
         damping_unit = np.abs(np.diag(self.L_)) / sigma2  # c in units of |Lᵢᵢ| / σᵢ²
         p = 3 * n if self.cubic_damping else 2 * n
@@ -257,8 +278,7 @@ class CalibratedLinearInverse(LinearInverseModel):
                 surrogate, _ = build(theta)
                 out[j] = surrogate_statistics(
                     surrogate, starts, dt=dt, n_out=n_out, spinup=5.0 * self.tau0_ * max(lags),
-                    lags=lags, seed=forward_seed, stiffness_states=stacked[:: max(1, len(stacked) // 256)],
-                    bound=bound,
+                    lags=lags, seed=forward_seed, stiffness_states=stiffness_states, bound=bound,
                 )
             return out
 
@@ -311,6 +331,7 @@ class CalibratedLinearInverse(LinearInverseModel):
             "simulation_length": self.simulation_length,
             "n_pieces": self.n_pieces,
             "seed": self.seed,
+            "homogeneous": self.homogeneous,
         }
 
     def _damped_surrogate(self, linear, r: np.ndarray, s: np.ndarray, c: np.ndarray):

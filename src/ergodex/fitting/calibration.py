@@ -49,7 +49,9 @@ def to_unconstrained(theta: np.ndarray, positive: np.ndarray) -> np.ndarray:
     """Map physical parameters to the space the ensemble moves in (log of the positive ones)."""
     u = np.array(theta, dtype=np.float64, copy=True)
     if np.any(u[..., positive] <= 0):
-        raise SettingsError("a positive parameter was given a value <= 0; its logarithm is undefined")
+        raise SettingsError(
+            "a positive parameter was given a value <= 0; its logarithm is undefined"
+        )
     u[..., positive] = np.log(u[..., positive])
     return u
 
@@ -218,7 +220,9 @@ def ensemble_kalman_inversion(
     for iteration in range(total):
         g = np.asarray(forward(to_physical(u, positive)), dtype=np.float64)
         if g.shape != (u.shape[0], len(y)):
-            raise SettingsError(f"forward map returned shape {g.shape}; expected {(u.shape[0], len(y))}")
+            raise SettingsError(
+                f"forward map returned shape {g.shape}; expected {(u.shape[0], len(y))}"
+            )
         ok = np.all(np.isfinite(g), axis=1)
         failures.append(int(np.count_nonzero(~ok)))
         if progress is not None:
@@ -226,7 +230,8 @@ def ensemble_kalman_inversion(
         if np.count_nonzero(ok) < 2:
             break
         residual = g[ok] - y
-        misfits.append(float(np.mean(np.einsum("ji,ik,jk->j", residual, gamma_inv, residual)) / len(y)))
+        weighted = np.einsum("ji,ik,jk->j", residual, gamma_inv, residual)
+        misfits.append(float(np.mean(weighted)) / len(y))
         if iteration == total - 1:
             break
         updated = eki_update(u[ok], g[ok], y, gamma, rng)
