@@ -4,10 +4,11 @@ A linear model driven by Gaussian white noise has Gaussian statistics; data whos
 have lighter tails than a Gaussian (negative excess kurtosis, as on the ring of 40 stations) are
 out of its reach. This fitter starts from the linear inverse model's drift ``L`` and noise ``Q``
 and adds, per model-space variable, a cubic damping ``−cᵢ (xᵢ − μᵢ)³`` with ``cᵢ ≥ 0`` (so the
-model stays bounded), a scale ``rᵢ`` of that variable's row of ``L`` and a scale ``sᵢ`` of its
-noise (``Q → S Q S``). The 3n parameters are tuned by ensemble Kalman inversion
+model stays bounded), a scale ``rᵢ`` of that variable's row of ``L``, a shift ``dᵢ |Lᵢᵢ|`` of its
+diagonal entry (damping apart from frequency: a wave pair's memory) and a scale ``sᵢ`` of its
+noise (``Q → S Q S``). The 4n parameters are tuned by ensemble Kalman inversion
 (:mod:`ergodex.fitting.calibration`) so that the surrogate's long-run variance, kurtosis and
-autocorrelation at two lags per variable match those of the fit runs; the noise of those
+autocorrelation at a few lags per variable match those of the fit runs; the noise of those
 statistics is estimated from pieces of the fit runs themselves. Held-out data are never seen.
 """
 
@@ -124,11 +125,11 @@ class CalibratedLinearInverse(LinearInverseModel):
     cubic_damping : bool, default True
         Add ``−cᵢ (xᵢ − μᵢ)³`` (cᵢ ≥ 0) to each variable's equation; False calibrates only the
         drift and noise scales of the linear model.
-    calibration_lags : list of float, default [1, 2]
+    calibration_lags : list of float, default [1, 2, 4]
         Lags of the autocorrelation targets, as multiples of τ₀ (rounded to whole samples).
     members : int, default 40
         Size of the ensemble Kalman inversion's parameter ensemble.
-    iterations : int, default 5
+    iterations : int, default 8
         Ensemble Kalman updates.
     simulation_length : float, default 2.0
         Length of each forward run, as a multiple of the total length of the fit runs; its
@@ -147,8 +148,8 @@ class CalibratedLinearInverse(LinearInverseModel):
     Attributes
     ----------
     Those of :class:`LinearInverseModel` (for the uncalibrated linear model), and:
-    drift_scale_, noise_scale_, cubic_coefficients_ : ndarray (n,)
-        The calibrated rᵢ, sᵢ, cᵢ.
+    drift_scale_, damping_shift_, noise_scale_, cubic_coefficients_ : ndarray (n,)
+        The calibrated rᵢ, dᵢ |Lᵢᵢ| (added to the diagonal of the scaled L), sᵢ, cᵢ.
     target_statistics_, calibrated_statistics_ : ndarray
         The fit runs' statistics and the calibrated model's (variance, kurtosis, autocorrelation
         at each lag; n per block).
@@ -194,9 +195,9 @@ class CalibratedLinearInverse(LinearInverseModel):
         unstable: str = "refuse",
         negative_noise: str = "clip",
         cubic_damping: bool = True,
-        calibration_lags: list[float] | tuple[float, ...] = (1.0, 2.0),
+        calibration_lags: list[float] | tuple[float, ...] = (1.0, 2.0, 4.0),
         members: int = 40,
-        iterations: int = 5,
+        iterations: int = 8,
         simulation_length: float = 2.0,
         n_pieces: int = 8,
         seed: int = 0,
@@ -257,20 +258,24 @@ class CalibratedLinearInverse(LinearInverseModel):
         stiffness_states = stacked[:: max(1, len(stacked) // 256)]
         sigma2 = np.diag(self.C0_)
         damping_unit = np.abs(np.diag(self.L_)) / sigma2  # c in units of |Lᵢᵢ| / σᵢ²
-        p = 3 * n if self.cubic_damping else 2 * n
+        p = 4 * n if self.cubic_damping else 3 * n
         # Prior: drift and noise scales log-normal around 1 (±20 %, ±30 %); cubic damping
         # around a tenth of the unit, an order of magnitude either way (common practice for
         # scale parameters, no source for the widths).
         prior = np.empty((self.members, p))
         prior[:, :n] = np.exp(rng.normal(0.0, 0.2, size=(self.members, n)))
         prior[:, n:2 * n] = np.exp(rng.normal(0.0, 0.3, size=(self.members, n)))
+        prior[:, 2 * n:3 * n] = rng.normal(0.0, 0.2, size=(self.members, n))
         if self.cubic_damping:
-            prior[:, 2 * n:] = np.exp(rng.normal(np.log(0.1), 1.0, size=(self.members, n)))
+            prior[:, 3 * n:] = np.exp(rng.normal(np.log(0.1), 1.0, size=(self.members, n)))
+
+        positive = np.ones(p, dtype=bool)
+        positive[2 * n:3 * n] = False  # the damping shifts may take either sign
 
         def build(theta: np.ndarray):
-            r, s = theta[:n], theta[n:2 * n]
-            c = theta[2 * n:] * damping_unit if self.cubic_damping else np.zeros(n)
-            return self._damped_surrogate(linear, r, s, c), c
+            r, s, d = theta[:n], theta[n:2 * n], theta[2 * n:3 * n]
+            c = theta[3 * n:] * damping_unit if self.cubic_damping else np.zeros(n)
+            return self._damped_surrogate(linear, r, s, d, c), c
 
         def forward(thetas: np.ndarray) -> np.ndarray:
             out = np.empty((len(thetas), len(target)))
@@ -290,7 +295,7 @@ class CalibratedLinearInverse(LinearInverseModel):
                 stage_state[2](stage_state[0] * total_steps + done, stage_state[1] * total_steps)
 
         result = ensemble_kalman_inversion(
-            forward, target, gamma, prior, rng=rng, positive=np.ones(p, dtype=bool),
+            forward, target, gamma, prior, rng=rng, positive=positive,
             n_iterations=self.iterations, progress=progress,
         )
         theta = result.parameters
@@ -316,6 +321,7 @@ class CalibratedLinearInverse(LinearInverseModel):
         )
         self.drift_scale_ = theta[:n]
         self.noise_scale_ = theta[n:2 * n]
+        self.damping_shift_ = theta[2 * n:3 * n] * np.abs(np.diag(self.L_))
         self.cubic_coefficients_ = c
         self.target_statistics_ = target
         self.calibrated_statistics_ = result.statistics
@@ -334,8 +340,9 @@ class CalibratedLinearInverse(LinearInverseModel):
             "homogeneous": self.homogeneous,
         }
 
-    def _damped_surrogate(self, linear, r: np.ndarray, s: np.ndarray, c: np.ndarray):
-        """The linear surrogate with rows of L scaled by r, noise S Q S, and −cᵢ (xᵢ − μᵢ)³.
+    def _damped_surrogate(self, linear, r: np.ndarray, s: np.ndarray, d: np.ndarray,
+                          c: np.ndarray):
+        """Rows of L scaled by r, Lᵢᵢ shifted by dᵢ|Lᵢᵢ|, noise S Q S, and −cᵢ (xᵢ − μᵢ)³.
 
         (xᵢ − μᵢ)³ = xᵢ³ − 3μᵢ xᵢ² + 3μᵢ² xᵢ − μᵢ³, so the cubic adds monomials in xᵢ alone.
         """
@@ -343,7 +350,7 @@ class CalibratedLinearInverse(LinearInverseModel):
 
         n = len(r)
         mu = self.mean_
-        L = r[:, None] * self.L_
+        L = r[:, None] * self.L_ + np.diag(d * np.abs(np.diag(self.L_)))
         base = np.column_stack([-L @ mu, L])  # terms 1, x₁ … xₙ (as the linear model's)
         terms = list(linear.terms)
         index = {t: k for k, t in enumerate(terms)}
