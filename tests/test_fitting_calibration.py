@@ -231,3 +231,9 @@ def test_homogeneous_setting_fits_on_rotations_and_records_it():
     assert paired(fitter.surrogate_.transform.explained_variance_)
     plain = make_fitter("linear-inverse", {"n_modes": 4}).fit(series)
     assert not paired(plain.surrogate_.transform.explained_variance_)
+    # and the two modes of a pair share their calibrated parameters (one wave, two phases)
+    groups = fitter.parameter_groups_
+    assert len(set(groups.tolist())) < len(groups)
+    for label in set(groups.tolist()):
+        members = np.flatnonzero(groups == label)
+        assert np.all(fitter.drift_scale_[members] == fitter.drift_scale_[members[0]])

@@ -143,7 +143,8 @@ class CalibratedLinearInverse(LinearInverseModel):
         (say so only when that is known): the transform, the linear model and the target
         statistics use the runs plus all their rotations around the ring (see
         :func:`~ergodex.fitting.transforming.cyclic_rotations`), so the modes are Fourier pairs;
-        the noise of the targets still comes from pieces of the runs as given.
+        the noise of the targets still comes from pieces of the runs as given; the two modes of
+        each Fourier pair share their calibrated parameters.
 
     Attributes
     ----------
@@ -153,6 +154,8 @@ class CalibratedLinearInverse(LinearInverseModel):
     target_statistics_, calibrated_statistics_ : ndarray
         The fit runs' statistics and the calibrated model's (variance, kurtosis, autocorrelation
         at each lag; n per block).
+    parameter_groups_ : ndarray of int (n,)
+        Variables with the same label share their calibrated parameters.
     calibration_misfit_ : list of float
         Data misfit per statistic at each iteration (about 1 when within the noise).
     score_ : float
@@ -258,23 +261,31 @@ class CalibratedLinearInverse(LinearInverseModel):
         stiffness_states = stacked[:: max(1, len(stacked) // 256)]
         sigma2 = np.diag(self.C0_)
         damping_unit = np.abs(np.diag(self.L_)) / sigma2  # c in units of |Lᵢᵢ| / σᵢ²
-        p = 4 * n if self.cubic_damping else 3 * n
+        groups = self._parameter_groups(linear.transform, n)
+        g = int(groups.max()) + 1
+        p = 4 * g if self.cubic_damping else 3 * g
         # Prior: drift and noise scales log-normal around 1 (±20 %, ±30 %); cubic damping
         # around a tenth of the unit, an order of magnitude either way (common practice for
         # scale parameters, no source for the widths).
         prior = np.empty((self.members, p))
-        prior[:, :n] = np.exp(rng.normal(0.0, 0.2, size=(self.members, n)))
-        prior[:, n:2 * n] = np.exp(rng.normal(0.0, 0.3, size=(self.members, n)))
-        prior[:, 2 * n:3 * n] = rng.normal(0.0, 0.2, size=(self.members, n))
+        prior[:, :g] = np.exp(rng.normal(0.0, 0.2, size=(self.members, g)))
+        prior[:, g:2 * g] = np.exp(rng.normal(0.0, 0.3, size=(self.members, g)))
+        prior[:, 2 * g:3 * g] = rng.normal(0.0, 0.2, size=(self.members, g))
         if self.cubic_damping:
-            prior[:, 3 * n:] = np.exp(rng.normal(np.log(0.1), 1.0, size=(self.members, n)))
+            prior[:, 3 * g:] = np.exp(rng.normal(np.log(0.1), 1.0, size=(self.members, g)))
 
         positive = np.ones(p, dtype=bool)
-        positive[2 * n:3 * n] = False  # the damping shifts may take either sign
+        positive[2 * g:3 * g] = False  # the damping shifts may take either sign
+
+        def expand(theta: np.ndarray) -> np.ndarray:
+            """Per-group parameters → per-variable (r, s, d, c), c in its own units."""
+            blocks = [theta[k * g:(k + 1) * g][groups] for k in range(3)]
+            c = theta[3 * g:][groups] * damping_unit if self.cubic_damping else np.zeros(n)
+            return np.concatenate(blocks + [c])
 
         def build(theta: np.ndarray):
-            r, s, d = theta[:n], theta[n:2 * n], theta[2 * n:3 * n]
-            c = theta[3 * n:] * damping_unit if self.cubic_damping else np.zeros(n)
+            full = expand(theta)
+            r, s, d, c = full[:n], full[n:2 * n], full[2 * n:3 * n], full[3 * n:]
             return self._damped_surrogate(linear, r, s, d, c), c
 
         def forward(thetas: np.ndarray) -> np.ndarray:
@@ -319,14 +330,33 @@ class CalibratedLinearInverse(LinearInverseModel):
             noise=surrogate.noise, transform=surrogate.transform, settings=settings,
             provenance=provenance,
         )
-        self.drift_scale_ = theta[:n]
-        self.noise_scale_ = theta[n:2 * n]
-        self.damping_shift_ = theta[2 * n:3 * n] * np.abs(np.diag(self.L_))
+        full = expand(theta)
+        self.drift_scale_ = full[:n]
+        self.noise_scale_ = full[n:2 * n]
+        self.damping_shift_ = full[2 * n:3 * n] * np.abs(np.diag(self.L_))
+        self.parameter_groups_ = groups
         self.cubic_coefficients_ = c
         self.target_statistics_ = target
         self.calibrated_statistics_ = result.statistics
         self.calibration_misfit_ = result.misfit
         self.n_terms_ = int(np.count_nonzero(self.surrogate_.coefficients))
+
+    def _parameter_groups(self, transform, n: int) -> np.ndarray:
+        """Which variables share calibrated parameters: with ``homogeneous``, the two modes of a
+        Fourier pair (equal variances to round-off under the rotations), else none."""
+        groups = np.arange(n)
+        variances = getattr(transform, "explained_variance_", None)
+        if not self.homogeneous or variances is None or len(variances) != n:
+            return groups
+        label, i = 0, 0
+        while i < n:
+            groups[i] = label
+            if i + 1 < n and np.isclose(variances[i + 1], variances[i], rtol=1e-8):
+                groups[i + 1] = label
+                i += 1
+            label += 1
+            i += 1
+        return groups
 
     def _extra_settings(self) -> dict:
         return {
