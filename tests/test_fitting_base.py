@@ -11,8 +11,8 @@ from ergodex.fitting.base import check_series
 from ergodex.series import Series
 
 
-def test_table_lists_the_three_methods():
-    assert list(FITTERS) == ["sparse", "linear-inverse", "quadratic-noise"]
+def test_table_lists_the_four_methods():
+    assert list(FITTERS) == ["sparse", "linear-inverse", "quadratic-noise", "calibrated-linear-inverse"]
     for name in FITTERS:
         assert issubclass(FITTERS[name], Fitter)
         assert FITTERS[name].method == name
@@ -76,7 +76,7 @@ def test_settings_file(tmp_path):
     "text, message",
     [
         ('method = "sparse"\n[settings]\nthreshhold = 1.0\n', r"fit.toml: \[settings\] sparse has no setting 'threshhold'"),
-        ('method = "magic"\n', r"fit.toml: key 'method' must be one of sparse, linear-inverse, quadratic-noise; got 'magic'"),
+        ('method = "magic"\n', r"fit.toml: key 'method' must be one of sparse, linear-inverse, quadratic-noise, calibrated-linear-inverse; got 'magic'"),
         ('method = "sparse"\nsettings = 3\n', r"'settings' must be a table"),
         ('methd = "sparse"\n', r"fit.toml: unknown key 'methd'"),
         ('method = "sparse"\n[settings]\ndegree = \n', r"fit.toml: not valid TOML: .*line 3"),

@@ -15,11 +15,12 @@ from typing import Any
 from ergodex.cli.checks import OPTIONS, add_check_options, build_spec
 from ergodex.cli.common import add_data_options, read_data
 from ergodex.exceptions import SettingsError
+from ergodex.fitting.base import FITTERS
 
 EXIT_OK = 0
 EXIT_NONE_PASSED = 1
 
-METHODS = ("sparse", "linear-inverse", "quadratic-noise")
+METHODS = tuple(FITTERS)  # the fitter table's names (it imports no fitter until one is used)
 
 #: What the fit's ``score`` means, printed beside it.
 SCORE_LEGEND = ("score: the fit's R², the share of the variance of the fitted tendencies "

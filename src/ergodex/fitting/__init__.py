@@ -1,9 +1,11 @@
 """Fitters: turn a Series into a Surrogate.
 
-Three methods, listed in :data:`FITTERS` under the names the command line and fit-settings files
+Four methods, listed in :data:`FITTERS` under the names the command line and fit-settings files
 use: ``"sparse"`` (:class:`~ergodex.fitting.sparse.SparseODE`, sparse nonlinear ODEs through
 pysindy), ``"linear-inverse"`` (:class:`~ergodex.fitting.linear_inverse.LinearInverseModel`) and
-``"quadratic-noise"`` (:class:`~ergodex.fitting.closure.QuadraticNoiseModel`). The classes load on
+``"quadratic-noise"`` (:class:`~ergodex.fitting.closure.QuadraticNoiseModel`) and
+``"calibrated-linear-inverse"`` (:class:`~ergodex.fitting.calibrated.CalibratedLinearInverse`, a
+linear inverse model with cubic damping tuned to the data's statistics). The classes load on
 first use so that importing this package stays cheap (pysindy takes seconds to import).
 """
 
@@ -30,6 +32,7 @@ __all__ = [
     "SparseODE",
     "LinearInverseModel",
     "QuadraticNoiseModel",
+    "CalibratedLinearInverse",
     "select",
     "SelectionResult",
 ]
@@ -38,6 +41,7 @@ _LAZY = {
     "SparseODE": "ergodex.fitting.sparse",
     "LinearInverseModel": "ergodex.fitting.linear_inverse",
     "QuadraticNoiseModel": "ergodex.fitting.closure",
+    "CalibratedLinearInverse": "ergodex.fitting.calibrated",
     "select": "ergodex.fitting.selection",
     "SelectionResult": "ergodex.fitting.selection",
 }

@@ -258,6 +258,7 @@ class _FitterTable(Mapping):
         "sparse": ("ergodex.fitting.sparse", "SparseODE"),
         "linear-inverse": ("ergodex.fitting.linear_inverse", "LinearInverseModel"),
         "quadratic-noise": ("ergodex.fitting.closure", "QuadraticNoiseModel"),
+        "calibrated-linear-inverse": ("ergodex.fitting.calibrated", "CalibratedLinearInverse"),
     }
 
     def __getitem__(self, name: str) -> type[Fitter]:
@@ -275,7 +276,8 @@ class _FitterTable(Mapping):
 
 
 FITTERS: Mapping[str, type[Fitter]] = _FitterTable()
-"""Method name → fitter class: ``"sparse"``, ``"linear-inverse"``, ``"quadratic-noise"``."""
+"""Method name → fitter class: ``"sparse"``, ``"linear-inverse"``, ``"quadratic-noise"``,
+``"calibrated-linear-inverse"``."""
 
 
 def fitter_class(method: str | type[Fitter]) -> type[Fitter]:

@@ -182,9 +182,7 @@ class LinearInverseModel(Fitter):
         from ergodex.surrogate import Surrogate, polynomial_terms
 
         dt = float(series.dt)
-        transform, runs, names = reduce_series(
-            series, method=self.method, n_modes=self.n_modes, standardise=self.standardise
-        )
+        transform, runs, names = self._reduce(series)
         n = runs[0].shape[1]
         mean = np.concatenate(runs).mean(axis=0)
         C0, _ = lagged_covariance(runs, 0, mean)
@@ -297,6 +295,10 @@ class LinearInverseModel(Fitter):
         self.transform_ = transform
         self.surrogate_ = surrogate
         self.tendency_error_ = relative_tendency_error(surrogate, runs, dt)
+
+    def _reduce(self, series):
+        """The transform, the runs in model space and their names (a subclass may widen the runs)."""
+        return reduce_series(series, method=self.method, n_modes=self.n_modes, standardise=self.standardise)
 
     def _lag_samples(self, runs, mean, C0, dt: float) -> int:
         if self.tau0 is not None:

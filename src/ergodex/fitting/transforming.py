@@ -10,7 +10,7 @@ import numpy as np
 
 from ergodex.exceptions import SettingsError
 
-__all__ = ["fit_transform", "model_space_runs", "reduce_series"]
+__all__ = ["cyclic_rotations", "fit_transform", "model_space_runs", "reduce_series"]
 
 
 def reduce_series(series, *, method: str, n_modes: int | None, standardise: bool):
@@ -59,3 +59,20 @@ def model_space_runs(series, transform) -> tuple[list[np.ndarray], tuple[str, ..
         return [np.asarray(r, dtype=float) for r in series.runs], tuple(series.names)
     runs = [np.asarray(transform.forward(np.asarray(r, dtype=float)), dtype=float) for r in series.runs]
     return runs, tuple(transform.output_names)
+
+
+def cyclic_rotations(series):
+    """The runs of ``series`` plus copies with the variables rotated around a ring (n in all).
+
+    For variables that are stations on a homogeneous ring (the same statistics under a cyclic
+    shift, as for Lorenz-96), a rotated run is another sample of the same process. Fitted on all
+    rotations, the covariance is circulant, so its principal components are exact Fourier pairs
+    (Gray, R. M. (2006). Toeplitz and circulant matrices: a review, sec. 3.1), free of the
+    sample-specific rotation PCA picks inside a near-degenerate wave pair.
+    """
+    from ergodex.series import Series
+
+    n = series.n_variables
+    runs = [np.roll(np.asarray(run, dtype=float), k, axis=1)
+            for run in series.runs for k in range(n)]
+    return Series.from_arrays(runs, series.names, series.dt)
