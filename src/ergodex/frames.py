@@ -305,14 +305,9 @@ def from_xarray(
             f"{source}: expected an xarray Dataset or DataArray, got {type(data).__name__}"
         )
     ds = data
-    if "time" not in ds.dims:
-        raise DataError(
-            f"{source}: no 'time' dimension; dimensions are {sorted(map(str, ds.dims))}"
-        )
-    member_dims = [d for d in _RUN_NAMES if d in ds.dims]
-    if len(member_dims) > 1:
-        raise DataError(f"{source}: both 'member' and 'run' dimensions; use one")
-    member = member_dims[0] if member_dims else None
+    from ergodex.readers import member_dimension
+
+    member = member_dimension(ds, source)
     names = [str(v) for v in ds.data_vars]
     if not names:
         raise DataError(f"{source}: no data variables")

@@ -972,6 +972,19 @@ def _one_line(exc: BaseException) -> str:
 # --- NetCDF -------------------------------------------------------------------------------------
 _MEMBER_DIMS = ("member", "run")
 
+
+def member_dimension(ds: Any, source: str) -> str | None:
+    """The run dimension of an xarray Dataset (``member`` or ``run``, or None), after checking
+    that it has a ``time`` dimension: the one rule for NetCDF files and in-memory Datasets."""
+    if "time" not in ds.dims:
+        raise DataError(
+            f"{source}: no 'time' dimension; dimensions are {sorted(map(str, ds.dims))}"
+        )
+    member_dims = [d for d in _MEMBER_DIMS if d in ds.dims]
+    if len(member_dims) > 1:
+        raise DataError(f"{source}: both 'member' and 'run' dimensions; use one")
+    return member_dims[0] if member_dims else None
+
 #: Spellings of CF/UDUNITS time units → the word a Series keeps as its ``time_unit``.
 _TIME_UNIT_WORDS = {
     "seconds": "seconds", "second": "seconds", "secs": "seconds", "sec": "seconds", "s": "seconds",
@@ -1120,14 +1133,7 @@ def read_netcdf(
     except Exception as exc:  # noqa: BLE001 - every backend raises its own error type
         raise DataError(f"{source}: cannot be read as NetCDF ({_one_line(exc)})") from None
 
-    if "time" not in ds.dims:
-        raise DataError(
-            f"{source}: no 'time' dimension; dimensions are {sorted(map(str, ds.dims))}"
-        )
-    member_dims = [d for d in _MEMBER_DIMS if d in ds.dims]
-    if len(member_dims) > 1:
-        raise DataError(f"{source}: both 'member' and 'run' dimensions; use one")
-    member = member_dims[0] if member_dims else None
+    member = member_dimension(ds, source)
     names, unit_list, blocks = _netcdf_columns(ds, source, member)
     seen: dict[str, int] = {}
     for k, name in enumerate(names):
