@@ -61,10 +61,18 @@ def test_check_settings_refuse_values_at_their_documented_limits():
            dict(tolerance=math.inf), dict(length=0.0), dict(spinup=-1.0), dict(bins=0),
            dict(bins=True), dict(bins="sturges"), dict(members=True), dict(statistics=()),
            dict(statistics="histogram"), dict(tolerances={"entropy": 2.0}),
-           dict(tolerances={"spectrum": -1.0}), dict(tolerances=[1]), dict(regimes={"a": 1})]
+           dict(tolerances={"spectrum": -1.0}), dict(tolerances=[1]), dict(regimes={"a": 1}),
+           dict(pool=True), dict(min_pieces=2.0)]
     for kw in bad:
         name = next(iter(kw))
-        with pytest.raises(SettingsError, match=name):
+        with pytest.raises(SettingsError, match=f"^{name}"):
+            CheckSpec(**kw).check_settings()
+    for kw, message in ((dict(members=1), "members must be an integer ≥ 2; got 1"),
+                        (dict(spinup=-1.0), "spinup must be a non-negative number; got -1.0"),
+                        (dict(length=0.0), "length must be a positive number; got 0.0"),
+                        (dict(max_blowup_fraction=1.0), "max_blowup_fraction must be below 1; "
+                                                        "got 1.0")):
+        with pytest.raises(SettingsError, match=f"^{message}$"):
             CheckSpec(**kw).check_settings()
 
 

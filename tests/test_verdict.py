@@ -435,21 +435,43 @@ def test_pair_distances_follow_their_definitions():
 
 
 def test_regime_rows_on_hand_labelled_pieces():
-    # one threshold regime "hot": v0 > 0. Piece 0: hot, hot, cold, hot (runs of 2 and 1, one
-    # exit); piece 1: cold, hot, hot, hot.
+    # regimes "hot" (v0 > 1) and "cold" (v0 < −1); dt = 1. Labels by hand (n = none):
+    # piece 0: n h h n c c c n — complete visits: hot 2, cold 3; occupancy h 2/8, c 3/8
+    # piece 1: n h n c n h h h — complete visits: hot 1, cold 1 (the last hot visit is cut by
+    # the end); occupancy h 4/8, c 1/8
     regimes = RegimeSet.from_dict({"regime": [
-        {"name": "hot", "kind": "threshold", "rules": [{"variable": "v0", "above": 0.0}]}]})
-    pieces = np.array([[1.0, 1.0, -1.0, 1.0], [-1.0, 1.0, 1.0, 1.0]])[:, :, None]
+        {"name": "hot", "kind": "threshold", "rules": [{"variable": "v0", "above": 1.0}]},
+        {"name": "cold", "kind": "threshold", "rules": [{"variable": "v0", "below": -1.0}]}]})
+    pieces = np.array([[0, 2, 2, 0, -2, -2, -2, 0], [0, 2, 0, -2, 0, 2, 2, 2]], float)[:, :, None]
     ctx = _ctx(1, ("occupancy", "residence", "transitions"), regimes=regimes)
     st = _PieceStats(pieces, ctx)
-    np.testing.assert_allclose(st.occ, [[0.75, 0.25], [0.75, 0.25]])
+    np.testing.assert_allclose(st.occ, [[2 / 8, 3 / 8, 3 / 8], [4 / 8, 1 / 8, 3 / 8]])
     one = (np.array([0]), np.array([1]))
-    # same occupancy of "hot"; the "none" column is not a row
-    assert _pair_distances("occupancy", st, st, one).tolist() == [[0.0]]
-    assert _pair_distances("residence", st, st, one).shape == (1, 1)
+    # one row per regime, "none" left out
+    np.testing.assert_allclose(_pair_distances("occupancy", st, st, one), [[0.25, 0.25]])
+    np.testing.assert_allclose(_pair_distances("residence", st, st, one), [[1.0, 2.0]])
+    # jump chains (hot, cold, none): both leave hot and cold only to none; from none piece 0
+    # goes to hot 1 of 2 times, piece 1 2 of 3 times: difference (−1/6, 1/6, 0) in one row;
+    # Frobenius norm √(2/36) (numpy.linalg.norm, "fro")
     d = _pair_distances("transitions", st, st, one)
-    # Frobenius norm of the difference of the two transition matrices (numpy.linalg.norm)
+    assert d.shape == (1, 1)
     assert d[0, 0] == pytest.approx(np.linalg.norm(st.trans[0] - st.trans[1], "fro"), rel=1e-12)
+    assert d[0, 0] == pytest.approx(math.sqrt(2 / 36), rel=1e-12)
+    assert _pair_distances("transitions", st, st).shape == (4, 1)
+
+
+def test_spectrum_distance_is_per_variable():
+    rng = np.random.default_rng(27)
+    pieces = rng.normal(size=(2, 64, 2)) * np.array([1.0, 5.0])
+    st = _PieceStats(pieces, _ctx(2, ("spectrum",), nperseg=16))
+    d = _pair_distances("spectrum", st, st, (np.array([0]), np.array([1])))
+    for j in range(2):
+        pa, pb = st.psd[0, :, j], st.psd[1, :, j]
+        # L1 difference over the mean total power, variable by variable
+        assert d[0, j] == pytest.approx(np.sum(np.abs(pa - pb)) / np.mean([pa.sum(), pb.sum()]),
+                                        rel=1e-12)
+    assert _pair_distances("spectrum", st, st, (np.array([], int), np.array([], int))).shape == (
+        0, 2)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -498,3 +520,30 @@ def test_single_survivor_record_has_every_key():
                             _PieceStats(ref_pieces, ctx), ref_pieces, CheckSpec(), ctx)
     assert out["verdict"] == "fail" and out["collapsed_members"] == [0]
     assert out["_reasons"] == ["every surviving member settles on a fixed point"]
+
+
+def test_evidence_per_piece_arrays_when_the_rows_did_not_compute_them():
+    tsa = pytest.importorskip("statsmodels.tsa.stattools")
+    data = scenarios.ornstein_uhlenbeck(seed=52, duration=90.0)
+    result = validation.check(scenarios.ou_surrogate(), data,
+                              CheckSpec(seed=4, members=4, min_pieces=4, bins="fd",
+                                        statistics=("histogram",)))
+    ev, s = result.evidence, result.scorecard.settings
+    lag, nperseg = s["max_lag_samples"], s["nperseg"]
+    for p, run in enumerate(data.runs):  # 4 runs → 4 pieces, each a whole run
+        for j in range(2):
+            # reference libraries: statsmodels acf and scipy.signal.welch, piece by piece
+            np.testing.assert_allclose(ev.acf_reference_pieces[p, :, j],
+                                       tsa.acf(run[:, j], nlags=lag, fft=True), atol=1e-10)
+            np.testing.assert_allclose(ev.psd_reference_pieces[p, :, j],
+                                       scipy.signal.welch(run[:, j], fs=1 / data.dt,
+                                                          nperseg=nperseg)[1], rtol=1e-10)
+    # "fd": every variable gets the largest Freedman–Diaconis count (numpy's 'fd' rule)
+    stacked = data.stacked()
+    counts = [np.histogram_bin_edges(stacked[:, j], bins="fd").size - 1 for j in range(2)]
+    assert ev.hist_edges.shape == (2, max(counts) + 1)
+    for j in range(2):
+        assert ev.hist_edges[j, 0] == stacked[:, j].min()
+        assert ev.hist_edges[j, -1] == stacked[:, j].max()
+    assert ev.regime_names.size == 0 and ev.occupancy_reference_pieces.shape == (4, 0)
+    assert np.all(np.isnan(ev.blowup_times))
