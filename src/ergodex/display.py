@@ -21,7 +21,8 @@ MAX_EQUATIONS = 12
 _STYLE = ("border-collapse:collapse;font-size:12px;font-family:system-ui,sans-serif;"
           "margin:2px 0")
 _CELL = "padding:2px 8px;border-bottom:1px solid #ddd;text-align:left"
-_COLOURS = {"pass": "#1b7a3a", "fail": "#b3261e", "accepted": "#1b7a3a", "rejected": "#b3261e"}
+_COLOURS = {"pass": "#1b7a3a", "fail": "#b3261e", "inconclusive": "#6b5300",
+           "accepted": "#1b7a3a", "rejected": "#b3261e"}
 
 
 def _esc(value: Any) -> str:
