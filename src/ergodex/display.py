@@ -110,7 +110,11 @@ def scorecard_html(card: Any) -> str:
     more = (f'<p style="font-size:11px">… and {len(rows) - MAX_ROWS} more rows '
             "(<code>scorecard.table()</code> lists them all)</p>" if len(rows) > MAX_ROWS else "")
     agreement = card.member_agreement or {}
-    facts = _table([
+    from ergodex.validation import power_lines
+
+    power = [("record" if k == 0 else "detects", _esc(line.split(": ", 1)[1]))
+             for k, line in enumerate(power_lines(getattr(card, "power", {}) or {}))]
+    facts = _table(power + [
         ("blow-ups", _esc(f"{card.blowups.get('count', 0)} of {card.spec.members} members")),
         ("member agreement", _esc(f"{agreement.get('verdict', 'n/a')} (ratio "
                                   f"{_number(agreement.get('ratio'))})")),

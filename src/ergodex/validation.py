@@ -24,6 +24,12 @@ The check (see DESIGN.md, "Statistics and the noise floor"):
    tolerance, the members agree with one another, and no member blew up. The default tolerance
    was calibrated on known systems (``benchmarks/calibration.py``, figures in
    ``benchmarks/README.md``).
+5. Power (:mod:`ergodex.power`): rescaled copies of the reference (time scale ×f, variance ×f)
+   are scored against reference groups through the same rows; the smallest rejected factors are
+   stated in the scorecard. A record that cannot reject ±50 %, spans fewer than 20 decorrelation
+   times, or whose runs differ from each other beyond their own noise gives the verdict
+   ``"inconclusive"`` (not passed) unless the model already failed; runs that disagree make it
+   inconclusive even then (no noise floor built from them is meaningful), blow-ups still fail.
 
 Rows (``CheckSpec.statistics``):
 
