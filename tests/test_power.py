@@ -32,7 +32,7 @@ def _ou(seed: int, duration: float, n_runs: int = 4) -> Series:
 
 def _log_variance_sd(group_time: float) -> float:
     """Standard deviation of the difference of two log-variance estimates, each from a record of
-    ``group_time``: Bretherton et al. (1999, J. Climate 12, eq. 31) give N* = N (1 − r²)/(1 + r²)
+    ``group_time``: Bretherton et al. (1999, J. Climate 12, §5) give N* = N (1 − r²)/(1 + r²)
     effective samples for the variance of AR(1) with lag-one correlation r = exp(−dt/τ); for
     N = T/dt and fine sampling N* → T/τ. var(ln s²) = 2/N* for Gaussian data."""
     r = math.exp(-DT / TAU)

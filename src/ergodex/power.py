@@ -16,12 +16,12 @@ factors (:data:`LADDER`), and the smallest factor that some row rejects is repor
 - *variance* ×f and ×1/f: each piece is scaled about the reference mean by ``sqrt(f)``.
 
 A faster time scale is not simulated (it would need longer pieces); a change of the same size
-on a log scale is taken to be as detectable. This is the rescaling method of issue 16's
-item 2; it needs no model of the statistic's sampling distribution and so holds for oscillating
-or non-Gaussian records alike. For an Ornstein–Uhlenbeck process its answer can be checked
-against the effective sample size of Bretherton et al. (1999): a variance estimate from a
-record of length ``T`` has ``N* = T / τ`` effective samples (their eq. 31 for AR(1) in the
-limit of fine sampling), so the log-variance of a group has standard deviation ``sqrt(2 τ / T)``.
+on a log scale is taken to be as detectable. The method needs no model of a statistic's
+sampling distribution and so holds for oscillating or non-Gaussian records alike. For an
+Ornstein–Uhlenbeck process its answer can be checked against the effective sample size of
+Bretherton et al. (1999, §5: ``N (1 − r²)/(1 + r²)`` for the variance of AR(1) with lag-one
+correlation ``r``): in the limit of fine sampling a record of length ``T`` has ``N* = T / τ``
+effective samples, so the log-variance of a group has standard deviation ``sqrt(2 τ / T)``.
 
 **The length needed.** Sampling noise of these distances shrinks as ``T^(-1/2)`` while the
 distance a change of log-size ``ln f`` adds does not; a record that first detects a change of

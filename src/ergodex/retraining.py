@@ -40,8 +40,9 @@ and the registered model name and makes one documented decision:
    data fingerprint); a passing challenger that is not promoted gets ``not-promoted`` with the
    reason. An *inconclusive* check (the new record is too short to tell, or its runs disagree)
    is not a pass: it counts as "fails" / "drifted" in the table, the champion's event is then
-   ``drift-check-inconclusive``, and the reasons say the record, not the model, was lacking. A name has one accepted version: promoting the challenger retires the champion in
-   the same registry transaction (event ``retired``, reason ``replaced by version N``); a
+   ``drift-check-inconclusive``, and the reasons say the record, not the model, was lacking.
+   A name has one accepted version: promoting the challenger retires the champion in the same
+   registry transaction (event ``retired``, reason ``replaced by version N``); a
    drifted champion that is not replaced stays accepted. Nothing is ever deleted.
 
 **The shared score** (:func:`shared_score`) is the scorecard's *largest row ratio*: the largest,

@@ -54,8 +54,8 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
             "when it is too stiff for the substep floor or exceeds --time-limit), 2 on "
             "bad input, 3 when inconclusive: the record cannot detect a ±50 % change of time "
             "scale or variance, spans too few decorrelation times, or its runs disagree with "
-            "each other (not a pass). Caution: a passed statistical check is not a certification; defer to the "
-            "applicable codes, standards and licensed practice."
+            "each other (not a pass). Caution: a passed statistical check is not a "
+            "certification; defer to the applicable codes, standards and licensed practice."
         ),
     )
     parser.add_argument("model", metavar="MODEL", help=MODEL_HELP)
