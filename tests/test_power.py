@@ -190,3 +190,14 @@ def test_fit_prints_a_failed_tau_test(tmp_path, capsys):
     text = capsys.readouterr().out
     assert code == 0 and out.exists()
     assert "warning: the tau test failed" in text
+
+
+def test_a_check_without_temporal_rows_makes_no_time_scale_claim():
+    # histograms cannot see a change of time scale at all: the power is neither required nor
+    # stated for it, and the reason names only the variance
+    data = _ou(5, duration=10.0)
+    sc = validation.validate(scenarios.ou_surrogate(drift=DRIFT, noise=NOISE), data,
+                             CheckSpec(seed=3, statistics=("histogram",)))
+    assert "time_scale" not in sc.power["detectable"]
+    assert "time scale not scored" in sc.table()
+    assert sc.verdict == "inconclusive" and "time scale" not in sc.reasons[0]

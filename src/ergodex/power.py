@@ -60,6 +60,10 @@ REQUIRED_FACTOR = 1.5
 MIN_DECORRELATION_TIMES = 20.0
 #: Floor pairs used for the power statement (enough for a mean; keeps it cheap).
 MAX_POWER_PAIRS = 16
+#: Statistics that can see a change of time scale, and those that can see a change of variance:
+#: a check scoring none of one kind makes no claim about it, so its power is not required.
+TEMPORAL_STATISTICS = ("autocorrelation", "spectrum", "residence", "transitions")
+DISTRIBUTION_STATISTICS = ("histogram", "quantiles", "occupancy")
 
 METHOD = ("rescaled copies of the reference scored against disjoint reference groups through "
           "the check's own rows (time scale by resampling, variance by scaling); "
@@ -102,7 +106,9 @@ def detectable_changes(ref_pieces: np.ndarray, groups: list, floor_index, group_
     Returns
     -------
     dict with ``time_scale``, ``variance_up`` and ``variance_down``: the smallest factor on
-    :data:`LADDER` that is rejected (``variance_down`` as ``1/f``), None when none is.
+    :data:`LADDER` that is rejected (``variance_down`` as ``1/f``), None when none is. A kind
+    of change no scored statistic can see (e.g. the time scale when only histograms are
+    scored) is not tried and left out.
     """
     from ergodex.validation import _pair_distances, _PieceStats
 
@@ -125,10 +131,14 @@ def detectable_changes(ref_pieces: np.ndarray, groups: list, floor_index, group_
     def smallest(change) -> float | None:
         return next((f for f in LADDER if rejected(lambda p: change(p, f))), None)
 
-    down = smallest(lambda p, f: scale_pieces(p, 1.0 / f, mean))
-    return {"time_scale": smallest(stretch_pieces),
-            "variance_up": smallest(lambda p, f: scale_pieces(p, f, mean)),
-            "variance_down": None if down is None else 1.0 / down}
+    out: dict = {}
+    if any(s in TEMPORAL_STATISTICS for s in floors):
+        out["time_scale"] = smallest(stretch_pieces)
+    if any(s in DISTRIBUTION_STATISTICS for s in floors):
+        out["variance_up"] = smallest(lambda p, f: scale_pieces(p, f, mean))
+        down = smallest(lambda p, f: scale_pieces(p, 1.0 / f, mean))
+        out["variance_down"] = None if down is None else 1.0 / down
+    return out
 
 
 def power_statement(detect: dict, *, record_time: float, piece_time: float,
@@ -136,7 +146,8 @@ def power_statement(detect: dict, *, record_time: float, piece_time: float,
     """The scorecard's ``power`` block and the reasons the record is too weak (empty if not).
 
     The record is inconclusive when it cannot reject a time scale ×1.5 or a variance ×1.5 or
-    ×0.5, or spans fewer than :data:`MIN_DECORRELATION_TIMES` decorrelation times.
+    ×0.5 (each only when ``detect`` holds it: a kind no scored statistic sees is not claimed),
+    or spans fewer than :data:`MIN_DECORRELATION_TIMES` decorrelation times.
     """
     n_tau = record_time / decorrelation_time
     power = {"method": METHOD, "required_factor": REQUIRED_FACTOR,
@@ -146,10 +157,14 @@ def power_statement(detect: dict, *, record_time: float, piece_time: float,
              "min_decorrelation_times": MIN_DECORRELATION_TIMES,
              "detectable": dict(detect)}
     # (what, smallest detected factor as a size ≥ 1, the size required)
-    checks = [("a time scale ×1.5", detect.get("time_scale"), REQUIRED_FACTOR),
-              ("a variance ×1.5", detect.get("variance_up"), REQUIRED_FACTOR),
-              ("a variance ×0.5", None if detect.get("variance_down") is None
-               else 1.0 / detect["variance_down"], 1.0 / (1.0 - (REQUIRED_FACTOR - 1.0)))]
+    checks = []
+    if "time_scale" in detect:
+        checks.append(("a time scale ×1.5", detect["time_scale"], REQUIRED_FACTOR))
+    if "variance_up" in detect:
+        checks.append(("a variance ×1.5", detect["variance_up"], REQUIRED_FACTOR))
+    if "variance_down" in detect:
+        checks.append(("a variance ×0.5", None if detect["variance_down"] is None
+                       else 1.0 / detect["variance_down"], 1.0 / (1.0 - (REQUIRED_FACTOR - 1.0))))
     weak = [(what, f, need) for what, f, need in checks if f is None or f > need * (1 + 1e-9)]
     reasons = []
     if weak:

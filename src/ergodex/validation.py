@@ -466,9 +466,16 @@ def power_lines(power: dict) -> list[str]:
         return []
     det = power.get("detectable", {})
 
+    from ergodex.power import LADDER
+
     def factor(key: str) -> str:
-        f = det.get(key)
-        return f"×{f:.3g}" if f is not None else "none tried"
+        if key not in det:
+            return "not scored"
+        f = det[key]
+        if f is None:
+            top = 1.0 / LADDER[-1] if key == "variance_down" else LADDER[-1]
+            return f"none up to ×{top:.3g}"
+        return f"×{f:.3g}"
 
     return [f"record: {_fmt(_none_to_nan(power.get('record_time')))} time units = "
             f"{_fmt(_none_to_nan(power.get('record_decorrelation_times')))} decorrelation times "
