@@ -110,8 +110,8 @@ def _row(ratio, verdict):
 
 
 def test_decide_orders_fail_inconclusive_and_pass():
-    common = dict(blowup_fail=False, blowup_reasons=[], any_alive=True, agreement_verdict="pass",
-                  agreement_reasons=[])
+    common = {"blowup_fail": False, "blowup_reasons": [], "any_alive": True,
+              "agreement_verdict": "pass", "agreement_reasons": []}
     weak = ["inconclusive: short"]
     assert _decide([_row(1.0, "pass")], **common, weak_reasons=weak) == ("inconclusive", weak)
     # a failure a short record detects is still a failure
@@ -159,7 +159,8 @@ def test_registry_refuses_to_accept_an_inconclusive_scorecard(short_files, tmp_p
 
 
 def test_retrain_counts_an_inconclusive_challenger_as_not_passed():
-    from ergodex.retraining import ModelVerdict, _decide as retrain_decide
+    from ergodex.retraining import ModelVerdict
+    from ergodex.retraining import _decide as retrain_decide
 
     ch = ModelVerdict("challenger", "ou@2", 2, "inconclusive", 1.0, ["inconclusive: short"])
     outcome, reasons = retrain_decide(None, ch)

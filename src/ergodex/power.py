@@ -46,7 +46,7 @@ References
 from __future__ import annotations
 
 import math
-from typing import Callable
+from collections.abc import Callable
 
 import numpy as np
 
@@ -129,7 +129,7 @@ def detectable_changes(ref_pieces: np.ndarray, groups: list, floor_index, group_
         return False
 
     def smallest(change) -> float | None:
-        return next((f for f in LADDER if rejected(lambda p: change(p, f))), None)
+        return next((f for f in LADDER if rejected(lambda p, f=f: change(p, f))), None)
 
     out: dict = {}
     if any(s in TEMPORAL_STATISTICS for s in floors):
