@@ -64,7 +64,7 @@ def test_validate_checks_on_the_held_out_runs_without_a_warning(dataset, fitted,
     _, held_out = read_dataset(dataset).split()
     card = tmp_path / "card.json"
     code = main(["validate", str(fitted), str(dataset), "--members", "8", "--json", str(card)])
-    assert code in (0, 1)
+    assert code in (0, 1, 3)  # pass, fail or inconclusive: the verdict is not under test
     assert json.loads(card.read_text())["data_fingerprint"] == held_out.fingerprint()
     err = capsys.readouterr().err
     assert "warning" not in err and "run-3, run-4" in err
@@ -96,7 +96,7 @@ def test_a_cli_fitted_model_registers_reports_and_retrains_without_hand_written_
 
     # NAME alone is the accepted version, for every command that takes a model
     assert main(["validate", "ou", str(dataset), "--home", str(home), "--members", "8",
-                 "--statistics", "histogram", "--quiet"]) in (0, 1)
+                 "--statistics", "histogram", "--quiet"]) in (0, 1, 3)
     assert main(["report", "ou", "--home", str(home)]) == 0
     page = (home / "reports" / "ou-v1-report.html").read_text(encoding="utf-8")
     assert "<img " in page  # the evidence picked up beside the scorecard gives the figures

@@ -136,6 +136,9 @@ def test_double_well_closure_passes_and_linear_inverse_model_fails(double_well_s
     linear = make_fitter("linear-inverse", {}).fit(double_well_series)
     closure_card = validate(closure.surrogate_, held_out, spec)
     linear_card = validate(linear.surrogate_, held_out, spec)
-    assert closure_card.verdict == "pass", closure_card.reasons
+    # the closure must not fail; on these 800 time units the check resolves a change of the
+    # hopping time scale only from about ×1.75 and may say so (inconclusive, not a pass)
+    assert closure_card.verdict in ("pass", "inconclusive"), closure_card.reasons
+    assert all(row.verdict == "pass" for row in closure_card.rows)
     assert linear_card.verdict == "fail"
     assert linear_card.largest_ratio > 3 * closure_card.largest_ratio

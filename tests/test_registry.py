@@ -253,7 +253,7 @@ def test_bad_inputs_leave_nothing_behind(tmp_path):
     (tmp_path / "broken.json").write_text('{"format": "nope"')
     with pytest.raises(ModelFileError, match="broken.json"):
         reg.register("loop", tmp_path / "broken.json")
-    with pytest.raises(ModelFileError, match="'verdict' must be 'pass' or 'fail'"):
+    with pytest.raises(ModelFileError, match="'verdict' must be 'pass', 'fail' or 'inconclusive'"):
         reg.register("loop", truth, scorecard={"verdict": "maybe"})
     with pytest.raises(RegistryError, match="does not exist"):
         reg.register("loop", truth, scorecard=tmp_path / "missing.json")

@@ -167,10 +167,14 @@ def test_data_the_method_cannot_represent_leave_no_acceptable_model(tmp_path):
     _, reference = split_for_retrain(old, 0.5)
     truth = double_well_surrogate(0.7)
     result = check(truth, reference, SPEC)
-    assert result.scorecard.passed
+    # The truth must not fail. On these 800 time units the check detects a change of the hopping
+    # time scale only from about ×1.75 and says so (inconclusive, not a pass): the champion is
+    # then accepted by override, as a person would after reading why.
+    assert result.scorecard.verdict in ("pass", "inconclusive"), result.scorecard.reasons
     registry.register(WELL, truth, scorecard=result.scorecard,
                       datasets={"check": reference.fingerprint()})
-    registry.accept(f"{WELL}@1", reason="true equations passed on held-out runs")
+    registry.accept(f"{WELL}@1", reason="true equations did not fail on held-out runs",
+                    override=not result.scorecard.passed)
 
     # New data: stronger noise (s = 1.2 widens the stationary density p ~ exp(-2V/s^2), Risken
     # 1989), and a deterministic degree-2 sparse ODE configured for the challenger: without noise

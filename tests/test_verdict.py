@@ -176,7 +176,8 @@ def test_check_with_one_member_blowing_up_fails_unless_allowed():
     # OU plus a small cubic drift on x1 (Term x1³, coefficient 0.01): from |x1| ≲ 10 the linear
     # drift wins (the data stay within ±3), from x1 = 20 the cubic term (0.01·20³ = 80 > 20)
     # drives that member out of the bound. One member in 16 starts there.
-    data = scenarios.ornstein_uhlenbeck(seed=40, duration=90.0)
+    # 4 runs of 200 time units: long enough to detect a ±50 % change (else inconclusive)
+    data = scenarios.ornstein_uhlenbeck(seed=40, duration=200.0)
     ou = scenarios.ou_surrogate()
     cubic = Surrogate(ou.variables, ou.terms + (Term("monomial", powers=(3, 0)),),
                       np.hstack([ou.coefficients, [[0.01], [0.0]]]), noise=ou.noise)
@@ -291,8 +292,10 @@ def test_member_agreement_beyond_tolerance_fails_with_the_outliers_named():
     assert out["verdict"] == "fail"
     assert out["outlying_members"] == [0, 3]  # 2 and 2.5 exceed 1.9, 1.5 does not
     assert out["_reasons"] == [
-        "members disagree: their marginal distributions differ 2× the reference noise floor "
-        "(tolerance 1.9); the surrogate may have several attractors (outlying members: [0, 3])"]
+        "members disagree: their marginal distributions differ 2× more than reference pieces "
+        "of the same length do (tolerance 1.9), beyond sampling noise; the surrogate may have "
+        "several attractors or states it stays in for longer than a piece (outlying members: "
+        "[0, 3])"]
 
 
 def test_two_members_are_compared():

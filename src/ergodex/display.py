@@ -21,7 +21,8 @@ MAX_EQUATIONS = 12
 _STYLE = ("border-collapse:collapse;font-size:12px;font-family:system-ui,sans-serif;"
           "margin:2px 0")
 _CELL = "padding:2px 8px;border-bottom:1px solid #ddd;text-align:left"
-_COLOURS = {"pass": "#1b7a3a", "fail": "#b3261e", "accepted": "#1b7a3a", "rejected": "#b3261e"}
+_COLOURS = {"pass": "#1b7a3a", "fail": "#b3261e", "inconclusive": "#6b5300",
+           "accepted": "#1b7a3a", "rejected": "#b3261e"}
 
 
 def _esc(value: Any) -> str:
@@ -109,7 +110,11 @@ def scorecard_html(card: Any) -> str:
     more = (f'<p style="font-size:11px">… and {len(rows) - MAX_ROWS} more rows '
             "(<code>scorecard.table()</code> lists them all)</p>" if len(rows) > MAX_ROWS else "")
     agreement = card.member_agreement or {}
-    facts = _table([
+    from ergodex.validation import power_lines
+
+    power = [("record" if k == 0 else "detects", _esc(line.split(": ", 1)[1]))
+             for k, line in enumerate(power_lines(getattr(card, "power", {}) or {}))]
+    facts = _table(power + [
         ("blow-ups", _esc(f"{card.blowups.get('count', 0)} of {card.spec.members} members")),
         ("member agreement", _esc(f"{agreement.get('verdict', 'n/a')} (ratio "
                                   f"{_number(agreement.get('ratio'))})")),

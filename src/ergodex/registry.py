@@ -221,7 +221,8 @@ class VersionInfo:
     datasets : list of dict
         Data the version was fitted and checked on: ``{"role", "fingerprint", "source"}``.
     verdict : str or None
-        The scorecard's verdict (``"pass"``/``"fail"``), None without a scorecard.
+        The scorecard's verdict (``"pass"``/``"fail"``/``"inconclusive"``), None without a
+        scorecard; only ``"pass"`` can be accepted without an override.
     data_fingerprint : str or None
         Fingerprint of the data the scorecard was computed on.
     model_fingerprint : str or None
@@ -1120,8 +1121,9 @@ class Registry:
                 )
             card = _read_json_object(card_bytes, what)
             verdict = card.get("verdict")
-            if verdict not in ("pass", "fail"):
-                raise ModelFileError(f"{what}: 'verdict' must be 'pass' or 'fail', found {verdict!r}")
+            if verdict not in ("pass", "fail", "inconclusive"):
+                raise ModelFileError(f"{what}: 'verdict' must be 'pass', 'fail' or "
+                                     f"'inconclusive', found {verdict!r}")
             files["scorecard.json"] = card_bytes
         meta["verdict"] = card.get("verdict")
         meta["data_fingerprint"] = card.get("data_fingerprint") or None

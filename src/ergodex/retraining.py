@@ -38,8 +38,11 @@ and the registered model name and makes one documented decision:
    *rejected* with its reasons. Every re-check leaves an event in the champion's history,
    ``drift-check-passed`` or ``drift-detected`` (with the score, the rows that failed and the
    data fingerprint); a passing challenger that is not promoted gets ``not-promoted`` with the
-   reason. A name has one accepted version: promoting the challenger retires the champion in
-   the same registry transaction (event ``retired``, reason ``replaced by version N``); a
+   reason. An *inconclusive* check (the new record is too short to tell, or its runs disagree)
+   is not a pass: it counts as "fails" / "drifted" in the table, the champion's event is then
+   ``drift-check-inconclusive``, and the reasons say the record, not the model, was lacking.
+   A name has one accepted version: promoting the challenger retires the champion in the same
+   registry transaction (event ``retired``, reason ``replaced by version N``); a
    drifted champion that is not replaced stays accepted. Nothing is ever deleted.
 
 **The shared score** (:func:`shared_score`) is the scorecard's *largest row ratio*: the largest,
@@ -116,7 +119,8 @@ class ModelVerdict:
         Registry reference ``"name@version"`` (``None`` only if nothing was registered).
     version : int or None
     verdict : str
-        ``"pass"`` or ``"fail"`` of the scorecard.
+        ``"pass"``, ``"fail"`` or ``"inconclusive"`` of the scorecard (only pass counts as
+        passed).
     score : float
         :func:`shared_score` of the scorecard (``inf`` for a blow-up).
     reasons : list of str
@@ -721,7 +725,7 @@ def _decide(cp: ModelVerdict | None, ch: ModelVerdict) -> tuple[str, list[str]]:
             return "first-accepted", [(f"no accepted version existed; challenger {ch.ref or '(not registered)'} passed its "
                                        f"check (score {ch_score}) and was accepted")]
         return "no-acceptable-model", [
-            f"no accepted version existed and challenger {ch.ref or '(not registered)'} failed its check "
+            f"no accepted version existed and challenger {ch.ref or '(not registered)'} {_did_not_pass(ch)} "
             f"(score {ch_score}): " + _brief(ch.reasons)
         ]
     cp_score = _fmt(cp.score)
@@ -731,10 +735,12 @@ def _decide(cp: ModelVerdict | None, ch: ModelVerdict) -> tuple[str, list[str]]:
             reasons.append(f"challenger {ch.ref or '(not registered)'} also passed (score {ch_score}); left as a "
                            "candidate, not promoted over a champion that still matches")
         else:
-            reasons.append(f"challenger {ch.ref or '(not registered)'} failed its check (score {ch_score}): "
+            reasons.append(f"challenger {ch.ref or '(not registered)'} {_did_not_pass(ch)} (score {ch_score}): "
                            + _brief(ch.reasons))
         return "kept", reasons
-    reasons = [f"champion {cp.ref} failed the drift check (score {cp_score}): " + _brief(cp.reasons)]
+    drift = ("failed the drift check" if cp.verdict != "inconclusive"
+             else "had an inconclusive drift check")
+    reasons = [f"champion {cp.ref} {drift} (score {cp_score}): " + _brief(cp.reasons)]
     if ch.passed and ch.score <= cp.score:
         reasons.append(f"challenger {ch.ref or '(not registered)'} passed (score {ch_score} <= {cp_score}) and replaces it")
         return "replaced", reasons
@@ -742,10 +748,17 @@ def _decide(cp: ModelVerdict | None, ch: ModelVerdict) -> tuple[str, list[str]]:
         reasons.append(f"challenger {ch.ref or '(not registered)'} passed but scored worse than the champion "
                        f"({ch_score} > {cp_score}); not accepted")
     else:
-        reasons.append(f"challenger {ch.ref or '(not registered)'} failed its check (score {ch_score}): "
+        reasons.append(f"challenger {ch.ref or '(not registered)'} {_did_not_pass(ch)} (score {ch_score}): "
                        + _brief(ch.reasons))
     reasons.append("no acceptable model for the new data: downstream users must be warned")
     return "no-acceptable-model", reasons
+
+
+def _did_not_pass(v: ModelVerdict) -> str:
+    """How a verdict that is not a pass reads in a reason."""
+    if v.verdict == "inconclusive":
+        return "was inconclusive (the record cannot tell)"
+    return "failed its check"
 
 
 def _apply(registry: Any, outcome: str, cp: ModelVerdict | None, ch: ModelVerdict,
@@ -754,7 +767,8 @@ def _apply(registry: Any, outcome: str, cp: ModelVerdict | None, ch: ModelVerdic
     on_data = f" [data {data_fingerprint}]"
     if cp is not None:
         # Every re-check of the champion leaves a line in its history, passed or not.
-        event = "drift-check-passed" if cp.passed else "drift-detected"
+        event = ("drift-check-passed" if cp.passed else "drift-check-inconclusive"
+                 if cp.verdict == "inconclusive" else "drift-detected")
         registry.record_event(cp.ref, event, reasons[0] + on_data)
     if outcome in ("first-accepted", "replaced"):
         why = ("first version: passed its check on held-out runs" if cp is None else
@@ -763,7 +777,7 @@ def _apply(registry: Any, outcome: str, cp: ModelVerdict | None, ch: ModelVerdic
         ch.status = "accepted"
     elif not ch.passed:
         if ch.ref is not None:  # a challenger that could not be integrated was never registered
-            registry.reject(ch.ref, reason="retrain challenger failed its check: "
+            registry.reject(ch.ref, reason=f"retrain challenger {_did_not_pass(ch)}: "
                             + _brief(ch.reasons) + on_data)
             ch.status = "rejected"
     else:

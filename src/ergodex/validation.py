@@ -24,6 +24,12 @@ The check (README, "How the check decides"):
    tolerance, the members agree with one another, and no member blew up. The default tolerance
    was calibrated on known systems (``benchmarks/calibration.py``, figures in
    ``benchmarks/README.md``).
+5. Power (:mod:`ergodex.power`): rescaled copies of the reference (time scale ×f, variance ×f)
+   are scored against reference groups through the same rows; the smallest rejected factors are
+   stated in the scorecard. A record that cannot reject ±50 %, spans fewer than 20 decorrelation
+   times, or whose runs differ from each other beyond their own noise gives the verdict
+   ``"inconclusive"`` (not passed) unless the model already failed; runs that disagree make it
+   inconclusive even then (no noise floor built from them is meaningful), blow-ups still fail.
 
 Rows (``CheckSpec.statistics``):
 
@@ -317,8 +323,14 @@ class Scorecard:
 
     JSON layout (``format = "ergodex-scorecard/1"``); non-finite numbers are written as null:
 
-    - ``verdict``: ``"pass"`` or ``"fail"``; ``reasons``: list of one-line explanations (rows that
-      drove a failure, largest ratio first; blow-ups; member disagreement).
+    - ``verdict``: ``"pass"``, ``"fail"`` or ``"inconclusive"`` (the record cannot detect a
+      ±50 % change of time scale or variance, is too short, or its runs disagree; not passed);
+      ``reasons``: list of one-line explanations (why inconclusive; rows that drove a failure,
+      largest ratio first; blow-ups; member disagreement).
+    - ``power``: what the record can detect (see :mod:`ergodex.power`): ``record_time``,
+      ``record_decorrelation_times``, ``piece_decorrelation_times``, ``detectable``
+      {time_scale, variance_up, variance_down: smallest rejected factor or null},
+      ``required_factor``, ``sufficient``, ``reference_consistency``, ``method``.
     - ``rows``: list of {statistic, variable, value, noise_floor, ratio, tolerance, verdict}.
     - ``blowups``: {count, members, times (time after spin-up; negative during spin-up),
       allowed_fraction}.
@@ -342,6 +354,7 @@ class Scorecard:
     created: str
     ergodex_version: str
     settings: dict = field(default_factory=dict)
+    power: dict = field(default_factory=dict)
 
     @property
     def passed(self) -> bool:
@@ -360,6 +373,7 @@ class Scorecard:
             "spec": self.spec.to_dict(), "settings": jsonable(self.settings),
             "model_fingerprint": self.model_fingerprint, "data_fingerprint": self.data_fingerprint,
             "created": self.created, "ergodex_version": self.ergodex_version,
+            "power": jsonable(self.power),
         }
 
     @classmethod
@@ -375,7 +389,7 @@ class Scorecard:
                 member_agreement=dict(d["member_agreement"]), spec=CheckSpec.from_dict(d["spec"]),
                 model_fingerprint=d["model_fingerprint"], data_fingerprint=d["data_fingerprint"],
                 created=d["created"], ergodex_version=d["ergodex_version"],
-                settings=dict(d.get("settings", {})))
+                settings=dict(d.get("settings", {})), power=dict(d.get("power") or {}))
         except KeyError as exc:
             raise ModelFileError(f"{source}: missing key {exc.args[0]!r}") from None
         except (TypeError, ValueError, SettingsError) as exc:
@@ -421,6 +435,7 @@ class Scorecard:
                          f"{r.verdict}")
         b = self.blowups
         lines.append("")
+        lines.extend(power_lines(self.power))
         lines.append(f"blow-ups: {b.get('count', 0)} of {self.spec.members} members")
         m = self.member_agreement
         if m:
@@ -443,6 +458,30 @@ class Scorecard:
         from ergodex.display import scorecard_html
 
         return scorecard_html(self)
+
+
+def power_lines(power: dict) -> list[str]:
+    """What the record can detect, in two lines (none for a scorecard without the block)."""
+    if not power:
+        return []
+    det = power.get("detectable", {})
+
+    from ergodex.power import LADDER
+
+    def factor(key: str) -> str:
+        if key not in det:
+            return "not scored"
+        f = det[key]
+        if f is None:
+            top = 1.0 / LADDER[-1] if key == "variance_down" else LADDER[-1]
+            return f"none up to ×{top:.3g}"
+        return f"×{f:.3g}"
+
+    return [f"record: {_fmt(_none_to_nan(power.get('record_time')))} time units = "
+            f"{_fmt(_none_to_nan(power.get('record_decorrelation_times')))} decorrelation times "
+            f"(pieces of {_fmt(_none_to_nan(power.get('piece_decorrelation_times')))})",
+            f"smallest change it detects: time scale {factor('time_scale')}, variance "
+            f"{factor('variance_up')} / {factor('variance_down')}"]
 
 
 def _fmt(x: float) -> str:
@@ -1092,6 +1131,11 @@ def _check(surrogate, reference, spec, initial_states, update, *,
     settings["pool"] = pool
     settings["n_reference_groups"] = len(ref_groups)
     settings["n_floor_pairs"] = int(floor_index[0].size)
+    floors = {s: np.nanmean(_pair_distances(s, group_stats, group_stats, floor_index), axis=0)
+              for s in statistics}
+    power, weak_reasons, consistency = _power(reference, ref_pieces, piece_info, ref_groups,
+                                              floor_index, group_stats, floors, ctx, spec, tau_d,
+                                              gap)
     rows: list[ScoreRow] = []
     agreement: dict = {}
     if alive.any():
@@ -1107,9 +1151,8 @@ def _check(surrogate, reference, spec, initial_states, update, *,
         mod_stats = _PieceStats(model_groups, ctx)
         settings["n_model_groups"] = int(n_groups)
         for s in statistics:
-            floor = np.nanmean(_pair_distances(s, group_stats, group_stats, floor_index), axis=0)
             value = np.nanmean(_pair_distances(s, mod_stats, group_stats), axis=0)
-            rows.extend(_score_rows(s, _row_labels(s, variables, regimes), value, floor,
+            rows.extend(_score_rows(s, _row_labels(s, variables, regimes), value, floors[s],
                                     spec.tolerance_for(s)))
         agreement = _member_agreement(model, alive, L, ref_stats, ref_pieces, spec, ctx)
     else:
@@ -1119,9 +1162,11 @@ def _check(surrogate, reference, spec, initial_states, update, *,
     verdict, reasons = _decide(rows, blowup_fail=blowup_fail, blowup_reasons=blowup_reasons,
                                any_alive=bool(alive.any()),
                                agreement_verdict=agreement.get("verdict"),
-                               agreement_reasons=agreement.pop("_reasons", []))
+                               agreement_reasons=agreement.pop("_reasons", []),
+                               weak_reasons=weak_reasons,
+                               reference_reasons=consistency.pop("_reasons", []))
     scorecard = Scorecard(
-        verdict=verdict, rows=rows, reasons=reasons, blowups=blowups,
+        verdict=verdict, rows=rows, reasons=reasons, blowups=blowups, power=power,
         member_agreement=agreement, spec=spec, model_fingerprint=surrogate.fingerprint(),
         data_fingerprint=data_reference.fingerprint(),
         created=utc_now(),
@@ -1131,6 +1176,37 @@ def _check(surrogate, reference, spec, initial_states, update, *,
     if update is not None:
         update(n_out + 1, n_out + 1)  # the integration's outputs, then the scoring
     return CheckResult(scorecard, evidence)
+
+
+def _power(reference, ref_pieces, piece_info, groups, floor_index, group_stats, floors, ctx,
+           spec, tau_d, gap) -> tuple[dict, list[str], dict]:
+    """The power statement, the reasons the record is too weak, and the reference's consistency.
+
+    See :mod:`ergodex.power` for the method (rescaled copies of the reference scored through
+    the check's own rows; Bretherton et al. 1999 for the effective sample size it matches).
+    """
+    from ergodex import power as pw
+
+    dt = ctx["dt"]
+    L = ref_pieces.shape[1]
+    detect = pw.detectable_changes(ref_pieces, groups, floor_index, group_stats, floors, ctx,
+                                   spec.tolerance_for)
+    record_time = float(sum(r.shape[0] for r in reference.runs) * dt)
+    power, weak = pw.power_statement(detect, record_time=record_time, piece_time=L * dt,
+                                     decorrelation_time=tau_d)
+    per_run = piece_info.get("blocks_per_run", 1)
+    run_of_piece = np.arange(ref_pieces.shape[0]) // per_run
+    consistency = pw.reference_consistency(ref_pieces, run_of_piece, int(math.ceil(gap / dt)),
+                                           ctx, spec.tolerance)
+    power["reference_consistency"] = dict(consistency)
+    if consistency["verdict"] == "fail":
+        consistency["_reasons"] = [
+            f"inconclusive: the reference runs differ from each other "
+            f"{_fmt(consistency['ratio'])}× more than parts of the same run do (tolerance "
+            f"{consistency['tolerance']:g}); they do not sample one consistent behaviour (several "
+            f"attractors, or runs too short to leave one), so no noise floor can be built from "
+            f"them: supply runs that each visit every state, or check the runs separately"]
+    return power, weak, consistency
 
 
 def _blowup_accounting(blowup_times: np.ndarray,
@@ -1169,12 +1245,18 @@ def _score_rows(statistic: str, labels, value, floor, tolerance: float) -> list[
 
 def _decide(rows: list[ScoreRow], *, blowup_fail: bool, blowup_reasons: list[str],
             any_alive: bool, agreement_verdict: str | None,
-            agreement_reasons: list[str]) -> tuple[str, list[str]]:
+            agreement_reasons: list[str], weak_reasons: list[str] = (),
+            reference_reasons: list[str] = ()) -> tuple[str, list[str]]:
     """The family-wise verdict and its reasons, in the order the scorecard lists them.
 
     Pass only when no blow-up limit is exceeded, some member survived, no row fails and the
     members agree. Reasons: every member blowing up first, then blow-ups, then failing rows
     (largest ratio first, NaN ratios last), then member disagreement.
+
+    ``"inconclusive"`` (not passed) when the reference runs disagree beyond their own noise
+    (``reference_reasons``: no floor means anything, so neither a pass nor a row failure is
+    trusted; blow-ups still fail), or when nothing failed but the record is too weak to detect
+    a ±50 % change (``weak_reasons``): a failure a short record detects is still a failure.
     """
     reasons = list(blowup_reasons)
     if not any_alive:
@@ -1185,8 +1267,14 @@ def _decide(rows: list[ScoreRow], *, blowup_fail: bool, blowup_reasons: list[str
         reasons.append(f"{r.statistic} of {r.variable}: distance {_fmt(r.ratio)}× the noise floor "
                        f"(tolerance {r.tolerance:g})")
     reasons.extend(agreement_reasons)
-    passed = not blowup_fail and any_alive and not failing and agreement_verdict == "pass"
-    return ("pass" if passed else "fail"), reasons
+    broken = blowup_fail or not any_alive
+    if reference_reasons and not broken:
+        return "inconclusive", list(reference_reasons) + reasons
+    if broken or failing or agreement_verdict != "pass":
+        return "fail", reasons
+    if weak_reasons:
+        return "inconclusive", list(weak_reasons) + reasons
+    return "pass", reasons
 
 
 def _reference_groups(n: int, pool: int, rng, max_splits: int = 64):
@@ -1266,9 +1354,11 @@ def _member_agreement(model, alive, L, ref_stats, ref_pieces, spec, ctx) -> dict
     outlying = [int(members[k]) for k in np.flatnonzero(np.any(each / floor > tol, axis=1))]
     verdict = "pass" if ratio <= tol and not collapsed else "fail"
     if ratio > tol:
-        reasons.append(f"members disagree: their marginal distributions differ {_fmt(ratio)}× the "
-                       f"reference noise floor (tolerance {tol:g}); the surrogate may have several "
-                       f"attractors (outlying members: {outlying[:8]})")
+        reasons.append(f"members disagree: their marginal distributions differ {_fmt(ratio)}× "
+                       f"more than reference pieces of the same length do (tolerance {tol:g}), "
+                       f"beyond sampling noise; the surrogate may have several attractors or "
+                       f"states it stays in for longer than a piece "
+                       f"(outlying members: {outlying[:8]})")
     out.update(ratio=ratio, verdict=verdict, outlying_members=outlying,
                per_variable={v: float(r) for v, r in zip(variables, per_var)})
     out["_reasons"] = reasons

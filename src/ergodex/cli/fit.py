@@ -1,7 +1,9 @@
 """``ergodex fit DATA --out MODEL.json``: fit a surrogate, or select one by its statistics.
 
 Exit codes: 0 a model was written; 1 ``--select`` ran but no candidate passed the statistical
-check (nothing written but the optional ``--json`` front); 2 bad input (raised as
+check (nothing written but the optional ``--json`` front), or the fit gave a degenerate model
+(no terms, or one that cannot move: nothing written, the reason and a suggestion on stderr);
+2 bad input (raised as
 :class:`~ergodex.exceptions.ErgodexError`, one line on stderr, nothing written).
 """
 
@@ -19,6 +21,17 @@ from ergodex.fitting.base import FITTERS
 
 EXIT_OK = 0
 EXIT_NONE_PASSED = 1
+EXIT_DEGENERATE = 1
+
+#: What to try when a fit comes out degenerate, per method.
+_DEGENERATE_HINTS = {
+    "sparse": "lower the sparsity threshold (settings: threshold = ...), or check that the data "
+              "vary on the time unit given (--dt)",
+    "quadratic-noise": "lower the sparsity threshold (settings: threshold = ...), or check that "
+                       "the data vary on the time unit given (--dt)",
+    "linear-inverse": "choose tau0 (settings: tau0 = ...) as a lag at which the data are still "
+                      "correlated, in the data's time unit",
+}
 
 METHODS = tuple(FITTERS)  # the fitter table's names (it imports no fitter until one is used)
 
@@ -131,6 +144,12 @@ def run(args: argparse.Namespace) -> int:
     if not args.select:
         fitter = make_fitter(method, settings).fit(series, progress=show_progress(args))
         surrogate = finish(fitter.surrogate_)
+        problem = degenerate_reason(surrogate)
+        if problem is not None:
+            print(f"ergodex fit: model failed: the fitted {method} model {problem}; nothing "
+                  f"written. Try: {_DEGENERATE_HINTS.get(method, 'other fit settings')}",
+                  file=sys.stderr)
+            return EXIT_DEGENERATE
         summary = {
             "method": method,
             "settings": fitter.get_params(),
@@ -148,6 +167,9 @@ def run(args: argparse.Namespace) -> int:
             print(f"  data: {data_note}")
             for line in surrogate.equations():
                 print(f"  {line}")
+            tau_note = tau_test_note(fitter)
+            if tau_note:
+                print(f"  warning: {tau_note}")
             print(f"wrote {args.out}")
         return EXIT_OK
 
@@ -179,6 +201,41 @@ def run(args: argparse.Namespace) -> int:
     if not args.quiet:
         print(f"wrote {args.out}")
     return EXIT_OK
+
+
+def degenerate_reason(surrogate) -> str | None:
+    """Why a fitted model is useless, or None: no terms, or nothing that can move it.
+
+    A model with no non-zero coefficient and no noise stays where it starts (``dx/dt = 0``);
+    no check can say anything about it, so ``fit`` must not report success.
+    """
+    import numpy as np
+
+    coefficients = np.asarray(surrogate.coefficients, float)
+    if surrogate.n_terms == 0 or not np.any(coefficients != 0):
+        noise = surrogate.noise
+        if noise is None or not np.any(np.asarray(noise, float) != 0):
+            return "has no non-zero term and no noise (dx/dt = 0): it cannot move"
+        return "has no non-zero term (only noise: a random walk with no dynamics)"
+    return None
+
+
+def tau_test_note(fitter) -> str | None:
+    """The linear inverse model's failed tau test, in one line (None when it passed or none ran).
+
+    The tau test refits at several lags; an operator that changes with the lag means the data
+    are not well described by linear dynamics with white noise at that lag.
+    """
+    test = getattr(fitter, "tau_test_", None)
+    if not isinstance(test, dict) or test.get("flat", True):
+        return None
+    changes = [float(c) for c in test.get("relative_change", []) if c is not None]
+    worst = max(changes) if changes else float("nan")
+    problems = "; ".join(str(p) for p in test.get("problems", []) or [])
+    return (f"the tau test failed: the operator changes by up to {worst:.3g} (relative) across "
+            f"lags {', '.join(f'{lag:g}' for lag in test.get('lags', []))}, above the tolerance "
+            f"{test.get('tolerance', float('nan')):g}" + (f" ({problems})" if problems else "")
+            + "; the model may not hold at other lags: try another tau0 or check its scorecard")
 
 
 def _write(args: argparse.Namespace, surrogate, summary: dict) -> None:

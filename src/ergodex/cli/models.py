@@ -21,7 +21,7 @@ Subcommands::
 * ``show NAME@V`` (or ``show NAME``: its accepted version): ``{"ref": "name@v",
   "name": str, "version": int, "status": str, "created": str (UTC ISO 8601), "note": str,
   "parent": "name@v" | null, "datasets": [{"role", "fingerprint", "source"}], "verdict": "pass" |
-  "fail" | null, "data_fingerprint": str | null, "model_fingerprint": str | null,
+  "fail" | "inconclusive" | null, "data_fingerprint": str | null, "model_fingerprint": str | null,
   "scorecard_model_fingerprint": str | null, "artifacts": {filename: sha256}, "folder": str,
   "integrity": "ok" | "failed", "integrity_problems": [str]}``.
   ``show NAME --all`` lists every version: ``{"name": str, "versions": [<as above>]}``.

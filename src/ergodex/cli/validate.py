@@ -8,7 +8,9 @@ from TOML (see :mod:`ergodex.cli.checks`).
 
 Exit codes: 0 the model passed, 1 it failed its check (the scorecard says why), 2 bad input
 (raised as :class:`~ergodex.exceptions.ErgodexError` and turned into one line on stderr by
-:mod:`ergodex.cli`). Every input is read and checked before anything is written.
+:mod:`ergodex.cli`), 3 inconclusive (the record cannot detect a ±50 % change of time scale or
+variance, is too short, or its runs disagree; the reasons say how much more data is needed).
+Every input is read and checked before anything is written.
 """
 
 from __future__ import annotations
@@ -30,6 +32,7 @@ from ergodex.exceptions import SettingsError
 
 EXIT_PASS = 0
 EXIT_FAIL = 1
+EXIT_INCONCLUSIVE = 3
 #: Default wall-clock budget of the ensemble integration (one hour).
 DEFAULT_TIME_LIMIT = 3600.0
 
@@ -41,15 +44,18 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     """Add the ``validate`` subcommand."""
     parser = subparsers.add_parser(
         "validate",
-        help="check a surrogate's long-run statistics against data (exit 0 pass, 1 fail)",
+        help="check a surrogate's long-run statistics against data (exit 0 pass, 1 fail, "
+             "3 inconclusive)",
         description=(
             "Integrate the surrogate from many states drawn from the data and compare its long-run "
             "statistics (histograms, autocorrelation, spectra, quantiles, regimes) with the data's, "
             "against the data's own sampling noise. The reference is DATA's held-out runs "
             "(dataset.toml 'holdout', or --holdout). Exit 0 when it passes, 1 when it fails (also "
             "when it is too stiff for the substep floor or exceeds --time-limit), 2 on "
-            "bad input. Caution: a passed statistical check is not a certification; defer to the "
-            "applicable codes, standards and licensed practice."
+            "bad input, 3 when inconclusive: the record cannot detect a ±50 % change of time "
+            "scale or variance, spans too few decorrelation times, or its runs disagree with "
+            "each other (not a pass). Caution: a passed statistical check is not a "
+            "certification; defer to the applicable codes, standards and licensed practice."
         ),
     )
     parser.add_argument("model", metavar="MODEL", help=MODEL_HELP)
@@ -66,7 +72,7 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
                              "to a model file as MODEL.report.html, or under the registry home "
                              "in reports/ for NAME@VERSION)")
     parser.add_argument("--quiet", action="store_true",
-                        help="print only the verdict line and, on failure, its reasons")
+                        help="print only the verdict line and, unless passed, its reasons")
     add_home_option(parser)
     from ergodex.cli.fields import add_check_options as add_field_check_options
 
@@ -95,14 +101,15 @@ def default_report_path(model_ref: str, info: Any, home: Path) -> Path:
 
 
 def quiet_lines(scorecard: Any) -> list[str]:
-    """``--quiet`` output: the verdict, and on failure the reasons that drove it."""
+    """``--quiet`` output: the verdict, and unless passed the reasons that drove it."""
     lines = [f"verdict: {scorecard.verdict}"]
     lines.extend(f"- {reason}" for reason in scorecard.reasons)
     return lines
 
 
 def run(args: argparse.Namespace) -> int:
-    """Run the check; return 0 (pass) or 1 (fail). Bad input raises ErgodexError."""
+    """Run the check; return 0 (pass), 1 (fail) or 3 (inconclusive). Bad input raises
+    ErgodexError."""
     from ergodex.cli.common import (
         check_limit_options,
         load_model_info,
@@ -174,4 +181,6 @@ def run(args: argparse.Namespace) -> int:
 
     if time_unit_note(surrogate) and not args.quiet:
         print(time_unit_note(surrogate))
+    if scorecard.verdict == "inconclusive":
+        return EXIT_INCONCLUSIVE
     return EXIT_PASS if scorecard.passed else EXIT_FAIL

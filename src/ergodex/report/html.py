@@ -256,6 +256,9 @@ def _verdict_banner(scorecard: Any) -> str:
         headline = "The surrogate's long-run statistics match the reference within its noise."
     elif verdict == "fail":
         headline = "The surrogate's long-run statistics differ from the reference beyond its noise."
+    elif verdict == "inconclusive":
+        headline = ("Inconclusive: the record cannot tell whether the long-run statistics match "
+                    "(not a pass; the reasons say what more data would settle it).")
     else:
         headline = "The check has no verdict."
     if rows:
@@ -263,6 +266,11 @@ def _verdict_banner(scorecard: Any) -> str:
                   f"largest ratio to the noise floor {_number(worst)}.")
     else:
         detail = "No statistic could be compared."
+    power = _field(scorecard, "power", None) or {}
+    if power:
+        from ergodex.validation import power_lines
+
+        detail += " " + "; ".join(power_lines(power)) + "."
     reasons = [str(r) for r in (_field(scorecard, "reasons", []) or [])]
     reasons_html = ""
     if reasons:
@@ -637,6 +645,7 @@ code { font-family: ui-monospace, "DejaVu Sans Mono", Menlo, Consolas, monospace
 .verdict-line strong { text-transform: uppercase; letter-spacing: 0.06em; }
 .banner.pass .verdict-line strong { color: #00664a; }
 .banner.fail .verdict-line strong { color: #a2400a; }
+.banner.inconclusive .verdict-line strong { color: #6b5300; }
 .reasons { margin: 0.4rem 0 0.2rem 1.1rem; padding: 0; }
 .banner details { margin-top: 0.2rem; font-size: 0.92rem; }
 .banner summary { cursor: pointer; color: var(--muted); }
