@@ -59,6 +59,7 @@ from typing import BinaryIO
 import numpy as np
 
 from ergodex import CAUTION, stats
+from ergodex.check_names import ALL_STATISTICS, DEFAULT_STATISTICS, DEFAULT_TOLERANCE
 from ergodex.exceptions import DataError, ModelFileError, SettingsError
 from ergodex.files import atomic_write_path, atomic_write_text
 from ergodex.host import utc_now
@@ -92,13 +93,8 @@ log = logging.getLogger(__name__)
 SCORECARD_FORMAT = "ergodex-scorecard/1"
 EVIDENCE_FORMAT = "ergodex-evidence/1"
 
-#: Largest allowed ratio of a row's model distance to its noise floor. Calibrated in
-#: ``benchmarks/calibration.py`` (rates in ``benchmarks/README.md``).
-DEFAULT_TOLERANCE = 2.75
-
-ALL_STATISTICS = ("histogram", "autocorrelation", "spectrum", "quantiles", "occupancy",
-                  "residence", "transitions")
-DEFAULT_STATISTICS = ("histogram", "autocorrelation", "spectrum", "quantiles", "occupancy")
+# DEFAULT_TOLERANCE, ALL_STATISTICS and DEFAULT_STATISTICS live in ergodex.check_names (imported
+# above) so that the command line's --help need not import numpy.
 _REGIME_STATISTICS = ("occupancy", "residence", "transitions")
 
 # Decorrelation-time multiples for the defaults: gap between reference blocks and spin-up (5: the

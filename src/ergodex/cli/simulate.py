@@ -60,9 +60,10 @@ import math
 import sys
 import tempfile
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import numpy as np
+if TYPE_CHECKING:  # numpy loads when a command runs, not for --help
+    import numpy as np
 
 from ergodex.cli.common import MODEL_HELP, load_model
 from ergodex.exceptions import DataError, ModelFileError, SettingsError
@@ -145,6 +146,8 @@ def initial_states_from_file(surrogate, path: str, members: int) -> tuple[np.nda
     Returns the picked states and every state of the file (model space), from which the
     blow-up bound is set.
     """
+    import numpy as np
+
     from ergodex.readers import read_series
 
     from ergodex.validation import align_columns
@@ -176,6 +179,8 @@ def fitted_range(surrogate) -> tuple[list[int], np.ndarray] | None:
     None when the model file has no ``provenance.model_range`` (files from before it existed);
     hidden variables have no entry.
     """
+    import numpy as np
+
     recorded = (surrogate.provenance or {}).get("model_range")
     if not isinstance(recorded, dict):
         return None
@@ -207,6 +212,8 @@ def bound_over(surrogate, columns, reference: np.ndarray) -> np.ndarray:
     Ten times the reference range (:func:`ergodex.integrate.blowup_bound`); hidden variables have
     no data range to leave.
     """
+    import numpy as np
+
     from ergodex.integrate import blowup_bound
 
     bound = np.tile([-np.inf, np.inf], (surrogate.n_variables, 1))
@@ -221,6 +228,8 @@ def states_in_fitted_range(surrogate, rng: np.random.Generator, n_states: int = 
     the run goes; the automatic substep measures the stiffness here as well. None without a
     record.
     """
+    import numpy as np
+
     recorded = fitted_range(surrogate)
     if recorded is None:
         return None
@@ -253,6 +262,8 @@ def _check_memory(surrogate, args: argparse.Namespace) -> None:
 
 def _constant_columns(runs: list[np.ndarray]) -> list[int]:
     """Data columns that hold one value across every run and output (a settled ensemble)."""
+    import numpy as np
+
     if not runs:
         return []
     lo = np.min([r.min(axis=0) for r in runs], axis=0)
@@ -279,6 +290,8 @@ def _progress_bar(total: int):
 
 def run(args: argparse.Namespace) -> int:
     """Run ``ergodex simulate``; returns 0, or 1 when some member blew up."""
+    import numpy as np
+
     from ergodex.integrate import integrate_ensemble
     from ergodex.series import Series
     from ergodex.writers import write_csv, write_netcdf, write_npz
