@@ -31,8 +31,8 @@ def _loaded_after(argv: list[str]) -> tuple[int, str, set[str]]:
         "names = sorted({m.split('.')[0] for m in sys.modules})\n"
         "print('\\n@@' + json.dumps({'code': code, 'modules': names}))\n"
     )
-    proc = subprocess.run([sys.executable, "-c", script, *argv], capture_output=True, text=True,
-                          timeout=300)
+    proc = subprocess.run([sys.executable, "-c", script, *argv], check=False, capture_output=True,
+                          text=True, timeout=300)
     out, _, tail = proc.stdout.rpartition("\n@@")
     assert tail, proc.stderr
     record = json.loads(tail)
