@@ -609,7 +609,7 @@ def _retrain(registry: Any, name: str, data: Any, *, config: Any, spec: Any, see
     if champion is not None:
         log.info("drift check: %s against %d reference runs (seed %d)", champion_ref,
                  reference.n_runs, seed)
-        champion_result = check(champion, reference, spec)
+        champion_result = check(champion, reference, spec, evidence=False)  # scorecard only
         log.info("drift check: %s %s (score %.3g)", champion_ref, champion_result.scorecard.verdict,
                  shared_score(champion_result.scorecard))
     else:

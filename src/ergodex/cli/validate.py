@@ -134,8 +134,9 @@ def run(args: argparse.Namespace) -> int:
 
     extra_sections: list = []
     if field is None:
+        # the evidence arrays only when a file or the report will hold them
         result = check(surrogate, reference, spec, time_limit=args.time_limit,
-                       max_memory=args.max_memory)
+                       max_memory=args.max_memory, evidence=bool(evidence or report))
     else:
         from ergodex.cli.fields import check_field_arg
 
