@@ -674,9 +674,7 @@ def _acf_pieces(pieces: np.ndarray, max_lag: int) -> np.ndarray:
     """Autocorrelation of each piece separately (P, max_lag + 1, n), as stats.autocorrelation."""
     d = np.ascontiguousarray((pieces - pieces.mean(axis=1, keepdims=True)).transpose(0, 2, 1))
     L = d.shape[2]
-    from scipy.fft import next_fast_len
-
-    nfft = next_fast_len(L + max_lag, real=True)  # enough padding for lags ≤ max_lag
+    nfft = stats.fast_fft_length(L + max_lag)  # enough padding for lags ≤ max_lag
     f = np.fft.rfft(d, n=nfft, axis=2)
     acov = np.fft.irfft(f.real**2 + f.imag**2, n=nfft, axis=2)[:, :, : max_lag + 1]
     acov = acov.transpose(0, 2, 1)
