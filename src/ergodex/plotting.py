@@ -34,6 +34,9 @@ __all__ = [
 
 def _evidence(result: Any) -> Any:
     evidence = getattr(result, "evidence", result)
+    if evidence is None:
+        raise SettingsError("this CheckResult holds no evidence (check(..., evidence=False)): "
+                            "rerun check with evidence=True to draw its figures")
     if not hasattr(evidence, "hist_edges"):
         raise SettingsError(
             f"expected a CheckResult or its Evidence, got {type(result).__name__} (a Scorecard "

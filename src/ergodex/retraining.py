@@ -615,7 +615,7 @@ def _retrain(registry: Any, name: str, data: Any, *, config: Any, spec: Any, see
         log.info("drift check: %s against %d reference runs (seed %d)", champion_ref,
                  reference.n_runs, seed)
         try:
-            champion_result = check(champion, reference, spec)
+            champion_result = check(champion, reference, spec, evidence=False)  # scorecard only
         except ModelLimitError as exc:  # too stiff or too slow on these data: a failed check
             champion_limit = str(exc)
             log.info("drift check: %s could not be integrated: %s", champion_ref, exc)

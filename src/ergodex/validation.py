@@ -65,6 +65,7 @@ from typing import BinaryIO
 import numpy as np
 
 from ergodex import CAUTION, stats
+from ergodex.check_names import ALL_STATISTICS, DEFAULT_STATISTICS, DEFAULT_TOLERANCE
 from ergodex.exceptions import DataError, ModelFileError, SettingsError
 from ergodex.files import atomic_write_path, atomic_write_text
 from ergodex.host import utc_now
@@ -98,13 +99,8 @@ log = logging.getLogger(__name__)
 SCORECARD_FORMAT = "ergodex-scorecard/1"
 EVIDENCE_FORMAT = "ergodex-evidence/1"
 
-#: Largest allowed ratio of a row's model distance to its noise floor. Calibrated in
-#: ``benchmarks/calibration.py`` (rates in ``benchmarks/README.md``).
-DEFAULT_TOLERANCE = 2.75
-
-ALL_STATISTICS = ("histogram", "autocorrelation", "spectrum", "quantiles", "occupancy",
-                  "residence", "transitions")
-DEFAULT_STATISTICS = ("histogram", "autocorrelation", "spectrum", "quantiles", "occupancy")
+# DEFAULT_TOLERANCE, ALL_STATISTICS and DEFAULT_STATISTICS live in ergodex.check_names (imported
+# above) so that the command line's --help need not import numpy.
 _REGIME_STATISTICS = ("occupancy", "residence", "transitions")
 
 # Decorrelation-time multiples for the defaults: gap between reference blocks and spin-up (5: the
@@ -616,10 +612,10 @@ class Evidence:
 
 @dataclass
 class CheckResult:
-    """A scorecard and the evidence behind it."""
+    """A scorecard and the evidence behind it (None when ``check(..., evidence=False)``)."""
 
     scorecard: Scorecard
-    evidence: Evidence
+    evidence: Evidence | None
 
     @property
     def passed(self) -> bool:
@@ -732,9 +728,7 @@ def _acf_pieces(pieces: np.ndarray, max_lag: int) -> np.ndarray:
     """Autocorrelation of each piece separately (P, max_lag + 1, n), as stats.autocorrelation."""
     d = np.ascontiguousarray((pieces - pieces.mean(axis=1, keepdims=True)).transpose(0, 2, 1))
     L = d.shape[2]
-    from scipy.fft import next_fast_len
-
-    nfft = next_fast_len(L + max_lag, real=True)  # enough padding for lags ≤ max_lag
+    nfft = stats.fast_fft_length(L + max_lag)  # enough padding for lags ≤ max_lag
     f = np.fft.rfft(d, n=nfft, axis=2)
     acov = np.fft.irfft(f.real**2 + f.imag**2, n=nfft, axis=2)[:, :, : max_lag + 1]
     acov = acov.transpose(0, 2, 1)
@@ -898,7 +892,7 @@ def align_columns(surrogate, series):
 
 def check(surrogate, reference, spec: CheckSpec | None = None, *, initial_states=None,
           dt: float | None = None, progress=False, time_limit: float | None = None,
-          max_memory: int | str | None = None) -> CheckResult:
+          max_memory: int | str | None = None, evidence: bool = True) -> CheckResult:
     """Validate a surrogate against reference data: scorecard plus evidence.
 
     Parameters
@@ -921,6 +915,11 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *, initial_states
     max_memory : int or str, optional
         Memory limit (default: ``$ERGODEX_MAX_MEMORY``, else half the available memory); a check
         whose ensemble would need more is refused before anything is allocated.
+    evidence : bool, default True
+        Build the arrays behind the figures and reports (:class:`Evidence`). They cost a
+        tenth to a quarter of a check; with False, ``result.evidence`` is None (the verdict and
+        scorecard are the same), and the figures can be recomputed later from the scorecard's
+        spec and seed.
 
     Returns
     -------
@@ -952,7 +951,7 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *, initial_states
              reference.n_samples, ", ".join(reference.names))
     with reporter(progress, 1, desc="check", unit="output") as update:
         result = _check(surrogate, reference, spec, initial_states, update,
-                        time_limit=time_limit, max_memory=max_memory)
+                        time_limit=time_limit, max_memory=max_memory, evidence=evidence)
     card = result.scorecard
     settings = card.settings
     log.info("check: %d members of %g time units after a spin-up of %g; %s",
@@ -966,7 +965,8 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *, initial_states
 
 
 def _check(surrogate, reference, spec, initial_states, update, *,
-           time_limit: float | None = None, max_memory: int | str | None = None) -> CheckResult:
+           time_limit: float | None = None, max_memory: int | str | None = None,
+           evidence: bool = True) -> CheckResult:
     """The check itself, on a Series; ``update(done, total)`` (or None) hears of its progress."""
     import ergodex
     from ergodex.integrate import blowup_bound, ensemble_memory, integrate_ensemble
@@ -1171,11 +1171,13 @@ def _check(surrogate, reference, spec, initial_states, update, *,
         data_fingerprint=data_reference.fingerprint(),
         created=utc_now(),
         ergodex_version=ergodex.__version__, settings=settings)
-    evidence = _evidence(reference, stacked, ref_pieces, ref_stats, model, alive, blowup_times,
-                         spec, ctx, rng)
+    arrays = None
+    if evidence:  # last: the scorecard never depends on it (it only draws from rng after use)
+        arrays = _evidence(reference, stacked, ref_pieces, ref_stats, model, alive,
+                           blowup_times, spec, ctx, rng)
     if update is not None:
         update(n_out + 1, n_out + 1)  # the integration's outputs, then the scoring
-    return CheckResult(scorecard, evidence)
+    return CheckResult(scorecard, arrays)
 
 
 def _power(reference, ref_pieces, piece_info, groups, floor_index, group_stats, floors, ctx,

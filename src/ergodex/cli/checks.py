@@ -19,7 +19,6 @@ A check settings file::
 from __future__ import annotations
 
 import argparse
-import tomllib
 from pathlib import Path
 from typing import Any
 
@@ -79,7 +78,11 @@ def add_check_options(parser: argparse.ArgumentParser, *, seed: bool = True,
 
     ``seed=False`` leaves ``--seed`` to the command (``retrain`` seeds the whole decision).
     """
-    from ergodex.validation import ALL_STATISTICS, DEFAULT_STATISTICS, DEFAULT_TOLERANCE
+    from ergodex.check_names import (
+        ALL_STATISTICS,
+        DEFAULT_STATISTICS,
+        DEFAULT_TOLERANCE,
+    )
 
     group = parser.add_argument_group(
         title, "unset options keep the --check-config file's value, else the default"
@@ -123,6 +126,8 @@ def add_check_options(parser: argparse.ArgumentParser, *, seed: bool = True,
 
 def read_check_config(path: str | Path) -> dict[str, Any]:
     """Read a check settings TOML file into CheckSpec keys (``regimes`` read as a table)."""
+    import tomllib
+
     from ergodex.regimes import RegimeSet
     from ergodex.validation import CheckSpec
 

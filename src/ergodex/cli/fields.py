@@ -14,8 +14,6 @@ import glob
 from collections.abc import Callable
 from typing import Any
 
-import numpy as np
-
 from ergodex.exceptions import DataError, SettingsError
 from ergodex.series import format_dt
 
@@ -186,6 +184,8 @@ def field_output_map(surrogate, dt: float):
     Output sample ``i`` lies ``i + 1`` steps after the last sample of the fit data, so the seasonal
     cycle (and a fitted trend, extrapolated) follow the model calendar. None for other models.
     """
+    import numpy as np
+
     from ergodex.fields.modelling import field_transform_of
 
     transform = field_transform_of(surrogate)
@@ -199,6 +199,8 @@ def field_output_map(surrogate, dt: float):
 
 def write_simulated_field(path, surrogate, series, args: argparse.Namespace):
     """Write simulated grid values as CF NetCDF on the model's grid, mask and calendar."""
+    import numpy as np
+
     from ergodex import __version__
     from ergodex.fields.modelling import field_transform_of
     from ergodex.fields.writing import write_field

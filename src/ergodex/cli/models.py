@@ -50,7 +50,6 @@ from typing import Any
 
 from ergodex import CAUTION
 from ergodex.cli.common import add_home_option, registry_from_args
-from ergodex.registry import parse_ref
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
@@ -179,6 +178,8 @@ def _verdict_text(info) -> str:
 
 
 def run_show(args: argparse.Namespace) -> int:
+    from ergodex.registry import parse_ref
+
     registry = registry_from_args(args)
     name, version = parse_ref(args.ref)
     if args.all:
@@ -239,6 +240,8 @@ def run_verify(args: argparse.Namespace) -> int:
 
 
 def run_history(args: argparse.Namespace) -> int:
+    from ergodex.registry import parse_ref
+
     registry = registry_from_args(args)
     events = registry.history(args.ref)
     name, _ = parse_ref(args.ref)

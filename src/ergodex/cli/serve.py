@@ -9,10 +9,8 @@ Once listening, one line goes to stdout: ``ergodex serve: listening on http://HO
 from __future__ import annotations
 
 import argparse
-import ipaddress
 import math
 import os
-import socket
 import sys
 from pathlib import Path
 
@@ -92,6 +90,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 
 def _is_loopback(host: str) -> bool:
+    import ipaddress
+
     if host == "localhost":
         return True
     try:
@@ -166,6 +166,8 @@ def run(args: argparse.Namespace) -> int:
         job_time_limit=float(args.job_time_limit),
         job_memory_bytes=memory_bytes,
     )
+    import socket
+
     from ergodex.service.app import create_app
     from ergodex.service.jobs import hold_home_lock
 

@@ -60,25 +60,15 @@ import math
 import sys
 import tempfile
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import numpy as np
+if TYPE_CHECKING:  # numpy loads when a command runs, not for --help
+    import numpy as np
 
 from ergodex.cli.common import MODEL_HELP, load_model
 from ergodex.exceptions import DataError, SettingsError
-from ergodex.simulation import (
-    SPINUP_STEPS,
-    bound_from_fitted_range,
-    bound_over,
-    fitted_range,
-    initial_states_from_model,
-    states_in_fitted_range,
-)
 
-__all__ = [
-    "add_parser", "bound_from_fitted_range", "bound_over", "fitted_range", "initial_states_from_file", "initial_states_from_model",
-    "load_model", "run", "states_in_fitted_range",
-]
+__all__ = ["add_parser", "initial_states_from_file", "load_model", "run"]
 
 _FORMATS = {".csv": "csv", ".npz": "npz", ".nc": "nc", ".nc4": "nc", ".netcdf": "nc"}
 
@@ -149,6 +139,8 @@ def initial_states_from_file(surrogate, path: str, members: int) -> tuple[np.nda
     Returns the picked states and every state of the file (model space), from which the
     blow-up bound is set.
     """
+    import numpy as np
+
     from ergodex.readers import read_series
 
     from ergodex.validation import align_columns
@@ -192,6 +184,8 @@ def _check_memory(surrogate, args: argparse.Namespace) -> None:
 
 def _constant_columns(runs: list[np.ndarray]) -> list[int]:
     """Data columns that hold one value across every run and output (a settled ensemble)."""
+    import numpy as np
+
     if not runs:
         return []
     lo = np.min([r.min(axis=0) for r in runs], axis=0)
@@ -201,8 +195,17 @@ def _constant_columns(runs: list[np.ndarray]) -> list[int]:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``ergodex simulate``; returns 0, or 1 when some member blew up."""
+    import numpy as np
+
     from ergodex.integrate import integrate_ensemble
     from ergodex.series import Series
+    from ergodex.simulation import (  # the library's start and bound rules
+        SPINUP_STEPS,
+        bound_from_fitted_range,
+        bound_over,
+        initial_states_from_model,
+        states_in_fitted_range,
+    )
     from ergodex.writers import write_csv, write_netcdf, write_npz
 
     if args.members is None or args.members < 1:

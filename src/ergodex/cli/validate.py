@@ -147,8 +147,10 @@ def run(args: argparse.Namespace) -> int:
     extra_sections: list = []
     extra_arrays = None
     if field is None:
+        # the evidence arrays only when a file or the report will hold them
         result = check(surrogate, reference, spec, time_limit=args.time_limit,
-                       max_memory=args.max_memory, progress=show_progress(args))
+                       max_memory=args.max_memory, progress=show_progress(args),
+                       evidence=bool(evidence or report))
     else:
         from ergodex.cli.fields import check_field_arg
 

@@ -184,7 +184,8 @@ def _evaluate(index: int, method: str, settings: dict, fit_data, reference, spec
         "model_json": surrogate.to_json(),
     }
     try:
-        scorecard = check(surrogate, reference, CheckSpec.from_dict(spec_dict)).scorecard
+        scorecard = check(surrogate, reference, CheckSpec.from_dict(spec_dict),
+                          evidence=False).scorecard
     except ErgodexError as exc:
         out.update(verdict="error", reasons=[f"check failed: {exc}"])
         return out
