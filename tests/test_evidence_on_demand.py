@@ -16,8 +16,9 @@ from ergodex.writers import write_csv
 
 
 def _ou_case(seed: int):
-    # the two-variable Ornstein-Uhlenbeck scenario and its own generating model
-    return scenarios.ou_surrogate(), scenarios.ornstein_uhlenbeck(seed=seed, duration=90.0)
+    # the two-variable Ornstein-Uhlenbeck scenario and its own generating model; 800 time units
+    # so that the record can detect a 1.5x change of time scale (a shorter one is inconclusive)
+    return scenarios.ou_surrogate(), scenarios.ornstein_uhlenbeck(seed=seed, duration=800.0)
 
 
 def test_without_evidence_the_scorecard_is_the_same():

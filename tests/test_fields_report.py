@@ -37,7 +37,7 @@ def test_report_from_the_registry_redraws_the_maps_and_old_evidence_still_reads(
     assert main(["fit", str(fit), "--variable", "tas", "--modes", "2", "--climatology", "none",
                  "--method", "linear-inverse", "--out", str(model), "--quiet"]) == 0
     assert main(["validate", str(model), str(check), "--variable", "tas", "--members", "4",
-                 "--seed", "2", "--json", str(card), "--quiet"]) in (0, 1)
+                 "--seed", "2", "--json", str(card), "--quiet"]) in (0, 1, 3)  # any verdict
     evidence = tmp_path / "card.evidence.npz"
     with np.load(evidence, allow_pickle=False) as z:
         maps = {k: z[k] for k in z.files if k.startswith(MAP_KEY_PREFIX)}

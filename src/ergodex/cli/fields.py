@@ -15,7 +15,14 @@ from collections.abc import Callable
 from typing import Any
 
 from ergodex.exceptions import DataError, SettingsError
-from ergodex.series import format_dt
+
+
+def format_dt(dt: float, unit: str | None) -> str:
+    """:func:`ergodex.series.format_dt`, imported when called (series loads numpy; --help does
+    not)."""
+    from ergodex.series import format_dt as series_format_dt
+
+    return series_format_dt(dt, unit)
 
 __all__ = ["add_check_options", "add_fit_options", "check_field_arg", "field_output_map",
            "read_check_input", "read_fit_input", "time_unit_note", "write_simulated_field"]

@@ -17,7 +17,7 @@ from typing import Any
 from ergodex.cli.checks import OPTIONS, add_check_options, build_spec
 from ergodex.cli.common import add_data_options, read_data
 from ergodex.exceptions import SettingsError
-from ergodex.fitting.base import FITTERS
+from ergodex.fit_methods import FIT_METHODS
 
 EXIT_OK = 0
 EXIT_NONE_PASSED = 1
@@ -33,7 +33,7 @@ _DEGENERATE_HINTS = {
                       "correlated, in the data's time unit",
 }
 
-METHODS = tuple(FITTERS)  # the fitter table's names (it imports no fitter until one is used)
+METHODS = tuple(FIT_METHODS)  # the fitter table's names, without importing any fitter
 
 #: What the fit's ``score`` means, printed beside it.
 SCORE_LEGEND = ("score: the fit's R², the share of the variance of the fitted tendencies "

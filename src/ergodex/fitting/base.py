@@ -19,6 +19,7 @@ from typing import Any, ClassVar, Iterator
 import numpy as np
 from sklearn.base import BaseEstimator
 
+from ergodex.fit_methods import FIT_METHODS
 from ergodex.exceptions import DataError, NotFittedError, SettingsError
 from ergodex.fitting.settings import Rule, check_settings
 
@@ -254,12 +255,7 @@ def _source(series) -> str:
 class _FitterTable(Mapping):
     """Method name → fitter class, imported on first use (pysindy and friends load lazily)."""
 
-    _where: ClassVar[dict[str, tuple[str, str]]] = {
-        "sparse": ("ergodex.fitting.sparse", "SparseODE"),
-        "linear-inverse": ("ergodex.fitting.linear_inverse", "LinearInverseModel"),
-        "quadratic-noise": ("ergodex.fitting.closure", "QuadraticNoiseModel"),
-        "calibrated-linear-inverse": ("ergodex.fitting.calibrated", "CalibratedLinearInverse"),
-    }
+    _where: ClassVar[dict[str, tuple[str, str]]] = FIT_METHODS
 
     def __getitem__(self, name: str) -> type[Fitter]:
         module, attribute = self._where[name]
