@@ -27,7 +27,6 @@ import time
 
 import numpy as np
 
-
 FAST_DATA = False
 
 

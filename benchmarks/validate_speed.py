@@ -37,7 +37,7 @@ def main(argv=None) -> int:
     validation.check(sur, data, spec)  # warm-up: numba kernels load from cache, imports
 
     full, integ = [], []
-    for r in range(args.repeats):
+    for _ in range(args.repeats):
         t0 = time.perf_counter()
         result = validation.check(sur, data, spec)
         full.append(time.perf_counter() - t0)

@@ -17,13 +17,13 @@ from ergodex.validation import CheckSpec, check
 DEMO_SEED = 2026
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def loop_reference(seed: int = DEMO_SEED):
     """Held-out convection-loop runs, as in the demo (two runs; shorter to keep tests quick)."""
     return scenarios.convection_loop(seed=seed, n_runs=2, duration=40.0, dt=0.01)
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def loop_check(rho: float = 28.0, seed: int = DEMO_SEED):
     """``(CheckResult, Surrogate)`` of Lorenz-63 with the given rho against the loop's data.
 
@@ -39,7 +39,7 @@ def loop_check(rho: float = 28.0, seed: int = DEMO_SEED):
     return check(surrogate, reference, spec), surrogate
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def loop_page(rho: float = 28.0, seed: int = DEMO_SEED) -> str:
     """The rendered report of :func:`loop_check` (drawn once per process: figures take seconds)."""
     from ergodex.report import render_report

@@ -8,13 +8,12 @@ import pytest
 pytest.importorskip("xarray")
 pytest.importorskip("cftime")
 
-from fields_support import write_cf
-
 from ergodex.fields import FieldModes, modes_series, read_field
 from ergodex.fields.checking import _lag1, _weighted_rms, check_field
 from ergodex.fields.modelling import attach_transform
 from ergodex.surrogate import Surrogate, polynomial_terms
 from ergodex.validation import CheckSpec
+from fields_support import write_cf
 
 LAT = np.array([-10.0, -5.0, 0.0, 5.0, 10.0, 15.0])
 LON = np.arange(8) * 10.0 + 120.0

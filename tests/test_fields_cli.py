@@ -10,10 +10,9 @@ import pytest
 pytest.importorskip("xarray")
 cftime = pytest.importorskip("cftime")
 
-from fields_support import write_cf
-
 from ergodex.cli import main
 from ergodex.surrogate import Surrogate
+from fields_support import write_cf
 
 LAT = np.array([-10.0, -5.0, 0.0, 5.0, 10.0, 15.0])
 LON = np.arange(8) * 10.0 + 120.0

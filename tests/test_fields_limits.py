@@ -9,14 +9,13 @@ import pytest
 pytest.importorskip("xarray")
 pytest.importorskip("cftime")
 
-from fields_support import write_cf
-
 from ergodex.exceptions import ModelLimitError, SettingsError
 from ergodex.fields import FieldModes, modes_series, read_field
 from ergodex.fields.checking import check_field
 from ergodex.fields.modelling import attach_transform
 from ergodex.fitting import make_fitter
 from ergodex.validation import CheckSpec
+from fields_support import write_cf
 
 LAT = np.linspace(-40.0, 40.0, 20)
 LON = np.arange(30) * 5.0

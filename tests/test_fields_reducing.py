@@ -10,12 +10,11 @@ import pytest
 pytest.importorskip("xarray")
 cftime = pytest.importorskip("cftime")
 
-from fields_support import eofs_example, noise_field, write_cf
-
 from ergodex.exceptions import DataError
 from ergodex.fields import FieldModes, modes_series, read_field
 from ergodex.fields.preparing import LinearTrend, SeasonalCycle
 from ergodex.fields.reducing import north_mode_count, weighted_eof
+from fields_support import eofs_example, noise_field, write_cf
 
 LAT = np.array([-10.0, -5.0, 0.0, 5.0, 10.0, 15.0])
 LON = np.arange(8) * 10.0 + 120.0

@@ -9,11 +9,10 @@ import pytest
 pytest.importorskip("xarray")
 pytest.importorskip("cftime")
 
-from fields_support import write_cf
-
 from ergodex.cli import main
 from ergodex.fields.maps import MAP_KEY_PREFIX
 from ergodex.validation import Evidence
+from fields_support import write_cf
 
 LAT = np.array([-10.0, -5.0, 0.0, 5.0, 10.0, 15.0])
 LON = np.arange(8) * 10.0 + 120.0

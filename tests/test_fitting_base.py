@@ -54,7 +54,7 @@ def test_bad_value_set_after_construction_is_caught_by_fit():
 def test_learned_state_before_fit_raises_not_fitted():
     fitter = make_fitter("sparse", {})
     with pytest.raises(NotFittedError, match=r"SparseODE.surrogate_ is not available before fit"):
-        fitter.surrogate_
+        _ = fitter.surrogate_
     assert not hasattr(fitter, "coefficients_")  # NotFittedError is an AttributeError
     assert not fitter.is_fitted
 

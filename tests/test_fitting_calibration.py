@@ -93,7 +93,9 @@ def test_eki_recovers_a_double_well_from_its_exact_stationary_density():
     a, b, sigma = 1.0, 1.0, 1.0
     # Stationary density of dx = (a x − b x³) dt + σ dW: p(x) ∝ exp(2 (a x²/2 − b x⁴/4) / σ²)
     # (Gardiner, Handbook of Stochastic Methods, sec. 5.2.2: potential solution in one dimension)
-    weight = lambda x, k: x**k * np.exp(2.0 * (a * x**2 / 2 - b * x**4 / 4) / sigma**2)
+    def weight(x, k):
+        return x**k * np.exp(2.0 * (a * x**2 / 2 - b * x**4 / 4) / sigma**2)
+
     z = quad(weight, -np.inf, np.inf, args=(0,))[0]
     m2 = quad(weight, -np.inf, np.inf, args=(2,))[0] / z
     m4 = quad(weight, -np.inf, np.inf, args=(4,))[0] / z
@@ -161,7 +163,9 @@ def test_calibrated_fitter_learns_the_light_tails_a_linear_model_cannot_make():
     series = Series.from_arrays(list(data.states), ("x",), 0.05)
     # Exact kurtosis of p(x) ∝ exp(2 (−x²/2 − x⁴/4) / σ²) (Gardiner, Handbook of Stochastic
     # Methods, sec. 5.2.2), by quadrature
-    weight = lambda x, k: x**k * np.exp(2.0 * (-x**2 / 2 - x**4 / 4) / sigma**2)
+    def weight(x, k):
+        return x**k * np.exp(2.0 * (-x**2 / 2 - x**4 / 4) / sigma**2)
+
     m2 = quad(weight, -np.inf, np.inf, args=(2,))[0] / quad(weight, -np.inf, np.inf, args=(0,))[0]
     m4 = quad(weight, -np.inf, np.inf, args=(4,))[0] / quad(weight, -np.inf, np.inf, args=(0,))[0]
     exact_kurtosis = m4 / m2**2
@@ -227,7 +231,9 @@ def test_homogeneous_setting_fits_on_rotations_and_records_it():
     # the modes come from the rotated runs: the circulant covariance's eigenvalues pair up
     # (wave numbers k and n − k; Gray 2006, sec. 3.1), so of the 4 leading modes two adjacent
     # ones share a variance to round-off; a PCA of the runs as sampled has no such pair
-    paired = lambda v: np.any(np.isclose(v[1:], v[:-1], rtol=1e-9))
+    def paired(v):
+        return np.any(np.isclose(v[1:], v[:-1], rtol=1e-9))
+
     assert paired(fitter.surrogate_.transform.explained_variance_)
     plain = make_fitter("linear-inverse", {"n_modes": 4}).fit(series)
     assert not paired(plain.surrogate_.transform.explained_variance_)

@@ -39,9 +39,9 @@ def test_contract(method, series):
 
     # 1. learned state before fit → NotFittedError (an AttributeError)
     with pytest.raises(NotFittedError, match="before fit"):
-        fitter.surrogate_
+        _ = fitter.surrogate_
     with pytest.raises(NotFittedError):
-        fitter.score_
+        _ = fitter.score_
 
     # 2. every documented setting is in the table and the constructor, and the defaults pass
     params = fitter.get_params()

@@ -139,7 +139,7 @@ def test_double_well_moments_match_stationary_density():
     s = sc.double_well(seed=9, n_runs=12, duration=300.0, dt=0.05, noise=noise, substeps=10)
     assert quad(lambda u: sc.double_well_density(u, noise), -np.inf, np.inf)[0] == pytest.approx(1)
     for k in (2, 4):
-        exact = quad(lambda u: u**k * sc.double_well_density(u, noise), -np.inf, np.inf)[0]
+        exact = quad(lambda u, k=k: u**k * sc.double_well_density(u, noise), -np.inf, np.inf)[0]
         per_run = np.array([np.mean(r[:, 0] ** k) for r in s.runs])
         se = per_run.std(ddof=1) / math.sqrt(len(per_run))
         assert abs(per_run.mean() - exact) < 4 * se + 0.02 * exact

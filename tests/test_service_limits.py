@@ -17,8 +17,6 @@ import pytest
 httpx = pytest.importorskip("httpx")
 pytest.importorskip("fastapi")
 
-from test_service import TOKEN, _alive, auth, convection_csv, upload, wait_for_job  # noqa: E402
-
 from ergodex.cli import main  # noqa: E402
 from ergodex.exceptions import SettingsError  # noqa: E402
 from ergodex.service.auth import owner_key  # noqa: E402
@@ -40,6 +38,7 @@ from ergodex.service.limits import (  # noqa: E402
 )
 from ergodex.service.process import ServerProcess  # noqa: E402
 from ergodex.service.settings import ServiceSettings  # noqa: E402
+from test_service import TOKEN, _alive, auth, convection_csv, upload, wait_for_job  # noqa: E402
 
 MiB = 2**20
 

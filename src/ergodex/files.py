@@ -18,7 +18,7 @@ from ergodex.exceptions import DataError
 
 
 def atomic_write_path(
-    path: str | os.PathLike[str], write: Callable[[Path], None], *, make_folder: bool = True
+    path: str | os.PathLike[str], write: Callable[[Path], object], *, make_folder: bool = True
 ) -> Path:
     """Call ``write(tmp_path)`` for a temporary path beside ``path``, then move it into place.
 

@@ -114,7 +114,7 @@ def as_series(
     kind = _kind(data)
     if kind == "series":
         return data
-    options = {"dt": dt, "time_unit": time_unit, "time_tolerance": time_tolerance,
+    options: dict[str, Any] = {"dt": dt, "time_unit": time_unit, "time_tolerance": time_tolerance,
                "source": source or f"{what} ({type(data).__name__})"}
     if kind == "pandas":
         return from_pandas(data, **options)
@@ -245,7 +245,7 @@ def from_pandas(
                 and not _is_member_coordinate(frame, c, run_col)]
     if not var_cols:
         raise DataError(f"{source}: no state-variable columns (only time/run)")
-    for k, c in enumerate(var_cols):
+    for c in var_cols:
         check_name(c, what=f"column {c!r}", source=source)
         if frame[c].dtype.kind not in "biuf":
             raise DataError(
@@ -261,7 +261,8 @@ def from_pandas(
         bounds = [(0, n, "0")]
     else:
         labels = [str(x) for x in frame[run_col].tolist()]
-        bounds, seen = [], {}
+        bounds = []
+        seen: dict[str, int] = {}
         for i, label in enumerate(labels):
             if bounds and bounds[-1][2] == label:
                 continue
@@ -386,7 +387,7 @@ def to_xarray(series: Series) -> Any:
         cube[i, : run.shape[0]] = run
     data_vars = {}
     for k, name in enumerate(series.names):
-        attrs = {"units": series.units[k]} if series.units is not None else {}
+        attrs: dict[str, Any] = {"units": series.units[k]} if series.units is not None else {}
         data_vars[name] = (("run", "time"), cube[:, :, k], attrs)
     time_attrs = {"units": series.time_unit} if series.time_unit else {}
     coords = {"run": ("run", np.asarray(labels, dtype=str)),

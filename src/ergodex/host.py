@@ -3,12 +3,12 @@
 from __future__ import annotations
 
 import os
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 
 def utc_now(timespec: str = "seconds") -> str:
     """The current UTC time in ISO 8601 (``2026-12-01T22:30:00+00:00``), for records and events."""
-    return datetime.now(timezone.utc).isoformat(timespec=timespec)
+    return datetime.now(UTC).isoformat(timespec=timespec)
 
 
 def pid_alive(pid: int) -> bool:

@@ -136,6 +136,7 @@ class Ledger:
                      claimed_path),
                 )
             elif verdict == "go":
+                assert row is not None  # the branch above took the new file
                 # A retried rejection starts its attempts afresh; a crashed attempt counts.
                 attempts = 1 if row["state"] == "rejected" else row["attempts"] + 1
                 conn.execute(

@@ -206,6 +206,7 @@ def nesting_depth(value: Any) -> int:
     stack = [(value, 1)]
     while stack:
         item, depth = stack.pop()
+        children: Any
         if isinstance(item, dict):
             children = item.values()
         elif isinstance(item, list):

@@ -12,7 +12,6 @@ from pathlib import Path
 from typing import Any
 
 from ergodex.exceptions import SettingsError
-from ergodex.series import Series
 
 log = logging.getLogger(__name__)
 

@@ -88,6 +88,7 @@ def _curves(evidence: Any, prefix: str, index: list[int]) -> tuple:
     """Reference, surrogate and piece curves of the chosen variables, one row per variable."""
     ref = np.asarray(getattr(evidence, f"{prefix}_reference"), dtype=float)[:, index].T
     mod = np.asarray(getattr(evidence, f"{prefix}_model"), dtype=float)[:, index].T
+    pieces: np.ndarray | None
     pieces = np.asarray(getattr(evidence, f"{prefix}_reference_pieces"), dtype=float)
     pieces = np.swapaxes(pieces[:, :, index], 1, 2) if pieces.ndim == 3 and len(pieces) else None
     return ref, mod, pieces

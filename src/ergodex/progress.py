@@ -16,14 +16,14 @@ from __future__ import annotations
 
 import contextlib
 from collections.abc import Callable, Iterator
-from typing import Any, Union
+from typing import Any
 
 from ergodex.exceptions import SettingsError
 
 __all__ = ["Progress", "reporter"]
 
 #: What ``progress=`` accepts.
-Progress = Union[bool, None, Callable[[int, int], Any]]
+Progress = bool | None | Callable[[int, int], Any]
 
 
 def _check(progress: Any, where: str) -> None:
@@ -80,7 +80,7 @@ def reporter(progress: Progress, total: int, *, desc: str,
 
     callback = progress
 
-    def update(done: int, new_total: int) -> None:
+    def forward(done: int, new_total: int) -> None:
         callback(int(done), int(new_total))
 
-    yield update
+    yield forward

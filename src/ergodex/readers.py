@@ -56,7 +56,7 @@ import zipfile
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 
@@ -694,6 +694,7 @@ def read_csv(
     for k, (start, label) in enumerate(blocks):
         stop = blocks[k + 1][0] if k + 1 < len(blocks) else n_rows
         if label is not None:
+            assert run_col is not None  # labelled blocks come only from a run column
             if label == "":
                 raise DataError(
                     f"{source}: line {start + 2}, column {names[run_col]!r}: the run label is "
@@ -735,7 +736,8 @@ def read_csv(
             _Run(
                 values=values[a:b],
                 label=label if label is not None else path.stem,
-                where=lambda r, a=a: f"line {a + r + 2}",
+                # mypy cannot infer the type of a lambda whose extra parameter has a default
+                where=lambda r, a=a: f"line {a + r + 2}",  # type: ignore[misc]
             )
         )
     return _finish(
@@ -955,7 +957,8 @@ def read_npz(
         _Run(
             values=np.asarray(a, dtype=np.float64),
             label=lab,
-            where=lambda r, i=i: f"run {i}, row {r + 1}",
+            # mypy cannot infer the type of a lambda whose extra parameter has a default
+            where=lambda r, i=i: f"run {i}, row {r + 1}",  # type: ignore[misc]
         )
         for i, (a, lab) in enumerate(zip(arrays, labels))
     ]
@@ -1157,7 +1160,8 @@ def read_netcdf(
         _Run(
             values=stacked[i],
             label=labels[i],
-            where=(lambda r, i=i: f"{member} {labels[i]!r}, time index {r}")
+            # mypy cannot infer the type of a lambda whose extra parameter has a default
+            where=(lambda r, i=i: f"{member} {labels[i]!r}, time index {r}")  # type: ignore[misc]
             if member
             else (lambda r: f"time index {r}"),
         )
@@ -1330,7 +1334,8 @@ def read_dataset(
         stem = rel.with_suffix("").as_posix()
         for r, arr in enumerate(part.runs):
             run_arrays.append(arr[:, order])
-            labels.append(stem if part.n_runs == 1 else f"{stem}/{part.run_labels[r]}")
+            # the readers label every run of a file that holds several
+            labels.append(stem if part.n_runs == 1 else f"{stem}/{cast(tuple, part.run_labels)[r]}")
     if len(set(labels)) != len(labels):
         raise _manifest_error(manifest, f"run labels collide across files: {labels}")
     unknown_holdout = [h for h in holdout if h not in labels]

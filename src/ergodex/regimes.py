@@ -118,6 +118,10 @@ class Regime:
     def to_dict(self) -> dict:
         raise NotImplementedError
 
+    @classmethod
+    def from_dict(cls, d: Mapping, where: str) -> Regime:
+        raise NotImplementedError
+
 
 @dataclass(frozen=True)
 class Ball(Regime):
@@ -445,7 +449,7 @@ class RegimeSet:
 
 def _label_runs(labels) -> list[np.ndarray]:
     if isinstance(labels, (list, tuple)):
-        return [np.asarray(l, dtype=np.int64).ravel() for l in labels]
+        return [np.asarray(run, dtype=np.int64).ravel() for run in labels]
     return [np.asarray(labels, dtype=np.int64).ravel()]
 
 

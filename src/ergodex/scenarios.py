@@ -499,7 +499,7 @@ def lorenz96_surrogate(n: int = 40, forcing: float = 8.0) -> Surrogate:
     if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 4:
         raise SettingsError(f"n must be an integer >= 4 (the stencil reaches i-2..i+1), got {n!r}")
     terms = [_monomial(n, {})]
-    index = {(): 0}
+    index: dict[tuple[tuple[int, int], ...], int] = {(): 0}
 
     def term_index(powers: dict[int, int]) -> int:
         key = tuple(sorted(powers.items()))

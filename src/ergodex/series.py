@@ -19,7 +19,7 @@ import math
 import struct
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 
@@ -379,7 +379,7 @@ class Series:
             # Adding 0.0 turns -0.0 into +0.0 (IEEE-754 round-to-nearest), the only two equal
             # floats with different bytes once non-finite values are excluded.
             canon = np.ascontiguousarray(run + 0.0, dtype="<f8")
-            h.update(memoryview(canon).cast("B"))
+            h.update(canon.data.cast("B"))
         return "sha256:" + h.hexdigest()
 
     def __repr__(self) -> str:
@@ -508,7 +508,8 @@ def split_runs(series: Series, holdout: int | Sequence[int | str]) -> tuple[Seri
         chosen = set(range(n - k, n))
     else:
         chosen = set()
-        for item in holdout:
+        # a bool lands here only by mistake; iterating it raises TypeError, as before
+        for item in cast("Sequence[int | str]", holdout):
             if isinstance(item, str):
                 if series.run_labels is None or item not in series.run_labels:
                     raise DataError(
@@ -616,7 +617,8 @@ def split_blocks(
             f"{n_blocks - 1}, got {check_blocks!r}"
         )
     cut = cut_blocks(series, n_blocks, gap)
-    fit_idx, check_idx = [], []
+    fit_idx: list[int] = []
+    check_idx: list[int] = []
     for r in range(series.n_runs):
         for b in range(n_blocks):
             (check_idx if b >= n_blocks - check_blocks else fit_idx).append(r * n_blocks + b)

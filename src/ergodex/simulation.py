@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import logging
 import math
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 
@@ -211,8 +211,11 @@ def simulate(
     if isinstance(steps, bool) or not isinstance(steps, (int, np.integer)) or steps < 1:
         raise SettingsError(f"steps must be an integer >= 1, got {steps!r}")
     if seed is None:
-        seed = int(np.random.SeedSequence().entropy % (2**63))
+        # a SeedSequence made without entropy draws an int from the OS
+        seed = int(cast(int, np.random.SeedSequence().entropy) % (2**63))
     rng = np.random.default_rng(seed)
+
+    stiffness_states: np.ndarray | None
 
     if initial is not None:
         x0, every_state = _starts_from_data(surrogate, initial, int(members))

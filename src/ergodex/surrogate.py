@@ -573,6 +573,7 @@ class Surrogate:
                     parts.append(f"- {body}" if c < 0 else f"+ {body}")
             rhs = " ".join(parts) if parts else "0"
             if noisy is not None and noisy[i]:
+                assert self._noise is not None  # noisy is set only from it
                 rhs += f" + noise (variance {float(self._noise[i, i]):.{precision}g} per unit time)"
             lines.append(f"d {name}/dt = {rhs}")
         return lines
@@ -902,6 +903,7 @@ def _observed_index(transform: Any, variables: tuple[str, ...],
             f"settings.observed_variables: {list(observed)} must be the transform's outputs in its "
             f"order, {list(outputs)}"
         )
+    assert index is not None  # an empty list gives observed == (), refused just above
     return index
 
 

@@ -325,6 +325,7 @@ class PCA(Transform):
             k = int(self.n_modes)
         else:
             cumulative = np.cumsum(ratio)
+            assert self.variance_fraction is not None  # exactly one of the two is set (checked)
             # 1e-12 guards against the last cumulative sum landing a rounding error below 1.
             k = int(np.searchsorted(cumulative, self.variance_fraction - 1e-12) + 1)
             k = min(k, ratio.size)

@@ -13,9 +13,9 @@ import io
 import math
 import os
 import re
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any, cast
 
 import numpy as np
 
@@ -36,7 +36,8 @@ def _savez_atomic(path: Path, arrays: Mapping[str, np.ndarray]) -> None:
 
     def to_path(tmp: Path) -> None:
         with open(tmp, "wb") as fh:
-            np.savez(fh, **arrays)
+            # numpy's stub lets **kwds reach allow_pickle: bool; our keys are array names
+            np.savez(fh, **arrays)  # type: ignore[arg-type]
 
     atomic_write_path(path, to_path, make_folder=False)
 
@@ -118,7 +119,7 @@ def write_npz(path: str | os.PathLike, series: Series) -> Path:
         "values": series.stacked(),
         "lengths": np.asarray(series.lengths, dtype=np.int64),
         "names": np.asarray(series.names, dtype=str),
-        "dt": np.float64(series.dt),
+        "dt": np.asarray(series.dt, dtype=np.float64),  # a 0-d array, as savez stores it
     }
     if series.units is not None:
         arrays["units"] = np.asarray(series.units, dtype=str)
@@ -147,7 +148,7 @@ def write_netcdf(path: str | os.PathLike, series: Series) -> Path:
         )
     n = series.lengths[0]
     times = np.array([float(_time_text(i, series.dt)) for i in range(n)])
-    data_vars = {}
+    data_vars: dict[str, tuple] = {}
     for k, name in enumerate(series.names):
         attrs = {"units": series.units[k]} if series.units is not None else {}
         if series.n_runs == 1:
@@ -297,7 +298,8 @@ def write_dataset(
                     hold_arg.append(series.run_labels.index(item))
                 else:
                     hold_arg.append(item)
-        _, check = split_runs(labelled, hold_arg)
+        # a holdout that is not an integer was turned into a list above
+        _, check = split_runs(labelled, cast("int | Sequence[int | str]", hold_arg))
         held = list(check.run_labels or ())
 
     ext, writer = WRITERS[fmt]

@@ -33,6 +33,7 @@ licensed practice.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -169,9 +170,9 @@ def grid_rows(transform: FieldModes, reference_modes: list[np.ndarray],
     share = kept / total
     fit_share = float(np.sum(transform.variance_fraction_))
     floor = float(np.mean([abs(share[i] - share[j]) for i, j in floor_pairs]))
-    value = float(np.mean(np.abs(share - fit_share)))
-    ratio = _ratio(value, floor)
-    rows.append(ScoreRow("variance captured", f"modes 1-{transform.n_modes_}", value, floor,
+    captured = float(np.mean(np.abs(share - fit_share)))
+    ratio = _ratio(captured, floor)
+    rows.append(ScoreRow("variance captured", f"modes 1-{transform.n_modes_}", captured, floor,
                          ratio, tolerance, "pass" if ratio <= tolerance else "fail"))
     maps = {"reference variance": ref.var.mean(axis=0),
             "reference lag-1": ref.lag1.mean(axis=0)}
@@ -203,7 +204,7 @@ def _box_weights(transform: FieldModes, regions: list[Box]) -> dict[str, np.ndar
     return out
 
 
-def check_field(surrogate, reference: Field, spec=None, *, regions: list[Box] = (),
+def check_field(surrogate, reference: Field, spec=None, *, regions: Sequence[Box] = (),
                 time_limit: float | None = None,
                 max_memory: int | str | None = None) -> FieldCheck:
     """Check a field surrogate on the reference field: mode rows plus grid rows, one verdict.

@@ -82,5 +82,6 @@ def run_basin_demo(*, scenario: str = "basin", home=None, data_root="datasets",
         registry.accept(f"{BASIN_NAME}@{info.version}",
                         reason="scorecard passed on held-out runs (modes and grid)")
         flow.status = "accepted"
+    assert flow.folder is not None  # set just above
     return DemoResult(flow=flow, dataset_folder=folder, home=Path(registry.home),
                       report_path=flow.folder / "report.html")

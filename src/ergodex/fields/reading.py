@@ -301,7 +301,7 @@ def read_field(
         raise DataError("no field files given")
     if chunks is not None:
         require("dask", "dask", "reading fields lazily in chunks")
-    parts = [_open_part(xr, p, variable, {"time": chunks} if chunks else None) for p in paths]
+    parts = [_open_part(xr, Path(p), variable, {"time": chunks} if chunks else None) for p in paths]
     try:
         return _assemble(xr, parts, variable, box=box, level=level, lazy=chunks is not None,
                          min_samples=min_samples)

@@ -22,7 +22,7 @@ References
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 
@@ -132,7 +132,8 @@ def weighted_eof(
     limit = min(n, p) if max_modes is None else min(n, p, int(max_modes))
     if rule == "count" and n_modes > min(n, p):
         raise SettingsError(f"--modes {n_modes} exceeds min(samples, points) = {min(n, p)}")
-    want = int(n_modes) if rule == "count" else min(limit, _MAX_SEARCH_MODES)
+    # _check has made n_modes an integer for the count rule
+    want = int(cast(int, n_modes)) if rule == "count" else min(limit, _MAX_SEARCH_MODES)
     if lazy:
         s, vt, total, used = _lazy_svd(anomalies, sqrt_w, want, seed)
     else:
@@ -155,8 +156,10 @@ def weighted_eof(
         raise DataError("the anomalies have zero variance everywhere; nothing to reduce")
     fractions = s**2 / total
     if rule == "count":
+        assert n_modes is not None  # checked by _check
         k = int(n_modes)
     elif rule == "variance":
+        assert variance is not None  # checked by _check
         reach = np.flatnonzero(np.cumsum(fractions) >= variance - 1e-12)
         k = int(reach[0]) + 1 if reach.size else s.size
     else:

@@ -13,8 +13,8 @@ import importlib
 import logging
 import os
 import time
-from collections.abc import Mapping
-from typing import Any, ClassVar, Iterator
+from collections.abc import Iterator, Mapping
+from typing import Any, ClassVar
 
 import numpy as np
 from sklearn.base import BaseEstimator
@@ -74,7 +74,7 @@ class Fitter(BaseEstimator):
     # get_params(deep=True) comes from scikit-learn's BaseEstimator: the settings as a new dict
     # holding the stored objects themselves (clone checks that identity).
 
-    def set_params(self, **settings: Any) -> "Fitter":
+    def set_params(self, **settings: Any) -> Fitter:
         """Change settings (checked at once against the table) and return ``self``."""
         check_settings(self.method, settings, self.settings_table)
         for name, value in settings.items():
@@ -90,7 +90,7 @@ class Fitter(BaseEstimator):
         """Checks that involve several settings at once (overridden where needed)."""
 
     # -- fitting ----------------------------------------------------------------------------
-    def fit(self, data, y=None, *, dt: float | None = None, progress=False) -> "Fitter":
+    def fit(self, data, y=None, *, dt: float | None = None, progress=False) -> Fitter:
         """Learn a surrogate from every run of ``data`` and return ``self``.
 
         Parameters

@@ -70,7 +70,7 @@ def piece_noise_covariance(
     Only the diagonal is kept: a handful of pieces cannot estimate a full covariance.
     """
     per_run = max(1, n_pieces // len(runs))
-    pieces = []
+    pieces: list[np.ndarray] = []
     for run in runs:
         length = len(run) // per_run
         if length <= max(lags) + 2:
@@ -310,6 +310,7 @@ class CalibratedLinearInverse(LinearInverseModel):
             n_iterations=self.iterations, progress=progress,
         )
         theta = result.parameters
+        assert result.statistics is not None  # eki records the final statistics
         surrogate, c = build(theta)
         settings = {**surrogate.settings, "method": self.method, **self._extra_settings()}
         provenance = {
@@ -384,7 +385,7 @@ class CalibratedLinearInverse(LinearInverseModel):
         base = np.column_stack([-L @ mu, L])  # terms 1, x₁ … xₙ (as the linear model's)
         terms = list(linear.terms)
         index = {t: k for k, t in enumerate(terms)}
-        extra = []
+        extra: list[Term] = []
         for i in range(n):
             for power in (2, 3):
                 powers = [0] * n

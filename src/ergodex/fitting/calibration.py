@@ -210,7 +210,7 @@ def ensemble_kalman_inversion(
         raise SettingsError(f"positive has shape {positive.shape}; expected ({p},)")
     if int(n_iterations) < 0:
         raise SettingsError(f"n_iterations must be >= 0; got {n_iterations}")
-    seed_state = rng.bit_generator.state
+    seed_state = dict(rng.bit_generator.state)  # a fresh dict either way
     u = to_unconstrained(theta0, positive)
     gamma_inv = np.linalg.inv(gamma)
     misfits: list[float] = []

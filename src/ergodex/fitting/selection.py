@@ -20,8 +20,9 @@ import logging
 import math
 import os
 import sys
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import Any, Mapping, Sequence
+from typing import Any
 
 import numpy as np
 
@@ -42,7 +43,7 @@ class Candidate:
 
     index: int
     method: str
-    settings: dict
+    settings: Mapping[str, Any]
     verdict: str                      # "pass" | "fail" | "error" (the fit itself failed)
     n_terms: int | None = None        # non-zero coefficients
     statistical_score: float | None = None   # the scorecard's largest ratio to the noise floor

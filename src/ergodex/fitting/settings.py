@@ -8,9 +8,10 @@ command line, so a bad value gets the same message whichever way it came in.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass
 from numbers import Integral, Real
-from typing import Any, Mapping
+from typing import Any
 
 from ergodex.exceptions import SettingsError
 

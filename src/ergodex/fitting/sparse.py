@@ -310,6 +310,7 @@ class SparseODE(Fitter):
                     f"use shorter windows"
                 )
             if self.differentiation == "weak":
+                assert stride is not None  # set above when weak_stride is None
                 Theta = evaluate_terms(terms, X)
                 T, Y = weak_matrices(X, Theta, dt, window=self.weak_window, stride=stride, degree=self.weak_degree)
             else:
@@ -378,7 +379,7 @@ class SparseODE(Fitter):
         # Bagging (Fasel et al. 2022): resample rows with replacement with our own generator.
         rng = np.random.default_rng(self.seed)
         n_rows = Theta.shape[0]
-        samples = np.stack([one_fit(rng.integers(0, n_rows, size=n_rows)) for _ in range(self.n_models)])
+        samples = np.stack([one_fit(rng.integers(0, n_rows, size=(n_rows,))) for _ in range(self.n_models)])
         inclusion = np.mean(samples != 0.0, axis=0)
         coefficients = np.median(samples, axis=0)
         coefficients[inclusion < self.inclusion_threshold] = 0.0

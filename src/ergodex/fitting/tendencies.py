@@ -5,7 +5,7 @@ Nothing here reads files or imports pysindy; the functions take arrays and retur
 
 from __future__ import annotations
 
-from typing import Sequence
+from collections.abc import Sequence
 
 import numpy as np
 
@@ -162,14 +162,14 @@ def check_library_rank(Theta: np.ndarray, names: Sequence[str], *, what: str = "
             f"add runs or longer runs, or lower the degree"
         )
     norms = np.linalg.norm(Theta, axis=0)
-    zero = [names[k] for k in np.flatnonzero(norms == 0)]
+    zero = [names[int(k)] for k in np.flatnonzero(norms == 0)]
     if zero:
         raise DataError(f"{what}: library term(s) {', '.join(zero)} are zero on every sample; remove them")
     scaled = Theta / norms
     _, s, vt = np.linalg.svd(scaled, full_matrices=False)
     if s[-1] < 1e-10 * s[0]:
         dependent = np.flatnonzero(np.abs(vt[-1]) > 0.1 * np.abs(vt[-1]).max())
-        listed = ", ".join(repr(names[k]) for k in dependent)
+        listed = ", ".join(repr(names[int(k)]) for k in dependent)
         rank = int(np.sum(s >= 1e-10 * s[0]))
         raise DataError(
             f"{what}: the term library is rank-deficient (rank {rank} of {n_terms} terms); the terms "

@@ -43,7 +43,7 @@ def fit_transform(series, *, n_modes: int | None, standardise: bool):
         return None
     from ergodex import transforms
 
-    steps = []
+    steps: list[transforms.Transform] = []
     if standardise:
         steps.append(transforms.Standardise())
     if n_modes is not None:

@@ -391,6 +391,7 @@ def draw_regimes(axes: Sequence, regime_names: Sequence[str], occupancy_referenc
     _title(axes[0], "time spent in each regime")
     axes[0].set_ylabel("fraction of time", fontsize=_FONT)
     if has_residence(residence_reference, residence_model) and len(axes) > 1:
+        assert residence_reference is not None and residence_model is not None  # checked
         _grouped_bars(axes[1], regime_names, residence_reference, residence_model)
         _title(axes[1], "mean residence time")
         axes[1].set_ylabel("time units", fontsize=_FONT)

@@ -43,7 +43,7 @@ import logging  # noqa: E402
 import os  # noqa: E402
 import threading  # noqa: E402
 from contextlib import asynccontextmanager  # noqa: E402
-from typing import Annotated, Any, Literal  # noqa: E402
+from typing import Annotated, Any, Literal, cast  # noqa: E402
 
 from fastapi import (  # noqa: E402
     APIRouter,
@@ -212,8 +212,9 @@ def _job_out(job: JobRecord, clean=one_line) -> schemas.JobInfo:
         error = schemas.ErrorBody(code=job.error_code, message=clean(job.error_message or ""))
     return schemas.JobInfo(
         id=job.id,
-        kind=job.kind,
-        state=job.state,
+        # the store writes only these values; pydantic checks them again here
+        kind=cast(schemas.JobKind, job.kind),
+        state=cast(schemas.JobState, job.state),
         params=job.params,
         created=job.created,
         started=job.started,
@@ -701,7 +702,8 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
     def accept(
         name: ModelName,
         version: VersionNumber,
-        body: Annotated[schemas.AcceptRequest, Body()] = schemas.AcceptRequest(),
+        # A frozen-in-practice default (never mutated), so one shared instance is safe.
+        body: Annotated[schemas.AcceptRequest, Body()] = schemas.AcceptRequest(),  # noqa: B008
     ) -> schemas.VersionOut:
         """Accept a candidate (needs its passing scorecard, or override with a reason)."""
         return change(name, version, "accept", reason=body.reason, override=body.override)

@@ -155,6 +155,7 @@ def store_upload(
     assert filename is not None
     options = {k: v for k, v in (options or {}).items() if v is not None}
     settings.datasets_dir.mkdir(parents=True, exist_ok=True)
+    staging: Path | None  # None once the folder has moved into place
     staging = settings.datasets_dir / f".staging-{secrets.token_hex(8)}"
     staging.mkdir()
     try:
@@ -177,6 +178,7 @@ def store_upload(
                 digest.update(chunk)
                 out.write(chunk)
         check_content(filename, fmt, head)
+        assert settings.max_dataset_bytes is not None  # ServiceSettings fills it in when None
         check_inflated_size(path, filename, fmt, settings.max_dataset_bytes)
         if not _READERS.acquire(timeout=settings.parse_time_limit):
             raise UploadRefused(

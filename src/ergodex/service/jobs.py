@@ -25,6 +25,7 @@ failed jobs with their own codes (``memory-limit``, ``time-limit``).
 
 from __future__ import annotations
 
+import builtins
 import json
 import logging
 import multiprocessing
@@ -245,7 +246,8 @@ class JobStore:
 
     def list(self, *, state: str | None = None, limit: int = 100) -> list[JobRecord]:
         """Newest jobs first, optionally only those in one state."""
-        query, args = "SELECT * FROM jobs", []
+        query = "SELECT * FROM jobs"
+        args: list[Any] = []
         if state is not None:
             query += " WHERE state = ?"
             args.append(state)
@@ -323,7 +325,7 @@ class JobStore:
             return self.cancel(job_id)
         return before, JobRecord.from_row(after)
 
-    def overdue(self, seconds: float) -> list[JobRecord]:
+    def overdue(self, seconds: float) -> builtins.list[JobRecord]:
         """Running jobs started more than ``seconds`` ago (by the job table's clock)."""
         with self._connect() as db:
             rows = db.execute("SELECT * FROM jobs WHERE state = ?", (RUNNING,)).fetchall()
@@ -343,7 +345,9 @@ class JobStore:
             )
             return cursor.rowcount == 1
 
-    def fail_running(self, reason: str, *, worker_pids: list[int] | None = None) -> list[str]:
+    def fail_running(
+        self, reason: str, *, worker_pids: builtins.list[int] | None = None
+    ) -> builtins.list[str]:
         """Mark running jobs failed (all, or those of the given workers); return their ids.
 
         Called at start-up (a previous server died with these jobs in hand) and at shutdown for
@@ -388,7 +392,7 @@ class JobStore:
             row = db.execute("SELECT * FROM datasets WHERE id = ?", (dataset_id,)).fetchone()
         return _dataset_dict(row) if row is not None else None
 
-    def list_datasets(self, *, limit: int = 100) -> list[dict[str, Any]]:
+    def list_datasets(self, *, limit: int = 100) -> builtins.list[dict[str, Any]]:
         """Newest uploads first."""
         with self._connect() as db:
             rows = db.execute(

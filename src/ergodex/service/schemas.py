@@ -121,10 +121,14 @@ class RetrainJobRequest(_Strict):
     seed: int = Field(0, ge=0, le=2**63 - 1)
 
 
+JobKind = Literal["fit", "validate", "retrain"]
+JobState = Literal["queued", "running", "succeeded", "failed", "cancelled"]
+
+
 class JobInfo(BaseModel):
     id: str
-    kind: Literal["fit", "validate", "retrain"]
-    state: Literal["queued", "running", "succeeded", "failed", "cancelled"]
+    kind: JobKind
+    state: JobState
     params: dict[str, Any]
     created: str
     started: str | None = None
@@ -200,8 +204,10 @@ class History(BaseModel):
 
 
 class AcceptRequest(_Strict):
-    reason: str = Field("", max_length=2000)
-    override: bool = Field(False, description="accept without a passing scorecard; needs a reason")
+    reason: str = Field(default="", max_length=2000)
+    override: bool = Field(
+        default=False, description="accept without a passing scorecard; needs a reason"
+    )
 
 
 class ReasonRequest(_Strict):
