@@ -40,19 +40,27 @@ def _fast_convection_loop(seed: int):
 
     rng = np.random.default_rng(seed)
     x0 = np.column_stack([rng.normal(0, 8, 4), rng.normal(0, 8, 4), rng.normal(25, 8, 4)])
-    res = integrate_ensemble(scenarios.lorenz63_surrogate(), x0, dt_out=0.01, n_out=6000,
-                             spinup=20.0, substep=0.0025)
+    res = integrate_ensemble(
+        scenarios.lorenz63_surrogate(), x0, dt_out=0.01, n_out=6000, spinup=20.0, substep=0.0025
+    )
     traj = res.states + rng.normal(0.0, 0.05, res.states.shape)
-    return Series.from_arrays(list(traj), scenarios.CONVECTION_LOOP_VARIABLES, 0.01,
-                              source=f"fast convection loop (seed={seed})")
+    return Series.from_arrays(
+        list(traj),
+        scenarios.CONVECTION_LOOP_VARIABLES,
+        0.01,
+        source=f"fast convection loop (seed={seed})",
+    )
 
 
 def _lorenz_case(name):
     from ergodex import scenarios
 
     def make(trial):
-        data = (_fast_convection_loop(10_000 + trial) if FAST_DATA
-                else scenarios.convection_loop(seed=10_000 + trial))
+        data = (
+            _fast_convection_loop(10_000 + trial)
+            if FAST_DATA
+            else scenarios.convection_loop(seed=10_000 + trial)
+        )
         if name == "true":
             sur = scenarios.lorenz63_surrogate()
         elif name == "rho22":
@@ -81,8 +89,9 @@ def _ou_case(name):
         if name == "fast":
             # doubling A and Q keeps the stationary covariance (A C + C Aᵀ + Q = 0 is linear in
             # (A, Q)) but halves every correlation time: only temporal statistics can tell
-            sur = scenarios.ou_surrogate(drift=2 * np.asarray(sur.coefficients),
-                                         noise=2 * np.asarray(sur.noise))
+            sur = scenarios.ou_surrogate(
+                drift=2 * np.asarray(sur.coefficients), noise=2 * np.asarray(sur.noise)
+            )
         return data, sur, None
 
     return make
@@ -132,16 +141,31 @@ def run_trial(case: str, trial: int, regimes: bool, fast: bool = False, spec_kw=
         decisive = max(decisive, agreement)
     if sc.blowups["count"] > 0 or sc.member_agreement.get("collapsed_members"):
         decisive = math.inf
-    return {"case": case, "trial": trial, "verdict": sc.verdict, "decisive": decisive,
-            "agreement": agreement, "blowups": sc.blowups["count"], "ratios": ratios,
-            "seconds": time.perf_counter() - t0}
+    return {
+        "case": case,
+        "trial": trial,
+        "verdict": sc.verdict,
+        "decisive": decisive,
+        "agreement": agreement,
+        "blowups": sc.blowups["count"],
+        "ratios": ratios,
+        "seconds": time.perf_counter() - t0,
+    }
 
 
 def _save(args, results, wall) -> None:
     with open(args.out, "w") as fh:
-        json.dump({"tolerances": args.tolerances, "argv": sys.argv[1:], "results": results,
-                   "wall_seconds": wall}, fh, indent=1,
-                  default=lambda x: None if not math.isfinite(x) else x)
+        json.dump(
+            {
+                "tolerances": args.tolerances,
+                "argv": sys.argv[1:],
+                "results": results,
+                "wall_seconds": wall,
+            },
+            fh,
+            indent=1,
+            default=lambda x: None if not math.isfinite(x) else x,
+        )
 
 
 def main(argv=None) -> int:
@@ -151,8 +175,11 @@ def main(argv=None) -> int:
     p.add_argument("--cases", nargs="*", default=list(CASES), help="cases to run")
     p.add_argument("--jobs", type=int, default=1)
     p.add_argument("--no-regimes", action="store_true", help="leave out the regime rows")
-    p.add_argument("--fast-data", action="store_true",
-                   help="generate the convection-loop data with the compiled integrator")
+    p.add_argument(
+        "--fast-data",
+        action="store_true",
+        help="generate the convection-loop data with the compiled integrator",
+    )
     p.add_argument("--min-pieces", type=int, default=None, help="override CheckSpec.min_pieces")
     p.add_argument("--pool", type=int, default=None, help="override CheckSpec.pool")
     p.add_argument("--statistics", nargs="*", default=None, help="override CheckSpec.statistics")
@@ -161,8 +188,9 @@ def main(argv=None) -> int:
     args = p.parse_args(argv)
     from joblib import Parallel, delayed
 
-    jobs = [(c, t) for c in args.cases
-            for t in range(args.trials if CASES[c][1] else args.wrong_trials)]
+    jobs = [
+        (c, t) for c in args.cases for t in range(args.trials if CASES[c][1] else args.wrong_trials)
+    ]
     t0 = time.perf_counter()
     spec_kw = {}
     if args.min_pieces:
@@ -173,17 +201,23 @@ def main(argv=None) -> int:
         spec_kw["statistics"] = tuple(args.statistics)
     results = []
     stream = Parallel(n_jobs=args.jobs, return_as="generator")(
-        delayed(run_trial)(c, t, not args.no_regimes, args.fast_data, spec_kw) for c, t in jobs)
+        delayed(run_trial)(c, t, not args.no_regimes, args.fast_data, spec_kw) for c, t in jobs
+    )
     for res in stream:
         results.append(res)
         # save as we go: a long calibration on a busy machine can be inspected while it runs
         _save(args, results, time.perf_counter() - t0)
-        print(f"{len(results)}/{len(jobs)} {res['case']} trial {res['trial']}: "
-              f"largest ratio {res['decisive']:.3g}", file=sys.stderr, flush=True)
+        print(
+            f"{len(results)}/{len(jobs)} {res['case']} trial {res['trial']}: "
+            f"largest ratio {res['decisive']:.3g}",
+            file=sys.stderr,
+            flush=True,
+        )
     wall = time.perf_counter() - t0
     _save(args, results, wall)
-    head = f"{'case':<26} {'should':<6} {'n':>4} " + " ".join(f"{'t=' + format(t, 'g'):>7}"
-                                                              for t in args.tolerances)
+    head = f"{'case':<26} {'should':<6} {'n':>4} " + " ".join(
+        f"{'t=' + format(t, 'g'):>7}" for t in args.tolerances
+    )
     print(head + "   (fraction passing at each tolerance)")
     for c in args.cases:
         rows = [r for r in results if r["case"] == c]
@@ -199,9 +233,11 @@ def main(argv=None) -> int:
         tops = [max(r["ratios"], key=lambda k: r["ratios"][k]) for r in rows if r["ratios"]]
         uniq, counts = np.unique(tops, return_counts=True)
         order = np.argsort(-counts)[:5]
-        print(f"{c}: rows with the largest ratio: "
-              + ", ".join(f"{uniq[i]} ({counts[i]})" for i in order)
-              + f"; median largest ratio {np.median([r['decisive'] for r in rows]):.2f}")
+        print(
+            f"{c}: rows with the largest ratio: "
+            + ", ".join(f"{uniq[i]} ({counts[i]})" for i in order)
+            + f"; median largest ratio {np.median([r['decisive'] for r in rows]):.2f}"
+        )
     return 0
 
 

@@ -24,17 +24,28 @@ def main() -> None:
         with tempfile.TemporaryDirectory() as tmp:
             start = time.perf_counter()
             proc = subprocess.run(
-                [sys.executable, "-c", "import sys; from ergodex.cli import main; sys.exit(main())",
-                 "demo", "--scenario", args.scenario],
-                cwd=tmp, capture_output=True, text=True, env={**os.environ, "ERGODEX_HOME": ""},
+                [
+                    sys.executable,
+                    "-c",
+                    "import sys; from ergodex.cli import main; sys.exit(main())",
+                    "demo",
+                    "--scenario",
+                    args.scenario,
+                ],
+                cwd=tmp,
+                capture_output=True,
+                text=True,
+                env={**os.environ, "ERGODEX_HOME": ""},
             )
             elapsed = time.perf_counter() - start
         times.append(elapsed)
         print(f"run {i + 1}: exit {proc.returncode}, {elapsed:.1f} s")
         if proc.returncode not in (0, 1):
             print(proc.stderr)
-    print(f"demo ({args.scenario}): best {min(times):.1f} s, worst {max(times):.1f} s "
-          f"over {args.repeat} fresh processes (first includes any compile-cache fill)")
+    print(
+        f"demo ({args.scenario}): best {min(times):.1f} s, worst {max(times):.1f} s "
+        f"over {args.repeat} fresh processes (first includes any compile-cache fill)"
+    )
 
 
 if __name__ == "__main__":

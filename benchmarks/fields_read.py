@@ -60,7 +60,8 @@ def write_file(path: Path, n_time: int, n_lat: int, n_lon: int, seed: int = 0) -
     la, lo = np.meshgrid(np.deg2rad(lat), np.deg2rad(lon), indexing="ij")
     land = (np.sin(2 * lo) * np.cos(la) > 0.45) | (np.abs(lat)[:, None] > 80)
     patterns = np.stack([np.cos(k * lo + k * la) * np.cos(la) for k in range(1, 6)]).astype(
-        np.float32)
+        np.float32
+    )
     with netCDF4.Dataset(path, "w") as ds:
         ds.createDimension("time", n_time)
         ds.createDimension("lat", n_lat)
@@ -72,16 +73,25 @@ def write_file(path: Path, n_time: int, n_lat: int, n_lon: int, seed: int = 0) -
             v = ds.createVariable(name, "f8", (name,))
             v.units = units
             v[:] = values
-        var = ds.createVariable("tas", "f4", ("time", "lat", "lon"), fill_value=np.float32(1e20),
-                                chunksizes=(73, n_lat, n_lon))
+        var = ds.createVariable(
+            "tas",
+            "f4",
+            ("time", "lat", "lon"),
+            fill_value=np.float32(1e20),
+            chunksizes=(73, n_lat, n_lon),
+        )
         var.units = "K"
         amps = np.cumsum(rng.standard_normal((n_time, 5)), axis=0).astype(np.float32) * 0.05
         for a in range(0, n_time, 365):
             b = min(n_time, a + 365)
             day = np.arange(a, b) % 365
             season = 10.0 * np.cos(2 * np.pi * day / 365.0)[:, None, None] * np.cos(la)
-            block = (280.0 + season + np.einsum("tk,kyx->tyx", amps[a:b], patterns)
-                     + rng.standard_normal((b - a, n_lat, n_lon)).astype(np.float32))
+            block = (
+                280.0
+                + season
+                + np.einsum("tk,kyx->tyx", amps[a:b], patterns)
+                + rng.standard_normal((b - a, n_lat, n_lon)).astype(np.float32)
+            )
             block[:, land] = np.nan
             var[a:b] = np.ma.masked_invalid(block.astype(np.float32))
     return path
@@ -89,11 +99,18 @@ def write_file(path: Path, n_time: int, n_lat: int, n_lon: int, seed: int = 0) -
 
 def run_child(path: Path, chunks: int | None, blas_threads: int) -> dict:
     env_path = str(Path(__file__).resolve().parents[1] / "src")
-    out = subprocess.run([sys.executable, "-c", _CHILD, str(path), str(chunks or "none")],
-                         check=True, capture_output=True, text=True,
-                         env={"PYTHONPATH": env_path, "PATH": "/usr/bin:/bin",
-                              "OMP_NUM_THREADS": str(blas_threads),
-                              "OPENBLAS_NUM_THREADS": str(blas_threads)})
+    out = subprocess.run(
+        [sys.executable, "-c", _CHILD, str(path), str(chunks or "none")],
+        check=True,
+        capture_output=True,
+        text=True,
+        env={
+            "PYTHONPATH": env_path,
+            "PATH": "/usr/bin:/bin",
+            "OMP_NUM_THREADS": str(blas_threads),
+            "OPENBLAS_NUM_THREADS": str(blas_threads),
+        },
+    )
     return json.loads(out.stdout.strip().splitlines()[-1])
 
 
@@ -103,34 +120,51 @@ def main() -> None:
     parser.add_argument("--lat", type=int, default=90)
     parser.add_argument("--lon", type=int, default=180)
     parser.add_argument("--chunks", type=int, default=365)
-    parser.add_argument("--blas-threads", type=int, default=1,
-                        help="OpenBLAS threads in the measured processes (default 1: on a shared "
-                             "2-core machine two spinning BLAS threads made an SVD 28x slower)")
+    parser.add_argument(
+        "--blas-threads",
+        type=int,
+        default=1,
+        help="OpenBLAS threads in the measured processes (default 1: on a shared "
+        "2-core machine two spinning BLAS threads made an SVD 28x slower)",
+    )
     args = parser.parse_args()
     with tempfile.TemporaryDirectory(prefix="ergodex-fields-bench-") as tmp:
         t0 = time.perf_counter()
         path = write_file(Path(tmp) / "field.nc", args.time, args.lat, args.lon)
         size = path.stat().st_size / 2**20
-        print(f"wrote {path.name}: {args.time} x {args.lat} x {args.lon} float32, "
-              f"{size:.0f} MB in {time.perf_counter() - t0:.1f} s")
-        rows = [("in memory", run_child(path, None, args.blas_threads)),
-                (f"chunks={args.chunks}", run_child(path, args.chunks, args.blas_threads))]
+        print(
+            f"wrote {path.name}: {args.time} x {args.lat} x {args.lon} float32, "
+            f"{size:.0f} MB in {time.perf_counter() - t0:.1f} s"
+        )
+        rows = [
+            ("in memory", run_child(path, None, args.blas_threads)),
+            (f"chunks={args.chunks}", run_child(path, args.chunks, args.blas_threads)),
+        ]
         path.unlink()
         longer = write_file(Path(tmp) / "field2.nc", 2 * args.time, args.lat, args.lon)
-        print(f"wrote {longer.name}: {2 * args.time} x {args.lat} x {args.lon} float32, "
-              f"{longer.stat().st_size / 2**20:.0f} MB")
-        rows.append((f"2x, chunks={args.chunks}", run_child(longer, args.chunks,
-                                                            args.blas_threads)))
-    print(f"{'case':<18} {'read s':>7} {'reduce s':>9} {'total s':>8} {'peak MB':>8} "
-          f"{'imports MB':>10}  solver, leading variance fractions")
+        print(
+            f"wrote {longer.name}: {2 * args.time} x {args.lat} x {args.lon} float32, "
+            f"{longer.stat().st_size / 2**20:.0f} MB"
+        )
+        rows.append(
+            (f"2x, chunks={args.chunks}", run_child(longer, args.chunks, args.blas_threads))
+        )
+    print(
+        f"{'case':<18} {'read s':>7} {'reduce s':>9} {'total s':>8} {'peak MB':>8} "
+        f"{'imports MB':>10}  solver, leading variance fractions"
+    )
     for name, r in rows:
-        print(f"{name:<18} {r['read']:7.1f} {r['reduce']:9.1f} {r['total']:8.1f} "
-              f"{r['peak_mb']:8.0f} {r['imports_mb']:10.0f}  {r['solver']}, "
-              f"{np.round(r['fractions'], 4).tolist()}")
+        print(
+            f"{name:<18} {r['read']:7.1f} {r['reduce']:9.1f} {r['total']:8.1f} "
+            f"{r['peak_mb']:8.0f} {r['imports_mb']:10.0f}  {r['solver']}, "
+            f"{np.round(r['fractions'], 4).tolist()}"
+        )
     a, b = (np.array(r["fractions"]) for _, r in rows[:2])
     ratio = rows[1][1]["peak_mb"] / rows[0][1]["peak_mb"]
-    print(f"largest difference of the leading fractions: {np.max(np.abs(a - b)):.2e}; "
-          f"peak memory ratio chunks / in memory: {ratio:.2f}")
+    print(
+        f"largest difference of the leading fractions: {np.max(np.abs(a - b)):.2e}; "
+        f"peak memory ratio chunks / in memory: {ratio:.2f}"
+    )
 
 
 if __name__ == "__main__":

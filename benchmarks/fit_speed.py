@@ -43,17 +43,26 @@ def main() -> None:
     runs = [np.asarray(r) for r in series.runs]
 
     def pysindy_direct():
-        model = ps.SINDy(optimizer=ps.STLSQ(threshold=0.1), feature_library=ps.PolynomialLibrary(degree=2),
-                         differentiation_method=ps.FiniteDifference(order=4))
+        model = ps.SINDy(
+            optimizer=ps.STLSQ(threshold=0.1),
+            feature_library=ps.PolynomialLibrary(degree=2),
+            differentiation_method=ps.FiniteDifference(order=4),
+        )
         model.fit(runs, t=series.dt)
         return model
 
     cases = {
         "sparse, weak form (default)": lambda: make_fitter("sparse", {}).fit(series),
-        "sparse, smoothed differences": lambda: make_fitter("sparse", {"differentiation": "smoothed-finite-difference"}).fit(series),
-        "sparse, plain differences": lambda: make_fitter("sparse", {"differentiation": "finite-difference"}).fit(series),
+        "sparse, smoothed differences": lambda: make_fitter(
+            "sparse", {"differentiation": "smoothed-finite-difference"}
+        ).fit(series),
+        "sparse, plain differences": lambda: make_fitter(
+            "sparse", {"differentiation": "finite-difference"}
+        ).fit(series),
         "pysindy SINDy.fit, plain differences": pysindy_direct,
-        "sparse, ensemble of 20 (weak form)": lambda: make_fitter("sparse", {"ensemble": True}).fit(series),
+        "sparse, ensemble of 20 (weak form)": lambda: make_fitter("sparse", {"ensemble": True}).fit(
+            series
+        ),
         "linear inverse model": lambda: make_fitter("linear-inverse", {"tau0": 0.05}).fit(series),
         "quadratic + white noise": lambda: make_fitter("quadratic-noise", {}).fit(series),
     }

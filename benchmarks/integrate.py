@@ -104,7 +104,9 @@ def dense_quadratic(surrogate: Surrogate) -> Surrogate:
 
 
 # ---------------------------------------------------------------- plain numpy ensemble RK4
-def numpy_rk4(powers: np.ndarray, coef: np.ndarray, x0: np.ndarray, n_steps: int, k: int) -> np.ndarray:
+def numpy_rk4(
+    powers: np.ndarray, coef: np.ndarray, x0: np.ndarray, n_steps: int, k: int
+) -> np.ndarray:
     def f(x):
         theta = np.prod(x[:, None, :] ** powers[None, :, :], axis=2)
         return theta @ coef.T
@@ -141,9 +143,11 @@ def _l63_rk4_step(x, y, z, h, a, b, c, d, e, f, g):
     k4x = a * x4 + b * y4
     k4y = c * x4 + d * y4 + e * x4 * z4
     k4z = f * z4 + g * x4 * y4
-    return (x + h / 6.0 * (k1x + 2.0 * k2x + 2.0 * k3x + k4x),
-            y + h / 6.0 * (k1y + 2.0 * k2y + 2.0 * k3y + k4y),
-            z + h / 6.0 * (k1z + 2.0 * k2z + 2.0 * k3z + k4z))
+    return (
+        x + h / 6.0 * (k1x + 2.0 * k2x + 2.0 * k3x + k4x),
+        y + h / 6.0 * (k1y + 2.0 * k2y + 2.0 * k3y + k4y),
+        z + h / 6.0 * (k1z + 2.0 * k2z + 2.0 * k3z + k4z),
+    )
 
 
 @nb.njit(cache=True)
@@ -240,7 +244,9 @@ def first_call_seconds(cache_dir: str | None) -> float:
     env = dict(os.environ)
     if cache_dir is not None:
         env["NUMBA_CACHE_DIR"] = cache_dir
-    out = subprocess.run([sys.executable, "-c", FIRST_CALL], env=env, capture_output=True, text=True, check=True)
+    out = subprocess.run(
+        [sys.executable, "-c", FIRST_CALL], env=env, capture_output=True, text=True, check=True
+    )
     return float(out.stdout.strip().splitlines()[-1])
 
 
@@ -248,9 +254,15 @@ def main() -> None:
     global M
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="smaller runs (smoke test)")
-    parser.add_argument("--no-first-call", action="store_true", help="skip the fresh-process timings")
-    parser.add_argument("--members", type=int, default=M,
-                        help=f"ensemble size M (default {M}, the size the targets are stated for)")
+    parser.add_argument(
+        "--no-first-call", action="store_true", help="skip the fresh-process timings"
+    )
+    parser.add_argument(
+        "--members",
+        type=int,
+        default=M,
+        help=f"ensemble size M (default {M}, the size the targets are stated for)",
+    )
     args = parser.parse_args()
     # The kernels read the ensemble size from their arrays; M sets how many members the runs use.
     M = args.members
@@ -258,7 +270,9 @@ def main() -> None:
     n_out = steps // K + 1
     rng = np.random.default_rng(2024)
 
-    print(f"# ergodex integrate benchmark: M={M}, RK4 h={H}, {steps} steps, outputs every {K} steps")
+    print(
+        f"# ergodex integrate benchmark: M={M}, RK4 h={H}, {steps} steps, outputs every {K} steps"
+    )
     print(f"# numba {nb.__version__}, numpy {np.__version__}, {os.cpu_count()} cpus")
     model, fitted, runs = fit_lorenz63(rng)
     print("fitted Lorenz-63 surrogate:")
@@ -279,7 +293,9 @@ def main() -> None:
     # Plain numpy ensemble RK4 over the dense library (short run, extrapolated).
     powers = np.array([t.powers for t in fitted.terms], dtype=float)
     n_np = 1000 if args.quick else 4000
-    sec = best_of(lambda: numpy_rk4(powers, np.asarray(fitted.coefficients), x0, n_np, K), repeats=2)
+    sec = best_of(
+        lambda: numpy_rk4(powers, np.asarray(fitted.coefficients), x0, n_np, K), repeats=2
+    )
     rates["numpy RK4"] = M * n_np / sec
 
     # ergodex (warm-up call first so that compilation or cache load is not timed).
@@ -297,19 +313,32 @@ def main() -> None:
     terms = {t.powers: k for k, t in enumerate(fitted.terms)}
     C = np.asarray(fitted.coefficients)
     pattern = np.flatnonzero(C.ravel())
-    lorenz_shape = np.array_equal(pattern, np.flatnonzero(dense_quadratic(lorenz63_surrogate()).coefficients))
+    lorenz_shape = np.array_equal(
+        pattern, np.flatnonzero(dense_quadratic(lorenz63_surrogate()).coefficients)
+    )
     if not lorenz_shape:
-        print("note: the fit found terms beyond the Lorenz structure; the hand kernels use the Lorenz terms only")
-    coefs = (C[0, terms[(1, 0, 0)]], C[0, terms[(0, 1, 0)]], C[1, terms[(1, 0, 0)]], C[1, terms[(0, 1, 0)]],
-             C[1, terms[(1, 0, 1)]], C[2, terms[(0, 0, 1)]], C[2, terms[(1, 1, 0)]])
+        print(
+            "note: the fit found terms beyond the Lorenz structure; the hand kernels use the Lorenz terms only"
+        )
+    coefs = (
+        C[0, terms[(1, 0, 0)]],
+        C[0, terms[(0, 1, 0)]],
+        C[1, terms[(1, 0, 0)]],
+        C[1, terms[(0, 1, 0)]],
+        C[1, terms[(1, 0, 1)]],
+        C[2, terms[(0, 0, 1)]],
+        C[2, terms[(1, 1, 0)]],
+    )
     out = np.empty((M, n_out, 3))
     l63_members_outer(x0, 3, K, H, *coefs, out)
     l63_steps_outer(x0, 3, K, H, *coefs, out)
-    best, rounds = interleaved_best({
-        "ergodex": run_ergodex,
-        "hand numba (members outer)": lambda: l63_members_outer(x0, n_out, K, H, *coefs, out),
-        "hand numba (steps outer)": lambda: l63_steps_outer(x0, n_out, K, H, *coefs, out),
-    })
+    best, rounds = interleaved_best(
+        {
+            "ergodex": run_ergodex,
+            "hand numba (members outer)": lambda: l63_members_outer(x0, n_out, K, H, *coefs, out),
+            "hand numba (steps outer)": lambda: l63_steps_outer(x0, n_out, K, H, *coefs, out),
+        }
+    )
     for name, sec in best.items():
         rates[name] = M * steps / sec
     ceiling_name = max(("hand numba (members outer)", "hand numba (steps outer)"), key=rates.get)
@@ -325,11 +354,17 @@ def main() -> None:
     print("\nLorenz-63 (fitted), member-steps per second:")
     for name, r in rates.items():
         print(f"  {name:30s} {r:14.4g}")
-    print(f"  ergodex / pysindy simulate     {rates['ergodex'] / rates['pysindy simulate']:14.1f}x   (target >= 1000)")
-    print(f"  ergodex / numpy RK4            {rates['ergodex'] / rates['numpy RK4']:14.1f}x   (target >= 10)")
+    print(
+        f"  ergodex / pysindy simulate     {rates['ergodex'] / rates['pysindy simulate']:14.1f}x   (target >= 1000)"
+    )
+    print(
+        f"  ergodex / numpy RK4            {rates['ergodex'] / rates['numpy RK4']:14.1f}x   (target >= 10)"
+    )
     print(f"  ergodex / hand numba (best)    {rates['ergodex'] / ceiling:14.2f}x   (target >= 0.5)")
-    print(f"  same, round by round: median {med63[0]:.2f}, range {med63[1]:.2f}-{med63[2]:.2f} "
-          f"({len(rounds['ergodex'])} rounds)")
+    print(
+        f"  same, round by round: median {med63[0]:.2f}, range {med63[1]:.2f}-{med63[2]:.2f} "
+        f"({len(rounds['ergodex'])} rounds)"
+    )
 
     # Lorenz-96, 40 stations.
     l96 = dense_quadratic(lorenz96_surrogate())
@@ -345,19 +380,24 @@ def main() -> None:
 
     out96 = np.empty((M, n_out96, 40))
     l96_hand(y0, 3, K, H, 8.0, out96)
-    best, rounds = interleaved_best({"ergodex": run96,
-                                     "hand numba": lambda: l96_hand(y0, n_out96, K, H, 8.0, out96)})
+    best, rounds = interleaved_best(
+        {"ergodex": run96, "hand numba": lambda: l96_hand(y0, n_out96, K, H, 8.0, out96)}
+    )
     med96 = round_ratio(rounds, "ergodex", "hand numba")
     for name, sec in best.items():
         r96[name] = M * steps96 / sec
     check = integrate_ensemble(l96, y0, dt_out=K * H, n_out=3, substep=H).states
     hand = np.empty((M, 3, 40))
     l96_hand(y0, 3, K, H, 8.0, hand)
-    print(f"\nLorenz-96 N=40 ({l96.n_terms} candidate terms, {len(tables['active'])} active, "
-          f"{len(tables['coef_value'])} non-zero coefficients), {steps96} steps, member-steps per second:")
+    print(
+        f"\nLorenz-96 N=40 ({l96.n_terms} candidate terms, {len(tables['active'])} active, "
+        f"{len(tables['coef_value'])} non-zero coefficients), {steps96} steps, member-steps per second:"
+    )
     for name, r in r96.items():
         print(f"  {name:30s} {r:14.4g}")
-    print(f"  ergodex / hand numba           {r96['ergodex'] / r96['hand numba']:14.2f}x   (target >= 0.3)")
+    print(
+        f"  ergodex / hand numba           {r96['ergodex'] / r96['hand numba']:14.2f}x   (target >= 0.3)"
+    )
     print(f"  same, round by round: median {med96[0]:.2f}, range {med96[1]:.2f}-{med96[2]:.2f}")
     print(f"  max |ergodex - hand| after 0.2 time units: {np.max(np.abs(check - hand)):.2e}")
 

@@ -33,19 +33,37 @@ ROOT = Path(__file__).resolve().parents[1]
 
 #: module → (source file, test files that exercise it). Only fast tests run (``-m "not slow"``).
 MODULES: dict[str, tuple[str, list[str]]] = {
-    "validation": ("src/ergodex/validation.py",
-                   ["tests/test_verdict.py", "tests/test_scorecard_io.py", "tests/test_defaults.py",
-                    "tests/test_validation.py",
-                    "tests/test_validation_hidden.py"]),
-    "stats": ("src/ergodex/stats.py",
-              ["tests/test_stats.py", "tests/test_stats_edges.py", "tests/test_verdict.py",
-               "tests/test_defaults.py"]),
-    "regimes": ("src/ergodex/regimes.py",
-                ["tests/test_regimes.py", "tests/test_regime_labels.py", "tests/test_verdict.py"]),
-    "transforms": ("src/ergodex/transforms.py",
-                   ["tests/test_transforms.py", "tests/test_defaults.py"]),
-    "linear_inverse": ("src/ergodex/fitting/linear_inverse.py",
-                       ["tests/test_fitting_linear_inverse.py", "tests/test_defaults.py"]),
+    "validation": (
+        "src/ergodex/validation.py",
+        [
+            "tests/test_verdict.py",
+            "tests/test_scorecard_io.py",
+            "tests/test_defaults.py",
+            "tests/test_validation.py",
+            "tests/test_validation_hidden.py",
+        ],
+    ),
+    "stats": (
+        "src/ergodex/stats.py",
+        [
+            "tests/test_stats.py",
+            "tests/test_stats_edges.py",
+            "tests/test_verdict.py",
+            "tests/test_defaults.py",
+        ],
+    ),
+    "regimes": (
+        "src/ergodex/regimes.py",
+        ["tests/test_regimes.py", "tests/test_regime_labels.py", "tests/test_verdict.py"],
+    ),
+    "transforms": (
+        "src/ergodex/transforms.py",
+        ["tests/test_transforms.py", "tests/test_defaults.py"],
+    ),
+    "linear_inverse": (
+        "src/ergodex/fitting/linear_inverse.py",
+        ["tests/test_fitting_linear_inverse.py", "tests/test_defaults.py"],
+    ),
     "registry": ("src/ergodex/registry.py", ["tests/test_registry.py", "tests/test_defaults.py"]),
 }
 
@@ -62,8 +80,9 @@ def _project_copy(module: str, workdir: Path) -> Path:
     if dest.exists():
         shutil.rmtree(dest)
     dest.mkdir(parents=True)
-    shutil.copytree(ROOT / "src", dest / "src",
-                    ignore=shutil.ignore_patterns("__pycache__", "*.egg-info"))
+    shutil.copytree(
+        ROOT / "src", dest / "src", ignore=shutil.ignore_patterns("__pycache__", "*.egg-info")
+    )
     shutil.copytree(ROOT / "tests", dest / "tests", ignore=shutil.ignore_patterns("__pycache__"))
     tests = [t for t in tests if (ROOT / t).exists()]
     quoted = lambda items: "[" + ", ".join(json.dumps(i) for i in items) + "]"  # noqa: E731
@@ -81,8 +100,14 @@ def _project_copy(module: str, workdir: Path) -> Path:
 
 def _tally(project: Path, env: dict) -> tuple[dict[str, int], list[str]]:
     """Counts by status and the names of the mutants that were not killed."""
-    out = subprocess.run([sys.executable, "-m", "mutmut", "results", "--all", "true"],
-                         cwd=project, env=env, capture_output=True, text=True, check=True).stdout
+    out = subprocess.run(
+        [sys.executable, "-m", "mutmut", "results", "--all", "true"],
+        cwd=project,
+        env=env,
+        capture_output=True,
+        text=True,
+        check=True,
+    ).stdout
     counts: dict[str, int] = {}
     alive = []
     for line in out.splitlines():
@@ -98,35 +123,66 @@ def _tally(project: Path, env: dict) -> tuple[dict[str, int], list[str]]:
 def run(module: str, workdir: Path, workers: int, only: list[str]) -> dict:
     project = _project_copy(module, workdir)
     env = {k: v for k, v in os.environ.items() if k != "PYTHONPATH"}
-    env.update(MPLBACKEND="Agg", OMP_NUM_THREADS="1", OPENBLAS_NUM_THREADS="1",
-               MKL_NUM_THREADS="1", NUMBA_NUM_THREADS="1")
+    env.update(
+        MPLBACKEND="Agg",
+        OMP_NUM_THREADS="1",
+        OPENBLAS_NUM_THREADS="1",
+        MKL_NUM_THREADS="1",
+        NUMBA_NUM_THREADS="1",
+    )
     start = time.perf_counter()
     log = open(workdir / f"{module}.log", "w")
     with log:
-        proc = subprocess.run([sys.executable, "-m", "mutmut", "run", "--max-children",
-                               str(workers), *only], cwd=project, env=env, stdout=log,
-                              stderr=subprocess.STDOUT)
+        proc = subprocess.run(
+            [sys.executable, "-m", "mutmut", "run", "--max-children", str(workers), *only],
+            cwd=project,
+            env=env,
+            stdout=log,
+            stderr=subprocess.STDOUT,
+        )
     seconds = time.perf_counter() - start
     counts, alive = _tally(project, env)
     killed = sum(v for k, v in counts.items() if k in _KILLED)
     survived = sum(v for k, v in counts.items() if k in _SURVIVED)
     unreached = sum(v for k, v in counts.items() if k in _UNREACHED)
     judged = killed + survived + unreached
-    return {"module": module, "source": MODULES[module][0], "tests": MODULES[module][1],
-            "only": only, "exit_code": proc.returncode, "seconds": round(seconds, 1),
-            "counts": counts, "killed": killed, "survived": survived, "not_reached": unreached,
-            "score": killed / judged if judged else float("nan"), "not_killed": alive}
+    return {
+        "module": module,
+        "source": MODULES[module][0],
+        "tests": MODULES[module][1],
+        "only": only,
+        "exit_code": proc.returncode,
+        "seconds": round(seconds, 1),
+        "counts": counts,
+        "killed": killed,
+        "survived": survived,
+        "not_reached": unreached,
+        "score": killed / judged if judged else float("nan"),
+        "not_killed": alive,
+    }
 
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("modules", nargs="*", default=list(MODULES),
-                        help=f"modules to mutate, of {list(MODULES)} (default: all)")
+    parser.add_argument(
+        "modules",
+        nargs="*",
+        default=list(MODULES),
+        help=f"modules to mutate, of {list(MODULES)} (default: all)",
+    )
     parser.add_argument("--workers", type=int, default=2, help="parallel test processes")
-    parser.add_argument("--only", action="append", default=[],
-                        help="mutant name patterns (fnmatch), e.g. 'ergodex.stats.x_hellinger*'")
-    parser.add_argument("--workdir", type=Path, default=None,
-                        help="folder for the project copies and logs (default: a temporary one)")
+    parser.add_argument(
+        "--only",
+        action="append",
+        default=[],
+        help="mutant name patterns (fnmatch), e.g. 'ergodex.stats.x_hellinger*'",
+    )
+    parser.add_argument(
+        "--workdir",
+        type=Path,
+        default=None,
+        help="folder for the project copies and logs (default: a temporary one)",
+    )
     parser.add_argument("--json", type=Path, default=None, help="write the results here")
     args = parser.parse_args(argv)
     unknown = [m for m in args.modules if m not in MODULES]
@@ -139,9 +195,12 @@ def main(argv: list[str] | None = None) -> int:
     for module in args.modules:
         r = run(module, workdir, args.workers, args.only)
         results.append(r)
-        print(f"{module:>15}: {r['killed']:4d} killed, {r['survived']:4d} survived, "
-              f"{r['not_reached']:4d} not reached, score {100 * r['score']:5.1f} % "
-              f"({r['seconds']:.0f} s)", flush=True)
+        print(
+            f"{module:>15}: {r['killed']:4d} killed, {r['survived']:4d} survived, "
+            f"{r['not_reached']:4d} not reached, score {100 * r['score']:5.1f} % "
+            f"({r['seconds']:.0f} s)",
+            flush=True,
+        )
         for name in r["not_killed"]:
             print(f"{'':>17}{name}")
         if args.json:

@@ -73,11 +73,17 @@ def main() -> None:
         same = np.array_equal(series.runs[0][::97], exact)
         close = np.allclose(frame.to_numpy()[:, 1:], series.runs[0], rtol=1e-15, atol=0)
         assert same and close and first.fingerprint() == series.fingerprint()
-        print(f"pandas.read_csv  best {min(theirs):.2f} s  (all: {', '.join(f'{t:.2f}' for t in theirs)})")
-        print(f"ergodex read_csv best {min(ours):.2f} s  (all: {', '.join(f'{t:.2f}' for t in ours)})")
+        print(
+            f"pandas.read_csv  best {min(theirs):.2f} s  (all: {', '.join(f'{t:.2f}' for t in theirs)})"
+        )
+        print(
+            f"ergodex read_csv best {min(ours):.2f} s  (all: {', '.join(f'{t:.2f}' for t in ours)})"
+        )
         print(f"ergodex first call in process (numba import + cache load): {cold:.2f} s")
         print(f"ratio ergodex / pandas (best of {args.repeats}): {min(ours) / min(theirs):.2f}")
-        print(f"values identical to Python float() on sampled lines: {same}; within 1e-15 of pandas: {close}")
+        print(
+            f"values identical to Python float() on sampled lines: {same}; within 1e-15 of pandas: {close}"
+        )
         del frame
 
 

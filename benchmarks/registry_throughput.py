@@ -51,8 +51,15 @@ def main() -> None:
         model = tmp / "model.json"
         truth.to_json(model)
         card = tmp / "scorecard.json"
-        card.write_text(json.dumps({"verdict": "pass", "data_fingerprint": "sha256:" + "00" * 32,
-                                    "model_fingerprint": truth.fingerprint()}))
+        card.write_text(
+            json.dumps(
+                {
+                    "verdict": "pass",
+                    "data_fingerprint": "sha256:" + "00" * 32,
+                    "model_fingerprint": truth.fingerprint(),
+                }
+            )
+        )
         evidence = tmp / "evidence.npz"
         np.savez(evidence, sample=rng.normal(size=(20_000, 3)))  # ~0.5 MB, like a real check
 
@@ -66,9 +73,21 @@ def main() -> None:
         # Several writers at once, same total number of versions.
         per_writer = max(1, args.versions // args.writers)
         start = time.perf_counter()
-        procs = [subprocess.Popen([sys.executable, "-c", WRITER, str(tmp / "parallel"), str(model),
-                                   str(card), str(evidence), str(per_writer)])
-                 for _ in range(args.writers)]
+        procs = [
+            subprocess.Popen(
+                [
+                    sys.executable,
+                    "-c",
+                    WRITER,
+                    str(tmp / "parallel"),
+                    str(model),
+                    str(card),
+                    str(evidence),
+                    str(per_writer),
+                ]
+            )
+            for _ in range(args.writers)
+        ]
         for p in procs:
             if p.wait() != 0:
                 raise SystemExit("a writer failed")
@@ -90,10 +109,14 @@ def main() -> None:
         bare = (time.perf_counter() - start) / len(paths)
 
     print(f"register, 1 writer:            {serial * 1e3:8.1f} ms per version")
-    print(f"register, {args.writers} writers at once:  {parallel * 1e3:8.1f} ms per version "
-          f"(wall time / versions, incl. process start)")
+    print(
+        f"register, {args.writers} writers at once:  {parallel * 1e3:8.1f} ms per version "
+        f"(wall time / versions, incl. process start)"
+    )
     print(f"  ratio serial / concurrent:   {serial / parallel:8.2f}")
-    print(f"load with verification:        {verified * 1e3:8.2f} ms (model + scorecard + 0.5 MB evidence hashed)")
+    print(
+        f"load with verification:        {verified * 1e3:8.2f} ms (model + scorecard + 0.5 MB evidence hashed)"
+    )
     print(f"bare Surrogate.from_json:      {bare * 1e3:8.2f} ms")
     print(f"  ratio verified / bare:       {verified / bare:8.2f}")
 

@@ -53,8 +53,11 @@ def _one_panel_svg() -> None:
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--repeat", type=int, default=3)
-    parser.add_argument("--true-equations", action="store_true",
-                        help="report on the true Lorenz-63 equations instead of a fitted model")
+    parser.add_argument(
+        "--true-equations",
+        action="store_true",
+        help="report on the true Lorenz-63 equations instead of a fitted model",
+    )
     args = parser.parse_args()
 
     from ergodex import scenarios
@@ -83,29 +86,41 @@ def main() -> None:
     page = render_report(result, surrogate, title="Heated convection loop")
     first = time.perf_counter() - first_start
     render_median, render_best, render_cpu = _timed(
-        lambda: render_report(result, surrogate, title="Heated convection loop"), args.repeat)
+        lambda: render_report(result, surrogate, title="Heated convection loop"), args.repeat
+    )
     with tempfile.TemporaryDirectory() as tmp:
         target = Path(tmp) / "report.html"
-        write_median, _, write_cpu = _timed(lambda: write_report(target, result, surrogate),
-                                            args.repeat)
+        write_median, _, write_cpu = _timed(
+            lambda: write_report(target, result, surrogate), args.repeat
+        )
     panel_median, _, panel_cpu = _timed(_one_panel_svg, max(5, args.repeat))
 
     load = os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")
-    print(f"demo report ({label}, verdict {result.scorecard.verdict}), "
-          f"{os.cpu_count()} cores, load average {load:.1f}, python {sys.version.split()[0]}")
+    print(
+        f"demo report ({label}, verdict {result.scorecard.verdict}), "
+        f"{os.cpu_count()} cores, load average {load:.1f}, python {sys.version.split()[0]}"
+    )
     print(f"  page size                         {len(page) / 1e6:.2f} MB")
     print(f"  render_report, first call         {first:.2f} s")
-    print(f"  render_report, median of {args.repeat}        {render_median:.2f} s "
-          f"(best {render_best:.2f} s; CPU time {render_cpu:.2f} s)")
-    print(f"  write_report, median of {args.repeat}         {write_median:.2f} s "
-          f"(CPU time {write_cpu:.2f} s)")
+    print(
+        f"  render_report, median of {args.repeat}        {render_median:.2f} s "
+        f"(best {render_best:.2f} s; CPU time {render_cpu:.2f} s)"
+    )
+    print(
+        f"  write_report, median of {args.repeat}         {write_median:.2f} s "
+        f"(CPU time {write_cpu:.2f} s)"
+    )
     print(f"  check (16 members), once          {check_time:.2f} s")
-    print(f"  one-panel SVG figure, median      {panel_median * 1000:.0f} ms "
-          f"(CPU time {panel_cpu * 1000:.0f} ms)")
+    print(
+        f"  one-panel SVG figure, median      {panel_median * 1000:.0f} ms "
+        f"(CPU time {panel_cpu * 1000:.0f} ms)"
+    )
     print(f"  ratio report / check              {render_median / check_time:.2f}")
     print(f"  ratio report / one-panel figure   {render_median / panel_median:.1f}")
-    print(f"  target under 5 s (wall, median): {'met' if render_median < 5.0 else 'NOT met'}; "
-          f"(CPU time): {'met' if render_cpu < 5.0 else 'NOT met'}")
+    print(
+        f"  target under 5 s (wall, median): {'met' if render_median < 5.0 else 'NOT met'}; "
+        f"(CPU time): {'met' if render_cpu < 5.0 else 'NOT met'}"
+    )
 
 
 if __name__ == "__main__":

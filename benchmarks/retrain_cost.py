@@ -64,9 +64,19 @@ def main() -> None:
         registry = Registry(root / "inbox-home")
         t0 = time.perf_counter()
         done: list = []
-        worker = threading.Thread(target=lambda: done.extend(watch(
-            inbox, "loop", registry=registry, spec={"members": 8}, report=False,
-            poll_interval=0.05, max_files=args.files)))
+        worker = threading.Thread(
+            target=lambda: done.extend(
+                watch(
+                    inbox,
+                    "loop",
+                    registry=registry,
+                    spec={"members": 8},
+                    report=False,
+                    poll_interval=0.05,
+                    max_files=args.files,
+                )
+            )
+        )
         worker.start()
         for i in range(args.files):
             shutil.move(str(root / f"f{i:02d}.csv"), str(inbox / f"f{i:02d}.csv"))

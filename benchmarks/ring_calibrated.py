@@ -43,12 +43,22 @@ def main() -> None:
     parser.add_argument("--iterations", type=int, default=8)
     parser.add_argument("--modes", type=int, default=10)
     parser.add_argument("--skip-linear", action="store_true")
-    parser.add_argument("--skip-plain", action="store_true",
-                        help="skip the calibrated recipe that is not homogeneous")
-    parser.add_argument("--scales", action="store_true",
-                        help="also calibrate without cubic damping (drift and noise scales only)")
-    parser.add_argument("--wrong-forcing", type=float, default=None,
-                        help="also fit the homogeneous recipe to data at this forcing")
+    parser.add_argument(
+        "--skip-plain",
+        action="store_true",
+        help="skip the calibrated recipe that is not homogeneous",
+    )
+    parser.add_argument(
+        "--scales",
+        action="store_true",
+        help="also calibrate without cubic damping (drift and noise scales only)",
+    )
+    parser.add_argument(
+        "--wrong-forcing",
+        type=float,
+        default=None,
+        help="also fit the homogeneous recipe to data at this forcing",
+    )
     args = parser.parse_args()
     base = {"n_modes": args.modes, "tau0": 0.25}
     calibrated = {**base, "members": args.members, "iterations": args.iterations}
@@ -71,17 +81,26 @@ def main() -> None:
             fitted = time.perf_counter() - started
             misfit = getattr(fitter, "calibration_misfit_", None)
             note = f", misfit {misfit[0]:.1f}→{misfit[-1]:.1f}" if misfit else ""
-            label = method if method == "linear-inverse" else (
-                f"{method} cubic={settings.get('cubic_damping', True)}"
-                f" homogeneous={settings.get('homogeneous', False)}")
-            cells.append(f"{label}: "
-                         f"{verdict(fitter.surrogate_, check_runs, data_seed)} "
-                         f"[fit {fitted:.0f} s{note}]")
+            label = (
+                method
+                if method == "linear-inverse"
+                else (
+                    f"{method} cubic={settings.get('cubic_damping', True)}"
+                    f" homogeneous={settings.get('homogeneous', False)}"
+                )
+            )
+            cells.append(
+                f"{label}: "
+                f"{verdict(fitter.surrogate_, check_runs, data_seed)} "
+                f"[fit {fitted:.0f} s{note}]"
+            )
         if args.wrong_forcing is not None:
             other = scenarios.station_ring(seed=data_seed, forcing=args.wrong_forcing)
             fitter = make_fitter(*homogeneous).fit(other.select_runs([0, 1]))
-            cells.append(f"fitted at F={args.wrong_forcing:g}, homogeneous: "
-                         f"{verdict(fitter.surrogate_, check_runs, data_seed)}")
+            cells.append(
+                f"fitted at F={args.wrong_forcing:g}, homogeneous: "
+                f"{verdict(fitter.surrogate_, check_runs, data_seed)}"
+            )
         print(f"data seed {data_seed} | " + " | ".join(cells), flush=True)
 
 

@@ -71,8 +71,13 @@ def true_equations_in_modes(fit_data, n_observed: int) -> Surrogate:
     probe = Surrogate(names, terms, np.zeros((len(names), len(terms))))
     Theta = probe.features(Z)
     coefficients = np.linalg.lstsq(Theta, dZ, rcond=None)[0].T
-    return Surrogate(names, terms, coefficients, transform=transform,
-                     settings={"observed_variables": list(names[:n_observed])})
+    return Surrogate(
+        names,
+        terms,
+        coefficients,
+        transform=transform,
+        settings={"observed_variables": list(names[:n_observed])},
+    )
 
 
 def cyclic_shifts(series, shifts: int):
@@ -107,11 +112,20 @@ def main() -> None:
     parser.add_argument("--seeds", type=int, nargs="+", default=[2026, 7, 11])
     parser.add_argument("--data-seeds", type=int, nargs="*", default=[])
     parser.add_argument("--skip-truth", action="store_true")
-    parser.add_argument("--also", nargs="*", default=[], metavar="METHOD:JSON",
-                        help="extra recipes to check on every --data-seeds set beside the chosen one, "
-                             'e.g. \'quadratic-noise:{"n_modes": 6, "noise": "ar1"}\'')
-    parser.add_argument("--shifts", type=int, default=1,
-                        help="fit on the training runs plus cyclic rotations of the stations (40: all)")
+    parser.add_argument(
+        "--also",
+        nargs="*",
+        default=[],
+        metavar="METHOD:JSON",
+        help="extra recipes to check on every --data-seeds set beside the chosen one, "
+        'e.g. \'quadratic-noise:{"n_modes": 6, "noise": "ar1"}\'',
+    )
+    parser.add_argument(
+        "--shifts",
+        type=int,
+        default=1,
+        help="fit on the training runs plus cyclic rotations of the stations (40: all)",
+    )
     parser.add_argument("--skip-candidates", action="store_true")
     args = parser.parse_args()
     root = Path(__file__).resolve().parents[1]
@@ -120,14 +134,20 @@ def main() -> None:
         for k in (6, 10):
             t0 = time.perf_counter()
             result = score(true_equations_in_modes(fit_data, k), held_out, args.seeds)
-            print(f"true equations, {k} modes observed | {result} | {time.perf_counter() - t0:.1f} s",
-                  flush=True)
+            print(
+                f"true equations, {k} modes observed | {result} | {time.perf_counter() - t0:.1f} s",
+                flush=True,
+            )
     for method, settings in [] if args.skip_candidates else CANDIDATES:
         t0 = time.perf_counter()
-        surrogate = make_fitter(method, settings).fit(cyclic_shifts(fit_data, args.shifts)).surrogate_
+        surrogate = (
+            make_fitter(method, settings).fit(cyclic_shifts(fit_data, args.shifts)).surrogate_
+        )
         fitted = time.perf_counter() - t0
-        print(f"{method} {settings} | fit {fitted:.1f} s | {score(surrogate, held_out, args.seeds)}",
-              flush=True)
+        print(
+            f"{method} {settings} | fit {fitted:.1f} s | {score(surrogate, held_out, args.seeds)}",
+            flush=True,
+        )
     extra = []
     for text in args.also:
         method, _, settings = text.partition(":")

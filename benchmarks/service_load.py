@@ -45,8 +45,9 @@ def wait(client, job_id: str, timeout: float) -> dict:
     raise SystemExit(f"job {job_id} did not finish in {timeout} s")
 
 
-async def load(url: str, path: str, expected: bytes, clients: int, per_client: int,
-               time_limit: float) -> tuple[list[float], list[str]]:
+async def load(
+    url: str, path: str, expected: bytes, clients: int, per_client: int, time_limit: float
+) -> tuple[list[float], list[str]]:
     """Run ``clients`` concurrent clients, each making ``per_client`` sequential reads."""
     import httpx
 
@@ -105,7 +106,9 @@ def main(argv=None) -> int:
         headers = {"Authorization": f"Bearer {TOKEN}"}
         with ServerProcess(root / "home", token_file=root / "token", workers=args.jobs) as server:
             with httpx.Client(base_url=server.url, timeout=60, headers=headers) as client:
-                up = client.post("/datasets", files={"file": ("loop.csv", convection_csv(5, 4, 30.0))})
+                up = client.post(
+                    "/datasets", files={"file": ("loop.csv", convection_csv(5, 4, 30.0))}
+                )
                 up.raise_for_status()
                 dataset = up.json()["id"]
                 base = {"dataset": dataset, "name": NAME, "check": {"members": 8, "seed": 1}}
@@ -129,8 +132,10 @@ def main(argv=None) -> int:
                 idle, idle_failures = asyncio.run(
                     load(server.url, path, expected, args.clients, args.requests, args.time_limit)
                 )
-                ids = [client.post("/jobs/fit", json=dict(base, method="sparse")).json()["id"]
-                       for _ in range(args.jobs)]
+                ids = [
+                    client.post("/jobs/fit", json=dict(base, method="sparse")).json()["id"]
+                    for _ in range(args.jobs)
+                ]
                 deadline = time.monotonic() + 120
                 while client.get("/health").json()["jobs"]["running"] < args.jobs:
                     if time.monotonic() > deadline:
@@ -144,15 +149,23 @@ def main(argv=None) -> int:
                 states = [client.get(f"/jobs/{job_id}").json()["state"] for job_id in ids]
             # Leaving the block stops the server; jobs still running are marked failed.
     one, a, b = summary(single), summary(idle), summary(busy)
-    print(f"{args.clients} clients x {args.requests} reads of {len(expected)} bytes "
-          f"(GET {path}), loopback")
-    for label, s, fails in (("1 client, idle", one, single_failures),
-                            ("idle workers", a, idle_failures),
-                            (f"{args.jobs} jobs running", b, busy_failures)):
-        print(f"  {label:>17}: n={int(s['n'])} p50={s['p50']:.1f} ms p95={s['p95']:.1f} ms "
-              f"p99={s['p99']:.1f} ms max={s['max']:.1f} ms failed={len(fails)}")
-    print(f"  p99 ratio busy/idle: {b['p99'] / a['p99']:.2f}; jobs still running at the end "
-          f"of the busy phase: {running_after} (job states then: {', '.join(states)})")
+    print(
+        f"{args.clients} clients x {args.requests} reads of {len(expected)} bytes "
+        f"(GET {path}), loopback"
+    )
+    for label, s, fails in (
+        ("1 client, idle", one, single_failures),
+        ("idle workers", a, idle_failures),
+        (f"{args.jobs} jobs running", b, busy_failures),
+    ):
+        print(
+            f"  {label:>17}: n={int(s['n'])} p50={s['p50']:.1f} ms p95={s['p95']:.1f} ms "
+            f"p99={s['p99']:.1f} ms max={s['max']:.1f} ms failed={len(fails)}"
+        )
+    print(
+        f"  p99 ratio busy/idle: {b['p99'] / a['p99']:.2f}; jobs still running at the end "
+        f"of the busy phase: {running_after} (job states then: {', '.join(states)})"
+    )
     failures = single_failures + idle_failures + busy_failures
     for line in failures[:10]:
         print("  failure:", line)

@@ -32,8 +32,9 @@ def main(argv=None) -> int:
     data = scenarios.convection_loop(seed=1)  # 4 runs × 6000 samples, dt = 0.01
     sur = scenarios.lorenz63_surrogate()
     rs = regimes.RegimeSet.from_dict(scenarios.convection_loop_regimes())
-    spec = validation.CheckSpec(members=args.members, length=args.samples * data.dt, regimes=rs,
-                                seed=0)
+    spec = validation.CheckSpec(
+        members=args.members, length=args.samples * data.dt, regimes=rs, seed=0
+    )
     validation.check(sur, data, spec)  # warm-up: numba kernels load from cache, imports
 
     full, integ = [], []
@@ -44,17 +45,28 @@ def main(argv=None) -> int:
         s = result.scorecard.settings
         x0 = data.stacked()[: args.members]
         t0 = time.perf_counter()
-        integrate_ensemble(sur, x0, dt_out=data.dt, n_out=args.samples, spinup=s["spinup"],
-                           bound=blowup_bound(data.stacked()), seed=0)
+        integrate_ensemble(
+            sur,
+            x0,
+            dt_out=data.dt,
+            n_out=args.samples,
+            spinup=s["spinup"],
+            bound=blowup_bound(data.stacked()),
+            seed=0,
+        )
         integ.append(time.perf_counter() - t0)
     f, i = statistics.median(full), statistics.median(integ)
     print(f"machine: {os.cpu_count()} cores, load average {os.getloadavg()[0]:.1f}")
-    print(f"full check ({args.members} members × {args.samples} samples, "
-          f"{result.scorecard.settings['pieces_per_member']} pieces each, "
-          f"{len(result.scorecard.rows)} rows): median {f:.2f} s over {args.repeats} "
-          f"(all: {', '.join(f'{x:.2f}' for x in full)})")
-    print(f"integration alone: median {i:.2f} s; statistics and evidence: {f - i:.2f} s; "
-          f"ratio check / integration {f / i:.2f}")
+    print(
+        f"full check ({args.members} members × {args.samples} samples, "
+        f"{result.scorecard.settings['pieces_per_member']} pieces each, "
+        f"{len(result.scorecard.rows)} rows): median {f:.2f} s over {args.repeats} "
+        f"(all: {', '.join(f'{x:.2f}' for x in full)})"
+    )
+    print(
+        f"integration alone: median {i:.2f} s; statistics and evidence: {f - i:.2f} s; "
+        f"ratio check / integration {f / i:.2f}"
+    )
     print(f"verdict {result.scorecard.verdict}, largest ratio {result.scorecard.largest_ratio:.2f}")
     return 0
 

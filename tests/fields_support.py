@@ -20,9 +20,22 @@ def eofs_example(name: str = EOFS_FILE) -> Path:
     return path
 
 
-def write_cf(path: Path, values: np.ndarray, *, lat, lon, times, units="days since 2000-01-01",
-             calendar="standard", variable="tas", member: str | None = None, encoding=None,
-             time_attrs: dict | None = None, var_attrs: dict | None = None, extra=None) -> Path:
+def write_cf(
+    path: Path,
+    values: np.ndarray,
+    *,
+    lat,
+    lon,
+    times,
+    units="days since 2000-01-01",
+    calendar="standard",
+    variable="tas",
+    member: str | None = None,
+    encoding=None,
+    time_attrs: dict | None = None,
+    var_attrs: dict | None = None,
+    extra=None,
+) -> Path:
     """Write ``values`` (time, lat, lon) or (member, time, lat, lon) as a CF variable."""
     import xarray as xr
 
@@ -32,10 +45,16 @@ def write_cf(path: Path, values: np.ndarray, *, lat, lon, times, units="days sin
         t_attrs = time_attrs
     coords = {
         "time": ("time", np.asarray(times, dtype=np.float64), t_attrs),
-        "lat": ("lat", np.asarray(lat, dtype=np.float64),
-                {"units": "degrees_north", "standard_name": "latitude"}),
-        "lon": ("lon", np.asarray(lon, dtype=np.float64),
-                {"units": "degrees_east", "standard_name": "longitude"}),
+        "lat": (
+            "lat",
+            np.asarray(lat, dtype=np.float64),
+            {"units": "degrees_north", "standard_name": "latitude"},
+        ),
+        "lon": (
+            "lon",
+            np.asarray(lon, dtype=np.float64),
+            {"units": "degrees_east", "standard_name": "longitude"},
+        ),
     }
     if member is not None:
         coords[member] = (member, np.arange(values.shape[0]))

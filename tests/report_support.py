@@ -45,5 +45,6 @@ def loop_page(rho: float = 28.0, seed: int = DEMO_SEED) -> str:
     from ergodex.report import render_report
 
     result, surrogate = loop_check(rho, seed)
-    return render_report(result, surrogate,
-                         title=f"Heated convection loop: Lorenz-63 with rho = {rho:g}")
+    return render_report(
+        result, surrogate, title=f"Heated convection loop: Lorenz-63 with rho = {rho:g}"
+    )

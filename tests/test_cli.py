@@ -32,8 +32,15 @@ def test_console_script_error_is_one_line_without_traceback(tmp_path):
     bad = tmp_path / "broken.csv"
     bad.write_text("time,flow,dT_across,dT_up\n0.0,1,2,3\n0.01,1,nan,3\n0.02,1,2,4\n")
     proc = subprocess.run(
-        [sys.executable, "-c", "import sys; from ergodex.cli import main; sys.exit(main())",
-         "fit", str(bad), "--out", str(tmp_path / "model.json")],
+        [
+            sys.executable,
+            "-c",
+            "import sys; from ergodex.cli import main; sys.exit(main())",
+            "fit",
+            str(bad),
+            "--out",
+            str(tmp_path / "model.json"),
+        ],
         capture_output=True,
         text=True,
         timeout=120,

@@ -23,8 +23,9 @@ def ou_files(tmp_path_factory):
     true = scenarios.ou_surrogate()
     true.to_json(d / "true.json")
     # doubling drift and noise keeps the stationary covariance but halves correlation times
-    fast = scenarios.ou_surrogate(drift=2 * np.asarray(true.coefficients),
-                                  noise=2 * np.asarray(true.noise))
+    fast = scenarios.ou_surrogate(
+        drift=2 * np.asarray(true.coefficients), noise=2 * np.asarray(true.noise)
+    )
     fast.to_json(d / "fast.json")
     (d / "regimes.toml").write_text(
         '[[regime]]\nname = "high"\nkind = "threshold"\n'
@@ -52,11 +53,38 @@ def test_options_and_config_file_reach_the_scorecard(ou_files, tmp_path):
         'statistics = ["histogram", "occupancy"]\n[tolerances]\nhistogram = 3.5\n'
     )
     card = tmp_path / "card.json"
-    main(["validate", str(ou_files / "true.json"), str(ou_files / "data.csv"), "--quiet",
-          "--check-config", str(config), "--members", "4", "--pool", "2", "--gap", "1.5",
-          "--max-lag", "2", "--nperseg", "16", "--max-blowup-fraction", "0.25",
-          "--tolerance", "3", "--spinup", "1", "--length", "200", "--seed", "5",
-          "--json", str(card)])
+    main(
+        [
+            "validate",
+            str(ou_files / "true.json"),
+            str(ou_files / "data.csv"),
+            "--quiet",
+            "--check-config",
+            str(config),
+            "--members",
+            "4",
+            "--pool",
+            "2",
+            "--gap",
+            "1.5",
+            "--max-lag",
+            "2",
+            "--nperseg",
+            "16",
+            "--max-blowup-fraction",
+            "0.25",
+            "--tolerance",
+            "3",
+            "--spinup",
+            "1",
+            "--length",
+            "200",
+            "--seed",
+            "5",
+            "--json",
+            str(card),
+        ]
+    )
     spec = json.loads(card.read_text())["spec"]
     # the command line wins over the file, the file over the defaults
     assert spec["members"] == 4 and spec["min_pieces"] == 6 and spec["bins"] == 12
@@ -65,31 +93,47 @@ def test_options_and_config_file_reach_the_scorecard(ou_files, tmp_path):
     assert [r["name"] for r in spec["regimes"]["regime"]] == ["high"]
     assert (spec["pool"], spec["gap"], spec["max_lag"], spec["nperseg"]) == (2, 1.5, 2.0, 16)
     assert (spec["max_blowup_fraction"], spec["spinup"], spec["length"], spec["seed"]) == (
-        0.25, 1.0, 200.0, 5)
+        0.25,
+        1.0,
+        200.0,
+        5,
+    )
 
 
-@pytest.mark.parametrize("extra, expected", [
-    (["--members", "1"], "--members must be an integer"),
-    (["--statistics", "histogram,wiggles"], "--statistics: unknown statistic 'wiggles'"),
-    (["--tolerances", "spectrum"], "STATISTIC=NUMBER"),
-    (["--tolerances", "wiggles=2"], "--tolerances: unknown statistic 'wiggles'"),
-    (["--bins", "many"], "a bin count or 'fd'"),
-    (["--max-blowup-fraction", "1.5"], "--max-blowup-fraction must be below 1"),
-    (["--min-pieces", "1"], "--min-pieces must be an integer"),
-    (["--check-config", "CONFIG:membrs = 4"], "unknown check setting 'membrs'"),
-    (["--check-config", "CONFIG:members = 1"], "check.toml: members must be an integer"),
-    (["--check-config", "CONFIG:members = "], "not valid TOML"),
-    (["--check-config", "CONFIG:regimes = \"nonesuch.toml\""], "regime file not found"),
-])
+@pytest.mark.parametrize(
+    "extra, expected",
+    [
+        (["--members", "1"], "--members must be an integer"),
+        (["--statistics", "histogram,wiggles"], "--statistics: unknown statistic 'wiggles'"),
+        (["--tolerances", "spectrum"], "STATISTIC=NUMBER"),
+        (["--tolerances", "wiggles=2"], "--tolerances: unknown statistic 'wiggles'"),
+        (["--bins", "many"], "a bin count or 'fd'"),
+        (["--max-blowup-fraction", "1.5"], "--max-blowup-fraction must be below 1"),
+        (["--min-pieces", "1"], "--min-pieces must be an integer"),
+        (["--check-config", "CONFIG:membrs = 4"], "unknown check setting 'membrs'"),
+        (["--check-config", "CONFIG:members = 1"], "check.toml: members must be an integer"),
+        (["--check-config", "CONFIG:members = "], "not valid TOML"),
+        (["--check-config", 'CONFIG:regimes = "nonesuch.toml"'], "regime file not found"),
+    ],
+)
 def test_bad_check_settings_exit_2_on_one_line_naming_the_option_or_file(
-        ou_files, tmp_path, capsys, extra, expected):
+    ou_files, tmp_path, capsys, extra, expected
+):
     if extra[0] == "--check-config":
         config = tmp_path / "check.toml"
         config.write_text(extra[1].split(":", 1)[1] + "\n")
         extra = ["--check-config", str(config)]
     card = tmp_path / "card.json"
-    code = exit_code(["validate", str(ou_files / "true.json"), str(ou_files / "data.csv"),
-                      "--json", str(card), *extra])
+    code = exit_code(
+        [
+            "validate",
+            str(ou_files / "true.json"),
+            str(ou_files / "data.csv"),
+            "--json",
+            str(card),
+            *extra,
+        ]
+    )
     assert code == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and expected in err[0], err
@@ -97,8 +141,16 @@ def test_bad_check_settings_exit_2_on_one_line_naming_the_option_or_file(
 
 
 def test_quiet_failure_keeps_its_reasons(ou_files, capsys):
-    code = main(["validate", str(ou_files / "fast.json"), str(ou_files / "data.csv"),
-                 "--seed", "3", "--quiet"])
+    code = main(
+        [
+            "validate",
+            str(ou_files / "fast.json"),
+            str(ou_files / "data.csv"),
+            "--seed",
+            "3",
+            "--quiet",
+        ]
+    )
     assert code == 1
     lines = capsys.readouterr().out.strip().splitlines()
     assert lines[0] == "verdict: fail"
@@ -107,8 +159,9 @@ def test_quiet_failure_keeps_its_reasons(ou_files, capsys):
 
 
 def test_gap_advice_is_in_command_line_form_and_the_option_exists(tmp_path, capsys):
-    data = write_csv(tmp_path / "gappy.csv",
-                     scenarios.ornstein_uhlenbeck(seed=4, n_runs=1, duration=100.0))
+    data = write_csv(
+        tmp_path / "gappy.csv", scenarios.ornstein_uhlenbeck(seed=4, n_runs=1, duration=100.0)
+    )
     text = data.read_text().splitlines()
     cells = text[1001].split(",")
     cells[-2] = ""  # one missing cell in the middle of the run
@@ -139,10 +192,33 @@ def test_python_callers_keep_the_python_form_of_the_advice(tmp_path):
 def test_accept_refusal_advises_the_override_options(ou_files, tmp_path, capsys):
     home = tmp_path / "home"
     card = tmp_path / "card.json"
-    main(["validate", str(ou_files / "fast.json"), str(ou_files / "data.csv"), "--seed", "3",
-          "--json", str(card), "--quiet"])
-    assert main(["register", str(ou_files / "fast.json"), "--name", "ou", "--scorecard",
-                 str(card), "--home", str(home)]) == 0
+    main(
+        [
+            "validate",
+            str(ou_files / "fast.json"),
+            str(ou_files / "data.csv"),
+            "--seed",
+            "3",
+            "--json",
+            str(card),
+            "--quiet",
+        ]
+    )
+    assert (
+        main(
+            [
+                "register",
+                str(ou_files / "fast.json"),
+                "--name",
+                "ou",
+                "--scorecard",
+                str(card),
+                "--home",
+                str(home),
+            ]
+        )
+        == 0
+    )
     capsys.readouterr()
     assert main(["models", "accept", "ou@1", "--home", str(home)]) == 2
     err = capsys.readouterr().err
@@ -150,15 +226,30 @@ def test_accept_refusal_advises_the_override_options(ou_files, tmp_path, capsys)
 
 
 def test_fit_prints_what_its_score_means(ou_files, tmp_path, capsys):
-    assert main(["fit", str(ou_files / "data.csv"), "--method", "linear-inverse",
-                 "--out", str(tmp_path / "m.json")]) == 0
+    assert (
+        main(
+            [
+                "fit",
+                str(ou_files / "data.csv"),
+                "--method",
+                "linear-inverse",
+                "--out",
+                str(tmp_path / "m.json"),
+            ]
+        )
+        == 0
+    )
     out = capsys.readouterr().out
     assert "score: the fit's R²" in out
 
 
 def test_check_options_apply_to_fit_only_with_select(ou_files, tmp_path, capsys):
-    assert main(["fit", str(ou_files / "data.csv"), "--out", str(tmp_path / "m.json"),
-                 "--members", "4"]) == 2
+    assert (
+        main(
+            ["fit", str(ou_files / "data.csv"), "--out", str(tmp_path / "m.json"), "--members", "4"]
+        )
+        == 2
+    )
     assert "--members only applies with --select" in capsys.readouterr().err
     assert not (tmp_path / "m.json").exists()
 

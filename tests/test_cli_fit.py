@@ -21,7 +21,21 @@ def lorenz_csv(tmp_path_factory):
 def test_fit_writes_a_model_that_recovers_lorenz63(lorenz_csv, tmp_path, capsys):
     out = tmp_path / "model.json"
     summary = tmp_path / "fit.json"
-    assert main(["fit", str(lorenz_csv), "--method", "sparse", "--out", str(out), "--json", str(summary)]) == 0
+    assert (
+        main(
+            [
+                "fit",
+                str(lorenz_csv),
+                "--method",
+                "sparse",
+                "--out",
+                str(out),
+                "--json",
+                str(summary),
+            ]
+        )
+        == 0
+    )
     model = Surrogate.from_json(out)
     # Brunton, Proctor & Kutz (2016): the seven Lorenz-63 terms, coefficients within 1 %
     assert model.n_terms == 5 and int(np.count_nonzero(model.coefficients)) == 7
@@ -31,14 +45,19 @@ def test_fit_writes_a_model_that_recovers_lorenz63(lorenz_csv, tmp_path, capsys)
     assert record["method"] == "sparse" and record["n_terms"] == 7
     assert record["model_fingerprint"] == model.fingerprint()
     assert "d flow/dt" in capsys.readouterr().out
-    assert sorted(p.name for p in tmp_path.iterdir()) == ["fit.json", "model.json"]  # no temp files left
+    assert sorted(p.name for p in tmp_path.iterdir()) == [
+        "fit.json",
+        "model.json",
+    ]  # no temp files left
 
 
 def test_fit_with_config(lorenz_csv, tmp_path):
     config = tmp_path / "fit.toml"
     config.write_text('method = "linear-inverse"\n[settings]\ntau0 = 0.05\n')
     out = tmp_path / "lim.json"
-    assert main(["fit", str(lorenz_csv), "--config", str(config), "--out", str(out), "--quiet"]) == 0
+    assert (
+        main(["fit", str(lorenz_csv), "--config", str(config), "--out", str(out), "--quiet"]) == 0
+    )
     model = Surrogate.from_json(out)
     assert model.kind == "linear-stochastic" and model.is_stochastic
     assert model.settings["tau0"] == 0.05
@@ -49,10 +68,16 @@ def test_fit_with_config(lorenz_csv, tmp_path):
     [
         ('method = "sparse"\n[settings]\ntreshold = 0.1\n', [], "sparse has no setting 'treshold'"),
         ('method = "sparse"\n', ["--method", "linear-inverse"], "contradicts method = 'sparse'"),
-        ('[settings]\ntau0 = -1.0\n', ["--method", "linear-inverse"], "'tau0' must be a number > 0"),
+        (
+            "[settings]\ntau0 = -1.0\n",
+            ["--method", "linear-inverse"],
+            "'tau0' must be a number > 0",
+        ),
     ],
 )
-def test_bad_settings_exit_2_and_write_nothing(lorenz_csv, tmp_path, capsys, config_text, extra, message):
+def test_bad_settings_exit_2_and_write_nothing(
+    lorenz_csv, tmp_path, capsys, config_text, extra, message
+):
     config = tmp_path / "fit.toml"
     config.write_text(config_text)
     out = tmp_path / "model.json"
@@ -69,7 +94,9 @@ def test_bad_data_and_targets_exit_2(tmp_path, capsys):
     assert "bad.csv" in capsys.readouterr().err
     assert main(["fit", str(bad), "--out", str(tmp_path)]) == 2
     assert "is a folder" in capsys.readouterr().err
-    assert main(["fit", str(bad), "--out", str(tmp_path / "m.json"), "--scheduler", "tcp://x:1"]) == 2
+    assert (
+        main(["fit", str(bad), "--out", str(tmp_path / "m.json"), "--scheduler", "tcp://x:1"]) == 2
+    )
     assert "only apply with --select" in capsys.readouterr().err
     assert not (tmp_path / "m.json").exists()
 
@@ -77,8 +104,14 @@ def test_bad_data_and_targets_exit_2(tmp_path, capsys):
 def test_too_few_samples_exit_2(tmp_path, capsys):
     rng = np.random.default_rng(50)
     short = tmp_path / "short.csv"
-    np.savetxt(short, np.column_stack([np.arange(15) * 0.1, rng.normal(size=(15, 3))]), delimiter=",",
-               header="time,a,b,c", comments="", fmt="%.17g")
+    np.savetxt(
+        short,
+        np.column_stack([np.arange(15) * 0.1, rng.normal(size=(15, 3))]),
+        delimiter=",",
+        header="time,a,b,c",
+        comments="",
+        fmt="%.17g",
+    )
     code = main(["fit", str(short), "--out", str(tmp_path / "m.json")])
     assert code == 2
     assert "needs at least 41" in capsys.readouterr().err
@@ -93,11 +126,29 @@ def test_select_writes_the_sparsest_passing_model_and_the_front(tmp_path, capsys
     config = tmp_path / "fit.toml"
     config.write_text('method = "sparse"\n[select]\nthresholds = [0.1, 5.0]\n')
     out, front = tmp_path / "model.json", tmp_path / "front.json"
-    code = main(["fit", str(data), "--config", str(config), "--select", "--reference", str(held),
-                 "--members", "8", "--out", str(out), "--json", str(front)])
+    code = main(
+        [
+            "fit",
+            str(data),
+            "--config",
+            str(config),
+            "--select",
+            "--reference",
+            str(held),
+            "--members",
+            "8",
+            "--out",
+            str(out),
+            "--json",
+            str(front),
+        ]
+    )
     assert code == 0
     record = json.loads(front.read_text())
-    assert record["chosen"] == 0 and [c["verdict"] for c in record["candidates"]] == ["pass", "fail"]
+    assert record["chosen"] == 0 and [c["verdict"] for c in record["candidates"]] == [
+        "pass",
+        "fail",
+    ]
     # Lorenz (1963): the convection loop's equations have 7 terms on 5 distinct monomials
     assert Surrogate.from_json(out).n_terms == 5
     assert "chose candidate 0" in capsys.readouterr().out

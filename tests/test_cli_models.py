@@ -12,9 +12,24 @@ from ergodex.cli import main
 from ergodex.registry import Registry
 from ergodex.scenarios import lorenz63_surrogate
 
-VERSION_KEYS = {"ref", "name", "version", "status", "created", "note", "parent", "datasets",
-                "verdict", "data_fingerprint", "model_fingerprint", "scorecard_model_fingerprint",
-                "artifacts", "folder", "integrity", "integrity_problems"}
+VERSION_KEYS = {
+    "ref",
+    "name",
+    "version",
+    "status",
+    "created",
+    "note",
+    "parent",
+    "datasets",
+    "verdict",
+    "data_fingerprint",
+    "model_fingerprint",
+    "scorecard_model_fingerprint",
+    "artifacts",
+    "folder",
+    "integrity",
+    "integrity_problems",
+}
 
 
 @pytest.fixture()
@@ -23,13 +38,32 @@ def files(tmp_path):
     model = tmp_path / "model.json"
     truth.to_json(model)
     passing = tmp_path / "pass.json"
-    passing.write_text(json.dumps({"verdict": "pass", "data_fingerprint": "sha256:" + "ef" * 32,
-                                   "model_fingerprint": truth.fingerprint()}))
+    passing.write_text(
+        json.dumps(
+            {
+                "verdict": "pass",
+                "data_fingerprint": "sha256:" + "ef" * 32,
+                "model_fingerprint": truth.fingerprint(),
+            }
+        )
+    )
     failing = tmp_path / "fail.json"
-    failing.write_text(json.dumps({"verdict": "fail", "data_fingerprint": "sha256:" + "ef" * 32,
-                                   "model_fingerprint": truth.fingerprint()}))
-    return {"model": str(model), "pass": str(passing), "fail": str(failing),
-            "home": str(tmp_path / "home"), "truth": truth}
+    failing.write_text(
+        json.dumps(
+            {
+                "verdict": "fail",
+                "data_fingerprint": "sha256:" + "ef" * 32,
+                "model_fingerprint": truth.fingerprint(),
+            }
+        )
+    )
+    return {
+        "model": str(model),
+        "pass": str(passing),
+        "fail": str(failing),
+        "home": str(tmp_path / "home"),
+        "truth": truth,
+    }
 
 
 def _run(capsys, *argv):
@@ -40,34 +74,79 @@ def _run(capsys, *argv):
 
 def test_register_list_show_accept_history(files, capsys):
     home = files["home"]
-    code, out, _ = _run(capsys, "register", files["model"], "--name", "loop", "--scorecard",
-                        files["pass"], "--note", "first fit", "--home", home, "--json")
+    code, out, _ = _run(
+        capsys,
+        "register",
+        files["model"],
+        "--name",
+        "loop",
+        "--scorecard",
+        files["pass"],
+        "--note",
+        "first fit",
+        "--home",
+        home,
+        "--json",
+    )
     assert code == 0
     info = json.loads(out)
     assert set(info) == VERSION_KEYS
-    assert (info["ref"], info["status"], info["verdict"], info["note"]) == ("loop@1", "candidate", "pass", "first fit")
+    assert (info["ref"], info["status"], info["verdict"], info["note"]) == (
+        "loop@1",
+        "candidate",
+        "pass",
+        "first fit",
+    )
 
-    code, out, _ = _run(capsys, "register", files["model"], "--name", "loop", "--scorecard",
-                        files["fail"], "--home", home)
+    code, out, _ = _run(
+        capsys,
+        "register",
+        files["model"],
+        "--name",
+        "loop",
+        "--scorecard",
+        files["fail"],
+        "--home",
+        home,
+    )
     assert code == 0 and "registered loop@2" in out
 
     code, out, _ = _run(capsys, "models", "list", "--home", home, "--json")
     listing = json.loads(out)
     assert listing["home"] == str(Registry(home).home)
-    assert listing["models"] == [{"name": "loop", "versions": 2, "latest": 2, "accepted": None,
-                                  "statuses": {"candidate": 2, "accepted": 0, "rejected": 0, "retired": 0},
-                                  "integrity_failed": []}]
+    assert listing["models"] == [
+        {
+            "name": "loop",
+            "versions": 2,
+            "latest": 2,
+            "accepted": None,
+            "statuses": {"candidate": 2, "accepted": 0, "rejected": 0, "retired": 0},
+            "integrity_failed": [],
+        }
+    ]
 
     code, _, err = _run(capsys, "models", "accept", "loop@2", "--home", home)
     assert code == 2
-    assert err.count("\n") == 1 and "loop@2 cannot be accepted: its scorecard's verdict is 'fail'" in err
+    assert (
+        err.count("\n") == 1
+        and "loop@2 cannot be accepted: its scorecard's verdict is 'fail'" in err
+    )
     code, _, err = _run(capsys, "models", "accept", "loop@2", "--override", "--home", home)
     assert code == 2 and "needs a non-empty reason" in err
     assert _run(capsys, "models", "accept", "loop@1", "--home", home)[0] == 0
     code, out, _ = _run(capsys, "models", "show", "loop@1", "--home", home)
     assert code == 0 and "loop@1  [accepted]" in out and "not a certification" in out
-    code, _, _ = _run(capsys, "models", "accept", "loop@2", "--override", "--reason",
-                      "regime occupancy failed by a hair; reviewed", "--home", home)
+    code, _, _ = _run(
+        capsys,
+        "models",
+        "accept",
+        "loop@2",
+        "--override",
+        "--reason",
+        "regime occupancy failed by a hair; reviewed",
+        "--home",
+        home,
+    )
     assert code == 0
 
     code, out, _ = _run(capsys, "models", "show", "loop", "--home", home, "--json")
@@ -77,26 +156,47 @@ def test_register_list_show_accept_history(files, capsys):
     code, out, _ = _run(capsys, "models", "show", "loop", "--all", "--home", home, "--json")
     # Exactly one accepted version per name: accepting 2 retired 1.
     assert [(v["version"], v["status"]) for v in json.loads(out)["versions"]] == [
-        (1, "retired"), (2, "accepted")]
+        (1, "retired"),
+        (2, "accepted"),
+    ]
 
-    assert _run(capsys, "models", "retire", "loop@2", "--reason", "superseded", "--home", home)[0] == 0
+    assert (
+        _run(capsys, "models", "retire", "loop@2", "--reason", "superseded", "--home", home)[0] == 0
+    )
     code, out, _ = _run(capsys, "models", "history", "loop", "--home", home, "--json")
     history = json.loads(out)
     assert history["name"] == "loop"
     assert [(e["version"], e["event"], e["override"]) for e in history["events"]] == [
-        (1, "registered", False), (2, "registered", False), (1, "accepted", False),
-        (2, "accepted", True), (1, "retired", False), (2, "retired", False)]
+        (1, "registered", False),
+        (2, "registered", False),
+        (1, "accepted", False),
+        (2, "accepted", True),
+        (1, "retired", False),
+        (2, "retired", False),
+    ]
     assert history["events"][4]["reason"] == "replaced by version 2"
     assert history["integrity_failed"] == []
-    assert set(history["events"][0]) == {"id", "time", "name", "version", "event", "from_status",
-                                          "to_status", "actor", "reason", "override"}
+    assert set(history["events"][0]) == {
+        "id",
+        "time",
+        "name",
+        "version",
+        "event",
+        "from_status",
+        "to_status",
+        "actor",
+        "reason",
+        "override",
+    }
     code, out, _ = _run(capsys, "models", "history", "loop", "--home", home)
     assert "OVERRIDE" in out and "superseded" in out
 
 
 @pytest.mark.parametrize("name", ["../x", "a/b", "", "a" * 500, "bad\x00name"])
 def test_bad_names_exit_2_and_write_nothing(files, capsys, name, tmp_path):
-    code, out, err = _run(capsys, "register", files["model"], "--name", name, "--home", files["home"])
+    code, out, err = _run(
+        capsys, "register", files["model"], "--name", name, "--home", files["home"]
+    )
     assert code == 2
     assert err.startswith("ergodex: error: model name") and err.count("\n") == 1
     assert not (tmp_path / "home").exists()
@@ -119,7 +219,17 @@ def test_unknown_refs_and_missing_reason_are_usage_errors(files, capsys):
 
 def test_export_import_round_trip_through_cli(files, capsys, tmp_path):
     home = files["home"]
-    _run(capsys, "register", files["model"], "--name", "loop", "--scorecard", files["pass"], "--home", home)
+    _run(
+        capsys,
+        "register",
+        files["model"],
+        "--name",
+        "loop",
+        "--scorecard",
+        files["pass"],
+        "--home",
+        home,
+    )
     out_dir = tmp_path / "export"
     code, out, _ = _run(capsys, "models", "export", "loop@1", "--to", str(out_dir), "--home", home)
     assert code == 0 and (out_dir / "README.md").exists()
@@ -137,11 +247,23 @@ def test_export_import_round_trip_through_cli(files, capsys, tmp_path):
 
 def test_console_process_exits_2_with_one_line(files, tmp_path):
     proc = subprocess.run(
-        [sys.executable, "-c", "import sys; from ergodex.cli import main; sys.exit(main())",
-         "register", files["model"], "--name", "../escape", "--home", files["home"]],
-        capture_output=True, text=True, timeout=120,
+        [
+            sys.executable,
+            "-c",
+            "import sys; from ergodex.cli import main; sys.exit(main())",
+            "register",
+            files["model"],
+            "--name",
+            "../escape",
+            "--home",
+            files["home"],
+        ],
+        capture_output=True,
+        text=True,
+        timeout=120,
     )
     assert proc.returncode == 2
     assert proc.stderr.strip().splitlines() == [
-        "ergodex: error: model name '../escape' contains a path separator; use letters, digits, . _ -"]
+        "ergodex: error: model name '../escape' contains a path separator; use letters, digits, . _ -"
+    ]
     assert not (tmp_path / "home").exists() and not (tmp_path / "escape").exists()

@@ -12,19 +12,33 @@ from ergodex.scenarios import lorenz63_surrogate
 def model(tmp_path):
     path = tmp_path / "model.json"
     truth = lorenz63_surrogate()
-    type(truth)(truth.variables, truth.terms, truth.coefficients,
-                provenance={"dt": 0.01}).to_json(path)
+    type(truth)(truth.variables, truth.terms, truth.coefficients, provenance={"dt": 0.01}).to_json(
+        path
+    )
     return path
 
 
 def _simulate(model, tmp_path, name):
     out = tmp_path / name
-    return main(["simulate", str(model), "--members", "2", "--steps", "300", "--seed", "1",
-                 "--out", str(out)])
+    return main(
+        [
+            "simulate",
+            str(model),
+            "--members",
+            "2",
+            "--steps",
+            "300",
+            "--seed",
+            "1",
+            "--out",
+            str(out),
+        ]
+    )
 
 
-def test_simulate_draws_a_bar_on_a_terminal_and_none_in_a_script(model, tmp_path, capsys,
-                                                                 monkeypatch):
+def test_simulate_draws_a_bar_on_a_terminal_and_none_in_a_script(
+    model, tmp_path, capsys, monkeypatch
+):
     monkeypatch.setattr(common, "is_terminal", lambda: True)
     assert _simulate(model, tmp_path, "a.csv") == 0
     err = capsys.readouterr().err
@@ -35,10 +49,24 @@ def test_simulate_draws_a_bar_on_a_terminal_and_none_in_a_script(model, tmp_path
     assert "\r" not in err and "2 members integrated" in err
 
 
-def test_fit_bar_follows_the_terminal_and_quiet_silences_it(model, tmp_path, capsys,
-                                                            monkeypatch):
-    assert main(["simulate", str(model), "--members", "2", "--steps", "400", "--seed", "2",
-                 "--out", str(tmp_path / "data.csv")]) == 0
+def test_fit_bar_follows_the_terminal_and_quiet_silences_it(model, tmp_path, capsys, monkeypatch):
+    assert (
+        main(
+            [
+                "simulate",
+                str(model),
+                "--members",
+                "2",
+                "--steps",
+                "400",
+                "--seed",
+                "2",
+                "--out",
+                str(tmp_path / "data.csv"),
+            ]
+        )
+        == 0
+    )
     capsys.readouterr()
     monkeypatch.setattr(common, "is_terminal", lambda: True)
     fit = ["fit", str(tmp_path / "data.csv"), "--holdout", "0", "--out"]

@@ -19,8 +19,14 @@ def registered(tmp_path_factory):
     evidence = tmp_path_factory.mktemp("evidence") / "evidence.npz"
     result.evidence.to_npz(evidence)
     registry = Registry(home)
-    info = registry.register("loop", surrogate, scorecard=result.scorecard, evidence_path=evidence,
-                             fit_settings={"method": "true equations"}, note="<demo> & check")
+    info = registry.register(
+        "loop",
+        surrogate,
+        scorecard=result.scorecard,
+        evidence_path=evidence,
+        fit_settings={"method": "true equations"},
+        note="<demo> & check",
+    )
     return home, info, result
 
 
@@ -48,7 +54,8 @@ def test_report_command_writes_the_page_from_the_registry(registered, tmp_path, 
 
 
 def test_report_without_evidence_refuses_unless_asked_and_never_writes_to_cwd(
-        registered, without_evidence, tmp_path, monkeypatch, capsys):
+    registered, without_evidence, tmp_path, monkeypatch, capsys
+):
     home, _, result = registered
     info = without_evidence
     monkeypatch.chdir(tmp_path)
@@ -67,8 +74,9 @@ def test_report_without_evidence_refuses_unless_asked_and_never_writes_to_cwd(
     assert list(tmp_path.iterdir()) == []
 
 
-def test_report_recomputes_missing_evidence_from_the_checked_data(registered, without_evidence,
-                                                                   tmp_path, capsys):
+def test_report_recomputes_missing_evidence_from_the_checked_data(
+    registered, without_evidence, tmp_path, capsys
+):
     from ergodex.writers import write_npz
     from report_support import loop_reference
 
@@ -76,23 +84,54 @@ def test_report_recomputes_missing_evidence_from_the_checked_data(registered, wi
     info = without_evidence
     data = write_npz(tmp_path / "reference.npz", loop_reference())
     out = tmp_path / "page.html"
-    assert main(["report", f"loop@{info.version}", "--home", str(home), "--data", str(data),
-                 "--holdout", "none", "--out", str(out)]) == 0
+    assert (
+        main(
+            [
+                "report",
+                f"loop@{info.version}",
+                "--home",
+                str(home),
+                "--data",
+                str(data),
+                "--holdout",
+                "none",
+                "--out",
+                str(out),
+            ]
+        )
+        == 0
+    )
     page = out.read_text(encoding="utf-8")
     # The recorded spec and seed give the same figures as the stored evidence of version 1.
     assert page.count("<img ") == 6
     # Other data (one run less) are not the checked data: refused, naming both fingerprints.
     other = write_npz(tmp_path / "other.npz", loop_reference().select_runs([0]))
-    assert main(["report", f"loop@{info.version}", "--home", str(home), "--data", str(other),
-                 "--holdout", "none", "--out", str(tmp_path / "x.html")]) == 2
+    assert (
+        main(
+            [
+                "report",
+                f"loop@{info.version}",
+                "--home",
+                str(home),
+                "--data",
+                str(other),
+                "--holdout",
+                "none",
+                "--out",
+                str(tmp_path / "x.html"),
+            ]
+        )
+        == 2
+    )
     err = capsys.readouterr().err
     assert "not the data" in err and result.scorecard.data_fingerprint in err
     assert not (tmp_path / "x.html").exists()
 
 
 @pytest.mark.parametrize("ref", ["nosuch@1", "loop@99"])
-def test_report_command_unknown_version_exits_2_and_writes_nothing(registered, tmp_path, capsys,
-                                                                   ref):
+def test_report_command_unknown_version_exits_2_and_writes_nothing(
+    registered, tmp_path, capsys, ref
+):
     home, _, _ = registered
     out = tmp_path / "page.html"
     assert main(["report", ref, "--out", str(out), "--home", str(home)]) == 2

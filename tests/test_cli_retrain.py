@@ -8,17 +8,38 @@ import pytest
 
 from ergodex.cli import main
 from ergodex.registry import Registry
-
 from retrain_support import LOOP, WELL, copy_home, loop_data, well_data, write_csv
 
 #: The keys of the decision record (ergodex.retraining.Decision.to_dict), stable for scripts.
 RECORD_KEYS = {
-    "format", "name", "outcome", "exit_code", "standing", "champion", "challenger", "reasons",
-    "score_definition", "seed", "holdout", "data", "spec", "caution", "times",
+    "format",
+    "name",
+    "outcome",
+    "exit_code",
+    "standing",
+    "champion",
+    "challenger",
+    "reasons",
+    "score_definition",
+    "seed",
+    "holdout",
+    "data",
+    "spec",
+    "caution",
+    "times",
 }
 SIDE_KEYS = {
-    "role", "ref", "version", "status", "verdict", "score", "blowups", "reasons",
-    "model_fingerprint", "fit", "rows",
+    "role",
+    "ref",
+    "version",
+    "status",
+    "verdict",
+    "score",
+    "blowups",
+    "reasons",
+    "model_fingerprint",
+    "fit",
+    "rows",
 }
 
 
@@ -28,7 +49,9 @@ def first_run(tmp_path_factory):
     base = tmp_path_factory.mktemp("cli")
     csv = write_csv(base / "loop-28.csv", loop_data(2))
     home = base / "home"
-    code = main(["retrain", LOOP, str(csv), "--home", str(home), "--json", str(base / "first.json")])
+    code = main(
+        ["retrain", LOOP, str(csv), "--home", str(home), "--json", str(base / "first.json")]
+    )
     return home, code, json.loads((base / "first.json").read_text())
 
 
@@ -49,8 +72,20 @@ def test_new_data_from_the_same_loop_exit_0_with_the_champion_kept(first_run, tm
     home = copy_home(home, tmp_path / "home")
     csv = write_csv(tmp_path / "loop-28-new.csv", loop_data(102))
     capsys.readouterr()
-    code = main(["retrain", LOOP, str(csv), "--home", str(home), "--json", "-", "--no-report",
-                 "--seed", "4"])
+    code = main(
+        [
+            "retrain",
+            LOOP,
+            str(csv),
+            "--home",
+            str(home),
+            "--json",
+            "-",
+            "--no-report",
+            "--seed",
+            "4",
+        ]
+    )
     captured = capsys.readouterr()
     assert code == 0
     record = json.loads(captured.out)  # with '-' the record alone goes to standard output
@@ -92,12 +127,26 @@ def test_data_the_configured_method_cannot_represent_exit_1(tmp_path, capsys):
     config = tmp_path / "fit.toml"
     config.write_text('method = "sparse"\n\n[settings]\ndegree = 2\n')
     home = tmp_path / "home"
-    code = main(["retrain", WELL, str(csv), "--config", str(config), "--home", str(home),
-                 "--no-report", "--members", "8"])
+    code = main(
+        [
+            "retrain",
+            WELL,
+            str(csv),
+            "--config",
+            str(config),
+            "--home",
+            str(home),
+            "--no-report",
+            "--members",
+            "8",
+        ]
+    )
     out = capsys.readouterr().out
     assert code == 1
     assert f"retrain {WELL}: no-acceptable-model (exit code 1)" in out
     info = Registry(home).get(f"{WELL}@1")
     assert info.status == "rejected"
     assert json.loads(Registry(home).artifact(f"{WELL}@1", "fit-settings.json")) == {
-        "method": "sparse", "settings": {"degree": 2}}
+        "method": "sparse",
+        "settings": {"degree": 2},
+    }

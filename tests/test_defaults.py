@@ -23,8 +23,11 @@ from ergodex.validation import CheckSpec
 
 
 def _defaults(fn) -> dict:
-    return {k: p.default for k, p in inspect.signature(fn).parameters.items()
-            if p.default is not inspect.Parameter.empty}
+    return {
+        k: p.default
+        for k, p in inspect.signature(fn).parameters.items()
+        if p.default is not inspect.Parameter.empty
+    }
 
 
 def test_check_spec_defaults_as_documented():
@@ -38,8 +41,7 @@ def test_check_spec_defaults_as_documented():
     for derived in ("length", "spinup", "max_lag", "gap", "nperseg", "pool"):
         assert getattr(spec, derived) is None
     # validation module docstring: the default rows are every variable statistic and occupancy
-    assert spec.statistics == ("histogram", "autocorrelation", "spectrum", "quantiles",
-                               "occupancy")
+    assert spec.statistics == ("histogram", "autocorrelation", "spectrum", "quantiles", "occupancy")
     assert validation.ALL_STATISTICS == spec.statistics + ("residence", "transitions")
     assert [f.name for f in dataclasses.fields(CheckSpec)] == list(spec.to_dict())
 
@@ -54,24 +56,51 @@ def test_default_tolerance_is_the_calibrated_value():
 def test_check_settings_refuse_values_at_their_documented_limits():
     from ergodex.exceptions import SettingsError
 
-    CheckSpec(max_blowup_fraction=0.0, spinup=0.0, gap=0.0, members=2, min_pieces=2,
-              nperseg=8, pool=1, seed=0).check_settings()  # smallest allowed values
-    bad = [dict(members=1), dict(min_pieces=1), dict(nperseg=7), dict(pool=0), dict(seed=-1),
-           dict(max_blowup_fraction=1.0), dict(max_blowup_fraction=-0.1), dict(tolerance=0.0),
-           dict(tolerance=math.inf), dict(length=0.0), dict(spinup=-1.0), dict(bins=0),
-           dict(bins=True), dict(bins="sturges"), dict(members=True), dict(statistics=()),
-           dict(statistics="histogram"), dict(tolerances={"entropy": 2.0}),
-           dict(tolerances={"spectrum": -1.0}), dict(tolerances=[1]), dict(regimes={"a": 1}),
-           dict(pool=True), dict(min_pieces=2.0)]
+    CheckSpec(
+        max_blowup_fraction=0.0,
+        spinup=0.0,
+        gap=0.0,
+        members=2,
+        min_pieces=2,
+        nperseg=8,
+        pool=1,
+        seed=0,
+    ).check_settings()  # smallest allowed values
+    bad = [
+        dict(members=1),
+        dict(min_pieces=1),
+        dict(nperseg=7),
+        dict(pool=0),
+        dict(seed=-1),
+        dict(max_blowup_fraction=1.0),
+        dict(max_blowup_fraction=-0.1),
+        dict(tolerance=0.0),
+        dict(tolerance=math.inf),
+        dict(length=0.0),
+        dict(spinup=-1.0),
+        dict(bins=0),
+        dict(bins=True),
+        dict(bins="sturges"),
+        dict(members=True),
+        dict(statistics=()),
+        dict(statistics="histogram"),
+        dict(tolerances={"entropy": 2.0}),
+        dict(tolerances={"spectrum": -1.0}),
+        dict(tolerances=[1]),
+        dict(regimes={"a": 1}),
+        dict(pool=True),
+        dict(min_pieces=2.0),
+    ]
     for kw in bad:
         name = next(iter(kw))
         with pytest.raises(SettingsError, match=f"^{name}"):
             CheckSpec(**kw).check_settings()
-    for kw, message in ((dict(members=1), "members must be an integer ≥ 2; got 1"),
-                        (dict(spinup=-1.0), "spinup must be a non-negative number; got -1.0"),
-                        (dict(length=0.0), "length must be a positive number; got 0.0"),
-                        (dict(max_blowup_fraction=1.0), "max_blowup_fraction must be below 1; "
-                                                        "got 1.0")):
+    for kw, message in (
+        (dict(members=1), "members must be an integer ≥ 2; got 1"),
+        (dict(spinup=-1.0), "spinup must be a non-negative number; got -1.0"),
+        (dict(length=0.0), "length must be a positive number; got 0.0"),
+        (dict(max_blowup_fraction=1.0), "max_blowup_fraction must be below 1; got 1.0"),
+    ):
         with pytest.raises(SettingsError, match=f"^{message}$"):
             CheckSpec(**kw).check_settings()
 
@@ -157,9 +186,18 @@ def test_both_engines_give_identical_blow_up_members_and_times():
 
     sur = Surrogate(("x",), (Term("monomial", powers=(2,)),), np.array([[1.0]]))
     x0 = np.array([[0.5], [1.0], [-0.5], [2.0]])
-    runs = [integrate.integrate_ensemble(sur, x0, dt_out=0.05, n_out=30, substep=0.005,
-                                         bound=np.array([[-100.0, 100.0]]), engine=e)
-            for e in ("numba", "numpy")]
+    runs = [
+        integrate.integrate_ensemble(
+            sur,
+            x0,
+            dt_out=0.05,
+            n_out=30,
+            substep=0.005,
+            bound=np.array([[-100.0, 100.0]]),
+            engine=e,
+        )
+        for e in ("numba", "numpy")
+    ]
     np.testing.assert_array_equal(runs[0].blown_up, [False, True, False, True])
     np.testing.assert_array_equal(runs[0].blown_up, runs[1].blown_up)
     np.testing.assert_array_equal(runs[0].blowup_time, runs[1].blowup_time)

@@ -28,10 +28,12 @@ def test_without_evidence_the_scorecard_is_the_same():
     bare = validation.check(model, data, spec, evidence=False)
     assert full.evidence is not None and bare.evidence is None
     assert bare.scorecard.verdict == full.scorecard.verdict
-    assert [(r.statistic, r.variable) for r in bare.scorecard.rows] == \
-        [(r.statistic, r.variable) for r in full.scorecard.rows]
-    np.testing.assert_array_equal([r.ratio for r in bare.scorecard.rows],
-                                  [r.ratio for r in full.scorecard.rows])
+    assert [(r.statistic, r.variable) for r in bare.scorecard.rows] == [
+        (r.statistic, r.variable) for r in full.scorecard.rows
+    ]
+    np.testing.assert_array_equal(
+        [r.ratio for r in bare.scorecard.rows], [r.ratio for r in full.scorecard.rows]
+    )
     with pytest.raises(SettingsError, match="evidence=True"):
         plot_histograms(bare)
 
@@ -54,8 +56,15 @@ def test_validate_builds_evidence_only_for_a_file_or_report(tmp_path, evidence_c
     model, data = _ou_case(62)
     write_csv(tmp_path / "data.csv", data)
     model.to_json(tmp_path / "model.json")
-    base = ["validate", str(tmp_path / "model.json"), str(tmp_path / "data.csv"),
-            "--members", "6", "--seed", "2"]
+    base = [
+        "validate",
+        str(tmp_path / "model.json"),
+        str(tmp_path / "data.csv"),
+        "--members",
+        "6",
+        "--seed",
+        "2",
+    ]
     assert main(base) == 0
     assert evidence_calls == []  # nobody asked for figures: none built
     assert sorted(p.name for p in tmp_path.iterdir()) == ["data.csv", "model.json"]

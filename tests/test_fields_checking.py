@@ -17,7 +17,7 @@ from fields_support import write_cf
 
 LAT = np.array([-10.0, -5.0, 0.0, 5.0, 10.0, 15.0])
 LON = np.arange(8) * 10.0 + 120.0
-DRIFT = np.array([[-1.0, 0.5], [-0.5, -0.5]])   # ergodex.scenarios' default OU drift
+DRIFT = np.array([[-1.0, 0.5], [-0.5, -0.5]])  # ergodex.scenarios' default OU drift
 NOISE = np.array([[1.0, 0.3], [0.3, 0.5]])
 
 
@@ -31,7 +31,8 @@ def test_lag_one_map_matches_statsmodels():
         assert ours[j] == pytest.approx(acf(x[:, j], nlags=1)[1], rel=1e-12)
     w = np.array([1.0, 2.0, 1.0])
     assert _weighted_rms(np.zeros(3), np.array([1.0, 1.0, 3.0]), w) == pytest.approx(
-        np.sqrt((1 + 2 + 9) / 4))  # definition: sqrt(Σ w d² / Σ w)
+        np.sqrt((1 + 2 + 9) / 4)
+    )  # definition: sqrt(Σ w d² / Σ w)
 
 
 def _ou_file(tmp_path, seed, name, n_runs):
@@ -40,8 +41,15 @@ def _ou_file(tmp_path, seed, name, n_runs):
     series = ornstein_uhlenbeck(seed=seed, n_runs=n_runs, duration=200.0, dt=0.25)
     q, _ = np.linalg.qr(np.random.default_rng(99).standard_normal((LAT.size * LON.size, 2)))
     x = np.stack([r @ q.T for r in series.runs]).reshape(n_runs, -1, LAT.size, LON.size)
-    path = write_cf(tmp_path / name, x, lat=LAT, lon=LON, times=0.25 * np.arange(x.shape[1]),
-                    calendar="noleap", member="member")
+    path = write_cf(
+        tmp_path / name,
+        x,
+        lat=LAT,
+        lon=LON,
+        times=0.25 * np.arange(x.shape[1]),
+        calendar="noleap",
+        member="member",
+    )
     return path, series
 
 
@@ -63,8 +71,13 @@ def test_true_dynamics_pass_on_the_grid_and_faster_dynamics_fail(tmp_path):
         # dz = Mᵀ A M⁻ᵀ (z − c) dt + Mᵀ dW (linear change of variables of the OU process)
         a_z = M.T @ (scale * DRIFT) @ np.linalg.inv(M.T)
         coef = np.column_stack([-(a_z @ c), a_z]) * hours
-        s = Surrogate(t.output_names, polynomial_terms(2, 1), coef, kind="linear-stochastic",
-                      noise=M.T @ (scale * NOISE) @ M * hours)
+        s = Surrogate(
+            t.output_names,
+            polynomial_terms(2, 1),
+            coef,
+            kind="linear-stochastic",
+            noise=M.T @ (scale * NOISE) @ M * hours,
+        )
         return attach_transform(s, t)
 
     spec = CheckSpec(seed=3, members=8)
@@ -79,5 +92,9 @@ def test_true_dynamics_pass_on_the_grid_and_faster_dynamics_fail(tmp_path):
     lag1 = next(r for r in fast.scorecard.rows if r.statistic == "lag-1 map")
     assert lag1.verdict == "fail" and not fast.scorecard.passed
     assert any("lag-1 map" in reason for reason in fast.scorecard.reasons)
-    assert set(fast.maps) == {"reference variance", "reference lag-1", "surrogate variance",
-                              "surrogate lag-1"}
+    assert set(fast.maps) == {
+        "reference variance",
+        "reference lag-1",
+        "surrogate variance",
+        "surrogate lag-1",
+    }

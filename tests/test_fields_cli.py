@@ -30,15 +30,39 @@ def _ou_field(tmp_path, seed, name, n_runs=3, duration=400.0):
     x[:, :, 0, 0] = np.nan  # one land point
     n = x.shape[1]
     # dt 0.25 in the process's time unit = 6 hours on the calendar
-    return write_cf(tmp_path / name, 15.0 + x, lat=LAT, lon=LON, times=0.25 * np.arange(n),
-                    calendar="noleap", member="member"), patterns
+    return write_cf(
+        tmp_path / name,
+        15.0 + x,
+        lat=LAT,
+        lon=LON,
+        times=0.25 * np.arange(n),
+        calendar="noleap",
+        member="member",
+    ), patterns
 
 
 def test_fit_on_a_field_recovers_the_drift_of_the_process(tmp_path, capsys):
     path, _ = _ou_field(tmp_path, 21, "ou.nc")
     out = tmp_path / "m.json"
-    assert main(["fit", str(path), "--variable", "tas", "--modes", "2", "--climatology", "none",
-                 "--method", "linear-inverse", "--out", str(out)]) == 0
+    assert (
+        main(
+            [
+                "fit",
+                str(path),
+                "--variable",
+                "tas",
+                "--modes",
+                "2",
+                "--climatology",
+                "none",
+                "--method",
+                "linear-inverse",
+                "--out",
+                str(out),
+            ]
+        )
+        == 0
+    )
     text = capsys.readouterr().out
     assert "dt 6 hours" in text and "noleap calendar" in text
     model = Surrogate.from_json(out)
@@ -60,22 +84,74 @@ def test_validate_on_the_grid_and_simulate_to_cf(tmp_path, capsys):
     path, _ = _ou_field(tmp_path, 22, "fit.nc", duration=150.0)
     check, _ = _ou_field(tmp_path, 23, "check.nc", duration=150.0)
     out = tmp_path / "m.json"
-    assert main(["fit", str(path), "--variable", "tas", "--modes", "2", "--climatology", "none",
-                 "--method", "linear-inverse", "--out", str(out), "--quiet"]) == 0
+    assert (
+        main(
+            [
+                "fit",
+                str(path),
+                "--variable",
+                "tas",
+                "--modes",
+                "2",
+                "--climatology",
+                "none",
+                "--method",
+                "linear-inverse",
+                "--out",
+                str(out),
+                "--quiet",
+            ]
+        )
+        == 0
+    )
     card = tmp_path / "card.json"
     report = tmp_path / "r.html"
-    code = main(["validate", str(out), str(check), "--variable", "tas", "--members", "4",
-                 "--region=-5,5,130,150", "--json", str(card), "--report", str(report)])
+    code = main(
+        [
+            "validate",
+            str(out),
+            str(check),
+            "--variable",
+            "tas",
+            "--members",
+            "4",
+            "--region=-5,5,130,150",
+            "--json",
+            str(card),
+            "--report",
+            str(report),
+        ]
+    )
     rows = json.loads(card.read_text())["rows"]
     stats = {r["statistic"] for r in rows}
-    assert {"variance map", "lag-1 map", "histogram (area mean)", "variance captured",
-            "spectrum (box -5,5,130,150)"} <= stats
+    assert {
+        "variance map",
+        "lag-1 map",
+        "histogram (area mean)",
+        "variance captured",
+        "spectrum (box -5,5,130,150)",
+    } <= stats
     assert code == (0 if json.loads(card.read_text())["verdict"] == "pass" else 1)
     assert "Maps on the grid" in report.read_text()
     # simulate: the grid, mask, calendar and time units of the data come back
     sim = tmp_path / "sim.nc"
-    assert main(["simulate", str(out), "--members", "2", "--steps", "8", "--seed", "1",
-                 "--out", str(sim)]) == 0
+    assert (
+        main(
+            [
+                "simulate",
+                str(out),
+                "--members",
+                "2",
+                "--steps",
+                "8",
+                "--seed",
+                "1",
+                "--out",
+                str(sim),
+            ]
+        )
+        == 0
+    )
     with xr.open_dataset(sim, decode_times=False) as ds:
         assert ds["time"].attrs["calendar"] == "noleap"
         assert ds["time"].attrs["units"] == "days since 2000-01-01"
@@ -96,23 +172,45 @@ def test_delays_on_a_single_index(tmp_path):
     one = type(series).from_arrays([r[:, :1] for r in series.runs], ["index"], series.dt)
     data = write_csv(tmp_path / "index.csv", one)
     out = tmp_path / "d.json"
-    assert main(["fit", str(data), "--delays", "3", "--delay-step", "2", "--method",
-                 "sparse", "--out", str(out), "--quiet"]) == 0
+    assert (
+        main(
+            [
+                "fit",
+                str(data),
+                "--delays",
+                "3",
+                "--delay-step",
+                "2",
+                "--method",
+                "sparse",
+                "--out",
+                str(out),
+                "--quiet",
+            ]
+        )
+        == 0
+    )
     model = Surrogate.from_json(out)
-    assert model.transform.kind == "delay" and model.variables == ("index", "index_lag2",
-                                                                   "index_lag4")
+    assert model.transform.kind == "delay" and model.variables == (
+        "index",
+        "index_lag2",
+        "index_lag4",
+    )
     # the embedding's rows: x(t), x(t - 2 dt), x(t - 4 dt) (Takens coordinates), by definition
     x = one.runs[0]
     z = model.to_model_space(x)
     np.testing.assert_array_equal(z[0], [x[4, 0], x[2, 0], x[0, 0]])
 
 
-@pytest.mark.parametrize("argv, pattern", [
-    (["--box", "0,10,0,10"], "--box needs --variable"),
-    (["--variable", "tas", "--delays", "3"], "--delays applies to single-index"),
-    (["--variable", "tas", "--box", "60,70,0,10"], "holds no grid points"),
-    (["--variable", "pr"], "no variable 'pr'"),
-])
+@pytest.mark.parametrize(
+    "argv, pattern",
+    [
+        (["--box", "0,10,0,10"], "--box needs --variable"),
+        (["--variable", "tas", "--delays", "3"], "--delays applies to single-index"),
+        (["--variable", "tas", "--box", "60,70,0,10"], "holds no grid points"),
+        (["--variable", "pr"], "no variable 'pr'"),
+    ],
+)
 def test_fit_refuses_bad_field_options(tmp_path, capsys, argv, pattern):
     path, _ = _ou_field(tmp_path, 24, "f.nc", n_runs=1, duration=20.0)
     out = tmp_path / "m.json"
@@ -121,13 +219,16 @@ def test_fit_refuses_bad_field_options(tmp_path, capsys, argv, pattern):
     assert not out.exists()
 
 
-@pytest.mark.parametrize("case, expected", [
-    ("units", "variable 'tas', dimension 'time': the time coordinate has no CF 'units'"),
-    ("no-time", "variable 'tas' has no time dimension"),
-    ("lat", "variable 'tas', dimension 'lat': coordinate is not monotonic"),
-    ("all-nan", "variable 'tas': every value is missing"),
-    ("calendars", "variable 'tas', dimension 'time': calendar '360_day' differs"),
-])
+@pytest.mark.parametrize(
+    "case, expected",
+    [
+        ("units", "variable 'tas', dimension 'time': the time coordinate has no CF 'units'"),
+        ("no-time", "variable 'tas' has no time dimension"),
+        ("lat", "variable 'tas', dimension 'lat': coordinate is not monotonic"),
+        ("all-nan", "variable 'tas': every value is missing"),
+        ("calendars", "variable 'tas', dimension 'time': calendar '360_day' differs"),
+    ],
+)
 def test_fit_exit_2_names_variable_and_dimension(tmp_path, capsys, case, expected):
     import xarray as xr
 
@@ -135,21 +236,36 @@ def test_fit_exit_2_names_variable_and_dimension(tmp_path, capsys, case, expecte
     x = rng.standard_normal((10, 6, 8))
     data = str(tmp_path / "bad.nc")
     if case == "units":
-        write_cf(tmp_path / "bad.nc", x, lat=LAT, lon=LON, times=np.arange(10.0),
-                 time_attrs={"standard_name": "time"})
+        write_cf(
+            tmp_path / "bad.nc",
+            x,
+            lat=LAT,
+            lon=LON,
+            times=np.arange(10.0),
+            time_attrs={"standard_name": "time"},
+        )
     elif case == "no-time":
-        xr.Dataset({"tas": (("lat", "lon"), x[0], {"units": "K"})},
-                   coords={"lat": LAT, "lon": LON}).to_netcdf(data)
+        xr.Dataset(
+            {"tas": (("lat", "lon"), x[0], {"units": "K"})}, coords={"lat": LAT, "lon": LON}
+        ).to_netcdf(data)
     elif case == "lat":
-        write_cf(tmp_path / "bad.nc", x, lat=LAT[[1, 0, 2, 3, 4, 5]], lon=LON,
-                 times=np.arange(10.0))
+        write_cf(
+            tmp_path / "bad.nc", x, lat=LAT[[1, 0, 2, 3, 4, 5]], lon=LON, times=np.arange(10.0)
+        )
     elif case == "all-nan":
-        write_cf(tmp_path / "bad.nc", np.full_like(x, np.nan), lat=LAT, lon=LON,
-                 times=np.arange(10.0))
+        write_cf(
+            tmp_path / "bad.nc", np.full_like(x, np.nan), lat=LAT, lon=LON, times=np.arange(10.0)
+        )
     else:
         write_cf(tmp_path / "bad_1.nc", x, lat=LAT, lon=LON, times=np.arange(10.0))
-        write_cf(tmp_path / "bad_2.nc", x, lat=LAT, lon=LON, times=np.arange(10.0, 20.0),
-                 calendar="360_day")
+        write_cf(
+            tmp_path / "bad_2.nc",
+            x,
+            lat=LAT,
+            lon=LON,
+            times=np.arange(10.0, 20.0),
+            calendar="360_day",
+        )
         data = str(tmp_path / "bad_*.nc")  # a glob of files along time
     out = tmp_path / "m.json"
     assert main(["fit", data, "--variable", "tas", "--out", str(out)]) == 2

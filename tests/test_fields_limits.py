@@ -28,8 +28,15 @@ def _ou_file(tmp_path, seed, name):
     q, _ = np.linalg.qr(np.random.default_rng(seed + 50).standard_normal((LAT.size * LON.size, 2)))
     x = np.stack([r @ q.T for r in series.runs]).reshape(2, -1, LAT.size, LON.size)
     # 0.25 days apart: the field reader counts them as 6 hours
-    return write_cf(tmp_path / name, x, lat=LAT, lon=LON, times=0.25 * np.arange(x.shape[1]),
-                    calendar="noleap", member="member")
+    return write_cf(
+        tmp_path / name,
+        x,
+        lat=LAT,
+        lon=LON,
+        times=0.25 * np.arange(x.shape[1]),
+        calendar="noleap",
+        member="member",
+    )
 
 
 @pytest.fixture(scope="module")
@@ -37,8 +44,9 @@ def field_model(tmp_path_factory):
     folder = tmp_path_factory.mktemp("fields")
     fit = read_field(_ou_file(folder, 1, "fit.nc"), "tas")
     t = FieldModes(n_modes=2, climatology=None).fit(fit)
-    model = attach_transform(make_fitter("linear-inverse", {}).fit(modes_series(t, fit))
-                             .surrogate_, t)
+    model = attach_transform(
+        make_fitter("linear-inverse", {}).fit(modes_series(t, fit)).surrogate_, t
+    )
     return model, _ou_file(folder, 2, "check.nc"), fit.source
 
 
@@ -55,19 +63,24 @@ def test_field_check_prints_dt_with_its_unit_in_the_settings(field_model):
 def test_field_check_stops_at_the_time_limit(field_model):
     model, check_path, _ = field_model
     with pytest.raises(ModelLimitError, match=r"time limit of 1e-09 s reached"):
-        check_field(model, read_field(check_path, "tas"), CheckSpec(seed=1, members=4),
-                    time_limit=1e-9)
+        check_field(
+            model, read_field(check_path, "tas"), CheckSpec(seed=1, members=4), time_limit=1e-9
+        )
 
 
 def test_field_check_refuses_grid_rows_over_the_memory_limit(field_model):
     model, check_path, _ = field_model
     # 12 MB holds the mode-space ensemble (its noise buffer is 8 MB) but not the grid pieces
     # of 600 points (24 pieces x 82 samples x 600 points x 8 bytes, twice, is about 18 MiB)
-    with pytest.raises(SettingsError, match=r"the grid rows \(\d+ pieces x \d+ samples x 600 "
-                                            r"grid points\) needs about .* over the limit of "
-                                            r"12 MiB"):
-        check_field(model, read_field(check_path, "tas"), CheckSpec(seed=1, members=4),
-                    max_memory="12MB")
+    with pytest.raises(
+        SettingsError,
+        match=r"the grid rows \(\d+ pieces x \d+ samples x 600 "
+        r"grid points\) needs about .* over the limit of "
+        r"12 MiB",
+    ):
+        check_field(
+            model, read_field(check_path, "tas"), CheckSpec(seed=1, members=4), max_memory="12MB"
+        )
 
 
 def test_validate_passes_the_limits_to_the_field_check(field_model, tmp_path, capsys):
@@ -76,8 +89,17 @@ def test_validate_passes_the_limits_to_the_field_check(field_model, tmp_path, ca
     model, check_path, _ = field_model
     path = tmp_path / "model.json"
     model.to_json(path)
-    common = ["validate", str(path), str(check_path), "--variable", "tas", "--members", "4",
-              "--seed", "1"]
+    common = [
+        "validate",
+        str(path),
+        str(check_path),
+        "--variable",
+        "tas",
+        "--members",
+        "4",
+        "--seed",
+        "1",
+    ]
     assert main(common + ["--max-memory", "12MB"]) == 2
     assert "the grid rows" in capsys.readouterr().err
     assert main(common + ["--time-limit", "1e-9"]) == 1

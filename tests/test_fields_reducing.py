@@ -67,8 +67,9 @@ def test_randomized_solver_agrees_with_the_full_svd():
     assert rand.solver == "randomized"
     np.testing.assert_allclose(rand.variance_fraction, full.variance_fraction, rtol=1e-8)
     # patterns equal up to sign: |<u, v>| = 1 for orthonormal rows
-    np.testing.assert_allclose(np.abs(np.sum(rand.components * full.components, axis=1)), 1.0,
-                               atol=1e-8)
+    np.testing.assert_allclose(
+        np.abs(np.sum(rand.components * full.components, axis=1)), 1.0, atol=1e-8
+    )
 
 
 def test_variance_rule_keeps_the_fewest_modes_reaching_the_share():
@@ -98,8 +99,13 @@ def test_monthly_climatology_equals_xarray_groupby_means(tmp_path):
 
 def test_daily_cycle_recovers_an_exact_annual_harmonic():
     # analytic: a pure annual sinusoid over whole 360-day years is fitted exactly
-    dates = np.array([cftime.datetime(2001, 1, 1, calendar="360_day")
-                      + __import__("datetime").timedelta(days=d) for d in range(720)])
+    dates = np.array(
+        [
+            cftime.datetime(2001, 1, 1, calendar="360_day")
+            + __import__("datetime").timedelta(days=d)
+            for d in range(720)
+        ]
+    )
     frac = np.array([(d.dayofyr - 1) / 360.0 for d in dates])
     x = (3.0 + 2.0 * np.cos(2 * np.pi * frac) - 0.5 * np.sin(4 * np.pi * frac))[:, None]
     cycle = SeasonalCycle("day").fit(x, dates, "360_day")
@@ -166,12 +172,22 @@ def test_data_after_the_record_gets_its_own_season(tmp_path):
     path, x = _monthly_file(tmp_path, rng, n=48)
     field = read_field(path, "tas")
     t = FieldModes(n_modes=field.n_points).fit(field)
-    later = write_cf(tmp_path / "later.nc", x[7:31], lat=LAT, lon=LON,
-                     times=cftime.date2num([cftime.datetime(2000 + m // 12, m % 12 + 1, 15,
-                                                            calendar="noleap")
-                                            for m in range(7, 31)],
-                                           "days since 1990-01-01", calendar="noleap"),
-                     units="days since 1990-01-01", calendar="noleap")
+    later = write_cf(
+        tmp_path / "later.nc",
+        x[7:31],
+        lat=LAT,
+        lon=LON,
+        times=cftime.date2num(
+            [
+                cftime.datetime(2000 + m // 12, m % 12 + 1, 15, calendar="noleap")
+                for m in range(7, 31)
+            ],
+            "days since 1990-01-01",
+            calendar="noleap",
+        ),
+        units="days since 1990-01-01",
+        calendar="noleap",
+    )
     series = modes_series(t, read_field(later, "tas"))
     np.testing.assert_allclose(series.runs[0], modes_series(t, field).runs[0][7:31], atol=1e-9)
     other = write_cf(tmp_path / "o.nc", x[:, :, :4], lat=LAT, lon=LON[:4], times=np.arange(48.0))

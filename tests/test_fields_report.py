@@ -25,28 +25,72 @@ def _field(tmp_path, seed, name):
     q, _ = np.linalg.qr(np.random.default_rng(99).standard_normal((LAT.size * LON.size, 2)))
     x = np.stack([r @ q.T for r in series.runs]).reshape(2, -1, LAT.size, LON.size)
     x[:, :, 0, 0] = np.nan  # one land point: 47 valid points remain
-    return write_cf(tmp_path / name, 15.0 + x, lat=LAT, lon=LON,
-                    times=0.25 * np.arange(x.shape[1]), calendar="noleap", member="member")
+    return write_cf(
+        tmp_path / name,
+        15.0 + x,
+        lat=LAT,
+        lon=LON,
+        times=0.25 * np.arange(x.shape[1]),
+        calendar="noleap",
+        member="member",
+    )
 
 
-def test_report_from_the_registry_redraws_the_maps_and_old_evidence_still_reads(tmp_path,
-                                                                                  capsys):
+def test_report_from_the_registry_redraws_the_maps_and_old_evidence_still_reads(tmp_path, capsys):
     fit, check = _field(tmp_path, 41, "fit.nc"), _field(tmp_path, 42, "check.nc")
     model, card, home = tmp_path / "m.json", tmp_path / "card.json", tmp_path / "home"
-    assert main(["fit", str(fit), "--variable", "tas", "--modes", "2", "--climatology", "none",
-                 "--method", "linear-inverse", "--out", str(model), "--quiet"]) == 0
-    assert main(["validate", str(model), str(check), "--variable", "tas", "--members", "4",
-                 "--seed", "2", "--json", str(card), "--quiet"]) in (0, 1, 3)  # any verdict
+    assert (
+        main(
+            [
+                "fit",
+                str(fit),
+                "--variable",
+                "tas",
+                "--modes",
+                "2",
+                "--climatology",
+                "none",
+                "--method",
+                "linear-inverse",
+                "--out",
+                str(model),
+                "--quiet",
+            ]
+        )
+        == 0
+    )
+    assert main(
+        [
+            "validate",
+            str(model),
+            str(check),
+            "--variable",
+            "tas",
+            "--members",
+            "4",
+            "--seed",
+            "2",
+            "--json",
+            str(card),
+            "--quiet",
+        ]
+    ) in (0, 1, 3)  # any verdict
     evidence = tmp_path / "card.evidence.npz"
     with np.load(evidence, allow_pickle=False) as z:
         maps = {k: z[k] for k in z.files if k.startswith(MAP_KEY_PREFIX)}
-    assert set(maps) == {MAP_KEY_PREFIX + k for k in ("reference_variance", "reference_lag-1",
-                                                      "surrogate_variance", "surrogate_lag-1")}
+    assert set(maps) == {
+        MAP_KEY_PREFIX + k
+        for k in ("reference_variance", "reference_lag-1", "surrogate_variance", "surrogate_lag-1")
+    }
     assert all(v.shape == (LAT.size * LON.size - 1,) for v in maps.values())
     Evidence.from_npz(evidence)  # the fixed fields read as before
 
-    assert main(["register", str(model), "--name", "sst", "--scorecard", str(card),
-                 "--home", str(home)]) == 0
+    assert (
+        main(
+            ["register", str(model), "--name", "sst", "--scorecard", str(card), "--home", str(home)]
+        )
+        == 0
+    )
     out = tmp_path / "again.html"
     assert main(["report", "sst@1", "--home", str(home), "--out", str(out)]) == 0
     page = out.read_text()
@@ -58,8 +102,23 @@ def test_report_from_the_registry_redraws_the_maps_and_old_evidence_still_reads(
     Evidence.from_npz(evidence).to_npz(old)
     with np.load(old, allow_pickle=False) as z:
         assert not any(k.startswith(MAP_KEY_PREFIX) for k in z.files)
-    assert main(["register", str(model), "--name", "sst", "--scorecard", str(card),
-                 "--evidence", str(old), "--home", str(home)]) == 0
+    assert (
+        main(
+            [
+                "register",
+                str(model),
+                "--name",
+                "sst",
+                "--scorecard",
+                str(card),
+                "--evidence",
+                str(old),
+                "--home",
+                str(home),
+            ]
+        )
+        == 0
+    )
     assert main(["report", "sst@2", "--home", str(home), "--out", str(out)]) == 0
     assert "Maps on the grid" not in out.read_text()
 

@@ -12,19 +12,28 @@ from ergodex.series import Series
 
 
 def test_table_lists_the_four_methods():
-    assert list(FITTERS) == ["sparse", "linear-inverse", "quadratic-noise", "calibrated-linear-inverse"]
+    assert list(FITTERS) == [
+        "sparse",
+        "linear-inverse",
+        "quadratic-noise",
+        "calibrated-linear-inverse",
+    ]
     for name in FITTERS:
         assert issubclass(FITTERS[name], Fitter)
         assert FITTERS[name].method == name
 
 
 def test_unknown_method_is_named_with_the_allowed_ones():
-    with pytest.raises(SettingsError, match=r"unknown fit method 'sindy'.*sparse, linear-inverse, quadratic-noise"):
+    with pytest.raises(
+        SettingsError, match=r"unknown fit method 'sindy'.*sparse, linear-inverse, quadratic-noise"
+    ):
         make_fitter("sindy", {})
 
 
 def test_unknown_key_is_named_with_the_allowed_ones():
-    with pytest.raises(SettingsError, match=r"sparse has no setting 'treshold'; allowed settings: .*threshold"):
+    with pytest.raises(
+        SettingsError, match=r"sparse has no setting 'treshold'; allowed settings: .*threshold"
+    ):
         make_fitter("sparse", {"treshold": 0.1})
 
 
@@ -75,8 +84,14 @@ def test_settings_file(tmp_path):
 @pytest.mark.parametrize(
     "text, message",
     [
-        ('method = "sparse"\n[settings]\nthreshhold = 1.0\n', r"fit.toml: \[settings\] sparse has no setting 'threshhold'"),
-        ('method = "magic"\n', r"fit.toml: key 'method' must be one of sparse, linear-inverse, quadratic-noise, calibrated-linear-inverse; got 'magic'"),
+        (
+            'method = "sparse"\n[settings]\nthreshhold = 1.0\n',
+            r"fit.toml: \[settings\] sparse has no setting 'threshhold'",
+        ),
+        (
+            'method = "magic"\n',
+            r"fit.toml: key 'method' must be one of sparse, linear-inverse, quadratic-noise, calibrated-linear-inverse; got 'magic'",
+        ),
         ('method = "sparse"\nsettings = 3\n', r"'settings' must be a table"),
         ('methd = "sparse"\n', r"fit.toml: unknown key 'methd'"),
         ('method = "sparse"\n[settings]\ndegree = \n', r"fit.toml: not valid TOML: .*line 3"),

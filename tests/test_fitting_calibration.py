@@ -51,19 +51,34 @@ def _simulated(build, starts, lags, dt=0.1, n_out=4000, seed=5):
     """Forward map: statistics of an integrated ensemble of the surrogate build(θ)."""
 
     def forward(thetas):
-        return np.array([
-            surrogate_statistics(build(theta), starts, dt=dt, n_out=n_out, spinup=5.0, lags=lags,
-                                 seed=seed, stiffness_states=np.linspace(-2, 2, 9)[:, None])
-            for theta in thetas
-        ])
+        return np.array(
+            [
+                surrogate_statistics(
+                    build(theta),
+                    starts,
+                    dt=dt,
+                    n_out=n_out,
+                    spinup=5.0,
+                    lags=lags,
+                    seed=seed,
+                    stiffness_states=np.linspace(-2, 2, 9)[:, None],
+                )
+                for theta in thetas
+            ]
+        )
 
     return forward
 
 
 def _ou(theta):
     rate, amplitude = theta
-    return Surrogate(["x"], polynomial_terms(1, 1), np.array([[0.0, -rate]]),
-                     kind="linear-stochastic", noise=np.array([[amplitude**2]]))
+    return Surrogate(
+        ["x"],
+        polynomial_terms(1, 1),
+        np.array([[0.0, -rate]]),
+        kind="linear-stochastic",
+        noise=np.array([[amplitude**2]]),
+    )
 
 
 def test_eki_recovers_an_ornstein_uhlenbeck_process_from_its_statistics():
@@ -71,16 +86,18 @@ def test_eki_recovers_an_ornstein_uhlenbeck_process_from_its_statistics():
     rate, amplitude, dt, lags = 2.0, 1.0, 0.1, (2, 5)
     # Stationary OU statistics (Gardiner, Handbook of Stochastic Methods, sec. 3.8.4):
     # variance σ²/(2θ), Gaussian kurtosis 3, autocorrelation exp(−θτ).
-    y = np.array([amplitude**2 / (2 * rate), 3.0,
-                  np.exp(-rate * lags[0] * dt), np.exp(-rate * lags[1] * dt)])
+    y = np.array(
+        [amplitude**2 / (2 * rate), 3.0, np.exp(-rate * lags[0] * dt), np.exp(-rate * lags[1] * dt)]
+    )
     starts = np.zeros((8, 1))
     forward = _simulated(_ou, starts, lags)
     # Γ: the forward map's own sampling noise, from pieces of one run at the prior's centre
     run = integrate_ensemble(_ou((1.0, 1.5)), starts, dt_out=dt, n_out=4000, spinup=5.0, seed=1)
     gamma = piece_noise_covariance(list(run.states), lags, 16) * 2.0
     prior = np.exp(rng.normal(np.log([1.0, 1.5]), 0.5, size=(30, 2)))
-    result = ensemble_kalman_inversion(forward, y, gamma, prior, rng=rng, n_iterations=6,
-                                       positive=np.array([True, True]))
+    result = ensemble_kalman_inversion(
+        forward, y, gamma, prior, rng=rng, n_iterations=6, positive=np.array([True, True])
+    )
     # 8 members × 400 time units, correlation time 0.5: the variance and autocorrelation are
     # sampled to about 2–3 %, so the parameters to well within 10 %
     assert result.parameters[0] == pytest.approx(rate, rel=0.1)
@@ -91,6 +108,7 @@ def test_eki_recovers_an_ornstein_uhlenbeck_process_from_its_statistics():
 def test_eki_recovers_a_double_well_from_its_exact_stationary_density():
     rng = np.random.default_rng(8)
     a, b, sigma = 1.0, 1.0, 1.0
+
     # Stationary density of dx = (a x − b x³) dt + σ dW: p(x) ∝ exp(2 (a x²/2 − b x⁴/4) / σ²)
     # (Gardiner, Handbook of Stochastic Methods, sec. 5.2.2: potential solution in one dimension)
     def weight(x, k):
@@ -102,8 +120,13 @@ def test_eki_recovers_a_double_well_from_its_exact_stationary_density():
     y = np.array([m2, m4 / m2**2])
 
     def build(theta):
-        return Surrogate(["x"], polynomial_terms(1, 3), np.array([[0.0, theta[0], 0.0, -theta[1]]]),
-                         kind="polynomial-stochastic", noise=np.array([[sigma**2]]))
+        return Surrogate(
+            ["x"],
+            polynomial_terms(1, 3),
+            np.array([[0.0, theta[0], 0.0, -theta[1]]]),
+            kind="polynomial-stochastic",
+            noise=np.array([[sigma**2]]),
+        )
 
     starts = rng.choice([-1.0, 1.0], size=(8, 1))
     simulate = _simulated(build, starts, (1,))
@@ -114,8 +137,9 @@ def test_eki_recovers_a_double_well_from_its_exact_stationary_density():
     run = integrate_ensemble(build((0.5, 2.0)), starts, dt_out=0.1, n_out=4000, spinup=5.0, seed=2)
     gamma = np.diag(np.diag(piece_noise_covariance(list(run.states), (1,), 16))[:2]) * 2.0
     prior = np.exp(rng.normal(np.log([0.5, 2.0]), 0.5, size=(30, 2)))
-    result = ensemble_kalman_inversion(forward, y, gamma, prior, rng=rng, n_iterations=8,
-                                       positive=np.array([True, True]))
+    result = ensemble_kalman_inversion(
+        forward, y, gamma, prior, rng=rng, n_iterations=8, positive=np.array([True, True])
+    )
     # hops between the wells every few time units: over 8 × 400 time units the variance and
     # kurtosis are sampled to a few per cent, which the two parameters amplify about twofold
     assert result.parameters[0] == pytest.approx(a, rel=0.15)
@@ -143,8 +167,9 @@ def test_failed_members_are_reset_not_fatal():
         return g
 
     prior = rng.normal(0.0, 1.0, size=(20, 1))
-    result = ensemble_kalman_inversion(forward, np.array([3.0]), np.eye(1) * 1e-4, prior,
-                                       rng=rng, n_iterations=4)
+    result = ensemble_kalman_inversion(
+        forward, np.array([3.0]), np.eye(1) * 1e-4, prior, rng=rng, n_iterations=4
+    )
     assert result.failed == [1] * 5
     # θ = y / 2 = 1.5 for the linear map, to within the noise √1e-4 / 2
     assert result.parameters[0] == pytest.approx(1.5, abs=0.01)
@@ -156,15 +181,27 @@ def test_calibrated_fitter_learns_the_light_tails_a_linear_model_cannot_make():
 
     rng = np.random.default_rng(21)
     sigma = 1.0
-    truth = Surrogate(["x"], polynomial_terms(1, 3), np.array([[0.0, -1.0, 0.0, -1.0]]),
-                      kind="polynomial-stochastic", noise=np.array([[sigma**2]]))
-    data = integrate_ensemble(truth, rng.normal(size=(3, 1)), dt_out=0.05, n_out=4000, spinup=5.0,
-                              seed=int(rng.integers(2**31)))
+    truth = Surrogate(
+        ["x"],
+        polynomial_terms(1, 3),
+        np.array([[0.0, -1.0, 0.0, -1.0]]),
+        kind="polynomial-stochastic",
+        noise=np.array([[sigma**2]]),
+    )
+    data = integrate_ensemble(
+        truth,
+        rng.normal(size=(3, 1)),
+        dt_out=0.05,
+        n_out=4000,
+        spinup=5.0,
+        seed=int(rng.integers(2**31)),
+    )
     series = Series.from_arrays(list(data.states), ("x",), 0.05)
+
     # Exact kurtosis of p(x) ∝ exp(2 (−x²/2 − x⁴/4) / σ²) (Gardiner, Handbook of Stochastic
     # Methods, sec. 5.2.2), by quadrature
     def weight(x, k):
-        return x**k * np.exp(2.0 * (-x**2 / 2 - x**4 / 4) / sigma**2)
+        return x**k * np.exp(2.0 * (-(x**2) / 2 - x**4 / 4) / sigma**2)
 
     m2 = quad(weight, -np.inf, np.inf, args=(2,))[0] / quad(weight, -np.inf, np.inf, args=(0,))[0]
     m4 = quad(weight, -np.inf, np.inf, args=(4,))[0] / quad(weight, -np.inf, np.inf, args=(0,))[0]
@@ -173,15 +210,17 @@ def test_calibrated_fitter_learns_the_light_tails_a_linear_model_cannot_make():
 
     seen = []
     fitter = make_fitter("calibrated-linear-inverse", {"members": 20, "iterations": 5}).fit(
-        series, progress=lambda done, total: seen.append((done, total)))
+        series, progress=lambda done, total: seen.append((done, total))
+    )
     assert fitter.cubic_coefficients_[0] > 0
     surrogate = fitter.surrogate_
     assert surrogate.settings["method"] == "calibrated-linear-inverse"
     assert surrogate.settings["members"] == 20
     assert "calibration" in surrogate.provenance
     assert seen[-1][0] == seen[-1][1] and len(seen) > 3
-    run = integrate_ensemble(surrogate, np.zeros((8, 1)), dt_out=0.05, n_out=8000, spinup=5.0,
-                             seed=3)
+    run = integrate_ensemble(
+        surrogate, np.zeros((8, 1)), dt_out=0.05, n_out=8000, spinup=5.0, seed=3
+    )
     kurtosis = statistics_vector(list(run.states), (1,))[1]
     # the linear model's kurtosis is 3; the calibrated one must close at least half of the gap
     # to the exact value (the fit runs' own kurtosis carries a few per cent of sampling noise)
@@ -218,16 +257,34 @@ def test_homogeneous_setting_fits_on_rotations_and_records_it():
     n = 6
     # a ring of stations coupled to their neighbours by a circulant drift (homogeneous by design)
     drift = -np.eye(n) + 0.3 * (np.roll(np.eye(n), 1, axis=1) - np.roll(np.eye(n), -1, axis=1))
-    truth = Surrogate([f"s{j}" for j in range(n)], polynomial_terms(n, 1),
-                      np.column_stack([np.zeros(n), drift]), kind="linear-stochastic",
-                      noise=0.5 * np.eye(n))
-    data = integrate_ensemble(truth, rng.normal(size=(2, n)), dt_out=0.1, n_out=2000, spinup=5.0,
-                              seed=int(rng.integers(2**31)))
+    truth = Surrogate(
+        [f"s{j}" for j in range(n)],
+        polynomial_terms(n, 1),
+        np.column_stack([np.zeros(n), drift]),
+        kind="linear-stochastic",
+        noise=0.5 * np.eye(n),
+    )
+    data = integrate_ensemble(
+        truth,
+        rng.normal(size=(2, n)),
+        dt_out=0.1,
+        n_out=2000,
+        spinup=5.0,
+        seed=int(rng.integers(2**31)),
+    )
     series = Series.from_arrays(list(data.states), truth.variables, 0.1)
-    fitter = make_fitter("calibrated-linear-inverse", {
-        "n_modes": 4, "homogeneous": True, "cubic_damping": False, "members": 12, "iterations": 2,
-    }).fit(series)
+    fitter = make_fitter(
+        "calibrated-linear-inverse",
+        {
+            "n_modes": 4,
+            "homogeneous": True,
+            "cubic_damping": False,
+            "members": 12,
+            "iterations": 2,
+        },
+    ).fit(series)
     assert fitter.surrogate_.settings["homogeneous"] is True
+
     # the modes come from the rotated runs: the circulant covariance's eigenvalues pair up
     # (wave numbers k and n − k; Gray 2006, sec. 3.1), so of the 4 leading modes two adjacent
     # ones share a variance to round-off; a PCA of the runs as sampled has no such pair

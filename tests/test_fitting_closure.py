@@ -55,9 +55,9 @@ def test_double_well_drift_and_noise(double_well_series):
 def test_central_differences_cancel_the_drift_of_a_reversible_process(double_well_series):
     # For a reversible diffusion the backward increment has the opposite conditional mean, so
     # central differences lose the drift (why "forward" is the default; Kloeden & Platen 1992).
-    central = make_fitter("quadratic-noise", {"degree": 3, "differentiation": "finite-difference"}).fit(
-        double_well_series
-    )
+    central = make_fitter(
+        "quadratic-noise", {"degree": 3, "differentiation": "finite-difference"}
+    ).fit(double_well_series)
     forward = make_fitter("quadratic-noise", {"degree": 3}).fit(double_well_series)
     assert abs(central.coefficients_[0, 1]) < 0.5 * abs(forward.coefficients_[0, 1])
 

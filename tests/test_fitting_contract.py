@@ -65,7 +65,8 @@ def test_contract(method, series):
     assert surrogate.transform is None
     stacked = series.stacked()
     assert surrogate.provenance["model_range"] == {
-        name: [float(stacked[:, j].min()), float(stacked[:, j].max())] for j, name in enumerate(series.names)
+        name: [float(stacked[:, j].min()), float(stacked[:, j].max())]
+        for j, name in enumerate(series.names)
     }
     assert np.all(np.isfinite(surrogate.rhs(np.zeros((4, surrogate.n_variables)))))
     assert np.isfinite(fitter.score_) and np.isfinite(fitter.tendency_error_)
@@ -122,8 +123,12 @@ def cls_settings(method):
 
 def test_fit_accepts_a_dataframe_reports_progress_and_logs_its_substeps(series, caplog):
     pd = pytest.importorskip("pandas")
-    rows = [pd.DataFrame({"run": str(i), "time": np.arange(len(r)) * series.dt, "u": r[:, 0],
-                          "v": r[:, 1]}) for i, r in enumerate(series.runs)]
+    rows = [
+        pd.DataFrame(
+            {"run": str(i), "time": np.arange(len(r)) * series.dt, "u": r[:, 0], "v": r[:, 1]}
+        )
+        for i, r in enumerate(series.runs)
+    ]
     frame = pd.concat(rows, ignore_index=True)
     calls = []
     with caplog.at_level("INFO", logger="ergodex.fitting"):

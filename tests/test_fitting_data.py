@@ -43,7 +43,9 @@ def lorenz63_runs(rng, *, n_runs=3, duration=60.0, dt=0.01, noise=0.0, spinup=5.
         x0 = rng.normal(size=3) * 5.0 + np.array([0.0, 0.0, 25.0])
         n = int(round(duration / dt)) + 1
         t_eval = spinup + np.arange(n) * dt
-        sol = solve_ivp(lorenz63, (0.0, t_eval[-1]), x0, t_eval=t_eval, method="DOP853", rtol=1e-10, atol=1e-10)
+        sol = solve_ivp(
+            lorenz63, (0.0, t_eval[-1]), x0, t_eval=t_eval, method="DOP853", rtol=1e-10, atol=1e-10
+        )
         X = sol.y.T
         if noise:
             X = X + noise * X.std(axis=0) * rng.normal(size=X.shape)
@@ -60,8 +62,9 @@ def lorenz63_reference_runs(n_runs: int = 2, duration: float = 40.0, seed: int =
     return tuple(runs)
 
 
-def lorenz63_reference_series(dt: float, *, noise: float = 0.0, seed: int = 0, n_runs: int = 2,
-                              duration: float = 40.0) -> Series:
+def lorenz63_reference_series(
+    dt: float, *, noise: float = 0.0, seed: int = 0, n_runs: int = 2, duration: float = 40.0
+) -> Series:
     """Clean reference runs sampled every ``dt`` (a multiple of 0.002), with optional sensor noise."""
     every = int(round(dt / 0.002))
     assert abs(every * 0.002 - dt) < 1e-12

@@ -38,7 +38,9 @@ def test_ou_drift_and_noise_within_sampling_error(ou_case):
     # spread happens to be tiny).
     A, Q, _, series = ou_case
     fitter = make_fitter("linear-inverse", {"tau0": 0.5}).fit(series)
-    singles = [make_fitter("linear-inverse", {"tau0": 0.5}).fit(series.select_runs([k])) for k in range(4)]
+    singles = [
+        make_fitter("linear-inverse", {"tau0": 0.5}).fit(series.select_runs([k])) for k in range(4)
+    ]
     se_L = np.std([f.L_ for f in singles], axis=0, ddof=1) / 2.0
     se_Q = np.std([f.noise_covariance_ for f in singles], axis=0, ddof=1) / 2.0
     assert np.all(np.abs(fitter.L_ - A) <= 4 * se_L + 1e-3)
@@ -89,7 +91,9 @@ def test_tau0_longer_than_the_data_allow():
     A, Q = ou_drift_and_noise()
     runs, _ = ou_runs(rng, A, Q, n_runs=1, n_samples=100, dt=0.1)
     series = Series.from_arrays(runs, ("a", "b", "c"), 0.1)
-    with pytest.raises(DataError, match=r"tau0 = 8 \(80 samples\) is longer than the data allow.*at most 5"):
+    with pytest.raises(
+        DataError, match=r"tau0 = 8 \(80 samples\) is longer than the data allow.*at most 5"
+    ):
         make_fitter("linear-inverse", {"tau0": 8.0}).fit(series)
 
 
@@ -106,7 +110,10 @@ def test_negative_noise_eigenvalues_are_reported_and_clipped():
     fitter = make_fitter("linear-inverse", {"tau0": 0.1}).fit(series)
     assert fitter.noise_eigenvalues_.min() < 0
     assert "negative eigenvalue" in fitter.noise_report_ and "set to zero" in fitter.noise_report_
-    assert np.linalg.eigvalsh(fitter.noise_covariance_).min() >= -1e-9 * np.abs(fitter.noise_covariance_).max()
+    assert (
+        np.linalg.eigvalsh(fitter.noise_covariance_).min()
+        >= -1e-9 * np.abs(fitter.noise_covariance_).max()
+    )
     with pytest.raises(DataError, match="negative eigenvalue"):
         make_fitter("linear-inverse", {"tau0": 0.1, "negative_noise": "refuse"}).fit(series)
 

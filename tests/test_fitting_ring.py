@@ -44,8 +44,14 @@ def ring():
 def _check_in_model_space(surrogate, held_out, seed):
     """The same check done by hand: held-out runs mapped through the surrogate's transform."""
     reference = transform_series(surrogate.transform, held_out)
-    bare = Surrogate(surrogate.variables, surrogate.terms, surrogate.coefficients,
-                     kind=surrogate.kind, noise=surrogate.noise, settings=surrogate.settings)
+    bare = Surrogate(
+        surrogate.variables,
+        surrogate.terms,
+        surrogate.coefficients,
+        kind=surrogate.kind,
+        noise=surrogate.noise,
+        settings=surrogate.settings,
+    )
     return check(bare, reference, CheckSpec(seed=seed)).scorecard
 
 
@@ -84,13 +90,18 @@ def test_linear_inverse_model_on_ten_modes_passes_on_held_out_runs(ring):
     assert scorecard.data_fingerprint == held_out.fingerprint()  # the data given, not the modes
     assert scorecard.blowups["count"] == 0
     assert scorecard.spec.tolerance == DEFAULT_TOLERANCE  # the calibrated default, not loosened
-    assert {row.statistic for row in scorecard.rows} >= {"histogram", "autocorrelation", "spectrum",
-                                                         "quantiles"}
+    assert {row.statistic for row in scorecard.rows} >= {
+        "histogram",
+        "autocorrelation",
+        "spectrum",
+        "quantiles",
+    }
     assert scorecard.passed, scorecard.table()
     # mapping the held-out runs by hand and checking the bare model gives the same rows
     by_hand = _check_in_model_space(surrogate, held_out, seed=2026)
-    np.testing.assert_allclose([r.ratio for r in by_hand.rows], [r.ratio for r in scorecard.rows],
-                               rtol=1e-12)
+    np.testing.assert_allclose(
+        [r.ratio for r in by_hand.rows], [r.ratio for r in scorecard.rows], rtol=1e-12
+    )
 
 
 def test_white_noise_closure_on_six_modes_fails_on_autocorrelation(ring):

@@ -14,7 +14,10 @@ from ergodex.validation import CheckSpec
 CANDIDATES = [
     ("sparse", {"threshold": 0.1}),
     ("sparse", {"threshold": 5.0}),
-    ("linear-inverse", {"tau0": 1000.0}),   # longer than the data allow: a fit error, kept in the front
+    (
+        "linear-inverse",
+        {"tau0": 1000.0},
+    ),  # longer than the data allow: a fit error, kept in the front
 ]
 
 
@@ -30,7 +33,14 @@ def loop_data():
 @pytest.fixture(scope="module")
 def local_result(loop_data):
     fit_data, held_out = loop_data
-    return select(fit_data, CANDIDATES, CheckSpec(members=8, seed=3), reference=held_out, n_jobs=1, progress=False)
+    return select(
+        fit_data,
+        CANDIDATES,
+        CheckSpec(members=8, seed=3),
+        reference=held_out,
+        n_jobs=1,
+        progress=False,
+    )
 
 
 @pytest.mark.slow
@@ -64,17 +74,29 @@ def test_dask_cluster_selects_the_same_model(loop_data, local_result):
     # every candidate uses the same CheckSpec seed, so the statistics must agree to round-off.
     distributed = pytest.importorskip("distributed")
     fit_data, held_out = loop_data
-    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
-                                  dashboard_address=None) as cluster, distributed.Client(cluster) as client:
-        remote = select(fit_data, CANDIDATES, CheckSpec(members=8, seed=3), reference=held_out,
-                        scheduler=client, progress=False)
+    with (
+        distributed.LocalCluster(
+            n_workers=2, threads_per_worker=1, processes=False, dashboard_address=None
+        ) as cluster,
+        distributed.Client(cluster) as client,
+    ):
+        remote = select(
+            fit_data,
+            CANDIDATES,
+            CheckSpec(members=8, seed=3),
+            reference=held_out,
+            scheduler=client,
+            progress=False,
+        )
     assert remote.backend == "dask"
     assert remote.chosen == local_result.chosen
     for a, b in zip(remote.candidates, local_result.candidates):
         assert a.verdict == b.verdict and a.n_terms == b.n_terms
         if a.statistical_score is not None:
             assert a.statistical_score == pytest.approx(b.statistical_score, rel=1e-9)
-    np.testing.assert_array_equal(remote.surrogate.coefficients, local_result.surrogate.coefficients)
+    np.testing.assert_array_equal(
+        remote.surrogate.coefficients, local_result.surrogate.coefficients
+    )
 
 
 def test_bad_candidate_settings_are_refused_before_any_work(loop_data):
@@ -97,7 +119,10 @@ def test_parse_selection_table():
         "method": "sparse",
         "select": {
             "thresholds": [0.05, 0.5],
-            "candidates": [{"method": "linear-inverse", "tau0": 0.1}, {"method": "quadratic-noise", "degree": 3}],
+            "candidates": [
+                {"method": "linear-inverse", "tau0": 0.1},
+                {"method": "quadratic-noise", "degree": 3},
+            ],
         },
     }
     parsed = parse_selection(document, method="sparse", settings={"degree": 2})
@@ -110,7 +135,10 @@ def test_parse_selection_table():
     with pytest.raises(SettingsError, match=r"\[select\] has no key 'threshold'"):
         parse_selection({"select": {"threshold": [1.0]}}, method="sparse", settings={})
     with pytest.raises(SettingsError, match=r"entry 1: linear-inverse has no setting 'degree'"):
-        parse_selection({"select": {"candidates": [{"method": "linear-inverse", "degree": 2}]}},
-                        method="sparse", settings={})
+        parse_selection(
+            {"select": {"candidates": [{"method": "linear-inverse", "degree": 2}]}},
+            method="sparse",
+            settings={},
+        )
     with pytest.raises(SettingsError, match="'thresholds' needs method 'sparse'"):
         parse_selection({"select": {"thresholds": [1.0]}}, method="linear-inverse", settings={})

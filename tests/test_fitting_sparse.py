@@ -43,7 +43,9 @@ def test_order_two_differences_bias_rho_at_coarse_step():
     series = lorenz63_reference_series(0.01)
     rho = {}
     for order in (2, 4):
-        fitter = make_fitter("sparse", {"differentiation": "finite-difference", "fd_order": order}).fit(series)
+        fitter = make_fitter(
+            "sparse", {"differentiation": "finite-difference", "fd_order": order}
+        ).fit(series)
         rho[order] = abs(fitter.coefficients_[1, 1] - 28.0) / 28.0
     assert rho[2] > 10 * rho[4]
     assert rho[2] > 1e-3
@@ -110,7 +112,9 @@ def test_runs_of_different_lengths_are_fitted_together():
 def test_sr3_with_l0_recovers_lorenz63():
     # SR3 (Zheng et al. 2019) with an L0 penalty λ: effective threshold sqrt(2 λ ν) = 0.1 for λ=0.005.
     series = lorenz63_reference_series(0.01)
-    fitter = make_fitter("sparse", {"optimizer": "sr3", "reg_weight_lam": 0.005, "max_iter": 200}).fit(series)
+    fitter = make_fitter(
+        "sparse", {"optimizer": "sr3", "reg_weight_lam": 0.005, "max_iter": 200}
+    ).fit(series)
     assert np.all(fitter.coefficients_[ACTIVE] != 0)
     assert max_relative_error(fitter.coefficients_) < 0.01
     assert largest_spurious(fitter.coefficients_) < 0.05
@@ -143,33 +147,48 @@ def test_fourier_library_recovers_a_damped_pendulum():
     for _ in range(6):
         start = [rng.uniform(-2.5, 2.5), rng.uniform(-1.5, 1.5)]
         t = np.arange(0.0, 20.0, 0.01)
-        sol = solve_ivp(lambda _, s: [s[1], -np.sin(s[0]) - 0.2 * s[1]], (0, t[-1]), start, t_eval=t,
-                        rtol=1e-10, atol=1e-10)
+        sol = solve_ivp(
+            lambda _, s: [s[1], -np.sin(s[0]) - 0.2 * s[1]],
+            (0, t[-1]),
+            start,
+            t_eval=t,
+            rtol=1e-10,
+            atol=1e-10,
+        )
         runs.append(sol.y.T)
     series = Series.from_arrays(runs, ("angle", "rate"), 0.01)
-    fitter = make_fitter("sparse", {"library": "polynomial+fourier", "degree": 1, "threshold": 0.05}).fit(series)
+    fitter = make_fitter(
+        "sparse", {"library": "polynomial+fourier", "degree": 1, "threshold": 0.05}
+    ).fit(series)
     names = fitter.feature_names_
     coef = dict(zip(names, fitter.coefficients_[1]))
     assert abs(coef["sin(angle)"] + 1.0) < 0.01
     assert abs(coef["rate"] + 0.2) < 0.01
     assert abs(dict(zip(names, fitter.coefficients_[0]))["rate"] - 1.0) < 0.01
     assert fitter.n_terms_ == 3
-    np.testing.assert_allclose(fitter.surrogate_.rhs(runs[0][:5]),
-                               np.column_stack([runs[0][:5, 1], -np.sin(runs[0][:5, 0]) - 0.2 * runs[0][:5, 1]]),
-                               rtol=0.02, atol=1e-3)
+    np.testing.assert_allclose(
+        fitter.surrogate_.rhs(runs[0][:5]),
+        np.column_stack([runs[0][:5, 1], -np.sin(runs[0][:5, 0]) - 0.2 * runs[0][:5, 1]]),
+        rtol=0.02,
+        atol=1e-3,
+    )
 
 
 def test_too_few_samples_says_how_many_are_needed():
     rng = np.random.default_rng(8)
     series = Series.from_arrays([rng.normal(size=(15, 3))], ("a", "b", "c"), 0.1)
-    with pytest.raises(DataError, match=r"library has 20 terms but only \d+ usable samples; at least 20"):
+    with pytest.raises(
+        DataError, match=r"library has 20 terms but only \d+ usable samples; at least 20"
+    ):
         make_fitter("sparse", {"degree": 3, "differentiation": "finite-difference"}).fit(series)
 
 
 def test_short_run_for_the_weak_window_is_refused():
     rng = np.random.default_rng(9)
     series = Series.from_arrays([rng.normal(size=(30, 2))], ("a", "b"), 0.1)
-    with pytest.raises(DataError, match=r"run 0 has 30 samples; differentiation 'weak' needs at least 41"):
+    with pytest.raises(
+        DataError, match=r"run 0 has 30 samples; differentiation 'weak' needs at least 41"
+    ):
         make_fitter("sparse", {}).fit(series)
 
 
@@ -177,7 +196,9 @@ def test_rank_deficient_library_names_the_dependent_terms():
     rng = np.random.default_rng(10)
     a = np.cumsum(rng.normal(size=500))
     series = Series.from_arrays([np.column_stack([a, 2.0 * a + 1.0])], ("level", "gauge"), 0.1)
-    with pytest.raises(DataError, match=r"rank-deficient \(rank \d+ of 6 terms\).*'level'.*'gauge'"):
+    with pytest.raises(
+        DataError, match=r"rank-deficient \(rank \d+ of 6 terms\).*'level'.*'gauge'"
+    ):
         make_fitter("sparse", {"differentiation": "finite-difference"}).fit(series)
 
 

@@ -64,8 +64,9 @@ def test_dataframe_without_times_needs_dt():
 
 def test_bad_tables_name_the_row_and_column():
     rng = np.random.default_rng(5)
-    frame = pd.DataFrame({"time": np.arange(10.0), "p": rng.normal(size=10),
-                          "q": rng.normal(size=10)})
+    frame = pd.DataFrame(
+        {"time": np.arange(10.0), "p": rng.normal(size=10), "q": rng.normal(size=10)}
+    )
     frame.loc[4, "q"] = np.nan
     with pytest.raises(DataError, match=r"row 5, column 'q'"):
         as_series(frame)
@@ -73,8 +74,13 @@ def test_bad_tables_name_the_row_and_column():
     uneven.loc[6, "time"] = 6.5
     with pytest.raises(DataError, match=r"row 7, column 'time'.*uniform"):
         as_series(uneven)
-    split = pd.DataFrame({"run": ["x", "x", "y", "y", "x", "x"], "time": [0, 1, 0, 1, 2, 3.0],
-                          "p": rng.normal(size=6)})
+    split = pd.DataFrame(
+        {
+            "run": ["x", "x", "y", "y", "x", "x"],
+            "time": [0, 1, 0, 1, 2, 3.0],
+            "p": rng.normal(size=6),
+        }
+    )
     with pytest.raises(DataError, match="row 5.*contiguous"):
         as_series(split)
     with pytest.raises(DataError, match="expected an ergodex Series"):
@@ -84,14 +90,19 @@ def test_bad_tables_name_the_row_and_column():
 def test_dataset_and_dataarray_layouts():
     rng = np.random.default_rng(6)
     values = rng.normal(size=(3, 50))
-    ds = xr.Dataset({"flow": (("member", "time"), values)},
-                    coords={"time": np.arange(50) * 0.2, "member": [10, 11, 12]})
+    ds = xr.Dataset(
+        {"flow": (("member", "time"), values)},
+        coords={"time": np.arange(50) * 0.2, "member": [10, 11, 12]},
+    )
     series = as_series(ds)
     assert series.n_runs == 3 and series.dt == 0.2 and series.run_labels == ("10", "11", "12")
     np.testing.assert_array_equal(series.runs[1][:, 0], values[1])
     # one DataArray with a dimension of variables
-    da = xr.DataArray(rng.normal(size=(50, 2)), dims=("time", "variable"),
-                      coords={"time": np.arange(50) * 0.2, "variable": ["u", "v"]})
+    da = xr.DataArray(
+        rng.normal(size=(50, 2)),
+        dims=("time", "variable"),
+        coords={"time": np.arange(50) * 0.2, "variable": ["u", "v"]},
+    )
     assert as_series(da).names == ("u", "v")
     with pytest.raises(DataError, match="no 'time' dimension"):
         as_series(xr.Dataset({"u": (("t",), rng.normal(size=5))}))

@@ -74,6 +74,7 @@ def hostile(tmp_path_factory) -> Path:
             for key in path[:-1]:
                 target = target[key]
             target[path[-1]] = value
+
         return change
 
     # malformed or extreme model files
@@ -94,10 +95,16 @@ def hostile(tmp_path_factory) -> Path:
     model("pow_bool.json", setter(["terms", 0, "powers"], [True, 0]))
     model("pow_str.json", setter(["terms", 0, "powers"], ["1", 0]))
     model("pow_short.json", setter(["terms", 0, "powers"], [1]))
-    model("freq_huge.json", setter(["terms", 0], {"kind": "sin", "variable": 0, "frequency": 1e300}))
-    model("sin_var_oob.json", setter(["terms", 0], {"kind": "sin", "variable": 7, "frequency": 1.0}))
-    model("sin_extra.json", setter(["terms", 0], {"kind": "cos", "variable": 0, "frequency": 1.0,
-                                                  "phase": 2}))
+    model(
+        "freq_huge.json", setter(["terms", 0], {"kind": "sin", "variable": 0, "frequency": 1e300})
+    )
+    model(
+        "sin_var_oob.json", setter(["terms", 0], {"kind": "sin", "variable": 7, "frequency": 1.0})
+    )
+    model(
+        "sin_extra.json",
+        setter(["terms", 0], {"kind": "cos", "variable": 0, "frequency": 1.0, "phase": 2}),
+    )
     model("term_kind.json", setter(["terms", 0], {"kind": "exp", "powers": [1, 0]}))
     model("term_notobj.json", setter(["terms", 0], "x1"))
     model("terms_notlist.json", setter(["terms"], {"kind": "monomial"}))
@@ -125,8 +132,10 @@ def hostile(tmp_path_factory) -> Path:
     model("settings_list.json", setter(["settings"], [1, 2]))
     model("provenance_str.json", setter(["provenance"], "today"))
     model("range_bad.json", setter(["provenance"], {"model_range": {"x1": [5, 1], "x2": "a"}}))
-    model("range_inf.json", setter(["provenance"], {"model_range": {"x1": [0, 1e308],
-                                                                    "x2": [-1e308, 0]}}))
+    model(
+        "range_inf.json",
+        setter(["provenance"], {"model_range": {"x1": [0, 1e308], "x2": [-1e308, 0]}}),
+    )
     model("observed_bad.json", setter(["settings"], {"observed_variables": ["zz"]}))
     model("dt_neg.json", setter(["provenance"], {"dt": -1}))
     model("dt_nan_str.json", setter(["provenance"], {"dt": "nan"}))
@@ -184,11 +193,17 @@ def hostile(tmp_path_factory) -> Path:
     _write(h / "binary.csv", rng.bytes(2048))
     cols = header.split(",")
     nrow = "\n".join(rest[:50])
-    _write(h / "nan.csv", header + "\n" + first + "\n" + rest[0].rsplit(",", 1)[0] + ",nan\n" + nrow)
-    _write(h / "inf.csv", header + "\n" + first + "\n" + rest[0].rsplit(",", 1)[0] + ",inf\n" + nrow)
+    _write(
+        h / "nan.csv", header + "\n" + first + "\n" + rest[0].rsplit(",", 1)[0] + ",nan\n" + nrow
+    )
+    _write(
+        h / "inf.csv", header + "\n" + first + "\n" + rest[0].rsplit(",", 1)[0] + ",inf\n" + nrow
+    )
     _write(h / "e400.csv", header + "\n" + first + "\n" + rest[0].rsplit(",", 1)[0] + ",1e400\n")
-    _write(h / "bigint.csv", header + "\n" + first + "\n" + rest[0].rsplit(",", 1)[0] + ","
-           + "9" * 5001 + "\n")
+    _write(
+        h / "bigint.csv",
+        header + "\n" + first + "\n" + rest[0].rsplit(",", 1)[0] + "," + "9" * 5001 + "\n",
+    )
     _write(h / "ragged.csv", header + "\n" + first + "\n1,2\n")
     _write(h / "dupcols.csv", ",".join(cols[:-1] + [cols[-2]]) + "\n" + first + "\n" + rest[0])
     _write(h / "const.csv", "x1,x2\n" + "\n".join(f"1.0,{i}" for i in range(50)))
@@ -205,8 +220,9 @@ def hostile(tmp_path_factory) -> Path:
     os.replace(h / "single.npy", h / "single.npz")
     np.savez(h / "objects.npz", values=np.array([{"a": 1}], dtype=object), allow_pickle=True)
     np.savez(h / "novalues.npz", other=np.zeros(3))
-    np.savez(h / "nanvalues.npz", values=np.full((10, 2), np.nan), names=np.array(["x1", "x2"]),
-             dt=0.05)
+    np.savez(
+        h / "nanvalues.npz", values=np.full((10, 2), np.nan), names=np.array(["x1", "x2"]), dt=0.05
+    )
     _write(h / "garbage.nc", rng.bytes(1000))
     (h / "noman").mkdir()
     deepman = h / "deepman"
@@ -228,21 +244,39 @@ def hostile(tmp_path_factory) -> Path:
     _write(h / "reg_deep.toml", "a = " + "[" * 100_000 + "]" * 100_000 + "\n")
     _write(h / "reg_deep70.toml", "a = " + "[" * 70 + "]" * 70 + "\n")
     _write(h / "reg_bad.toml", "[[regime\nname = \n")
-    _write(h / "reg_seed_neg.toml", '[[regime]]\nname = "k"\nkind = "kmeans"\nclusters = 2\nseed = -5\n')
-    _write(h / "reg_seed_big.toml",
-           '[[regime]]\nname = "k"\nkind = "kmeans"\nclusters = 2\nseed = 1099511627776\n')
-    _write(h / "reg_seed_float.toml", '[[regime]]\nname = "k"\nkind = "kmeans"\nclusters = 2\nseed = 1.5\n')
+    _write(
+        h / "reg_seed_neg.toml",
+        '[[regime]]\nname = "k"\nkind = "kmeans"\nclusters = 2\nseed = -5\n',
+    )
+    _write(
+        h / "reg_seed_big.toml",
+        '[[regime]]\nname = "k"\nkind = "kmeans"\nclusters = 2\nseed = 1099511627776\n',
+    )
+    _write(
+        h / "reg_seed_float.toml",
+        '[[regime]]\nname = "k"\nkind = "kmeans"\nclusters = 2\nseed = 1.5\n',
+    )
     _write(h / "reg_clusters1.toml", '[[regime]]\nname = "k"\nkind = "kmeans"\nclusters = 1\n')
-    _write(h / "reg_clusters_huge.toml",
-           '[[regime]]\nname = "k"\nkind = "kmeans"\nclusters = 1000000000\n')
-    _write(h / "reg_radius_neg.toml",
-           '[[regime]]\nname = "a"\nkind = "ball"\ncentre = { x1 = 0.0 }\nradius = -1\n')
-    _write(h / "reg_radius_nan.toml",
-           '[[regime]]\nname = "a"\nkind = "ball"\ncentre = { x1 = 0.0 }\nradius = nan\n')
-    _write(h / "reg_centre_inf.toml",
-           '[[regime]]\nname = "a"\nkind = "ball"\ncentre = { x1 = inf }\nradius = 1\n')
-    _write(h / "reg_unknown_var.toml",
-           '[[regime]]\nname = "a"\nkind = "ball"\ncentre = { nope = 0.0 }\nradius = 1\n')
+    _write(
+        h / "reg_clusters_huge.toml",
+        '[[regime]]\nname = "k"\nkind = "kmeans"\nclusters = 1000000000\n',
+    )
+    _write(
+        h / "reg_radius_neg.toml",
+        '[[regime]]\nname = "a"\nkind = "ball"\ncentre = { x1 = 0.0 }\nradius = -1\n',
+    )
+    _write(
+        h / "reg_radius_nan.toml",
+        '[[regime]]\nname = "a"\nkind = "ball"\ncentre = { x1 = 0.0 }\nradius = nan\n',
+    )
+    _write(
+        h / "reg_centre_inf.toml",
+        '[[regime]]\nname = "a"\nkind = "ball"\ncentre = { x1 = inf }\nradius = 1\n',
+    )
+    _write(
+        h / "reg_unknown_var.toml",
+        '[[regime]]\nname = "a"\nkind = "ball"\ncentre = { nope = 0.0 }\nradius = 1\n',
+    )
     _write(h / "reg_unknown_key.toml", '[[regime]]\nname = "a"\nkind = "ball"\ncolour = 1\n')
     _write(h / "reg_empty.toml", "")
     _write(h / "reg_kind.toml", '[[regime]]\nname = "a"\nkind = "volcano"\n')
@@ -263,16 +297,20 @@ def hostile(tmp_path_factory) -> Path:
     _write(export / "manifest.json", json.dumps({"format": "x", "files": {"model.json": "0"}}))
     bad_export = h / "export_devzero"
     bad_export.mkdir()
-    _write(bad_export / "manifest.json", json.dumps({"format": "ergodex-export/1",
-                                                     "files": {"model.json": "0" * 64}}))
+    _write(
+        bad_export / "manifest.json",
+        json.dumps({"format": "ergodex-export/1", "files": {"model.json": "0" * 64}}),
+    )
     os.symlink("/dev/zero", bad_export / "model.json")
     deep_export = h / "export_deep"
     deep_export.mkdir()
     _write(deep_export / "manifest.json", '{"a": ' + "[" * 100_000 + "]" * 100_000 + "}")
     traversal = h / "export_traversal"
     traversal.mkdir()
-    _write(traversal / "manifest.json", json.dumps({"format": "ergodex-export/1",
-                                                    "files": {"../../etc/passwd": "0" * 64}}))
+    _write(
+        traversal / "manifest.json",
+        json.dumps({"format": "ergodex-export/1", "files": {"../../etc/passwd": "0" * 64}}),
+    )
 
     # scorecards for register
     _write(h / "card_deep.json", '{"a": ' + "[" * 100_000 + "]" * 100_000 + "}")
@@ -292,40 +330,183 @@ def _case(name, argv, codes=frozenset({2}), env=None, slow=False):
 
 
 _MODEL_REFUSALS = [
-    "deep", "deep_open", "bigint", "coef_int400", "coef_1e400", "nan", "inf", "neginf",
-    "coef_1e308", "coef_1e101", "pow_1e30", "pow_1000", "pow_neg", "pow_float", "pow_bool",
-    "pow_str", "pow_short", "freq_huge", "sin_var_oob", "sin_extra", "term_kind", "term_notobj",
-    "terms_notlist", "terms_empty", "terms_dup", "coef_shape", "coef_str", "coef_null",
-    "coef_nested", "coef_deep60", "vars_empty", "vars_dup", "vars_nonstr", "vars_blank",
-    "format_wrong", "format_int", "kind_empty", "unknown_field", "noise_asym", "noise_negdef",
-    "noise_shape", "noise_huge", "transform_str", "transform_garbage", "settings_list",
-    "provenance_str", "observed_bad", "null", "list", "obj", "empty", "spaces", "truncated",
-    "trailing", "latin1", "utf16", "binary", "nul", "zero", "fifo", "folder",
+    "deep",
+    "deep_open",
+    "bigint",
+    "coef_int400",
+    "coef_1e400",
+    "nan",
+    "inf",
+    "neginf",
+    "coef_1e308",
+    "coef_1e101",
+    "pow_1e30",
+    "pow_1000",
+    "pow_neg",
+    "pow_float",
+    "pow_bool",
+    "pow_str",
+    "pow_short",
+    "freq_huge",
+    "sin_var_oob",
+    "sin_extra",
+    "term_kind",
+    "term_notobj",
+    "terms_notlist",
+    "terms_empty",
+    "terms_dup",
+    "coef_shape",
+    "coef_str",
+    "coef_null",
+    "coef_nested",
+    "coef_deep60",
+    "vars_empty",
+    "vars_dup",
+    "vars_nonstr",
+    "vars_blank",
+    "format_wrong",
+    "format_int",
+    "kind_empty",
+    "unknown_field",
+    "noise_asym",
+    "noise_negdef",
+    "noise_shape",
+    "noise_huge",
+    "transform_str",
+    "transform_garbage",
+    "settings_list",
+    "provenance_str",
+    "observed_bad",
+    "null",
+    "list",
+    "obj",
+    "empty",
+    "spaces",
+    "truncated",
+    "trailing",
+    "latin1",
+    "utf16",
+    "binary",
+    "nul",
+    "zero",
+    "fifo",
+    "folder",
 ]
 
 CASES = []
 # every malformed model file, through simulate and validate (the one loader)
 for _m in _MODEL_REFUSALS:
-    CASES.append(_case(f"simulate-model-{_m}", ["simulate", f"{{H}}/{_m}.json", "--members", "2",
-                                                "--steps", "5", "--dt", "0.1"]))
-for _m in ("deep", "bigint", "coef_1e308", "pow_1e30", "pow_1000", "nan", "zero", "fifo",
-           "latin1", "truncated", "noise_huge", "freq_huge"):
+    CASES.append(
+        _case(
+            f"simulate-model-{_m}",
+            ["simulate", f"{{H}}/{_m}.json", "--members", "2", "--steps", "5", "--dt", "0.1"],
+        )
+    )
+for _m in (
+    "deep",
+    "bigint",
+    "coef_1e308",
+    "pow_1e30",
+    "pow_1000",
+    "nan",
+    "zero",
+    "fifo",
+    "latin1",
+    "truncated",
+    "noise_huge",
+    "freq_huge",
+):
     CASES.append(_case(f"validate-model-{_m}", ["validate", f"{{H}}/{_m}.json", "{H}/data.csv"]))
-    CASES.append(_case(f"register-model-{_m}", ["register", f"{{H}}/{_m}.json", "--name", "m",
-                                                "--home", "{T}/home"]))
+    CASES.append(
+        _case(
+            f"register-model-{_m}",
+            ["register", f"{{H}}/{_m}.json", "--name", "m", "--home", "{T}/home"],
+        )
+    )
 CASES += [
     # models that load but misbehave: findings (exit 1) or acceptable runs, never crashes
-    _case("simulate-stiff-lambda-1e9", ["simulate", "{H}/stiff.json", "--members", "2",
-                                        "--steps", "5", "--dt", "0.1", "--out", "{T}/s.csv"], {1}),
-    _case("simulate-explode", ["simulate", "{H}/explode.json", "--members", "3", "--steps", "5",
-                               "--dt", "0.1", "--out", "{T}/s.csv"], {1}),
-    _case("simulate-explode-long-spinup", ["simulate", "{H}/explode.json", "--members", "3",
-                                           "--steps", "5", "--dt", "0.1", "--spinup", "1e9"], {1}),
-    _case("simulate-stiff4-time-limit", ["simulate", "{H}/stiff4.json", "--members", "64",
-                                         "--steps", "5", "--dt", "0.1", "--spinup", "1e5",
-                                         "--time-limit", "0.3"], {1}),
-    _case("simulate-settles", ["simulate", "{H}/settle.json", "--members", "3", "--steps", "20",
-                               "--dt", "0.1", "--out", "{T}/s.csv"], {1}),
+    _case(
+        "simulate-stiff-lambda-1e9",
+        [
+            "simulate",
+            "{H}/stiff.json",
+            "--members",
+            "2",
+            "--steps",
+            "5",
+            "--dt",
+            "0.1",
+            "--out",
+            "{T}/s.csv",
+        ],
+        {1},
+    ),
+    _case(
+        "simulate-explode",
+        [
+            "simulate",
+            "{H}/explode.json",
+            "--members",
+            "3",
+            "--steps",
+            "5",
+            "--dt",
+            "0.1",
+            "--out",
+            "{T}/s.csv",
+        ],
+        {1},
+    ),
+    _case(
+        "simulate-explode-long-spinup",
+        [
+            "simulate",
+            "{H}/explode.json",
+            "--members",
+            "3",
+            "--steps",
+            "5",
+            "--dt",
+            "0.1",
+            "--spinup",
+            "1e9",
+        ],
+        {1},
+    ),
+    _case(
+        "simulate-stiff4-time-limit",
+        [
+            "simulate",
+            "{H}/stiff4.json",
+            "--members",
+            "64",
+            "--steps",
+            "5",
+            "--dt",
+            "0.1",
+            "--spinup",
+            "1e5",
+            "--time-limit",
+            "0.3",
+        ],
+        {1},
+    ),
+    _case(
+        "simulate-settles",
+        [
+            "simulate",
+            "{H}/settle.json",
+            "--members",
+            "3",
+            "--steps",
+            "20",
+            "--dt",
+            "0.1",
+            "--out",
+            "{T}/s.csv",
+        ],
+        {1},
+    ),
     _case("simulate-still", [*SIM[:1], "{H}/still.json", *SIM[2:]], ANY),
     _case("simulate-power32", [*SIM[:1], "{H}/power32.json", *SIM[2:]], ANY),
     _case("simulate-range-inf", [*SIM[:1], "{H}/range_inf.json", *SIM[2:]], ANY),
@@ -334,14 +515,44 @@ CASES += [
     _case("simulate-bom", [*SIM[:1], "{H}/bom.json", *SIM[2:]], {0}),
     _case("simulate-huge-name", [*SIM[:1], "{H}/huge_name.json", *SIM[2:]], ANY),
     _case("simulate-unicode-names", [*SIM[:1], "{H}/unicode_names.json", *SIM[2:]], ANY),
-    _case("simulate-dt-neg-recorded", ["simulate", "{H}/dt_neg.json", "--members", "2",
-                                       "--steps", "5"]),
-    _case("simulate-dt-str-recorded", ["simulate", "{H}/dt_nan_str.json", "--members", "2",
-                                       "--steps", "5"]),
-    _case("simulate-noisy", ["simulate", "{H}/noisy.json", "--members", "2", "--steps", "5",
-                             "--dt", "0.1", "--seed", "1"], {0}),
-    _case("validate-stiff", ["validate", "{H}/stiff.json", "{H}/data.csv", "--members", "4",
-                             "--quiet", "--json", "{T}/card.json"], {1}),
+    _case(
+        "simulate-dt-neg-recorded",
+        ["simulate", "{H}/dt_neg.json", "--members", "2", "--steps", "5"],
+    ),
+    _case(
+        "simulate-dt-str-recorded",
+        ["simulate", "{H}/dt_nan_str.json", "--members", "2", "--steps", "5"],
+    ),
+    _case(
+        "simulate-noisy",
+        [
+            "simulate",
+            "{H}/noisy.json",
+            "--members",
+            "2",
+            "--steps",
+            "5",
+            "--dt",
+            "0.1",
+            "--seed",
+            "1",
+        ],
+        {0},
+    ),
+    _case(
+        "validate-stiff",
+        [
+            "validate",
+            "{H}/stiff.json",
+            "{H}/data.csv",
+            "--members",
+            "4",
+            "--quiet",
+            "--json",
+            "{T}/card.json",
+        ],
+        {1},
+    ),
     # numbers on the command line
     _case("members-zero", [*SIM[:2], "--members", "0", "--steps", "5", "--dt", "0.1"]),
     _case("members-negative", [*SIM[:2], "--members", "-1", "--steps", "5", "--dt", "0.1"]),
@@ -350,8 +561,7 @@ CASES += [
     _case("members-nan", [*SIM[:2], "--members", "nan", "--steps", "5", "--dt", "0.1"]),
     _case("members-empty", [*SIM[:2], "--members", "", "--steps", "5", "--dt", "0.1"]),
     _case("members-unicode", [*SIM[:2], "--members", "٣", "--steps", "5", "--dt", "0.1"], ANY),
-    _case("members-billion", [*SIM[:2], "--members", "1000000000", "--steps", "10", "--dt",
-                              "0.1"]),
+    _case("members-billion", [*SIM[:2], "--members", "1000000000", "--steps", "10", "--dt", "0.1"]),
     _case("members-huge-int", [*SIM[:2], "--members", "9" * 5001, "--steps", "5", "--dt", "0.1"]),
     _case("members-1e30", [*SIM[:2], "--members", str(10**30), "--steps", "5", "--dt", "0.1"]),
     _case("members-one-steps-one", [*SIM[:2], "--members", "1", "--steps", "1", "--dt", "0.1"]),
@@ -450,12 +660,21 @@ CASES += [
     _case("data-npz-objects", ["validate", "{H}/ok.json", "{H}/objects.npz"]),
     _case("data-npz-no-values", ["validate", "{H}/ok.json", "{H}/novalues.npz"]),
     _case("data-npz-nan", ["validate", "{H}/ok.json", "{H}/nanvalues.npz"]),
-    _case("data-npz-over-size-limit", ["validate", "{H}/ok.json", "{H}/data.npz"],
-          env={"ERGODEX_MAX_FILE_SIZE": "100"}),
-    _case("data-csv-over-size-limit", ["validate", "{H}/ok.json", "{H}/data.csv"],
-          env={"ERGODEX_MAX_FILE_SIZE": "1K"}),
-    _case("data-size-env-garbage", ["validate", "{H}/ok.json", "{H}/data.csv"],
-          env={"ERGODEX_MAX_FILE_SIZE": "-1"}),
+    _case(
+        "data-npz-over-size-limit",
+        ["validate", "{H}/ok.json", "{H}/data.npz"],
+        env={"ERGODEX_MAX_FILE_SIZE": "100"},
+    ),
+    _case(
+        "data-csv-over-size-limit",
+        ["validate", "{H}/ok.json", "{H}/data.csv"],
+        env={"ERGODEX_MAX_FILE_SIZE": "1K"},
+    ),
+    _case(
+        "data-size-env-garbage",
+        ["validate", "{H}/ok.json", "{H}/data.csv"],
+        env={"ERGODEX_MAX_FILE_SIZE": "-1"},
+    ),
     _case("data-nc-garbage", ["validate", "{H}/ok.json", "{H}/garbage.nc"]),
     _case("data-folder-no-manifest", ["validate", "{H}/ok.json", "{H}/noman"]),
     _case("data-manifest-deep", ["validate", "{H}/ok.json", "{H}/deepman"]),
@@ -466,8 +685,20 @@ CASES += [
     _case("simulate-initial-dev-zero", [*SIM, "--initial", "{H}/zero.csv"]),
     _case("simulate-initial-fifo", [*SIM, "--initial", "{H}/fifo.csv"]),
     _case("simulate-initial-latin1", [*SIM, "--initial", "{H}/latin1.csv"]),
-    _case("simulate-initial-too-few", [*SIM[:2], "--members", "100000", "--steps", "2",
-                                       "--dt", "0.1", "--initial", "{H}/onerow.csv"]),
+    _case(
+        "simulate-initial-too-few",
+        [
+            *SIM[:2],
+            "--members",
+            "100000",
+            "--steps",
+            "2",
+            "--dt",
+            "0.1",
+            "--initial",
+            "{H}/onerow.csv",
+        ],
+    ),
     # validate settings
     _case("validate-members-zero", [*VAL[:3], "--members", "0"]),
     _case("validate-members-billion", [*VAL[:3], "--members", "1000000000"]),
@@ -507,76 +738,150 @@ CASES += [
     _case("regimes-missing", [*VAL, "--regimes", "{H}/nope.toml"]),
     _case("regimes-folder", [*VAL, "--regimes", "{H}/noman"]),
     # fit settings files
-    _case("fit-config-latin1", ["fit", "{H}/data.csv", "--config", "{H}/cfg_latin1.toml",
-                                "--out", "{T}/m.json"]),
-    _case("fit-config-deep", ["fit", "{H}/data.csv", "--config", "{H}/cfg_deep.toml",
-                              "--out", "{T}/m.json"]),
-    _case("fit-config-bad", ["fit", "{H}/data.csv", "--config", "{H}/cfg_bad.toml",
-                             "--out", "{T}/m.json"]),
-    _case("fit-config-unknown", ["fit", "{H}/data.csv", "--config", "{H}/cfg_unknown.toml",
-                                 "--out", "{T}/m.json"]),
-    _case("fit-config-nan", ["fit", "{H}/data.csv", "--config", "{H}/cfg_nan.toml",
-                             "--out", "{T}/m.json"]),
-    _case("fit-config-degree-99", ["fit", "{H}/data.csv", "--config", "{H}/cfg_degree.toml",
-                                   "--out", "{T}/m.json"]),
-    _case("fit-config-binary", ["fit", "{H}/data.csv", "--config", "{H}/cfg_binary.toml",
-                                "--out", "{T}/m.json"]),
-    _case("fit-config-dev-zero", ["fit", "{H}/data.csv", "--config", "{H}/zero.toml",
-                                  "--out", "{T}/m.json"]),
-    _case("fit-config-fifo", ["fit", "{H}/data.csv", "--config", "{H}/fifo.toml",
-                              "--out", "{T}/m.json"]),
+    _case(
+        "fit-config-latin1",
+        ["fit", "{H}/data.csv", "--config", "{H}/cfg_latin1.toml", "--out", "{T}/m.json"],
+    ),
+    _case(
+        "fit-config-deep",
+        ["fit", "{H}/data.csv", "--config", "{H}/cfg_deep.toml", "--out", "{T}/m.json"],
+    ),
+    _case(
+        "fit-config-bad",
+        ["fit", "{H}/data.csv", "--config", "{H}/cfg_bad.toml", "--out", "{T}/m.json"],
+    ),
+    _case(
+        "fit-config-unknown",
+        ["fit", "{H}/data.csv", "--config", "{H}/cfg_unknown.toml", "--out", "{T}/m.json"],
+    ),
+    _case(
+        "fit-config-nan",
+        ["fit", "{H}/data.csv", "--config", "{H}/cfg_nan.toml", "--out", "{T}/m.json"],
+    ),
+    _case(
+        "fit-config-degree-99",
+        ["fit", "{H}/data.csv", "--config", "{H}/cfg_degree.toml", "--out", "{T}/m.json"],
+    ),
+    _case(
+        "fit-config-binary",
+        ["fit", "{H}/data.csv", "--config", "{H}/cfg_binary.toml", "--out", "{T}/m.json"],
+    ),
+    _case(
+        "fit-config-dev-zero",
+        ["fit", "{H}/data.csv", "--config", "{H}/zero.toml", "--out", "{T}/m.json"],
+    ),
+    _case(
+        "fit-config-fifo",
+        ["fit", "{H}/data.csv", "--config", "{H}/fifo.toml", "--out", "{T}/m.json"],
+    ),
     _case("fit-data-dev-zero", ["fit", "{H}/zero.csv", "--out", "{T}/m.json"]),
     _case("fit-out-proc", ["fit", "{H}/data.csv", "--out", "/proc/m.json"]),
     # registry commands
-    _case("register-scorecard-deep", ["register", "{H}/ok.json", "--name", "m", "--scorecard",
-                                      "{H}/card_deep.json", "--home", "{T}/home"]),
-    _case("register-scorecard-bigint", ["register", "{H}/ok.json", "--name", "m",
-                                        "--scorecard", "{H}/card_bigint.json", "--home",
-                                        "{T}/home"]),
-    _case("register-scorecard-dev-zero", ["register", "{H}/ok.json", "--name", "m",
-                                          "--scorecard", "{H}/zero.json", "--home", "{T}/home"]),
-    _case("register-fit-settings-fifo", ["register", "{H}/ok.json", "--name", "m",
-                                         "--fit-settings", "{H}/fifo.toml", "--home",
-                                         "{T}/home"]),
-    _case("register-name-traversal", ["register", "{H}/ok.json", "--name", "../../etc",
-                                      "--home", "{T}/home"]),
-    _case("register-name-empty", ["register", "{H}/ok.json", "--name", "", "--home",
-                                  "{T}/home"]),
-    _case("register-name-unicode", ["register", "{H}/ok.json", "--name", "ψ☃", "--home",
-                                    "{T}/home"]),
+    _case(
+        "register-scorecard-deep",
+        [
+            "register",
+            "{H}/ok.json",
+            "--name",
+            "m",
+            "--scorecard",
+            "{H}/card_deep.json",
+            "--home",
+            "{T}/home",
+        ],
+    ),
+    _case(
+        "register-scorecard-bigint",
+        [
+            "register",
+            "{H}/ok.json",
+            "--name",
+            "m",
+            "--scorecard",
+            "{H}/card_bigint.json",
+            "--home",
+            "{T}/home",
+        ],
+    ),
+    _case(
+        "register-scorecard-dev-zero",
+        [
+            "register",
+            "{H}/ok.json",
+            "--name",
+            "m",
+            "--scorecard",
+            "{H}/zero.json",
+            "--home",
+            "{T}/home",
+        ],
+    ),
+    _case(
+        "register-fit-settings-fifo",
+        [
+            "register",
+            "{H}/ok.json",
+            "--name",
+            "m",
+            "--fit-settings",
+            "{H}/fifo.toml",
+            "--home",
+            "{T}/home",
+        ],
+    ),
+    _case(
+        "register-name-traversal",
+        ["register", "{H}/ok.json", "--name", "../../etc", "--home", "{T}/home"],
+    ),
+    _case("register-name-empty", ["register", "{H}/ok.json", "--name", "", "--home", "{T}/home"]),
+    _case(
+        "register-name-unicode", ["register", "{H}/ok.json", "--name", "ψ☃", "--home", "{T}/home"]
+    ),
     _case("models-show-missing-home", ["models", "show", "m@1", "--home", "{T}/home"], {2}),
     _case("models-show-bad-ref", ["models", "show", "m@-1", "--home", "{T}/home"], {2}),
-    _case("models-show-huge-version", ["models", "show", "m@" + "9" * 5001, "--home",
-                                       "{T}/home"], {2}),
-    _case("models-show-superscript-version", ["models", "show", "m@²", "--home", "{T}/home"],
-          {2}),
+    _case(
+        "models-show-huge-version", ["models", "show", "m@" + "9" * 5001, "--home", "{T}/home"], {2}
+    ),
+    _case("models-show-superscript-version", ["models", "show", "m@²", "--home", "{T}/home"], {2}),
     _case("import-wrong-format", ["models", "import", "{H}/export_zero", "--home", "{T}/home"]),
     _case("import-dev-zero", ["models", "import", "{H}/export_devzero", "--home", "{T}/home"]),
     _case("import-deep-manifest", ["models", "import", "{H}/export_deep", "--home", "{T}/home"]),
-    _case("import-traversal", ["models", "import", "{H}/export_traversal", "--home",
-                               "{T}/home"]),
+    _case("import-traversal", ["models", "import", "{H}/export_traversal", "--home", "{T}/home"]),
     _case("import-not-a-folder", ["models", "import", "{H}/data.csv", "--home", "{T}/home"]),
     # a first retrain fits, checks and registers: real work, any verdict
-    _case("retrain-no-registry", ["retrain", "m", "{H}/data.csv", "--home", "{T}/home"], ANY,
-          slow=True),
+    _case(
+        "retrain-no-registry",
+        ["retrain", "m", "{H}/data.csv", "--home", "{T}/home"],
+        ANY,
+        slow=True,
+    ),
     _case("retrain-data-dev-zero", ["retrain", "m", "{H}/zero.csv", "--home", "{T}/home"]),
-    _case("retrain-config-deep", ["retrain", "m", "{H}/data.csv", "--config",
-                                  "{H}/cfg_deep.toml", "--home", "{T}/home"]),
-    _case("retrain-config-latin1", ["retrain", "m", "{H}/data.csv", "--config",
-                                    "{H}/cfg_latin1.toml", "--home", "{T}/home"]),
-    _case("retrain-seed-negative", ["retrain", "m", "{H}/data.csv", "--seed", "-5", "--home",
-                                    "{T}/home"]),
+    _case(
+        "retrain-config-deep",
+        ["retrain", "m", "{H}/data.csv", "--config", "{H}/cfg_deep.toml", "--home", "{T}/home"],
+    ),
+    _case(
+        "retrain-config-latin1",
+        ["retrain", "m", "{H}/data.csv", "--config", "{H}/cfg_latin1.toml", "--home", "{T}/home"],
+    ),
+    _case(
+        "retrain-seed-negative",
+        ["retrain", "m", "{H}/data.csv", "--seed", "-5", "--home", "{T}/home"],
+    ),
     _case("retrain-name-traversal", ["retrain", "../x", "{H}/data.csv", "--home", "{T}/home"]),
-    _case("retrain-json-proc", ["retrain", "m", "{H}/data.csv", "--json", "/proc/r.json",
-                                "--home", "{T}/home"]),
+    _case(
+        "retrain-json-proc",
+        ["retrain", "m", "{H}/data.csv", "--json", "/proc/r.json", "--home", "{T}/home"],
+    ),
     _case("report-out-proc", ["report", "m@1", "--home", "{T}/home", "--out", "/proc/r.html"]),
     _case("report-bad-ref", ["report", "m@zero", "--home", "{T}/home"]),
     _case("models-accept-missing", ["models", "accept", "m@1", "--home", "{T}/home"]),
     _case("models-list-missing-home", ["models", "list", "--home", "{T}/home"], ANY),
     _case("demo-bad-scenario", ["demo", "--scenario", "volcano"]),
     _case("demo-seed-negative", ["demo", "--seed", "-5"]),
-    _case("report-missing", ["report", "nothing@1", "--home", "{T}/home", "--out",
-                             "{T}/r.html"], {2}),
+    _case(
+        "report-missing", ["report", "nothing@1", "--home", "{T}/home", "--out", "{T}/r.html"], {2}
+    ),
 ]
 
 
@@ -639,8 +944,9 @@ def test_hostile_command_line(argv, codes, env, hostile, isolated, capsys, monke
 
 @pytest.mark.timeout(60)
 def test_too_stiff_model_fails_with_the_floor_in_the_message(hostile, isolated, capsys):
-    code, _out, err = run_cli(_expand(SIM[:1] + ["{H}/stiff.json"] + SIM[2:], hostile, isolated),
-                              capsys)
+    code, _out, err = run_cli(
+        _expand(SIM[:1] + ["{H}/stiff.json"] + SIM[2:], hostile, isolated), capsys
+    )
     # lambda = -1e9 with RK4 needs h <= 0.25 * 2.785 / 1e9 ~ 7e-10, below 0.1 / 1e6 = 1e-7
     # (RK4 stability boundary 2.785: Hairer & Wanner, Solving ODEs II, sec. IV.2, from memory)
     assert code == 1
@@ -652,9 +958,27 @@ def test_time_limit_stops_a_long_run(hostile, isolated, capsys):
     import time
 
     start = time.monotonic()
-    code, _out, err = run_cli(_expand(["simulate", "{H}/stiff4.json", "--members", "64",
-                                       "--steps", "5", "--dt", "0.1", "--spinup", "1e5",
-                                       "--time-limit", "0.5"], hostile, isolated), capsys)
+    code, _out, err = run_cli(
+        _expand(
+            [
+                "simulate",
+                "{H}/stiff4.json",
+                "--members",
+                "64",
+                "--steps",
+                "5",
+                "--dt",
+                "0.1",
+                "--spinup",
+                "1e5",
+                "--time-limit",
+                "0.5",
+            ],
+            hostile,
+            isolated,
+        ),
+        capsys,
+    )
     assert code == 1 and "time limit of 0.5 s reached during the spin-up" in err
     # the budget is checked between compiled calls of about 2**22 member-substeps each
     assert time.monotonic() - start < 20.0
@@ -664,17 +988,49 @@ def test_time_limit_stops_a_long_run(hostile, isolated, capsys):
 def test_all_members_blown_up_stops_the_spinup(hostile, isolated, capsys):
     # 1e9 time units of spin-up at ~7e-4 per substep would be 1.4e12 substeps; the run must stop
     # once every member has left the bound instead (the members blow up within a few time units)
-    code, _out, err = run_cli(_expand(["simulate", "{H}/explode.json", "--members", "3",
-                                       "--steps", "5", "--dt", "0.1", "--spinup", "1e9"],
-                                      hostile, isolated), capsys)
+    code, _out, err = run_cli(
+        _expand(
+            [
+                "simulate",
+                "{H}/explode.json",
+                "--members",
+                "3",
+                "--steps",
+                "5",
+                "--dt",
+                "0.1",
+                "--spinup",
+                "1e9",
+            ],
+            hostile,
+            isolated,
+        ),
+        capsys,
+    )
     assert code == 1 and "3 of 3 members blew up" in err
 
 
 @pytest.mark.timeout(60)
 def test_settled_simulation_is_a_model_failure_not_bad_input(hostile, isolated, capsys):
-    code, _out, err = run_cli(_expand(["simulate", "{H}/settle.json", "--members", "3",
-                                       "--steps", "20", "--dt", "0.1", "--out", "{T}/s.csv"],
-                                      hostile, isolated), capsys)
+    code, _out, err = run_cli(
+        _expand(
+            [
+                "simulate",
+                "{H}/settle.json",
+                "--members",
+                "3",
+                "--steps",
+                "20",
+                "--dt",
+                "0.1",
+                "--out",
+                "{T}/s.csv",
+            ],
+            hostile,
+            isolated,
+        ),
+        capsys,
+    )
     assert code == 1 and "settled on a fixed point" in err
     assert _files_under(isolated) == []
 
@@ -682,8 +1038,22 @@ def test_settled_simulation_is_a_model_failure_not_bad_input(hostile, isolated, 
 @pytest.mark.timeout(120)
 def test_validate_of_a_model_settled_exactly_is_a_failure_not_bad_input(hostile, isolated, capsys):
     # issue 14: the undefined autocorrelation of a constant output made this exit 2
-    code, _out, err = run_cli(_expand(["validate", "{H}/zeroes.json", "{H}/data.csv", "--members",
-                                      "2", "--json", "{T}/card.json"], hostile, isolated), capsys)
+    code, _out, err = run_cli(
+        _expand(
+            [
+                "validate",
+                "{H}/zeroes.json",
+                "{H}/data.csv",
+                "--members",
+                "2",
+                "--json",
+                "{T}/card.json",
+            ],
+            hostile,
+            isolated,
+        ),
+        capsys,
+    )
     assert code == 1, err
     card = json.loads((isolated / "card.json").read_text())
     assert card["verdict"] == "fail"
@@ -692,9 +1062,24 @@ def test_validate_of_a_model_settled_exactly_is_a_failure_not_bad_input(hostile,
 
 @pytest.mark.timeout(60)
 def test_memory_refusal_says_estimate_limit_and_remedies(hostile, isolated, capsys):
-    code, _out, err = run_cli(_expand([*SIM[:2], "--members", "1000000000", "--steps", "10",
-                                       "--dt", "0.1", "--max-memory", "1G"], hostile, isolated),
-                              capsys)
+    code, _out, err = run_cli(
+        _expand(
+            [
+                *SIM[:2],
+                "--members",
+                "1000000000",
+                "--steps",
+                "10",
+                "--dt",
+                "0.1",
+                "--max-memory",
+                "1G",
+            ],
+            hostile,
+            isolated,
+        ),
+        capsys,
+    )
     assert code == 2
     assert "over the limit of 1 GiB" in err and "--members" in err and "--max-memory" in err
 
@@ -718,8 +1103,9 @@ def test_full_disk_is_one_line_and_leaves_no_file(hostile, isolated, capsys, mon
 
 
 @pytest.mark.timeout(60)
-def test_unexpected_error_is_one_line_and_debug_shows_the_traceback(hostile, isolated, capsys,
-                                                                    monkeypatch):
+def test_unexpected_error_is_one_line_and_debug_shows_the_traceback(
+    hostile, isolated, capsys, monkeypatch
+):
     from ergodex.cli import simulate
 
     def broken(*_args, **_kw):
@@ -757,8 +1143,12 @@ _OPTIONS = st.fixed_dictionaries(
 
 
 @pytest.mark.timeout(120)
-@settings(max_examples=60, deadline=None, derandomize=True,
-          suppress_health_check=[HealthCheck.function_scoped_fixture])
+@settings(
+    max_examples=60,
+    deadline=None,
+    derandomize=True,
+    suppress_health_check=[HealthCheck.function_scoped_fixture],
+)
 @given(options=_OPTIONS)
 def test_hypothesis_simulate_options(options, hostile, isolated, capsys):
     argv = ["simulate", str(hostile / "ok.json"), "--out", str(isolated / "o.csv")]
@@ -774,22 +1164,52 @@ def test_hypothesis_simulate_options(options, hostile, isolated, capsys):
 
 
 _JSON = st.recursive(
-    st.one_of(st.none(), st.booleans(), st.integers(min_value=-(10**40), max_value=10**40),
-              st.floats(allow_nan=False, allow_infinity=False), st.text(max_size=6)),
-    lambda children: st.one_of(st.lists(children, max_size=4),
-                               st.dictionaries(st.text(max_size=6), children, max_size=4)),
+    st.one_of(
+        st.none(),
+        st.booleans(),
+        st.integers(min_value=-(10**40), max_value=10**40),
+        st.floats(allow_nan=False, allow_infinity=False),
+        st.text(max_size=6),
+    ),
+    lambda children: st.one_of(
+        st.lists(children, max_size=4), st.dictionaries(st.text(max_size=6), children, max_size=4)
+    ),
     max_leaves=12,
 )
 
 
 @pytest.mark.timeout(120)
-@settings(max_examples=60, deadline=None, derandomize=True,
-          suppress_health_check=[HealthCheck.function_scoped_fixture])
-@given(path=st.lists(st.sampled_from(["format", "kind", "variables", "terms", "coefficients",
-                                      "noise", "transform", "settings", "provenance", 0, 1,
-                                      "powers", "frequency", "variable"]),
-                     min_size=1, max_size=3),
-       value=_JSON)
+@settings(
+    max_examples=60,
+    deadline=None,
+    derandomize=True,
+    suppress_health_check=[HealthCheck.function_scoped_fixture],
+)
+@given(
+    path=st.lists(
+        st.sampled_from(
+            [
+                "format",
+                "kind",
+                "variables",
+                "terms",
+                "coefficients",
+                "noise",
+                "transform",
+                "settings",
+                "provenance",
+                0,
+                1,
+                "powers",
+                "frequency",
+                "variable",
+            ]
+        ),
+        min_size=1,
+        max_size=3,
+    ),
+    value=_JSON,
+)
 def test_hypothesis_model_files(path, value, hostile, isolated, capsys):
     d = json.loads((hostile / "ok.json").read_text())
     target = d
@@ -804,21 +1224,54 @@ def test_hypothesis_model_files(path, value, hostile, isolated, capsys):
         d[str(path[-1])] = value
     model = isolated / "m.json"
     model.write_text(json.dumps(d))
-    code, _out, err = run_cli(["simulate", str(model), "--members", "2", "--steps", "4",
-                               "--dt", "0.1", "--spinup", "1", "--time-limit", "2",
-                               "--max-memory", "64M"], capsys)
+    code, _out, err = run_cli(
+        [
+            "simulate",
+            str(model),
+            "--members",
+            "2",
+            "--steps",
+            "4",
+            "--dt",
+            "0.1",
+            "--spinup",
+            "1",
+            "--time-limit",
+            "2",
+            "--max-memory",
+            "64M",
+        ],
+        capsys,
+    )
     assert_contract(code, err, [])
     model.unlink()
 
 
 @pytest.mark.timeout(120)
-@settings(max_examples=40, deadline=None, derandomize=True,
-          suppress_health_check=[HealthCheck.function_scoped_fixture])
-@given(text=st.text(alphabet=st.sampled_from(list("x12,.-e\n\r\"nait ψ\x00")), max_size=200))
+@settings(
+    max_examples=40,
+    deadline=None,
+    derandomize=True,
+    suppress_health_check=[HealthCheck.function_scoped_fixture],
+)
+@given(text=st.text(alphabet=st.sampled_from(list('x12,.-e\n\r"nait ψ\x00')), max_size=200))
 def test_hypothesis_csv_text(text, hostile, isolated, capsys):
     data = isolated / "d.csv"
     data.write_text(text, encoding="utf-8")
-    code, _out, err = run_cli(["validate", str(hostile / "ok.json"), str(data), "--dt", "0.1",
-                               "--quiet", "--time-limit", "2", "--max-memory", "64M"], capsys)
+    code, _out, err = run_cli(
+        [
+            "validate",
+            str(hostile / "ok.json"),
+            str(data),
+            "--dt",
+            "0.1",
+            "--quiet",
+            "--time-limit",
+            "2",
+            "--max-memory",
+            "64M",
+        ],
+        capsys,
+    )
     data.unlink()
     assert_contract(code, err, _files_under(isolated))

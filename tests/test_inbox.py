@@ -20,7 +20,6 @@ import time
 from pathlib import Path
 
 import pytest
-from retrain_support import write_csv
 
 import ergodex
 from ergodex.cli import main
@@ -41,6 +40,7 @@ from ergodex.inbox import (
 from ergodex.readers import read_series
 from ergodex.registry import Registry
 from ergodex.validation import CheckSpec
+from retrain_support import write_csv
 
 NAME = "loop-inbox"
 TINY = CheckSpec(members=4)
@@ -69,8 +69,15 @@ def _csv_texts(tmp_path: Path, n_files: int) -> list[str]:
 def test_temporary_and_hidden_names_are_not_datasets():
     for name in ("data.csv", "run 3.npz", "x.nc"):
         assert is_candidate_name(name)
-    for name in (".data.csv", "data.csv.part", "data.csv.tmp", "data.csv~", "~$data.csv",
-                 "data.CSV.PART", LEDGER_NAME):
+    for name in (
+        ".data.csv",
+        "data.csv.part",
+        "data.csv.tmp",
+        "data.csv~",
+        "~$data.csv",
+        "data.CSV.PART",
+        LEDGER_NAME,
+    ):
         assert not is_candidate_name(name)
 
 
@@ -171,8 +178,10 @@ def test_an_older_ledger_gains_the_new_columns_and_keeps_its_rows(tmp_path):
             " TEXT, exit_code INTEGER, error TEXT, moved_to TEXT, owner TEXT, first_seen TEXT NOT"
             " NULL, updated TEXT NOT NULL, PRIMARY KEY (file_name, size, sha256))"
         )
-        conn.execute("INSERT INTO inbox_files VALUES ('a.csv', 3, 'abc', 'm', 'done', 1, 'kept',"
-                     " 0, NULL, 'done/a.csv', 'h:1', 't', 't')")
+        conn.execute(
+            "INSERT INTO inbox_files VALUES ('a.csv', 3, 'abc', 'm', 'done', 1, 'kept',"
+            " 0, NULL, 'done/a.csv', 'h:1', 't', 't')"
+        )
     conn.close()
     with Ledger(path) as ledger:
         (row,) = ledger.rows()
@@ -204,8 +213,7 @@ def test_a_file_interrupted_too_often_is_moved_aside_without_a_retrain(tmp_path)
         for _ in range(MAX_ATTEMPTS):
             ledger.claim("stuck.csv", path.stat().st_size, file_sha256(path), NAME)
     registry = Registry(tmp_path / "home")
-    items = watch(inbox, NAME, registry=registry, once=True, poll_interval=0.05,
-                  settle=0.05)
+    items = watch(inbox, NAME, registry=registry, once=True, poll_interval=0.05, settle=0.05)
     assert [(i.file_name, i.state) for i in items] == [("stuck.csv", "rejected")]
     assert "interrupted" in items[0].error and items[0].reason == "interrupted"
     assert (inbox / REJECTED_FOLDER / "stuck.csv").exists()
@@ -229,16 +237,16 @@ def test_a_file_claimed_by_another_live_watcher_is_left_to_it(tmp_path):
         with sqlite3.connect(inbox / LEDGER_NAME) as conn:  # the claim now belongs to `other`
             conn.execute("UPDATE inbox_files SET owner=?", (f"{socket.gethostname()}:{other.pid}",))
         registry = Registry(tmp_path / "home")
-        assert watch(inbox, NAME, registry=registry, once=True, poll_interval=0.05,
-                     settle=0.05) == []
+        assert (
+            watch(inbox, NAME, registry=registry, once=True, poll_interval=0.05, settle=0.05) == []
+        )
         assert path.exists()
     finally:
         other.kill()
         other.wait()
     # Its owner is gone: the claim is stale, the file gets its second attempt (and, unreadable,
     # is moved aside with its error).
-    items = watch(inbox, NAME, registry=registry, once=True, poll_interval=0.05,
-                  settle=0.05)
+    items = watch(inbox, NAME, registry=registry, once=True, poll_interval=0.05, settle=0.05)
     assert [(i.file_name, i.state) for i in items] == [("busy.csv", "rejected")]
     assert "broken" in items[0].error
     assert read_ledger(inbox)[0]["attempts"] == 2
@@ -258,9 +266,19 @@ def test_twenty_files_dropped_quickly_are_each_retrained_once(tmp_path):
 
     def run_watcher():
         try:
-            handled.extend(watch(inbox, NAME, registry=registry, spec=TINY, report=False,
-                                 poll_interval=0.05, settle=0.1, max_files=21,
-                                 stop_event=stop))
+            handled.extend(
+                watch(
+                    inbox,
+                    NAME,
+                    registry=registry,
+                    spec=TINY,
+                    report=False,
+                    poll_interval=0.05,
+                    settle=0.1,
+                    max_files=21,
+                    stop_event=stop,
+                )
+            )
         except BaseException as exc:  # surfaced in the main thread below
             errors.append(exc)
 
@@ -303,8 +321,16 @@ def test_twenty_files_dropped_quickly_are_each_retrained_once(tmp_path):
     # retrained; a new file is.
     shutil.copy(done / good[0], inbox / good[0])
     _drop(inbox, "batch-20.csv", texts[20])
-    again = watch(inbox, NAME, registry=registry, spec=TINY, report=False, once=True,
-                  poll_interval=0.05, settle=0.1)
+    again = watch(
+        inbox,
+        NAME,
+        registry=registry,
+        spec=TINY,
+        report=False,
+        once=True,
+        poll_interval=0.05,
+        settle=0.1,
+    )
     by_name = {i.file_name: i for i in again}
     assert set(by_name) == {good[0], "batch-20.csv"}
     assert by_name[good[0]].skipped and by_name[good[0]].state == "done"
@@ -317,9 +343,24 @@ def test_watch_command_says_what_it_watches_and_handles_a_bad_file(tmp_path, cap
     inbox = tmp_path / "inbox"
     inbox.mkdir()
     _drop(inbox, "garbage.npz", "this is not an npz archive")
-    code = main(["watch", str(inbox), "--name", NAME, "--once", "--interval", "0.05",
-                 "--settle", "0.1", "--home", str(tmp_path / "home"), "--no-report",
-                 "--log-level", "INFO"])
+    code = main(
+        [
+            "watch",
+            str(inbox),
+            "--name",
+            NAME,
+            "--once",
+            "--interval",
+            "0.05",
+            "--settle",
+            "0.1",
+            "--home",
+            str(tmp_path / "home"),
+            "--no-report",
+            "--log-level",
+            "INFO",
+        ]
+    )
     assert code == 0
     start, line, *rest = capsys.readouterr().out.splitlines()
     assert rest == []
@@ -333,8 +374,17 @@ def test_watch_command_says_what_it_watches_and_handles_a_bad_file(tmp_path, cap
 
 
 def test_watch_command_bad_folder_is_bad_input(tmp_path, capsys):
-    code = main(["watch", str(tmp_path / "missing"), "--name", NAME, "--once",
-                 "--home", str(tmp_path / "home")])
+    code = main(
+        [
+            "watch",
+            str(tmp_path / "missing"),
+            "--name",
+            NAME,
+            "--once",
+            "--home",
+            str(tmp_path / "home"),
+        ]
+    )
     assert code == 2
     assert "does not exist" in capsys.readouterr().err
 
@@ -348,8 +398,18 @@ def _watch_in_thread(inbox: Path, registry: Registry, *, timeout: float = 240.0,
 
     def run():
         try:
-            handled.extend(watch(inbox, NAME, registry=registry, spec=TINY, report=False,
-                                 poll_interval=0.02, stop_event=stop, **kw))
+            handled.extend(
+                watch(
+                    inbox,
+                    NAME,
+                    registry=registry,
+                    spec=TINY,
+                    report=False,
+                    poll_interval=0.02,
+                    stop_event=stop,
+                    **kw,
+                )
+            )
         except BaseException as exc:  # surfaced in the test thread below
             errors.append(exc)
 
@@ -398,8 +458,9 @@ def test_a_file_replaced_while_the_previous_one_is_retrained_is_retrained_too(tm
             busy.set()  # the first retrain is under way: let the writer replace the file now
             assert replaced.wait(60)
 
-    thread, stop, handled, errors = _watch_in_thread(inbox, registry, settle=0.2, max_files=2,
-                                                     progress=progress)
+    thread, stop, handled, errors = _watch_in_thread(
+        inbox, registry, settle=0.2, max_files=2, progress=progress
+    )
     try:
         assert _started(busy, handled), f"the first retrain never started: {handled}"
         _drop(inbox, "feed.csv", second)  # write-then-rename, as documented, mid-retrain
@@ -409,7 +470,9 @@ def test_a_file_replaced_while_the_previous_one_is_retrained_is_retrained_too(tm
         replaced.set()
         stop.set()
     assert [(i.file_name, i.state, i.skipped) for i in handled] == [
-        ("feed.csv", "done", False), ("feed.csv", "done", False)]
+        ("feed.csv", "done", False),
+        ("feed.csv", "done", False),
+    ]
     assert [i.sha256 for i in handled] == [_sha(first), _sha(second)]
     assert len(registry.versions(NAME)) == 2  # both contents retrained
     done = inbox / DONE_FOLDER
@@ -418,7 +481,9 @@ def test_a_file_replaced_while_the_previous_one_is_retrained_is_retrained_too(tm
     rows = {r["sha256"]: r for r in read_ledger(inbox)}
     assert set(rows) == {_sha(first), _sha(second)}
     assert [rows[_sha(t)]["size"] for t in (first, second)] == [
-        len(first.encode()), len(second.encode())]
+        len(first.encode()),
+        len(second.encode()),
+    ]
     assert {r["state"] for r in rows.values()} == {"done"}
 
 
@@ -461,7 +526,9 @@ def test_a_settings_rejection_is_retried_once_the_settings_are_fixed(tmp_path):
     # A watcher configured to hold out 5 runs of files that have 4: a mistake of the watcher.
     items = watch(inbox, NAME, registry=registry, holdout=5, **quick)
     assert {i.file_name: (i.state, i.reason) for i in items} == {
-        "a.csv": ("rejected", "settings"), "broken.csv": ("rejected", "data")}
+        "a.csv": ("rejected", "settings"),
+        "broken.csv": ("rejected", "data"),
+    }
     assert registry.list_models() == []
     # Restarted with the same mistake: nothing is tried again.
     assert watch(inbox, NAME, registry=registry, holdout=5, **quick) == []
@@ -470,7 +537,8 @@ def test_a_settings_rejection_is_retried_once_the_settings_are_fixed(tmp_path):
     # The setting fixed: a.csv comes back from rejected/ and is retrained; the bad data stay.
     items = watch(inbox, NAME, registry=registry, **quick)
     assert [(i.file_name, i.state, i.outcome is not None) for i in items] == [
-        ("a.csv", "done", True)]
+        ("a.csv", "done", True)
+    ]
     assert (inbox / DONE_FOLDER / "a.csv").read_text() == good
     assert not (rejected / "a.csv").exists() and not (rejected / "a.csv.error.txt").exists()
     assert (rejected / "broken.csv").exists() and (rejected / "broken.csv.error.txt").exists()
@@ -485,11 +553,15 @@ def test_a_settings_rejection_is_retried_once_the_settings_are_fixed(tmp_path):
     # Asked explicitly, the bad-data file is tried again (and, the same bytes, fails the same).
     items = watch(inbox, NAME, registry=registry, retry_rejected=True, **quick)
     assert [(i.file_name, i.state, i.reason, i.skipped) for i in items] == [
-        ("broken.csv", "rejected", "data", False)]
+        ("broken.csv", "rejected", "data", False)
+    ]
     assert "not-a-number" in (rejected / "broken.csv.error.txt").read_text()
     states = sorted((r["file_name"], r["state"], r["reason"]) for r in read_ledger(inbox))
-    assert states == [("a.csv", "done", None), ("broken.csv", "done", None),
-                      ("broken.csv", "rejected", "data")]
+    assert states == [
+        ("a.csv", "done", None),
+        ("broken.csv", "done", None),
+        ("broken.csv", "rejected", "data"),
+    ]
 
 
 def test_a_file_removed_mid_retrain_does_not_stop_the_queue(tmp_path):
@@ -509,8 +581,9 @@ def test_a_file_removed_mid_retrain_does_not_stop_the_queue(tmp_path):
             for path in removed:
                 path.unlink()
 
-    thread, stop, handled, errors = _watch_in_thread(inbox, registry, settle=0.1, max_files=2,
-                                                     progress=progress)
+    thread, stop, handled, errors = _watch_in_thread(
+        inbox, registry, settle=0.1, max_files=2, progress=progress
+    )
     try:
         _finish(thread, stop, errors)
     finally:
@@ -523,7 +596,9 @@ def test_a_file_removed_mid_retrain_does_not_stop_the_queue(tmp_path):
     assert (second.file_name, second.state) == ("b.csv", "done")
     assert (inbox / DONE_FOLDER / "b.csv").read_text() == texts[1]
     assert sorted((r["file_name"], r["state"]) for r in read_ledger(inbox)) == [
-        ("a.csv", "done"), ("b.csv", "done")]
+        ("a.csv", "done"),
+        ("b.csv", "done"),
+    ]
 
 
 def test_a_watcher_killed_mid_retrain_is_recovered_at_the_next_start(tmp_path):
@@ -544,8 +619,14 @@ def test_a_watcher_killed_mid_retrain_is_recovered_at_the_next_start(tmp_path):
         " report=False, poll_interval=0.02, settle=0.1, max_files=1, progress=progress)\n"
     )
     env = dict(os.environ, PYTHONPATH=str(Path(ergodex.__file__).parents[1]))
-    killed = subprocess.run([sys.executable, "-c", script, str(inbox), NAME, str(home)],
-                            env=env, timeout=180, capture_output=True, text=True, check=False)
+    killed = subprocess.run(
+        [sys.executable, "-c", script, str(inbox), NAME, str(home)],
+        env=env,
+        timeout=180,
+        capture_output=True,
+        text=True,
+        check=False,
+    )
     assert killed.returncode == -9, killed.stderr
     (row,) = read_ledger(inbox)
     assert (row["state"], row["attempts"]) == ("processing", 1)
@@ -558,10 +639,20 @@ def test_a_watcher_killed_mid_retrain_is_recovered_at_the_next_start(tmp_path):
     (take / "late.csv").write_text("time,flow\n0.0,1.0\n0.02,not-a-number\n")
 
     registry = Registry(home)
-    items = watch(inbox, NAME, registry=registry, spec=TINY, report=False, once=True,
-                  poll_interval=0.05, settle=0.1)
+    items = watch(
+        inbox,
+        NAME,
+        registry=registry,
+        spec=TINY,
+        report=False,
+        once=True,
+        poll_interval=0.05,
+        settle=0.1,
+    )
     assert [(i.file_name, i.state, i.reason) for i in items] == [
-        ("feed.csv", "done", None), ("late.csv", "rejected", "data")]
+        ("feed.csv", "done", None),
+        ("late.csv", "rejected", "data"),
+    ]
     rows = {r["file_name"]: r for r in read_ledger(inbox)}
     assert (rows["feed.csv"]["state"], rows["feed.csv"]["attempts"]) == ("done", 2)
     assert (inbox / DONE_FOLDER / "feed.csv").read_text() == text
@@ -588,8 +679,9 @@ def test_a_file_its_writer_goes_on_writing_after_the_claim_is_retrained_whole(tm
     with open(inbox / "stalls.csv", "wb") as writer:
         writer.write(full[:cut])
         writer.flush()
-        thread, stop, handled, errors = _watch_in_thread(inbox, registry, settle=0.2,
-                                                         max_files=2, progress=progress)
+        thread, stop, handled, errors = _watch_in_thread(
+            inbox, registry, settle=0.2, max_files=2, progress=progress
+        )
         try:
             assert _started(busy, handled), f"the first retrain never started: {handled}"
             writer.write(full[cut:])
@@ -609,7 +701,10 @@ def test_a_file_its_writer_goes_on_writing_after_the_claim_is_retrained_whole(tm
     # The first decision's record keeps its name; the whole file is filed beside it.
     done = inbox / DONE_FOLDER
     assert sorted(p.name for p in done.iterdir()) == [
-        "stalls.2.csv", "stalls.2.csv.decision.json", "stalls.csv.decision.json"]
+        "stalls.2.csv",
+        "stalls.2.csv.decision.json",
+        "stalls.csv.decision.json",
+    ]
     assert (done / "stalls.2.csv").read_bytes() == full
     sizes = sorted(r["size"] for r in read_ledger(inbox))
     assert sizes == [cut, len(full)]
@@ -621,11 +716,27 @@ def test_the_watch_command_says_what_it_watches_before_any_file_arrives(tmp_path
     inbox = tmp_path / "inbox"
     inbox.mkdir()
     env = dict(os.environ, PYTHONPATH=str(Path(ergodex.__file__).parents[1]))
-    command = [sys.executable, "-c", "import sys; from ergodex.cli import main; sys.exit(main())",
-               "watch", str(inbox), "--name", NAME, "--settle", "0.2", "--interval", "0.05",
-               "--max-files", "1", "--home", str(tmp_path / "home"), "--no-report"]
-    proc = subprocess.Popen(command, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
-                            text=True)
+    command = [
+        sys.executable,
+        "-c",
+        "import sys; from ergodex.cli import main; sys.exit(main())",
+        "watch",
+        str(inbox),
+        "--name",
+        NAME,
+        "--settle",
+        "0.2",
+        "--interval",
+        "0.05",
+        "--max-files",
+        "1",
+        "--home",
+        str(tmp_path / "home"),
+        "--no-report",
+    ]
+    proc = subprocess.Popen(
+        command, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True
+    )
     try:
         with selectors.DefaultSelector() as selector:  # the line must come while it waits
             selector.register(proc.stdout, selectors.EVENT_READ)
@@ -662,9 +773,16 @@ def test_two_watcher_processes_on_one_folder_retrain_each_file_once(tmp_path):
         "print(' '.join(f'{i.file_name}:{i.state}' for i in items))\n"
     )
     env = dict(os.environ, PYTHONPATH=str(Path(ergodex.__file__).parents[1]))
-    procs = [subprocess.Popen([sys.executable, "-c", script, str(inbox), NAME, str(home)],
-                              env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-             for _ in range(2)]
+    procs = [
+        subprocess.Popen(
+            [sys.executable, "-c", script, str(inbox), NAME, str(home)],
+            env=env,
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
+        for _ in range(2)
+    ]
     handled = []
     try:
         for proc in procs:
@@ -683,7 +801,8 @@ def test_two_watcher_processes_on_one_folder_retrain_each_file_once(tmp_path):
     assert len(Registry(home).versions(NAME)) == len(done) > 0  # one challenger per retrain
     rows = read_ledger(inbox)
     assert sorted((r["file_name"], r["state"], r["attempts"]) for r in rows) == sorted(
-        (name, state, 1) for name, state in handled)
+        (name, state, 1) for name, state in handled
+    )
     assert sorted(p.name for p in (inbox / DONE_FOLDER).glob("*.csv")) == done
     assert list((inbox / CLAIMED_FOLDER).iterdir()) == []
 
@@ -710,14 +829,28 @@ def test_a_watcher_stopped_with_ctrl_c_mid_retrain_runs_the_file_again_uncounted
         "    sys.exit(130)\n"
     )
     env = dict(os.environ, PYTHONPATH=str(Path(ergodex.__file__).parents[1]))
-    stopped = subprocess.run([sys.executable, "-c", script, str(inbox), NAME, str(home)],
-                             env=env, timeout=180, capture_output=True, text=True, check=False)
+    stopped = subprocess.run(
+        [sys.executable, "-c", script, str(inbox), NAME, str(home)],
+        env=env,
+        timeout=180,
+        capture_output=True,
+        text=True,
+        check=False,
+    )
     assert stopped.returncode == 130, stopped.stderr
     (row,) = read_ledger(inbox)
     assert (row["state"], row["attempts"], row["owner"]) == ("processing", 0, None)
     assert Path(row["claimed_path"]).read_text() == text
-    items = watch(inbox, NAME, registry=Registry(home), spec=TINY, report=False, once=True,
-                  poll_interval=0.05, settle=0.1)
+    items = watch(
+        inbox,
+        NAME,
+        registry=Registry(home),
+        spec=TINY,
+        report=False,
+        once=True,
+        poll_interval=0.05,
+        settle=0.1,
+    )
     assert [(i.file_name, i.state) for i in items] == [("feed.csv", "done")]
     (row,) = read_ledger(inbox)
     assert (row["state"], row["attempts"]) == ("done", 1)

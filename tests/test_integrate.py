@@ -14,7 +14,13 @@ from ergodex.integrate import (
     integrate_ensemble,
     stability_limit,
 )
-from ergodex.scenarios import lorenz63_rhs, lorenz63_surrogate, lorenz96_rhs, lorenz96_surrogate, ou_surrogate
+from ergodex.scenarios import (
+    lorenz63_rhs,
+    lorenz63_surrogate,
+    lorenz96_rhs,
+    lorenz96_surrogate,
+    ou_surrogate,
+)
 from ergodex.surrogate import Surrogate, Term, polynomial_terms
 
 
@@ -24,7 +30,9 @@ def lorenz63(extra_z2: float = 0.0) -> Surrogate:
     if not extra_z2:
         return truth
     terms = truth.terms + (Term("monomial", (0, 0, 2)),)
-    return Surrogate(truth.variables, terms, np.hstack([truth.coefficients, [[0.0], [0.0], [extra_z2]]]))
+    return Surrogate(
+        truth.variables, terms, np.hstack([truth.coefficients, [[0.0], [0.0], [extra_z2]]])
+    )
 
 
 def lorenz63_ode(_t, y):
@@ -43,7 +51,9 @@ def lorenz96() -> Surrogate:
 
 def attractor_states(m: int, rng: np.random.Generator) -> np.ndarray:
     x0 = rng.normal(size=(m, 3)) * 3.0 + [0.0, 0.0, 25.0]
-    return integrate_ensemble(lorenz63(), x0, dt_out=1.0, n_out=1, spinup=5.0, substep=0.01).last_finite
+    return integrate_ensemble(
+        lorenz63(), x0, dt_out=1.0, n_out=1, spinup=5.0, substep=0.01
+    ).last_finite
 
 
 @pytest.mark.parametrize("engine", ["numba", "numpy"])
@@ -54,7 +64,9 @@ def test_rk4_converges_at_fourth_order(engine):
     errors = []
     steps = (0.0025, 0.00125, 0.000625)
     for h in steps:
-        res = integrate_ensemble(lorenz63(), x0[None, :], dt_out=1.0, n_out=2, substep=h, engine=engine)
+        res = integrate_ensemble(
+            lorenz63(), x0[None, :], dt_out=1.0, n_out=2, substep=h, engine=engine
+        )
         assert res.substep == h and res.status == "ok"
         errors.append(np.max(np.abs(res.states[0, -1] - ref)))
     ratios = np.array(errors[:-1]) / np.array(errors[1:])
@@ -80,8 +92,16 @@ def test_ou_process_reaches_the_lyapunov_covariance(method):
     # Methods, sec. 4.4.6), solved by scipy.
     expected = solve_continuous_lyapunov(drift, -q)
     members = 3000
-    res = integrate_ensemble(ou, np.zeros((members, 2)), dt_out=6.0, n_out=3, spinup=12.0,
-                             substep=0.004, method=method, seed=rng)
+    res = integrate_ensemble(
+        ou,
+        np.zeros((members, 2)),
+        dt_out=6.0,
+        n_out=3,
+        spinup=12.0,
+        substep=0.004,
+        method=method,
+        seed=rng,
+    )
     assert res.status == "ok" and res.seed is not None
     # The drift's eigenvalues have real part -0.75, so outputs 6 time units apart are
     # correlated by e^-4.5 ~ 1 % and the transient from the start is gone (e^-9).
@@ -110,9 +130,13 @@ def test_surrogate_with_an_added_z2_term_blows_up_every_member():
     for m in range(24):
         valid = res.valid(m)
         assert np.all(np.isfinite(res.states[m, valid]))
-        assert np.all(np.isnan(res.states[m, valid.stop:]))
+        assert np.all(np.isnan(res.states[m, valid.stop :]))
         # The output just before the blow-up is at most one output interval earlier.
-        assert res.times[valid.stop - 1] < res.blowup_time[m] <= res.times[valid.stop - 1] + 0.01 + 1e-12
+        assert (
+            res.times[valid.stop - 1]
+            < res.blowup_time[m]
+            <= res.times[valid.stop - 1] + 0.01 + 1e-12
+        )
     summary = res.summary()
     assert summary["blown_up"] == 24 and len(summary["blowup_times"]) == 24
 
@@ -124,7 +148,9 @@ def test_blowup_time_matches_the_analytic_finite_time_singularity(engine):
     z0 = np.array([[-1.0], [0.5], [1.0], [2.0]])
     model = Surrogate(("z",), (Term("monomial", (2,)),), [[1.0]])
     h = 1e-3
-    res = integrate_ensemble(model, z0, dt_out=0.01, n_out=300, substep=h, bound=[[-1e3, 1e3]], engine=engine)
+    res = integrate_ensemble(
+        model, z0, dt_out=0.01, n_out=300, substep=h, bound=[[-1e3, 1e3]], engine=engine
+    )
     assert res.status == "blowup" and list(res.blown_up) == [False, True, True, True]
     expected = 1.0 / z0[1:, 0] - 1.0 / 1e3
     # Detected at the first substep whose state leaves the bound: within one or two substeps.
@@ -143,7 +169,7 @@ def test_blowup_time_matches_the_analytic_finite_time_singularity(engine):
         valid = res.valid(m)
         calm = np.abs(exact[m, valid]) < 30.0
         np.testing.assert_allclose(res.states[m, valid, 0][calm], exact[m, valid][calm], rtol=1e-6)
-        assert np.all(np.isnan(res.states[m, valid.stop:]))
+        assert np.all(np.isnan(res.states[m, valid.stop :]))
     # Without a bound the member is stopped only when the state overflows.
     free = integrate_ensemble(model, z0[3:], dt_out=0.01, n_out=300, substep=h, engine=engine)
     assert free.blown_up[0] and free.blowup_time[0] >= res.blowup_time[3] - 1e-12
@@ -163,7 +189,10 @@ def test_compiled_rhs_equals_numpy_rhs_to_round_off():
     # Only the active terms are in the table: 1 constant + 40 linear + 80 quadratic of 861.
     assert len(tables["active"]) == 121 and len(tables["coef_value"]) == 160
 
-    terms = polynomial_terms(3, 3) + (Term("sin", variable=1, frequency=2.0), Term("cos", variable=2, frequency=0.5))
+    terms = polynomial_terms(3, 3) + (
+        Term("sin", variable=1, frequency=2.0),
+        Term("cos", variable=2, frequency=0.5),
+    )
     coef = rng.normal(size=(3, len(terms))) * (rng.random((3, len(terms))) < 0.5)
     mixed = Surrogate(("a", "b", "c"), terms, coef)
     t = mixed.term_tables()
@@ -179,7 +208,10 @@ def test_every_pass_shape_and_long_equations_follow_solve_ivp():
     # at rtol 1e-12; RK4 at h = 1e-3 over half a time unit of these mild dynamics is accurate to
     # well below 1e-8 (fourth order, see test_rk4_converges_at_fourth_order).
     kernels = pytest.importorskip("ergodex.kernels")
-    terms = polynomial_terms(5, 3) + (Term("sin", variable=1, frequency=2.0), Term("cos", variable=2, frequency=0.5))
+    terms = polynomial_terms(5, 3) + (
+        Term("sin", variable=1, frequency=2.0),
+        Term("cos", variable=2, frequency=0.5),
+    )
     col = {t.powers: k for k, t in enumerate(terms[:-2])}
     coef = np.zeros((5, len(terms)))
     # equation: (powers of a..e, coefficient) for each term
@@ -187,9 +219,22 @@ def test_every_pass_shape_and_long_equations_follow_solve_ivp():
         0: [((1, 0, 0, 0, 0), -1.0), ((0, 1, 0, 0, 0), 0.5)],
         1: [((0, 1, 0, 0, 0), -1.0), ((1, 0, 1, 0, 0), 0.3)],
         2: [((0, 0, 1, 0, 0), -1.0), ((0, 0, 0, 1, 0), 0.2), ((1, 1, 0, 0, 0), 0.4)],
-        3: [((0, 0, 0, 1, 0), -1.0), ((1, 0, 0, 0, 0), 0.1), ((0, 1, 1, 0, 0), 0.3), ((1, 0, 0, 1, 0), -0.2)],
-        4: [((0, 0, 0, 0, 0), 0.05), ((0, 0, 0, 0, 1), -1.0), ((1, 0, 0, 0, 0), 0.2), ((0, 1, 0, 0, 0), -0.1),
-            ((3, 0, 0, 0, 0), 0.1), ((0, 2, 0, 0, 0), -0.2), ((0, 0, 1, 1, 0), 0.1), ((1, 0, 0, 0, 1), 0.15)],
+        3: [
+            ((0, 0, 0, 1, 0), -1.0),
+            ((1, 0, 0, 0, 0), 0.1),
+            ((0, 1, 1, 0, 0), 0.3),
+            ((1, 0, 0, 1, 0), -0.2),
+        ],
+        4: [
+            ((0, 0, 0, 0, 0), 0.05),
+            ((0, 0, 0, 0, 1), -1.0),
+            ((1, 0, 0, 0, 0), 0.2),
+            ((0, 1, 0, 0, 0), -0.1),
+            ((3, 0, 0, 0, 0), 0.1),
+            ((0, 2, 0, 0, 0), -0.2),
+            ((0, 0, 1, 1, 0), 0.1),
+            ((1, 0, 0, 0, 1), 0.15),
+        ],
     }
     for eq, entries in table.items():
         for powers, value in entries:
@@ -206,8 +251,15 @@ def test_every_pass_shape_and_long_equations_follow_solve_ivp():
     res = integrate_ensemble(model, x0, dt_out=0.005, n_out=100, substep=1e-3, engine="numba")
     assert res.status == "ok"
     for m in range(7):
-        ref = solve_ivp(lambda _t, y: model.rhs(y[None, :])[0], (0.0, res.times[-1]), x0[m], method="DOP853",
-                        t_eval=res.times, rtol=1e-12, atol=1e-12)
+        ref = solve_ivp(
+            lambda _t, y: model.rhs(y[None, :])[0],
+            (0.0, res.times[-1]),
+            x0[m],
+            method="DOP853",
+            t_eval=res.times,
+            rtol=1e-12,
+            atol=1e-12,
+        )
         np.testing.assert_allclose(res.states[m], ref.y.T, rtol=0, atol=1e-8)
 
 
@@ -230,7 +282,9 @@ def test_engines_agree_and_seeds_reproduce():
     np.testing.assert_array_equal(c.states, e.states)
     assert np.max(np.abs(c.states[:, -1] - f.states[:, -1])) > 1e-3
     # A Generator as seed: the integer drawn from it is recorded and reproduces the run.
-    g = integrate_ensemble(noisy, x0, dt_out=0.05, n_out=5, substep=0.01, seed=np.random.default_rng(1))
+    g = integrate_ensemble(
+        noisy, x0, dt_out=0.05, n_out=5, substep=0.01, seed=np.random.default_rng(1)
+    )
     again = integrate_ensemble(noisy, x0, dt_out=0.05, n_out=5, substep=0.01, seed=g.seed)
     np.testing.assert_array_equal(g.states, again.states)
 
@@ -240,7 +294,9 @@ def test_spinup_keep_and_output_layout():
     x0 = attractor_states(5, rng)
     model = lorenz63()
     full = integrate_ensemble(model, x0, dt_out=0.02, n_out=101, substep=0.01)
-    part = integrate_ensemble(model, x0, dt_out=0.02, n_out=51, spinup=1.0, substep=0.01, keep=["dT_up", 0])
+    part = integrate_ensemble(
+        model, x0, dt_out=0.02, n_out=51, spinup=1.0, substep=0.01, keep=["dT_up", 0]
+    )
     assert part.states.shape == (5, 51, 2) and part.variables == ("dT_up", "flow")
     assert part.spinup == pytest.approx(1.0) and part.times[0] == 0.0
     np.testing.assert_allclose(part.times, np.arange(51) * 0.02)
@@ -258,26 +314,44 @@ def test_choose_substep_follows_the_rk4_stability_limit():
     boundary = float(min(r.real for r in roots if abs(r.imag) < 1e-9))
     assert stability_limit("rk4") == pytest.approx(-boundary, abs=2e-3)
     lam = 200.0
-    stiff = Surrogate(("u", "v"), polynomial_terms(2, 1, include_bias=False), [[-lam, 0.0], [0.0, -1.0]])
+    stiff = Surrogate(
+        ("u", "v"), polynomial_terms(2, 1, include_bias=False), [[-lam, 0.0], [0.0, -1.0]]
+    )
     h = choose_substep(stiff, np.ones((4, 2)), 0.1)
     assert h <= 0.25 * 2.785 / lam and 0.1 / h == pytest.approx(round(0.1 / h))
     ok = integrate_ensemble(stiff, np.ones((1, 2)), dt_out=0.1, n_out=20)
-    assert ok.status == "ok" and ok.substep == pytest.approx(h) and ok.spectral_radius == pytest.approx(lam)
+    assert (
+        ok.status == "ok"
+        and ok.substep == pytest.approx(h)
+        and ok.spectral_radius == pytest.approx(lam)
+    )
     assert "spectral radius 200" in ok.message
     # Just outside the region the same system diverges: a blow-up status, not an exception.
-    unstable = integrate_ensemble(stiff, np.ones((1, 2)), dt_out=0.1, n_out=200,
-                                  substep=1.05 * 2.785 / lam, bound=[[-10, 10], [-10, 10]])
+    unstable = integrate_ensemble(
+        stiff,
+        np.ones((1, 2)),
+        dt_out=0.1,
+        n_out=200,
+        substep=1.05 * 2.785 / lam,
+        bound=[[-10, 10], [-10, 10]],
+    )
     assert unstable.status == "all-blowup"
     # x' = -x^3 is calm at its start 0 (Jacobian -3 x^2 = 0) but stiff where the run may go:
     # |J| = 300 at x = 10. States given for the stiffness set the substep by the same bound.
     cubic = Surrogate(("x",), (Term("monomial", (3,)),), [[-1.0]])
     calm = integrate_ensemble(cubic, np.zeros((2, 1)), dt_out=0.1, n_out=3)
     assert calm.substep == pytest.approx(0.1)
-    wary = integrate_ensemble(cubic, np.zeros((2, 1)), dt_out=0.1, n_out=3, stiffness_states=[[10.0]])
+    wary = integrate_ensemble(
+        cubic, np.zeros((2, 1)), dt_out=0.1, n_out=3, stiffness_states=[[10.0]]
+    )
     assert wary.spectral_radius == pytest.approx(300.0)
-    assert wary.substep <= 0.25 * 2.785 / 300.0 and wary.substep == pytest.approx(choose_substep(cubic, [[10.0]], 0.1))
+    assert wary.substep <= 0.25 * 2.785 / 300.0 and wary.substep == pytest.approx(
+        choose_substep(cubic, [[10.0]], 0.1)
+    )
     with pytest.raises(SettingsError, match="stiffness_states"):
-        integrate_ensemble(cubic, np.zeros((2, 1)), dt_out=0.1, n_out=3, stiffness_states=[[1.0, 2.0]])
+        integrate_ensemble(
+            cubic, np.zeros((2, 1)), dt_out=0.1, n_out=3, stiffness_states=[[1.0, 2.0]]
+        )
 
 
 def test_blowup_bound_widens_the_reference_range():

@@ -14,8 +14,13 @@ def test_numpy_values_become_plain_python_and_strict_json_accepts_them():
     rng = np.random.default_rng(1)
     a = rng.normal(size=(2, 3))
     value = {
-        "f": np.float64(1.5), "i": np.int64(7), "b": np.bool_(True), "s": np.str_("x"),
-        "arr": a, "zero_d": np.array(2.5), "nested": ({"t": (1, np.float32(0.25))},),
+        "f": np.float64(1.5),
+        "i": np.int64(7),
+        "b": np.bool_(True),
+        "s": np.str_("x"),
+        "arr": a,
+        "zero_d": np.array(2.5),
+        "nested": ({"t": (1, np.float32(0.25))},),
         3: "int key",
     }
     out = jsonable(value)

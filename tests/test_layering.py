@@ -23,8 +23,9 @@ def test_no_library_module_imports_the_command_line():
     library = [p for p in root.rglob("*.py") if "cli" not in p.relative_to(root).parts]
     assert any(p.name == "simulation.py" for p in library)
     upward = {
-        str(p.relative_to(root)): sorted(m for m in _imported_modules(p)
-                                         if m == "ergodex.cli" or m.startswith("ergodex.cli."))
+        str(p.relative_to(root)): sorted(
+            m for m in _imported_modules(p) if m == "ergodex.cli" or m.startswith("ergodex.cli.")
+        )
         for p in library
     }
     assert {k: v for k, v in upward.items() if v} == {}

@@ -45,8 +45,11 @@ def test_memory_limit_reads_option_then_environment(monkeypatch):
 
 
 def test_memory_refusal_names_estimate_limit_and_remedies():
-    with pytest.raises(SettingsError, match=r"needs about 2 GiB.*limit of 1 GiB.*fewer members"
-                                            r".*--max-memory.*ERGODEX_MAX_MEMORY"):
+    with pytest.raises(
+        SettingsError,
+        match=r"needs about 2 GiB.*limit of 1 GiB.*fewer members"
+        r".*--max-memory.*ERGODEX_MAX_MEMORY",
+    ):
         check_memory(2 * 1024**3, "a run", "use fewer members", "1G")
     check_memory(1024**3, "a run", "use fewer members", "1G")  # at the limit: allowed
 
@@ -84,15 +87,18 @@ def test_nesting_is_bounded_without_recursion():
     assert nesting_depth(7) == 0
     ok = "[" * MAX_NESTING + "]" * MAX_NESTING
     assert nesting_depth(load_json_text(ok, "x")) == MAX_NESTING
-    for text in ("[" * (MAX_NESTING + 1) + "]" * (MAX_NESTING + 1),
-                 "[" * 100_000 + "]" * 100_000):
+    for text in ("[" * (MAX_NESTING + 1) + "]" * (MAX_NESTING + 1), "[" * 100_000 + "]" * 100_000):
         with pytest.raises(ModelFileError, match="nested too deeply"):
             load_json_text(text, "m.json", error=ModelFileError)
 
 
 def test_json_refuses_nan_infinity_and_giant_integers():
-    for text, needle in (("[NaN]", "NaN"), ("[-Infinity]", "Infinity"),
-                         ("[" + "1" * 5001 + "]", "4300 digits"), ("[1,", "line 1")):
+    for text, needle in (
+        ("[NaN]", "NaN"),
+        ("[-Infinity]", "Infinity"),
+        ("[" + "1" * 5001 + "]", "4300 digits"),
+        ("[1,", "line 1"),
+    ):
         with pytest.raises(DataError, match=needle):
             load_json_text(text, "x.json")
 
@@ -149,15 +155,22 @@ def test_substep_floor_fails_a_too_stiff_model():
 
 def test_time_limit_stops_the_run():
     with pytest.raises(ModelLimitError, match="time limit of 0.2 s reached during the spin-up"):
-        integrate_ensemble(_linear(-1e4), np.ones((64, 2)), dt_out=0.1, n_out=3, spinup=1e5,
-                           time_limit=0.2)
+        integrate_ensemble(
+            _linear(-1e4), np.ones((64, 2)), dt_out=0.1, n_out=3, spinup=1e5, time_limit=0.2
+        )
 
 
 def test_run_stops_once_every_member_blew_up_in_the_spinup():
     # dx/dt = 1000 x leaves the bound [-10, 10] from x = 1 at t = ln(10) / 1000 ~ 2.3e-3 (analytic);
     # the spin-up of 1e9 time units would otherwise be ~1.4e12 substeps
-    run = integrate_ensemble(_linear(1e3), np.ones((3, 2)), dt_out=0.1, n_out=5, spinup=1e9,
-                             bound=[[-10.0, 10.0], [-10.0, 10.0]])
+    run = integrate_ensemble(
+        _linear(1e3),
+        np.ones((3, 2)),
+        dt_out=0.1,
+        n_out=5,
+        spinup=1e9,
+        bound=[[-10.0, 10.0], [-10.0, 10.0]],
+    )
     assert run.status == "all-blowup"
     elapsed = run.blowup_time + run.spinup  # time since the start of the spin-up
     assert np.all((elapsed > 0.0023) & (elapsed < 0.0023 + 2 * run.substep))
@@ -167,8 +180,7 @@ def test_run_stops_once_every_member_blew_up_in_the_spinup():
 def test_memory_is_refused_before_allocating():
     # 2 members x 1e9 outputs x 2 variables x 8 bytes = 32 GB per copy: far over 1 GiB
     with pytest.raises(SettingsError, match="2 members x 1000000000 outputs x 2 variables"):
-        integrate_ensemble(_linear(-1.0), np.ones((2, 2)), dt_out=0.1, n_out=10**9,
-                           max_memory="1G")
+        integrate_ensemble(_linear(-1.0), np.ones((2, 2)), dt_out=0.1, n_out=10**9, max_memory="1G")
 
 
 def test_chunking_does_not_change_a_deterministic_run(monkeypatch):

@@ -38,8 +38,9 @@ def test_lorenz63_spectrum_matches_published_values():
 def test_two_trajectory_agrees_with_published_value():
     rng = np.random.default_rng(21)
     sur = scenarios.lorenz63_surrogate()
-    res = lyapunov.largest_lyapunov(sur, _starts(rng, 30), method="two-trajectory", time=30.0,
-                                    transient=20.0, step=0.01)
+    res = lyapunov.largest_lyapunov(
+        sur, _starts(rng, 30), method="two-trajectory", time=30.0, transient=20.0, step=0.01
+    )
     # Sprott (2003) 0.9056; 30 trajectories × 30 time units: measured sd per trajectory ≈ 0.04,
     # standard error ≈ 0.008, so 0.03 is about three standard errors plus the finite-time bias
     assert res.exponents[0] == pytest.approx(SPROTT_LARGEST, abs=0.03)
@@ -52,8 +53,7 @@ def test_default_step_is_integrate_choice_and_keeps_published_value():
     sur = scenarios.lorenz63_surrogate()
     starts = _starts(rng, 30)
     res = lyapunov.lyapunov_spectrum(sur, starts, time=30.0, transient=20.0)
-    two = lyapunov.largest_lyapunov(sur, starts, method="two-trajectory", time=30.0,
-                                    transient=20.0)
+    two = lyapunov.largest_lyapunov(sur, starts, method="two-trajectory", time=30.0, transient=20.0)
     # RK4's stability boundary on the negative real axis is h|λ| ≈ 2.785 (Hairer & Wanner,
     # Solving ODEs II, sec. IV.2); a tenth of it at the fastest rate of the starting states
     rho = np.max(np.abs(np.linalg.eigvals(sur.jacobian(starts))))

@@ -20,12 +20,20 @@ def test_tour_notebook_executes_and_shows_tables_and_figures(tmp_path, monkeypat
     pytest.importorskip("xarray")
     # the kernel imports the same ergodex as the tests, and works in a scratch folder
     source_root = str(Path(ergodex.__file__).resolve().parents[1])
-    monkeypatch.setenv("PYTHONPATH", os.pathsep.join(
-        [source_root] + [p for p in os.environ.get("PYTHONPATH", "").split(os.pathsep) if p]))
+    monkeypatch.setenv(
+        "PYTHONPATH",
+        os.pathsep.join(
+            [source_root] + [p for p in os.environ.get("PYTHONPATH", "").split(os.pathsep) if p]
+        ),
+    )
     monkeypatch.setenv("MPLBACKEND", "module://matplotlib_inline.backend_inline")
     notebook = nbformat.read(NOTEBOOK, as_version=4)
-    client = nbclient.NotebookClient(notebook, timeout=300, kernel_name="python3",
-                                     resources={"metadata": {"path": str(tmp_path)}})
+    client = nbclient.NotebookClient(
+        notebook,
+        timeout=300,
+        kernel_name="python3",
+        resources={"metadata": {"path": str(tmp_path)}},
+    )
     client.execute()  # raises CellExecutionError on the first failing cell
 
     outputs = [out for cell in notebook.cells if cell.cell_type == "code" for out in cell.outputs]

@@ -14,9 +14,14 @@ matplotlib = pytest.importorskip("matplotlib")
 
 def _ou_model(damping: float = 1.0) -> Surrogate:
     A = np.array([[-damping, 0.5], [-0.5, -0.8]])
-    return Surrogate(("u", "v"), polynomial_terms(2, 1), np.column_stack([np.zeros(2), A]),
-                     kind="linear-stochastic", noise=0.4 * np.eye(2),
-                     provenance={"dt": 0.1, "model_range": {"u": [-2.0, 2.0], "v": [-2.0, 2.0]}})
+    return Surrogate(
+        ("u", "v"),
+        polynomial_terms(2, 1),
+        np.column_stack([np.zeros(2), A]),
+        kind="linear-stochastic",
+        noise=0.4 * np.eye(2),
+        provenance={"dt": 0.1, "model_range": {"u": [-2.0, 2.0], "v": [-2.0, 2.0]}},
+    )
 
 
 @pytest.fixture(scope="module")
@@ -30,10 +35,14 @@ def data():
 def regime_result(data):
     from ergodex.regimes import RegimeSet
 
-    regimes = RegimeSet.from_dict({"regime": [
-        {"name": "east", "kind": "ball", "centre": {"u": 0.4, "v": 0.0}, "radius": 0.3},
-        {"name": "west", "kind": "ball", "centre": {"u": -0.4, "v": 0.0}, "radius": 0.3},
-    ]})
+    regimes = RegimeSet.from_dict(
+        {
+            "regime": [
+                {"name": "east", "kind": "ball", "centre": {"u": 0.4, "v": 0.0}, "radius": 0.3},
+                {"name": "west", "kind": "ball", "centre": {"u": -0.4, "v": 0.0}, "radius": 0.3},
+            ]
+        }
+    )
     return check(_ou_model(), data, CheckSpec(members=8, seed=3, regimes=regimes))
 
 
@@ -78,8 +87,13 @@ def test_selection_plot_front_marks_the_chosen_candidate(data):
     from ergodex.fitting import select
 
     fit_part, reference = data.isel(member=[0, 1]), data.isel(member=[2, 3])
-    chosen = select(fit_part, [("linear-inverse", {}), ("linear-inverse", {"tau0": 0.3})],
-                    CheckSpec(members=8, seed=1), reference=reference, progress=False)
+    chosen = select(
+        fit_part,
+        [("linear-inverse", {}), ("linear-inverse", {"tau0": 0.3})],
+        CheckSpec(members=8, seed=1),
+        reference=reference,
+        progress=False,
+    )
     ax = Figure().subplots()
     assert chosen.plot_front(ax=ax) is ax
     points = [c for c in ax.collections if isinstance(c, PathCollection)]

@@ -26,8 +26,9 @@ DT = 0.05
 
 
 def _ou(seed: int, duration: float, n_runs: int = 4) -> Series:
-    return scenarios.ornstein_uhlenbeck(seed=seed, drift=DRIFT, noise=NOISE, n_runs=n_runs,
-                                        duration=duration, dt=DT)
+    return scenarios.ornstein_uhlenbeck(
+        seed=seed, drift=DRIFT, noise=NOISE, n_runs=n_runs, duration=duration, dt=DT
+    )
 
 
 def _log_variance_sd(group_time: float) -> float:
@@ -74,8 +75,10 @@ def test_long_ou_record_passes_the_truth_fails_a_doubled_time_scale_and_states_i
     assert sc.power["record_decorrelation_times"] == pytest.approx(2000.0, rel=0.25)
     wrong = validation.validate(slow, data, CheckSpec(seed=3))
     assert wrong.verdict == "fail"
-    assert {r.statistic for r in wrong.rows if r.verdict == "fail"} & {"autocorrelation",
-                                                                        "spectrum"}
+    assert {r.statistic for r in wrong.rows if r.verdict == "fail"} & {
+        "autocorrelation",
+        "spectrum",
+    }
 
 
 def test_rescaled_copies_are_exact():
@@ -88,7 +91,8 @@ def test_rescaled_copies_are_exact():
     mean = x.reshape(-1, 2).mean(axis=0)
     scaled = power.scale_pieces(x, 1.5, mean)
     assert np.var(scaled.reshape(-1, 2), axis=0) == pytest.approx(
-        1.5 * np.var(x.reshape(-1, 2), axis=0), rel=1e-12)
+        1.5 * np.var(x.reshape(-1, 2), axis=0), rel=1e-12
+    )
 
 
 def test_reference_runs_on_two_attractors_are_inconclusive():
@@ -98,8 +102,9 @@ def test_reference_runs_on_two_attractors_are_inconclusive():
     data = Series.from_arrays(runs, base.names, base.dt)
     # one piece per run (min_pieces 4): the pooled autocorrelation of such runs hardly decays,
     # so blocks separated by 5 decorrelation times would not fit in them
-    sc = validation.validate(scenarios.ou_surrogate(drift=DRIFT, noise=NOISE), data,
-                             CheckSpec(seed=3, min_pieces=4))
+    sc = validation.validate(
+        scenarios.ou_surrogate(drift=DRIFT, noise=NOISE), data, CheckSpec(seed=3, min_pieces=4)
+    )
     assert sc.verdict == "inconclusive"
     assert sc.reasons[0].startswith("inconclusive: the reference runs differ from each other")
     assert sc.power["reference_consistency"]["verdict"] == "fail"
@@ -110,8 +115,13 @@ def _row(ratio, verdict):
 
 
 def test_decide_orders_fail_inconclusive_and_pass():
-    common = {"blowup_fail": False, "blowup_reasons": [], "any_alive": True,
-              "agreement_verdict": "pass", "agreement_reasons": []}
+    common = {
+        "blowup_fail": False,
+        "blowup_reasons": [],
+        "any_alive": True,
+        "agreement_verdict": "pass",
+        "agreement_reasons": [],
+    }
     weak = ["inconclusive: short"]
     assert _decide([_row(1.0, "pass")], **common, weak_reasons=weak) == ("inconclusive", weak)
     # a failure a short record detects is still a failure
@@ -135,8 +145,17 @@ def short_files(tmp_path_factory):
 
 def test_cli_validate_exits_3_when_inconclusive(short_files, tmp_path, capsys):
     out = tmp_path / "card.json"
-    code = main(["validate", str(short_files / "true.json"), str(short_files / "data.csv"),
-                 "--seed", "3", "--json", str(out)])
+    code = main(
+        [
+            "validate",
+            str(short_files / "true.json"),
+            str(short_files / "data.csv"),
+            "--seed",
+            "3",
+            "--json",
+            str(out),
+        ]
+    )
     assert code == 3
     card = json.loads(out.read_text())
     assert card["verdict"] == "inconclusive" and card["power"]["sufficient"] is False
@@ -154,8 +173,10 @@ def test_registry_refuses_to_accept_an_inconclusive_scorecard(short_files, tmp_p
     info = reg.register("ou", model, scorecard=card)
     with pytest.raises(RegistryError, match="inconclusive"):
         reg.accept(info.ref)
-    assert reg.accept(info.ref, override=True, reason="short record, judged by hand").status \
+    assert (
+        reg.accept(info.ref, override=True, reason="short record, judged by hand").status
         == "accepted"
+    )
 
 
 def test_retrain_counts_an_inconclusive_challenger_as_not_passed():
@@ -169,8 +190,9 @@ def test_retrain_counts_an_inconclusive_challenger_as_not_passed():
 
 
 def test_fit_refuses_a_model_with_no_terms(tmp_path, capsys):
-    data = write_csv(tmp_path / "loop.csv", scenarios.convection_loop(seed=5, n_runs=1,
-                                                                      duration=20.0))
+    data = write_csv(
+        tmp_path / "loop.csv", scenarios.convection_loop(seed=5, n_runs=1, duration=20.0)
+    )
     config = tmp_path / "fit.toml"
     config.write_text('method = "sparse"\n[settings]\nthreshold = 1e9\n')
     out = tmp_path / "model.json"
@@ -184,8 +206,9 @@ def test_fit_refuses_a_model_with_no_terms(tmp_path, capsys):
 def test_fit_prints_a_failed_tau_test(tmp_path, capsys):
     # Lorenz-63 is nonlinear: the linear operator fitted at one lag does not hold at others
     # (the tau test of Penland & Sardeshmukh 1995 fails)
-    data = write_csv(tmp_path / "loop.csv", scenarios.convection_loop(seed=5, n_runs=1,
-                                                                      duration=40.0))
+    data = write_csv(
+        tmp_path / "loop.csv", scenarios.convection_loop(seed=5, n_runs=1, duration=40.0)
+    )
     out = tmp_path / "lim.json"
     code = main(["fit", str(data), "--method", "linear-inverse", "--out", str(out)])
     text = capsys.readouterr().out
@@ -197,8 +220,11 @@ def test_a_check_without_temporal_rows_makes_no_time_scale_claim():
     # histograms cannot see a change of time scale at all: the power is neither required nor
     # stated for it, and the reason names only the variance
     data = _ou(5, duration=10.0)
-    sc = validation.validate(scenarios.ou_surrogate(drift=DRIFT, noise=NOISE), data,
-                             CheckSpec(seed=3, statistics=("histogram",)))
+    sc = validation.validate(
+        scenarios.ou_surrogate(drift=DRIFT, noise=NOISE),
+        data,
+        CheckSpec(seed=3, statistics=("histogram",)),
+    )
     assert "time_scale" not in sc.power["detectable"]
     assert "time scale not scored" in sc.table()
     assert sc.verdict == "inconclusive" and "time scale" not in sc.reasons[0]

@@ -16,9 +16,14 @@ xr = pytest.importorskip("xarray")
 
 def _ou_model() -> Surrogate:
     A = np.array([[-1.0, 0.5], [-0.5, -0.8]])
-    return Surrogate(("u", "v"), polynomial_terms(2, 1), np.column_stack([np.zeros(2), A]),
-                     kind="linear-stochastic", noise=0.4 * np.eye(2),
-                     provenance={"dt": 0.1, "model_range": {"u": [-2.0, 2.0], "v": [-2.0, 2.0]}})
+    return Surrogate(
+        ("u", "v"),
+        polynomial_terms(2, 1),
+        np.column_stack([np.zeros(2), A]),
+        kind="linear-stochastic",
+        noise=0.4 * np.eye(2),
+        provenance={"dt": 0.1, "model_range": {"u": [-2.0, 2.0], "v": [-2.0, 2.0]}},
+    )
 
 
 @pytest.fixture(scope="module")
@@ -41,8 +46,12 @@ def test_check_and_validate_take_tables_with_progress_and_logs(model_and_data, r
     frame = ds.to_dataframe().reset_index()[["member", "time", "u", "v"]]
     calls = []
     with caplog.at_level("INFO", logger="ergodex.validation"):
-        card = validate(model, frame, CheckSpec(members=8, seed=2),
-                        progress=lambda done, total: calls.append((done, total)))
+        card = validate(
+            model,
+            frame,
+            CheckSpec(members=8, seed=2),
+            progress=lambda done, total: calls.append((done, total)),
+        )
     # the same data as a DataFrame, a Dataset or a Series give the same check
     assert card.data_fingerprint == result.scorecard.data_fingerprint
     assert [r.ratio for r in card.rows] == [r.ratio for r in result.scorecard.rows]
@@ -75,8 +84,10 @@ def test_surrogate_and_version_displays(tmp_path, result, model_and_data):
     assert "d u/dt = -u + 0.5 v" in page and "linear-stochastic" in page
     assert len(repr(model)) < 160
     info = register_checked(Registry(tmp_path / "home"), "ou", model, result, report=False)
-    assert repr(info) == (f"VersionInfo('ou@1', status={info.status!r}, "
-                          f"verdict={result.scorecard.verdict!r}, created={info.created!r})")
+    assert repr(info) == (
+        f"VersionInfo('ou@1', status={info.status!r}, "
+        f"verdict={result.scorecard.verdict!r}, created={info.created!r})"
+    )
     html = info._repr_html_()
     ET.fromstring(html)
     assert "ou@1" in html and "model.json" in html
@@ -121,9 +132,13 @@ def test_select_takes_a_dataset_and_counts_candidates(model_and_data):
     _, ds = model_and_data
     fit_part, reference = ds.isel(member=[0, 1]), ds.isel(member=[2, 3])
     calls = []
-    chosen = select(fit_part, [("linear-inverse", {}), ("linear-inverse", {"tau0": 0.2})],
-                    CheckSpec(members=8, seed=1), reference=reference,
-                    progress=lambda done, total: calls.append((done, total)))
+    chosen = select(
+        fit_part,
+        [("linear-inverse", {}), ("linear-inverse", {"tau0": 0.2})],
+        CheckSpec(members=8, seed=1),
+        reference=reference,
+        progress=lambda done, total: calls.append((done, total)),
+    )
     assert calls == [(1, 2), (2, 2)]
     assert len(chosen.candidates) == 2
     from ergodex.frames import as_series

@@ -27,7 +27,8 @@ def test_toml_round_trip_and_errors(tmp_path):
     path.write_text(
         '[[regime]]\nname = "fast"\nkind = "threshold"\n'
         'rules = [ { variable = "flow", above = 5.0 }, { variable = "dT_up", below = 30 } ]\n'
-        '[[regime]]\nname = "hot"\nkind = "ball"\nradius = 2.0\ncentre = { dT_up = 40.0 }\n')
+        '[[regime]]\nname = "hot"\nkind = "ball"\nradius = 2.0\ncentre = { dT_up = 40.0 }\n'
+    )
     rs = regimes.RegimeSet.from_toml(path)
     labels = rs.classify(np.array([[6.0, 0, 20], [6.0, 0, 41], [0.0, 0, 39], [0.0, 0, 0]]), VARS)
     np.testing.assert_array_equal(labels, [0, 1, 1, -1])
@@ -40,18 +41,20 @@ def test_toml_round_trip_and_errors(tmp_path):
     bad.write_text('[[regime]]\nname = "a"\nkind = "blob"\n')
     with pytest.raises(SettingsError, match="key 'kind'"):
         regimes.RegimeSet.from_toml(bad)
-    bad.write_text('[[regime]]\nname = "a"\nkind = "ball"\nradius = 1\ncentre = {flow=1}\ncolour = 2\n')
+    bad.write_text(
+        '[[regime]]\nname = "a"\nkind = "ball"\nradius = 1\ncentre = {flow=1}\ncolour = 2\n'
+    )
     with pytest.raises(SettingsError, match="colour"):
         regimes.RegimeSet.from_toml(bad)
-    bad.write_text('[[regime]\n')
+    bad.write_text("[[regime]\n")
     with pytest.raises(DataError, match="not valid TOML"):
         regimes.RegimeSet.from_toml(bad)
     with pytest.raises(DataError, match="not found"):
         regimes.RegimeSet.from_toml(tmp_path / "missing.toml")
     with pytest.raises(DataError, match="'pressure'"):
-        regimes.RegimeSet.from_dict({"regime": [{"name": "p", "kind": "ball", "radius": 1.0,
-                                                  "centre": {"pressure": 1.0}}]}).classify(
-            np.zeros((1, 3)), VARS)
+        regimes.RegimeSet.from_dict(
+            {"regime": [{"name": "p", "kind": "ball", "radius": 1.0, "centre": {"pressure": 1.0}}]}
+        ).classify(np.zeros((1, 3)), VARS)
 
 
 def test_kmeans_regimes_find_separated_groups():
@@ -59,8 +62,9 @@ def test_kmeans_regimes_find_separated_groups():
     centres = np.array([[-5.0, 0.0], [5.0, 0.0], [0.0, 8.0]])
     truth = rng.integers(0, 3, 900)
     x = centres[truth] + rng.normal(0, 0.5, (900, 2))
-    rs = regimes.RegimeSet.from_dict({"regime": [{"name": "g", "kind": "kmeans", "clusters": 3,
-                                                  "seed": 1}]})
+    rs = regimes.RegimeSet.from_dict(
+        {"regime": [{"name": "g", "kind": "kmeans", "clusters": 3, "seed": 1}]}
+    )
     assert rs.needs_fit
     fitted = rs.fit(x, ("a", "b"))
     assert fitted.names == ("g0", "g1", "g2")
@@ -98,12 +102,24 @@ def test_ball_occupancy_converges_from_different_starts():
     rs = regimes.RegimeSet.from_dict(scenarios.convection_loop_regimes())
     # six starts far apart: near each fixed point, far above, far below, at a random point
     plus, minus = scenarios.lorenz63_fixed_points()
-    starts = np.array([plus + 0.1, minus - 0.1, [0.1, 0.0, 60.0], [-20.0, 20.0, 0.0],
-                       [1.0, 1.0, 1.0], rng.normal(0, 10, 3)])
+    starts = np.array(
+        [
+            plus + 0.1,
+            minus - 0.1,
+            [0.1, 0.0, 60.0],
+            [-20.0, 20.0, 0.0],
+            [1.0, 1.0, 1.0],
+            rng.normal(0, 10, 3),
+        ]
+    )
     res = integrate_ensemble(sur, starts, dt_out=0.02, n_out=50_000, spinup=20.0, seed=0)
     assert res.n_blown_up == 0
-    occ = np.array([regimes.occupancy(rs.classify(res.states[m], VARS), rs.n_regimes)
-                    for m in range(len(starts))])
+    occ = np.array(
+        [
+            regimes.occupancy(rs.classify(res.states[m], VARS), rs.n_regimes)
+            for m in range(len(starts))
+        ]
+    )
     # per-start occupancy over 1000 time units; regime visits last ~0.5–1 time unit, so the
     # sampling sd of each fraction is about sqrt(p(1-p) · 2τ/T) ≈ 0.4 · sqrt(2/1000) ≈ 0.02;
     # every start must agree with the mean within 0.05 (2.5 sd)

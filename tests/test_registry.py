@@ -28,12 +28,23 @@ from ergodex.scenarios import lorenz63_surrogate
 from ergodex.surrogate import Surrogate
 
 
-def _card(surrogate: Surrogate | None = None, verdict: str = "pass", data_fp: str | None = None) -> dict:
+def _card(
+    surrogate: Surrogate | None = None, verdict: str = "pass", data_fp: str | None = None
+) -> dict:
     """A scorecard dict shaped as docs/formats.md describes (verdict, rows, fingerprints)."""
     return {
         "verdict": verdict,
-        "rows": [{"statistic": "wasserstein1", "variable": "flow", "value": 0.1,
-                  "noise_floor": 0.2, "ratio": 0.5, "tolerance": 2.0, "verdict": verdict}],
+        "rows": [
+            {
+                "statistic": "wasserstein1",
+                "variable": "flow",
+                "value": 0.1,
+                "noise_floor": 0.2,
+                "ratio": 0.5,
+                "tolerance": 2.0,
+                "verdict": verdict,
+            }
+        ],
         "data_fingerprint": "sha256:" + "ab" * 32 if data_fp is None else data_fp,
         "model_fingerprint": surrogate.fingerprint() if surrogate is not None else "",
     }
@@ -68,8 +79,14 @@ def test_register_load_round_trip_and_hashes(full_version):
     reg, info, truth = full_version
     assert (info.name, info.version, info.status) == ("convection-loop", 1, "candidate")
     assert info.folder == reg.home / "convection-loop" / "1"
-    assert set(info.artifacts) == {"model.json", "scorecard.json", "report.html",
-                                   "fit-settings.json", "evidence.npz", "record.json"}
+    assert set(info.artifacts) == {
+        "model.json",
+        "scorecard.json",
+        "report.html",
+        "fit-settings.json",
+        "evidence.npz",
+        "record.json",
+    }
     # Every recorded hash is the sha256 of the file on disk (hashlib, outside the registry code).
     for filename, digest in info.artifacts.items():
         assert hashlib.sha256((info.folder / filename).read_bytes()).hexdigest() == digest
@@ -98,7 +115,9 @@ def test_load_by_name_returns_the_one_accepted_version(tmp_path):
     truth = lorenz63_surrogate()
     other = lorenz63_surrogate(rho=24.0)
     reg.register("loop", truth, scorecard=_card(truth))
-    with pytest.raises(RegistryError, match=r"loop has no accepted version \(1 candidate\).*accept"):
+    with pytest.raises(
+        RegistryError, match=r"loop has no accepted version \(1 candidate\).*accept"
+    ):
         reg.load("loop")
     reg.register("loop", other, scorecard=_card(other))
     reg.register("loop", truth, scorecard=_card(truth))
@@ -109,7 +128,9 @@ def test_load_by_name_returns_the_one_accepted_version(tmp_path):
     assert reg.load("loop") == other
     assert reg.get("loop@1").status == "retired"
     reg.retire("loop@2", reason="drifted")
-    with pytest.raises(RegistryError, match=r"loop has no accepted version \(1 candidate, 2 retired\)"):
+    with pytest.raises(
+        RegistryError, match=r"loop has no accepted version \(1 candidate, 2 retired\)"
+    ):
         reg.load("loop")  # a retired version never comes back by itself
     with pytest.raises(RegistryError, match="no model named 'nothing'.*registered: loop"):
         reg.get("nothing")
@@ -126,7 +147,9 @@ def test_accepting_needs_a_passing_scorecard_on_recorded_data(tmp_path):
     with pytest.raises(RegistryError, match="was made for another model"):
         reg.register("loop", truth, scorecard=_card(lorenz63_surrogate(rho=20.0)))
     assert [i.version for i in reg.versions("loop")] == [1, 2, 3]  # nothing written
-    with pytest.raises(RegistryError, match="loop@1 cannot be accepted: its scorecard's verdict is 'fail'"):
+    with pytest.raises(
+        RegistryError, match="loop@1 cannot be accepted: its scorecard's verdict is 'fail'"
+    ):
         reg.accept("loop@1")
     with pytest.raises(RegistryError, match="loop@2 cannot be accepted: it has no scorecard"):
         reg.accept("loop@2")
@@ -171,21 +194,39 @@ def test_status_transitions_and_events(tmp_path, monkeypatch):
     reg.retire("loop@1", reason="replaced")
     history = reg.history("loop")
     assert [(e.version, e.event) for e in history] == [
-        (1, "registered"), (2, "registered"), (3, "registered"), (2, "rejected"),
-        (1, "accepted"), (1, "drift-detected"), (1, "retired")]
+        (1, "registered"),
+        (2, "registered"),
+        (3, "registered"),
+        (2, "rejected"),
+        (1, "accepted"),
+        (1, "drift-detected"),
+        (1, "retired"),
+    ]
     assert all(e.actor == "operator7" for e in history)
     assert [e.id for e in history] == sorted(e.id for e in history)
     assert history[-1].time.endswith("Z") and history[-1].reason == "replaced"
     assert [e.event for e in reg.history("loop@1")] == [
-        "registered", "accepted", "drift-detected", "retired"]
+        "registered",
+        "accepted",
+        "drift-detected",
+        "retired",
+    ]
     summary = reg.list_models()[0]
     assert (summary.versions, summary.latest, summary.accepted) == (3, 3, None)
     assert summary.statuses == {"candidate": 1, "accepted": 0, "rejected": 1, "retired": 1}
 
 
 @pytest.mark.parametrize(
-    "filename", ["model.json", "scorecard.json", "report.html", "fit-settings.json",
-                 "evidence.npz", "record.json"])
+    "filename",
+    [
+        "model.json",
+        "scorecard.json",
+        "report.html",
+        "fit-settings.json",
+        "evidence.npz",
+        "record.json",
+    ],
+)
 def test_flipped_byte_in_any_artifact_is_caught_on_load(full_version, filename):
     reg, info, _ = full_version
     path = info.folder / filename
@@ -196,7 +237,9 @@ def test_flipped_byte_in_any_artifact_is_caught_on_load(full_version, filename):
     path.write_bytes(bytes(data))
     expected = info.artifacts[filename]
     actual = hashlib.sha256(bytes(data)).hexdigest()
-    pattern = rf"{filename}: sha256 mismatch for convection-loop@1: expected {expected}, actual {actual}"
+    pattern = (
+        rf"{filename}: sha256 mismatch for convection-loop@1: expected {expected}, actual {actual}"
+    )
     with pytest.raises(IntegrityError, match=pattern):
         reg.load("convection-loop@1")
     with pytest.raises(IntegrityError, match="changed after it was registered"):
@@ -212,8 +255,23 @@ def test_missing_artifact_is_caught(full_version):
         reg.load("convection-loop@1")
 
 
-BAD_NAMES = ["../x", "a/b", "", "a" * 500, "nul\x00byte", "..", ".hidden", "a\\b", "x@1",
-             "with space", "con", "registry.sqlite3", "tab\tname", "é-accent", "trailing."]
+BAD_NAMES = [
+    "../x",
+    "a/b",
+    "",
+    "a" * 500,
+    "nul\x00byte",
+    "..",
+    ".hidden",
+    "a\\b",
+    "x@1",
+    "with space",
+    "con",
+    "registry.sqlite3",
+    "tab\tname",
+    "é-accent",
+    "trailing.",
+]
 
 
 @pytest.mark.parametrize("name", BAD_NAMES)
@@ -233,7 +291,9 @@ def test_good_names_and_references():
     assert parse_ref("loop@12") == ("loop", 12)
     assert parse_ref("loop") == ("loop", None)
     for ref in ("loop@", "loop@0", "loop@-1", "loop@x", "loop@1@2"):
-        with pytest.raises(RegistryError, match="version after '@' must be a positive whole number"):
+        with pytest.raises(
+            RegistryError, match="version after '@' must be a positive whole number"
+        ):
             parse_ref(ref)
 
 
@@ -241,7 +301,9 @@ def test_names_differing_only_in_case_are_refused(tmp_path):
     reg = Registry(tmp_path)
     reg.register("Loop", lorenz63_surrogate())
     # On a case-insensitive filesystem both names would share one folder.
-    with pytest.raises(RegistryError, match="differs only in letter case from the registered 'Loop'"):
+    with pytest.raises(
+        RegistryError, match="differs only in letter case from the registered 'Loop'"
+    ):
         reg.register("loop", lorenz63_surrogate())
     assert [m.name for m in reg.list_models()] == ["Loop"]
 
@@ -308,7 +370,11 @@ def test_export_import_round_trip_verifies(full_version, tmp_path):
         assert line in readme
     assert CAUTION in readme
     manifest = json.loads((out / "manifest.json").read_text())
-    assert (manifest["name"], manifest["version"], manifest["status"]) == ("convection-loop", 1, "accepted")
+    assert (manifest["name"], manifest["version"], manifest["status"]) == (
+        "convection-loop",
+        1,
+        "accepted",
+    )
     for filename, digest in manifest["files"].items():
         assert hashlib.sha256((out / filename).read_bytes()).hexdigest() == digest
     with pytest.raises(RegistryError, match="exists and is not empty"):
@@ -328,7 +394,9 @@ def test_export_import_round_trip_verifies(full_version, tmp_path):
     tampered = bytearray((out / "model.json").read_bytes())
     tampered[10] ^= 0x20
     (out / "model.json").write_bytes(bytes(tampered))
-    with pytest.raises(IntegrityError, match=r"model.json: sha256 mismatch: expected .*changed after export"):
+    with pytest.raises(
+        IntegrityError, match=r"model.json: sha256 mismatch: expected .*changed after export"
+    ):
         other.import_folder(out)
     assert [v.version for v in other.versions("convection-loop")] == [1]
 
@@ -339,8 +407,12 @@ def test_sweep_removes_only_leftovers_of_dead_registrations(tmp_path):
     reg.register("loop", truth)
     staging = reg.home / STAGING_DIR
     # A process that has exited: its pid is free (waited for, so not even a zombie).
-    proc = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
-                          capture_output=True, text=True, check=True)
+    proc = subprocess.run(
+        [sys.executable, "-c", "import os; print(os.getpid())"],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
     import socket
 
     dead = staging / f"{int(proc.stdout)}.deadbeef.{socket.gethostname()}"
@@ -366,8 +438,12 @@ def test_sweep_removes_only_leftovers_of_dead_registrations(tmp_path):
     # Moved aside, never deleted: the record of the orphan is still there to inspect.
     quarantined = sorted(p.name for p in (reg.home / ".quarantine").iterdir())
     assert len(quarantined) == 3 and sum(n.endswith("-loop-2") for n in quarantined) == 1
-    assert (reg.home / ".quarantine" / next(n for n in quarantined if n.endswith("-loop-2"))
-            / "record.json").is_file()
+    assert (
+        reg.home
+        / ".quarantine"
+        / next(n for n in quarantined if n.endswith("-loop-2"))
+        / "record.json"
+    ).is_file()
     assert reopened.register("loop", truth).version == 2
     assert reopened.verify("loop@2").version == 2
 
@@ -399,14 +475,19 @@ def test_forward_migration_upgrades_an_existing_index(full_version, monkeypatch)
     reg.close()
     # A later schema adds a column; an index written by this version must be upgraded in place,
     # keeping every version and event.
-    monkeypatch.setitem(registry_module.MIGRATIONS, SCHEMA_VERSION + 1,
-                        ("ALTER TABLE versions ADD COLUMN reviewer TEXT",))
+    monkeypatch.setitem(
+        registry_module.MIGRATIONS,
+        SCHEMA_VERSION + 1,
+        ("ALTER TABLE versions ADD COLUMN reviewer TEXT",),
+    )
     monkeypatch.setattr(registry_module, "SCHEMA_VERSION", SCHEMA_VERSION + 1)
     upgraded = Registry(reg.home)
     assert upgraded.load(info.ref) == truth
     conn = sqlite3.connect(reg.home / INDEX_FILE)
     try:
-        assert conn.execute("SELECT version FROM schema_version").fetchall() == [(SCHEMA_VERSION + 1,)]
+        assert conn.execute("SELECT version FROM schema_version").fetchall() == [
+            (SCHEMA_VERSION + 1,)
+        ]
         columns = {row[1] for row in conn.execute("PRAGMA table_info(versions)")}
         assert "reviewer" in columns
     finally:
@@ -438,13 +519,20 @@ def test_real_scorecard_and_evidence_from_a_check(tmp_path):
     evidence = tmp_path / "evidence.npz"
     result.evidence.to_npz(evidence)
     reg = Registry(tmp_path / "home")
-    info = reg.register("loop", wrong, scorecard=result.scorecard, evidence_path=evidence,
-                        datasets={"check": reference.fingerprint()})
+    info = reg.register(
+        "loop",
+        wrong,
+        scorecard=result.scorecard,
+        evidence_path=evidence,
+        datasets={"check": reference.fingerprint()},
+    )
     assert info.verdict == result.scorecard.verdict == "fail"
     assert info.data_fingerprint == reference.fingerprint()
     assert info.model_fingerprint == wrong.fingerprint() == result.scorecard.model_fingerprint
     stored = Scorecard.from_json(reg.artifact(info.ref, "scorecard.json").decode())
     assert stored.to_dict() == result.scorecard.to_dict()
     Evidence.from_npz(reg.artifact_path(info.ref, "evidence.npz"))  # plain arrays, no pickle
-    with pytest.raises(RegistryError, match="cannot be accepted: its scorecard's verdict is 'fail'"):
+    with pytest.raises(
+        RegistryError, match="cannot be accepted: its scorecard's verdict is 'fail'"
+    ):
         reg.accept(info.ref)

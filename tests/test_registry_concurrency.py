@@ -44,8 +44,15 @@ def _inputs(tmp_path):
     model = tmp_path / "model.json"
     truth.to_json(model)
     card = tmp_path / "scorecard.json"
-    card.write_text(json.dumps({"verdict": "pass", "data_fingerprint": "sha256:" + "cd" * 32,
-                                "model_fingerprint": truth.fingerprint()}))
+    card.write_text(
+        json.dumps(
+            {
+                "verdict": "pass",
+                "data_fingerprint": "sha256:" + "cd" * 32,
+                "model_fingerprint": truth.fingerprint(),
+            }
+        )
+    )
     return truth, model, card
 
 
@@ -57,13 +64,17 @@ def _assert_consistent(reg: Registry, name: str, verify_from: int = 1) -> int:
     infos = reg.versions(name) if reg.list_models() else []
     numbers = [i.version for i in infos]
     assert numbers == list(range(1, len(numbers) + 1))
-    for info in infos[verify_from - 1:]:
+    for info in infos[verify_from - 1 :]:
         reg.verify(info.ref)
         # The artifacts plus the folder's own status record (mutable, so not an artifact).
         assert {p.name for p in info.folder.iterdir()} == set(info.artifacts) | {STATUS_FILE}
         status = json.loads((info.folder / STATUS_FILE).read_text())
         assert status["committed"] and status["status"] == info.status
-    on_disk = sorted(int(p.name) for p in (reg.home / name).iterdir()) if (reg.home / name).exists() else []
+    on_disk = (
+        sorted(int(p.name) for p in (reg.home / name).iterdir())
+        if (reg.home / name).exists()
+        else []
+    )
     assert on_disk == numbers, "a version folder exists that the index does not name"
     staging = reg.home / STAGING_DIR
     assert not staging.exists() or not any(staging.iterdir())
@@ -78,8 +89,12 @@ def test_eight_processes_register_200_versions_without_gap_or_repeat(tmp_path):
     home = tmp_path / "home"
     go = tmp_path / "go"
     procs = [
-        subprocess.Popen([sys.executable, "-c", WRITER, str(home), str(model), str(card), str(go), "25"],
-                         stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+        subprocess.Popen(
+            [sys.executable, "-c", WRITER, str(home), str(model), str(card), str(go), "25"],
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
         for _ in range(8)
     ]
     try:
@@ -110,8 +125,14 @@ def _register_forever(home, model, card, evidence) -> None:
     """Child body: register in a loop until killed."""
     reg = Registry(home)
     while True:
-        reg.register("convection-loop", model, scorecard=card, evidence_path=evidence,
-                     report_html="<html>report</html>", fit_settings={"threshold": 0.1})
+        reg.register(
+            "convection-loop",
+            model,
+            scorecard=card,
+            evidence_path=evidence,
+            report_html="<html>report</html>",
+            fit_settings={"threshold": 0.1},
+        )
 
 
 def _fork(body, *args) -> int:
@@ -127,8 +148,14 @@ def _fork(body, *args) -> int:
 
 
 def _register_once_and_exit(home, model, card, evidence) -> None:
-    Registry(home).register("convection-loop", model, scorecard=card, evidence_path=evidence,
-                            report_html="<html>report</html>", fit_settings={"threshold": 0.1})
+    Registry(home).register(
+        "convection-loop",
+        model,
+        scorecard=card,
+        evidence_path=evidence,
+        report_html="<html>report</html>",
+        fit_settings={"threshold": 0.1},
+    )
 
 
 def _cycle_time(*args) -> float:
@@ -205,6 +232,7 @@ def _register_then_die_at(home, model, card, point) -> None:
 
         registry_module.os.rename = rename_then_die
     elif point == "indexed-before-commit":
+
         def die(*args, **kwargs):
             _kill_self()
 
@@ -212,7 +240,9 @@ def _register_then_die_at(home, model, card, point) -> None:
     Registry(home).register("convection-loop", model, scorecard=card)
 
 
-@pytest.mark.parametrize("point", ["second-file-written", "moved-into-place", "indexed-before-commit"])
+@pytest.mark.parametrize(
+    "point", ["second-file-written", "moved-into-place", "indexed-before-commit"]
+)
 def test_sigkill_at_each_step_of_a_registration(tmp_path, point):
     truth, model, card = _inputs(tmp_path)
     home = tmp_path / "home"

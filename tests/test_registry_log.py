@@ -14,8 +14,17 @@ from ergodex.scenarios import lorenz63_surrogate
 def _card(surrogate, verdict: str = "pass") -> dict:
     return {
         "verdict": verdict,
-        "rows": [{"statistic": "wasserstein1", "variable": "flow", "value": 0.1,
-                  "noise_floor": 0.2, "ratio": 0.5, "tolerance": 2.0, "verdict": verdict}],
+        "rows": [
+            {
+                "statistic": "wasserstein1",
+                "variable": "flow",
+                "value": 0.1,
+                "noise_floor": 0.2,
+                "ratio": 0.5,
+                "tolerance": 2.0,
+                "verdict": verdict,
+            }
+        ],
         "data_fingerprint": "sha256:" + "ab" * 32,
         "model_fingerprint": surrogate.fingerprint(),
     }
@@ -39,8 +48,10 @@ def test_register_accept_reject_retire_each_log_one_line(tmp_path, caplog):
         _lines(caplog)
         # accepting 2 retires 1 in the same transaction: two lines, the retirement explained
         reg.accept("loop@2")
-        assert _lines(caplog) == ["loop@2: candidate -> accepted (no reason given)",
-                                  "loop@1: accepted -> retired (replaced by version 2)"]
+        assert _lines(caplog) == [
+            "loop@2: candidate -> accepted (no reason given)",
+            "loop@1: accepted -> retired (replaced by version 2)",
+        ]
         reg.retire("loop@2", reason="drifted")
         assert _lines(caplog) == ["loop@2: accepted -> retired (drifted)"]
         reg.register("loop", truth, scorecard=_card(truth, verdict="fail"))
@@ -66,5 +77,7 @@ def test_a_refused_change_logs_nothing_and_recovery_logs_each_version(tmp_path, 
     (home / INDEX_FILE).unlink()
     with caplog.at_level(logging.INFO, logger="ergodex.registry"):
         Registry(home).versions("loop")
-    assert ("loop@1: candidate -> candidate (recovered: indexed again from the version "
-            "folder's own records)") in _lines(caplog)
+    assert (
+        "loop@1: candidate -> candidate (recovered: indexed again from the version "
+        "folder's own records)"
+    ) in _lines(caplog)

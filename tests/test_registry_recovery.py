@@ -22,8 +22,11 @@ DATA_FP = "sha256:" + "5e" * 32
 
 
 def _card(surrogate, verdict: str = "pass") -> dict:
-    return {"verdict": verdict, "data_fingerprint": DATA_FP,
-            "model_fingerprint": surrogate.fingerprint()}
+    return {
+        "verdict": verdict,
+        "data_fingerprint": DATA_FP,
+        "model_fingerprint": surrogate.fingerprint(),
+    }
 
 
 def _sha256(path) -> str:
@@ -33,9 +36,14 @@ def _sha256(path) -> str:
 
 def _tree(home) -> dict[str, str]:
     """Every file under the version folders with its sha256 (to show nothing was deleted)."""
-    return {str(p.relative_to(home)): _sha256(p) for p in sorted(home.rglob("*"))
-            if p.is_file() and p.parts[len(home.parts)] not in (QUARANTINE_DIR, ".staging")
-            and not p.name.startswith(INDEX_FILE) and p.name != STATUS_FILE}
+    return {
+        str(p.relative_to(home)): _sha256(p)
+        for p in sorted(home.rglob("*"))
+        if p.is_file()
+        and p.parts[len(home.parts)] not in (QUARANTINE_DIR, ".staging")
+        and not p.name.startswith(INDEX_FILE)
+        and p.name != STATUS_FILE
+    }
 
 
 @pytest.fixture()
@@ -80,8 +88,9 @@ def test_lost_or_corrupt_index_is_rebuilt_from_the_folders(populated, damage, ca
     assert "rebuilt loop@1, loop@2, ring@1 from the folders' own records" in caplog.text
     assert _tree(home) == before  # nothing deleted, nothing changed
     # The history survives, with one "recovered" event per version.
-    history = [(e.version, e.event, e.reason) for e in reg.history("loop")
-               if e.event != "recovered"]
+    history = [
+        (e.version, e.event, e.reason) for e in reg.history("loop") if e.event != "recovered"
+    ]
     assert history == history_before
     assert sum(e.event == "recovered" for e in reg.history("loop")) == 2
     assert reg.load("loop") == truth and reg.load("loop@2") == other
@@ -129,7 +138,12 @@ def test_older_copy_of_the_index_is_detected_and_folders_win(populated, caplog):
         reg.record_event("loop@2", "drift-detected", "spectrum moved")
         expected = _statuses(reg)
         events = [(e.version, e.event, e.reason) for e in reg.history("loop")]
-    assert expected == {**EXPECTED, "loop@1": "retired", "loop@2": "accepted", "loop@3": "candidate"}
+    assert expected == {
+        **EXPECTED,
+        "loop@1": "retired",
+        "loop@2": "accepted",
+        "loop@3": "candidate",
+    }
     shutil.copyfile(backup, home / INDEX_FILE)  # the older copy is restored
     with caplog.at_level(logging.WARNING, logger="ergodex.registry"):
         reg = Registry(home)
@@ -137,8 +151,9 @@ def test_older_copy_of_the_index_is_detected_and_folders_win(populated, caplog):
     assert "older than the version folders" in caplog.text
     assert "loop@1" in caplog.text and "loop@3" in caplog.text and "ring@1" not in caplog.text
     # Same events (events of one millisecond may come back in another order across versions).
-    assert sorted((e.version, e.event, e.reason) for e in reg.history("loop")
-                  if e.event != "recovered") == sorted(events)
+    assert sorted(
+        (e.version, e.event, e.reason) for e in reg.history("loop") if e.event != "recovered"
+    ) == sorted(events)
     assert reg.load("loop") == other
 
 
@@ -206,15 +221,29 @@ def test_scorecard_of_another_model_is_refused(tmp_path, capsys):
     card = tmp_path / "scorecard.json"
     card.write_text(json.dumps(_card(other)))
     home = tmp_path / "home"
-    code = main(["register", str(model), "--name", "loop", "--scorecard", str(card),
-                 "--home", str(home)])
+    code = main(
+        ["register", str(model), "--name", "loop", "--scorecard", str(card), "--home", str(home)]
+    )
     err = capsys.readouterr().err
     assert code == 2 and err.count("\n") == 1
     assert "was made for another model" in err and other.fingerprint() in err
     assert Registry(home).list_models() == [] and not (home / "loop").exists()
     card.write_text(json.dumps(_card(truth)))
-    assert main(["register", str(model), "--name", "loop", "--scorecard", str(card),
-                 "--home", str(home)]) == 0
+    assert (
+        main(
+            [
+                "register",
+                str(model),
+                "--name",
+                "loop",
+                "--scorecard",
+                str(card),
+                "--home",
+                str(home),
+            ]
+        )
+        == 0
+    )
 
 
 def test_accepting_retires_the_previous_version_in_one_step(tmp_path):
@@ -225,10 +254,14 @@ def test_accepting_retires_the_previous_version_in_one_step(tmp_path):
     reg.accept("loop@1")
     reg.accept("loop@3")
     assert {i.version: i.status for i in reg.versions("loop")} == {
-        1: "retired", 2: "candidate", 3: "accepted"}
+        1: "retired",
+        2: "candidate",
+        3: "accepted",
+    }
     retired = [e for e in reg.history("loop@1") if e.event == "retired"]
     assert [(e.from_status, e.to_status, e.reason) for e in retired] == [
-        ("accepted", "retired", "replaced by version 3")]
+        ("accepted", "retired", "replaced by version 3")
+    ]
     # The folders carry the same statuses, so a rebuilt index agrees.
     for number, status in ((1, "retired"), (3, "accepted")):
         record = json.loads((reg.home / "loop" / str(number) / STATUS_FILE).read_text())
@@ -262,9 +295,20 @@ def test_cli_warns_on_stderr_when_it_rebuilds(populated):
     (home / INDEX_FILE).write_bytes(b"")
     env = {**os.environ, "PYTHONPATH": os.pathsep.join(sys.path)}
     proc = subprocess.run(
-        [sys.executable, "-c", "import sys; from ergodex.cli import main; sys.exit(main())",
-         "models", "list", "--home", str(home)],
-        capture_output=True, text=True, env=env, timeout=120, check=False,
+        [
+            sys.executable,
+            "-c",
+            "import sys; from ergodex.cli import main; sys.exit(main())",
+            "models",
+            "list",
+            "--home",
+            str(home),
+        ],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=120,
+        check=False,
     )
     assert proc.returncode == 0
     assert "WARNING" in proc.stderr and "rebuilt loop@1, loop@2, ring@1" in proc.stderr
@@ -283,13 +327,16 @@ def test_service_marks_a_changed_version_and_keeps_server_paths_out(populated):
     os.chmod(card, 0o644)
     card.write_text(json.dumps({**_card(truth), "edited": True}))
     actual = _sha256(card)
-    with ServerProcess(home, workers=1) as server, \
-            httpx.Client(base_url=server.url, timeout=60) as client:
+    with (
+        ServerProcess(home, workers=1) as server,
+        httpx.Client(base_url=server.url, timeout=60) as client,
+    ):
         shown = client.get("/models/loop/versions/accepted").json()
         listing = client.get("/models").json()["models"]
         fine = client.get("/models/loop/versions/2").json()
     assert (shown["status"], shown["integrity"]) == ("accepted", "failed")
     assert shown["integrity_problems"] == [
-        f"loop@1/scorecard.json: expected sha256 {expected}, actual {actual}"]
+        f"loop@1/scorecard.json: expected sha256 {expected}, actual {actual}"
+    ]
     assert [m["integrity_failed"] for m in listing] == [[1], []]
     assert fine["integrity"] == "ok" and fine["integrity_problems"] == []

@@ -127,8 +127,17 @@ def test_report_shows_the_verdict_scorecard_and_caution(true_model, true_page):
     assert len(parsed.rows) == len(card.rows)
     statistics = {(row[0], row[1]) for row in parsed.rows}
     assert statistics == {(r.statistic, r.variable) for r in card.rows}
-    for anchor in ("scorecard", "distributions", "autocorrelation", "spectra", "regimes",
-                   "attractor", "stability", "equations", "provenance"):
+    for anchor in (
+        "scorecard",
+        "distributions",
+        "autocorrelation",
+        "spectra",
+        "regimes",
+        "attractor",
+        "stability",
+        "equations",
+        "provenance",
+    ):
         assert anchor in parsed.section_ids
     assert html.escape(CAUTION) in page
     for equation in surrogate.equations():
@@ -177,12 +186,15 @@ def test_rows_judged_against_a_stricter_tolerance_are_reordered(true_model):
     card = result.scorecard
     # The same measured rows, judged against a tolerance at their median ratio: about half fail.
     strict = float(np.median([r.ratio for r in card.rows]))
-    rows = [dataclasses.replace(r, tolerance=strict,
-                                verdict="pass" if r.ratio <= strict else "fail") for r in card.rows]
+    rows = [
+        dataclasses.replace(r, tolerance=strict, verdict="pass" if r.ratio <= strict else "fail")
+        for r in card.rows
+    ]
     n_fail = sum(r.verdict == "fail" for r in rows)
     assert 0 < n_fail < len(rows)
-    stricter = dataclasses.replace(_without_figures(result),
-                                   scorecard=dataclasses.replace(card, rows=rows))
+    stricter = dataclasses.replace(
+        _without_figures(result), scorecard=dataclasses.replace(card, rows=rows)
+    )
     parsed = _parse(render_report(stricter, surrogate))
     verdicts = [row[-1].lower() for row in parsed.rows]
     assert verdicts == ["fail"] * n_fail + ["pass"] * (len(rows) - n_fail)
@@ -200,10 +212,16 @@ def test_user_strings_are_escaped(true_model):
         **{f.name: None for f in dataclasses.fields(result.evidence) if f.name != "variables"},
         variables=np.array([f"{v}{hostile}" for v in result.evidence.variables]),
     )
-    rows = [dataclasses.replace(r, variable=f"{r.variable}{hostile}") for r in result.scorecard.rows]
+    rows = [
+        dataclasses.replace(r, variable=f"{r.variable}{hostile}") for r in result.scorecard.rows
+    ]
     card = dataclasses.replace(result.scorecard, rows=rows, reasons=[hostile])
-    page = render_report(dataclasses.replace(result, evidence=names_only, scorecard=card),
-                         surrogate, title=hostile, fit_summary={"note": hostile, hostile: 1})
+    page = render_report(
+        dataclasses.replace(result, evidence=names_only, scorecard=card),
+        surrogate,
+        title=hostile,
+        fit_summary={"note": hostile, hostile: 1},
+    )
     assert "<script" not in page and "<b>" not in page
     escaped = "&lt;script&gt;alert(&quot;x&quot;)&lt;/script&gt; &amp; &lt;b&gt;bold&lt;/b&gt;"
     # title (twice), subtitle, banner reason, every scorecard row, both fit-summary cells
@@ -215,12 +233,24 @@ def test_missing_optional_evidence_leaves_its_section_out(true_model):
     result, surrogate = true_model
     empty = np.zeros(0)
     no_extras = dataclasses.replace(
-        result.evidence, regime_names=np.array([], dtype="<U1"), occupancy_reference=empty,
-        occupancy_reference_pieces=np.zeros((4, 0)), occupancy_model=empty,
-        residence_reference=empty, residence_model=empty, transitions_reference=np.zeros((0, 0)),
-        transitions_model=np.zeros((0, 0)), psd_freq=empty, psd_reference=np.zeros((0, 3)),
-        psd_reference_pieces=np.zeros((4, 0, 3)), psd_model=np.zeros((0, 3)),
-        acf_lags=None, acf_reference=None, acf_reference_pieces=None, acf_model=None)
+        result.evidence,
+        regime_names=np.array([], dtype="<U1"),
+        occupancy_reference=empty,
+        occupancy_reference_pieces=np.zeros((4, 0)),
+        occupancy_model=empty,
+        residence_reference=empty,
+        residence_model=empty,
+        transitions_reference=np.zeros((0, 0)),
+        transitions_model=np.zeros((0, 0)),
+        psd_freq=empty,
+        psd_reference=np.zeros((0, 3)),
+        psd_reference_pieces=np.zeros((4, 0, 3)),
+        psd_model=np.zeros((0, 3)),
+        acf_lags=None,
+        acf_reference=None,
+        acf_reference_pieces=None,
+        acf_model=None,
+    )
     parsed = _parse(render_report(dataclasses.replace(result, evidence=no_extras), surrogate))
     for absent in ("regimes", "spectra", "autocorrelation"):
         assert absent not in parsed.section_ids
@@ -238,17 +268,25 @@ def test_selection_front_is_shown_when_given(true_model, collapsed_model):
     result, surrogate = true_model
     # Two real candidates: the rho = 22 model and the true equations, scored by their checks.
     candidates = [
-        Candidate(index=index, method="true equations", settings={"rho": rho},
-                  verdict=check.scorecard.verdict,
-                  n_terms=int(np.count_nonzero(model.coefficients)),
-                  statistical_score=check.scorecard.largest_ratio,
-                  reasons=list(check.scorecard.reasons[:2]))
+        Candidate(
+            index=index,
+            method="true equations",
+            settings={"rho": rho},
+            verdict=check.scorecard.verdict,
+            n_terms=int(np.count_nonzero(model.coefficients)),
+            statistical_score=check.scorecard.largest_ratio,
+            reasons=list(check.scorecard.reasons[:2]),
+        )
         for index, rho, (check, model) in ((0, 22, collapsed_model), (1, 28, true_model))
     ]
-    selection = SelectionResult(candidates=candidates, chosen=1, spec=result.scorecard.spec.to_dict(),
-                                backend="sequential",
-                                data_fingerprint=result.scorecard.data_fingerprint,
-                                reference_fingerprint=result.scorecard.data_fingerprint)
+    selection = SelectionResult(
+        candidates=candidates,
+        chosen=1,
+        spec=result.scorecard.spec.to_dict(),
+        backend="sequential",
+        data_fingerprint=result.scorecard.data_fingerprint,
+        reference_fingerprint=result.scorecard.data_fingerprint,
+    )
     page = render_report(_without_figures(result), surrogate, selection=selection)
     parsed = _parse(page)
     assert "selection" in parsed.section_ids
@@ -279,8 +317,9 @@ def test_report_numbers_match_the_scorecard(true_model, true_page):
     by_key = {(r.statistic, r.variable): r for r in result.scorecard.rows}
     for row in parsed.rows:
         expected = by_key[(row[0], row[1])]
-        for shown, value in zip(row[2:6], (expected.value, expected.noise_floor,
-                                            expected.ratio, expected.tolerance)):
+        for shown, value in zip(
+            row[2:6], (expected.value, expected.noise_floor, expected.ratio, expected.tolerance)
+        ):
             number = float(shown.split()[0])
             # Three significant figures: relative rounding error at most 5e-3.
             assert math.isclose(number, value, rel_tol=5e-3, abs_tol=1e-12), (row, value)

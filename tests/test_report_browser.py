@@ -49,19 +49,29 @@ return {
 @pytest.fixture(scope="module")
 def browser(tmp_path_factory):
     if not (CHROMIUM.exists() and CHROMEDRIVER.exists()):
-        pytest.skip("headless browser test needs /usr/bin/chromium and /usr/bin/chromedriver "
-                    "(Debian packages chromium and chromium-driver; .ci/run installs them)")
+        pytest.skip(
+            "headless browser test needs /usr/bin/chromium and /usr/bin/chromedriver "
+            "(Debian packages chromium and chromium-driver; .ci/run installs them)"
+        )
     webdriver = pytest.importorskip("selenium.webdriver")
     from selenium.webdriver.chrome.service import Service
 
     options = webdriver.ChromeOptions()
     options.binary_location = str(CHROMIUM)
     profile = tmp_path_factory.mktemp("chromium-profile")
-    for argument in ("--headless", "--no-sandbox", "--disable-gpu",
-                     "--disable-background-networking", "--disable-component-update",
-                     "--disable-sync", "--no-first-run", "--disable-quic",
-                     "--disable-dev-shm-usage", f"--user-data-dir={profile}",
-                     "--window-size=1280,900"):
+    for argument in (
+        "--headless",
+        "--no-sandbox",
+        "--disable-gpu",
+        "--disable-background-networking",
+        "--disable-component-update",
+        "--disable-sync",
+        "--no-first-run",
+        "--disable-quic",
+        "--disable-dev-shm-usage",
+        f"--user-data-dir={profile}",
+        "--window-size=1280,900",
+    ):
         options.add_argument(argument)
     driver = webdriver.Chrome(service=Service(str(CHROMEDRIVER)), options=options)
     driver.set_page_load_timeout(60)

@@ -76,10 +76,16 @@ def test_figures_are_valid_svg_with_the_same_colours_for_reference_and_surrogate
     spectra = [stats.power_spectrum(r, series.dt) for r in runs]
     svgs = [
         figures.histogram_figure(names, edges, hist[0], hist[1], np.array(hist)),
-        figures.autocorrelation_figure(names, np.arange(lag + 1) * series.dt, acf[0], acf[1],
-                                       np.array(acf)),
-        figures.spectrum_figure(names, spectra[0][0], spectra[0][1].T, spectra[1][1].T,
-                                np.array([s[1].T for s in spectra])),
+        figures.autocorrelation_figure(
+            names, np.arange(lag + 1) * series.dt, acf[0], acf[1], np.array(acf)
+        ),
+        figures.spectrum_figure(
+            names,
+            spectra[0][0],
+            spectra[0][1].T,
+            spectra[1][1].T,
+            np.array([s[1].T for s in spectra]),
+        ),
     ]
     for svg in svgs:
         root = _svg_root(svg)  # raises on malformed XML

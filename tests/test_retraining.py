@@ -13,7 +13,6 @@ import math
 
 import numpy as np
 import pytest
-from retrain_support import LOOP, WELL, copy_home, loop_data, well_data
 
 from ergodex.exceptions import DataError, SettingsError
 from ergodex.registry import Registry
@@ -28,8 +27,7 @@ from ergodex.retraining import (
 )
 from ergodex.series import Series
 from ergodex.validation import CheckSpec, ScoreRow, check
-
-
+from retrain_support import LOOP, WELL, copy_home, loop_data, well_data
 
 # 16 members (the check's default) of one reference piece each; the reference is the 3 held-out
 # runs of 40 time units. Measured while writing these tests: the sparse fit of rho = 28 data
@@ -171,17 +169,22 @@ def test_data_the_method_cannot_represent_leave_no_acceptable_model(tmp_path):
     # time scale only from about ×1.75 and says so (inconclusive, not a pass): the champion is
     # then accepted by override, as a person would after reading why.
     assert result.scorecard.verdict in ("pass", "inconclusive"), result.scorecard.reasons
-    registry.register(WELL, truth, scorecard=result.scorecard,
-                      datasets={"check": reference.fingerprint()})
-    registry.accept(f"{WELL}@1", reason="true equations did not fail on held-out runs",
-                    override=not result.scorecard.passed)
+    registry.register(
+        WELL, truth, scorecard=result.scorecard, datasets={"check": reference.fingerprint()}
+    )
+    registry.accept(
+        f"{WELL}@1",
+        reason="true equations did not fail on held-out runs",
+        override=not result.scorecard.passed,
+    )
 
     # New data: stronger noise (s = 1.2 widens the stationary density p ~ exp(-2V/s^2), Risken
     # 1989), and a deterministic degree-2 sparse ODE configured for the challenger: without noise
     # it settles on a fixed point or cycle and cannot reproduce the hopping.
     new = well_data(13, noise=1.2)
-    decision = retrain(registry, WELL, new, config=("sparse", {"degree": 2}), spec=SPEC,
-                       seed=0, report=False)
+    decision = retrain(
+        registry, WELL, new, config=("sparse", {"degree": 2}), spec=SPEC, seed=0, report=False
+    )
 
     assert decision.outcome == "no-acceptable-model" and decision.exit_code == 1
     assert not decision.champion.passed and not decision.challenger.passed
@@ -208,8 +211,14 @@ def test_bad_input_raises_before_anything_is_written(loop_home, tmp_path):
     with pytest.raises(DataError, match="unknown file type"):
         retrain(registry, LOOP, tmp_path / "data.xlsx", spec=SPEC, report=False)
     with pytest.raises(SettingsError, match="has no setting"):
-        retrain(registry, LOOP, loop_data(3, n_runs=2, duration=10.0),
-                config=("sparse", {"no_such_setting": 1}), spec=SPEC, report=False)
+        retrain(
+            registry,
+            LOOP,
+            loop_data(3, n_runs=2, duration=10.0),
+            config=("sparse", {"no_such_setting": 1}),
+            spec=SPEC,
+            report=False,
+        )
     with pytest.raises(SettingsError, match="seed"):
         retrain(registry, LOOP, other, seed=-1, report=False)
     assert (len(registry.versions(LOOP)), len(registry.history(LOOP))) == before
@@ -235,8 +244,9 @@ def test_check_spec_defaults_to_the_champions_and_takes_overrides(loop_home):
 
 def test_split_holds_out_whole_runs_or_the_end_of_a_single_run():
     rng = np.random.default_rng(0)
-    six = Series.from_arrays(rng.normal(size=(6, 50, 2)), ["u", "v"], 0.1,
-                             run_labels=[f"r{i}" for i in range(6)])
+    six = Series.from_arrays(
+        rng.normal(size=(6, 50, 2)), ["u", "v"], 0.1, run_labels=[f"r{i}" for i in range(6)]
+    )
     fit, ref = split_for_retrain(six, 0.5)
     assert fit.run_labels == ("r0", "r1", "r2") and ref.run_labels == ("r3", "r4", "r5")
     fit, ref = split_for_retrain(six, 0.1)  # at least one run held out
@@ -259,11 +269,22 @@ def test_shared_score_is_the_largest_row_ratio_and_infinite_after_a_blowup():
     def card(ratios, blown=0):
         from ergodex.validation import Scorecard
 
-        rows = [ScoreRow("histogram", f"v{i}", r, 1.0, r, 2.0, "pass" if r <= 2 else "fail")
-                for i, r in enumerate(ratios)]
-        return Scorecard(verdict="pass", rows=rows, reasons=[], blowups={"count": blown},
-                         member_agreement={}, spec=spec, model_fingerprint="m",
-                         data_fingerprint="d", created="", ergodex_version="")
+        rows = [
+            ScoreRow("histogram", f"v{i}", r, 1.0, r, 2.0, "pass" if r <= 2 else "fail")
+            for i, r in enumerate(ratios)
+        ]
+        return Scorecard(
+            verdict="pass",
+            rows=rows,
+            reasons=[],
+            blowups={"count": blown},
+            member_agreement={},
+            spec=spec,
+            model_fingerprint="m",
+            data_fingerprint="d",
+            created="",
+            ergodex_version="",
+        )
 
     assert shared_score(card([0.5, 1.7, 1.2])) == 1.7
     assert math.isinf(shared_score(card([0.5, 1.0], blown=1)))
@@ -273,8 +294,18 @@ def test_shared_score_is_the_largest_row_ratio_and_infinite_after_a_blowup():
 
 def test_exit_codes_follow_the_outcome():
     assert OUTCOMES == {"first-accepted": 0, "kept": 0, "replaced": 0, "no-acceptable-model": 1}
-    d = Decision(name="m", outcome="kept", standing="m@1", champion=None, challenger=None,
-                 reasons=["x"], seed=0, holdout=0.5, data={}, spec={})
+    d = Decision(
+        name="m",
+        outcome="kept",
+        standing="m@1",
+        champion=None,
+        challenger=None,
+        reasons=["x"],
+        seed=0,
+        holdout=0.5,
+        data={},
+        spec={},
+    )
     assert d.exit_code == 0
     d.outcome = "no-acceptable-model"
     assert d.exit_code == 1
@@ -295,8 +326,9 @@ def test_a_champion_too_stiff_to_integrate_is_a_failed_drift_check_not_a_crash(t
         powers = tuple(1 if j == i else 0 for j in range(3))
         coefficients[i, terms.index(next(t for t in terms if t.powers == powers))] = -1e9
     # recorded as a sparse fit, so that retrain refits with the method the champion names
-    stiff = Surrogate(data.names, terms, coefficients,
-                      settings={"method": "sparse", "threshold": 0.1})
+    stiff = Surrogate(
+        data.names, terms, coefficients, settings={"method": "sparse", "threshold": 0.1}
+    )
     registry = Registry(tmp_path / "home")
     info = registry.register(LOOP, stiff)
     registry.accept(info.ref, reason="test: a champion that cannot be integrated", override=True)
@@ -313,8 +345,9 @@ def test_a_champion_too_stiff_to_integrate_is_a_failed_drift_check_not_a_crash(t
     assert decision.outcome in ("replaced", "no-acceptable-model")
 
 
-def test_a_challenger_too_stiff_to_integrate_is_a_failed_challenger_not_a_crash(tmp_path,
-                                                                                monkeypatch):
+def test_a_challenger_too_stiff_to_integrate_is_a_failed_challenger_not_a_crash(
+    tmp_path, monkeypatch
+):
     # The fit -> check path is made to raise as a too-stiff model does (the integrator's floor
     # is tested in test_integrate/test_limits); what is checked here is the decision around it.
     import ergodex.pipeline
@@ -325,8 +358,9 @@ def test_a_challenger_too_stiff_to_integrate_is_a_failed_challenger_not_a_crash(
 
     monkeypatch.setattr(ergodex.pipeline, "fit_check_register", too_stiff)
     registry = Registry(tmp_path / "home")
-    decision = retrain(registry, LOOP, loop_data(3, n_runs=4, duration=20.0), spec=SPEC, seed=0,
-                       report=False)
+    decision = retrain(
+        registry, LOOP, loop_data(3, n_runs=4, duration=20.0), spec=SPEC, seed=0, report=False
+    )
     assert decision.outcome == "no-acceptable-model"
     assert decision.challenger.ref is None and decision.challenger.verdict == "fail"
     assert "could not be integrated" in " ".join(decision.reasons)

@@ -25,8 +25,15 @@ def test_rk4_matches_solve_ivp_lorenz63():
     np.testing.assert_allclose(compiled, ours, atol=1e-9, rtol=0)
     t = np.linspace(0, 2, 201)
     for m in range(3):
-        ref = solve_ivp(lambda _t, u: sc.lorenz63_rhs(u), (0, 2), x0[m], method="DOP853",
-                        rtol=1e-12, atol=1e-12, t_eval=t)
+        ref = solve_ivp(
+            lambda _t, u: sc.lorenz63_rhs(u),
+            (0, 2),
+            x0[m],
+            method="DOP853",
+            rtol=1e-12,
+            atol=1e-12,
+            t_eval=t,
+        )
         np.testing.assert_allclose(ours[m], ref.y.T, atol=1e-4, rtol=0)
 
 
@@ -38,8 +45,15 @@ def test_rk4_matches_solve_ivp_lorenz96():
     rng = np.random.default_rng(2)
     x0 = 8.0 + rng.normal(0, 1, size=(1, 40))
     t = np.linspace(0, 0.5, 11)
-    ref = solve_ivp(lambda _t, u: sc.lorenz96_rhs(u), (0, 0.5), x0[0], method="DOP853",
-                    rtol=1e-13, atol=1e-13, t_eval=t).y.T
+    ref = solve_ivp(
+        lambda _t, u: sc.lorenz96_rhs(u),
+        (0, 0.5),
+        x0[0],
+        method="DOP853",
+        rtol=1e-13,
+        atol=1e-13,
+        t_eval=t,
+    ).y.T
     errors = []
     for substeps in (5, 10):
         ours = sc.rk4_trajectories(sc.lorenz96_rhs, x0, dt=0.05, n_out=11, substeps=substeps)
@@ -54,11 +68,13 @@ def test_true_surrogates_match_the_equations():
     pytest.importorskip("ergodex.surrogate")
     rng = np.random.default_rng(3)
     X = rng.normal(0, 10, size=(50, 3))
-    np.testing.assert_allclose(sc.lorenz63_surrogate().rhs(X), sc.lorenz63_rhs(X), rtol=1e-13,
-                               atol=1e-10)
+    np.testing.assert_allclose(
+        sc.lorenz63_surrogate().rhs(X), sc.lorenz63_rhs(X), rtol=1e-13, atol=1e-10
+    )
     Y = rng.normal(2, 4, size=(20, 40))
-    np.testing.assert_allclose(sc.lorenz96_surrogate(40, 8.0).rhs(Y), sc.lorenz96_rhs(Y, 8.0),
-                               rtol=1e-13, atol=1e-10)
+    np.testing.assert_allclose(
+        sc.lorenz96_surrogate(40, 8.0).rhs(Y), sc.lorenz96_rhs(Y, 8.0), rtol=1e-13, atol=1e-10
+    )
     w = sc.double_well_surrogate(0.5)
     x = rng.normal(size=(30, 1))
     np.testing.assert_allclose(w.rhs(x), x - x**3, atol=1e-12)
@@ -114,8 +130,9 @@ def test_ou_covariance_matches_lyapunov_and_acf_matches_exponential():
     assert np.all(np.abs(est - C) < 4 * se), (est, C, se)
 
     theta = 0.7
-    s1 = sc.ornstein_uhlenbeck(seed=6, drift=[[-theta]], noise=[[2 * theta]], n_runs=24,
-                               duration=300.0, dt=0.1)
+    s1 = sc.ornstein_uhlenbeck(
+        seed=6, drift=[[-theta]], noise=[[2 * theta]], n_runs=24, duration=300.0, dt=0.1
+    )
     from statsmodels.tsa.stattools import acf
 
     lags = np.arange(0, 31)  # up to 3 time units

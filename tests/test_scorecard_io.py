@@ -17,27 +17,52 @@ NAN = float("nan")
 
 
 def _regimes():
-    return RegimeSet.from_dict({"regime": [
-        {"name": "warm", "kind": "threshold", "rules": [{"variable": "x", "above": 0.5}]}]})
+    return RegimeSet.from_dict(
+        {
+            "regime": [
+                {"name": "warm", "kind": "threshold", "rules": [{"variable": "x", "above": 0.5}]}
+            ]
+        }
+    )
 
 
 def _card(rows=None, **kw):
-    rows = rows if rows is not None else [
-        ScoreRow("histogram", "x", 0.25, 0.125, 2.0, 2.75, "pass"),
-        ScoreRow("spectrum", "temperature", 5.0, 1.0, 5.0, 3.0, "fail"),
-        ScoreRow("quantiles", "x", NAN, 0.5, NAN, 2.75, "fail"),
-    ]
-    base = dict(verdict="fail", rows=rows, reasons=["spectrum of temperature: too far"],
-                blowups={"count": 1, "members": [3], "times": [2.5], "allowed_fraction": 0.0},
-                member_agreement={"ratio": 1.5, "tolerance": 2.75, "verdict": "pass",
-                                  "collapsed_members": [], "outlying_members": [],
-                                  "per_variable": {"x": 1.5}},
-                spec=CheckSpec(members=4, regimes=_regimes(), tolerances={"spectrum": 3.0},
-                               statistics=("histogram", "spectrum", "quantiles", "occupancy"),
-                               pool=2, seed=9),
-                model_fingerprint="sha256:aa", data_fingerprint="sha256:bb",
-                created="2026-01-01T00:00:00Z", ergodex_version="0.1.0",
-                settings={"pool": 2, "gap": math.inf})
+    rows = (
+        rows
+        if rows is not None
+        else [
+            ScoreRow("histogram", "x", 0.25, 0.125, 2.0, 2.75, "pass"),
+            ScoreRow("spectrum", "temperature", 5.0, 1.0, 5.0, 3.0, "fail"),
+            ScoreRow("quantiles", "x", NAN, 0.5, NAN, 2.75, "fail"),
+        ]
+    )
+    base = dict(
+        verdict="fail",
+        rows=rows,
+        reasons=["spectrum of temperature: too far"],
+        blowups={"count": 1, "members": [3], "times": [2.5], "allowed_fraction": 0.0},
+        member_agreement={
+            "ratio": 1.5,
+            "tolerance": 2.75,
+            "verdict": "pass",
+            "collapsed_members": [],
+            "outlying_members": [],
+            "per_variable": {"x": 1.5},
+        },
+        spec=CheckSpec(
+            members=4,
+            regimes=_regimes(),
+            tolerances={"spectrum": 3.0},
+            statistics=("histogram", "spectrum", "quantiles", "occupancy"),
+            pool=2,
+            seed=9,
+        ),
+        model_fingerprint="sha256:aa",
+        data_fingerprint="sha256:bb",
+        created="2026-01-01T00:00:00Z",
+        ergodex_version="0.1.0",
+        settings={"pool": 2, "gap": math.inf},
+    )
     base.update(kw)
     return Scorecard(**base)
 
@@ -61,9 +86,15 @@ def test_check_spec_round_trips_with_regimes_and_every_setting():
 
 def test_non_finite_numbers_are_written_as_null_and_read_back():
     row = ScoreRow("spectrum", "x", math.inf, NAN, NAN, 2.75, "fail")
-    assert row.to_dict() == {"statistic": "spectrum", "variable": "x", "value": None,
-                             "noise_floor": None, "ratio": None, "tolerance": 2.75,
-                             "verdict": "fail"}
+    assert row.to_dict() == {
+        "statistic": "spectrum",
+        "variable": "x",
+        "value": None,
+        "noise_floor": None,
+        "ratio": None,
+        "tolerance": 2.75,
+        "verdict": "fail",
+    }
     finite = ScoreRow("spectrum", "x", 1.5, 0.5, 3.0, 2.75, "fail").to_dict()
     assert (finite["value"], finite["noise_floor"], finite["ratio"]) == (1.5, 0.5, 3.0)
     back = ScoreRow.from_dict(row.to_dict())
@@ -80,8 +111,11 @@ def test_scorecard_json_round_trip_is_strict_json(tmp_path):
     assert "NaN" not in text and "Infinity" not in text
     d = json.loads(text)
     assert d["settings"]["gap"] is None and d["rows"][2]["ratio"] is None
-    for again in (Scorecard.from_json(path), Scorecard.from_json(str(path)),
-                  Scorecard.from_json("  " + text)):
+    for again in (
+        Scorecard.from_json(path),
+        Scorecard.from_json(str(path)),
+        Scorecard.from_json("  " + text),
+    ):
         assert again.to_dict() == card.to_dict()
     assert Scorecard.from_json(text).spec.regimes.names == ("warm",)
     # a missing folder is not created: the caller chooses where scorecards go
@@ -91,11 +125,15 @@ def test_scorecard_json_round_trip_is_strict_json(tmp_path):
 
 
 def test_bad_scorecard_files_give_one_clear_line(tmp_path):
-    with pytest.raises(ModelFileError, match=r"^scorecard: not a scorecard of format "
-                                             r"'ergodex-scorecard/1' \(format: 'list'\)"):
+    with pytest.raises(
+        ModelFileError,
+        match=r"^scorecard: not a scorecard of format "
+        r"'ergodex-scorecard/1' \(format: 'list'\)",
+    ):
         Scorecard.from_dict([])
-    with pytest.raises(ModelFileError,
-                       match=r"^scorecard: not a scorecard .*\(format: 'other/2'\)"):
+    with pytest.raises(
+        ModelFileError, match=r"^scorecard: not a scorecard .*\(format: 'other/2'\)"
+    ):
         Scorecard.from_json('{"format": "other/2"}')
     with pytest.raises(ModelFileError, match=r"^scorecard: not valid JSON at line 1, column 12 "):
         Scorecard.from_json('{"format": ')
@@ -130,17 +168,24 @@ def test_bad_scorecard_files_give_one_clear_line(tmp_path):
 
 def test_table_shows_rows_blow_ups_agreement_reasons_and_the_caution():
     lines = _card().table().splitlines()
-    assert lines[0] == ("verdict: FAIL   largest ratio 5 (spectrum temperature); a ratio is the "
-                        "model's distance from the data over the data's own noise floor")
+    assert lines[0] == (
+        "verdict: FAIL   largest ratio 5 (spectrum temperature); a ratio is the "
+        "model's distance from the data over the data's own noise floor"
+    )
     assert lines[1] == ""
-    assert lines[2] == ("statistic  variable          value  noise floor    ratio    tol  "
-                        "verdict")
+    assert lines[2] == ("statistic  variable          value  noise floor    ratio    tol  verdict")
     assert lines[3] == ("histogram  x                  0.25        0.125        2   2.75  pass")
     assert lines[4] == ("spectrum   temperature           5            1        5   3.00  fail")
     assert lines[5] == ("quantiles  x                   n/a          0.5      n/a   2.75  fail")
-    assert lines[6:] == ["", "blow-ups: 1 of 4 members",
-                         "member agreement: ratio 1.5 (tolerance 2.75) pass", "",
-                         "- spectrum of temperature: too far", "", f"Caution: {CAUTION}"]
+    assert lines[6:] == [
+        "",
+        "blow-ups: 1 of 4 members",
+        "member agreement: ratio 1.5 (tolerance 2.75) pass",
+        "",
+        "- spectrum of temperature: too far",
+        "",
+        f"Caution: {CAUTION}",
+    ]
 
 
 def test_table_of_a_card_without_rows_or_agreement():
@@ -154,20 +199,29 @@ def test_table_of_a_card_without_rows_or_agreement():
     bare = _card(member_agreement={"ratio": 1.0}).table().splitlines()
     assert "member agreement: ratio 1 (tolerance nan) " in bare
     # a NaN row is never the "largest ratio", even when every other ratio is below 1
-    rows = [ScoreRow("spectrum", "x", NAN, 1.0, NAN, 2.75, "fail"),
-            ScoreRow("histogram", "y", 0.5, 1.0, 0.5, 2.75, "pass")]
+    rows = [
+        ScoreRow("spectrum", "x", NAN, 1.0, NAN, 2.75, "fail"),
+        ScoreRow("histogram", "y", 0.5, 1.0, 0.5, 2.75, "pass"),
+    ]
     assert "largest ratio 0.5 (histogram y)" in _card(rows=rows).table().splitlines()[0]
 
 
 def test_large_and_infinite_numbers_in_the_table():
-    rows = [ScoreRow("spectrum", "x", 12000.0, 1.0, 12000.0, 2.75, "fail"),
-            ScoreRow("histogram", "x", 9999.0, 0.0, math.inf, 2.75, "fail")]
+    rows = [
+        ScoreRow("spectrum", "x", 12000.0, 1.0, 12000.0, 2.75, "fail"),
+        ScoreRow("histogram", "x", 9999.0, 0.0, math.inf, 2.75, "fail"),
+    ]
     lines = _card(rows=rows).table().splitlines()
     assert "largest ratio inf (histogram x)" in lines[0]
     assert lines[3].split()[2:5] == ["1.200e+04", "1", "1.200e+04"]
     assert lines[4].split()[2:5] == ["1e+04", "0", "inf"]  # 9999 below 1e4: 3 digits
-    assert _card(rows=[ScoreRow("spectrum", "x", 1e4, 1.0, 1e4, 2.75, "fail")]).table(
-        ).splitlines()[3].split()[2] == "1.000e+04"  # 1e4 itself is written in e-notation
+    assert (
+        _card(rows=[ScoreRow("spectrum", "x", 1e4, 1.0, 1e4, 2.75, "fail")])
+        .table()
+        .splitlines()[3]
+        .split()[2]
+        == "1.000e+04"
+    )  # 1e4 itself is written in e-notation
 
 
 def _evidence():
@@ -194,8 +248,11 @@ def test_evidence_files_name_themselves_in_errors(tmp_path):
     wrong = tmp_path / "wrong.npz"
     np.savez(wrong, format=np.array("ergodex-evidence/0"), variables=np.zeros(1))
     with open(wrong, "rb") as handle:
-        with pytest.raises(ModelFileError, match=rf"^{wrong}: not an evidence file of format "
-                                                 rf"'ergodex-evidence/1'$"):
+        with pytest.raises(
+            ModelFileError,
+            match=rf"^{wrong}: not an evidence file of format "
+            rf"'ergodex-evidence/1'$",
+        ):
             Evidence.from_npz(handle)
     with pytest.raises(ModelFileError, match="^evidence: not an evidence file"):
         Evidence.from_npz(io.BytesIO(wrong.read_bytes()))

@@ -12,8 +12,14 @@ from ergodex.series import Series, format_dt, split_blocks, split_runs
 
 def _series(rng, time_unit="hours", n_runs=3, n=120):
     runs = [rng.normal(size=(n, 2)).cumsum(axis=0) * 0.1 for _ in range(n_runs)]
-    return Series.from_arrays(runs, ("u", "v"), 6.0, run_labels=[f"m{i}" for i in range(n_runs)],
-                              source="test", time_unit=time_unit)
+    return Series.from_arrays(
+        runs,
+        ("u", "v"),
+        6.0,
+        run_labels=[f"m{i}" for i in range(n_runs)],
+        source="test",
+        time_unit=time_unit,
+    )
 
 
 def test_time_unit_survives_select_runs_and_both_splits():
@@ -31,8 +37,9 @@ def test_time_unit_is_not_part_of_the_fingerprint():
     # the same numbers written to CSV (no place for a unit) must keep their fingerprint
     rng = np.random.default_rng(12)
     with_unit = _series(rng)
-    without = Series.from_arrays(with_unit.runs, with_unit.names, with_unit.dt,
-                                 run_labels=with_unit.run_labels)
+    without = Series.from_arrays(
+        with_unit.runs, with_unit.names, with_unit.dt, run_labels=with_unit.run_labels
+    )
     assert without.time_unit is None
     assert with_unit.fingerprint() == without.fingerprint()
 
@@ -96,6 +103,7 @@ def test_fitters_record_the_time_unit_in_the_provenance():
     model = make_fitter("linear-inverse", {}).fit(series).surrogate_
     assert model.provenance["time_unit"] == "hours" and model.provenance["dt"] == 6.0
     assert time_unit_note(model).startswith("time unit: hours (dt = 6 hours)")
-    plain = make_fitter("linear-inverse", {}).fit(
-        Series.from_arrays(runs, ("u", "v"), 6.0)).surrogate_
+    plain = (
+        make_fitter("linear-inverse", {}).fit(Series.from_arrays(runs, ("u", "v"), 6.0)).surrogate_
+    )
     assert "time_unit" not in plain.provenance and time_unit_note(plain) is None

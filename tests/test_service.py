@@ -182,7 +182,9 @@ def test_a_job_failed_as_interrupted_cannot_be_finished_by_its_old_worker(tmp_pa
     assert not store.succeed(job.id, job.claim, {"late": True})
     record = store.get(first.id)
     assert (record.state, record.error_code, record.error_message) == (
-        FAILED, INTERRUPTED, "server died"
+        FAILED,
+        INTERRUPTED,
+        "server died",
     )
     assert record.result is None
     assert store.get(second.id).state == "queued"
@@ -210,8 +212,12 @@ def test_every_write_endpoint_refuses_missing_and_wrong_tokens(served):
     writes = _write_operations(document)
     # Sanity: the list comes from the document, and the document does list the writes we know.
     paths = {(m, p) for m, p, _ in writes}
-    assert {("post", "/datasets"), ("post", "/jobs/fit"), ("post", "/jobs/validate"),
-            ("post", "/jobs/retrain")} <= paths
+    assert {
+        ("post", "/datasets"),
+        ("post", "/jobs/fit"),
+        ("post", "/jobs/validate"),
+        ("post", "/jobs/retrain"),
+    } <= paths
     assert len(writes) >= 7
     jobs_before = client.get("/jobs").json()["jobs"]
     for method, path, operation in writes:
@@ -219,7 +225,9 @@ def test_every_write_endpoint_refuses_missing_and_wrong_tokens(served):
         for headers, code in (({}, MISSING_TOKEN), (auth("not-" + TOKEN), WRONG_TOKEN)):
             if "multipart/form-data" in operation.get("requestBody", {}).get("content", {}):
                 response = client.request(
-                    method, _fill(path), headers=headers,
+                    method,
+                    _fill(path),
+                    headers=headers,
                     files={"file": ("a.csv", b"time,x\n0,1\n1,2\n")},
                 )
             else:
@@ -245,14 +253,18 @@ def test_a_server_without_a_token_refuses_every_write(tmp_path):
 
 def test_token_from_the_environment_and_protected_reads(tmp_path):
     env = dict(os.environ, ERGODEX_TOKEN=TOKEN)
-    with ServerProcess(tmp_path / "home", workers=0, env=env,
-                       extra_args=["--protect-reads"]) as server:
+    with ServerProcess(
+        tmp_path / "home", workers=0, env=env, extra_args=["--protect-reads"]
+    ) as server:
         with httpx.Client(base_url=server.url, timeout=30) as client:
             health = client.get("/health").json()  # stays open for probes
             assert health["reads_protected"] is True and health["writes_enabled"] is True
             document = client.get("/openapi.json").json()
-            reads = [p for p, ops in document["paths"].items() if "get" in ops
-                     and "{" not in p and p != "/health"]
+            reads = [
+                p
+                for p, ops in document["paths"].items()
+                if "get" in ops and "{" not in p and p != "/health"
+            ]
             assert {"/models", "/jobs", "/datasets"} <= set(reads)
             for path in reads:
                 refused = client.get(path)
@@ -267,8 +279,9 @@ def test_serve_without_the_service_extra_says_what_to_install(tmp_path):
         "import sys; sys.modules['fastapi'] = None; from ergodex.cli import main; "
         f"sys.exit(main(['serve', '--port', '0', '--home', {str(tmp_path / 'home')!r}]))"
     )
-    done = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True,
-                          timeout=60)
+    done = subprocess.run(
+        [sys.executable, "-c", script], capture_output=True, text=True, timeout=60
+    )
     assert done.returncode == 2
     assert "pip install 'ergodex[service]'" in done.stderr
     assert len(done.stderr.strip().splitlines()) == 1
@@ -296,8 +309,9 @@ def test_bad_uploads_get_4xx_and_leave_nothing_behind(served):
     before = sorted(p.name for p in datasets_dir.glob("*")) if datasets_dir.exists() else []
     listed_before = client.get("/datasets").json()
     rng = np.random.default_rng(7)
-    good_rows = "\n".join(f"{0.1 * i:.1f},{v:.4f},{w:.4f}" for i, (v, w) in
-                          enumerate(rng.normal(size=(50, 2))))
+    good_rows = "\n".join(
+        f"{0.1 * i:.1f},{v:.4f},{w:.4f}" for i, (v, w) in enumerate(rng.normal(size=(50, 2)))
+    )
     cases = [
         ("../escape.csv", b"time,x\n0,1\n", 400, "bad-filename"),
         ("dir%2Fx.csv", b"time,x\n0,1\n", 400, "bad-filename"),
@@ -305,8 +319,7 @@ def test_bad_uploads_get_4xx_and_leave_nothing_behind(served):
         ("data.csv", b"\xff\xfe\x00\x00garbage" * 10, 422, "invalid-dataset"),
         ("data.csv", b"", 422, "invalid-dataset"),
         ("data.csv", b"time,x,y\n0,1\n0.1,2,3,4\n", 422, "invalid-dataset"),
-        ("data.csv", ("time,x,y\n" + good_rows + "\n0.9,nan,1\n").encode(), 422,
-         "invalid-dataset"),
+        ("data.csv", ("time,x,y\n" + good_rows + "\n0.9,nan,1\n").encode(), 422, "invalid-dataset"),
         ("data.npz", b"PK\x03\x04 not really a zip", 422, "invalid-dataset"),
         ("data.npz", b"plain text", 422, "invalid-dataset"),
         ("data.npz", _npz_bytes(x=np.array([object()], dtype=object)), 422, "invalid-dataset"),
@@ -347,8 +360,13 @@ def test_upload_fit_validate_accept_download_round_trip(served):
     check_options = {"members": 8, "seed": 3}
     job = client.post(
         "/jobs/fit",
-        json={"dataset": dataset["id"], "name": "convection-loop", "method": "sparse",
-              "holdout": 2, "check": check_options},
+        json={
+            "dataset": dataset["id"],
+            "name": "convection-loop",
+            "method": "sparse",
+            "holdout": 2,
+            "check": check_options,
+        },
         headers=auth(),
     )
     assert job.status_code == 202, job.text
@@ -360,8 +378,12 @@ def test_upload_fit_validate_accept_download_round_trip(served):
 
     job = client.post(
         "/jobs/validate",
-        json={"name": "convection-loop", "version": version, "dataset": check["id"],
-              "check": check_options},
+        json={
+            "name": "convection-loop",
+            "version": version,
+            "dataset": check["id"],
+            "check": check_options,
+        },
         headers=auth(),
     )
     checked = wait_for_job(client, job.json()["id"], timeout=120)
@@ -387,8 +409,10 @@ def test_upload_fit_validate_accept_download_round_trip(served):
         response = client.get(f"/models/convection-loop/versions/{served_ref}/{filename}")
         assert response.status_code == 200, (filename, response.text)
         assert response.content == registry.artifact(f"convection-loop@{version}", filename)
-        assert response.headers["etag"].strip('"') == registry.get(
-            f"convection-loop@{version}").artifacts[filename]
+        assert (
+            response.headers["etag"].strip('"')
+            == registry.get(f"convection-loop@{version}").artifacts[filename]
+        )
     events = client.get("/models/convection-loop/history").json()["events"]
     assert [e["event"] for e in events][:1] == ["registered"]
     assert "checked" in [e["event"] for e in events]
@@ -418,12 +442,29 @@ def test_schemathesis_finds_no_server_error_and_no_schema_violation(served, tmp_
     config.write_text("[parameters]\n" + "".join(f'"{k}" = "{v}"\n' for k, v in known.items()))
     cli = Path(sys.executable).with_name("schemathesis")
     command = [
-        str(cli), "--config-file", str(config), "run", f"{server.url}/openapi.json",
-        "--checks", "not_a_server_error,status_code_conformance,content_type_conformance,"
+        str(cli),
+        "--config-file",
+        str(config),
+        "run",
+        f"{server.url}/openapi.json",
+        "--checks",
+        "not_a_server_error,status_code_conformance,content_type_conformance,"
         "response_schema_conformance",
-        "--max-examples", "4", "--max-time", "15", "--seed", "2026", "--no-shrink",
-        "--phases", "examples,fuzzing", "--workers", "1", "--request-timeout", "20",
-        "--header", f"Authorization: Bearer {TOKEN}",
+        "--max-examples",
+        "4",
+        "--max-time",
+        "15",
+        "--seed",
+        "2026",
+        "--no-shrink",
+        "--phases",
+        "examples,fuzzing",
+        "--workers",
+        "1",
+        "--request-timeout",
+        "20",
+        "--header",
+        f"Authorization: Bearer {TOKEN}",
     ]
     done = subprocess.run(command, capture_output=True, text=True, timeout=120)
     assert done.returncode == 0, done.stdout[-4000:] + done.stderr[-2000:]
@@ -456,15 +497,28 @@ def test_killed_server_or_worker_fails_its_job_and_the_queued_ones_still_run(tmp
             # 256 members × 10^7 steps (minutes of work, no memory), so it is surely still
             # running when its worker is killed; the third is quick.
             fit = {"dataset": dataset, "name": "loop", "method": "sparse"}
-            long_check = {"name": "truth", "version": 1, "dataset": dataset,
-                          "check": {"members": 256, "spinup": 1e5, "seed": 1}}
-            check = {"name": "truth", "version": 1, "dataset": dataset,
-                     "check": {"members": 4, "seed": 1}}
+            long_check = {
+                "name": "truth",
+                "version": 1,
+                "dataset": dataset,
+                "check": {"members": 256, "spinup": 1e5, "seed": 1},
+            }
+            check = {
+                "name": "truth",
+                "version": 1,
+                "dataset": dataset,
+                "check": {"members": 4, "seed": 1},
+            }
             ids = [client.post("/jobs/fit", json=fit, headers=auth()).json()["id"]]
-            ids += [client.post("/jobs/validate", json=body, headers=auth()).json()["id"]
-                    for body in (long_check, check)]
-            wait_for(lambda: client.get(f"/jobs/{ids[0]}").json()["state"] != QUEUED,
-                     patience, "the start of the first job")
+            ids += [
+                client.post("/jobs/validate", json=body, headers=auth()).json()["id"]
+                for body in (long_check, check)
+            ]
+            wait_for(
+                lambda: client.get(f"/jobs/{ids[0]}").json()["state"] != QUEUED,
+                patience,
+                "the start of the first job",
+            )
             assert client.get(f"/jobs/{ids[0]}").json()["state"] == RUNNING
         server.kill()
     finally:
@@ -483,8 +537,9 @@ def test_killed_server_or_worker_fails_its_job_and_the_queued_ones_still_run(tmp
             assert "killed" in first["error"]["message"]
             # A worker that dies mid-job (here SIGKILL; in life the kernel's out-of-memory
             # killer) fails its job at once and is replaced; the queue goes on.
-            wait_for(lambda: store.get(ids[1]).state == RUNNING, patience,
-                     "the start of the second job")
+            wait_for(
+                lambda: store.get(ids[1]).state == RUNNING, patience, "the start of the second job"
+            )
             os.kill(store.get(ids[1]).worker_pid, signal.SIGKILL)
             second = wait_for_job(client, ids[1], timeout=patience)
             assert second["state"] == FAILED and second["error"]["code"] == INTERRUPTED
@@ -492,9 +547,11 @@ def test_killed_server_or_worker_fails_its_job_and_the_queued_ones_still_run(tmp
             third = wait_for_job(client, ids[2], timeout=patience)
             assert third["state"] == SUCCEEDED, third["error"]
             assert third["result"]["verdict"] in ("pass", "fail")
-            wait_for(lambda: client.get("/health").json()["workers"] == {"configured": 1,
-                                                                         "alive": 1},
-                     60, "a replacement worker")
+            wait_for(
+                lambda: client.get("/health").json()["workers"] == {"configured": 1, "alive": 1},
+                60,
+                "a replacement worker",
+            )
     registry = Registry(home)
     # The interrupted fit left no version behind, and every stored byte matches its hash.
     assert [m.name for m in registry.list_models()] == ["truth"]

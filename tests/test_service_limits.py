@@ -149,8 +149,10 @@ def test_check_memory_estimate_scales_with_members_length_and_variables():
     base = check_memory_estimate({"members": 8, "length": 10.0}, dt=0.01, variables=3, samples=1)
     # members × (length / dt) × variables × 8 bytes × factor, from the docstring's formula.
     assert base == 8 * 1000 * 3 * 8 * CHECK_MEMORY_FACTOR
-    assert check_memory_estimate({"members": 16, "length": 10.0}, dt=0.01, variables=3,
-                                 samples=1) == 2 * base
+    assert (
+        check_memory_estimate({"members": 16, "length": 10.0}, dt=0.01, variables=3, samples=1)
+        == 2 * base
+    )
     # Without a length a member covers at most half the reference samples.
     assert check_memory_estimate({"members": 8}, dt=0.01, variables=3, samples=2000) == base
 
@@ -249,8 +251,10 @@ def test_concurrent_submissions_never_overshoot_the_bound(tmp_path):
 
     store = JobStore(tmp_path / "jobs.sqlite3")
     procs = [
-        subprocess.Popen([sys.executable, "-c", _SUBMITTER, str(store.path), f"owner-{i}"],
-                         stdout=subprocess.PIPE)
+        subprocess.Popen(
+            [sys.executable, "-c", _SUBMITTER, str(store.path), f"owner-{i}"],
+            stdout=subprocess.PIPE,
+        )
         for i in range(3)
     ]
     accepted = []
@@ -276,7 +280,10 @@ def limited(tmp_path_factory):
     token_file.write_text(TOKEN + "\n")
     Registry(root / "home").register("truth", scenarios.lorenz63_surrogate(), note="reference")
     server = ServerProcess(
-        root / "home", token_file=token_file, workers=0, start_timeout=180,
+        root / "home",
+        token_file=token_file,
+        workers=0,
+        start_timeout=180,
         extra_args=["--max-upload-mb", "2", "--max-dataset-mb", "100", "--queue-per-token", "3"],
     ).start()
     try:
@@ -291,8 +298,9 @@ def test_a_zip_bomb_is_refused_before_inflating_and_nothing_is_stored(limited):
     datasets = server.home / "service" / "datasets"
     before = sorted(p.name for p in datasets.glob("*")) if datasets.exists() else []
     # 480 MB of zeros deflate to under 0.5 MB: well inside the 2 MiB upload limit.
-    bomb = _npz(values=np.zeros((1, 20_000_000, 3)), names=np.array(["a", "b", "c"]),
-                dt=np.array(0.1))
+    bomb = _npz(
+        values=np.zeros((1, 20_000_000, 3)), names=np.array(["a", "b", "c"]), dt=np.array(0.1)
+    )
     assert len(bomb) < 2 * MiB
     peak_before = _peak_rss_mib(server.pid)
     response = upload(client, "bomb.npz", bomb)
@@ -323,8 +331,12 @@ def test_the_queue_bound_answers_429_and_cancel_frees_a_place(limited):
     server, client = limited
     dataset = upload(client, "loop.csv", convection_csv(seed=31, n_runs=2, duration=10.0))
     assert dataset.status_code in (200, 201), dataset.text
-    body = {"name": "truth", "version": 1, "dataset": dataset.json()["id"],
-            "check": {"members": 4, "seed": 1}}
+    body = {
+        "name": "truth",
+        "version": 1,
+        "dataset": dataset.json()["id"],
+        "check": {"members": 4, "seed": 1},
+    }
     ids = []
     for _ in range(3):
         response = client.post("/jobs/validate", json=body, headers=auth())
@@ -361,8 +373,12 @@ def test_the_queue_bound_answers_429_and_cancel_frees_a_place(limited):
 def test_check_options_beyond_the_job_memory_limit_are_refused(limited):
     _server, client = limited
     dataset = upload(client, "loop.csv", convection_csv(seed=31, n_runs=2, duration=10.0))
-    body = {"name": "truth", "version": 1, "dataset": dataset.json()["id"],
-            "check": {"members": 1024, "length": 1e5}}
+    body = {
+        "name": "truth",
+        "version": 1,
+        "dataset": dataset.json()["id"],
+        "check": {"members": 1024, "length": 1e5},
+    }
     before = client.get("/health").json()["jobs"]
     response = client.post("/jobs/validate", json=body, headers=auth())
     assert response.status_code == 422, response.text
@@ -392,11 +408,14 @@ class OneWorker:
         Registry(self.home).register("truth", scenarios.lorenz63_surrogate(), note="reference")
         # A small check here first fills the compiled-kernel cache on disk, so that the small
         # jobs (each in a fresh worker) stay far inside a time limit even on a loaded machine.
-        validate(scenarios.lorenz63_surrogate(),
-                 scenarios.convection_loop(seed=21, n_runs=3, duration=20.0),
-                 CheckSpec(**SMALL_CHECK))
-        self.server = ServerProcess(self.home, token_file=token_file, workers=1,
-                                    start_timeout=300, extra_args=extra_args)
+        validate(
+            scenarios.lorenz63_surrogate(),
+            scenarios.convection_loop(seed=21, n_runs=3, duration=20.0),
+            CheckSpec(**SMALL_CHECK),
+        )
+        self.server = ServerProcess(
+            self.home, token_file=token_file, workers=1, start_timeout=300, extra_args=extra_args
+        )
 
     def __enter__(self):
         self.server.start()
@@ -423,8 +442,11 @@ class OneWorker:
         return JobStore(self.home / "service" / "jobs.sqlite3").get(job_id).worker_pid
 
     def wait_for_worker(self) -> None:
-        _wait_until(lambda: self.client.get("/health").json()["workers"]["alive"] == 1, 60,
-                    "a replacement worker")
+        _wait_until(
+            lambda: self.client.get("/health").json()["workers"]["alive"] == 1,
+            60,
+            "a replacement worker",
+        )
 
 
 @pytest.mark.slow
@@ -483,7 +505,9 @@ def test_job_error_codes_name_the_kind_of_failure():
     from ergodex.service.errors import describe_error
 
     assert describe_error(ModelLimitError("too stiff: needs substep 1e-12 < floor 2e-08")) == (
-        "model-limit", "too stiff: needs substep 1e-12 < floor 2e-08")
+        "model-limit",
+        "too stiff: needs substep 1e-12 < floor 2e-08",
+    )
     assert describe_error(IntegrityError("x"))[0] == "integrity-error"
     assert describe_error(DataError("a.csv: row 3"))[0] == "data-error"
     assert describe_error(KeyError("boom"))[0] == "internal-error"

@@ -15,8 +15,15 @@ xr = pytest.importorskip("xarray")
 def _linear_model(A, b, Q, *, dt=0.5, transform=None, names=("x", "y")):
     terms = polynomial_terms(len(b), 1)  # 1, x, y
     coefficients = np.column_stack([b, A])
-    return Surrogate(names, terms, coefficients, kind="linear-stochastic", noise=Q,
-                     transform=transform, provenance={"dt": dt})
+    return Surrogate(
+        names,
+        terms,
+        coefficients,
+        kind="linear-stochastic",
+        noise=Q,
+        transform=transform,
+        provenance={"dt": dt},
+    )
 
 
 def test_linear_model_matches_its_stationary_mean_and_covariance():
@@ -27,8 +34,14 @@ def test_linear_model_matches_its_stationary_mean_and_covariance():
     Q = np.array([[0.8, 0.1], [0.1, 0.4]])
     model = _linear_model(A, b, Q)
     calls = []
-    ds = ergodex.simulate(model, members=100, duration=200.0, seed=3, spinup=20.0,
-                          progress=lambda d, t: calls.append((d, t)))
+    ds = ergodex.simulate(
+        model,
+        members=100,
+        duration=200.0,
+        seed=3,
+        spinup=20.0,
+        progress=lambda d, t: calls.append((d, t)),
+    )
     assert dict(ds.sizes) == {"member": 100, "time": 400}
     assert list(ds.data_vars) == ["x", "y"]
     assert ds.attrs["status"] == "ok" and ds.attrs["dt"] == 0.5
@@ -55,8 +68,9 @@ def test_values_are_in_data_space_and_frames_read_the_result_back():
     # the model lives in standardised units; the data have mean 10 and spread 3
     data = rng.normal(loc=10.0, scale=3.0, size=(500, 2))
     transform = Standardise().fit(data, names=("p", "q"))
-    model = _linear_model(-np.eye(2), np.zeros(2), 0.5 * np.eye(2), dt=0.1, transform=transform,
-                          names=("z0", "z1"))
+    model = _linear_model(
+        -np.eye(2), np.zeros(2), 0.5 * np.eye(2), dt=0.1, transform=transform, names=("z0", "z1")
+    )
     ds = ergodex.simulate(model, members=20, steps=2000, seed=1, spinup=5.0)
     assert list(ds.data_vars) == ["p", "q"]
     # stationary model variance is Q/2 = 0.25 per unit (A = -I), so data sd = 3 * 0.5
@@ -73,8 +87,12 @@ def test_blow_up_is_a_status_not_an_exception():
     # dx/dt = 1 + x^2 from x(0) ~ 0 is tan(t): it leaves every bound before t = pi/2; the
     # recorded training range [-1, 1] bounds members at ten times that range (as the CLI does)
     terms = polynomial_terms(1, 2)  # 1, x, x^2
-    model = Surrogate(("x",), terms, np.array([[1.0, 0.0, 1.0]]),
-                      provenance={"dt": 0.1, "model_range": {"x": [-1.0, 1.0]}})
+    model = Surrogate(
+        ("x",),
+        terms,
+        np.array([[1.0, 0.0, 1.0]]),
+        provenance={"dt": 0.1, "model_range": {"x": [-1.0, 1.0]}},
+    )
     ds = ergodex.simulate(model, members=3, steps=40, seed=0, spinup=0.0)
     assert ds.attrs["status"] == "all-blowup" and ds.attrs["n_blown_up"] == 3
     assert bool(ds["blown_up"].all())

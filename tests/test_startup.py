@@ -31,8 +31,13 @@ def _loaded_after(argv: list[str]) -> tuple[int, str, set[str]]:
         "names = sorted({m.split('.')[0] for m in sys.modules})\n"
         "print('\\n@@' + json.dumps({'code': code, 'modules': names}))\n"
     )
-    proc = subprocess.run([sys.executable, "-c", script, *argv], check=False, capture_output=True,
-                          text=True, timeout=300)
+    proc = subprocess.run(
+        [sys.executable, "-c", script, *argv],
+        check=False,
+        capture_output=True,
+        text=True,
+        timeout=300,
+    )
     out, _, tail = proc.stdout.rpartition("\n@@")
     assert tail, proc.stderr
     record = json.loads(tail)
@@ -58,8 +63,9 @@ def test_command_help_loads_no_numerical_library(command):
 
 def test_linear_inverse_fit_never_imports_pysindy(tmp_path):
     out = tmp_path / "model.json"
-    code, _, modules = _loaded_after(["fit", str(DATASET), "--method", "linear-inverse",
-                                      "--out", str(out), "--quiet"])
+    code, _, modules = _loaded_after(
+        ["fit", str(DATASET), "--method", "linear-inverse", "--out", str(out), "--quiet"]
+    )
     assert code == 0
     document = json.loads(out.read_text())
     assert document["settings"]["method"] == "linear-inverse"
@@ -76,4 +82,3 @@ def test_fast_fft_length_matches_scipy():
     rng = np.random.default_rng(19)
     sizes = [*range(1, 3000), *rng.integers(3000, 10**9, size=500).tolist()]
     assert [fast_fft_length(n) for n in sizes] == [next_fast_len(n, real=True) for n in sizes]
-

@@ -24,7 +24,9 @@ def test_wasserstein_matches_scipy():
     u = rng.normal(0, 1, 700)
     v = rng.gamma(2.0, 1.0, 1100)
     # reference library: scipy.stats.wasserstein_distance (exact 1-D W1, same definition)
-    assert stats.wasserstein1(u, v) == pytest.approx(scipy.stats.wasserstein_distance(u, v), rel=1e-12)
+    assert stats.wasserstein1(u, v) == pytest.approx(
+        scipy.stats.wasserstein_distance(u, v), rel=1e-12
+    )
     # a shift by c moves W1 by exactly c (analytic)
     assert stats.wasserstein1(u, u + 0.37) == pytest.approx(0.37, rel=1e-12)
 
@@ -34,7 +36,9 @@ def test_quantile_function_gives_exact_w1_for_equal_sizes():
     u, v = rng.normal(size=500), rng.laplace(size=500)
     qu, qv = stats.quantile_function(u, 500), stats.quantile_function(v, 500)
     # reference library: scipy.stats.wasserstein_distance; equal sizes -> mean |sorted u - sorted v|
-    assert np.mean(np.abs(qu - qv)) == pytest.approx(scipy.stats.wasserstein_distance(u, v), rel=1e-12)
+    assert np.mean(np.abs(qu - qv)) == pytest.approx(
+        scipy.stats.wasserstein_distance(u, v), rel=1e-12
+    )
 
 
 def test_histogram_wasserstein_matches_scipy_weighted():
@@ -115,10 +119,12 @@ def test_autocorrelation_pools_runs_without_crossing_boundaries():
     a, b = rng.normal(size=400), rng.normal(size=300)
     pooled = stats.autocorrelation([a, b], 5)
     mu = np.concatenate([a, b]).mean()
+
     # direct sum of lagged products within each run (definition, Box, Jenkins & Reinsel §2.1.5)
     def lagged(r, k):
         d = r - mu
         return np.sum(d[: d.size - k] * d[k:])
+
     direct = np.array([lagged(a, k) + lagged(b, k) for k in range(6)])
     np.testing.assert_allclose(pooled, direct / direct[0], atol=1e-12)
 
@@ -163,7 +169,9 @@ def test_quantiles_and_exceedance_on_gaussian():
     sd = np.sqrt(levels * (1 - levels) / x.shape[0]) / scipy.stats.norm.pdf(expected)
     assert np.all(np.abs(q - expected[:, None]) < 5 * sd[:, None])
     rate = stats.exceedance_rate(x, q[1])
-    np.testing.assert_allclose(rate, 0.01, atol=1e-6)  # fraction above the sample's own 99 % quantile
+    np.testing.assert_allclose(
+        rate, 0.01, atol=1e-6
+    )  # fraction above the sample's own 99 % quantile
     # white noise: the chance that an excursion starts at a given step is p(1-p) (definition)
     starts = stats.exceedance_rate(x[:, 0], expected[1], dt=0.5)
     assert starts == pytest.approx(0.01 * 0.99 / 0.5, rel=0.1)  # 2000 events: sd ≈ 2.2 %

@@ -25,8 +25,9 @@ def test_histogram_of_single_values_and_of_nothing():
 
 def test_joint_histogram_by_hand():
     ex, ey = np.array([0.0, 1.0]), np.array([0, 10])  # one bin each, integer edges
-    joint = stats.joint_histogram([0.5, 1.0, -1.0, 3.0, np.nan], [5.0, 10.0, 5.0, np.nan, 5.0],
-                                  ex, ey)
+    joint = stats.joint_histogram(
+        [0.5, 1.0, -1.0, 3.0, np.nan], [5.0, 10.0, 5.0, np.nan, 5.0], ex, ey
+    )
     # kept pairs: (0.5, 5) and (1, 10) in the bin, (-1, 5) below x; pairs with a NaN are dropped
     np.testing.assert_allclose(joint, [[0, 1 / 3, 0], [0, 2 / 3, 0], [0, 0, 0]])
     assert stats.joint_histogram([0.5], [5.0], ex, ey)[1, 1] == 1.0
@@ -45,8 +46,9 @@ def test_histogram_edges_bins_and_freedman_diaconis_by_hand():
     # reference library: numpy's 'fd' rule, the same width and bin count
     assert stats.histogram_edges(y, "fd").size == np.histogram_bin_edges(y, bins="fd").size
     for bad in (0, 2.5, True):
-        with pytest.raises(SettingsError, match=f"bins must be a positive integer or 'fd'; got "
-                                                f"{bad!r}"):
+        with pytest.raises(
+            SettingsError, match=f"bins must be a positive integer or 'fd'; got {bad!r}"
+        ):
             stats.histogram_edges(x, bad)
     with pytest.raises(DataError, match="histogram reference has no finite values"):
         stats.histogram_edges([np.nan])
@@ -66,10 +68,15 @@ def test_distance_refusals_name_the_problem():
         stats.wasserstein1_histogram([0.5, 0.5, 0.0], [1.0, 0.0], [0.0, 1.0])
     with pytest.raises(DataError, match="same shape"):
         stats.hellinger([1.0, 0.0], [1.0])
-    for p, q in (([0.0, 0.0], [1.0, 1.0]), ([1.0, 1.0], [0.0, 0.0]), ([2.0, -1.0], [1.0, 1.0]),
-                 ([1.0, 1.0], [2.0, -1.0])):
-        with pytest.raises(DataError, match="^distributions must be non-negative with positive "
-                                            "total mass$"):
+    for p, q in (
+        ([0.0, 0.0], [1.0, 1.0]),
+        ([1.0, 1.0], [0.0, 0.0]),
+        ([2.0, -1.0], [1.0, 1.0]),
+        ([1.0, 1.0], [2.0, -1.0]),
+    ):
+        with pytest.raises(
+            DataError, match="^distributions must be non-negative with positive total mass$"
+        ):
             stats.hellinger(p, q)
     with pytest.raises(DataError, match="sample has no finite values"):
         stats.quantile_function([np.nan], 4)
@@ -86,16 +93,16 @@ def test_ks_distance_with_ties_matches_scipy():
     rng = np.random.default_rng(72)
     u, v = rng.integers(0, 5, 60).astype(float), rng.integers(0, 6, 45).astype(float)
     # reference library: scipy.stats.ks_2samp (ties between the samples are frequent here)
-    assert stats.ks_distance(u, v) == pytest.approx(scipy.stats.ks_2samp(u, v).statistic,
-                                                    abs=1e-12)
+    assert stats.ks_distance(u, v) == pytest.approx(scipy.stats.ks_2samp(u, v).statistic, abs=1e-12)
 
 
 def test_any_array_like_is_one_run():
     pd = pytest.importorskip("pandas")
     x = np.random.default_rng(77).normal(size=200)
     # a pandas Series is one run (array_like), not a list of runs
-    np.testing.assert_allclose(stats.autocorrelation(pd.Series(x), 5),
-                               stats.autocorrelation(x, 5), atol=0)
+    np.testing.assert_allclose(
+        stats.autocorrelation(pd.Series(x), 5), stats.autocorrelation(x, 5), atol=0
+    )
 
 
 def test_quantile_function_with_fewer_points_than_samples():
@@ -116,14 +123,19 @@ def test_autocorrelation_lags_runs_and_refusals():
     # a given mean replaces the pooled mean: direct sums (Box, Jenkins & Reinsel §2.1.5)
     d = x - 0.5
     direct = np.array([np.sum(d[: 40 - k] * d[k:]) for k in range(4)])
-    np.testing.assert_allclose(stats.autocorrelation(x, 3, mean=np.array([0.5])),
-                               direct / direct[0], atol=1e-12)
+    np.testing.assert_allclose(
+        stats.autocorrelation(x, 3, mean=np.array([0.5])), direct / direct[0], atol=1e-12
+    )
     for bad in (-1, 40):
-        with pytest.raises(SettingsError, match=rf"max_lag must be in \[0, 39\] for runs of 40 "
-                                                rf"samples; got {bad}"):
+        with pytest.raises(
+            SettingsError,
+            match=rf"max_lag must be in \[0, 39\] for runs of 40 "
+            rf"samples; got {bad}",
+        ):
             stats.autocorrelation(x, bad)
-    with pytest.raises(DataError, match="^autocorrelation needs finite values; drop blown-up "
-                                        "runs first$"):
+    with pytest.raises(
+        DataError, match="^autocorrelation needs finite values; drop blown-up runs first$"
+    ):
         stats.autocorrelation(np.array([1.0, np.nan, 2.0]), 1)
     with pytest.raises(DataError, match="^autocorrelation of a constant variable is undefined$"):
         stats.autocorrelation(np.ones(10), 2)
@@ -158,8 +170,11 @@ def test_welch_psd_segment_limits():
     x = np.random.default_rng(75).normal(size=(2, 16))
     for nperseg in (2, 16):  # both ends of [2, n_samples]
         # reference library: scipy.signal.welch with its defaults
-        np.testing.assert_allclose(stats.welch_psd(x, 0.5, nperseg)[1],
-                                   scipy.signal.welch(x, fs=2.0, nperseg=nperseg)[1], rtol=1e-10)
+        np.testing.assert_allclose(
+            stats.welch_psd(x, 0.5, nperseg)[1],
+            scipy.signal.welch(x, fs=2.0, nperseg=nperseg)[1],
+            rtol=1e-10,
+        )
     for bad in (1, 17):
         with pytest.raises(SettingsError, match=rf"nperseg must be in \[2, 16\]; got {bad}"):
             stats.welch_psd(x, 0.5, bad)
@@ -179,13 +194,13 @@ def test_power_spectrum_weights_runs_by_their_number_of_segments():
     odd = [runs[0][:315], runs[1]]
     per_run = [scipy.signal.welch(r, fs=10.0, nperseg=63, axis=0)[1] for r in odd]
     expected = (8 * per_run[0] + ((1000 - 63) // 32 + 1) * per_run[1]) / (8 + 30)
-    np.testing.assert_allclose(stats.power_spectrum(odd, 0.1, nperseg=63)[1], expected,
-                               rtol=1e-12)
+    np.testing.assert_allclose(stats.power_spectrum(odd, 0.1, nperseg=63)[1], expected, rtol=1e-12)
     assert stats.power_spectrum(runs[0][:4, 0], 1.0)[0].size == 3  # 4 samples: the shortest
     with pytest.raises(DataError, match="runs of 3 samples are too short for a spectrum"):
         stats.power_spectrum(runs[0][:3], 1.0)
-    with pytest.raises(DataError, match="^power_spectrum needs finite values; drop blown-up "
-                                        "runs first$"):
+    with pytest.raises(
+        DataError, match="^power_spectrum needs finite values; drop blown-up runs first$"
+    ):
         stats.power_spectrum(np.array([1.0, 2.0, np.nan, 4.0, 5.0]), 1.0)
 
 
@@ -193,11 +208,13 @@ def test_quantiles_levels_and_missing_values():
     x = np.array([[1.0, 4.0], [2.0, np.nan], [3.0, 6.0], [4.0, 8.0]])
     # numpy.quantile per column, NaN dropped in column 1 only (linear interpolation, def. 7)
     np.testing.assert_allclose(stats.quantiles(x, [0.5]), [[2.5, 6.0]])
-    np.testing.assert_allclose(stats.quantiles(x[:, 0], (0.25, 0.75)),
-                               np.quantile(x[:, 0], [0.25, 0.75]))
+    np.testing.assert_allclose(
+        stats.quantiles(x[:, 0], (0.25, 0.75)), np.quantile(x[:, 0], [0.25, 0.75])
+    )
     for bad in ([0.0], [1.0], [0.5, 1.5], [-0.1]):
-        with pytest.raises(SettingsError, match="quantile levels must lie strictly between 0 and "
-                                                "1; got"):
+        with pytest.raises(
+            SettingsError, match="quantile levels must lie strictly between 0 and 1; got"
+        ):
             stats.quantiles(x[:, 0], bad)
     with pytest.raises(DataError, match="sample has no finite values"):
         stats.quantiles(np.array([np.nan]))

@@ -45,8 +45,13 @@ def lorenz63_rhs(x: np.ndarray) -> np.ndarray:
 def lorenz63_trajectory(t_end: float, dt: float, x0=(-8.0, 7.0, 27.0)) -> np.ndarray:
     t = np.arange(0.0, t_end, dt)
     sol = solve_ivp(
-        lambda _t, y: lorenz63_rhs(y[None, :])[0], (0.0, t[-1]), x0, t_eval=t,
-        method="DOP853", rtol=1e-10, atol=1e-10,
+        lambda _t, y: lorenz63_rhs(y[None, :])[0],
+        (0.0, t[-1]),
+        x0,
+        t_eval=t,
+        method="DOP853",
+        rtol=1e-10,
+        atol=1e-10,
     )
     return sol.y.T
 
@@ -119,13 +124,23 @@ def test_json_round_trip_is_bit_exact(tmp_path):
     coef[0, :4] = [0.1 + 0.2, -0.0, 5e-324, np.nextafter(1.0, 2.0)]
     a = rng.normal(size=(3, 3))
     noise = a @ a.T
-    s = Surrogate(NAMES, terms, coef, kind="quadratic-stochastic", noise=noise,
-                  settings={"threshold": np.float64(0.05), "degree": np.int64(2)},
-                  provenance={"data": "sha256:abc"})
+    s = Surrogate(
+        NAMES,
+        terms,
+        coef,
+        kind="quadratic-stochastic",
+        noise=noise,
+        settings={"threshold": np.float64(0.05), "degree": np.int64(2)},
+        provenance={"data": "sha256:abc"},
+    )
     path = tmp_path / "model.json"
     text = s.to_json(path)
     assert path.read_text() == text
-    for back in (Surrogate.from_json(text), Surrogate.from_json(path), Surrogate.from_json(str(path))):
+    for back in (
+        Surrogate.from_json(text),
+        Surrogate.from_json(path),
+        Surrogate.from_json(str(path)),
+    ):
         assert back.coefficients.tobytes() == s.coefficients.tobytes()
         assert back.noise.tobytes() == s.noise.tobytes()
         assert back.terms == s.terms and back.variables == s.variables
@@ -163,7 +178,9 @@ def test_model_dict_validates_against_the_packaged_schema():
     s = lorenz63_surrogate().with_noise(np.eye(3) * 0.5)
     assert is_valid(s.to_dict())
     assert is_valid(json.loads(lorenz63_surrogate().to_json()))
-    trig = Surrogate(("a",), (Term("monomial", (1,)), Term("cos", variable=0, frequency=2.0)), [[1.0, 2.0]])
+    trig = Surrogate(
+        ("a",), (Term("monomial", (1,)), Term("cos", variable=0, frequency=2.0)), [[1.0, 2.0]]
+    )
     assert is_valid(trig.to_dict())
     for change in (
         lambda d: d.update(format="ergodex-model/99"),
@@ -254,8 +271,9 @@ def test_from_pysindy_matches_the_library_term_by_term():
     ours = s.features(x[:200])
     assert ours.shape == np.asarray(theirs).shape
     for k, name in enumerate(model.feature_library.get_feature_names()):
-        np.testing.assert_allclose(ours[:, k], np.asarray(theirs)[:, k], rtol=1e-12, atol=1e-12,
-                                   err_msg=f"feature {name}")
+        np.testing.assert_allclose(
+            ours[:, k], np.asarray(theirs)[:, k], rtol=1e-12, atol=1e-12, err_msg=f"feature {name}"
+        )
     # And the library's own prediction of dx/dt.
     np.testing.assert_allclose(s.rhs(x[:200]), model.predict(x[:200]), rtol=1e-9, atol=1e-9)
     np.testing.assert_array_equal(s.coefficients, model.coefficients())
@@ -284,7 +302,9 @@ def test_from_pysindy_refuses_unsupported_terms():
     ps = pytest.importorskip("pysindy")
     rng = np.random.default_rng(6)
     x = rng.normal(size=(300, 2))
-    library = ps.CustomLibrary(library_functions=[lambda v: np.tanh(v)], function_names=[lambda v: f"tanh({v})"])
+    library = ps.CustomLibrary(
+        library_functions=[lambda v: np.tanh(v)], function_names=[lambda v: f"tanh({v})"]
+    )
     model = ps.SINDy(feature_library=library, optimizer=ps.STLSQ(threshold=0.0))
     model.fit(x, t=0.01)
     with pytest.raises(SettingsError, match=r"tanh\(x0\)"):
@@ -307,8 +327,19 @@ def _hidden_level_surrogate(rng: np.random.Generator, observed=("mode_1", "mode_
     noise = np.zeros((4, 4))
     noise[2:, 2:] = a @ a.T
     settings = {"observed_variables": list(observed), "hidden_variables": ["r_mode_1", "r_mode_2"]}
-    return X, pca, Surrogate(variables, terms, coef, kind="polynomial-emr", noise=noise,
-                             transform=pca, settings=settings)
+    return (
+        X,
+        pca,
+        Surrogate(
+            variables,
+            terms,
+            coef,
+            kind="polynomial-emr",
+            noise=noise,
+            transform=pca,
+            settings=settings,
+        ),
+    )
 
 
 def test_hidden_variables_beside_a_transform_round_trip_exactly(tmp_path):
@@ -361,7 +392,9 @@ def test_wrong_observed_variables_in_a_model_file_name_the_field():
     _, _, s = _hidden_level_surrogate(rng)
     d = s.to_dict()
     d["settings"]["observed_variables"] = ["mode_1", "nope"]
-    with pytest.raises(ModelFileError, match="model JSON: field settings.observed_variables: 'nope'"):
+    with pytest.raises(
+        ModelFileError, match="model JSON: field settings.observed_variables: 'nope'"
+    ):
         Surrogate.from_json(json.dumps(d))
     del d["settings"]["observed_variables"]
     with pytest.raises(ModelFileError, match="settings.observed_variables"):
@@ -374,8 +407,12 @@ def test_hidden_variables_without_a_transform_are_dropped_in_data_space():
     rng = np.random.default_rng(45)
     variables = ("x", "r_y", "y", "r_x")
     terms = polynomial_terms(4, 1)
-    s = Surrogate(variables, terms, rng.normal(size=(4, len(terms))),
-                  settings={"observed_variables": ["y", "x"]})
+    s = Surrogate(
+        variables,
+        terms,
+        rng.normal(size=(4, len(terms))),
+        settings={"observed_variables": ["y", "x"]},
+    )
     assert s.observed_variables == ("y", "x")
     full = rng.normal(size=(3, 7, 4))
     np.testing.assert_array_equal(s.to_data_space(full), full[..., [2, 0]])
@@ -386,5 +423,7 @@ def test_hidden_variables_without_a_transform_are_dropped_in_data_space():
     np.testing.assert_array_equal(plain.to_data_space(full), full)
     # a name that is not a model variable cannot be mapped
     odd = Surrogate(variables, terms, s.coefficients, settings={"observed_variables": ["x", "z"]})
-    with pytest.raises(SettingsError, match="settings.observed_variables: 'z' is not a model variable"):
+    with pytest.raises(
+        SettingsError, match="settings.observed_variables: 'z' is not a model variable"
+    ):
         odd.to_data_space(full)

@@ -35,8 +35,9 @@ def test_pca_keeps_the_asked_variance_and_round_trips_within_it(ring, fraction):
     assert kept - pca.explained_variance_ratio_[-1] < fraction
     # Reference: scikit-learn's ratios are eigenvalues of the sample covariance over its trace.
     eig = np.sort(np.linalg.eigvalsh(np.cov(X.T)))[::-1]
-    np.testing.assert_allclose(pca.explained_variance_ratio_, eig[: pca.n_modes_] / eig.sum(),
-                               rtol=1e-8)
+    np.testing.assert_allclose(
+        pca.explained_variance_ratio_, eig[: pca.n_modes_] / eig.sum(), rtol=1e-8
+    )
     recon = pca.inverse(pca.forward(X))
     lost = np.sum((X - recon) ** 2) / np.sum((X - X.mean(axis=0)) ** 2)
     # The round trip loses exactly the variance not kept (orthogonal projection).
@@ -65,8 +66,7 @@ def test_delay_embedding_round_trips_exactly():
     # the lagged block at row t holds the values delay*j samples earlier
     np.testing.assert_array_equal(Z[:, 2:4], X[4:46])
     np.testing.assert_array_equal(Z[:, 4:6], X[0:42])
-    assert d.output_names == ("flow", "dT_up", "flow_lag4", "dT_up_lag4", "flow_lag8",
-                              "dT_up_lag8")
+    assert d.output_names == ("flow", "dT_up", "flow_lag4", "dT_up_lag4", "flow_lag8", "dT_up_lag8")
 
 
 def test_delay_embedding_of_a_series_never_spans_runs():
@@ -95,8 +95,7 @@ def test_surrogate_carries_its_transform(ring):
     surrogate_mod = pytest.importorskip("ergodex.surrogate")
     pca = PCA(2).fit(ring)
     terms = surrogate_mod.polynomial_terms(2, 1)
-    s = surrogate_mod.Surrogate(pca.output_names, terms, np.zeros((2, len(terms))),
-                                transform=pca)
+    s = surrogate_mod.Surrogate(pca.output_names, terms, np.zeros((2, len(terms))), transform=pca)
     back = surrogate_mod.Surrogate.from_json(s.to_json())
     X = ring.runs[0][:10]
     np.testing.assert_array_equal(back.to_model_space(X), pca.forward(X))
@@ -122,6 +121,13 @@ def test_errors():
     with pytest.raises(ModelFileError, match="missing field 'scale'"):
         transform_from_dict({"kind": "standardise", "input_names": ["a"], "mean": [0.0]})
     with pytest.raises(ModelFileError, match="'components' has shape"):
-        transform_from_dict({"kind": "pca", "input_names": ["a", "b"], "mean": [0, 0],
-                             "components": [[1.0, 0.0, 0.0]], "explained_variance": [1.0],
-                             "explained_variance_ratio": [1.0]})
+        transform_from_dict(
+            {
+                "kind": "pca",
+                "input_names": ["a", "b"],
+                "mean": [0, 0],
+                "components": [[1.0, 0.0, 0.0]],
+                "explained_variance": [1.0],
+                "explained_variance_ratio": [1.0],
+            }
+        )

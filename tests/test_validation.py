@@ -42,7 +42,12 @@ def test_true_lorenz63_passes_and_wrong_parameters_fail(loop_data, loop_regimes)
     assert truth.scorecard.verdict == "pass", truth.scorecard.table()
     assert truth.scorecard.largest_ratio <= spec.tolerance
     assert {r.statistic for r in truth.scorecard.rows} == {
-        "histogram", "autocorrelation", "spectrum", "quantiles", "occupancy"}
+        "histogram",
+        "autocorrelation",
+        "spectrum",
+        "quantiles",
+        "occupancy",
+    }
 
     for wrong in (scenarios.lorenz63_surrogate(rho=22.0), scenarios.lorenz63_surrogate(sigma=20.0)):
         sc = validation.validate(wrong, loop_data, spec)
@@ -61,8 +66,11 @@ def test_noise_floor_is_mean_pairwise_wasserstein_between_reference_pieces():
     sc = validation.validate(scenarios.ou_surrogate(), data, spec)
     for j, name in enumerate(data.names):
         # reference library: scipy.stats.wasserstein_distance over every pair of runs
-        pairs = [scipy.stats.wasserstein_distance(data.runs[a][:, j], data.runs[b][:, j])
-                 for a in range(4) for b in range(a + 1, 4)]
+        pairs = [
+            scipy.stats.wasserstein_distance(data.runs[a][:, j], data.runs[b][:, j])
+            for a in range(4)
+            for b in range(a + 1, 4)
+        ]
         row = next(r for r in sc.rows if r.variable == name)
         assert row.noise_floor == pytest.approx(np.mean(pairs), rel=1e-10)
         assert row.ratio == pytest.approx(row.value / row.noise_floor)
@@ -73,7 +81,9 @@ def test_ou_true_passes_and_faster_dynamics_fail():
     # but halves the correlation times: only the temporal rows can see it.
     data = _ou(41, duration=200.0)
     true = scenarios.ou_surrogate()
-    fast = scenarios.ou_surrogate(drift=2 * np.asarray(true.coefficients), noise=2 * np.asarray(true.noise))
+    fast = scenarios.ou_surrogate(
+        drift=2 * np.asarray(true.coefficients), noise=2 * np.asarray(true.noise)
+    )
     spec = CheckSpec(seed=2)
     assert validation.validate(true, data, spec).passed
     sc = validation.validate(fast, data, spec)
@@ -120,8 +130,19 @@ def test_scorecard_and_evidence_round_trip(tmp_path, loop_regimes):
     text = sc.to_json(path)
     d = json.loads(text)
     assert d["format"] == "ergodex-scorecard/1"
-    for key in ("verdict", "rows", "reasons", "blowups", "member_agreement", "spec", "settings",
-                "model_fingerprint", "data_fingerprint", "created", "ergodex_version"):
+    for key in (
+        "verdict",
+        "rows",
+        "reasons",
+        "blowups",
+        "member_agreement",
+        "spec",
+        "settings",
+        "model_fingerprint",
+        "data_fingerprint",
+        "created",
+        "ergodex_version",
+    ):
         assert key in d
     assert d["data_fingerprint"] == data.fingerprint()
     assert d["settings"]["piece_length_samples"] == 1800
@@ -150,9 +171,14 @@ def test_scorecard_and_evidence_round_trip(tmp_path, loop_regimes):
 
 def test_regime_rows_and_kmeans_regimes():
     data = _ou(45)
-    rs = RegimeSet.from_dict({"regime": [{"name": "c", "kind": "kmeans", "clusters": 2, "seed": 0}]})
-    sc = validation.validate(scenarios.ou_surrogate(), data, CheckSpec(seed=6, regimes=rs,
-                             statistics=("occupancy", "residence", "transitions")))
+    rs = RegimeSet.from_dict(
+        {"regime": [{"name": "c", "kind": "kmeans", "clusters": 2, "seed": 0}]}
+    )
+    sc = validation.validate(
+        scenarios.ou_surrogate(),
+        data,
+        CheckSpec(seed=6, regimes=rs, statistics=("occupancy", "residence", "transitions")),
+    )
     assert [r.variable for r in sc.rows] == ["c0", "c1", "c0", "c1", "all regimes"]
     assert sc.settings["regimes_used"]["regime"][0]["kind"] == "cluster"
 
@@ -199,14 +225,24 @@ def test_column_order_of_the_data_and_of_observed_variables_does_not_matter():
     sur = scenarios.ou_surrogate()
     spec = CheckSpec(seed=8, members=4, min_pieces=4)
     base = _rows_by_variable(validation.validate(sur, data, spec))
-    swapped = type(data).from_arrays([run[:, ::-1] for run in data.runs], data.names[::-1],
-                                     data.dt, source="swapped")
-    for sc in (validation.validate(sur, swapped, spec),
-               # observed_variables naming every variable in another order is no hidden level
-               validation.validate(Surrogate(sur.variables, sur.terms, sur.coefficients,
-                                             noise=sur.noise,
-                                             settings={"observed_variables": ["x2", "x1"]}),
-                                   data, spec)):
+    swapped = type(data).from_arrays(
+        [run[:, ::-1] for run in data.runs], data.names[::-1], data.dt, source="swapped"
+    )
+    for sc in (
+        validation.validate(sur, swapped, spec),
+        # observed_variables naming every variable in another order is no hidden level
+        validation.validate(
+            Surrogate(
+                sur.variables,
+                sur.terms,
+                sur.coefficients,
+                noise=sur.noise,
+                settings={"observed_variables": ["x2", "x1"]},
+            ),
+            data,
+            spec,
+        ),
+    ):
         rows = _rows_by_variable(sc)
         assert rows.keys() == base.keys()
         for key, (value, floor) in base.items():
@@ -217,8 +253,13 @@ def test_column_order_of_the_data_and_of_observed_variables_does_not_matter():
 def test_observed_variables_that_are_not_model_variables_are_refused():
     data = _ou(49)
     sur = scenarios.ou_surrogate()
-    odd = Surrogate(sur.variables, sur.terms, sur.coefficients, noise=sur.noise,
-                    settings={"observed_variables": ["x1", "x3"]})
+    odd = Surrogate(
+        sur.variables,
+        sur.terms,
+        sur.coefficients,
+        noise=sur.noise,
+        settings={"observed_variables": ["x1", "x3"]},
+    )
     with pytest.raises(DataError, match="observed variables \\['x3'\\] that it does not have"):
         validation.validate(odd, data, CheckSpec(seed=9, members=4, min_pieces=4))
 
@@ -228,8 +269,9 @@ def test_evidence_reads_from_a_binary_file_object_without_a_path(tmp_path):
     import zipfile
 
     data = _ou(50)
-    result = validation.check(scenarios.ou_surrogate(), data,
-                              CheckSpec(seed=10, members=4, min_pieces=4))
+    result = validation.check(
+        scenarios.ou_surrogate(), data, CheckSpec(seed=10, members=4, min_pieces=4)
+    )
     path = tmp_path / "evidence.npz"
     result.evidence.to_npz(path)
     raw = path.read_bytes()

@@ -29,8 +29,14 @@ def _model(b=B_Y, sigma=SIGMA, observed=("x",)):
     terms = polynomial_terms(2, 1)  # 1, x, y
     coefficients = np.array([[0.0, -A_X, 1.0], [0.0, 0.0, -b]])
     noise = np.array([[0.0, 0.0], [0.0, sigma**2]])
-    return Surrogate(("x", "y"), terms, coefficients, kind="linear-stochastic", noise=noise,
-                     settings={"observed_variables": list(observed)})
+    return Surrogate(
+        ("x", "y"),
+        terms,
+        coefficients,
+        kind="linear-stochastic",
+        noise=noise,
+        settings={"observed_variables": list(observed)},
+    )
 
 
 def _stationary_variance_of_x(b=B_Y, sigma=SIGMA):
@@ -43,8 +49,15 @@ def _stationary_variance_of_x(b=B_Y, sigma=SIGMA):
 def reference():
     # Four independent runs of x alone (y is never recorded), 400 time units each: about 130
     # decorrelation times per run (integrated ACF time of x ≈ 3 here).
-    run = integrate_ensemble(_model(), np.zeros((4, 2)), dt_out=DT, n_out=4000, spinup=40.0,
-                             seed=np.random.default_rng(81), keep=[0])
+    run = integrate_ensemble(
+        _model(),
+        np.zeros((4, 2)),
+        dt_out=DT,
+        n_out=4000,
+        spinup=40.0,
+        seed=np.random.default_rng(81),
+        keep=[0],
+    )
     assert run.status == "ok"
     return Series.from_arrays(list(run.states), ("x",), DT, source="hidden-level OU")
 
@@ -112,8 +125,13 @@ def test_true_ring_equations_in_pca_coordinates_pass_on_their_leading_modes():
     dZ = scenarios.lorenz96_rhs(transform.inverse(Z)) @ transform.components_.T
     theta = Surrogate(names, terms, np.zeros((40, len(terms)))).features(Z)
     coefficients = np.linalg.lstsq(theta, dZ, rcond=None)[0].T
-    truth = Surrogate(names, terms, coefficients, transform=transform,
-                      settings={"observed_variables": list(names[:10])})
+    truth = Surrogate(
+        names,
+        terms,
+        coefficients,
+        transform=transform,
+        settings={"observed_variables": list(names[:10])},
+    )
     states = fit_data.stacked()[:200]
     exact = scenarios.lorenz96_rhs(states) @ transform.components_.T
     np.testing.assert_allclose(truth.rhs(transform.forward(states)), exact, atol=1e-8)

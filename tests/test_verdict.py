@@ -49,8 +49,10 @@ def test_one_blow_up_in_sixteen_fails_at_the_default_and_passes_when_allowed():
     blowups, fail, reasons = _blowup_accounting(times, 0.0)
     assert blowups == {"count": 1, "members": [15], "times": [3.0], "allowed_fraction": 0.0}
     assert fail
-    assert reasons == ["1 of 16 members blew up (left the data range ten-fold or became "
-                       "non-finite), the first at t = 3 after spin-up"]
+    assert reasons == [
+        "1 of 16 members blew up (left the data range ten-fold or became "
+        "non-finite), the first at t = 3 after spin-up"
+    ]
     # raising the allowed fraction to 1/16 admits exactly one blown-up member
     assert not _blowup_accounting(times, 1 / 16)[1]
 
@@ -91,8 +93,9 @@ def test_ratio_cases():
 def test_row_at_the_tolerance_passes_and_just_above_fails():
     # ScoreRow docstring: "the row passes when ratio <= tolerance"
     tol = 2.75
-    rows = _score_rows("spectrum", ["a", "b", "c"], [2.75, np.nextafter(2.75, 3.0), 1.0],
-                       [1.0, 1.0, 4.0], tol)
+    rows = _score_rows(
+        "spectrum", ["a", "b", "c"], [2.75, np.nextafter(2.75, 3.0), 1.0], [1.0, 1.0, 4.0], tol
+    )
     assert [r.verdict for r in rows] == ["pass", "fail", "pass"]
     assert [r.variable for r in rows] == ["a", "b", "c"]
     assert rows[2].ratio == 0.25 and rows[2].value == 1.0 and rows[2].noise_floor == 4.0
@@ -110,11 +113,23 @@ def test_nan_row_fails():
 # ---------------------------------------------------------------------------------------------
 
 
-def _decide_with(rows=(), *, blowup_fail=False, blowup_reasons=(), any_alive=True,
-                 agreement_verdict="pass", agreement_reasons=()):
-    return _decide(list(rows), blowup_fail=blowup_fail, blowup_reasons=list(blowup_reasons),
-                   any_alive=any_alive, agreement_verdict=agreement_verdict,
-                   agreement_reasons=list(agreement_reasons))
+def _decide_with(
+    rows=(),
+    *,
+    blowup_fail=False,
+    blowup_reasons=(),
+    any_alive=True,
+    agreement_verdict="pass",
+    agreement_reasons=(),
+):
+    return _decide(
+        list(rows),
+        blowup_fail=blowup_fail,
+        blowup_reasons=list(blowup_reasons),
+        any_alive=any_alive,
+        agreement_verdict=agreement_verdict,
+        agreement_reasons=list(agreement_reasons),
+    )
 
 
 def test_everything_fine_passes_with_no_reasons():
@@ -122,39 +137,49 @@ def test_everything_fine_passes_with_no_reasons():
 
 
 def test_blow_ups_beyond_the_allowed_fraction_fail_even_when_members_survive():
-    verdict, reasons = _decide_with([_row(1.0, "pass")], blowup_fail=True,
-                                    blowup_reasons=["1 of 16 members blew up"])
+    verdict, reasons = _decide_with(
+        [_row(1.0, "pass")], blowup_fail=True, blowup_reasons=["1 of 16 members blew up"]
+    )
     assert verdict == "fail" and reasons == ["1 of 16 members blew up"]
     # within the allowed fraction the blow-up is still reported but does not fail the check
     assert _decide_with([_row(1.0, "pass")], blowup_reasons=["1 of 16 members blew up"]) == (
-        "pass", ["1 of 16 members blew up"])
+        "pass",
+        ["1 of 16 members blew up"],
+    )
 
 
 def test_no_survivor_fails_and_says_so_first():
-    verdict, reasons = _decide_with([], blowup_fail=True, any_alive=False,
-                                    blowup_reasons=["16 of 16 members blew up"],
-                                    agreement_verdict="fail")
+    verdict, reasons = _decide_with(
+        [],
+        blowup_fail=True,
+        any_alive=False,
+        blowup_reasons=["16 of 16 members blew up"],
+        agreement_verdict="fail",
+    )
     assert verdict == "fail"
-    assert reasons == ["every member blew up: no statistics can be compared",
-                       "16 of 16 members blew up"]
+    assert reasons == [
+        "every member blew up: no statistics can be compared",
+        "16 of 16 members blew up",
+    ]
     # no survivor fails even where blow-ups are allowed and nothing else is reported
     assert _decide_with([], any_alive=False)[0] == "fail"
 
 
 def test_nan_row_fails_the_check_and_is_named():
-    rows = [_row(1.0, "pass", variable="x"),
-            ScoreRow("spectrum", "y", NAN, NAN, NAN, 2.75, "fail")]
+    rows = [_row(1.0, "pass", variable="x"), ScoreRow("spectrum", "y", NAN, NAN, NAN, 2.75, "fail")]
     verdict, reasons = _decide_with(rows)
     assert verdict == "fail"
     assert reasons == ["spectrum of y: distance n/a× the noise floor (tolerance 2.75)"]
 
 
 def test_failing_rows_are_listed_largest_ratio_first_nan_last():
-    rows = [ScoreRow("quantiles", "a", NAN, 1.0, NAN, 3.0, "fail"),
-            _row(3.5, "fail", variable="b"),
-            _row(1.0, "pass", variable="c"),
-            _row(math.inf, "fail", "spectrum", "d"),
-            _row(23456.0, "fail", "autocorrelation", "e")]
+    rows = [
+        ScoreRow("quantiles", "a", NAN, 1.0, NAN, 3.0, "fail"),
+        _row(3.5, "fail", variable="b"),
+        _row(1.0, "pass", variable="c"),
+        _row(math.inf, "fail", "spectrum", "d"),
+        _row(23456.0, "fail", "autocorrelation", "e"),
+    ]
     verdict, reasons = _decide_with(rows, agreement_reasons=["members disagree"])
     assert verdict == "fail"
     assert reasons == [
@@ -167,8 +192,9 @@ def test_failing_rows_are_listed_largest_ratio_first_nan_last():
 
 
 def test_member_disagreement_alone_fails():
-    assert _decide_with([_row(1.0, "pass")], agreement_verdict="fail",
-                        agreement_reasons=["members disagree"]) == ("fail", ["members disagree"])
+    assert _decide_with(
+        [_row(1.0, "pass")], agreement_verdict="fail", agreement_reasons=["members disagree"]
+    ) == ("fail", ["members disagree"])
     assert _decide_with([_row(1.0, "pass")], agreement_verdict=None)[0] == "fail"
 
 
@@ -179,8 +205,12 @@ def test_check_with_one_member_blowing_up_fails_unless_allowed():
     # 4 runs of 200 time units: long enough to detect a ±50 % change (else inconclusive)
     data = scenarios.ornstein_uhlenbeck(seed=40, duration=200.0)
     ou = scenarios.ou_surrogate()
-    cubic = Surrogate(ou.variables, ou.terms + (Term("monomial", powers=(3, 0)),),
-                      np.hstack([ou.coefficients, [[0.01], [0.0]]]), noise=ou.noise)
+    cubic = Surrogate(
+        ou.variables,
+        ou.terms + (Term("monomial", powers=(3, 0)),),
+        np.hstack([ou.coefficients, [[0.01], [0.0]]]),
+        noise=ou.noise,
+    )
     starts = np.array(data.stacked()[:16])
     starts[5] = [20.0, 0.0]
     strict = validation.validate(cubic, data, CheckSpec(seed=1), initial_states=starts)
@@ -189,8 +219,9 @@ def test_check_with_one_member_blowing_up_fails_unless_allowed():
     assert all(r.verdict == "pass" for r in strict.rows)  # the blow-up alone decides it
     assert strict.member_agreement["verdict"] == "pass"
     assert strict.reasons[0].startswith("1 of 16 members blew up")
-    lenient = validation.validate(cubic, data, CheckSpec(seed=1, max_blowup_fraction=1 / 16),
-                                  initial_states=starts)
+    lenient = validation.validate(
+        cubic, data, CheckSpec(seed=1, max_blowup_fraction=1 / 16), initial_states=starts
+    )
     assert lenient.verdict == "pass"
     assert lenient.blowups["allowed_fraction"] == 1 / 16
 
@@ -230,15 +261,21 @@ def test_noise_floor_of_the_check_is_the_mean_over_the_exact_splits():
     # 4 runs, pool 2: the floor averages d over the 3 splits of the runs into two pairs;
     # d is Wasserstein-1 between the pooled samples (scipy.stats.wasserstein_distance)
     data = scenarios.ornstein_uhlenbeck(seed=44, duration=90.0)
-    sc = validation.validate(scenarios.ou_surrogate(), data,
-                             CheckSpec(seed=3, members=4, min_pieces=4, pool=2,
-                                       statistics=("histogram",)))
+    sc = validation.validate(
+        scenarios.ou_surrogate(),
+        data,
+        CheckSpec(seed=3, members=4, min_pieces=4, pool=2, statistics=("histogram",)),
+    )
     runs = data.runs
     splits = [((0, 1), (2, 3)), ((0, 2), (1, 3)), ((0, 3), (1, 2))]
     for j, name in enumerate(data.names):
-        d = [scipy.stats.wasserstein_distance(np.concatenate([runs[i][:, j] for i in a]),
-                                              np.concatenate([runs[i][:, j] for i in b]))
-             for a, b in splits]
+        d = [
+            scipy.stats.wasserstein_distance(
+                np.concatenate([runs[i][:, j] for i in a]),
+                np.concatenate([runs[i][:, j] for i in b]),
+            )
+            for a, b in splits
+        ]
         row = next(r for r in sc.rows if r.variable == name)
         # pooled groups have 3600 samples > 2000 quantile points: the floor uses the quantile
         # function at 2000 midpoints, whose error is far below the distances (≈ 0.03 here)
@@ -252,8 +289,14 @@ def test_noise_floor_of_the_check_is_the_mean_over_the_exact_splits():
 
 
 def _ctx(n_vars=1, statistics=("histogram",), max_lag=1, nperseg=8, regimes=None):
-    return {"statistics": statistics, "max_lag_samples": max_lag, "dt": 1.0, "nperseg": nperseg,
-            "regimes": regimes, "variables": tuple(f"v{j}" for j in range(n_vars))}
+    return {
+        "statistics": statistics,
+        "max_lag_samples": max_lag,
+        "dt": 1.0,
+        "nperseg": nperseg,
+        "regimes": regimes,
+        "variables": tuple(f"v{j}" for j in range(n_vars)),
+    }
 
 
 def _agreement_case(tolerance, shifts=((0, 0.0), (2, 2.0), (3, 6.0))):
@@ -279,8 +322,10 @@ def _agreement_case(tolerance, shifts=((0, 0.0), (2, 2.0), (3, 6.0))):
 def test_member_agreement_ratio_against_hand_computed_floor():
     out = _agreement_case(2.0)
     assert out["ratio"] == pytest.approx(2.0, rel=1e-12)
-    assert out["per_variable"] == {"v0": pytest.approx(2.0, rel=1e-12),
-                                   "v1": pytest.approx(2.0, rel=1e-12)}
+    assert out["per_variable"] == {
+        "v0": pytest.approx(2.0, rel=1e-12),
+        "v1": pytest.approx(2.0, rel=1e-12),
+    }
     assert out["verdict"] == "pass"  # at the tolerance: passes (ratio <= tolerance)
     assert out["tolerance"] == 2.0
     assert out["outlying_members"] == [3]  # mean distance 2.5 > 2; indices of the full ensemble
@@ -295,7 +340,8 @@ def test_member_agreement_beyond_tolerance_fails_with_the_outliers_named():
         "members disagree: their marginal distributions differ 2× more than reference pieces "
         "of the same length do (tolerance 1.9), beyond sampling noise; the surrogate may have "
         "several attractors or states it stays in for longer than a piece (outlying members: "
-        "[0, 3])"]
+        "[0, 3])"
+    ]
 
 
 def test_two_members_are_compared():
@@ -309,8 +355,9 @@ def test_at_most_eight_outlying_members_are_named():
     ref_pieces = np.stack([base, base + 1.0])[:, :, None]
     ctx = _ctx()
     model = np.stack([base + 5.0 * m for m in range(10)])[:, :, None]
-    out = _member_agreement(model, np.ones(10, bool), 4, _PieceStats(ref_pieces, ctx),
-                            ref_pieces, CheckSpec(), ctx)
+    out = _member_agreement(
+        model, np.ones(10, bool), 4, _PieceStats(ref_pieces, ctx), ref_pieces, CheckSpec(), ctx
+    )
     assert out["outlying_members"] == list(range(10))
     assert out["_reasons"][0].endswith("(outlying members: [0, 1, 2, 3, 4, 5, 6, 7])")
 
@@ -320,16 +367,19 @@ def test_a_collapsed_member_fails_agreement():
     ref_pieces = np.stack([base, base + 1.0])[:, :, None]
     ctx = _ctx()
     model = np.stack([np.tile(base, 2), np.full(8, 0.5), np.tile(base, 2)])[:, :, None]
-    out = _member_agreement(model, np.ones(3, bool), 4, _PieceStats(ref_pieces, ctx),
-                            ref_pieces, CheckSpec(), ctx)
+    out = _member_agreement(
+        model, np.ones(3, bool), 4, _PieceStats(ref_pieces, ctx), ref_pieces, CheckSpec(), ctx
+    )
     assert out["collapsed_members"] == [1]
     assert out["verdict"] == "fail"
-    assert out["_reasons"][0] == ("1 of 3 members settle on a fixed point while the others keep "
-                                  "moving")
+    assert out["_reasons"][0] == (
+        "1 of 3 members settle on a fixed point while the others keep moving"
+    )
     # every member collapsed
     flat = np.stack([np.full(8, 0.5), np.full(8, 0.7)])[:, :, None]
-    out = _member_agreement(flat, np.ones(2, bool), 4, _PieceStats(ref_pieces, ctx), ref_pieces,
-                            CheckSpec(), ctx)
+    out = _member_agreement(
+        flat, np.ones(2, bool), 4, _PieceStats(ref_pieces, ctx), ref_pieces, CheckSpec(), ctx
+    )
     assert out["verdict"] == "fail"
     assert out["_reasons"][0] == "every surviving member settles on a fixed point"
 
@@ -340,8 +390,15 @@ def test_a_single_survivor_cannot_disagree():
     ctx = _ctx()
     model = np.full((2, 4, 1), NAN)
     model[1, :, 0] = base
-    out = _member_agreement(model, np.array([False, True]), 4, _PieceStats(ref_pieces, ctx),
-                            ref_pieces, CheckSpec(), ctx)
+    out = _member_agreement(
+        model,
+        np.array([False, True]),
+        4,
+        _PieceStats(ref_pieces, ctx),
+        ref_pieces,
+        CheckSpec(),
+        ctx,
+    )
     assert out["ratio"] is None and out["verdict"] == "pass"
 
 
@@ -406,8 +463,9 @@ def test_piece_quantiles_and_spectra_equal_numpy_and_scipy():
     st = _PieceStats(pieces, _ctx(2, ("quantiles", "spectrum"), nperseg=64))
     for p in range(3):
         # reference library: numpy.quantile (linear, Hyndman & Fan definition 7)
-        np.testing.assert_allclose(st.quant[p], np.quantile(pieces[p], stats.DEFAULT_QUANTILES,
-                                                            axis=0), rtol=1e-12)
+        np.testing.assert_allclose(
+            st.quant[p], np.quantile(pieces[p], stats.DEFAULT_QUANTILES, axis=0), rtol=1e-12
+        )
         # reference library: scipy.signal.welch with its defaults
         _, ref = scipy.signal.welch(pieces[p], fs=1.0, nperseg=64, axis=0)
         np.testing.assert_allclose(st.psd[p], ref, rtol=1e-10)
@@ -416,21 +474,24 @@ def test_piece_quantiles_and_spectra_equal_numpy_and_scipy():
 def test_pair_distances_follow_their_definitions():
     rng = np.random.default_rng(25)
     pieces = _ar1(rng, 128, shape=(2, 1)).transpose(0, 2, 1)
-    st = _PieceStats(pieces, _ctx(1, ("autocorrelation", "spectrum", "quantiles"),
-                                  max_lag=10, nperseg=32))
+    st = _PieceStats(
+        pieces, _ctx(1, ("autocorrelation", "spectrum", "quantiles"), max_lag=10, nperseg=32)
+    )
     one = (np.array([0]), np.array([1]))
     a, b = st.acf[0, :, 0], st.acf[1, :, 0]
     # RMS over lags 1..max_lag (lag 0 is 1 for both and carries nothing)
     expected = np.sqrt(np.mean((a[1:] - b[1:]) ** 2))
-    assert _pair_distances("autocorrelation", st, st, one)[0, 0] == pytest.approx(expected,
-                                                                                  rel=1e-12)
+    assert _pair_distances("autocorrelation", st, st, one)[0, 0] == pytest.approx(
+        expected, rel=1e-12
+    )
     pa, pb = st.psd[0, :, 0], st.psd[1, :, 0]
     # L1 difference over the mean total power of the two spectra
     expected = np.sum(np.abs(pa - pb)) / np.mean([pa.sum(), pb.sum()])
     assert _pair_distances("spectrum", st, st, one)[0, 0] == pytest.approx(expected, rel=1e-12)
     qa, qb = st.quant[0, :, 0], st.quant[1, :, 0]
     assert _pair_distances("quantiles", st, st, one)[0, 0] == pytest.approx(
-        np.mean(np.abs(qa - qb)), rel=1e-12)
+        np.mean(np.abs(qa - qb)), rel=1e-12
+    )
     # a piece against itself is at distance zero for every statistic
     same = (np.array([1]), np.array([1]))
     for s in ("autocorrelation", "spectrum", "quantiles"):
@@ -442,9 +503,14 @@ def test_regime_rows_on_hand_labelled_pieces():
     # piece 0: n h h n c c c n — complete visits: hot 2, cold 3; occupancy h 2/8, c 3/8
     # piece 1: n h n c n h h h — complete visits: hot 1, cold 1 (the last hot visit is cut by
     # the end); occupancy h 4/8, c 1/8
-    regimes = RegimeSet.from_dict({"regime": [
-        {"name": "hot", "kind": "threshold", "rules": [{"variable": "v0", "above": 1.0}]},
-        {"name": "cold", "kind": "threshold", "rules": [{"variable": "v0", "below": -1.0}]}]})
+    regimes = RegimeSet.from_dict(
+        {
+            "regime": [
+                {"name": "hot", "kind": "threshold", "rules": [{"variable": "v0", "above": 1.0}]},
+                {"name": "cold", "kind": "threshold", "rules": [{"variable": "v0", "below": -1.0}]},
+            ]
+        }
+    )
     pieces = np.array([[0, 2, 2, 0, -2, -2, -2, 0], [0, 2, 0, -2, 0, 2, 2, 2]], float)[:, :, None]
     ctx = _ctx(1, ("occupancy", "residence", "transitions"), regimes=regimes)
     st = _PieceStats(pieces, ctx)
@@ -471,10 +537,13 @@ def test_spectrum_distance_is_per_variable():
     for j in range(2):
         pa, pb = st.psd[0, :, j], st.psd[1, :, j]
         # L1 difference over the mean total power, variable by variable
-        assert d[0, j] == pytest.approx(np.sum(np.abs(pa - pb)) / np.mean([pa.sum(), pb.sum()]),
-                                        rel=1e-12)
+        assert d[0, j] == pytest.approx(
+            np.sum(np.abs(pa - pb)) / np.mean([pa.sum(), pb.sum()]), rel=1e-12
+        )
     assert _pair_distances("spectrum", st, st, (np.array([], int), np.array([], int))).shape == (
-        0, 2)
+        0,
+        2,
+    )
 
 
 # ---------------------------------------------------------------------------------------------
@@ -504,8 +573,9 @@ def test_collapse_is_judged_per_variable_against_that_variable_spread():
     # 1e-5 is below 1e-6 × 1000 for the first variable but above 1e-6 × 1 for the second
     mixed = np.array([5.0, -5.0]) + wiggle * np.array([1e-5, 1e-5])
     model = np.stack([moving, still, mixed, moving[::-1]])
-    out = _member_agreement(model, np.ones(4, bool), 4, _PieceStats(ref_pieces, ctx), ref_pieces,
-                            CheckSpec(), ctx)
+    out = _member_agreement(
+        model, np.ones(4, bool), 4, _PieceStats(ref_pieces, ctx), ref_pieces, CheckSpec(), ctx
+    )
     assert out["collapsed_members"] == [1]
 
 
@@ -513,14 +583,34 @@ def test_single_survivor_record_has_every_key():
     base = np.array([0.0, 1.0, 2.0, 3.0])
     ref_pieces = np.stack([base, base + 1.0])[:, :, None]
     ctx = _ctx()
-    out = _member_agreement(np.tile(base, (1, 1))[:, :, None], np.array([True]), 4,
-                            _PieceStats(ref_pieces, ctx), ref_pieces, CheckSpec(tolerance=2.0),
-                            ctx)
-    assert out == {"tolerance": 2.0, "collapsed_members": [], "outlying_members": [],
-                   "per_variable": {}, "ratio": None, "verdict": "pass", "_reasons": []}
+    out = _member_agreement(
+        np.tile(base, (1, 1))[:, :, None],
+        np.array([True]),
+        4,
+        _PieceStats(ref_pieces, ctx),
+        ref_pieces,
+        CheckSpec(tolerance=2.0),
+        ctx,
+    )
+    assert out == {
+        "tolerance": 2.0,
+        "collapsed_members": [],
+        "outlying_members": [],
+        "per_variable": {},
+        "ratio": None,
+        "verdict": "pass",
+        "_reasons": [],
+    }
     # a single survivor that has settled fails
-    out = _member_agreement(np.full((1, 4, 1), 0.5), np.array([True]), 4,
-                            _PieceStats(ref_pieces, ctx), ref_pieces, CheckSpec(), ctx)
+    out = _member_agreement(
+        np.full((1, 4, 1), 0.5),
+        np.array([True]),
+        4,
+        _PieceStats(ref_pieces, ctx),
+        ref_pieces,
+        CheckSpec(),
+        ctx,
+    )
     assert out["verdict"] == "fail" and out["collapsed_members"] == [0]
     assert out["_reasons"] == ["every surviving member settles on a fixed point"]
 
@@ -528,19 +618,26 @@ def test_single_survivor_record_has_every_key():
 def test_evidence_per_piece_arrays_when_the_rows_did_not_compute_them():
     tsa = pytest.importorskip("statsmodels.tsa.stattools")
     data = scenarios.ornstein_uhlenbeck(seed=52, duration=90.0)
-    result = validation.check(scenarios.ou_surrogate(), data,
-                              CheckSpec(seed=4, members=4, min_pieces=4, bins="fd",
-                                        statistics=("histogram",)))
+    result = validation.check(
+        scenarios.ou_surrogate(),
+        data,
+        CheckSpec(seed=4, members=4, min_pieces=4, bins="fd", statistics=("histogram",)),
+    )
     ev, s = result.evidence, result.scorecard.settings
     lag, nperseg = s["max_lag_samples"], s["nperseg"]
     for p, run in enumerate(data.runs):  # 4 runs → 4 pieces, each a whole run
         for j in range(2):
             # reference libraries: statsmodels acf and scipy.signal.welch, piece by piece
-            np.testing.assert_allclose(ev.acf_reference_pieces[p, :, j],
-                                       tsa.acf(run[:, j], nlags=lag, fft=True), atol=1e-10)
-            np.testing.assert_allclose(ev.psd_reference_pieces[p, :, j],
-                                       scipy.signal.welch(run[:, j], fs=1 / data.dt,
-                                                          nperseg=nperseg)[1], rtol=1e-10)
+            np.testing.assert_allclose(
+                ev.acf_reference_pieces[p, :, j],
+                tsa.acf(run[:, j], nlags=lag, fft=True),
+                atol=1e-10,
+            )
+            np.testing.assert_allclose(
+                ev.psd_reference_pieces[p, :, j],
+                scipy.signal.welch(run[:, j], fs=1 / data.dt, nperseg=nperseg)[1],
+                rtol=1e-10,
+            )
     # "fd": every variable gets the largest Freedman–Diaconis count (numpy's 'fd' rule)
     stacked = data.stacked()
     counts = [np.histogram_bin_edges(stacked[:, j], bins="fd").size - 1 for j in range(2)]

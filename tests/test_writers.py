@@ -49,8 +49,12 @@ def test_write_replaces_atomically_and_leaves_no_temporary(tmp_path):
     before = target.read_bytes()
     bad = Series.from_arrays([rng.normal(size=(5, 2))], ["p", "q"], 0.1, run_labels=["x,y"])
     with pytest.raises(DataError, match="run label 'x,y' cannot be written"):
-        write_csv(tmp_path / "d.csv", Series.from_arrays(
-            [bad.runs[0], bad.runs[0] + 1], ["p", "q"], 0.1, run_labels=["x,y", "z"]))
+        write_csv(
+            tmp_path / "d.csv",
+            Series.from_arrays(
+                [bad.runs[0], bad.runs[0] + 1], ["p", "q"], 0.1, run_labels=["x,y", "z"]
+            ),
+        )
     assert not (tmp_path / "d.csv").exists()
     assert target.read_bytes() == before
     assert sorted(os.listdir(tmp_path)) == ["d.npz"]  # no temporary file left behind
@@ -62,8 +66,13 @@ def test_dataset_manifest_is_valid_toml_with_awkward_strings(tmp_path):
     rng = np.random.default_rng(4)
     s = _series(rng, lengths=(10, 11, 12), labels=("run 1", "run/2", "run-3"))
     manifest = write_dataset(
-        tmp_path / "ds", s, name='loop "A" \\ Ω', units=["K", "m s-1"], holdout=[-1],
-        description="line one\nline two\x7f", provenance={"seed": 4, "noise": 0.05, "ok": True},
+        tmp_path / "ds",
+        s,
+        name='loop "A" \\ Ω',
+        units=["K", "m s-1"],
+        holdout=[-1],
+        description="line one\nline two\x7f",
+        provenance={"seed": 4, "noise": 0.05, "ok": True},
     )
     doc = tomllib.loads(manifest.read_text())
     assert doc["name"] == 'loop "A" \\ Ω' and doc["description"] == "line one\nline two\x7f"

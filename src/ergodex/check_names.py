@@ -13,6 +13,13 @@ __all__ = ["ALL_STATISTICS", "DEFAULT_STATISTICS", "DEFAULT_TOLERANCE"]
 #: ``benchmarks/calibration.py`` (rates in ``benchmarks/README.md``).
 DEFAULT_TOLERANCE = 2.75
 
-ALL_STATISTICS = ("histogram", "autocorrelation", "spectrum", "quantiles", "occupancy",
-                  "residence", "transitions")
+ALL_STATISTICS = (
+    "histogram",
+    "autocorrelation",
+    "spectrum",
+    "quantiles",
+    "occupancy",
+    "residence",
+    "transitions",
+)
 DEFAULT_STATISTICS = ("histogram", "autocorrelation", "spectrum", "quantiles", "occupancy")

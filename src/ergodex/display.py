@@ -18,11 +18,15 @@ MAX_ROWS = 24
 #: At most this many equations go into a surrogate's HTML table.
 MAX_EQUATIONS = 12
 
-_STYLE = ("border-collapse:collapse;font-size:12px;font-family:system-ui,sans-serif;"
-          "margin:2px 0")
+_STYLE = "border-collapse:collapse;font-size:12px;font-family:system-ui,sans-serif;margin:2px 0"
 _CELL = "padding:2px 8px;border-bottom:1px solid #ddd;text-align:left"
-_COLOURS = {"pass": "#1b7a3a", "fail": "#b3261e", "inconclusive": "#6b5300",
-           "accepted": "#1b7a3a", "rejected": "#b3261e"}
+_COLOURS = {
+    "pass": "#1b7a3a",
+    "fail": "#b3261e",
+    "inconclusive": "#6b5300",
+    "accepted": "#1b7a3a",
+    "rejected": "#b3261e",
+}
 
 
 def _esc(value: Any) -> str:
@@ -47,14 +51,17 @@ def _short_hash(fingerprint: Any) -> str:
 
 def _badge(word: Any) -> str:
     colour = _COLOURS.get(str(word), "#555")
-    return (f'<span style="color:white;background:{colour};padding:1px 6px;border-radius:3px;'
-            f'font-weight:600">{_esc(str(word).upper())}</span>')
+    return (
+        f'<span style="color:white;background:{colour};padding:1px 6px;border-radius:3px;'
+        f'font-weight:600">{_esc(str(word).upper())}</span>'
+    )
 
 
 def _table(rows: list[tuple[str, str]]) -> str:
     """Two-column table: escaped labels, values already HTML."""
-    body = "".join(f'<tr><th style="{_CELL}">{_esc(k)}</th><td style="{_CELL}">{v}</td></tr>'
-                   for k, v in rows)
+    body = "".join(
+        f'<tr><th style="{_CELL}">{_esc(k)}</th><td style="{_CELL}">{v}</td></tr>' for k, v in rows
+    )
     return f'<table style="{_STYLE}">{body}</table>'
 
 
@@ -75,18 +82,22 @@ def scorecard_repr(card: Any) -> str:
     worst = _worst(card)
     where = f" ({worst.statistic} {worst.variable})" if worst is not None else ""
     blown = card.blowups.get("count", 0)
-    return (f"Scorecard(verdict={card.verdict!r}, rows={len(card.rows)}, "
-            f"largest_ratio={_number(card.largest_ratio)}{where}, "
-            f"blowups={blown}/{card.spec.members}, model={_short_hash(card.model_fingerprint)})")
+    return (
+        f"Scorecard(verdict={card.verdict!r}, rows={len(card.rows)}, "
+        f"largest_ratio={_number(card.largest_ratio)}{where}, "
+        f"blowups={blown}/{card.spec.members}, model={_short_hash(card.model_fingerprint)})"
+    )
 
 
 def scorecard_html(card: Any) -> str:
     """Verdict, reasons, the rows (failing and largest ratios first), blow-ups and the caution."""
     worst = _worst(card)
-    head = (f"<div><b>Scorecard</b> {_badge(card.verdict)} largest ratio "
-            f"<b>{_esc(_number(card.largest_ratio))}</b>"
-            + (f" ({_esc(worst.statistic)} {_esc(worst.variable)})" if worst is not None else "")
-            + f"; tolerance {_esc(_number(card.spec.tolerance))}</div>")
+    head = (
+        f"<div><b>Scorecard</b> {_badge(card.verdict)} largest ratio "
+        f"<b>{_esc(_number(card.largest_ratio))}</b>"
+        + (f" ({_esc(worst.statistic)} {_esc(worst.variable)})" if worst is not None else "")
+        + f"; tolerance {_esc(_number(card.spec.tolerance))}</div>"
+    )
     reasons = "".join(f"<li>{_esc(r)}</li>" for r in card.reasons[:5])
     reasons = f'<ul style="margin:2px 0">{reasons}</ul>' if reasons else ""
 
@@ -95,33 +106,49 @@ def scorecard_html(card: Any) -> str:
         return (row.verdict != "fail", -ratio)
 
     rows = sorted(card.rows, key=order)
-    header = "".join(f'<th style="{_CELL}">{h}</th>'
-                     for h in ("statistic", "variable", "value", "noise floor", "ratio",
-                               "tolerance", "verdict"))
+    header = "".join(
+        f'<th style="{_CELL}">{h}</th>'
+        for h in ("statistic", "variable", "value", "noise floor", "ratio", "tolerance", "verdict")
+    )
     body = "".join(
-        f"<tr><td style=\"{_CELL}\">{_esc(r.statistic)}</td><td style=\"{_CELL}\">"
+        f'<tr><td style="{_CELL}">{_esc(r.statistic)}</td><td style="{_CELL}">'
         f"{_esc(r.variable)}</td>"
-        + "".join(f'<td style="{_CELL}">{_esc(_number(x))}</td>'
-                  for x in (r.value, r.noise_floor, r.ratio, r.tolerance))
+        + "".join(
+            f'<td style="{_CELL}">{_esc(_number(x))}</td>'
+            for x in (r.value, r.noise_floor, r.ratio, r.tolerance)
+        )
         + f'<td style="{_CELL};color:{_COLOURS.get(r.verdict, "#555")}">{_esc(r.verdict)}</td>'
         "</tr>"
         for r in rows[:MAX_ROWS]
     )
-    more = (f'<p style="font-size:11px">… and {len(rows) - MAX_ROWS} more rows '
-            "(<code>scorecard.table()</code> lists them all)</p>" if len(rows) > MAX_ROWS else "")
+    more = (
+        f'<p style="font-size:11px">… and {len(rows) - MAX_ROWS} more rows '
+        "(<code>scorecard.table()</code> lists them all)</p>"
+        if len(rows) > MAX_ROWS
+        else ""
+    )
     agreement = card.member_agreement or {}
     from ergodex.validation import power_lines
 
-    power = [("record" if k == 0 else "detects", _esc(line.split(": ", 1)[1]))
-             for k, line in enumerate(power_lines(getattr(card, "power", {}) or {}))]
-    facts = _table(power + [
-        ("blow-ups", _esc(f"{card.blowups.get('count', 0)} of {card.spec.members} members")),
-        ("member agreement", _esc(f"{agreement.get('verdict', 'n/a')} (ratio "
-                                  f"{_number(agreement.get('ratio'))})")),
-        ("model", f"<code>{_esc(_short_hash(card.model_fingerprint))}</code>"),
-        ("data", f"<code>{_esc(_short_hash(card.data_fingerprint))}</code>"),
-        ("created", _esc(card.created)),
-    ])
+    power = [
+        ("record" if k == 0 else "detects", _esc(line.split(": ", 1)[1]))
+        for k, line in enumerate(power_lines(getattr(card, "power", {}) or {}))
+    ]
+    facts = _table(
+        power
+        + [
+            ("blow-ups", _esc(f"{card.blowups.get('count', 0)} of {card.spec.members} members")),
+            (
+                "member agreement",
+                _esc(
+                    f"{agreement.get('verdict', 'n/a')} (ratio {_number(agreement.get('ratio'))})"
+                ),
+            ),
+            ("model", f"<code>{_esc(_short_hash(card.model_fingerprint))}</code>"),
+            ("data", f"<code>{_esc(_short_hash(card.data_fingerprint))}</code>"),
+            ("created", _esc(card.created)),
+        ]
+    )
     table = f'<table style="{_STYLE}"><tr>{header}</tr>{body}</table>'
     return f"<div>{head}{reasons}{table}{more}{facts}{_caution()}</div>"
 
@@ -140,24 +167,40 @@ def surrogate_html(surrogate: Any) -> str:
     facts = [
         ("kind", _esc(surrogate.kind)),
         ("variables", _esc(", ".join(surrogate.variables))),
-        ("terms", _esc(f"{int(np.count_nonzero(surrogate.coefficients))} non-zero of "
-                       f"{surrogate.coefficients.size}")),
+        (
+            "terms",
+            _esc(
+                f"{int(np.count_nonzero(surrogate.coefficients))} non-zero of "
+                f"{surrogate.coefficients.size}"
+            ),
+        ),
         ("noise", "stochastic" if surrogate.is_stochastic else "none (deterministic)"),
         ("transform", _esc(type(transform).__name__) if transform is not None else "none"),
-        ("fitted on", _esc(f"{provenance.get('fitted_on_runs', '?')} runs, "
-                           f"{provenance.get('fitted_on_samples', '?')} samples, "
-                           f"dt={provenance.get('dt', '?')}") if provenance else "n/a"),
+        (
+            "fitted on",
+            _esc(
+                f"{provenance.get('fitted_on_runs', '?')} runs, "
+                f"{provenance.get('fitted_on_samples', '?')} samples, "
+                f"dt={provenance.get('dt', '?')}"
+            )
+            if provenance
+            else "n/a",
+        ),
         ("fingerprint", f"<code>{_esc(_short_hash(surrogate.fingerprint()))}</code>"),
     ]
-    return (f"<div><b>Surrogate</b>{_table(facts)}"
-            f'<pre style="font-size:11px;margin:2px 0">{_esc(shown)}</pre></div>')
+    return (
+        f"<div><b>Surrogate</b>{_table(facts)}"
+        f'<pre style="font-size:11px;margin:2px 0">{_esc(shown)}</pre></div>'
+    )
 
 
 # --- registry versions ---------------------------------------------------------------------------
 def version_repr(info: Any) -> str:
     """One line: reference, status, verdict, creation time."""
-    return (f"VersionInfo({info.ref!r}, status={info.status!r}, verdict={info.verdict!r}, "
-            f"created={info.created!r})")
+    return (
+        f"VersionInfo({info.ref!r}, status={info.status!r}, verdict={info.verdict!r}, "
+        f"created={info.created!r})"
+    )
 
 
 def version_html(info: Any) -> str:

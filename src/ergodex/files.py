@@ -53,8 +53,9 @@ def atomic_write_path(
     except OSError as exc:
         # a full disk or a vanished folder: the old file (if any) stays, the temporary one goes
         tmp.unlink(missing_ok=True)
-        raise DataError(f"{target}: cannot write ({exc.strerror or exc}); nothing was "
-                        "changed") from None
+        raise DataError(
+            f"{target}: cannot write ({exc.strerror or exc}); nothing was changed"
+        ) from None
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise

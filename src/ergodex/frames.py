@@ -45,8 +45,13 @@ __all__ = ["as_series", "from_pandas", "from_xarray", "to_xarray", "TIME_UNITS"]
 #: Units a datetime or timedelta time axis can be converted to, with their length in seconds.
 TIME_UNITS = {"s": 1.0, "min": 60.0, "h": 3600.0, "D": 86400.0, "ms": 1e-3}
 #: The word a Series keeps as its ``time_unit`` for each of :data:`TIME_UNITS`.
-TIME_UNIT_WORDS = {"s": "seconds", "min": "minutes", "h": "hours", "D": "days",
-                   "ms": "milliseconds"}
+TIME_UNIT_WORDS = {
+    "s": "seconds",
+    "min": "minutes",
+    "h": "hours",
+    "D": "days",
+    "ms": "milliseconds",
+}
 
 _RUN_NAMES = ("run", "member")
 #: Per-member coordinates of a simulated ensemble (see :func:`ergodex.simulate`); not variables.
@@ -114,8 +119,12 @@ def as_series(
     kind = _kind(data)
     if kind == "series":
         return data
-    options: dict[str, Any] = {"dt": dt, "time_unit": time_unit, "time_tolerance": time_tolerance,
-               "source": source or f"{what} ({type(data).__name__})"}
+    options: dict[str, Any] = {
+        "dt": dt,
+        "time_unit": time_unit,
+        "time_tolerance": time_tolerance,
+        "source": source or f"{what} ({type(data).__name__})",
+    }
     if kind == "pandas":
         return from_pandas(data, **options)
     if kind in ("dataset", "dataarray"):
@@ -169,8 +178,22 @@ def _unit_word(values: Any, time_unit: str, stored: Any) -> str | None:
     return None
 
 
-def _finish_frame(values, names, times, bounds, *, dt, time_tolerance, source, column, where,
-                  units=None, trim_padding=False, dt_is_hint=False, time_unit=None):
+def _finish_frame(
+    values,
+    names,
+    times,
+    bounds,
+    *,
+    dt,
+    time_tolerance,
+    source,
+    column,
+    where,
+    units=None,
+    trim_padding=False,
+    dt_is_hint=False,
+    time_unit=None,
+):
     """dt from the times (the CSV reader's rules), then the runs through the readers' checks."""
     from ergodex import readers
 
@@ -195,8 +218,16 @@ def _finish_frame(values, names, times, bounds, *, dt, time_tolerance, source, c
             if not len(block):
                 raise DataError(f"{source}: run {label!r} has no values (every row is missing)")
         runs.append(readers._Run(values=block, label=label, where=lambda r, a=a: where(a + r)))
-    return readers._finish(runs, names, dt_final, source=source, split_at_gaps=False,
-                           min_samples=2, units=units, time_unit=time_unit)
+    return readers._finish(
+        runs,
+        names,
+        dt_final,
+        source=source,
+        split_at_gaps=False,
+        min_samples=2,
+        units=units,
+        time_unit=time_unit,
+    )
 
 
 # --- pandas ------------------------------------------------------------------------------------
@@ -241,8 +272,11 @@ def from_pandas(
             f"{source}: both {run_matches[0]!r} and {run_matches[1]!r} columns; keep one"
         )
     run_col = run_matches[0] if run_matches else None
-    var_cols = [c for c in columns if c not in (time_col, run_col)
-                and not _is_member_coordinate(frame, c, run_col)]
+    var_cols = [
+        c
+        for c in columns
+        if c not in (time_col, run_col) and not _is_member_coordinate(frame, c, run_col)
+    ]
     if not var_cols:
         raise DataError(f"{source}: no state-variable columns (only time/run)")
     for c in var_cols:
@@ -283,9 +317,18 @@ def from_pandas(
             column = column.dt.tz_convert("UTC").dt.tz_localize(None)
         unit_word = _unit_word(column.to_numpy(), time_unit, frame.attrs.get("time_unit"))
         times = _times_as_numbers(column.to_numpy(), time_unit, source, time_col)
-    return _finish_frame(values, var_cols, times, bounds, dt=dt, time_tolerance=time_tolerance,
-                         source=source, column=time_col or "time",
-                         where=lambda i: f"row {i + 1}", time_unit=unit_word)
+    return _finish_frame(
+        values,
+        var_cols,
+        times,
+        bounds,
+        dt=dt,
+        time_tolerance=time_tolerance,
+        source=source,
+        column=time_col or "time",
+        where=lambda i: f"row {i + 1}",
+        time_unit=unit_word,
+    )
 
 
 # --- xarray ------------------------------------------------------------------------------------
@@ -328,8 +371,11 @@ def from_xarray(
     cube = np.empty((n_runs, n_time, len(names)))
     for k, name in enumerate(names):
         da = ds[name]
-        cube[:, :, k] = (da.transpose(member, "time").values if member and member in da.dims
-                         else np.asarray(da.values)[None, :])
+        cube[:, :, k] = (
+            da.transpose(member, "time").values
+            if member and member in da.dims
+            else np.asarray(da.values)[None, :]
+        )
     if member and member in ds.coords:
         labels = [str(x) for x in np.asarray(ds[member].values).tolist()]
     else:
@@ -350,10 +396,21 @@ def from_xarray(
 
     recorded = ds.attrs.get("dt")
     hint = dt is None and isinstance(recorded, (int, float, np.floating)) and recorded > 0
-    return _finish_frame(cube.reshape(n_runs * n_time, len(names)), names, times, bounds,
-                         dt=float(recorded) if hint else dt, time_tolerance=time_tolerance,
-                         source=source, column="time", where=where, units=units,
-                         trim_padding=True, dt_is_hint=hint, time_unit=unit_word)
+    return _finish_frame(
+        cube.reshape(n_runs * n_time, len(names)),
+        names,
+        times,
+        bounds,
+        dt=float(recorded) if hint else dt,
+        time_tolerance=time_tolerance,
+        source=source,
+        column="time",
+        where=where,
+        units=units,
+        trim_padding=True,
+        dt_is_hint=hint,
+        time_unit=unit_word,
+    )
 
 
 def _dataarray_to_dataset(da: Any, source: str) -> Any:
@@ -390,8 +447,10 @@ def to_xarray(series: Series) -> Any:
         attrs: dict[str, Any] = {"units": series.units[k]} if series.units is not None else {}
         data_vars[name] = (("run", "time"), cube[:, :, k], attrs)
     time_attrs = {"units": series.time_unit} if series.time_unit else {}
-    coords = {"run": ("run", np.asarray(labels, dtype=str)),
-              "time": ("time", np.arange(n_time) * series.dt, time_attrs)}
+    coords = {
+        "run": ("run", np.asarray(labels, dtype=str)),
+        "time": ("time", np.arange(n_time) * series.dt, time_attrs),
+    }
     attrs = {"dt": series.dt, "source": series.source, "data_fingerprint": series.fingerprint()}
     if series.time_unit:
         attrs["time_unit"] = series.time_unit

@@ -102,9 +102,14 @@ TEMPORARY_SUFFIXES: tuple[str, ...] = (
 #: usual stall between two blocks; local copies and instrument exports stall far less).
 DEFAULT_SETTLE = 5.0
 #: Each rejection reason (:data:`REASONS`) in a few words, for the line printed per file.
-_SHORT_REASON = {"data": "bad data", "settings": "settings", "internal": "internal error",
-                 "interrupted": "interrupted", "vanished": "vanished",
-                 "changed": "still being written"}
+_SHORT_REASON = {
+    "data": "bad data",
+    "settings": "settings",
+    "internal": "internal error",
+    "interrupted": "interrupted",
+    "vanished": "vanished",
+    "changed": "still being written",
+}
 #: Prefix of the folders that hold a file while it is being claimed (``.take-<pid>@<host>-<n>``).
 _TAKE_PREFIX = ".take-"
 
@@ -273,7 +278,7 @@ def _remove_empty(folder: Path) -> None:
 
 def _take_owner(folder_name: str) -> str | None:
     """``host:pid`` from a take folder name ``.take-<pid>@<host>-<n>``."""
-    body = folder_name[len(_TAKE_PREFIX):].rpartition("-")[0]
+    body = folder_name[len(_TAKE_PREFIX) :].rpartition("-")[0]
     pid, _, host = body.partition("@")
     return f"{host}:{pid}" if pid.isdigit() and host else None
 
@@ -393,8 +398,9 @@ class _Watcher:
             return None
         return self.handle(file_name, held, expected=expected)
 
-    def handle(self, file_name: str, path: Path, *, expected: Signature | None = None
-               ) -> InboxItem | None:
+    def handle(
+        self, file_name: str, path: Path, *, expected: Signature | None = None
+    ) -> InboxItem | None:
         """Hash a file held in the work area, ask the ledger, and run, skip or set it aside."""
         try:
             sig = _signature(path.stat())
@@ -409,8 +415,13 @@ class _Watcher:
                 return None
             final = self.claimed_root / sha / file_name
             verdict, before = self.ledger.claim(
-                file_name, sig[1], sha, self.name, settings_fingerprint=self.fingerprint,
-                claimed_path=str(final), retry_rejected=self.retry_rejected,
+                file_name,
+                sig[1],
+                sha,
+                self.name,
+                settings_fingerprint=self.fingerprint,
+                claimed_path=str(final),
+                retry_rejected=self.retry_rejected,
             )
         except FileNotFoundError:
             log.info("%s disappeared from %s while it was claimed; skipped", file_name, path.parent)
@@ -429,8 +440,10 @@ class _Watcher:
         if verdict in ("done", "rejected"):
             return self._already(file_name, path, sha, before)
         if verdict == "exhausted":
-            error = (f"processing of {file_name} was interrupted {before['attempts']} times "
-                     "(the watcher stopped mid-retrain); moved aside instead of trying again")
+            error = (
+                f"processing of {file_name} was interrupted {before['attempts']} times "
+                "(the watcher stopped mid-retrain); moved aside instead of trying again"
+            )
             return self._reject(file_name, path, sha, error, "interrupted")
         if path != final:
             final.parent.mkdir(parents=True, exist_ok=True)
@@ -452,10 +465,19 @@ class _Watcher:
         if target is not None and state == "rejected" and before["error"]:
             _write_note(target, before["error"])
         _remove_empty(path.parent)
-        log.info("%s was already %s earlier; moved to %s without retraining", file_name, state,
-                 target)
-        return InboxItem(file_name, state, exit_code=before["exit_code"], error=before["error"],
-                         moved_to=target, skipped=True, reason=before["reason"], sha256=sha)
+        log.info(
+            "%s was already %s earlier; moved to %s without retraining", file_name, state, target
+        )
+        return InboxItem(
+            file_name,
+            state,
+            exit_code=before["exit_code"],
+            error=before["error"],
+            moved_to=target,
+            skipped=True,
+            reason=before["reason"],
+            sha256=sha,
+        )
 
     # --- running -------------------------------------------------------------------------------
     def _run(self, file_name: str, claimed: Path, sig: Signature, sha: str) -> InboxItem:
@@ -463,8 +485,9 @@ class _Watcher:
         from ergodex.readers import read_series
         from ergodex.retraining import retrain
 
-        log.info("retraining %s on %s (%d bytes, sha256 %s…)", self.name, file_name, sig[1],
-                 sha[:12])
+        log.info(
+            "retraining %s on %s (%d bytes, sha256 %s…)", self.name, file_name, sig[1], sha[:12]
+        )
         shown = str(self.folder / file_name)
         reading = True
         try:
@@ -485,88 +508,143 @@ class _Watcher:
             # Ctrl-C is how a person stops the watcher: not a crash, so the attempt is given
             # back and the file runs again from the work area at the next start.
             self.ledger.release(file_name, sha)
-            log.info("stopped during the retrain on %s; it runs again at the next start",
-                     file_name)
+            log.info("stopped during the retrain on %s; it runs again at the next start", file_name)
             raise
         return self._done(file_name, claimed, sig, sha, decision)
 
-    def _done(self, file_name: str, claimed: Path, sig: Signature, sha: str, decision: Any
-              ) -> InboxItem:
+    def _done(
+        self, file_name: str, claimed: Path, sig: Signature, sha: str, decision: Any
+    ) -> InboxItem:
         code, outcome = decision.exit_code, decision.outcome
         planned = _unique_target(self.done_dir, file_name)
         # The ledger first: a crash before the move leaves a done row whose file the next
         # start files into done/, never a second retrain.
-        self.ledger.finish(file_name, sha, state="done", outcome=outcome, exit_code=code,
-                           moved_to=str(planned))
+        self.ledger.finish(
+            file_name, sha, state="done", outcome=outcome, exit_code=code, moved_to=str(planned)
+        )
         note = None
         if _changed(claimed, sig) and claimed.exists():
             # Written to during the retrain: the decision is about the bytes claimed; the
             # grown file is new data and goes back into the inbox to be claimed afresh.
             self._put_back(claimed, file_name)
             target = None
-            note = (f"{file_name}: was written to during the retrain; the decision stands for "
-                    "the bytes claimed and the grown file went back into the inbox")
+            note = (
+                f"{file_name}: was written to during the retrain; the decision stands for "
+                "the bytes claimed and the grown file went back into the inbox"
+            )
         else:
             target = _move_no_clobber(claimed, self.done_dir, file_name)
             if target is None:
-                note = (f"{file_name}: the claimed copy {claimed} was removed during the "
-                        f"retrain; the decision stands (recorded in {planned.name}.decision.json)"
-                        " but the data file is not in done/")
+                note = (
+                    f"{file_name}: the claimed copy {claimed} was removed during the "
+                    f"retrain; the decision stands (recorded in {planned.name}.decision.json)"
+                    " but the data file is not in done/"
+                )
         _remove_empty(claimed.parent)
         record = target if target is not None else planned
         if note is not None:
             log.warning("%s", note)
         if target != planned:
-            self.ledger.finish(file_name, sha, state="done", outcome=outcome, exit_code=code,
-                               moved_to=None if target is None else str(target), error=note)
+            self.ledger.finish(
+                file_name,
+                sha,
+                state="done",
+                outcome=outcome,
+                exit_code=code,
+                moved_to=None if target is None else str(target),
+                error=note,
+            )
         try:
             decision.to_json(record.with_name(record.name + ".decision.json"))
         except OSError as exc:
             log.error("could not write the decision record of %s: %s", file_name, exc)
         log.info("%s: %s (exit code %d); moved to %s", file_name, outcome, code, target)
-        return InboxItem(file_name, "done", outcome=outcome, exit_code=code, error=note,
-                         moved_to=target, sha256=sha, decision=decision)
+        return InboxItem(
+            file_name,
+            "done",
+            outcome=outcome,
+            exit_code=code,
+            error=note,
+            moved_to=target,
+            sha256=sha,
+            decision=decision,
+        )
 
-    def _reject(self, file_name: str, path: Path, sha: str, error: str, reason: str
-                ) -> InboxItem:
+    def _reject(self, file_name: str, path: Path, sha: str, error: str, reason: str) -> InboxItem:
         planned = _unique_target(self.rejected_dir, file_name)
-        self.ledger.finish(file_name, sha, state="rejected", exit_code=2, error=error,
-                           moved_to=str(planned), reason=reason)
+        self.ledger.finish(
+            file_name,
+            sha,
+            state="rejected",
+            exit_code=2,
+            error=error,
+            moved_to=str(planned),
+            reason=reason,
+        )
         target = _move_no_clobber(path, self.rejected_dir, file_name)
         _remove_empty(path.parent)
         if target is None:
             return self._vanished(file_name, path, sha)
         if target != planned:
-            self.ledger.finish(file_name, sha, state="rejected", exit_code=2, error=error,
-                               moved_to=str(target), reason=reason)
+            self.ledger.finish(
+                file_name,
+                sha,
+                state="rejected",
+                exit_code=2,
+                error=error,
+                moved_to=str(target),
+                reason=reason,
+            )
         _write_note(target, error)
-        log.warning("rejected %s (%s): %s (moved to %s)", file_name, _SHORT_REASON[reason], error,
-                    target)
-        return InboxItem(file_name, "rejected", exit_code=2, error=error, moved_to=target,
-                         reason=reason, sha256=sha)
+        log.warning(
+            "rejected %s (%s): %s (moved to %s)", file_name, _SHORT_REASON[reason], error, target
+        )
+        return InboxItem(
+            file_name,
+            "rejected",
+            exit_code=2,
+            error=error,
+            moved_to=target,
+            reason=reason,
+            sha256=sha,
+        )
 
     def _still_written(self, file_name: str, claimed: Path, sha: str) -> InboxItem:
         """A claimed file that grew before the retrain: back to the inbox, nothing retrained."""
-        error = (f"{file_name}: was still being written after it was claimed; it went back into "
-                 "the inbox to settle again (writers should write to a temporary name and "
-                 "rename, or the quiet period --settle should be longer than their pauses)")
-        self.ledger.finish(file_name, sha, state="rejected", exit_code=2, error=error,
-                           reason="changed")
+        error = (
+            f"{file_name}: was still being written after it was claimed; it went back into "
+            "the inbox to settle again (writers should write to a temporary name and "
+            "rename, or the quiet period --settle should be longer than their pauses)"
+        )
+        self.ledger.finish(
+            file_name, sha, state="rejected", exit_code=2, error=error, reason="changed"
+        )
         target = self._put_back(claimed, file_name)
         _remove_empty(claimed.parent)
         log.warning("%s", error)
-        return InboxItem(file_name, "rejected", exit_code=2, error=error, reason="changed",
-                         moved_to=target, sha256=sha)
+        return InboxItem(
+            file_name,
+            "rejected",
+            exit_code=2,
+            error=error,
+            reason="changed",
+            moved_to=target,
+            sha256=sha,
+        )
 
     def _vanished(self, file_name: str, path: Path, sha: str) -> InboxItem:
-        error = (f"{file_name}: the claimed copy {path} disappeared before the retrain could "
-                 "finish; drop the file into the inbox again to retry it")
-        self.ledger.finish(file_name, sha, state="rejected", exit_code=2, error=error,
-                           reason="vanished")
+        error = (
+            f"{file_name}: the claimed copy {path} disappeared before the retrain could "
+            "finish; drop the file into the inbox again to retry it"
+        )
+        self.ledger.finish(
+            file_name, sha, state="rejected", exit_code=2, error=error, reason="vanished"
+        )
         _remove_empty(path.parent)
         log.warning("%s", error)
-        return InboxItem(file_name, "rejected", exit_code=2, error=error, reason="vanished",
-                         sha256=sha)
+        return InboxItem(
+            file_name, "rejected", exit_code=2, error=error, reason="vanished", sha256=sha
+        )
 
     # --- at start ------------------------------------------------------------------------------
     def recover(self) -> list[tuple[str, Path]]:
@@ -586,8 +664,9 @@ class _Watcher:
                 if owner_is_alive_elsewhere(_take_owner(folder.name)):
                     continue  # another watcher is claiming this file right now
                 for path in sorted(folder.iterdir()):
-                    log.info("%s was being claimed when a watcher stopped; back to the inbox",
-                             path.name)
+                    log.info(
+                        "%s was being claimed when a watcher stopped; back to the inbox", path.name
+                    )
                     self._put_back(path, path.name)
                 _remove_empty(folder)
                 continue
@@ -597,21 +676,34 @@ class _Watcher:
                 if state in ("done", "rejected"):
                     home = self.done_dir if state == "done" else self.rejected_dir
                     target = _move_no_clobber(path, home, path.name)
-                    log.info("%s was left in the work area after it was %s; moved to %s",
-                             path.name, state, target)
+                    log.info(
+                        "%s was left in the work area after it was %s; moved to %s",
+                        path.name,
+                        state,
+                        target,
+                    )
                 elif row is None or not owner_is_alive_elsewhere(row["owner"]):
-                    log.info("%s was claimed by a watcher that stopped; running it again",
-                             path.name)
+                    log.info(
+                        "%s was claimed by a watcher that stopped; running it again", path.name
+                    )
                     queue.append((path.name, path))
             _remove_empty(folder)
         queued = {str(path) for _, path in queue}
         for row in self.ledger.rows():
             claimed = row["claimed_path"]
-            if (row["state"] == "processing" and claimed and claimed not in queued
-                    and not owner_is_alive_elsewhere(row["owner"]) and not Path(claimed).exists()):
+            if (
+                row["state"] == "processing"
+                and claimed
+                and claimed not in queued
+                and not owner_is_alive_elsewhere(row["owner"])
+                and not Path(claimed).exists()
+            ):
                 self._vanished(row["file_name"], Path(claimed), row["sha256"])
-            elif (row["state"] == "rejected" and row["moved_to"]
-                    and should_retry(row, self.fingerprint, self.retry_rejected)):
+            elif (
+                row["state"] == "rejected"
+                and row["moved_to"]
+                and should_retry(row, self.fingerprint, self.retry_rejected)
+            ):
                 taken = self._take_back(row)
                 if taken is not None:
                     queue.append((row["file_name"], taken))
@@ -630,8 +722,12 @@ class _Watcher:
             _remove_empty(take_dir)
             return None
         source.with_name(source.name + ".error.txt").unlink(missing_ok=True)
-        log.info("taking %s back from %s to retry it (%s)", row["file_name"], source,
-                 "--retry-rejected" if self.retry_rejected else "the settings changed")
+        log.info(
+            "taking %s back from %s to retry it (%s)",
+            row["file_name"],
+            source,
+            "--retry-rejected" if self.retry_rejected else "the settings changed",
+        )
         return held
 
 
@@ -737,8 +833,15 @@ def watch(
     if progress is not None:
         retrain_kwargs["progress"] = progress
 
-    watcher = _Watcher(inbox, name, registry, retrain_kwargs, settle=settle,
-                       retry_rejected=retry_rejected, fingerprint=fingerprint)
+    watcher = _Watcher(
+        inbox,
+        name,
+        registry,
+        retrain_kwargs,
+        settle=settle,
+        retry_rejected=retry_rejected,
+        fingerprint=fingerprint,
+    )
     handled: list[InboxItem] = []
     start_line = (
         f"watching {inbox} for new files to retrain {name} on: a file is taken once unchanged "
@@ -755,8 +858,11 @@ def watch(
         try:
             item = step(*args)
         except Exception as exc:  # a bug or a broken disk must not end the loop
-            log.error("unexpected error while handling %s (%s); going on with the next file",
-                      args[0], _one_line(exc))
+            log.error(
+                "unexpected error while handling %s (%s); going on with the next file",
+                args[0],
+                _one_line(exc),
+            )
             log.debug("the trace of that error", exc_info=True)
             item = None
         if item is not None:
@@ -770,8 +876,9 @@ def watch(
         try:
             queue = watcher.recover()
         except Exception as exc:  # recovery is tidying; the inbox still works without it
-            log.error("could not recover the work area %s (%s)", watcher.claimed_root,
-                      _one_line(exc))
+            log.error(
+                "could not recover the work area %s (%s)", watcher.claimed_root, _one_line(exc)
+            )
             log.debug("the trace of that error", exc_info=True)
             queue = []
         for file_name, path in queue:

@@ -132,8 +132,17 @@ class Ledger:
                     "INSERT INTO inbox_files (file_name, size, sha256, model_name, state, attempts,"
                     " owner, first_seen, updated, settings_fingerprint, claimed_path)"
                     " VALUES (?, ?, ?, ?, 'processing', 1, ?, ?, ?, ?, ?)",
-                    (file_name, size, sha256, model_name, me, now, now, settings_fingerprint,
-                     claimed_path),
+                    (
+                        file_name,
+                        size,
+                        sha256,
+                        model_name,
+                        me,
+                        now,
+                        now,
+                        settings_fingerprint,
+                        claimed_path,
+                    ),
                 )
             elif verdict == "go":
                 assert row is not None  # the branch above took the new file
@@ -144,8 +153,16 @@ class Ledger:
                     " settings_fingerprint=?, claimed_path=?, outcome=NULL, exit_code=NULL,"
                     " error=NULL, reason=NULL, moved_to=NULL, updated=?"
                     " WHERE file_name=? AND sha256=?",
-                    (attempts, me, model_name, settings_fingerprint, claimed_path, now,
-                     file_name, sha256),
+                    (
+                        attempts,
+                        me,
+                        model_name,
+                        settings_fingerprint,
+                        claimed_path,
+                        now,
+                        file_name,
+                        sha256,
+                    ),
                 )
             conn.execute("COMMIT")
         except BaseException:

@@ -78,7 +78,6 @@ MAX_SUBSTEPS_PER_OUTPUT = 10**6
 _WORK_PER_CALL = 1 << 22
 
 
-
 @dataclass
 class EnsembleResult:
     """Outputs and status of an ensemble run (all times on the output clock: 0 = end of spin-up).
@@ -204,8 +203,14 @@ def _spectral_radius(surrogate: Surrogate, sample_states: Any, max_states: int =
     return spectral_radius(surrogate, x)
 
 
-def choose_substep(surrogate: Surrogate, sample_states: Any, dt_out: float, *,
-                   method: str = "rk4", safety: float = SAFETY) -> float:
+def choose_substep(
+    surrogate: Surrogate,
+    sample_states: Any,
+    dt_out: float,
+    *,
+    method: str = "rk4",
+    safety: float = SAFETY,
+) -> float:
     """Largest substep that divides ``dt_out`` and keeps the scheme well inside its stability region.
 
     The stiffness is measured as the largest spectral radius ``rho`` of the Jacobian over (up to
@@ -263,8 +268,9 @@ def _choose(surrogate, sample_states, dt_out, method, safety) -> tuple[float, in
     return dt_out / k, k, rho
 
 
-def ensemble_memory(n_members: int, n_out: int, n_kept: int, n_variables: int,
-                    n_terms: int = 0, *, copies: int = 1) -> int:
+def ensemble_memory(
+    n_members: int, n_out: int, n_kept: int, n_variables: int, n_terms: int = 0, *, copies: int = 1
+) -> int:
     """Estimated bytes an ensemble run (and ``copies - 1`` copies of its outputs) allocates.
 
     Counts the kept outputs (``n_members * n_out * n_kept`` float64) ``copies`` times (the run's
@@ -298,7 +304,9 @@ def blowup_bound(reference_states: Any, factor: float = 10.0) -> np.ndarray:
     """
     x = np.asarray(reference_states, dtype=np.float64)
     if x.ndim != 2 or x.shape[0] == 0:
-        raise SettingsError(f"reference_states: expected (n_samples, n_variables), got shape {x.shape}")
+        raise SettingsError(
+            f"reference_states: expected (n_samples, n_variables), got shape {x.shape}"
+        )
     factor = _positive(factor, "factor")
     x = x[np.all(np.isfinite(x), axis=1)]
     if len(x) == 0:
@@ -361,7 +369,9 @@ def _resolve_seed(seed: Any) -> int:
         return int(seed.integers(0, 2**63 - 1))
     if isinstance(seed, (int, np.integer)) and not isinstance(seed, bool) and int(seed) >= 0:
         return int(seed)
-    raise SettingsError(f"seed must be a non-negative integer, a numpy Generator or None, got {seed!r}")
+    raise SettingsError(
+        f"seed must be a non-negative integer, a numpy Generator or None, got {seed!r}"
+    )
 
 
 def _numba_available() -> bool:
@@ -503,7 +513,8 @@ def integrate_ensemble(
     check_memory(
         ensemble_memory(M, n_out, n_kept, n, surrogate.n_terms),
         f"an ensemble of {M} members x {n_out} outputs x {n_kept} variables",
-        "use fewer members or outputs", max_memory,
+        "use fewer members or outputs",
+        max_memory,
     )
 
     rho: float | None = None
@@ -531,8 +542,14 @@ def integrate_ensemble(
         bound_arr = None
     else:
         bound_arr = np.array(bound, dtype=np.float64)
-        if bound_arr.shape != (n, 2) or np.any(np.isnan(bound_arr)) or np.any(bound_arr[:, 0] >= bound_arr[:, 1]):
-            raise SettingsError(f"bound: expected ({n}, 2) lower < upper per variable, got shape {bound_arr.shape}")
+        if (
+            bound_arr.shape != (n, 2)
+            or np.any(np.isnan(bound_arr))
+            or np.any(bound_arr[:, 0] >= bound_arr[:, 1])
+        ):
+            raise SettingsError(
+                f"bound: expected ({n}, 2) lower < upper per variable, got shape {bound_arr.shape}"
+            )
         # Clipped to the finite range: the kernels rely on finite bounds to reject infinities.
         lower = np.ascontiguousarray(np.clip(bound_arr[:, 0], -_MAX_FLOAT, _MAX_FLOAT))
         upper = np.ascontiguousarray(np.clip(bound_arr[:, 1], -_MAX_FLOAT, _MAX_FLOAT))
@@ -548,8 +565,9 @@ def integrate_ensemble(
             chol = np.ascontiguousarray(_noise_factor(np.asarray(surrogate.noise)))
 
     if spinup / h > 2.0**62:
-        raise SettingsError(f"spinup {spinup:g} is {spinup / h:.3g} substeps of {h:.3g}; "
-                            "give a shorter spin-up")
+        raise SettingsError(
+            f"spinup {spinup:g} is {spinup / h:.3g} substeps of {h:.3g}; give a shorter spin-up"
+        )
     n_spin = math.ceil(spinup / h - 1e-9) if spinup > 0 else 0
     spin_time = n_spin * h
 
@@ -564,14 +582,52 @@ def integrate_ensemble(
         table_args = tuple(kernels.build_program(surrogate.term_tables(), n))
         code = kernels.METHOD_CODES[method]
 
-        def run_block(t0: float, n_blocks: int, steps: int, noise: np.ndarray, j0: int, write: bool) -> None:
-            kernels.advance(code, state, alive, blowup_time, t0, h, n_blocks, steps, noise, chol, out,
-                            j0, write, keep_idx, lower, upper, *table_args)
+        def run_block(
+            t0: float, n_blocks: int, steps: int, noise: np.ndarray, j0: int, write: bool
+        ) -> None:
+            kernels.advance(
+                code,
+                state,
+                alive,
+                blowup_time,
+                t0,
+                h,
+                n_blocks,
+                steps,
+                noise,
+                chol,
+                out,
+                j0,
+                write,
+                keep_idx,
+                lower,
+                upper,
+                *table_args,
+            )
     else:
 
-        def run_block(t0: float, n_blocks: int, steps: int, noise: np.ndarray, j0: int, write: bool) -> None:
-            _numpy_block(surrogate, method, state, alive, blowup_time, t0, h, n_blocks, steps, noise, chol,
-                         out, j0, write, keep_idx, lower, upper)
+        def run_block(
+            t0: float, n_blocks: int, steps: int, noise: np.ndarray, j0: int, write: bool
+        ) -> None:
+            _numpy_block(
+                surrogate,
+                method,
+                state,
+                alive,
+                blowup_time,
+                t0,
+                h,
+                n_blocks,
+                steps,
+                noise,
+                chol,
+                out,
+                j0,
+                write,
+                keep_idx,
+                lower,
+                upper,
+            )
 
     empty_noise = np.zeros((0, M, n))
 
@@ -607,7 +663,9 @@ def integrate_ensemble(
     # Output 0: the state at the end of spin-up.
     out[alive, 0, :] = state[alive][:, keep_idx]
     j = 1
-    outputs_per_block = max(1, min(max_steps // k, math.ceil((n_out - 1) / 100)) if n_out > 1 else 1)
+    outputs_per_block = max(
+        1, min(max_steps // k, math.ceil((n_out - 1) / 100)) if n_out > 1 else 1
+    )
     if progress is not None:
         progress(1, n_out)
     while j < n_out and alive.any():
@@ -633,7 +691,7 @@ def integrate_ensemble(
     n_blown = int(np.count_nonzero(blown))
     # Safety net: outputs at or after a member's blow-up are NaN whatever the engine wrote.
     for m in np.flatnonzero(blown):
-        out[m, _first_output_after(times, blowup_time[m]):, :] = np.nan
+        out[m, _first_output_after(times, blowup_time[m]) :, :] = np.nan
     if n_blown == 0:
         status = "ok"
     elif n_blown == M:
@@ -650,7 +708,9 @@ def integrate_ensemble(
             f"{how}"
         )
     else:
-        message = f"{M} members integrated to t={times[-1]:.6g} after spin-up {spin_time:.6g}; {how}"
+        message = (
+            f"{M} members integrated to t={times[-1]:.6g} after spin-up {spin_time:.6g}; {how}"
+        )
     return EnsembleResult(
         times=times,
         states=out,
@@ -671,8 +731,25 @@ def integrate_ensemble(
     )
 
 
-def _numpy_block(surrogate, method, state, alive, blowup_time, t0, h, n_blocks, steps, noise, chol,
-                 out, j0, write, keep_idx, lower, upper) -> None:
+def _numpy_block(
+    surrogate,
+    method,
+    state,
+    alive,
+    blowup_time,
+    t0,
+    h,
+    n_blocks,
+    steps,
+    noise,
+    chol,
+    out,
+    j0,
+    write,
+    keep_idx,
+    lower,
+    upper,
+) -> None:
     """Reference engine: the same steps as :func:`ergodex.kernels.advance`, vectorised with numpy."""
     f = surrogate.rhs
     sqh = math.sqrt(h)

@@ -117,8 +117,9 @@ def build_program(tables: dict, n_variables: int) -> Program:
     zero_row = n + n_products
     one_row = zero_row + 1
     scratch = zero_row + 2
-    columns: dict[str, list] = {k: [] for k in ("target", "shape", "final", "lin", "lin_w", "qa", "qb", "quad_w",
-                                               "bias")}
+    columns: dict[str, list] = {
+        k: [] for k in ("target", "shape", "final", "lin", "lin_w", "qa", "qb", "quad_w", "bias")
+    }
 
     def emit(target: int, lin: list, quad: list, b: float, final: int) -> None:
         if not final or len(quad) == 2:
@@ -197,8 +198,25 @@ def rhs_columns(states, *program):
     blowup = np.full(M, np.nan)
     out = np.empty((M, 1, n))
     bound = np.full(n, np.finfo(np.float64).max)
-    advance(_RHS_ONLY, states, alive, blowup, 0.0, 1.0, 1, 1, np.zeros((0, M, n)), np.zeros((n, n)), out, 0,
-            False, np.arange(n, dtype=np.int64), -bound, bound, *program)
+    advance(
+        _RHS_ONLY,
+        states,
+        alive,
+        blowup,
+        0.0,
+        1.0,
+        1,
+        1,
+        np.zeros((0, M, n)),
+        np.zeros((n, n)),
+        out,
+        0,
+        False,
+        np.arange(n, dtype=np.int64),
+        -bound,
+        bound,
+        *program,
+    )
     return states
 
 
@@ -212,9 +230,40 @@ _FASTMATH = {"contract", "nsz", "arcp"}
 
 
 @nb.njit(cache=True, nogil=True, error_model="numpy", fastmath=_FASTMATH)
-def advance(method, state, alive, blowup_time, t0, h, n_outputs, k, noise, chol, out, j0, write,
-            keep, lower, upper, prod_kind, prod_var, prod_freq, prod_fptr, prod_fvar, prod_fpow,
-            p_target, p_shape, p_final, p_lin, p_lin_w, p_qa, p_qb, p_quad_w, p_bias, n_rows):
+def advance(
+    method,
+    state,
+    alive,
+    blowup_time,
+    t0,
+    h,
+    n_outputs,
+    k,
+    noise,
+    chol,
+    out,
+    j0,
+    write,
+    keep,
+    lower,
+    upper,
+    prod_kind,
+    prod_var,
+    prod_freq,
+    prod_fptr,
+    prod_fvar,
+    prod_fpow,
+    p_target,
+    p_shape,
+    p_final,
+    p_lin,
+    p_lin_w,
+    p_qa,
+    p_qb,
+    p_quad_w,
+    p_bias,
+    n_rows,
+):
     """Advance every live member by ``n_outputs * k`` substeps of length ``h``.
 
     Parameters (arrays C-contiguous float64 / int64 unless noted)
@@ -386,12 +435,22 @@ def advance(method, state, alive, blowup_time, t0, h, n_outputs, k, noise, chol,
                         # A partial sum (into the scratch row) or a plain right-hand side.
                         if p_final[q] == 0:
                             for c in range(na):
-                                SS[src, t, c] = (b + w0 * SS[src, l0, c] + w1 * SS[src, l1, c] + v0 * SS[src, a0, c] * SS[src, b0, c]
-                                           + v1 * SS[src, a_1, c] * SS[src, b_1, c])
+                                SS[src, t, c] = (
+                                    b
+                                    + w0 * SS[src, l0, c]
+                                    + w1 * SS[src, l1, c]
+                                    + v0 * SS[src, a0, c] * SS[src, b0, c]
+                                    + v1 * SS[src, a_1, c] * SS[src, b_1, c]
+                                )
                         else:
                             for c in range(na):
-                                KK[stage, t, c] = (b + w0 * SS[src, l0, c] + w1 * SS[src, l1, c] + v0 * SS[src, a0, c] * SS[src, b0, c]
-                                                   + v1 * SS[src, a_1, c] * SS[src, b_1, c])
+                                KK[stage, t, c] = (
+                                    b
+                                    + w0 * SS[src, l0, c]
+                                    + w1 * SS[src, l1, c]
+                                    + v0 * SS[src, a0, c] * SS[src, b0, c]
+                                    + v1 * SS[src, a_1, c] * SS[src, b_1, c]
+                                )
                     elif stage == 0:
                         # RK4 stage 1: Acc = k1.
                         if sh == _TWO_LINEAR:
@@ -406,13 +465,23 @@ def advance(method, state, alive, blowup_time, t0, h, n_outputs, k, noise, chol,
                                 SS[dst, t, c] = SS[cur, t, c] + a1 * kv
                         elif sh == _TWO_ONE:
                             for c in range(na):
-                                kv = b + w0 * SS[src, l0, c] + w1 * SS[src, l1, c] + v0 * SS[src, a0, c] * SS[src, b0, c]
+                                kv = (
+                                    b
+                                    + w0 * SS[src, l0, c]
+                                    + w1 * SS[src, l1, c]
+                                    + v0 * SS[src, a0, c] * SS[src, b0, c]
+                                )
                                 Acc[t, c] = kv
                                 SS[dst, t, c] = SS[cur, t, c] + a1 * kv
                         else:
                             for c in range(na):
-                                kv = (b + w0 * SS[src, l0, c] + w1 * SS[src, l1, c] + v0 * SS[src, a0, c] * SS[src, b0, c]
-                                      + v1 * SS[src, a_1, c] * SS[src, b_1, c])
+                                kv = (
+                                    b
+                                    + w0 * SS[src, l0, c]
+                                    + w1 * SS[src, l1, c]
+                                    + v0 * SS[src, a0, c] * SS[src, b0, c]
+                                    + v1 * SS[src, a_1, c] * SS[src, b_1, c]
+                                )
                                 Acc[t, c] = kv
                                 SS[dst, t, c] = SS[cur, t, c] + a1 * kv
                     elif stage < 3:
@@ -429,13 +498,23 @@ def advance(method, state, alive, blowup_time, t0, h, n_outputs, k, noise, chol,
                                 SS[dst, t, c] = SS[cur, t, c] + a1 * kv
                         elif sh == _TWO_ONE:
                             for c in range(na):
-                                kv = b + w0 * SS[src, l0, c] + w1 * SS[src, l1, c] + v0 * SS[src, a0, c] * SS[src, b0, c]
+                                kv = (
+                                    b
+                                    + w0 * SS[src, l0, c]
+                                    + w1 * SS[src, l1, c]
+                                    + v0 * SS[src, a0, c] * SS[src, b0, c]
+                                )
                                 Acc[t, c] += 2.0 * kv
                                 SS[dst, t, c] = SS[cur, t, c] + a1 * kv
                         else:
                             for c in range(na):
-                                kv = (b + w0 * SS[src, l0, c] + w1 * SS[src, l1, c] + v0 * SS[src, a0, c] * SS[src, b0, c]
-                                      + v1 * SS[src, a_1, c] * SS[src, b_1, c])
+                                kv = (
+                                    b
+                                    + w0 * SS[src, l0, c]
+                                    + w1 * SS[src, l1, c]
+                                    + v0 * SS[src, a0, c] * SS[src, b0, c]
+                                    + v1 * SS[src, a_1, c] * SS[src, b_1, c]
+                                )
                                 Acc[t, c] += 2.0 * kv
                                 SS[dst, t, c] = SS[cur, t, c] + a1 * kv
                     else:
@@ -457,14 +536,24 @@ def advance(method, state, alive, blowup_time, t0, h, n_outputs, k, noise, chol,
                                 nbad += not ((v >= lo) & (v <= hi))
                         elif sh == _TWO_ONE:
                             for c in range(na):
-                                kv = b + w0 * SS[src, l0, c] + w1 * SS[src, l1, c] + v0 * SS[src, a0, c] * SS[src, b0, c]
+                                kv = (
+                                    b
+                                    + w0 * SS[src, l0, c]
+                                    + w1 * SS[src, l1, c]
+                                    + v0 * SS[src, a0, c] * SS[src, b0, c]
+                                )
                                 v = SS[cur, t, c] + a1 * (Acc[t, c] + kv)
                                 SS[dst, t, c] = v
                                 nbad += not ((v >= lo) & (v <= hi))
                         else:
                             for c in range(na):
-                                kv = (b + w0 * SS[src, l0, c] + w1 * SS[src, l1, c] + v0 * SS[src, a0, c] * SS[src, b0, c]
-                                      + v1 * SS[src, a_1, c] * SS[src, b_1, c])
+                                kv = (
+                                    b
+                                    + w0 * SS[src, l0, c]
+                                    + w1 * SS[src, l1, c]
+                                    + v0 * SS[src, a0, c] * SS[src, b0, c]
+                                    + v1 * SS[src, a_1, c] * SS[src, b_1, c]
+                                )
                                 v = SS[cur, t, c] + a1 * (Acc[t, c] + kv)
                                 SS[dst, t, c] = v
                                 nbad += not ((v >= lo) & (v <= hi))

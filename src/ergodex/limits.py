@@ -154,8 +154,13 @@ def file_size_limit() -> int:
     return parse_size(env, FILE_SIZE_ENV) if env else DEFAULT_MAX_FILE_SIZE
 
 
-def check_regular_file(path: str | os.PathLike[str], what: str, *, max_bytes: int | None = None,
-                       error: type[Exception] = DataError) -> os.stat_result:
+def check_regular_file(
+    path: str | os.PathLike[str],
+    what: str,
+    *,
+    max_bytes: int | None = None,
+    error: type[Exception] = DataError,
+) -> os.stat_result:
     """Refuse a missing path, a folder, a non-regular file or one over ``max_bytes``.
 
     Symlinks are followed, so a ``.csv`` link to ``/dev/zero`` is refused as a device.
@@ -176,15 +181,21 @@ def check_regular_file(path: str | os.PathLike[str], what: str, *, max_bytes: in
     if info.st_size > limit:
         raise error(
             f"{path}: is {format_bytes(info.st_size)}, over the limit of {format_bytes(limit)} "
-            f"for {what}; raise it with {FILE_SIZE_ENV}" if max_bytes is None else
-            f"{path}: is {format_bytes(info.st_size)}, over the limit of {format_bytes(limit)} "
+            f"for {what}; raise it with {FILE_SIZE_ENV}"
+            if max_bytes is None
+            else f"{path}: is {format_bytes(info.st_size)}, over the limit of {format_bytes(limit)} "
             f"for {what}"
         )
     return info
 
 
-def read_text_file(path: str | os.PathLike[str], what: str, *, max_bytes: int = MAX_TEXT_FILE_SIZE,
-                   error: type[Exception] = DataError) -> str:
+def read_text_file(
+    path: str | os.PathLike[str],
+    what: str,
+    *,
+    max_bytes: int = MAX_TEXT_FILE_SIZE,
+    error: type[Exception] = DataError,
+) -> str:
     """A small UTF-8 text file (BOM dropped), checked with :func:`check_regular_file`."""
     path = Path(path)
     check_regular_file(path, what, max_bytes=max_bytes, error=error)
@@ -196,8 +207,10 @@ def read_text_file(path: str | os.PathLike[str], what: str, *, max_bytes: int = 
         return raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
         line = raw.count(b"\n", 0, exc.start) + 1
-        raise error(f"{path}: line {line}: byte {raw[exc.start:exc.start + 1]!r} is not UTF-8 "
-                    "text; save the file as UTF-8") from None
+        raise error(
+            f"{path}: line {line}: byte {raw[exc.start : exc.start + 1]!r} is not UTF-8 "
+            "text; save the file as UTF-8"
+        ) from None
 
 
 def nesting_depth(value: Any) -> int:
@@ -222,8 +235,9 @@ def _refuse_constant(name: str) -> float:
     raise ValueError(f"JSON constant {name} is not allowed (numbers must be finite)")
 
 
-def load_json_text(text: str, source: str, *, error: type[Exception] = DataError,
-                   max_nesting: int = MAX_NESTING) -> Any:
+def load_json_text(
+    text: str, source: str, *, error: type[Exception] = DataError, max_nesting: int = MAX_NESTING
+) -> Any:
     """Parse JSON strictly: no NaN/Infinity, no integers beyond Python's digit limit, bounded nesting.
 
     Raises
@@ -234,25 +248,32 @@ def load_json_text(text: str, source: str, *, error: type[Exception] = DataError
     try:
         data = json.loads(text, parse_constant=_refuse_constant)
     except json.JSONDecodeError as exc:
-        raise error(f"{source}: not valid JSON at line {exc.lineno}, column {exc.colno} "
-                    f"({exc.msg})") from None
+        raise error(
+            f"{source}: not valid JSON at line {exc.lineno}, column {exc.colno} ({exc.msg})"
+        ) from None
     except RecursionError:
-        raise error(f"{source}: lists or objects nested too deeply (the limit is "
-                    f"{max_nesting} levels)") from None
+        raise error(
+            f"{source}: lists or objects nested too deeply (the limit is {max_nesting} levels)"
+        ) from None
     except ValueError as exc:  # NaN/Infinity, or an integer with thousands of digits
         message = " ".join(str(exc).split())
         if "integer string conversion" in message:
             message = "a number has more than 4300 digits; write numbers as floats"
         raise error(f"{source}: {message}") from None
     if nesting_depth(data) > max_nesting:
-        raise error(f"{source}: lists or objects nested too deeply (the limit is "
-                    f"{max_nesting} levels)")
+        raise error(
+            f"{source}: lists or objects nested too deeply (the limit is {max_nesting} levels)"
+        )
     return data
 
 
-def load_toml_file(path: str | os.PathLike[str], what: str, *,
-                   error: type[Exception] = DataError,
-                   max_nesting: int = MAX_NESTING) -> dict[str, Any]:
+def load_toml_file(
+    path: str | os.PathLike[str],
+    what: str,
+    *,
+    error: type[Exception] = DataError,
+    max_nesting: int = MAX_NESTING,
+) -> dict[str, Any]:
     """Read a TOML file with the checks of :func:`read_text_file` and a nesting limit."""
     text = read_text_file(path, what, error=error)
     try:
@@ -261,9 +282,11 @@ def load_toml_file(path: str | os.PathLike[str], what: str, *,
         message = " ".join(str(exc).split())
         raise error(f"{path}: not valid TOML: {message}") from None
     except RecursionError:
-        raise error(f"{path}: arrays or tables nested too deeply (the limit is {max_nesting} "
-                    "levels)") from None
+        raise error(
+            f"{path}: arrays or tables nested too deeply (the limit is {max_nesting} levels)"
+        ) from None
     if nesting_depth(data) > max_nesting:
-        raise error(f"{path}: arrays or tables nested too deeply (the limit is {max_nesting} "
-                    "levels)")
+        raise error(
+            f"{path}: arrays or tables nested too deeply (the limit is {max_nesting} levels)"
+        )
     return data

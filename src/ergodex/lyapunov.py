@@ -112,7 +112,8 @@ class _PolynomialField:
     @staticmethod
     def usable(surrogate) -> bool:
         return all(t.kind == "monomial" for t in getattr(surrogate, "terms", ())) and bool(
-            getattr(surrogate, "terms", ()))
+            getattr(surrogate, "terms", ())
+        )
 
     def _monomials(self, x: np.ndarray) -> np.ndarray:
         return np.prod(x[:, None, :] ** self.exponents[None, :, :], axis=2)
@@ -138,9 +139,17 @@ def _check(initial_states, time, transient, renormalise_every, n):
     return x
 
 
-def lyapunov_spectrum(surrogate, initial_states, *, n_exponents: int | None = None,
-                      time: float = 50.0, transient: float = 5.0, step: float | None = None,
-                      renormalise_every: int = 5, seed: int | None = 0) -> LyapunovResult:
+def lyapunov_spectrum(
+    surrogate,
+    initial_states,
+    *,
+    n_exponents: int | None = None,
+    time: float = 50.0,
+    transient: float = 5.0,
+    step: float | None = None,
+    renormalise_every: int = 5,
+    seed: int | None = 0,
+) -> LyapunovResult:
     """Leading Lyapunov exponents by tangent-space integration and QR re-orthonormalisation.
 
     Parameters
@@ -184,8 +193,7 @@ def lyapunov_spectrum(surrogate, initial_states, *, n_exponents: int | None = No
         raise SettingsError(f"n_exponents must be in 1..{n}; got {n_exponents}")
     x = _check(initial_states, time, transient, renormalise_every, n)
     m = x.shape[0]
-    h = (choose_substep(surrogate, x, time, safety=_STEP_SAFETY) if step is None
-         else float(step))
+    h = choose_substep(surrogate, x, time, safety=_STEP_SAFETY) if step is None else float(step)
     rng = np.random.default_rng(seed)
     q, _ = np.linalg.qr(rng.standard_normal((m, n, k)))
     n_transient = round(transient / h)
@@ -195,6 +203,7 @@ def lyapunov_spectrum(surrogate, initial_states, *, n_exponents: int | None = No
     if _PolynomialField.usable(surrogate):
         field_both = _PolynomialField(surrogate).both
     else:
+
         def field_both(states):
             return surrogate.rhs(states), surrogate.jacobian(states)
 
@@ -238,14 +247,28 @@ def _summarise(per_member, time, step, method) -> LyapunovResult:
         nan = np.full(per_member.shape[1], np.nan)
         return LyapunovResult(nan, nan, per_member, time, step, method, per_member.shape[0])
     good = per_member[alive]
-    se = good.std(axis=0, ddof=1) / np.sqrt(n_alive) if n_alive > 1 else np.full(good.shape[1], np.nan)
-    return LyapunovResult(good.mean(axis=0), se, per_member, time, step, method,
-                          per_member.shape[0] - n_alive)
+    se = (
+        good.std(axis=0, ddof=1) / np.sqrt(n_alive)
+        if n_alive > 1
+        else np.full(good.shape[1], np.nan)
+    )
+    return LyapunovResult(
+        good.mean(axis=0), se, per_member, time, step, method, per_member.shape[0] - n_alive
+    )
 
 
-def largest_lyapunov(surrogate, initial_states, *, method: str = "tangent", time: float = 50.0,
-                     transient: float = 5.0, step: float | None = None, renormalise_every: int = 5,
-                     separation: float = 1e-8, seed: int | None = 0) -> LyapunovResult:
+def largest_lyapunov(
+    surrogate,
+    initial_states,
+    *,
+    method: str = "tangent",
+    time: float = 50.0,
+    transient: float = 5.0,
+    step: float | None = None,
+    renormalise_every: int = 5,
+    separation: float = 1e-8,
+    seed: int | None = 0,
+) -> LyapunovResult:
     """Largest Lyapunov exponent of a surrogate's deterministic part.
 
     Parameters
@@ -278,9 +301,16 @@ def largest_lyapunov(surrogate, initial_states, *, method: str = "tangent", time
     if method not in _METHODS:
         raise SettingsError(f"method must be one of {list(_METHODS)}; got {method!r}")
     if method == "tangent":
-        return lyapunov_spectrum(surrogate, initial_states, n_exponents=1, time=time,
-                                 transient=transient, step=step,
-                                 renormalise_every=renormalise_every, seed=seed)
+        return lyapunov_spectrum(
+            surrogate,
+            initial_states,
+            n_exponents=1,
+            time=time,
+            transient=transient,
+            step=step,
+            renormalise_every=renormalise_every,
+            seed=seed,
+        )
     n = surrogate.n_variables
     x = _check(initial_states, time, transient, renormalise_every, n)
     m = x.shape[0]
@@ -314,8 +344,11 @@ def largest_lyapunov(surrogate, initial_states, *, method: str = "tangent", time
             xs, ys = both[:m], both[m:]
             diff = ys - xs
             dist = np.linalg.norm(diff, axis=1)
-            bad = ~(np.all(np.isfinite(both[:m]), axis=1) & np.all(np.isfinite(both[m:]), axis=1)
-                    & (dist > 0))
+            bad = ~(
+                np.all(np.isfinite(both[:m]), axis=1)
+                & np.all(np.isfinite(both[m:]), axis=1)
+                & (dist > 0)
+            )
             alive &= ~bad
             dist[bad] = d0[bad, 0]
             diff[bad] = d0[bad] * np.eye(n)[0]

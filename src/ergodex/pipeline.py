@@ -159,8 +159,14 @@ def register_checked(
             parent=parent,
             datasets=datasets,
         )
-    log.info("registry %s: wrote %s (%s, scorecard %s) in %s", getattr(registry, "home", ""),
-             info.ref, info.status, result.scorecard.verdict, info.folder)
+    log.info(
+        "registry %s: wrote %s (%s, scorecard %s) in %s",
+        getattr(registry, "home", ""),
+        info.ref,
+        info.status,
+        result.scorecard.verdict,
+        info.folder,
+    )
     return info
 
 
@@ -224,7 +230,9 @@ def run_demo(
     )
     report = flow.folder / "report.html" if flow.folder is not None else None
     return DemoResult(
-        flow=flow, dataset_folder=Path(manifest).parent, home=Path(registry.home),
+        flow=flow,
+        dataset_folder=Path(manifest).parent,
+        home=Path(registry.home),
         report_path=report,
     )
 

@@ -35,8 +35,10 @@ __all__ = [
 def _evidence(result: Any) -> Any:
     evidence = getattr(result, "evidence", result)
     if evidence is None:
-        raise SettingsError("this CheckResult holds no evidence (check(..., evidence=False)): "
-                            "rerun check with evidence=True to draw its figures")
+        raise SettingsError(
+            "this CheckResult holds no evidence (check(..., evidence=False)): "
+            "rerun check with evidence=True to draw its figures"
+        )
     if not hasattr(evidence, "hist_edges"):
         raise SettingsError(
             f"expected a CheckResult or its Evidence, got {type(result).__name__} (a Scorecard "
@@ -52,8 +54,9 @@ def _pick(evidence: Any, variables: str | Sequence[str] | None) -> tuple[list[st
     wanted = [variables] if isinstance(variables, str) else list(variables)
     missing = [v for v in wanted if v not in names]
     if missing:
-        raise DataError(f"no variable named {missing[0]!r} in the check; the variables are "
-                        f"{', '.join(names)}")
+        raise DataError(
+            f"no variable named {missing[0]!r} in the check; the variables are {', '.join(names)}"
+        )
     return wanted, [names.index(v) for v in wanted]
 
 
@@ -94,8 +97,9 @@ def _curves(evidence: Any, prefix: str, index: list[int]) -> tuple:
     return ref, mod, pieces
 
 
-def plot_histograms(result: Any, *, variables: str | Sequence[str] | None = None,
-                    ax: Any = None) -> Any:
+def plot_histograms(
+    result: Any, *, variables: str | Sequence[str] | None = None, ax: Any = None
+) -> Any:
     """Marginal densities of reference and surrogate, with the spread of reference pieces.
 
     Returns the new Figure (``ax=None``) or ``ax``.
@@ -106,15 +110,20 @@ def plot_histograms(result: Any, *, variables: str | Sequence[str] | None = None
     names, index = _pick(evidence, variables)
     figure, axes = _panels(ax, len(names), "plot_histograms")
     pieces = np.asarray(evidence.hist_reference_pieces, dtype=float)
-    figures.draw_histograms(axes, names, np.asarray(evidence.hist_edges)[index],
-                            np.asarray(evidence.hist_reference)[index],
-                            np.asarray(evidence.hist_model)[index],
-                            pieces[:, index] if pieces.ndim == 3 and len(pieces) else None)
+    figures.draw_histograms(
+        axes,
+        names,
+        np.asarray(evidence.hist_edges)[index],
+        np.asarray(evidence.hist_reference)[index],
+        np.asarray(evidence.hist_model)[index],
+        pieces[:, index] if pieces.ndim == 3 and len(pieces) else None,
+    )
     return _done(figure, axes, ax)
 
 
-def plot_autocorrelation(result: Any, *, variables: str | Sequence[str] | None = None,
-                         ax: Any = None) -> Any:
+def plot_autocorrelation(
+    result: Any, *, variables: str | Sequence[str] | None = None, ax: Any = None
+) -> Any:
     """Autocorrelation against lag (time units) of reference and surrogate, per variable."""
     from ergodex.report import figures
 
@@ -125,8 +134,9 @@ def plot_autocorrelation(result: Any, *, variables: str | Sequence[str] | None =
     return _done(figure, axes, ax)
 
 
-def plot_spectra(result: Any, *, variables: str | Sequence[str] | None = None,
-                 ax: Any = None) -> Any:
+def plot_spectra(
+    result: Any, *, variables: str | Sequence[str] | None = None, ax: Any = None
+) -> Any:
     """Power spectral densities (log-log) of reference and surrogate, per variable."""
     from ergodex.report import figures
 
@@ -145,18 +155,23 @@ def plot_regimes(result: Any, *, ax: Any = None) -> Any:
     regime_names = [str(n) for n in np.asarray(evidence.regime_names).tolist()]
     if not regime_names:
         raise SettingsError("plot_regimes: the check had no regimes (give CheckSpec(regimes=...))")
-    n_panels = 2 if figures.has_residence(evidence.residence_reference,
-                                          evidence.residence_model) else 1
+    n_panels = (
+        2 if figures.has_residence(evidence.residence_reference, evidence.residence_model) else 1
+    )
     if ax is not None and not isinstance(ax, (list, tuple, np.ndarray)):
         n_panels = 1  # one Axes given: occupancy only
     width = max(figures._PANEL_WIDTH, 0.75 * len(regime_names) + 1.2)
     figure, axes = _panels(ax, n_panels, "plot_regimes", width=width, height=2.5, columns=2)
     pieces = np.asarray(evidence.occupancy_reference_pieces)
-    figures.draw_regimes(axes, regime_names, evidence.occupancy_reference,
-                         evidence.occupancy_model,
-                         occupancy_pieces=pieces if pieces.size else None,
-                         residence_reference=evidence.residence_reference,
-                         residence_model=evidence.residence_model)
+    figures.draw_regimes(
+        axes,
+        regime_names,
+        evidence.occupancy_reference,
+        evidence.occupancy_model,
+        occupancy_pieces=pieces if pieces.size else None,
+        residence_reference=evidence.residence_reference,
+        residence_model=evidence.residence_model,
+    )
     return _done(figure, axes, ax)
 
 
@@ -172,13 +187,15 @@ def plot_transitions(result: Any, *, ax: Any = None) -> Any:
     reference = np.asarray(getattr(evidence, "transitions_reference", []), dtype=float)
     if not regime_names or reference.size == 0:
         raise SettingsError(
-            "plot_transitions: the check had no regimes (give CheckSpec(regimes=...))")
+            "plot_transitions: the check had no regimes (give CheckSpec(regimes=...))"
+        )
     if ax is None:
         figure, axes = figures.transition_panels(regime_names)
     else:
         figure, axes = _panels(ax, 2, "plot_transitions")
-    image = figures.draw_transitions(axes, regime_names, reference,
-                                     np.asarray(evidence.transitions_model, dtype=float))
+    image = figures.draw_transitions(
+        axes, regime_names, reference, np.asarray(evidence.transitions_model, dtype=float)
+    )
     if figure is not None:
         figures.colour_bar(figure, axes[1], image)
     return _done(figure, axes, ax, legend=False)
@@ -190,8 +207,7 @@ def plot_projection(result: Any, *, ax: Any = None) -> Any:
 
     evidence = _evidence(result)
     names = [str(n) for n in np.asarray(evidence.variables).tolist()]
-    figure, axes = _panels(ax, 2, "plot_projection", width=3.6, height=3.2, columns=2,
-                           legend=False)
+    figure, axes = _panels(ax, 2, "plot_projection", width=3.6, height=3.2, columns=2, legend=False)
     figures.draw_projection(axes, names, evidence.sample_reference, evidence.sample_model)
     return _done(figure, axes, ax, legend=False)
 
@@ -206,8 +222,9 @@ def plot_selection_front(selection: Any, *, ax: Any = None) -> Any:
 
     front = getattr(selection, "front", None)
     if front is None:
-        raise SettingsError(f"expected a SelectionResult (what select() returns), got "
-                            f"{type(selection).__name__}")
+        raise SettingsError(
+            f"expected a SelectionResult (what select() returns), got {type(selection).__name__}"
+        )
 
     def number(value: Any) -> float:
         return float("nan") if value is None else float(value)
@@ -217,7 +234,12 @@ def plot_selection_front(selection: Any, *, ax: Any = None) -> Any:
     chosen = next((k for k, c in enumerate(front) if c.index == selection.chosen), None)
     tolerance = (selection.spec or {}).get("tolerance")
     figure, axes = _panels(ax, 1, "plot_selection_front", width=4.6, height=2.8)
-    figures.draw_selection(axes[0], terms, scores, chosen,
-                           score_label="statistical score (ratio to noise floor)",
-                           tolerance=None if tolerance is None else float(tolerance))
+    figures.draw_selection(
+        axes[0],
+        terms,
+        scores,
+        chosen,
+        score_label="statistical score (ratio to noise floor)",
+        tolerance=None if tolerance is None else float(tolerance),
+    )
     return _done(figure, axes, ax)

@@ -65,9 +65,11 @@ MAX_POWER_PAIRS = 16
 TEMPORAL_STATISTICS = ("autocorrelation", "spectrum", "residence", "transitions")
 DISTRIBUTION_STATISTICS = ("histogram", "quantiles", "occupancy")
 
-METHOD = ("rescaled copies of the reference scored against disjoint reference groups through "
-          "the check's own rows (time scale by resampling, variance by scaling); "
-          "Bretherton et al. 1999 for the effective sample size it agrees with")
+METHOD = (
+    "rescaled copies of the reference scored against disjoint reference groups through "
+    "the check's own rows (time scale by resampling, variance by scaling); "
+    "Bretherton et al. 1999 for the effective sample size it agrees with"
+)
 
 
 def stretch_pieces(pieces: np.ndarray, factor: float) -> np.ndarray:
@@ -89,9 +91,15 @@ def scale_pieces(pieces: np.ndarray, factor: float, mean: np.ndarray) -> np.ndar
     return mean + math.sqrt(float(factor)) * (np.asarray(pieces, float) - mean)
 
 
-def detectable_changes(ref_pieces: np.ndarray, groups: list, floor_index, group_stats,
-                       floors: dict[str, np.ndarray], ctx: dict,
-                       tolerance_for: Callable[[str], float]) -> dict:
+def detectable_changes(
+    ref_pieces: np.ndarray,
+    groups: list,
+    floor_index,
+    group_stats,
+    floors: dict[str, np.ndarray],
+    ctx: dict,
+    tolerance_for: Callable[[str], float],
+) -> dict:
     """Smallest time-scale and variance factors the check's rows would reject.
 
     Parameters
@@ -141,8 +149,9 @@ def detectable_changes(ref_pieces: np.ndarray, groups: list, floor_index, group_
     return out
 
 
-def power_statement(detect: dict, *, record_time: float, piece_time: float,
-                    decorrelation_time: float) -> tuple[dict, list[str]]:
+def power_statement(
+    detect: dict, *, record_time: float, piece_time: float, decorrelation_time: float
+) -> tuple[dict, list[str]]:
     """The scorecard's ``power`` block and the reasons the record is too weak (empty if not).
 
     The record is inconclusive when it cannot reject a time scale ×1.5 or a variance ×1.5 or
@@ -150,12 +159,15 @@ def power_statement(detect: dict, *, record_time: float, piece_time: float,
     or spans fewer than :data:`MIN_DECORRELATION_TIMES` decorrelation times.
     """
     n_tau = record_time / decorrelation_time
-    power = {"method": METHOD, "required_factor": REQUIRED_FACTOR,
-             "record_time": record_time,
-             "record_decorrelation_times": n_tau,
-             "piece_decorrelation_times": piece_time / decorrelation_time,
-             "min_decorrelation_times": MIN_DECORRELATION_TIMES,
-             "detectable": dict(detect)}
+    power = {
+        "method": METHOD,
+        "required_factor": REQUIRED_FACTOR,
+        "record_time": record_time,
+        "record_decorrelation_times": n_tau,
+        "piece_decorrelation_times": piece_time / decorrelation_time,
+        "min_decorrelation_times": MIN_DECORRELATION_TIMES,
+        "detectable": dict(detect),
+    }
     # (what, smallest detected factor as a size ≥ 1, the size required)
     checks = []
     if "time_scale" in detect:
@@ -163,32 +175,43 @@ def power_statement(detect: dict, *, record_time: float, piece_time: float,
     if "variance_up" in detect:
         checks.append(("a variance ×1.5", detect["variance_up"], REQUIRED_FACTOR))
     if "variance_down" in detect:
-        checks.append(("a variance ×0.5", None if detect["variance_down"] is None
-                       else 1.0 / detect["variance_down"], 1.0 / (1.0 - (REQUIRED_FACTOR - 1.0))))
+        checks.append(
+            (
+                "a variance ×0.5",
+                None if detect["variance_down"] is None else 1.0 / detect["variance_down"],
+                1.0 / (1.0 - (REQUIRED_FACTOR - 1.0)),
+            )
+        )
     weak = [(what, f, need) for what, f, need in checks if f is None or f > need * (1 + 1e-9)]
     reasons = []
     if weak:
         what = " or ".join(w for w, _, _ in weak)
         if any(f is None for _, f, _ in weak):
-            need = (f"not even a ×{LADDER[-1]:g} change was detected; it needs many times "
-                    f"more data")
+            need = f"not even a ×{LADDER[-1]:g} change was detected; it needs many times more data"
         else:
             times = max((math.log(f) / math.log(n)) ** 2 for _, f, n in weak)
-            need = (f"it needs about {(times - 1) * record_time:.3g} more time units "
-                    f"(≈{times:.2g}× the record)")
-        reasons.append(f"inconclusive: the record ({record_time:.4g} time units, {n_tau:.3g} "
-                       f"decorrelation times) cannot detect {what}; {need}")
+            need = (
+                f"it needs about {(times - 1) * record_time:.3g} more time units "
+                f"(≈{times:.2g}× the record)"
+            )
+        reasons.append(
+            f"inconclusive: the record ({record_time:.4g} time units, {n_tau:.3g} "
+            f"decorrelation times) cannot detect {what}; {need}"
+        )
     if n_tau < MIN_DECORRELATION_TIMES:
         more = (MIN_DECORRELATION_TIMES - n_tau) * decorrelation_time
-        reasons.append(f"inconclusive: the record spans {n_tau:.3g} decorrelation times, fewer "
-                       f"than the {MIN_DECORRELATION_TIMES:g} needed; it needs about {more:.3g} "
-                       f"more time units")
+        reasons.append(
+            f"inconclusive: the record spans {n_tau:.3g} decorrelation times, fewer "
+            f"than the {MIN_DECORRELATION_TIMES:g} needed; it needs about {more:.3g} "
+            f"more time units"
+        )
     power["sufficient"] = not reasons
     return power, reasons
 
 
-def reference_consistency(ref_pieces: np.ndarray, run_of_piece: np.ndarray, gap_samples: int,
-                          ctx: dict, tolerance: float) -> dict:
+def reference_consistency(
+    ref_pieces: np.ndarray, run_of_piece: np.ndarray, gap_samples: int, ctx: dict, tolerance: float
+) -> dict:
     """Do the reference runs sample the same thing, within their own noise?
 
     Each piece is cut into a first and a last part of equal length separated by up to
@@ -205,7 +228,7 @@ def reference_consistency(ref_pieces: np.ndarray, run_of_piece: np.ndarray, gap_
     out = {"ratio": None, "tolerance": tolerance, "verdict": None, "per_variable": {}}
     if np.unique(run_of_piece).size < 2 or half < 16:
         return out
-    parts = np.concatenate([ref_pieces[:, :half], ref_pieces[:, L - half:]])
+    parts = np.concatenate([ref_pieces[:, :half], ref_pieces[:, L - half :]])
     runs = np.concatenate([run_of_piece, run_of_piece])
     st = _PieceStats(parts, dict(ctx, statistics=("histogram",), regimes=None))
     ii, jj = np.triu_indices(parts.shape[0], 1)
@@ -214,6 +237,9 @@ def reference_consistency(ref_pieces: np.ndarray, run_of_piece: np.ndarray, gap_
     within, between = d[same].mean(axis=0), d[~same].mean(axis=0)
     per_var = between / np.maximum(within, np.finfo(float).tiny)
     ratio = float(np.max(per_var))
-    out.update(ratio=ratio, verdict="pass" if ratio <= tolerance else "fail",
-               per_variable={v: float(r) for v, r in zip(ctx["variables"], per_var)})
+    out.update(
+        ratio=ratio,
+        verdict="pass" if ratio <= tolerance else "fail",
+        per_variable={v: float(r) for v, r in zip(ctx["variables"], per_var)},
+    )
     return out

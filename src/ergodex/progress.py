@@ -36,8 +36,9 @@ def _check(progress: Any, where: str) -> None:
 
 
 @contextlib.contextmanager
-def reporter(progress: Progress, total: int, *, desc: str,
-             unit: str = "step") -> Iterator[Callable[[int, int], None] | None]:
+def reporter(
+    progress: Progress, total: int, *, desc: str, unit: str = "step"
+) -> Iterator[Callable[[int, int], None] | None]:
     """Yield an ``update(done, total)`` function for ``progress``, or None when silent.
 
     A bar is closed when the block ends, whether the work finished or failed.

@@ -124,8 +124,10 @@ def _check_dt_argument(dt: Any, source: str) -> float | None:
 
 
 def _check_min_samples(min_samples: Any) -> int:
-    if isinstance(min_samples, bool) or not isinstance(min_samples, (int, np.integer)) or (
-        min_samples < 1
+    if (
+        isinstance(min_samples, bool)
+        or not isinstance(min_samples, (int, np.integer))
+        or (min_samples < 1)
     ):
         raise DataError(f"min_samples must be an integer >= 1, got {min_samples!r}")
     return int(min_samples)
@@ -187,7 +189,12 @@ def _finish(
     if not out_values:
         raise DataError(f"{source}: every row has a missing or non-finite value; no data left")
     return Series.from_arrays(
-        out_values, names, dt, units=units, run_labels=out_labels, source=source,
+        out_values,
+        names,
+        dt,
+        units=units,
+        run_labels=out_labels,
+        source=source,
         time_unit=time_unit,
     )
 
@@ -233,7 +240,7 @@ def _decode(raw: bytes, path: Path, line_offset: int = 0) -> str:
     except UnicodeDecodeError as exc:
         line = raw.count(b"\n", 0, exc.start) + 1 + line_offset
         raise DataError(
-            f"{path}: line {line}: byte {raw[exc.start:exc.start + 1]!r} is not UTF-8 text; "
+            f"{path}: line {line}: byte {raw[exc.start : exc.start + 1]!r} is not UTF-8 text; "
             "save the file as UTF-8 CSV"
         ) from None
     if "\x00" in text:
@@ -290,7 +297,7 @@ def _parse_body_slow(
         if len(cells) != n_cols:
             lineno = i + 2
             if len(cells) < n_cols:
-                missing = ", ".join(repr(n) for n in names[len(cells):])
+                missing = ", ".join(repr(n) for n in names[len(cells) :])
                 raise DataError(
                     f"{source}: line {lineno}: has {len(cells)} cells, the header has {n_cols}; "
                     f"missing column {missing}"
@@ -327,8 +334,22 @@ def _scan_kernel():
     import numba
 
     @numba.njit(cache=True, nogil=True)
-    def scan(buf, end, n_cols, text_col, dest, pow10, out, tout, slow_cell, slow_start,
-             slow_end, run_row, run_start, run_end):  # pragma: no cover - compiled
+    def scan(
+        buf,
+        end,
+        n_cols,
+        text_col,
+        dest,
+        pow10,
+        out,
+        tout,
+        slow_cell,
+        slow_start,
+        slow_end,
+        run_row,
+        run_start,
+        run_end,
+    ):  # pragma: no cover - compiled
         """Parse comma-separated decimal numbers from ``buf[:end]``.
 
         Returns (status, n_rows, n_slow, n_runs, n_ambiguous). status 0: parsed; 1: a row or cell
@@ -411,8 +432,9 @@ def _scan_kernel():
                         pos += 1
                 slow = False
                 if not any_digit:
-                    if pos == start and (pos >= end or buf[pos] == 44 or buf[pos] == 10
-                                         or buf[pos] == 13):
+                    if pos == start and (
+                        pos >= end or buf[pos] == 44 or buf[pos] == 10 or buf[pos] == 13
+                    ):
                         dc = dest[col]
                         if dc >= 0:
                             out[row, dc] = np.nan  # empty cell: a missing value
@@ -528,7 +550,10 @@ def _scan_kernel():
 
 
 def _parse_body_fast(
-    body: bytes | memoryview, n_cols: int, var_cols: list[int], time_col: int | None,
+    body: bytes | memoryview,
+    n_cols: int,
+    var_cols: list[int],
+    time_col: int | None,
     run_col: int | None,
 ) -> tuple[np.ndarray, np.ndarray | None, list[tuple[int, str]]] | None:
     """Parse a large numeric CSV body with the compiled scanner; None means "use Python".
@@ -563,8 +588,20 @@ def _parse_body_fast(
         slow_start = np.empty(cap, dtype=np.int64)
         slow_end = np.empty(cap, dtype=np.int64)
         status, rows, n_slow, n_runs, _ = scan(
-            buf, end, n_cols, text_col, dest, _POW10, out, tout, slow_cell, slow_start,
-            slow_end, run_row, run_start, run_end,
+            buf,
+            end,
+            n_cols,
+            text_col,
+            dest,
+            _POW10,
+            out,
+            tout,
+            slow_cell,
+            slow_start,
+            slow_end,
+            run_row,
+            run_start,
+            run_end,
         )
         if status != 2:
             break
@@ -697,8 +734,7 @@ def read_csv(
             assert run_col is not None  # labelled blocks come only from a run column
             if label == "":
                 raise DataError(
-                    f"{source}: line {start + 2}, column {names[run_col]!r}: the run label is "
-                    "empty"
+                    f"{source}: line {start + 2}, column {names[run_col]!r}: the run label is empty"
                 )
             if label in seen:
                 raise DataError(
@@ -710,8 +746,13 @@ def read_csv(
         bounds.append((start, stop, label))
 
     dt_final = _check_time(
-        times, bounds, names[time_col] if time_col is not None else "time", dt_arg,
-        time_tolerance, source, lambda i: f"line {i + 2}",
+        times,
+        bounds,
+        names[time_col] if time_col is not None else "time",
+        dt_arg,
+        time_tolerance,
+        source,
+        lambda i: f"line {i + 2}",
     )
 
     if not split_at_gaps:
@@ -741,7 +782,11 @@ def read_csv(
             )
         )
     return _finish(
-        runs, var_names, dt_final, source=source, split_at_gaps=split_at_gaps,
+        runs,
+        var_names,
+        dt_final,
+        source=source,
+        split_at_gaps=split_at_gaps,
         min_samples=min_samples,
     )
 
@@ -837,8 +882,10 @@ def _check_npz_size(path: Path) -> None:
         return  # np.load words the error (a single .npy, a corrupt file)
     limit = file_size_limit()
     if total > limit:
-        raise DataError(f"{path}: unpacks to {format_bytes(total)}, over the limit of "
-                        f"{format_bytes(limit)}; raise it with {FILE_SIZE_ENV}")
+        raise DataError(
+            f"{path}: unpacks to {format_bytes(total)}, over the limit of "
+            f"{format_bytes(limit)}; raise it with {FILE_SIZE_ENV}"
+        )
 
 
 def read_npz(
@@ -891,8 +938,10 @@ def read_npz(
         raise DataError(f"{source}: no 'names' array (one name per variable)")
     if dt_arg is None:
         if "dt" not in data:
-            raise DataError(f"{source}: no 'dt' in the archive and none given; give the sampling "
-                            "interval", **DT_HINTS)
+            raise DataError(
+                f"{source}: no 'dt' in the archive and none given; give the sampling interval",
+                **DT_HINTS,
+            )
         dt_arr = data["dt"]
         if dt_arr.dtype.kind not in "iuf" or dt_arr.size != 1:
             raise DataError(f"{source}: 'dt' must be one number, got {dt_arr!r}")
@@ -941,8 +990,10 @@ def read_npz(
     if "time_unit" in data:
         raw = np.asarray(data["time_unit"])
         if raw.ndim != 0 or raw.dtype.kind != "U":
-            raise DataError(f"{source}: 'time_unit' must be one string such as 'hours', got an "
-                            f"array of shape {raw.shape} and dtype {raw.dtype}")
+            raise DataError(
+                f"{source}: 'time_unit' must be one string such as 'hours', got an "
+                f"array of shape {raw.shape} and dtype {raw.dtype}"
+            )
         time_unit = str(raw[()])
     labels = _npz_strings(data, "run_labels", len(arrays), source)
     if labels is None:
@@ -963,8 +1014,14 @@ def read_npz(
         for i, (a, lab) in enumerate(zip(arrays, labels))
     ]
     return _finish(
-        runs, names, dt_val, source=source, split_at_gaps=split_at_gaps,
-        min_samples=min_samples, units=units, time_unit=time_unit,
+        runs,
+        names,
+        dt_val,
+        source=source,
+        split_at_gaps=split_at_gaps,
+        min_samples=min_samples,
+        units=units,
+        time_unit=time_unit,
     )
 
 
@@ -988,14 +1045,29 @@ def member_dimension(ds: Any, source: str) -> str | None:
         raise DataError(f"{source}: both 'member' and 'run' dimensions; use one")
     return member_dims[0] if member_dims else None
 
+
 #: Spellings of CF/UDUNITS time units → the word a Series keeps as its ``time_unit``.
 _TIME_UNIT_WORDS = {
-    "seconds": "seconds", "second": "seconds", "secs": "seconds", "sec": "seconds", "s": "seconds",
-    "minutes": "minutes", "minute": "minutes", "mins": "minutes", "min": "minutes",
-    "hours": "hours", "hour": "hours", "hrs": "hours", "hr": "hours", "h": "hours",
-    "days": "days", "day": "days", "d": "days",
+    "seconds": "seconds",
+    "second": "seconds",
+    "secs": "seconds",
+    "sec": "seconds",
+    "s": "seconds",
+    "minutes": "minutes",
+    "minute": "minutes",
+    "mins": "minutes",
+    "min": "minutes",
+    "hours": "hours",
+    "hour": "hours",
+    "hrs": "hours",
+    "hr": "hours",
+    "h": "hours",
+    "days": "days",
+    "day": "days",
+    "d": "days",
     # cftime decodes "months since" on the 360_day calendar only, where months are equal
-    "months": "months", "month": "months",
+    "months": "months",
+    "month": "months",
 }
 
 
@@ -1018,8 +1090,11 @@ def _netcdf_columns(ds, source: str, member: str | None):
         dims = tuple(map(str, da.dims))
         extra = [d for d in dims if d != "time" and d != member]
         if "time" not in dims or len(extra) > 1:
-            where = (f"dimension {extra[1]!r} is one too many" if len(extra) > 1
-                     else "it has no 'time' dimension")
+            where = (
+                f"dimension {extra[1]!r} is one too many"
+                if len(extra) > 1
+                else "it has no 'time' dimension"
+            )
             raise DataError(
                 f"{source}: variable {name!r} has dimensions {dims}: {where}; expected (time,)"
                 + (f", ({member}, time)" if member else "")
@@ -1046,15 +1121,21 @@ def _netcdf_columns(ds, source: str, member: str | None):
         single = len(data_names) == 1
         for label in labels:
             column = label if single else f"{name}_{label}"
-            names.append(check_name(
-                column, what=f"variable {name!r}, {dim} {label!r} (a column name)", source=source))
+            names.append(
+                check_name(
+                    column,
+                    what=f"variable {name!r}, {dim} {label!r} (a column name)",
+                    source=source,
+                )
+            )
         blocks.append(values)
         units.extend([da.attrs.get("units")] * len(labels))
     return names, units, blocks
 
 
-def _netcdf_dt(ds, source: str, n_time: int, dt_arg: float | None,
-               tol: float) -> tuple[float, str | None]:
+def _netcdf_dt(
+    ds, source: str, n_time: int, dt_arg: float | None, tol: float
+) -> tuple[float, str | None]:
     """``(dt, time_unit)`` from the ``time`` coordinate.
 
     CF units (``"hours since 2001-01-01"`` with a ``calendar``) are decoded through cftime: dt is
@@ -1064,8 +1145,10 @@ def _netcdf_dt(ds, source: str, n_time: int, dt_arg: float | None,
     """
     if "time" not in ds.coords:
         if dt_arg is None:
-            raise DataError(f"{source}: no time coordinate and no dt given; give the sampling "
-                            "interval", **DT_HINTS)
+            raise DataError(
+                f"{source}: no time coordinate and no dt given; give the sampling interval",
+                **DT_HINTS,
+            )
         return dt_arg, None
     t = np.asarray(ds["time"].values)
     if t.dtype.kind not in "iuf":
@@ -1075,8 +1158,9 @@ def _netcdf_dt(ds, source: str, n_time: int, dt_arg: float | None,
     units = attrs.get("units")
 
     def elapsed() -> float:
-        return _check_time(t, [(0, n_time, None)], "time", dt_arg, tol, source,
-                           lambda i: f"time index {i}")
+        return _check_time(
+            t, [(0, n_time, None)], "time", dt_arg, tol, source, lambda i: f"time index {i}"
+        )
 
     if not isinstance(units, str) or not units.strip():
         return elapsed(), None
@@ -1089,8 +1173,10 @@ def _netcdf_dt(ds, source: str, n_time: int, dt_arg: float | None,
     calendar = str(attrs.get("calendar", "standard")).strip().lower() or "standard"
     dates = decode_times(t, units, calendar, where=f"{source}: time")
     if unit is None:
-        raise DataError(f"{source}: time units {units!r}: {word!r} is not a unit ergodex reads;"
-                        " write the times in seconds, minutes, hours or days since a date")
+        raise DataError(
+            f"{source}: time units {units!r}: {word!r} is not a unit ergodex reads;"
+            " write the times in seconds, minutes, hours or days since a date"
+        )
     try:
         return elapsed(), unit
     except _DtMismatch:
@@ -1101,11 +1187,14 @@ def _netcdf_dt(ds, source: str, n_time: int, dt_arg: float | None,
         steps = np.diff(months)
         if n_time < 2 or not (np.all(steps == steps[0]) and steps[0] > 0):
             raise exc from None
-        dt_months, unit = (float(steps[0] // 12), "years") if steps[0] % 12 == 0 else (
-            float(steps[0]), "months")
+        dt_months, unit = (
+            (float(steps[0] // 12), "years") if steps[0] % 12 == 0 else (float(steps[0]), "months")
+        )
         if dt_arg is not None and abs(dt_arg - dt_months) > tol * dt_months:
-            raise DataError(f"{source}: dt={dt_arg!r} was given but the times are "
-                            f"{dt_months:g} {unit} apart ({calendar} calendar)") from None
+            raise DataError(
+                f"{source}: dt={dt_arg!r} was given but the times are "
+                f"{dt_months:g} {unit} apart ({calendar} calendar)"
+            ) from None
         return dt_months, unit
 
 
@@ -1141,8 +1230,10 @@ def read_netcdf(
     seen: dict[str, int] = {}
     for k, name in enumerate(names):
         if name in seen:
-            raise DataError(f"{source}: two columns are named {name!r} (columns {seen[name] + 1} "
-                            f"and {k + 1}); rename a variable or a station")
+            raise DataError(
+                f"{source}: two columns are named {name!r} (columns {seen[name] + 1} "
+                f"and {k + 1}); rename a variable or a station"
+            )
         seen[name] = k
     n_time = ds.sizes["time"]
     n_members = ds.sizes[member] if member else 1
@@ -1168,14 +1259,28 @@ def read_netcdf(
         for i in range(n_members)
     ]
     return _finish(
-        runs, names, dt_val, source=source, split_at_gaps=split_at_gaps,
-        min_samples=min_samples, units=units, time_unit=time_unit,
+        runs,
+        names,
+        dt_val,
+        source=source,
+        split_at_gaps=split_at_gaps,
+        min_samples=min_samples,
+        units=units,
+        time_unit=time_unit,
     )
 
 
 # --- dataset folder -----------------------------------------------------------------------------
-_MANIFEST_KEYS = {"name", "description", "variables", "units", "dt", "files", "holdout",
-                  "provenance"}
+_MANIFEST_KEYS = {
+    "name",
+    "description",
+    "variables",
+    "units",
+    "dt",
+    "files",
+    "holdout",
+    "provenance",
+}
 
 
 @dataclass(frozen=True)
@@ -1305,7 +1410,7 @@ def read_dataset(
             raise _manifest_error(
                 manifest, f"file {entry!r} must be a relative path inside the dataset folder"
             )
-        target = (folder / rel)
+        target = folder / rel
         try:
             target.resolve().relative_to(root)
         except ValueError:
@@ -1347,7 +1452,12 @@ def read_dataset(
     # the files' time unit, when every file names the same one (the manifest's dt has none)
     time_unit = next(iter(time_units)) if len(time_units) == 1 else None
     series = Series.from_arrays(
-        run_arrays, variables, dt, units=units, run_labels=labels, source=str(folder),
+        run_arrays,
+        variables,
+        dt,
+        units=units,
+        run_labels=labels,
+        source=str(folder),
         time_unit=time_unit,
     )
     return Dataset(
@@ -1390,7 +1500,9 @@ _FILE_READERS: dict[str, Callable[..., Series]] = {
 
 #: Extension (or kind) -> reader; ``"folder"`` is a dataset folder or its ``dataset.toml``.
 READERS: dict[str, Callable[..., Any]] = {
-    **_FILE_READERS, ".toml": read_dataset, "folder": read_dataset,
+    **_FILE_READERS,
+    ".toml": read_dataset,
+    "folder": read_dataset,
 }
 
 
@@ -1433,8 +1545,11 @@ def read_series(
         if p.is_dir() and not (p / _MANIFEST).exists():
             raise DataError(f"{p}: is a folder without a {_MANIFEST}; cannot read it as a dataset")
         if dt is not None:
-            raise DataError(f"{p}: dt comes from {_MANIFEST}; do not give the sampling interval "
-                            "for a dataset", python_hint="(drop dt=)", cli_hint="(drop --dt)")
+            raise DataError(
+                f"{p}: dt comes from {_MANIFEST}; do not give the sampling interval for a dataset",
+                python_hint="(drop dt=)",
+                cli_hint="(drop --dt)",
+            )
         return read_dataset(
             p, split_at_gaps=split_at_gaps, min_samples=min_samples, time_tolerance=time_tolerance
         ).series

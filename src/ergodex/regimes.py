@@ -71,8 +71,10 @@ def _variable_index(variables: Sequence[str], name: str, regime: str) -> int:
     try:
         return list(variables).index(name)
     except ValueError:
-        raise DataError(f"regime {regime!r} uses variable {name!r}, which is not among the data's "
-                        f"variables {list(variables)}") from None
+        raise DataError(
+            f"regime {regime!r} uses variable {name!r}, which is not among the data's "
+            f"variables {list(variables)}"
+        ) from None
 
 
 def _number(value, where: str) -> float:
@@ -93,8 +95,9 @@ def _name(d: Mapping, where: str) -> str:
 def _centre(d: Mapping, where: str) -> dict[str, float]:
     centre = d.get("centre")
     if not isinstance(centre, Mapping) or not centre:
-        raise SettingsError(f"{where}: key 'centre' must be a table {{variable = value, ...}}; "
-                            f"got {centre!r}")
+        raise SettingsError(
+            f"{where}: key 'centre' must be a table {{variable = value, ...}}; got {centre!r}"
+        )
     return {str(k): _number(v, f"{where}: centre.{k}") for k, v in centre.items()}
 
 
@@ -139,8 +142,12 @@ class Ball(Regime):
         return d2 <= self.radius**2
 
     def to_dict(self):
-        return {"name": self.name, "kind": self.kind, "centre": dict(self.centre),
-                "radius": self.radius}
+        return {
+            "name": self.name,
+            "kind": self.kind,
+            "centre": dict(self.centre),
+            "radius": self.radius,
+        }
 
     @classmethod
     def from_dict(cls, d, where):
@@ -167,15 +174,20 @@ class Threshold(Regime):
         return ok
 
     def to_dict(self):
-        return {"name": self.name, "kind": self.kind,
-                "rules": [{"variable": v, side: value} for v, side, value in self.rules]}
+        return {
+            "name": self.name,
+            "kind": self.kind,
+            "rules": [{"variable": v, side: value} for v, side, value in self.rules],
+        }
 
     @classmethod
     def from_dict(cls, d, where):
         raw = d.get("rules")
         if not isinstance(raw, list) or not raw:
-            raise SettingsError(f"{where}: key 'rules' must be a non-empty list of "
-                                f"{{variable = ..., above|below = ...}}; got {raw!r}")
+            raise SettingsError(
+                f"{where}: key 'rules' must be a non-empty list of "
+                f"{{variable = ..., above|below = ...}}; got {raw!r}"
+            )
         rules = []
         for k, r in enumerate(raw):
             w = f"{where}: rules[{k}]"
@@ -184,8 +196,10 @@ class Threshold(Regime):
             sides = [s for s in ("above", "below") if s in r]
             extra = set(r) - {"variable", "above", "below"}
             if len(sides) != 1 or extra:
-                raise SettingsError(f"{w} needs exactly one of 'above' or 'below' and no other key; "
-                                    f"got keys {sorted(r)}")
+                raise SettingsError(
+                    f"{w} needs exactly one of 'above' or 'below' and no other key; "
+                    f"got keys {sorted(r)}"
+                )
             rules.append((r["variable"], sides[0], _number(r[sides[0]], f"{w}.{sides[0]}")))
         return cls(_name(d, where), tuple(rules))
 
@@ -259,8 +273,9 @@ class KMeansRule(Regime):
     kind = "kmeans"
 
     def contains(self, states, variables):
-        raise SettingsError(f"regime {self.name!r} (kmeans) must be fitted on reference data first "
-                            f"(RegimeSet.fit)")
+        raise SettingsError(
+            f"regime {self.name!r} (kmeans) must be fitted on reference data first (RegimeSet.fit)"
+        )
 
     def to_dict(self):
         out = {"name": self.name, "kind": self.kind, "clusters": self.clusters, "seed": self.seed}
@@ -276,12 +291,16 @@ class KMeansRule(Regime):
         seed = d.get("seed", 0)
         if isinstance(seed, bool) or not isinstance(seed, int) or not 0 <= seed < 2**32:
             # scikit-learn's KMeans takes seeds in 0 .. 2**32 - 1
-            raise SettingsError(f"{where}: key 'seed' must be an integer from 0 to 2**32 - 1; "
-                                f"got {seed!r}")
+            raise SettingsError(
+                f"{where}: key 'seed' must be an integer from 0 to 2**32 - 1; got {seed!r}"
+            )
         variables = d.get("variables")
-        if variables is not None and (not isinstance(variables, list)
-                                      or not all(isinstance(v, str) for v in variables)):
-            raise SettingsError(f"{where}: key 'variables' must be a list of names; got {variables!r}")
+        if variables is not None and (
+            not isinstance(variables, list) or not all(isinstance(v, str) for v in variables)
+        ):
+            raise SettingsError(
+                f"{where}: key 'variables' must be a list of names; got {variables!r}"
+            )
         return cls(_name(d, where), k, seed, None if variables is None else tuple(variables))
 
     def fit(self, states, variables) -> list[Cluster]:
@@ -292,17 +311,23 @@ class KMeansRule(Regime):
         x = np.asarray(states, float)[:, idx]
         x = x[np.all(np.isfinite(x), axis=1)]
         if x.shape[0] < self.clusters:
-            raise DataError(f"regime {self.name!r}: {x.shape[0]} states cannot make "
-                            f"{self.clusters} clusters")
+            raise DataError(
+                f"regime {self.name!r}: {x.shape[0]} states cannot make {self.clusters} clusters"
+            )
         scale = x.std(axis=0)
         scale[scale == 0] = 1.0
         km = KMeans(n_clusters=self.clusters, n_init=10, random_state=self.seed).fit(x / scale)
         centres = km.cluster_centers_ * scale
         # order clusters by their first coordinate so names do not depend on k-means' internal order
         order = np.lexsort(centres.T[::-1])
-        return [Cluster(f"{self.name}{i}", {v: float(centres[j, m]) for m, v in enumerate(use)},
-                        {v: float(scale[m]) for m, v in enumerate(use)})
-                for i, j in enumerate(order)]
+        return [
+            Cluster(
+                f"{self.name}{i}",
+                {v: float(centres[j, m]) for m, v in enumerate(use)},
+                {v: float(scale[m]) for m, v in enumerate(use)},
+            )
+            for i, j in enumerate(order)
+        ]
 
 
 #: kind name → class; files and dictionaries name one of these.
@@ -353,10 +378,14 @@ class RegimeSet:
     def from_dict(cls, d: Mapping, *, source: str = "regimes") -> RegimeSet:
         """Read ``{"regime": [{"name": ..., "kind": ..., ...}, ...]}`` (the TOML layout)."""
         if not isinstance(d, Mapping):
-            raise SettingsError(f"{source}: expected a table with key 'regime'; got {type(d).__name__}")
+            raise SettingsError(
+                f"{source}: expected a table with key 'regime'; got {type(d).__name__}"
+            )
         unknown = set(d) - {"regime", "format"}
         if unknown:
-            raise SettingsError(f"{source}: unknown top-level key(s) {sorted(unknown)}; expected 'regime'")
+            raise SettingsError(
+                f"{source}: unknown top-level key(s) {sorted(unknown)}; expected 'regime'"
+            )
         entries = d.get("regime")
         if not isinstance(entries, list) or not entries:
             raise SettingsError(f"{source}: key 'regime' must be a non-empty list of regimes")
@@ -367,17 +396,22 @@ class RegimeSet:
                 raise SettingsError(f"{where} must be a table; got {e!r}")
             kind = e.get("kind")
             if kind not in REGIME_KINDS:
-                raise SettingsError(f"{where}: key 'kind' must be one of {sorted(REGIME_KINDS)}; "
-                                    f"got {kind!r}")
+                raise SettingsError(
+                    f"{where}: key 'kind' must be one of {sorted(REGIME_KINDS)}; got {kind!r}"
+                )
             cls_ = REGIME_KINDS[kind]
             allowed = {"name", "kind"} | {
-                "ball": {"centre", "radius"}, "threshold": {"rules"},
+                "ball": {"centre", "radius"},
+                "threshold": {"rules"},
                 "cluster": {"centre", "scale", "radius"},
-                "kmeans": {"clusters", "seed", "variables"}}[kind]
+                "kmeans": {"clusters", "seed", "variables"},
+            }[kind]
             extra = set(e) - allowed
             if extra:
-                raise SettingsError(f"{where}: unknown key(s) {sorted(extra)} for kind {kind!r}; "
-                                    f"allowed: {sorted(allowed)}")
+                raise SettingsError(
+                    f"{where}: unknown key(s) {sorted(extra)} for kind {kind!r}; "
+                    f"allowed: {sorted(allowed)}"
+                )
             out.append(cls_.from_dict(e, where))
         return cls(out)
 
@@ -427,8 +461,9 @@ class RegimeSet:
         distance = {}  # regime index -> scaled distance, computed once per cluster
         if clusters:
             d = np.stack([r.scaled_distance(states, variables) for _, r in clusters], axis=1)
-            nearest = np.array([i for i, _ in clusters])[np.argmin(np.where(np.isfinite(d), d, np.inf),
-                                                                    axis=1)]
+            nearest = np.array([i for i, _ in clusters])[
+                np.argmin(np.where(np.isfinite(d), d, np.inf), axis=1)
+            ]
             distance = {i: d[:, k] for k, (i, _) in enumerate(clusters)}
         unset = finite.copy()
         for i, r in enumerate(self.regimes):
@@ -483,8 +518,9 @@ def _episodes(run: np.ndarray):
     return run[starts], starts, lengths
 
 
-def residence_times(labels, dt: float, n_regimes: int, *, include_censored: bool = False
-                    ) -> list[np.ndarray]:
+def residence_times(
+    labels, dt: float, n_regimes: int, *, include_censored: bool = False
+) -> list[np.ndarray]:
     """Durations of the visits to each regime (``"none"`` last).
 
     A visit that touches the start or end of a run is censored (its true length is unknown) and

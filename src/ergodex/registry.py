@@ -80,9 +80,10 @@ import threading
 import time
 import uuid
 import zipfile
+from collections.abc import Iterator, Mapping
 from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
-from typing import Any, Iterator, Mapping
+from typing import Any
 
 from ergodex import CAUTION
 from ergodex.exceptions import IntegrityError, ModelFileError, RegistryError
@@ -133,10 +134,16 @@ _EVENT_PATTERN = re.compile(r"[a-z][a-z0-9-]{0,39}")
 # folder the HTTP service keeps under the home (ergodex.service.settings.SERVICE_DIR).
 _RESERVED_NAMES = {
     "service",
-    "con", "prn", "aux", "nul",
+    "con",
+    "prn",
+    "aux",
+    "nul",
     *(f"com{i}" for i in range(1, 10)),
     *(f"lpt{i}" for i in range(1, 10)),
-    INDEX_FILE, INDEX_FILE + "-wal", INDEX_FILE + "-shm", INDEX_FILE + "-journal",
+    INDEX_FILE,
+    INDEX_FILE + "-wal",
+    INDEX_FILE + "-shm",
+    INDEX_FILE + "-journal",
 }
 # Staging entries whose owner cannot be checked (another machine, a reused pid) are removed only
 # when this old. No registration takes a day.
@@ -336,7 +343,9 @@ def validate_name(name: object) -> str:
             f"model name {shown} is {len(name)} characters long; the limit is {MAX_NAME_LENGTH}"
         )
     if "/" in name or "\\" in name:
-        raise RegistryError(f"model name {shown} contains a path separator; use letters, digits, . _ -")
+        raise RegistryError(
+            f"model name {shown} contains a path separator; use letters, digits, . _ -"
+        )
     if ".." in name:
         raise RegistryError(f"model name {shown} contains '..'; use letters, digits, . _ -")
     # A trailing dot is dropped by Windows filesystems ("a." would share the folder of "a").
@@ -361,8 +370,11 @@ def parse_ref(ref: object) -> tuple[str, int | None]:
     if not sep:
         return name, None
     # length and ASCII first: int() refuses 5000 digits and digits such as '²' with ValueError
-    if (len(version_text) > 9 or not (version_text.isascii() and version_text.isdigit())
-            or int(version_text) < 1):
+    if (
+        len(version_text) > 9
+        or not (version_text.isascii() and version_text.isdigit())
+        or int(version_text) < 1
+    ):
         shown = ref if len(ref) <= 80 else ref[:77] + "..."
         raise RegistryError(
             f"model reference {shown!r}: the version after '@' must be a positive whole number"
@@ -518,13 +530,20 @@ class _FolderState:
         with contextlib.suppress(OSError, ValueError):
             record_bytes = (folder / "record.json").read_bytes()
             candidate = json.loads(record_bytes)
-            if isinstance(candidate, dict) and candidate.get("format") == RECORD_FORMAT \
-                    and candidate.get("name") == name:
+            if (
+                isinstance(candidate, dict)
+                and candidate.get("format") == RECORD_FORMAT
+                and candidate.get("name") == name
+            ):
                 record = candidate
         with contextlib.suppress(OSError, ValueError):
             candidate = json.loads((folder / STATUS_FILE).read_bytes())
-            if isinstance(candidate, dict) and candidate.get("format") == STATUS_FORMAT \
-                    and candidate.get("name") == name and candidate.get("version") == version:
+            if (
+                isinstance(candidate, dict)
+                and candidate.get("format") == STATUS_FORMAT
+                and candidate.get("name") == name
+                and candidate.get("version") == version
+            ):
                 status = candidate
         return cls(name, version, folder, record, record_bytes, status)
 
@@ -561,8 +580,9 @@ class Registry:
             try:
                 self.sweep()
             except OSError as exc:  # e.g. a read-only copy of a registry: still readable
-                log.warning("registry %s could not be checked against its folders: %s",
-                            self.home, exc)
+                log.warning(
+                    "registry %s could not be checked against its folders: %s", self.home, exc
+                )
 
     def __repr__(self) -> str:
         return f"Registry({str(self.home)!r})"
@@ -609,7 +629,9 @@ class Registry:
 
     def _open(self) -> sqlite3.Connection:
         conn = sqlite3.connect(
-            self.index_path, timeout=BUSY_TIMEOUT_MS / 1000, isolation_level=None,
+            self.index_path,
+            timeout=BUSY_TIMEOUT_MS / 1000,
+            isolation_level=None,
             check_same_thread=False,
         )
         try:
@@ -641,8 +663,13 @@ class Registry:
             path = self.home / (INDEX_FILE + suffix)
             if path.exists():
                 target = self._quarantine(path, INDEX_FILE + suffix)
-                log.warning("registry index file %s is corrupt (%s): moved to %s; a new index "
-                            "is built from the version folders", path, problem, target)
+                log.warning(
+                    "registry index file %s is corrupt (%s): moved to %s; a new index "
+                    "is built from the version folders",
+                    path,
+                    problem,
+                    target,
+                )
 
     def _drop_inherited(self) -> None:
         # Connections made by the parent of a fork must be neither used nor closed here: closing
@@ -767,8 +794,9 @@ class Registry:
                 if stale or (entry_host == host and pid > 0 and not pid_alive(pid)):
                     target = self._quarantine(entry, "staging")
                     if target is not None:
-                        log.info("moved the leftover of a killed registration %s to %s",
-                                 entry, target)
+                        log.info(
+                            "moved the leftover of a killed registration %s to %s", entry, target
+                        )
                         moved.append(target)
         moved.extend(self._reconcile())
         return moved
@@ -815,14 +843,24 @@ class Registry:
 
     def _index_state(self, conn: sqlite3.Connection) -> dict[tuple[str, int], tuple[str, int]]:
         """(name, version) -> (status, number of events) for every indexed version."""
-        counts = {(r[0], int(r[1])): int(r[2]) for r in conn.execute(
-            "SELECT name, version, COUNT(*) FROM events GROUP BY name, version")}
+        counts = {
+            (r[0], int(r[1])): int(r[2])
+            for r in conn.execute(
+                "SELECT name, version, COUNT(*) FROM events GROUP BY name, version"
+            )
+        }
         rows = conn.execute("SELECT name, version, status FROM versions").fetchall()
-        return {(r["name"], int(r["version"])):
-                (r["status"], counts.get((r["name"], int(r["version"])), 0)) for r in rows}
+        return {
+            (r["name"], int(r["version"])): (
+                r["status"],
+                counts.get((r["name"], int(r["version"])), 0),
+            )
+            for r in rows
+        }
 
-    def _plan(self, conn: sqlite3.Connection,
-              folders: list[_FolderState]) -> list[tuple[str, _FolderState]]:
+    def _plan(
+        self, conn: sqlite3.Connection, folders: list[_FolderState]
+    ) -> list[tuple[str, _FolderState]]:
         """What each folder needs: 'reindex', 'mark' (write its status record) or 'quarantine'."""
         indexed = self._index_state(conn)
         names = {r[0] for r in conn.execute("SELECT name FROM models")}
@@ -841,8 +879,11 @@ class Registry:
                 plan.append(("reindex", f) if f.status.get("committed") else ("quarantine", f))
             elif len(f.events) > known[1]:
                 plan.append(("reindex", f))  # the index is older than the folder
-            elif not f.status.get("committed") or len(f.events) < known[1] \
-                    or f.status.get("status") != known[0]:
+            elif (
+                not f.status.get("committed")
+                or len(f.events) < known[1]
+                or f.status.get("status") != known[0]
+            ):
                 plan.append(("mark", f))  # the folder lags: a writer died after its commit
         return plan
 
@@ -874,21 +915,32 @@ class Registry:
                     if action == "quarantine":
                         target = self._quarantine(f.folder, f"{f.name}-{f.version}")
                         if target is not None:
-                            why = ("an unfinished registration (killed before its commit)"
-                                   if f.record is not None else "not written by this registry")
-                            log.warning("moved %s (%s) to %s; nothing was deleted",
-                                        f.folder, why, target)
+                            why = (
+                                "an unfinished registration (killed before its commit)"
+                                if f.record is not None
+                                else "not written by this registry"
+                            )
+                            log.warning(
+                                "moved %s (%s) to %s; nothing was deleted", f.folder, why, target
+                            )
                             moved.append(target)
             for name, version, status in recovered:
                 current = status.get("status", "candidate")
-                _log_status(name, version, current, current,
-                            "recovered: indexed again from the version folder's own records")
+                _log_status(
+                    name,
+                    version,
+                    current,
+                    current,
+                    "recovered: indexed again from the version folder's own records",
+                )
             if reindexed:
                 log.warning(
                     "registry index %s was missing, empty, older than the version folders or "
                     "corrupt: rebuilt %s from the folders' own records (hashes are checked on "
                     "every read; run 'ergodex models verify')",
-                    self.index_path, ", ".join(reindexed))
+                    self.index_path,
+                    ", ".join(reindexed),
+                )
             return moved
 
     def _reindex(self, conn: sqlite3.Connection, f: _FolderState) -> None:
@@ -915,10 +967,19 @@ class Registry:
             """INSERT INTO versions (name, version, status, created, note, parent, datasets,
                    verdict, data_fingerprint, model_fingerprint, scorecard_model_fingerprint)
                VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)""",
-            (f.name, f.version, current, created, str(record.get("note") or ""),
-             record.get("parent"), json.dumps(record.get("datasets") or []),
-             card.get("verdict"), card.get("data_fingerprint"),
-             record.get("model_fingerprint"), card.get("model_fingerprint")),
+            (
+                f.name,
+                f.version,
+                current,
+                created,
+                str(record.get("note") or ""),
+                record.get("parent"),
+                json.dumps(record.get("datasets") or []),
+                card.get("verdict"),
+                card.get("data_fingerprint"),
+                record.get("model_fingerprint"),
+                card.get("model_fingerprint"),
+            ),
         )
         sizes = {}
         for fn in hashes:
@@ -930,33 +991,67 @@ class Registry:
             "INSERT INTO artifacts (name, version, filename, sha256, size) VALUES (?, ?, ?, ?, ?)",
             [(f.name, f.version, fn, hashes[fn], sizes[fn]) for fn in sorted(hashes)],
         )
-        events = f.events or [{"time": created, "event": "registered", "from_status": None,
-                               "to_status": "candidate", "actor": "unknown", "reason": "",
-                               "override": False}]
+        events = f.events or [
+            {
+                "time": created,
+                "event": "registered",
+                "from_status": None,
+                "to_status": "candidate",
+                "actor": "unknown",
+                "reason": "",
+                "override": False,
+            }
+        ]
         for e in events:
             conn.execute(
                 """INSERT INTO events (time, name, version, event, from_status, to_status, actor,
                        reason, override) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)""",
-                (str(e.get("time", "")), f.name, f.version, str(e.get("event", "")),
-                 e.get("from_status"), e.get("to_status"), str(e.get("actor", "unknown")),
-                 str(e.get("reason", "")), int(bool(e.get("override")))),
+                (
+                    str(e.get("time", "")),
+                    f.name,
+                    f.version,
+                    str(e.get("event", "")),
+                    e.get("from_status"),
+                    e.get("to_status"),
+                    str(e.get("actor", "unknown")),
+                    str(e.get("reason", "")),
+                    int(bool(e.get("override"))),
+                ),
             )
-        self._insert_event(conn, f.name, f.version, "recovered", current, current,
-                           "indexed again from the version folder's own records", False)
+        self._insert_event(
+            conn,
+            f.name,
+            f.version,
+            "recovered",
+            current,
+            current,
+            "indexed again from the version folder's own records",
+            False,
+        )
         self._write_status(conn, f.name, f.version, committed=True)
 
-    def _status_bytes(self, conn: sqlite3.Connection, name: str, version: int, *,
-                      committed: bool) -> bytes:
+    def _status_bytes(
+        self, conn: sqlite3.Connection, name: str, version: int, *, committed: bool
+    ) -> bytes:
         row = self._row(conn, name, version)
         record_hash = conn.execute(
             "SELECT sha256 FROM artifacts WHERE name = ? AND version = ? AND filename = ?",
-            (name, version, "record.json")).fetchone()
+            (name, version, "record.json"),
+        ).fetchone()
         events = [
-            {"time": r["time"], "event": r["event"], "from_status": r["from_status"],
-             "to_status": r["to_status"], "actor": r["actor"], "reason": r["reason"],
-             "override": bool(r["override"])}
-            for r in conn.execute("SELECT * FROM events WHERE name = ? AND version = ? "
-                                  "ORDER BY time, id", (name, version))
+            {
+                "time": r["time"],
+                "event": r["event"],
+                "from_status": r["from_status"],
+                "to_status": r["to_status"],
+                "actor": r["actor"],
+                "reason": r["reason"],
+                "override": bool(r["override"]),
+            }
+            for r in conn.execute(
+                "SELECT * FROM events WHERE name = ? AND version = ? ORDER BY time, id",
+                (name, version),
+            )
         ]
         payload = {
             "format": STATUS_FORMAT,
@@ -969,8 +1064,15 @@ class Registry:
         }
         return (json.dumps(payload, indent=2, sort_keys=True) + "\n").encode()
 
-    def _write_status(self, conn: sqlite3.Connection, name: str, version: int, *,
-                      committed: bool, folder: Path | None = None) -> None:
+    def _write_status(
+        self,
+        conn: sqlite3.Connection,
+        name: str,
+        version: int,
+        *,
+        committed: bool,
+        folder: Path | None = None,
+    ) -> None:
         """Atomically replace the folder's ``status.json`` with the index's view of the version.
 
         Called while holding the write lock, so the folder and the index change together.
@@ -1122,8 +1224,9 @@ class Registry:
             card = _read_json_object(card_bytes, what)
             verdict = card.get("verdict")
             if verdict not in ("pass", "fail", "inconclusive"):
-                raise ModelFileError(f"{what}: 'verdict' must be 'pass', 'fail' or "
-                                     f"'inconclusive', found {verdict!r}")
+                raise ModelFileError(
+                    f"{what}: 'verdict' must be 'pass', 'fail' or 'inconclusive', found {verdict!r}"
+                )
             files["scorecard.json"] = card_bytes
         meta["verdict"] = card.get("verdict")
         meta["data_fingerprint"] = card.get("data_fingerprint") or None
@@ -1198,8 +1301,13 @@ class Registry:
         elif isinstance(datasets, Mapping):
             for role, value in datasets.items():
                 if isinstance(value, Mapping):
-                    entries.append({"role": str(role), "fingerprint": str(value.get("fingerprint", "")),
-                                    "source": str(value.get("source", ""))})
+                    entries.append(
+                        {
+                            "role": str(role),
+                            "fingerprint": str(value.get("fingerprint", "")),
+                            "source": str(value.get("source", "")),
+                        }
+                    )
                 else:
                     entries.append({"role": str(role), "fingerprint": str(value), "source": ""})
         elif isinstance(datasets, (list, tuple)):
@@ -1209,9 +1317,13 @@ class Registry:
                         "each dataset entry must be a dict with 'role', 'fingerprint' and "
                         f"optionally 'source', got {item!r}"
                     )
-                entries.append({"role": str(item.get("role", "")),
-                                "fingerprint": str(item["fingerprint"]),
-                                "source": str(item.get("source", ""))})
+                entries.append(
+                    {
+                        "role": str(item.get("role", "")),
+                        "fingerprint": str(item["fingerprint"]),
+                        "source": str(item.get("source", "")),
+                    }
+                )
         else:
             raise RegistryError(f"datasets must be a dict or a list of dicts, got {datasets!r}")
         fingerprints = {e["fingerprint"] for e in entries}
@@ -1296,9 +1408,18 @@ class Registry:
                                datasets, verdict, data_fingerprint, model_fingerprint,
                                scorecard_model_fingerprint)
                            VALUES (?, ?, 'candidate', ?, ?, ?, ?, ?, ?, ?, ?)""",
-                        (name, version, created, note, parent, json.dumps(meta["datasets"]),
-                         meta["verdict"], meta["data_fingerprint"], meta["model_fingerprint"],
-                         meta["scorecard_model_fingerprint"]),
+                        (
+                            name,
+                            version,
+                            created,
+                            note,
+                            parent,
+                            json.dumps(meta["datasets"]),
+                            meta["verdict"],
+                            meta["data_fingerprint"],
+                            meta["model_fingerprint"],
+                            meta["scorecard_model_fingerprint"],
+                        ),
                     )
                     conn.executemany(
                         "INSERT INTO artifacts (name, version, filename, sha256, size) "
@@ -1326,18 +1447,29 @@ class Registry:
                     self._write_status(conn, name, version, committed=True)
             except (OSError, sqlite3.Error, RegistryError) as exc:
                 # The version exists (committed); the next sweep marks its folder.
-                log.warning("%s@%s is registered, but its status record could not be marked "
-                            "committed (%s); the next open of the registry does it", name,
-                            version, exc)
-            _log_status(name, version, None, "candidate",
-                        f"{event}; scorecard verdict {meta['verdict'] or 'none'}")
+                log.warning(
+                    "%s@%s is registered, but its status record could not be marked "
+                    "committed (%s); the next open of the registry does it",
+                    name,
+                    version,
+                    exc,
+                )
+            _log_status(
+                name,
+                version,
+                None,
+                "candidate",
+                f"{event}; scorecard verdict {meta['verdict'] or 'none'}",
+            )
             # Every file was read back and compared while writing.
             return replace(self._info(conn, name, version), integrity="ok")
 
     @staticmethod
     def _claim_name(conn: sqlite3.Connection, name: str, created: str) -> None:
         # Names differing only in case would share one folder on case-insensitive filesystems.
-        row = conn.execute("SELECT name FROM models WHERE folded = ?", (name.casefold(),)).fetchone()
+        row = conn.execute(
+            "SELECT name FROM models WHERE folded = ?", (name.casefold(),)
+        ).fetchone()
         if row is None:
             conn.execute(
                 "INSERT INTO models (name, folded, created) VALUES (?, ?, ?)",
@@ -1354,8 +1486,17 @@ class Registry:
         conn.execute(
             """INSERT INTO events (time, name, version, event, from_status, to_status, actor,
                    reason, override) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)""",
-            (_now(), name, version, event, from_status, to_status, _actor(), reason or "",
-             int(bool(override))),
+            (
+                _now(),
+                name,
+                version,
+                event,
+                from_status,
+                to_status,
+                _actor(),
+                reason or "",
+                int(bool(override)),
+            ),
         )
 
     # ---------------------------------------------------------------- reading
@@ -1401,8 +1542,15 @@ class Registry:
         name, version = parse_ref(ref)
         if need_version and version is None:
             raise RegistryError(f"name a version for this change: {name}@VERSION")
-        if conn is None or conn.execute("SELECT 1 FROM models WHERE name = ?", (name,)).fetchone() is None:
-            known = [] if conn is None else [r[0] for r in conn.execute("SELECT name FROM models ORDER BY name")]
+        if (
+            conn is None
+            or conn.execute("SELECT 1 FROM models WHERE name = ?", (name,)).fetchone() is None
+        ):
+            known = (
+                []
+                if conn is None
+                else [r[0] for r in conn.execute("SELECT name FROM models ORDER BY name")]
+            )
             hint = f"registered: {', '.join(known[:10])}" if known else "the registry is empty"
             raise RegistryError(f"no model named {name!r} in the registry at {self.home} ({hint})")
         if version is None:
@@ -1412,9 +1560,12 @@ class Registry:
                 (name,),
             ).fetchone()
             if row is None:
-                counts = dict(conn.execute(
-                    "SELECT status, COUNT(*) FROM versions WHERE name = ? GROUP BY status", (name,)
-                ).fetchall())
+                counts = dict(
+                    conn.execute(
+                        "SELECT status, COUNT(*) FROM versions WHERE name = ? GROUP BY status",
+                        (name,),
+                    ).fetchall()
+                )
                 listing = ", ".join(f"{n} {s}" for s, n in sorted(counts.items()))
                 raise RegistryError(
                     f"{name} has no accepted version ({listing}); accept one with "
@@ -1427,7 +1578,9 @@ class Registry:
             latest = conn.execute(
                 "SELECT MAX(version) FROM versions WHERE name = ?", (name,)
             ).fetchone()[0]
-            raise RegistryError(f"{name}@{version} does not exist; versions of {name} run 1..{latest}")
+            raise RegistryError(
+                f"{name}@{version} does not exist; versions of {name} run 1..{latest}"
+            )
         return row
 
     def get(self, ref: str | VersionInfo) -> VersionInfo:
@@ -1455,8 +1608,7 @@ class Registry:
 
     def _checked(self, info: VersionInfo) -> VersionInfo:
         problems = self._integrity_problems(info)
-        return replace(info, integrity="failed" if problems else "ok",
-                       integrity_problems=problems)
+        return replace(info, integrity="failed" if problems else "ok", integrity_problems=problems)
 
     @staticmethod
     def _integrity_problems(info: VersionInfo) -> list[str]:
@@ -1491,7 +1643,10 @@ class Registry:
         validate_name(name)
         if "@" in name:  # pragma: no cover - validate_name already refuses '@'
             raise RegistryError(f"expected a model name, got the reference {name!r}")
-        if conn is None or conn.execute("SELECT 1 FROM models WHERE name = ?", (name,)).fetchone() is None:
+        if (
+            conn is None
+            or conn.execute("SELECT 1 FROM models WHERE name = ?", (name,)).fetchone() is None
+        ):
             self._resolve(conn, name)  # raises with the hint
 
     def list_models(self) -> list[ModelSummary]:
@@ -1506,20 +1661,29 @@ class Registry:
                 if self._integrity_problems(self._info_from_row(conn, row)):
                     failed.setdefault(row["name"], []).append(int(row["version"]))
             for (name,) in conn.execute("SELECT name FROM models ORDER BY name").fetchall():
-                counts = dict(conn.execute(
-                    "SELECT status, COUNT(*) FROM versions WHERE name = ? GROUP BY status", (name,)
-                ).fetchall())
+                counts = dict(
+                    conn.execute(
+                        "SELECT status, COUNT(*) FROM versions WHERE name = ? GROUP BY status",
+                        (name,),
+                    ).fetchall()
+                )
                 latest = conn.execute(
-                    "SELECT MAX(version) FROM versions WHERE name = ?", (name,)).fetchone()[0]
+                    "SELECT MAX(version) FROM versions WHERE name = ?", (name,)
+                ).fetchone()[0]
                 accepted = conn.execute(
                     "SELECT MAX(version) FROM versions WHERE name = ? AND status = 'accepted'",
-                    (name,)).fetchone()[0]
-                out.append(ModelSummary(
-                    name=name, versions=int(sum(counts.values())), latest=int(latest or 0),
-                    accepted=None if accepted is None else int(accepted),
-                    statuses={s: int(counts.get(s, 0)) for s in STATUSES},
-                    integrity_failed=failed.get(name, []),
-                ))
+                    (name,),
+                ).fetchone()[0]
+                out.append(
+                    ModelSummary(
+                        name=name,
+                        versions=int(sum(counts.values())),
+                        latest=int(latest or 0),
+                        accepted=None if accepted is None else int(accepted),
+                        statuses={s: int(counts.get(s, 0)) for s in STATUSES},
+                        integrity_failed=failed.get(name, []),
+                    )
+                )
             return out
 
     def history(self, name: str) -> list[Event]:
@@ -1529,16 +1693,27 @@ class Registry:
             if version is None:
                 self._resolve_name(conn, base)
                 rows = conn.execute(
-                    "SELECT * FROM events WHERE name = ? ORDER BY time, id", (base,)).fetchall()
+                    "SELECT * FROM events WHERE name = ? ORDER BY time, id", (base,)
+                ).fetchall()
             else:
                 self._resolve(conn, name)
                 rows = conn.execute(
                     "SELECT * FROM events WHERE name = ? AND version = ? ORDER BY time, id",
-                    (base, version)).fetchall()
+                    (base, version),
+                ).fetchall()
             return [
-                Event(id=r["id"], time=r["time"], name=r["name"], version=r["version"],
-                      event=r["event"], from_status=r["from_status"], to_status=r["to_status"],
-                      actor=r["actor"], reason=r["reason"], override=bool(r["override"]))
+                Event(
+                    id=r["id"],
+                    time=r["time"],
+                    name=r["name"],
+                    version=r["version"],
+                    event=r["event"],
+                    from_status=r["from_status"],
+                    to_status=r["to_status"],
+                    actor=r["actor"],
+                    reason=r["reason"],
+                    override=bool(r["override"]),
+                )
                 for r in rows
             ]
 
@@ -1616,7 +1791,9 @@ class Registry:
 
     # ---------------------------------------------------------------- status changes
 
-    def accept(self, ref: str | VersionInfo, *, reason: str = "", override: bool = False) -> VersionInfo:
+    def accept(
+        self, ref: str | VersionInfo, *, reason: str = "", override: bool = False
+    ) -> VersionInfo:
         """Promote a candidate to ``accepted``: downstream ``load(name)`` then returns it.
 
         A name has at most one accepted version: the one accepted before is retired in the same
@@ -1652,8 +1829,11 @@ class Registry:
             problems.append(f"its scorecard's verdict is {info.verdict!r}")
         if info.verdict is not None and not info.data_fingerprint:
             problems.append("its scorecard does not record the fingerprint of the data it checked")
-        if (info.scorecard_model_fingerprint and info.model_fingerprint
-                and _bare_hash(info.scorecard_model_fingerprint) != _bare_hash(info.model_fingerprint)):
+        if (
+            info.scorecard_model_fingerprint
+            and info.model_fingerprint
+            and _bare_hash(info.scorecard_model_fingerprint) != _bare_hash(info.model_fingerprint)
+        ):
             problems.append(
                 f"its scorecard was computed on another model (scorecard names "
                 f"{info.scorecard_model_fingerprint}, the stored model is {info.model_fingerprint})"
@@ -1668,8 +1848,9 @@ class Registry:
         """Take an accepted version out of use (``retired``; a reason is required)."""
         return self._change_status(ref, "retired", reason, require_reason=True)
 
-    def _change_status(self, ref, target: str, reason: str, *, override: bool = False,
-                       require_reason: bool = False) -> VersionInfo:
+    def _change_status(
+        self, ref, target: str, reason: str, *, override: bool = False, require_reason: bool = False
+    ) -> VersionInfo:
         if require_reason and not (reason and reason.strip()):
             raise RegistryError(f"marking {ref} {target} needs a non-empty reason")
         with self._connect() as conn:
@@ -1693,30 +1874,55 @@ class Registry:
                     "UPDATE versions SET status = ? WHERE name = ? AND version = ?",
                     (target, row["name"], row["version"]),
                 )
-                self._insert_event(conn, row["name"], row["version"], target, current, target,
-                                   reason, override)
+                self._insert_event(
+                    conn, row["name"], row["version"], target, current, target, reason, override
+                )
                 touched = [int(row["version"])]
                 if target == "accepted":
                     touched += self._retire_others(conn, row["name"], int(row["version"]))
                 for number in touched:
                     self._write_status(conn, row["name"], number, committed=True)
-            _log_status(row["name"], row["version"], current, target,
-                        ("override: " if override else "") + (reason or ""))
+            _log_status(
+                row["name"],
+                row["version"],
+                current,
+                target,
+                ("override: " if override else "") + (reason or ""),
+            )
             for number in touched[1:]:
-                _log_status(row["name"], number, "accepted", "retired",
-                            f"replaced by version {row['version']}")
+                _log_status(
+                    row["name"],
+                    number,
+                    "accepted",
+                    "retired",
+                    f"replaced by version {row['version']}",
+                )
             return self._checked(self._info(conn, row["name"], int(row["version"])))
 
     def _retire_others(self, conn: sqlite3.Connection, name: str, version: int) -> list[int]:
         """Retire every other accepted version of ``name`` (inside the caller's transaction)."""
-        others = [int(r[0]) for r in conn.execute(
-            "SELECT version FROM versions WHERE name = ? AND status = 'accepted' AND version != ?",
-            (name, version))]
+        others = [
+            int(r[0])
+            for r in conn.execute(
+                "SELECT version FROM versions WHERE name = ? AND status = 'accepted' AND version != ?",
+                (name, version),
+            )
+        ]
         for number in others:
-            conn.execute("UPDATE versions SET status = 'retired' WHERE name = ? AND version = ?",
-                         (name, number))
-            self._insert_event(conn, name, number, "retired", "accepted", "retired",
-                               f"replaced by version {version}", False)
+            conn.execute(
+                "UPDATE versions SET status = 'retired' WHERE name = ? AND version = ?",
+                (name, number),
+            )
+            self._insert_event(
+                conn,
+                name,
+                number,
+                "retired",
+                "accepted",
+                "retired",
+                f"replaced by version {version}",
+                False,
+            )
         return others
 
     def record_event(self, ref: str | VersionInfo, event: str, reason: str = "") -> Event:
@@ -1735,14 +1941,31 @@ class Registry:
                 self._resolve(conn, ref)
             with self._write(conn):
                 row = self._resolve(conn, ref, need_version=True)
-                self._insert_event(conn, row["name"], row["version"], event, row["status"],
-                                   row["status"], reason, False)
+                self._insert_event(
+                    conn,
+                    row["name"],
+                    row["version"],
+                    event,
+                    row["status"],
+                    row["status"],
+                    reason,
+                    False,
+                )
                 event_id = conn.execute("SELECT last_insert_rowid()").fetchone()[0]
                 self._write_status(conn, row["name"], int(row["version"]), committed=True)
             r = conn.execute("SELECT * FROM events WHERE id = ?", (event_id,)).fetchone()
-            return Event(id=r["id"], time=r["time"], name=r["name"], version=r["version"],
-                         event=r["event"], from_status=r["from_status"], to_status=r["to_status"],
-                         actor=r["actor"], reason=r["reason"], override=bool(r["override"]))
+            return Event(
+                id=r["id"],
+                time=r["time"],
+                name=r["name"],
+                version=r["version"],
+                event=r["event"],
+                from_status=r["from_status"],
+                to_status=r["to_status"],
+                actor=r["actor"],
+                reason=r["reason"],
+                override=bool(r["override"]),
+            )
 
     # ---------------------------------------------------------------- export and import
 
@@ -1756,7 +1979,9 @@ class Registry:
         info = self.verify(ref)
         target = Path(to_dir).expanduser().absolute()
         if target.exists() and (not target.is_dir() or any(target.iterdir())):
-            raise RegistryError(f"export folder {target} exists and is not empty; choose a new folder")
+            raise RegistryError(
+                f"export folder {target} exists and is not empty; choose a new folder"
+            )
         contents = {fn: self._verified_bytes(info, fn) for fn in info.artifacts}
         contents["README.md"] = self._readme(info, contents).encode("utf-8")
         manifest = {
@@ -1809,12 +2034,17 @@ class Registry:
         ]
         if info.note:
             lines += ["", f"Note: {info.note}"]
-        lines += ["", "## Equations", "",
-                  "Derived from `model.json` (the source of truth); "
-                  + (f"variables: {', '.join(variables)}." if variables else ""), "", "```"]
+        lines += [
+            "",
+            "## Equations",
+            "",
+            "Derived from `model.json` (the source of truth); "
+            + (f"variables: {', '.join(variables)}." if variables else ""),
+            "",
+            "```",
+        ]
         lines += equations
-        lines += ["```", "", "## Files", "",
-                  "| file | sha256 |", "|---|---|"]
+        lines += ["```", "", "## Files", "", "| file | sha256 |", "|---|---|"]
         lines += [f"| `{fn}` | `{sha256_hex(data)}` |" for fn, data in sorted(contents.items())]
         lines += [
             "",
@@ -1856,7 +2086,11 @@ class Registry:
             )
         contents: dict[str, bytes] = {}
         for filename, expected in sorted(manifest["files"].items()):
-            if not isinstance(filename, str) or Path(filename).name != filename or filename in ("", ".", ".."):
+            if (
+                not isinstance(filename, str)
+                or Path(filename).name != filename
+                or filename in ("", ".", "..")
+            ):
                 raise RegistryError(f"{manifest_path} lists an unsafe file name {filename!r}")
             file_path = folder / filename
             if os.path.lexists(file_path):  # never read a device or pipe (e.g. /dev/zero) forever
@@ -1882,8 +2116,11 @@ class Registry:
         new_name = validate_name(name if name is not None else manifest.get("name", ""))
         origin = f"{manifest.get('name')}@{manifest.get('version')}"
 
-        files = {fn: contents[fn] for fn in contents
-                 if fn not in ("README.md", "manifest.json", "record.json")}
+        files = {
+            fn: contents[fn]
+            for fn in contents
+            if fn not in ("README.md", "manifest.json", "record.json")
+        }
         model_dict = _read_json_object(files["model.json"], f"{folder / 'model.json'}")
         card = None
         if "scorecard.json" in files:
@@ -1891,21 +2128,37 @@ class Registry:
         if "evidence.npz" in files:
             _check_npz(files["evidence.npz"], f"{folder / 'evidence.npz'}")
         meta = {
-            "model_fingerprint": self._model_fingerprint(files["model.json"], str(folder / "model.json")),
+            "model_fingerprint": self._model_fingerprint(
+                files["model.json"], str(folder / "model.json")
+            ),
             "verdict": card.get("verdict") if card else None,
             "data_fingerprint": (card.get("data_fingerprint") or None) if card else None,
-            "scorecard_model_fingerprint": (card.get("model_fingerprint") or None) if card else None,
+            "scorecard_model_fingerprint": (card.get("model_fingerprint") or None)
+            if card
+            else None,
         }
         if meta["verdict"] not in (None, "pass", "fail"):
-            raise ModelFileError(f"{folder / 'scorecard.json'}: unknown verdict {meta['verdict']!r}")
+            raise ModelFileError(
+                f"{folder / 'scorecard.json'}: unknown verdict {meta['verdict']!r}"
+            )
         _refuse_foreign_scorecard(meta, str(folder / "scorecard.json"))
         datasets = manifest.get("datasets") if isinstance(manifest.get("datasets"), list) else None
         meta["datasets"] = self._normalise_datasets(datasets, model_dict, meta["data_fingerprint"])
-        extra = {"imported_from": {"ref": origin, "status": manifest.get("status"),
-                                   "folder": str(folder.absolute()),
-                                   "parent": manifest.get("parent")}}
+        extra = {
+            "imported_from": {
+                "ref": origin,
+                "status": manifest.get("status"),
+                "folder": str(folder.absolute()),
+                "parent": manifest.get("parent"),
+            }
+        }
         return self._commit_version(
-            new_name, files, meta, note=f"imported from {origin}", parent=None,
-            event="imported", reason=f"from {folder.absolute()} ({origin}, {manifest.get('status')})",
+            new_name,
+            files,
+            meta,
+            note=f"imported from {origin}",
+            parent=None,
+            event="imported",
+            reason=f"from {folder.absolute()} ({origin}, {manifest.get('status')})",
             record_extra=extra,
         )

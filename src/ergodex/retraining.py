@@ -63,11 +63,11 @@ that can hurt people, defer to the applicable codes, standards and licensed prac
 
 from __future__ import annotations
 
+import contextlib
 import json
 import logging
 import math
 import os
-import contextlib
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from typing import Any
@@ -103,7 +103,6 @@ SCORE_DEFINITION = (
     "rows); lower is better; null (infinite) when more members blew up than allowed or a ratio "
     "is not finite"
 )
-
 
 
 # --- the decision record ------------------------------------------------------------------------
@@ -300,7 +299,9 @@ def shared_score(scorecard: Any) -> float:
     spec = getattr(scorecard, "spec", None)
     allowed = 0.0
     if spec is not None:
-        allowed = float(getattr(spec, "max_blowup_fraction", 0.0)) * int(getattr(spec, "members", 0))
+        allowed = float(getattr(spec, "max_blowup_fraction", 0.0)) * int(
+            getattr(spec, "members", 0)
+        )
     if blowups > allowed:
         return math.inf
     ratios = [float(_row_get(row, "ratio")) for row in scorecard.rows]
@@ -328,10 +329,14 @@ def split_for_retrain(series: Series, holdout: Any = DEFAULT_HOLDOUT) -> tuple[S
     (fit, reference) : tuple of Series
     """
     if isinstance(holdout, bool):
-        raise SettingsError(f"holdout must be a fraction, a run count or a list of runs, got {holdout!r}")
+        raise SettingsError(
+            f"holdout must be a fraction, a run count or a list of runs, got {holdout!r}"
+        )
     if isinstance(holdout, float):
         if not 0.0 < holdout < 1.0:
-            raise SettingsError(f"holdout fraction must be between 0 and 1 (exclusive), got {holdout!r}")
+            raise SettingsError(
+                f"holdout fraction must be between 0 and 1 (exclusive), got {holdout!r}"
+            )
         if series.n_runs >= 2:
             k = min(series.n_runs - 1, max(1, round(series.n_runs * holdout)))
             return split_runs(series, k)
@@ -361,16 +366,19 @@ def fit_settings_from_model(surrogate: Any, *, source: str = "model") -> tuple[s
         raise SettingsError(
             f"{source} records no fit method in its settings, so it cannot be refitted "
             "from its own record; give fit settings (a TOML file with method and [settings])",
-            python_hint="(config=...)", cli_hint="(use --config FILE)",
+            python_hint="(config=...)",
+            cli_hint="(use --config FILE)",
         )
     table = fitter_class(method).settings_table
     settings = {k: v for k, v in recorded.items() if k in table}
-    return parse_fit_settings({"method": method, "settings": settings},
-                              source=f"fit settings recorded in {source}")
+    return parse_fit_settings(
+        {"method": method, "settings": settings}, source=f"fit settings recorded in {source}"
+    )
 
 
-def _resolve_fit(config: Any, registry: Any, champion_info: Any,
-                 champion: Any = None) -> tuple[str, dict]:
+def _resolve_fit(
+    config: Any, registry: Any, champion_info: Any, champion: Any = None
+) -> tuple[str, dict]:
     """(method, settings) for the challenger: the config given, else the champion's record
     (its ``fit-settings`` file, else the settings in its model file)."""
     from ergodex.fitting import load_fit_settings, parse_fit_settings
@@ -380,8 +388,9 @@ def _resolve_fit(config: Any, registry: Any, champion_info: Any,
             return load_fit_settings(config)
         if isinstance(config, tuple) and len(config) == 2:
             method, settings = config
-            return parse_fit_settings({"method": method, "settings": dict(settings or {})},
-                                      source="config")
+            return parse_fit_settings(
+                {"method": method, "settings": dict(settings or {})}, source="config"
+            )
         if isinstance(config, Mapping):
             return parse_fit_settings(config, source="config")
         raise SettingsError(
@@ -396,7 +405,9 @@ def _resolve_fit(config: Any, registry: Any, champion_info: Any,
         try:
             recorded = json.loads(text)
         except json.JSONDecodeError as exc:
-            raise SettingsError(f"fit settings recorded with {ref} are not valid JSON: {exc}") from None
+            raise SettingsError(
+                f"fit settings recorded with {ref} are not valid JSON: {exc}"
+            ) from None
         if not isinstance(recorded, Mapping):
             raise SettingsError(f"fit settings recorded with {ref} are not a table: {recorded!r}")
         return parse_fit_settings(recorded, source=f"fit settings recorded with {ref}")
@@ -432,7 +443,9 @@ def resolve_spec(spec: Any, registry: Any, champion_info: Any, seed: int) -> Any
             merged.update(dict(spec))
             base = CheckSpec.from_dict(merged)
     else:
-        raise SettingsError(f"spec must be a CheckSpec or a mapping of settings, got {type(spec).__name__}")
+        raise SettingsError(
+            f"spec must be a CheckSpec or a mapping of settings, got {type(spec).__name__}"
+        )
     out = replace(base, seed=seed)
     out.check_settings()
     return out
@@ -455,16 +468,24 @@ def find_champion(registry: Any, name: str) -> Any | None:
     return None
 
 
-def _verdict(role: str, scorecard: Any, *, ref: str | None, version: int | None,
-             fit: dict[str, Any] | None = None) -> ModelVerdict:
+def _verdict(
+    role: str,
+    scorecard: Any,
+    *,
+    ref: str | None,
+    version: int | None,
+    fit: dict[str, Any] | None = None,
+) -> ModelVerdict:
     rows = []
     for row in scorecard.rows:
-        rows.append({
-            "statistic": _row_get(row, "statistic"),
-            "variable": _row_get(row, "variable"),
-            "ratio": _json_float(float(_row_get(row, "ratio"))),
-            "verdict": _row_get(row, "verdict"),
-        })
+        rows.append(
+            {
+                "statistic": _row_get(row, "statistic"),
+                "variable": _row_get(row, "variable"),
+                "ratio": _json_float(float(_row_get(row, "ratio"))),
+                "verdict": _row_get(row, "verdict"),
+            }
+        )
     return ModelVerdict(
         role=role,
         ref=ref,
@@ -536,8 +557,18 @@ def retrain(
     if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
         raise SettingsError(f"seed must be a non-negative integer, got {seed!r}")
     with _steps(progress) as step:
-        return _retrain(registry, name, data, config=config, spec=spec, seed=seed,
-                        holdout=holdout, report=report, step=step, started=started)
+        return _retrain(
+            registry,
+            name,
+            data,
+            config=config,
+            spec=spec,
+            seed=seed,
+            holdout=holdout,
+            report=report,
+            step=step,
+            started=started,
+        )
 
 
 _STEPS = ("read", "drift check", "fit challenger", "register", "decide")
@@ -554,6 +585,7 @@ def _steps(progress: Any):
     else:
         named = None
     with reporter(progress, len(_STEPS), desc="retrain") as update:
+
         def step(name: str) -> None:
             log.info("retrain: %s", name)
             if named is not None:
@@ -586,8 +618,19 @@ def _takes_one(function: Any) -> bool:
         return False
 
 
-def _retrain(registry: Any, name: str, data: Any, *, config: Any, spec: Any, seed: int,
-             holdout: Any, report: bool, step: Callable[[str], None], started: str) -> Decision:
+def _retrain(
+    registry: Any,
+    name: str,
+    data: Any,
+    *,
+    config: Any,
+    spec: Any,
+    seed: int,
+    holdout: Any,
+    report: bool,
+    step: Callable[[str], None],
+    started: str,
+) -> Decision:
     """The body of :func:`retrain`; ``step(name)`` announces each step."""
     from ergodex.pipeline import fit_check_register
     from ergodex.validation import check
@@ -600,8 +643,13 @@ def _retrain(registry: Any, name: str, data: Any, *, config: Any, spec: Any, see
     if champion is not None:
         series = _check_variables(champion, series, champion_ref)
     fit_part, reference = split_for_retrain(series, holdout)
-    log.info("read %s: %d runs; fitting on %d, reference %d", series.source or "data",
-             series.n_runs, fit_part.n_runs, reference.n_runs)
+    log.info(
+        "read %s: %d runs; fitting on %d, reference %d",
+        series.source or "data",
+        series.n_runs,
+        fit_part.n_runs,
+        reference.n_runs,
+    )
     fingerprint = series.fingerprint()
     fit_fingerprint, reference_fingerprint = fit_part.fingerprint(), reference.fingerprint()
 
@@ -612,16 +660,24 @@ def _retrain(registry: Any, name: str, data: Any, *, config: Any, spec: Any, see
     champion_result = None
     champion_limit: str | None = None
     if champion is not None:
-        log.info("drift check: %s against %d reference runs (seed %d)", champion_ref,
-                 reference.n_runs, seed)
+        log.info(
+            "drift check: %s against %d reference runs (seed %d)",
+            champion_ref,
+            reference.n_runs,
+            seed,
+        )
         try:
             champion_result = check(champion, reference, spec, evidence=False)  # scorecard only
         except ModelLimitError as exc:  # too stiff or too slow on these data: a failed check
             champion_limit = str(exc)
             log.info("drift check: %s could not be integrated: %s", champion_ref, exc)
         else:
-            log.info("drift check: %s %s (score %.3g)", champion_ref,
-                     champion_result.scorecard.verdict, shared_score(champion_result.scorecard))
+            log.info(
+                "drift check: %s %s (score %.3g)",
+                champion_ref,
+                champion_result.scorecard.verdict,
+                shared_score(champion_result.scorecard),
+            )
     else:
         log.info("no accepted version of %s: first run", name)
 
@@ -630,37 +686,55 @@ def _retrain(registry: Any, name: str, data: Any, *, config: Any, spec: Any, see
     # The shared fit -> check path (no registry: registration, with lineage, is done below).
     fit_record = {"method": method, "settings": jsonable(settings)}
     try:
-        flow = fit_check_register(fit_part, reference, method=method, settings=settings,
-                                  spec=spec)
+        flow = fit_check_register(fit_part, reference, method=method, settings=settings, spec=spec)
     except ModelLimitError as exc:
         # a challenger too stiff or too slow to integrate is a failed challenger, not a crash;
         # with no scorecard it is not registered
         step("register")
         step("decide")
-        ch = ModelVerdict(role="challenger", ref=None, version=None, verdict="fail",
-                          score=math.inf, reasons=[f"it could not be integrated: {exc}"],
-                          fit=fit_record)
+        ch = ModelVerdict(
+            role="challenger",
+            ref=None,
+            version=None,
+            verdict="fail",
+            score=math.inf,
+            reasons=[f"it could not be integrated: {exc}"],
+            fit=fit_record,
+        )
     else:
         step("register")
         info = _register_challenger(
-            registry, name, flow, series.source or "", fit_fingerprint, reference_fingerprint,
+            registry,
+            name,
+            flow,
+            series.source or "",
+            fit_fingerprint,
+            reference_fingerprint,
             fit_settings={"method": method, "settings": settings},
             parent=None if champion_info is None else champion_info.ref,
-            seed=seed, report=report,
+            seed=seed,
+            report=report,
         )
         step("decide")
-        ch = _verdict("challenger", flow.check.scorecard, ref=info.ref, version=info.version,
-                      fit=fit_record)
+        ch = _verdict(
+            "challenger", flow.check.scorecard, ref=info.ref, version=info.version, fit=fit_record
+        )
     log.info("challenger %s: %s (score %.3g)", ch.ref, ch.verdict, ch.score)
     cp = None
     if champion_result is not None:
-        cp = _verdict("champion", champion_result.scorecard, ref=champion_ref,
-                      version=champion_info.version)
+        cp = _verdict(
+            "champion", champion_result.scorecard, ref=champion_ref, version=champion_info.version
+        )
     elif champion_limit is not None:
-        cp = ModelVerdict(role="champion", ref=champion_ref, version=champion_info.version,
-                          verdict="fail", score=math.inf,
-                          reasons=[f"it could not be integrated: {champion_limit}"],
-                          model_fingerprint=champion.fingerprint())
+        cp = ModelVerdict(
+            role="champion",
+            ref=champion_ref,
+            version=champion_info.version,
+            verdict="fail",
+            score=math.inf,
+            reasons=[f"it could not be integrated: {champion_limit}"],
+            model_fingerprint=champion.fingerprint(),
+        )
 
     outcome, reasons = _decide(cp, ch)
     _apply(registry, outcome, cp, ch, reasons, fingerprint)
@@ -694,9 +768,19 @@ def _retrain(registry: Any, name: str, data: Any, *, config: Any, spec: Any, see
     return decision
 
 
-def _register_challenger(registry: Any, name: str, flow: Any, source: str, fit_fingerprint: str,
-                         reference_fingerprint: str, *, fit_settings: dict[str, Any],
-                         parent: str | None, seed: int, report: bool) -> Any:
+def _register_challenger(
+    registry: Any,
+    name: str,
+    flow: Any,
+    source: str,
+    fit_fingerprint: str,
+    reference_fingerprint: str,
+    *,
+    fit_settings: dict[str, Any],
+    parent: str | None,
+    seed: int,
+    report: bool,
+) -> Any:
     """Register the challenger as a candidate with its evidence, lineage and data fingerprints."""
     from ergodex.pipeline import register_checked
 
@@ -722,8 +806,12 @@ def _decide(cp: ModelVerdict | None, ch: ModelVerdict) -> tuple[str, list[str]]:
     ch_score = _fmt(ch.score)
     if cp is None:
         if ch.passed:
-            return "first-accepted", [(f"no accepted version existed; challenger {ch.ref or '(not registered)'} passed its "
-                                       f"check (score {ch_score}) and was accepted")]
+            return "first-accepted", [
+                (
+                    f"no accepted version existed; challenger {ch.ref or '(not registered)'} passed its "
+                    f"check (score {ch_score}) and was accepted"
+                )
+            ]
         return "no-acceptable-model", [
             f"no accepted version existed and challenger {ch.ref or '(not registered)'} {_did_not_pass(ch)} "
             f"(score {ch_score}): " + _brief(ch.reasons)
@@ -732,24 +820,37 @@ def _decide(cp: ModelVerdict | None, ch: ModelVerdict) -> tuple[str, list[str]]:
     if cp.passed:
         reasons = [f"champion {cp.ref} still passes on the new data (score {cp_score}); it stays"]
         if ch.passed:
-            reasons.append(f"challenger {ch.ref or '(not registered)'} also passed (score {ch_score}); left as a "
-                           "candidate, not promoted over a champion that still matches")
+            reasons.append(
+                f"challenger {ch.ref or '(not registered)'} also passed (score {ch_score}); left as a "
+                "candidate, not promoted over a champion that still matches"
+            )
         else:
-            reasons.append(f"challenger {ch.ref or '(not registered)'} {_did_not_pass(ch)} (score {ch_score}): "
-                           + _brief(ch.reasons))
+            reasons.append(
+                f"challenger {ch.ref or '(not registered)'} {_did_not_pass(ch)} (score {ch_score}): "
+                + _brief(ch.reasons)
+            )
         return "kept", reasons
-    drift = ("failed the drift check" if cp.verdict != "inconclusive"
-             else "had an inconclusive drift check")
+    drift = (
+        "failed the drift check"
+        if cp.verdict != "inconclusive"
+        else "had an inconclusive drift check"
+    )
     reasons = [f"champion {cp.ref} {drift} (score {cp_score}): " + _brief(cp.reasons)]
     if ch.passed and ch.score <= cp.score:
-        reasons.append(f"challenger {ch.ref or '(not registered)'} passed (score {ch_score} <= {cp_score}) and replaces it")
+        reasons.append(
+            f"challenger {ch.ref or '(not registered)'} passed (score {ch_score} <= {cp_score}) and replaces it"
+        )
         return "replaced", reasons
     if ch.passed:
-        reasons.append(f"challenger {ch.ref or '(not registered)'} passed but scored worse than the champion "
-                       f"({ch_score} > {cp_score}); not accepted")
+        reasons.append(
+            f"challenger {ch.ref or '(not registered)'} passed but scored worse than the champion "
+            f"({ch_score} > {cp_score}); not accepted"
+        )
     else:
-        reasons.append(f"challenger {ch.ref or '(not registered)'} {_did_not_pass(ch)} (score {ch_score}): "
-                       + _brief(ch.reasons))
+        reasons.append(
+            f"challenger {ch.ref or '(not registered)'} {_did_not_pass(ch)} (score {ch_score}): "
+            + _brief(ch.reasons)
+        )
     reasons.append("no acceptable model for the new data: downstream users must be warned")
     return "no-acceptable-model", reasons
 
@@ -761,24 +862,40 @@ def _did_not_pass(v: ModelVerdict) -> str:
     return "failed its check"
 
 
-def _apply(registry: Any, outcome: str, cp: ModelVerdict | None, ch: ModelVerdict,
-           reasons: list[str], data_fingerprint: str) -> None:
+def _apply(
+    registry: Any,
+    outcome: str,
+    cp: ModelVerdict | None,
+    ch: ModelVerdict,
+    reasons: list[str],
+    data_fingerprint: str,
+) -> None:
     """Write the decision into the registry: events and status changes (never deletions)."""
     on_data = f" [data {data_fingerprint}]"
     if cp is not None:
         # Every re-check of the champion leaves a line in its history, passed or not.
-        event = ("drift-check-passed" if cp.passed else "drift-check-inconclusive"
-                 if cp.verdict == "inconclusive" else "drift-detected")
+        event = (
+            "drift-check-passed"
+            if cp.passed
+            else "drift-check-inconclusive"
+            if cp.verdict == "inconclusive"
+            else "drift-detected"
+        )
         registry.record_event(cp.ref, event, reasons[0] + on_data)
     if outcome in ("first-accepted", "replaced"):
-        why = ("first version: passed its check on held-out runs" if cp is None else
-               f"retrain: replaces {cp.ref}, which failed the drift check; " + reasons[1])
+        why = (
+            "first version: passed its check on held-out runs"
+            if cp is None
+            else f"retrain: replaces {cp.ref}, which failed the drift check; " + reasons[1]
+        )
         registry.accept(ch.ref, reason=why + on_data)
         ch.status = "accepted"
     elif not ch.passed:
         if ch.ref is not None:  # a challenger that could not be integrated was never registered
-            registry.reject(ch.ref, reason=f"retrain challenger {_did_not_pass(ch)}: "
-                            + _brief(ch.reasons) + on_data)
+            registry.reject(
+                ch.ref,
+                reason=f"retrain challenger {_did_not_pass(ch)}: " + _brief(ch.reasons) + on_data,
+            )
             ch.status = "rejected"
     else:
         about = next((r for r in reasons if str(ch.ref) in r), reasons[-1])
@@ -810,8 +927,9 @@ def _check_variables(surrogate: Any, series: Series, ref: str) -> Series:
     try:
         return align_columns(surrogate, series)
     except DataError as exc:
-        raise DataError(f"{exc} (the accepted version is {ref}; retrain needs new data of the "
-                        "same variables)") from None
+        raise DataError(
+            f"{exc} (the accepted version is {ref}; retrain needs new data of the same variables)"
+        ) from None
 
 
 def _status(registry: Any, ref: str | None) -> str | None:

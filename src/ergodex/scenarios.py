@@ -92,8 +92,10 @@ def _check_positive(name: str, value: Any, *, integer: bool = False) -> None:
 
 
 def _check_nonnegative(name: str, value: Any) -> None:
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not (
-        math.isfinite(value) and value >= 0
+    if (
+        isinstance(value, bool)
+        or not isinstance(value, (int, float))
+        or not (math.isfinite(value) and value >= 0)
     ):
         raise SettingsError(f"{name} must be a finite number >= 0, got {value!r}")
 
@@ -106,8 +108,15 @@ def _n_steps(duration: float, dt: float, what: str = "duration") -> int:
 
 
 def _observe(
-    trajectories: Callable[..., np.ndarray], x0: np.ndarray, *, dt: float, n_out: int,
-    spinup: float, noise: float, rng: np.random.Generator, **params: Any,
+    trajectories: Callable[..., np.ndarray],
+    x0: np.ndarray,
+    *,
+    dt: float,
+    n_out: int,
+    spinup: float,
+    noise: float,
+    rng: np.random.Generator,
+    **params: Any,
 ) -> np.ndarray:
     """Spin ``x0`` up (discarded), record ``n_out`` samples, add Gaussian sensor noise."""
     n_spin = int(round(spinup / dt))
@@ -122,7 +131,10 @@ def _observe(
 def _series(runs: np.ndarray, names: Sequence[str], dt: float, source: str) -> Series:
     """A scenario's runs (n_runs, n_samples, n_variables) as a Series labelled ``run-1`` ..."""
     return Series.from_arrays(
-        list(runs), names, dt, run_labels=[f"run-{i + 1}" for i in range(len(runs))],
+        list(runs),
+        names,
+        dt,
+        run_labels=[f"run-{i + 1}" for i in range(len(runs))],
         source=source,
     )
 
@@ -237,7 +249,8 @@ def _kernels() -> dict[str, Any]:
                         for i in range(n):
                             ks[stage, i] = (
                                 (tmp[(i + 1) % n] - tmp[(i - 2) % n]) * tmp[(i - 1) % n]
-                                - tmp[i] + forcing
+                                - tmp[i]
+                                + forcing
                             )
                     for i in range(n):
                         x[i] = x[i] + (h / 6.0) * (
@@ -261,8 +274,14 @@ def _kernels() -> dict[str, Any]:
 
 
 def lorenz63_trajectories(
-    initial_states: Any, *, dt: float, n_out: int, substeps: int = 4,
-    sigma: float = 10.0, rho: float = 28.0, beta: float = 8.0 / 3.0,
+    initial_states: Any,
+    *,
+    dt: float,
+    n_out: int,
+    substeps: int = 4,
+    sigma: float = 10.0,
+    rho: float = 28.0,
+    beta: float = 8.0 / 3.0,
 ) -> np.ndarray:
     """Lorenz-63 by compiled RK4 (step ``dt / substeps``), sampled every ``dt``.
 
@@ -274,8 +293,9 @@ def lorenz63_trajectories(
     """
     x0 = np.ascontiguousarray(np.atleast_2d(initial_states), dtype=np.float64)
     out = np.empty((x0.shape[0], n_out, 3))
-    _kernels()["l63"](x0, dt / substeps, n_out, substeps, float(sigma), float(rho),
-                      float(beta), out)
+    _kernels()["l63"](
+        x0, dt / substeps, n_out, substeps, float(sigma), float(rho), float(beta), out
+    )
     return out
 
 
@@ -423,8 +443,17 @@ def convection_loop(
     )
 
     traj = _observe(
-        lorenz63_trajectories, x0, dt=dt, n_out=n_out, spinup=spinup, noise=noise, rng=rng,
-        substeps=substeps, sigma=sigma, rho=rho, beta=beta,
+        lorenz63_trajectories,
+        x0,
+        dt=dt,
+        n_out=n_out,
+        spinup=spinup,
+        noise=noise,
+        rng=rng,
+        substeps=substeps,
+        sigma=sigma,
+        rho=rho,
+        beta=beta,
     )
     return _series(traj, CONVECTION_LOOP_VARIABLES, dt, f"convection_loop(seed={seed})")
 
@@ -462,10 +491,18 @@ def convection_loop_regimes(rho: float = 28.0, beta: float = 8.0 / 3.0) -> dict:
     return {
         "regime": [
             {"name": "clockwise", "kind": "ball", "centre": centre(plus), "radius": 1.2 * a},
-            {"name": "counter-clockwise", "kind": "ball", "centre": centre(minus),
-             "radius": 1.2 * a},
-            {"name": "reversal", "kind": "ball", "centre": centre([0.0, 0.0, (rho - 1.0) / 2]),
-             "radius": 0.7 * a},
+            {
+                "name": "counter-clockwise",
+                "kind": "ball",
+                "centre": centre(minus),
+                "radius": 1.2 * a,
+            },
+            {
+                "name": "reversal",
+                "kind": "ball",
+                "centre": centre([0.0, 0.0, (rho - 1.0) / 2]),
+                "radius": 0.7 * a,
+            },
         ]
     }
 
@@ -585,8 +622,15 @@ def station_ring(
     x0 = forcing + rng.normal(0.0, 1.0, (n_runs, n))
 
     traj = _observe(
-        lorenz96_trajectories, x0, dt=dt, n_out=n_out, spinup=spinup, noise=noise, rng=rng,
-        substeps=substeps, forcing=forcing,
+        lorenz96_trajectories,
+        x0,
+        dt=dt,
+        n_out=n_out,
+        spinup=spinup,
+        noise=noise,
+        rng=rng,
+        substeps=substeps,
+        forcing=forcing,
     )
     return _series(traj, station_names(n), dt, f"station_ring(seed={seed})")
 
@@ -627,9 +671,7 @@ def ou_stationary_covariance(drift: Any = _OU_DRIFT, noise: Any = _OU_NOISE) -> 
     return 0.5 * (C + C.T)
 
 
-def ou_autocovariance(
-    lags: Any, drift: Any = _OU_DRIFT, noise: Any = _OU_NOISE
-) -> np.ndarray:
+def ou_autocovariance(lags: Any, drift: Any = _OU_DRIFT, noise: Any = _OU_NOISE) -> np.ndarray:
     """Stationary lagged covariance ``E[x(t+tau) x(t)^T] = expm(A tau) C`` for lags ``tau >= 0``.
 
     For a scalar process with drift ``-theta`` the autocorrelation is ``exp(-theta tau)``.
@@ -728,7 +770,9 @@ def ornstein_uhlenbeck(
         x = x @ F.T + shocks[k - 1]
         out[:, k] = x
     return _series(
-        out, tuple(names) if names is not None else _default_names(n), dt,
+        out,
+        tuple(names) if names is not None else _default_names(n),
+        dt,
         f"ornstein_uhlenbeck(seed={seed})",
     )
 
@@ -852,8 +896,9 @@ SAMPLE_DATASETS: dict[str, tuple[Any, str]] = {
 }
 
 
-def write_sample_dataset(name: str, root: Any = "datasets", *, seed: int = SAMPLE_SEED,
-                         digits: int = 7):
+def write_sample_dataset(
+    name: str, root: Any = "datasets", *, seed: int = SAMPLE_SEED, digits: int = 7
+):
     """Write one sample dataset, ``<root>/<name>``: a CSV file per run plus ``dataset.toml``.
 
     Generated from ``seed`` with the scenario's defaults, last two runs held out for
@@ -871,9 +916,12 @@ def write_sample_dataset(name: str, root: Any = "datasets", *, seed: int = SAMPL
     generator, description = SAMPLE_DATASETS[name]
     series = globals()[generator](seed=seed)
     return write_dataset(
-        Path(root) / name, series, name=name, holdout=2, description=description,
-        provenance={"generator": f"ergodex.scenarios.{generator}", "seed": seed,
-                    "digits": digits},
+        Path(root) / name,
+        series,
+        name=name,
+        holdout=2,
+        description=description,
+        provenance={"generator": f"ergodex.scenarios.{generator}", "seed": seed, "digits": digits},
         digits=digits,
     )
 

@@ -79,14 +79,12 @@ def check_name(name: Any, *, what: str = "variable name", source: str = "") -> s
     if name == "" or name.strip() == "":
         raise DataError(f"{where}{what} is empty; give every variable a name")
     if name != name.strip():
-        raise DataError(
-            f"{where}{what} {name!r} has leading or trailing white space; remove it"
-        )
+        raise DataError(f"{where}{what} {name!r} has leading or trailing white space; remove it")
     bad = [c for c in name if c in FORBIDDEN_NAME_CHARACTERS or not c.isprintable()]
     if bad:
         raise DataError(
             f"{where}{what} {name!r} contains the character {bad[0]!r}; names may not contain "
-            f"control characters or any of , \" / \\ (rename the variable)"
+            f'control characters or any of , " / \\ (rename the variable)'
         )
     if name.lower() in RESERVED_NAMES:
         raise DataError(
@@ -179,11 +177,14 @@ class Series:
             self.runs, self.names, self.dt, self.units, self.run_labels, self.source
         )
         if self.time_unit is not None and (
-            not isinstance(self.time_unit, str) or not self.time_unit.strip()
+            not isinstance(self.time_unit, str)
+            or not self.time_unit.strip()
             or not self.time_unit.isprintable()
         ):
-            raise DataError(f"{_where(self.source)}time_unit must be a non-empty word such as "
-                            f"'hours' or None, got {self.time_unit!r}")
+            raise DataError(
+                f"{_where(self.source)}time_unit must be a non-empty word such as "
+                f"'hours' or None, got {self.time_unit!r}"
+            )
         object.__setattr__(self, "runs", runs)
         object.__setattr__(self, "names", names)
         object.__setattr__(self, "dt", dt)
@@ -252,8 +253,9 @@ class Series:
         )
 
     @classmethod
-    def from_pandas(cls, frame: Any, *, dt: float | None = None, time_unit: str = "s",
-                    source: str = "DataFrame") -> Series:
+    def from_pandas(
+        cls, frame: Any, *, dt: float | None = None, time_unit: str = "s", source: str = "DataFrame"
+    ) -> Series:
         """A Series from a pandas DataFrame: a ``time`` column or time-like index, an optional
         ``run`` column, one column per variable (see :mod:`ergodex.frames`; datetimes give ``dt``
         in ``time_unit``, seconds by default)."""
@@ -262,8 +264,9 @@ class Series:
         return from_pandas(frame, dt=dt, time_unit=time_unit, source=source)
 
     @classmethod
-    def from_xarray(cls, data: Any, *, dt: float | None = None, time_unit: str = "s",
-                    source: str = "Dataset") -> Series:
+    def from_xarray(
+        cls, data: Any, *, dt: float | None = None, time_unit: str = "s", source: str = "Dataset"
+    ) -> Series:
         """A Series from an xarray Dataset or DataArray with dims ``(time,)`` or
         ``(member | run, time)`` (see :mod:`ergodex.frames`)."""
         from ergodex.frames import from_xarray
@@ -447,7 +450,8 @@ def _validate(runs, names, dt, units, labels, source):
             raise DataError(
                 f"{where}run {i}, row {r + 1}, column {names[c]!r}: value "
                 f"{float(arr[r, c])!r} is not finite; remove it, or split the run there",
-                python_hint="(read with split_at_gaps=True)", cli_hint="(use --split-at-gaps)",
+                python_hint="(read with split_at_gaps=True)",
+                cli_hint="(use --split-at-gaps)",
             )
         if arr.flags.writeable:
             arr.setflags(write=False)

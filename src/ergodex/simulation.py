@@ -18,8 +18,12 @@ import numpy as np
 from ergodex.exceptions import DataError, ModelFileError, SettingsError, require
 
 __all__ = [
-    "bound_from_fitted_range", "bound_over", "fitted_range", "initial_states_from_model",
-    "simulate", "states_in_fitted_range",
+    "bound_from_fitted_range",
+    "bound_over",
+    "fitted_range",
+    "initial_states_from_model",
+    "simulate",
+    "states_in_fitted_range",
 ]
 
 log = logging.getLogger(__name__)
@@ -37,8 +41,11 @@ def _output_dt(surrogate, dt: float | None) -> float:
         if isinstance(value, (int, float)) and not isinstance(value, bool) and value > 0:
             return float(value)
         raise SettingsError("dt: the model does not record its sampling interval; pass dt=")
-    if isinstance(dt, bool) or not isinstance(dt, (int, float)) or not (
-            math.isfinite(dt) and dt > 0):
+    if (
+        isinstance(dt, bool)
+        or not isinstance(dt, (int, float))
+        or not (math.isfinite(dt) and dt > 0)
+    ):
         raise SettingsError(f"dt must be a positive number, got {dt!r}")
     return float(dt)
 
@@ -65,8 +72,11 @@ def fitted_range(surrogate) -> tuple[list[int], np.ndarray] | None:
         ends = np.array([recorded[surrogate.variables[j]] for j in columns], dtype=np.float64).T
     except (TypeError, ValueError):
         raise ModelFileError("provenance.model_range: expected [min, max] per variable") from None
-    if (ends.shape != (2, len(columns)) or not np.all(np.isfinite(ends))
-            or np.any(ends[0] > ends[1])):
+    if (
+        ends.shape != (2, len(columns))
+        or not np.all(np.isfinite(ends))
+        or np.any(ends[0] > ends[1])
+    ):
         raise ModelFileError("provenance.model_range: expected finite [min, max] per variable")
     return columns, ends
 
@@ -221,21 +231,37 @@ def simulate(
         x0, every_state = _starts_from_data(surrogate, initial, int(members))
         spinup = 0.0 if spinup is None else spinup
         observed = surrogate.observed_index
-        bound = (bound_over(surrogate, observed, every_state[:, observed])
-                 if len(every_state) > 1 else None)
+        bound = (
+            bound_over(surrogate, observed, every_state[:, observed])
+            if len(every_state) > 1
+            else None
+        )
         stiffness_states = every_state
     else:
         x0 = initial_states_from_model(surrogate, int(members), rng)
         spinup = SPINUP_STEPS * dt_out if spinup is None else spinup
         bound = bound_from_fitted_range(surrogate)
         stiffness_states = states_in_fitted_range(surrogate, np.random.default_rng([seed, 1]))
-    log.info("simulate: %d members x %d outputs of dt=%g after a spin-up of %g (seed %d)",
-             members, steps, dt_out, spinup, seed)
+    log.info(
+        "simulate: %d members x %d outputs of dt=%g after a spin-up of %g (seed %d)",
+        members,
+        steps,
+        dt_out,
+        spinup,
+        seed,
+    )
     with reporter(progress, int(steps), desc="simulate", unit="output") as update:
         result = integrate_ensemble(
-            surrogate, x0, dt_out=dt_out, n_out=int(steps), spinup=float(spinup),
-            substep=substep, stiffness_states=stiffness_states,
-            seed=int(rng.integers(0, 2**63 - 1)), bound=bound, progress=update,
+            surrogate,
+            x0,
+            dt_out=dt_out,
+            n_out=int(steps),
+            spinup=float(spinup),
+            substep=substep,
+            stiffness_states=stiffness_states,
+            seed=int(rng.integers(0, 2**63 - 1)),
+            bound=bound,
+            progress=update,
         )
     log.info("simulate: %s", result.message)
 
@@ -253,10 +279,15 @@ def simulate(
         "blowup_time": ("member", np.asarray(result.blowup_time, dtype=np.float64)),
     }
     attrs = {
-        "status": result.status, "message": result.message,
-        "model_fingerprint": surrogate.fingerprint(), "dt": dt_out, "seed": int(seed),
-        "spinup": float(result.spinup), "method": result.method,
-        "substep": float(result.substep), "n_blown_up": result.n_blown_up,
+        "status": result.status,
+        "message": result.message,
+        "model_fingerprint": surrogate.fingerprint(),
+        "dt": dt_out,
+        "seed": int(seed),
+        "spinup": float(result.spinup),
+        "method": result.method,
+        "substep": float(result.substep),
+        "n_blown_up": result.n_blown_up,
         "space": "data",
     }
     return xr.Dataset(data_vars, coords=coords, attrs=attrs)

@@ -62,7 +62,9 @@ def _as_runs(x) -> list[np.ndarray]:
         if r.ndim == 1:
             r = r[:, None]
         if r.ndim != 2:
-            raise DataError(f"a run must be 1-D or 2-D (n_samples, n_variables); got shape {r.shape}")
+            raise DataError(
+                f"a run must be 1-D or 2-D (n_samples, n_variables); got shape {r.shape}"
+            )
         out.append(r)
     if not out:
         raise DataError("no runs given")
@@ -122,7 +124,9 @@ def histogram_edges(x, bins: int | str = DEFAULT_BINS) -> np.ndarray:
             raise SettingsError(f"bins must be a positive integer or 'fd'; got {bins!r}")
         q75, q25 = np.percentile(a, [75, 25])
         width = 2.0 * (q75 - q25) * a.size ** (-1.0 / 3.0)
-        n_bins = int(np.clip(np.ceil((hi - lo) / width), 1, _MAX_FD_BINS)) if width > 0 else DEFAULT_BINS
+        n_bins = (
+            int(np.clip(np.ceil((hi - lo) / width), 1, _MAX_FD_BINS)) if width > 0 else DEFAULT_BINS
+        )
     else:
         if isinstance(bins, bool) or int(bins) != bins or int(bins) < 1:
             raise SettingsError(f"bins must be a positive integer or 'fd'; got {bins!r}")
@@ -263,8 +267,10 @@ def wasserstein1_histogram(p, q, edges) -> float:
     p = np.asarray(p, float)
     q = np.asarray(q, float)
     if p.shape != (edges.size + 1,) or q.shape != p.shape:
-        raise DataError(f"histograms must have {edges.size + 1} entries for {edges.size} edges; "
-                        f"got {p.shape} and {q.shape}")
+        raise DataError(
+            f"histograms must have {edges.size + 1} entries for {edges.size} edges; "
+            f"got {p.shape} and {q.shape}"
+        )
     support = np.concatenate([[edges[0]], 0.5 * (edges[1:] + edges[:-1]), [edges[-1]]])
     cdf_gap = np.cumsum(p - q)[:-1]
     return float(np.sum(np.abs(cdf_gap) * np.diff(support)))
@@ -380,8 +386,9 @@ def autocorrelation(x, max_lag: int | None = None, *, mean: np.ndarray | None = 
         max_lag = shortest - 1
     max_lag = int(max_lag)
     if max_lag < 0 or max_lag >= shortest:
-        raise SettingsError(f"max_lag must be in [0, {shortest - 1}] for runs of {shortest} samples; "
-                            f"got {max_lag}")
+        raise SettingsError(
+            f"max_lag must be in [0, {shortest - 1}] for runs of {shortest} samples; got {max_lag}"
+        )
     n_total = sum(r.shape[0] for r in runs)
     mu = np.asarray(mean, float) if mean is not None else sum(r.sum(axis=0) for r in runs) / n_total
     acov = np.zeros((max_lag + 1, runs[0].shape[1]))
@@ -580,8 +587,9 @@ def quantiles(x, levels: Sequence[float] = DEFAULT_QUANTILES) -> np.ndarray:
     a = np.asarray(x, float)
     if a.ndim == 1:
         return np.quantile(_finite_1d(a, "sample"), lv)
-    return np.stack([np.quantile(_finite_1d(a[:, j], f"column {j}"), lv) for j in range(a.shape[1])],
-                    axis=1)
+    return np.stack(
+        [np.quantile(_finite_1d(a[:, j], f"column {j}"), lv) for j in range(a.shape[1])], axis=1
+    )
 
 
 def exceedance_rate(x, thresholds, *, dt: float | None = None, below: bool = False) -> np.ndarray:

@@ -26,8 +26,14 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["DENSE_MAX", "KRYLOV_STEPS", "RITZ_MARGIN", "SparseJacobian", "spectral_radius",
-           "states_to_measure"]
+__all__ = [
+    "DENSE_MAX",
+    "KRYLOV_STEPS",
+    "RITZ_MARGIN",
+    "SparseJacobian",
+    "spectral_radius",
+    "states_to_measure",
+]
 
 #: Up to this many variables the eigenvalues of the (small) dense Jacobian are computed exactly.
 DENSE_MAX = 32
@@ -63,8 +69,8 @@ class SparseJacobian:
         fptr, fvar, fpow = tables["factor_ptr"], tables["factor_var"], tables["factor_pow"]
         cptr, ctarget, cvalue = tables["coef_ptr"], tables["coef_target"], tables["coef_value"]
         # One "derivative" per (active term, variable it depends on): d theta_a / d x_k.
-        d_var: list[int] = []      # k
-        d_kind: list[int] = []     # 0 monomial, 1 sin, 2 cos
+        d_var: list[int] = []  # k
+        d_kind: list[int] = []  # 0 monomial, 1 sin, 2 cos
         d_scale: list[float] = []  # exponent p (monomial) or frequency (sin/cos)
         d_factors: list[list[tuple[int, int]]] = []  # monomial: (variable, exponent) of the rest
         e_row: list[int] = []
@@ -73,15 +79,17 @@ class SparseJacobian:
         e_deriv: list[int] = []
         for a in range(len(kinds)):
             if kinds[a] == 0:
-                factors = list(zip(fvar[fptr[a]:fptr[a + 1]].tolist(),
-                                   fpow[fptr[a]:fptr[a + 1]].tolist()))
+                factors = list(
+                    zip(fvar[fptr[a] : fptr[a + 1]].tolist(), fpow[fptr[a] : fptr[a + 1]].tolist())
+                )
                 derivs = []
                 for k, p in factors:
                     rest = [(j, q - 1 if j == k else q) for j, q in factors]
                     derivs.append((k, 0, float(p), [(j, q) for j, q in rest if q > 0]))
             else:
-                derivs = [(int(tables["variable"][a]), int(kinds[a]),
-                           float(tables["frequency"][a]), [])]
+                derivs = [
+                    (int(tables["variable"][a]), int(kinds[a]), float(tables["frequency"][a]), [])
+                ]
             for k, kind, scale, rest in derivs:
                 d = len(d_var)
                 d_var.append(k)
@@ -152,8 +160,9 @@ class SparseJacobian:
         """Jacobian–vector products ``J(x_m) v_m`` (M, n) for entries ``values`` (M, n_entries)."""
         out = np.zeros_like(v)
         if self.n_entries:
-            out[:, self._present_rows] = np.add.reduceat(values * v[:, self.cols],
-                                                         self._row_start, axis=1)
+            out[:, self._present_rows] = np.add.reduceat(
+                values * v[:, self.cols], self._row_start, axis=1
+            )
         return out
 
     def norm_bound(self, values: np.ndarray) -> np.ndarray:
@@ -168,8 +177,9 @@ class SparseJacobian:
         return np.minimum(by_row, by_col.max(axis=0))
 
 
-def _ritz_radius(jac: SparseJacobian, values: np.ndarray, steps: int,
-                 rng: np.random.Generator) -> np.ndarray:
+def _ritz_radius(
+    jac: SparseJacobian, values: np.ndarray, steps: int, rng: np.random.Generator
+) -> np.ndarray:
     """Largest Ritz value magnitude per state after ``steps`` Arnoldi steps (M,)."""
     m, n = values.shape[0], jac.n_variables
     basis = np.zeros((m, steps + 1, n))
@@ -214,7 +224,7 @@ def spectral_radius(surrogate: Any, states: np.ndarray, *, seed: int = 0) -> flo
     rho = 0.0
     for begin in range(0, len(states), batch):
         with np.errstate(all="ignore"):
-            values = jac.values(states[begin:begin + batch])
+            values = jac.values(states[begin : begin + batch])
         values = values[np.all(np.isfinite(values), axis=1)]
         if not len(values):
             continue

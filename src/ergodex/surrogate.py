@@ -89,7 +89,9 @@ class Term:
                 raise SettingsError(f"monomial powers must be non-negative, got {self.powers}")
         else:
             if not math.isfinite(float(self.frequency)):
-                raise SettingsError(f"{self.kind} term frequency must be finite, got {self.frequency}")
+                raise SettingsError(
+                    f"{self.kind} term frequency must be finite, got {self.frequency}"
+                )
             object.__setattr__(self, "frequency", float(self.frequency))
             object.__setattr__(self, "variable", int(self.variable))
 
@@ -117,7 +119,9 @@ class Term:
         return {"kind": self.kind, "variable": self.variable, "frequency": self.frequency}
 
 
-def polynomial_terms(n_variables: int, degree: int, *, include_bias: bool = True) -> tuple[Term, ...]:
+def polynomial_terms(
+    n_variables: int, degree: int, *, include_bias: bool = True
+) -> tuple[Term, ...]:
     """All monomials up to ``degree``, in the order pysindy's ``PolynomialLibrary`` uses.
 
     The order is by total degree, then lexicographic in the variable indices
@@ -229,7 +233,9 @@ class Surrogate:
             raise SettingsError("variables: at least one variable is needed")
         for name in variables:
             if not isinstance(name, str) or not name.strip():
-                raise SettingsError(f"variables: every name must be a non-empty string, got {name!r}")
+                raise SettingsError(
+                    f"variables: every name must be a non-empty string, got {name!r}"
+                )
         if len(set(variables)) != len(variables):
             dupes = sorted({v for v in variables if variables.count(v) > 1})
             raise SettingsError(f"variables: names must be unique, repeated: {', '.join(dupes)}")
@@ -263,11 +269,15 @@ class Surrogate:
             )
         if not np.all(np.isfinite(coef)):
             i, t = np.argwhere(~np.isfinite(coef))[0]
-            raise SettingsError(f"coefficients: non-finite value {coef[i, t]} at row {i}, column {t}")
+            raise SettingsError(
+                f"coefficients: non-finite value {coef[i, t]} at row {i}, column {t}"
+            )
         if np.any(np.abs(coef) > MAX_COEFFICIENT):
             i, t = np.argwhere(np.abs(coef) > MAX_COEFFICIENT)[0]
-            raise SettingsError(f"coefficients: value {coef[i, t]:.3g} at row {i}, column {t} is beyond "
-                                f"the largest allowed magnitude {MAX_COEFFICIENT:g}")
+            raise SettingsError(
+                f"coefficients: value {coef[i, t]:.3g} at row {i}, column {t} is beyond "
+                f"the largest allowed magnitude {MAX_COEFFICIENT:g}"
+            )
         coef.setflags(write=False)
 
         noise_arr = None
@@ -327,9 +337,13 @@ class Surrogate:
     # ------------------------------------------------------------------ read-only attributes
     variables = property(lambda self: self._variables, doc="Names of the model-space variables.")
     terms = property(lambda self: self._terms, doc="The term table, one Term per column of C.")
-    coefficients = property(lambda self: self._coefficients, doc="(n_variables, n_terms), read-only.")
+    coefficients = property(
+        lambda self: self._coefficients, doc="(n_variables, n_terms), read-only."
+    )
     noise = property(lambda self: self._noise, doc="Noise covariance per unit time, or None.")
-    transform = property(lambda self: self._transform, doc="Data -> model space transform, or None.")
+    transform = property(
+        lambda self: self._transform, doc="Data -> model space transform, or None."
+    )
     kind = property(lambda self: self._kind, doc="Model family (descriptive).")
 
     @property
@@ -714,14 +728,18 @@ class Surrogate:
                 raise fail(f"missing field {key!r}")
         unknown = sorted(set(d) - set(_TOP_LEVEL_REQUIRED) - set(_TOP_LEVEL_OPTIONAL))
         if unknown:
-            raise fail(f"unknown field {unknown[0]!r} (allowed: {', '.join(_TOP_LEVEL_REQUIRED + _TOP_LEVEL_OPTIONAL)})")
+            raise fail(
+                f"unknown field {unknown[0]!r} (allowed: {', '.join(_TOP_LEVEL_REQUIRED + _TOP_LEVEL_OPTIONAL)})"
+            )
 
         kind = d["kind"]
         if not isinstance(kind, str) or not kind:
             raise fail(f"field 'kind' must be a non-empty string, got {kind!r}")
         variables = d["variables"]
-        if not isinstance(variables, list) or not variables or not all(
-            isinstance(v, str) and v for v in variables
+        if (
+            not isinstance(variables, list)
+            or not variables
+            or not all(isinstance(v, str) and v for v in variables)
         ):
             raise fail("field 'variables' must be a non-empty list of non-empty strings")
         n = len(variables)
@@ -737,17 +755,25 @@ class Surrogate:
             tk = entry["kind"]
             if tk == "monomial":
                 if set(entry) != {"kind", "powers"}:
-                    raise fail(f"{where}: a monomial has exactly the keys 'kind' and 'powers', got {sorted(entry)}")
+                    raise fail(
+                        f"{where}: a monomial has exactly the keys 'kind' and 'powers', got {sorted(entry)}"
+                    )
                 powers = entry["powers"]
                 if not isinstance(powers, list) or not all(
                     isinstance(p, int) and not isinstance(p, bool) and p >= 0 for p in powers
                 ):
-                    raise fail(f"{where}.powers must be a list of non-negative integers, got {_short(powers)}")
+                    raise fail(
+                        f"{where}.powers must be a list of non-negative integers, got {_short(powers)}"
+                    )
                 if len(powers) != n:
-                    raise fail(f"{where}.powers has {len(powers)} entries, expected {n} (one per variable)")
+                    raise fail(
+                        f"{where}.powers has {len(powers)} entries, expected {n} (one per variable)"
+                    )
                 if sum(powers) > MAX_DEGREE:
-                    raise fail(f"{where}.powers has total degree {sum(powers)}; the largest allowed "
-                               f"is {MAX_DEGREE}")
+                    raise fail(
+                        f"{where}.powers has total degree {sum(powers)}; the largest allowed "
+                        f"is {MAX_DEGREE}"
+                    )
                 terms.append(Term("monomial", tuple(powers)))
             elif tk in ("sin", "cos"):
                 if set(entry) != {"kind", "variable", "frequency"}:
@@ -757,15 +783,22 @@ class Surrogate:
                 var, freq = entry["variable"], entry["frequency"]
                 if not isinstance(var, int) or isinstance(var, bool) or not 0 <= var < n:
                     raise fail(f"{where}.variable must be an integer in 0..{n - 1}, got {var!r}")
-                if not isinstance(freq, (int, float)) or isinstance(freq, bool) or (
-                        isinstance(freq, float) and not math.isfinite(freq)):
+                if (
+                    not isinstance(freq, (int, float))
+                    or isinstance(freq, bool)
+                    or (isinstance(freq, float) and not math.isfinite(freq))
+                ):
                     raise fail(f"{where}.frequency must be a finite number, got {freq!r}")
                 if abs(freq) > MAX_COEFFICIENT:
-                    raise fail(f"{where}.frequency {_short(freq)} is beyond the largest allowed "
-                               f"magnitude {MAX_COEFFICIENT:g}")
+                    raise fail(
+                        f"{where}.frequency {_short(freq)} is beyond the largest allowed "
+                        f"magnitude {MAX_COEFFICIENT:g}"
+                    )
                 terms.append(Term(tk, variable=var, frequency=float(freq)))
             else:
-                raise fail(f"{where}.kind {tk!r} is not supported (use one of {', '.join(TERM_KINDS)})")
+                raise fail(
+                    f"{where}.kind {tk!r} is not supported (use one of {', '.join(TERM_KINDS)})"
+                )
 
         coef = _read_matrix(d["coefficients"], (n, len(terms)), "coefficients", fail)
         noise = None
@@ -854,8 +887,9 @@ class Surrogate:
         return "sha256:" + hashlib.sha256(canon.encode("utf-8")).hexdigest()
 
 
-def _observed_columns(variables: tuple[str, ...],
-                      settings: Mapping[str, Any] | None) -> np.ndarray | None:
+def _observed_columns(
+    variables: tuple[str, ...], settings: Mapping[str, Any] | None
+) -> np.ndarray | None:
     """Model columns named by ``settings["observed_variables"]``, in its order.
 
     ``None`` when the setting is absent or empty (every variable is observed). The names must be
@@ -865,8 +899,10 @@ def _observed_columns(variables: tuple[str, ...],
     if observed is None:
         return None
     field = "settings.observed_variables"
-    if isinstance(observed, str) or not isinstance(observed, Sequence) or not all(
-        isinstance(v, str) for v in observed
+    if (
+        isinstance(observed, str)
+        or not isinstance(observed, Sequence)
+        or not all(isinstance(v, str) for v in observed)
     ):
         raise SettingsError(f"{field}: must be a list of variable names, got {observed!r}")
     if not observed:
@@ -874,14 +910,17 @@ def _observed_columns(variables: tuple[str, ...],
     observed = tuple(observed)
     unknown = [v for v in observed if v not in variables]
     if unknown:
-        raise SettingsError(f"{field}: {unknown[0]!r} is not a model variable (variables: {list(variables)})")
+        raise SettingsError(
+            f"{field}: {unknown[0]!r} is not a model variable (variables: {list(variables)})"
+        )
     if len(set(observed)) != len(observed):
         raise SettingsError(f"{field}: names must be unique, got {list(observed)}")
     return np.array([variables.index(v) for v in observed], dtype=np.intp)
 
 
-def _observed_index(transform: Any, variables: tuple[str, ...],
-                    settings: Mapping[str, Any] | None) -> np.ndarray:
+def _observed_index(
+    transform: Any, variables: tuple[str, ...], settings: Mapping[str, Any] | None
+) -> np.ndarray:
     """Model columns a transform with fewer outputs than model variables maps onto.
 
     Such a model has hidden variables (e.g. the memory level of empirical model reduction);
@@ -923,7 +962,11 @@ def _format_json(d: Mapping[str, Any]) -> str:
 
 def _short(x: Any) -> str:
     """repr of a value for a message, cut to 40 characters (a huge integer has 4000 digits)."""
-    text = repr(x) if not isinstance(x, int) or abs(x) < 10**30 else f"an integer of {len(str(abs(x)))} digits"
+    text = (
+        repr(x)
+        if not isinstance(x, int) or abs(x) < 10**30
+        else f"an integer of {len(str(abs(x)))} digits"
+    )
     return text if len(text) <= 40 else text[:37] + "..."
 
 
@@ -936,12 +979,17 @@ def _read_matrix(value: Any, shape: tuple[int, int], field: str, fail) -> np.nda
             got = len(row) if isinstance(row, list) else type(row).__name__
             raise fail(f"field '{field}[{i}]' must have {shape[1]} entries, got {got}")
         for j, x in enumerate(row):
-            if not isinstance(x, (int, float)) or isinstance(x, bool) or (
-                    isinstance(x, float) and not math.isfinite(x)):
+            if (
+                not isinstance(x, (int, float))
+                or isinstance(x, bool)
+                or (isinstance(x, float) and not math.isfinite(x))
+            ):
                 raise fail(f"field '{field}[{i}][{j}]' must be a finite number, got {_short(x)}")
             if abs(x) > MAX_COEFFICIENT:
-                raise fail(f"field '{field}[{i}][{j}]' is {_short(x)}, beyond the largest allowed "
-                           f"magnitude {MAX_COEFFICIENT:g}")
+                raise fail(
+                    f"field '{field}[{i}][{j}]' is {_short(x)}, beyond the largest allowed "
+                    f"magnitude {MAX_COEFFICIENT:g}"
+                )
     return np.array(value, dtype=np.float64)
 
 
@@ -959,7 +1007,9 @@ def _parse_pysindy_feature(name: str, n: int) -> Term:
     if trig:
         kind, freq, var = trig.group(1), float(trig.group(2)), int(trig.group(3))
         if var >= n:
-            raise SettingsError(f"pysindy feature {name!r} refers to x{var}, but there are {n} variables")
+            raise SettingsError(
+                f"pysindy feature {name!r} refers to x{var}, but there are {n} variables"
+            )
         return Term(kind, variable=var, frequency=freq)
     powers = [0] * n
     tokens = name.split(" ")
@@ -972,14 +1022,21 @@ def _parse_pysindy_feature(name: str, n: int) -> Term:
             )
         var = int(match.group(1))
         if var >= n:
-            raise SettingsError(f"pysindy feature {name!r} refers to x{var}, but there are {n} variables")
+            raise SettingsError(
+                f"pysindy feature {name!r} refers to x{var}, but there are {n} variables"
+            )
         powers[var] += int(match.group(2) or 1)
     return Term("monomial", tuple(powers))
 
 
-def from_pysindy(model: Any, variables: Sequence[str], *, kind: str = "polynomial-ode",
-                 settings: Mapping[str, Any] | None = None,
-                 provenance: Mapping[str, Any] | None = None) -> Surrogate:
+def from_pysindy(
+    model: Any,
+    variables: Sequence[str],
+    *,
+    kind: str = "polynomial-ode",
+    settings: Mapping[str, Any] | None = None,
+    provenance: Mapping[str, Any] | None = None,
+) -> Surrogate:
     """Convert a fitted pysindy 2.x continuous-time model into a Surrogate.
 
     The library's feature names are regenerated with the default names ``x0, x1, …`` (so that
@@ -1013,9 +1070,13 @@ def from_pysindy(model: Any, variables: Sequence[str], *, kind: str = "polynomia
         raise SettingsError("from_pysindy: the pysindy model is not fitted")
     n_control = int(getattr(model, "n_control_features_", 0) or 0)
     if n_control:
-        raise SettingsError(f"from_pysindy: models with control inputs ({n_control}) are not supported")
+        raise SettingsError(
+            f"from_pysindy: models with control inputs ({n_control}) are not supported"
+        )
     if int(n_in) != n:
-        raise SettingsError(f"from_pysindy: the model was fitted on {n_in} variables, got {n} names")
+        raise SettingsError(
+            f"from_pysindy: the model was fitted on {n_in} variables, got {n} names"
+        )
     names = model.feature_library.get_feature_names([f"x{j}" for j in range(n)])
     coef = np.asarray(model.coefficients(), dtype=np.float64)
     if coef.shape != (n, len(names)):

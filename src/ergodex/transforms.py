@@ -294,7 +294,8 @@ class PCA(Transform):
         if (self.n_modes is None) == (self.variance_fraction is None):
             raise SettingsError("give exactly one of n_modes and variance_fraction")
         if self.n_modes is not None and (
-            isinstance(self.n_modes, bool) or not isinstance(self.n_modes, (int, np.integer))
+            isinstance(self.n_modes, bool)
+            or not isinstance(self.n_modes, (int, np.integer))
             or self.n_modes < 1
         ):
             raise SettingsError(f"n_modes must be an integer >= 1, got {self.n_modes!r}")
@@ -563,9 +564,7 @@ def transform_from_dict(d: Mapping[str, Any]) -> Transform:
         module, name = _ELSEWHERE[kind]
         TRANSFORMS[kind] = getattr(importlib.import_module(module), name)
     if kind not in TRANSFORMS:
-        raise ModelFileError(
-            f"unknown transform kind {kind!r}; known: {', '.join(TRANSFORMS)}"
-        )
+        raise ModelFileError(f"unknown transform kind {kind!r}; known: {', '.join(TRANSFORMS)}")
     names = d.get("input_names")
     if not isinstance(names, list) or not names or not all(isinstance(n, str) for n in names):
         raise ModelFileError("transform field 'input_names' must be a non-empty list of strings")
@@ -590,7 +589,10 @@ def transform_series(transform: Transform, series: Series) -> Series:
         )
     runs = [transform.forward(r) for r in series.runs]
     return Series.from_arrays(
-        runs, transform.output_names, series.dt, run_labels=series.run_labels,
-        source=series.source, time_unit=series.time_unit,
+        runs,
+        transform.output_names,
+        series.dt,
+        run_labels=series.run_labels,
+        source=series.source,
+        time_unit=series.time_unit,
     )
-

@@ -195,6 +195,7 @@ class CheckSpec:
 
     def check_settings(self) -> None:
         """Raise SettingsError naming the first setting that breaks its rule."""
+
         def positive_int(name, v, low=1):
             if isinstance(v, bool) or not isinstance(v, (int, np.integer)) or v < low:
                 raise SettingsError(f"{name} must be an integer ≥ {low}; got {v!r}")
@@ -202,39 +203,60 @@ class CheckSpec:
         def positive_float(name, v, allow_none=True, allow_zero=False):
             if v is None and allow_none:
                 return
-            ok = isinstance(v, (int, float, np.floating)) and not isinstance(v, bool) and math.isfinite(v)
+            ok = (
+                isinstance(v, (int, float, np.floating))
+                and not isinstance(v, bool)
+                and math.isfinite(v)
+            )
             if not ok or v < 0 or (v == 0 and not allow_zero):
-                raise SettingsError(f"{name} must be a {'non-negative' if allow_zero else 'positive'} "
-                                    f"number; got {v!r}")
+                raise SettingsError(
+                    f"{name} must be a {'non-negative' if allow_zero else 'positive'} "
+                    f"number; got {v!r}"
+                )
 
         positive_int("members", self.members, 2)
         positive_float("length", self.length)
         positive_float("spinup", self.spinup, allow_zero=True)
         positive_int("seed", self.seed, 0)
-        if not (self.bins == "fd" or (isinstance(self.bins, (int, np.integer))
-                                      and not isinstance(self.bins, bool) and self.bins >= 1)):
+        if not (
+            self.bins == "fd"
+            or (
+                isinstance(self.bins, (int, np.integer))
+                and not isinstance(self.bins, bool)
+                and self.bins >= 1
+            )
+        ):
             raise SettingsError(f"bins must be a positive integer or 'fd'; got {self.bins!r}")
         positive_float("max_lag", self.max_lag)
         positive_float("tolerance", self.tolerance, allow_none=False)
         if not isinstance(self.tolerances, dict):
-            raise SettingsError(f"tolerances must be a table statistic → number; got {self.tolerances!r}")
+            raise SettingsError(
+                f"tolerances must be a table statistic → number; got {self.tolerances!r}"
+            )
         for k, v in self.tolerances.items():
             if k not in ALL_STATISTICS:
-                raise SettingsError(f"tolerances: unknown statistic {k!r}; known: {list(ALL_STATISTICS)}")
+                raise SettingsError(
+                    f"tolerances: unknown statistic {k!r}; known: {list(ALL_STATISTICS)}"
+                )
             positive_float(f"tolerances.{k}", v, allow_none=False)
         if isinstance(self.statistics, str) or not self.statistics:
             raise SettingsError(f"statistics must be a non-empty list; got {self.statistics!r}")
         for s in self.statistics:
             if s not in ALL_STATISTICS:
-                raise SettingsError(f"statistics: unknown statistic {s!r}; known: {list(ALL_STATISTICS)}")
+                raise SettingsError(
+                    f"statistics: unknown statistic {s!r}; known: {list(ALL_STATISTICS)}"
+                )
         positive_int("min_pieces", self.min_pieces, 2)
         positive_float("gap", self.gap, allow_zero=True)
         if self.nperseg is not None:
             positive_int("nperseg", self.nperseg, 8)
-        positive_float("max_blowup_fraction", self.max_blowup_fraction, allow_none=False,
-                       allow_zero=True)
+        positive_float(
+            "max_blowup_fraction", self.max_blowup_fraction, allow_none=False, allow_zero=True
+        )
         if self.max_blowup_fraction >= 1:
-            raise SettingsError(f"max_blowup_fraction must be below 1; got {self.max_blowup_fraction}")
+            raise SettingsError(
+                f"max_blowup_fraction must be below 1; got {self.max_blowup_fraction}"
+            )
         if self.pool is not None:
             positive_int("pool", self.pool, 1)
         if self.regimes is not None and not isinstance(self.regimes, RegimeSet):
@@ -245,12 +267,19 @@ class CheckSpec:
 
     def to_dict(self) -> dict:
         return {
-            "members": int(self.members), "length": self.length, "spinup": self.spinup,
-            "seed": int(self.seed), "bins": self.bins, "max_lag": self.max_lag,
+            "members": int(self.members),
+            "length": self.length,
+            "spinup": self.spinup,
+            "seed": int(self.seed),
+            "bins": self.bins,
+            "max_lag": self.max_lag,
             "regimes": None if self.regimes is None else self.regimes.to_dict(),
-            "tolerance": float(self.tolerance), "tolerances": dict(self.tolerances),
-            "statistics": list(self.statistics), "min_pieces": int(self.min_pieces),
-            "gap": self.gap, "nperseg": self.nperseg,
+            "tolerance": float(self.tolerance),
+            "tolerances": dict(self.tolerances),
+            "statistics": list(self.statistics),
+            "min_pieces": int(self.min_pieces),
+            "gap": self.gap,
+            "nperseg": self.nperseg,
             "max_blowup_fraction": float(self.max_blowup_fraction),
             "pool": None if self.pool is None else int(self.pool),
         }
@@ -262,7 +291,9 @@ class CheckSpec:
         known = set(cls.__dataclass_fields__)
         unknown = set(d) - known
         if unknown:
-            raise SettingsError(f"unknown check setting(s) {sorted(unknown)}; known: {sorted(known)}")
+            raise SettingsError(
+                f"unknown check setting(s) {sorted(unknown)}; known: {sorted(known)}"
+            )
         kw = dict(d)
         if kw.get("regimes") is not None:
             kw["regimes"] = RegimeSet.from_dict(kw["regimes"], source="check settings: regimes")
@@ -298,19 +329,30 @@ class ScoreRow:
     verdict: str
 
     def to_dict(self) -> dict:
-        return {"statistic": self.statistic, "variable": self.variable,
-                "value": _finite_or_none(self.value), "noise_floor": _finite_or_none(self.noise_floor),
-                "ratio": _finite_or_none(self.ratio),
-                "tolerance": float(self.tolerance), "verdict": self.verdict}
+        return {
+            "statistic": self.statistic,
+            "variable": self.variable,
+            "value": _finite_or_none(self.value),
+            "noise_floor": _finite_or_none(self.noise_floor),
+            "ratio": _finite_or_none(self.ratio),
+            "tolerance": float(self.tolerance),
+            "verdict": self.verdict,
+        }
 
     @classmethod
     def from_dict(cls, d: dict) -> ScoreRow:
         ratio = d["ratio"]
         if ratio is None and d["verdict"] == "fail":
             ratio = float("inf")
-        return cls(d["statistic"], d["variable"], _none_to_nan(d["value"]),
-                   _none_to_nan(d["noise_floor"]), _none_to_nan(ratio), float(d["tolerance"]),
-                   d["verdict"])
+        return cls(
+            d["statistic"],
+            d["variable"],
+            _none_to_nan(d["value"]),
+            _none_to_nan(d["noise_floor"]),
+            _none_to_nan(ratio),
+            float(d["tolerance"]),
+            d["verdict"],
+        )
 
 
 @dataclass
@@ -363,12 +405,18 @@ class Scorecard:
 
     def to_dict(self) -> dict:
         return {
-            "format": SCORECARD_FORMAT, "verdict": self.verdict,
-            "rows": [r.to_dict() for r in self.rows], "reasons": list(self.reasons),
-            "blowups": jsonable(self.blowups), "member_agreement": jsonable(self.member_agreement),
-            "spec": self.spec.to_dict(), "settings": jsonable(self.settings),
-            "model_fingerprint": self.model_fingerprint, "data_fingerprint": self.data_fingerprint,
-            "created": self.created, "ergodex_version": self.ergodex_version,
+            "format": SCORECARD_FORMAT,
+            "verdict": self.verdict,
+            "rows": [r.to_dict() for r in self.rows],
+            "reasons": list(self.reasons),
+            "blowups": jsonable(self.blowups),
+            "member_agreement": jsonable(self.member_agreement),
+            "spec": self.spec.to_dict(),
+            "settings": jsonable(self.settings),
+            "model_fingerprint": self.model_fingerprint,
+            "data_fingerprint": self.data_fingerprint,
+            "created": self.created,
+            "ergodex_version": self.ergodex_version,
             "power": jsonable(self.power),
         }
 
@@ -376,16 +424,24 @@ class Scorecard:
     def from_dict(cls, d: dict, *, source: str = "scorecard") -> Scorecard:
         if not isinstance(d, dict) or d.get("format") != SCORECARD_FORMAT:
             got = d.get("format") if isinstance(d, dict) else type(d).__name__
-            raise ModelFileError(f"{source}: not a scorecard of format {SCORECARD_FORMAT!r} "
-                                 f"(format: {got!r})")
+            raise ModelFileError(
+                f"{source}: not a scorecard of format {SCORECARD_FORMAT!r} (format: {got!r})"
+            )
         try:
             return cls(
-                verdict=d["verdict"], rows=[ScoreRow.from_dict(r) for r in d["rows"]],
-                reasons=list(d["reasons"]), blowups=dict(d["blowups"]),
-                member_agreement=dict(d["member_agreement"]), spec=CheckSpec.from_dict(d["spec"]),
-                model_fingerprint=d["model_fingerprint"], data_fingerprint=d["data_fingerprint"],
-                created=d["created"], ergodex_version=d["ergodex_version"],
-                settings=dict(d.get("settings", {})), power=dict(d.get("power") or {}))
+                verdict=d["verdict"],
+                rows=[ScoreRow.from_dict(r) for r in d["rows"]],
+                reasons=list(d["reasons"]),
+                blowups=dict(d["blowups"]),
+                member_agreement=dict(d["member_agreement"]),
+                spec=CheckSpec.from_dict(d["spec"]),
+                model_fingerprint=d["model_fingerprint"],
+                data_fingerprint=d["data_fingerprint"],
+                created=d["created"],
+                ergodex_version=d["ergodex_version"],
+                settings=dict(d.get("settings", {})),
+                power=dict(d.get("power") or {}),
+            )
         except KeyError as exc:
             raise ModelFileError(f"{source}: missing key {exc.args[0]!r}") from None
         except (TypeError, ValueError, SettingsError) as exc:
@@ -418,25 +474,33 @@ class Scorecard:
         head = f"verdict: {self.verdict.upper()}"
         if self.rows:
             worst = max(self.rows, key=lambda r: -1 if math.isnan(r.ratio) else r.ratio)
-            head += (f"   largest ratio {_fmt(worst.ratio)} ({worst.statistic} {worst.variable}); "
-                     f"a ratio is the model's distance from the data over the data's own noise floor")
+            head += (
+                f"   largest ratio {_fmt(worst.ratio)} ({worst.statistic} {worst.variable}); "
+                f"a ratio is the model's distance from the data over the data's own noise floor"
+            )
         lines = [head, ""]
         w_stat = max([len("statistic")] + [len(r.statistic) for r in self.rows])
         w_var = max([len("variable")] + [len(r.variable) for r in self.rows])
-        lines.append(f"{'statistic':<{w_stat}}  {'variable':<{w_var}}  {'value':>10}  "
-                     f"{'noise floor':>11}  {'ratio':>7}  {'tol':>5}  verdict")
+        lines.append(
+            f"{'statistic':<{w_stat}}  {'variable':<{w_var}}  {'value':>10}  "
+            f"{'noise floor':>11}  {'ratio':>7}  {'tol':>5}  verdict"
+        )
         for r in self.rows:
-            lines.append(f"{r.statistic:<{w_stat}}  {r.variable:<{w_var}}  {_fmt(r.value):>10}  "
-                         f"{_fmt(r.noise_floor):>11}  {_fmt(r.ratio):>7}  {r.tolerance:>5.2f}  "
-                         f"{r.verdict}")
+            lines.append(
+                f"{r.statistic:<{w_stat}}  {r.variable:<{w_var}}  {_fmt(r.value):>10}  "
+                f"{_fmt(r.noise_floor):>11}  {_fmt(r.ratio):>7}  {r.tolerance:>5.2f}  "
+                f"{r.verdict}"
+            )
         b = self.blowups
         lines.append("")
         lines.extend(power_lines(self.power))
         lines.append(f"blow-ups: {b.get('count', 0)} of {self.spec.members} members")
         m = self.member_agreement
         if m:
-            lines.append(f"member agreement: ratio {_fmt(_none_to_nan(m.get('ratio')))} "
-                         f"(tolerance {m.get('tolerance', float('nan')):.2f}) {m.get('verdict', '')}")
+            lines.append(
+                f"member agreement: ratio {_fmt(_none_to_nan(m.get('ratio')))} "
+                f"(tolerance {m.get('tolerance', float('nan')):.2f}) {m.get('verdict', '')}"
+            )
         if self.reasons:
             lines.append("")
             lines.extend(f"- {reason}" for reason in self.reasons)
@@ -473,11 +537,13 @@ def power_lines(power: dict) -> list[str]:
             return f"none up to ×{top:.3g}"
         return f"×{f:.3g}"
 
-    return [f"record: {_fmt(_none_to_nan(power.get('record_time')))} time units = "
-            f"{_fmt(_none_to_nan(power.get('record_decorrelation_times')))} decorrelation times "
-            f"(pieces of {_fmt(_none_to_nan(power.get('piece_decorrelation_times')))})",
-            f"smallest change it detects: time scale {factor('time_scale')}, variance "
-            f"{factor('variance_up')} / {factor('variance_down')}"]
+    return [
+        f"record: {_fmt(_none_to_nan(power.get('record_time')))} time units = "
+        f"{_fmt(_none_to_nan(power.get('record_decorrelation_times')))} decorrelation times "
+        f"(pieces of {_fmt(_none_to_nan(power.get('piece_decorrelation_times')))})",
+        f"smallest change it detects: time scale {factor('time_scale')}, variance "
+        f"{factor('variance_up')} / {factor('variance_down')}",
+    ]
 
 
 def _fmt(x: float) -> str:
@@ -550,8 +616,9 @@ class Evidence:
     sample_model: np.ndarray
     blowup_times: np.ndarray
 
-    def to_npz(self, path: str | os.PathLike, *,
-               extra: dict[str, np.ndarray] | None = None) -> None:
+    def to_npz(
+        self, path: str | os.PathLike, *, extra: dict[str, np.ndarray] | None = None
+    ) -> None:
         """Write every array to ``path`` (compressed NPZ, atomically).
 
         ``extra`` arrays (e.g. a field check's grid maps) are stored beside the fixed ones under
@@ -564,6 +631,7 @@ class Evidence:
         arrays = {name: np.asarray(getattr(self, name)) for name in EVIDENCE_FIELDS}
         arrays["format"] = np.array(EVIDENCE_FORMAT)
         arrays.update({key: np.asarray(value) for key, value in (extra or {}).items()})
+
         def write(tmp: Path) -> None:
             with open(tmp, "wb") as handle:  # a file object: savez must not add ".npz"
                 np.savez_compressed(handle, **arrays)
@@ -598,7 +666,9 @@ class Evidence:
                 raise ModelFileError(f"{label}: not an evidence file of format {EVIDENCE_FORMAT!r}")
             with loaded as z:
                 if "format" not in z.files or str(z["format"]) != EVIDENCE_FORMAT:
-                    raise ModelFileError(f"{label}: not an evidence file of format {EVIDENCE_FORMAT!r}")
+                    raise ModelFileError(
+                        f"{label}: not an evidence file of format {EVIDENCE_FORMAT!r}"
+                    )
                 missing = [k for k in EVIDENCE_FIELDS if k not in z.files]
                 if missing:
                     raise ModelFileError(f"{label}: evidence file lacks {missing}")
@@ -684,7 +754,8 @@ def _reference_pieces(reference, min_pieces: int, gap_time: float) -> tuple[np.n
             raise DataError(
                 f"{reference.source or 'reference data'}: too short for a noise floor: "
                 f"{reference.n_runs} run(s) cannot give {min_pieces} pieces separated by "
-                f"{gap_time:.3g} time units ({exc}); supply more or longer runs") from None
+                f"{gap_time:.3g} time units ({exc}); supply more or longer runs"
+            ) from None
         info = {"piece_source": "blocks", "blocks_per_run": blocks}
     length = min(series.lengths)
     pieces = np.stack([np.asarray(r[:length], float) for r in series.runs])
@@ -710,8 +781,9 @@ class _PieceStats:
         if "autocorrelation" in stats_wanted:
             self.acf = _acf_pieces(pieces, ctx["max_lag_samples"])
         if "spectrum" in stats_wanted:
-            _, psd = stats.welch_psd(np.ascontiguousarray(pieces.transpose(0, 2, 1)), ctx["dt"],
-                                     ctx["nperseg"])
+            _, psd = stats.welch_psd(
+                np.ascontiguousarray(pieces.transpose(0, 2, 1)), ctx["dt"], ctx["nperseg"]
+            )
             self.psd = psd.transpose(0, 2, 1)  # (P, n_freq, n)
         regimes = ctx.get("regimes")
         if regimes is not None:
@@ -736,12 +808,17 @@ def _acf_pieces(pieces: np.ndarray, max_lag: int) -> np.ndarray:
         return acov / acov[:, :1]
 
 
-def _pair_distances(statistic: str, a: _PieceStats, b: _PieceStats,
-                    index: tuple[np.ndarray, np.ndarray] | None = None) -> np.ndarray:
+def _pair_distances(
+    statistic: str,
+    a: _PieceStats,
+    b: _PieceStats,
+    index: tuple[np.ndarray, np.ndarray] | None = None,
+) -> np.ndarray:
     """Distances between samples of ``a`` and samples of ``b``: (n_pairs, n_rows).
 
     ``index`` gives the pairs ``(a[index[0][k]], b[index[1][k]])``; by default every pair.
     """
+
     def pairs(x, y, fn):
         out = []
         if index is None:
@@ -750,13 +827,13 @@ def _pair_distances(statistic: str, a: _PieceStats, b: _PieceStats,
             per_row = max(1, y[0].size * y.shape[0])
             step = max(1, int(4_000_000 // per_row))
             for s in range(0, x.shape[0], step):
-                xa = x[s:s + step]
+                xa = x[s : s + step]
                 d = fn(xa[:, None], y[None, :])
                 out.append(d.reshape((-1,) + d.shape[2:]))
             return np.concatenate(out)
         ii, jj = np.ravel(index[0]), np.ravel(index[1])
         for s in range(0, ii.size, 64):
-            out.append(fn(x[ii[s:s + 64]], y[jj[s:s + 64]]))
+            out.append(fn(x[ii[s : s + 64]], y[jj[s : s + 64]]))
         return np.concatenate(out) if out else np.zeros((0,) + fn(x[:1], y[:1]).shape[1:])
 
     if statistic == "histogram":
@@ -765,19 +842,25 @@ def _pair_distances(statistic: str, a: _PieceStats, b: _PieceStats,
     if statistic == "quantiles":
         return pairs(a.quant, b.quant, lambda x, y: np.mean(np.abs(x - y), axis=-2))
     if statistic == "autocorrelation":
-        return pairs(a.acf, b.acf,
-                     lambda x, y: np.sqrt(np.mean((x[..., 1:, :] - y[..., 1:, :]) ** 2, axis=-2)))
+        return pairs(
+            a.acf,
+            b.acf,
+            lambda x, y: np.sqrt(np.mean((x[..., 1:, :] - y[..., 1:, :]) ** 2, axis=-2)),
+        )
     if statistic == "spectrum":
+
         def l1(x, y):
             return np.sum(np.abs(x - y), axis=-2) / (0.5 * np.sum(x + y, axis=-2))
+
         return pairs(a.psd, b.psd, l1)
     if statistic == "occupancy":
         return pairs(a.occ[:, :-1], b.occ[:, :-1], lambda x, y: np.abs(x - y))
     if statistic == "residence":
         return pairs(a.res[:, :-1], b.res[:, :-1], lambda x, y: np.abs(x - y))
     if statistic == "transitions":
-        return pairs(a.trans, b.trans,
-                     lambda x, y: np.sqrt(np.sum((x - y) ** 2, axis=(-2, -1)))[..., None])
+        return pairs(
+            a.trans, b.trans, lambda x, y: np.sqrt(np.sum((x - y) ** 2, axis=(-2, -1)))[..., None]
+        )
     raise SettingsError(f"unknown statistic {statistic!r}")  # pragma: no cover - checked in spec
 
 
@@ -803,8 +886,10 @@ def _observed_variables(surrogate) -> list[str]:
     observed = list(surrogate.observed_variables)
     unknown = [v for v in observed if v not in surrogate.variables]
     if unknown:
-        raise DataError(f"the model's settings list observed variables {unknown} that it does not have "
-                        f"(variables: {list(surrogate.variables)})")
+        raise DataError(
+            f"the model's settings list observed variables {unknown} that it does not have "
+            f"(variables: {list(surrogate.variables)})"
+        )
     return observed
 
 
@@ -828,10 +913,14 @@ def _compared_space(surrogate, reference, observed):
 
     mapped = transform_series(transform, reference)
     if observed != list(mapped.names):
-        mapped = Series.from_arrays([run[:, [mapped.names.index(v) for v in observed]]
-                                     for run in mapped.runs], observed, mapped.dt,
-                                    run_labels=mapped.run_labels, source=mapped.source,
-                                    time_unit=mapped.time_unit)
+        mapped = Series.from_arrays(
+            [run[:, [mapped.names.index(v) for v in observed]] for run in mapped.runs],
+            observed,
+            mapped.dt,
+            run_labels=mapped.run_labels,
+            source=mapped.source,
+            time_unit=mapped.time_unit,
+        )
     return mapped, True
 
 
@@ -857,7 +946,8 @@ def _column_order(names, series) -> tuple[list[int], np.ndarray]:
     if sorted(names) != sorted(series.names):
         raise DataError(
             f"{series.source or 'reference data'}: variables {list(series.names)} do not "
-            f"match the model's {names}; check the data file or the model")
+            f"match the model's {names}; check the data file or the model"
+        )
     return [series.names.index(n) for n in names], np.array([names.index(n) for n in series.names])
 
 
@@ -883,16 +973,29 @@ def align_columns(surrogate, series):
     take = _column_order(names, series)[0]
     from ergodex.series import Series
 
-    return Series.from_arrays([run[:, take] for run in series.runs], names, series.dt,
-                              units=None if series.units is None
-                              else [series.units[j] for j in take],
-                              run_labels=series.run_labels, source=series.source,
-                              time_unit=series.time_unit)
+    return Series.from_arrays(
+        [run[:, take] for run in series.runs],
+        names,
+        series.dt,
+        units=None if series.units is None else [series.units[j] for j in take],
+        run_labels=series.run_labels,
+        source=series.source,
+        time_unit=series.time_unit,
+    )
 
 
-def check(surrogate, reference, spec: CheckSpec | None = None, *, initial_states=None,
-          dt: float | None = None, progress=False, time_limit: float | None = None,
-          max_memory: int | str | None = None, evidence: bool = True) -> CheckResult:
+def check(
+    surrogate,
+    reference,
+    spec: CheckSpec | None = None,
+    *,
+    initial_states=None,
+    dt: float | None = None,
+    progress=False,
+    time_limit: float | None = None,
+    max_memory: int | str | None = None,
+    evidence: bool = True,
+) -> CheckResult:
     """Validate a surrogate against reference data: scorecard plus evidence.
 
     Parameters
@@ -946,27 +1049,54 @@ def check(surrogate, reference, spec: CheckSpec | None = None, *, initial_states
     from ergodex.progress import reporter
 
     reference = as_series(reference, dt=dt, what="reference")
-    log.info("check: %s surrogate against %d runs (%d samples) of %s",
-             getattr(surrogate, "kind", type(surrogate).__name__), reference.n_runs,
-             reference.n_samples, ", ".join(reference.names))
+    log.info(
+        "check: %s surrogate against %d runs (%d samples) of %s",
+        getattr(surrogate, "kind", type(surrogate).__name__),
+        reference.n_runs,
+        reference.n_samples,
+        ", ".join(reference.names),
+    )
     with reporter(progress, 1, desc="check", unit="output") as update:
-        result = _check(surrogate, reference, spec, initial_states, update,
-                        time_limit=time_limit, max_memory=max_memory, evidence=evidence)
+        result = _check(
+            surrogate,
+            reference,
+            spec,
+            initial_states,
+            update,
+            time_limit=time_limit,
+            max_memory=max_memory,
+            evidence=evidence,
+        )
     card = result.scorecard
     settings = card.settings
-    log.info("check: %d members of %g time units after a spin-up of %g; %s",
-             card.spec.members, settings.get("member_length", float("nan")),
-             settings.get("spinup", float("nan")),
-             settings.get("integration", {}).get("message", ""))
-    log.info("check verdict: %s (largest ratio %s over %d rows)%s", card.verdict,
-             _fmt(card.largest_ratio), len(card.rows),
-             "; " + "; ".join(card.reasons[:3]) if card.reasons else "")
+    log.info(
+        "check: %d members of %g time units after a spin-up of %g; %s",
+        card.spec.members,
+        settings.get("member_length", float("nan")),
+        settings.get("spinup", float("nan")),
+        settings.get("integration", {}).get("message", ""),
+    )
+    log.info(
+        "check verdict: %s (largest ratio %s over %d rows)%s",
+        card.verdict,
+        _fmt(card.largest_ratio),
+        len(card.rows),
+        "; " + "; ".join(card.reasons[:3]) if card.reasons else "",
+    )
     return result
 
 
-def _check(surrogate, reference, spec, initial_states, update, *,
-           time_limit: float | None = None, max_memory: int | str | None = None,
-           evidence: bool = True) -> CheckResult:
+def _check(
+    surrogate,
+    reference,
+    spec,
+    initial_states,
+    update,
+    *,
+    time_limit: float | None = None,
+    max_memory: int | str | None = None,
+    evidence: bool = True,
+) -> CheckResult:
     """The check itself, on a Series; ``update(done, total)`` (or None) hears of its progress."""
     import ergodex
     from ergodex.integrate import blowup_bound, ensemble_memory, integrate_ensemble
@@ -984,6 +1114,7 @@ def _check(surrogate, reference, spec, initial_states, update, *,
     dt = float(reference.dt)
     order = None if in_model_space else _data_space_names(surrogate, reference, observed)
     if in_model_space:
+
         def to_model(x):
             return np.asarray(x, dtype=float)
 
@@ -1003,7 +1134,9 @@ def _check(surrogate, reference, spec, initial_states, update, *,
     regimes = spec.regimes
     if regimes is not None and regimes.needs_fit:
         regimes = regimes.fit(stacked, variables)
-    statistics = tuple(s for s in spec.statistics if regimes is not None or s not in _REGIME_STATISTICS)
+    statistics = tuple(
+        s for s in spec.statistics if regimes is not None or s not in _REGIME_STATISTICS
+    )
 
     # -- decorrelation time and derived settings -----------------------------------------
     tau = np.atleast_1d(stats.integrated_autocorrelation_time(list(reference.runs), dt))
@@ -1019,28 +1152,41 @@ def _check(surrogate, reference, spec, initial_states, update, *,
     if L < 4 * max_lag or L < 16:
         raise DataError(
             f"{reference.source or 'reference data'}: reference pieces of {L} samples are too short "
-            f"(need at least {max(16, 4 * max_lag)} for lags up to {max_lag} samples); supply longer runs")
+            f"(need at least {max(16, 4 * max_lag)} for lags up to {max_lag} samples); supply longer runs"
+        )
     spinup = _SPINUP_TIMES * tau_d if spec.spinup is None else float(spec.spinup)
     n_ref = ref_pieces.shape[0]
     pool = spec.pool if spec.pool is not None else max(1, n_ref // 2)
     if 2 * pool > n_ref:
-        raise SettingsError(f"pool {pool} needs at least {2 * pool} reference pieces; the reference "
-                            f"gives {n_ref} (set min_pieces ≥ {2 * pool})")
+        raise SettingsError(
+            f"pool {pool} needs at least {2 * pool} reference pieces; the reference "
+            f"gives {n_ref} (set min_pieces ≥ {2 * pool})"
+        )
     # by default every member covers one pooled group, so there are as many model groups as
     # members and the model side of each row is averaged over all of them
     member_time = L * dt * pool if spec.length is None else float(spec.length)
     n_out = round(member_time / dt)
     if n_out < L:
-        raise SettingsError(f"length {member_time:g} is shorter than one reference piece "
-                            f"({L * dt:g} time units); members must cover at least one piece")
+        raise SettingsError(
+            f"length {member_time:g} is shorter than one reference piece "
+            f"({L * dt:g} time units); members must cover at least one piece"
+        )
     pieces_per_member = n_out // L
     # refuse before the start states, the run and the model array are allocated
     # the run's outputs, the data-space model array and the statistics' pieces: three copies
-    check_memory(ensemble_memory(spec.members, n_out, surrogate.n_variables, surrogate.n_variables,
-                                 surrogate.n_terms, copies=3),
-                 f"a check of {spec.members} members x {n_out} outputs x "
-                 f"{surrogate.n_variables} variables", "use fewer members or a shorter length",
-                 max_memory)
+    check_memory(
+        ensemble_memory(
+            spec.members,
+            n_out,
+            surrogate.n_variables,
+            surrogate.n_variables,
+            surrogate.n_terms,
+            copies=3,
+        ),
+        f"a check of {spec.members} members x {n_out} outputs x {surrogate.n_variables} variables",
+        "use fewer members or a shorter length",
+        max_memory,
+    )
 
     seeds = np.random.SeedSequence(spec.seed).generate_state(3)
     rng = np.random.default_rng(int(seeds[0]))
@@ -1051,14 +1197,18 @@ def _check(surrogate, reference, spec, initial_states, update, *,
         starts = np.array(initial_states, dtype=float)
         n_data = len(data_reference.names)
         if starts.shape != (spec.members, n_data) or not np.all(np.isfinite(starts)):
-            raise DataError(f"initial_states must be finite with shape ({spec.members}, {n_data}) "
-                            f"(members × variables); got shape {starts.shape}")
+            raise DataError(
+                f"initial_states must be finite with shape ({spec.members}, {n_data}) "
+                f"(members × variables); got shape {starts.shape}"
+            )
         if in_model_space:
             starts = surrogate.transform.forward(starts)
         import hashlib
 
-        starts_note = "given: sha256:" + hashlib.sha256(
-            np.ascontiguousarray(starts, "<f8").tobytes()).hexdigest()
+        starts_note = (
+            "given: sha256:"
+            + hashlib.sha256(np.ascontiguousarray(starts, "<f8").tobytes()).hexdigest()
+        )
     z0 = to_model(starts)
     z_ref = to_model(stacked)
     bound = blowup_bound(z_ref, factor=10.0)
@@ -1076,10 +1226,19 @@ def _check(surrogate, reference, spec, initial_states, update, *,
         bound = bound_all
         if len(observed) < surrogate.n_variables:
             keep = columns
-    run = integrate_ensemble(surrogate, z0, dt_out=dt, n_out=n_out, spinup=spinup, bound=bound,
-                             seed=int(seeds[1]), keep=keep, time_limit=time_limit,
-                             max_memory=max_memory,
-                             progress=None if update is None else (lambda d, t: update(d, t + 1)))
+    run = integrate_ensemble(
+        surrogate,
+        z0,
+        dt_out=dt,
+        n_out=n_out,
+        spinup=spinup,
+        bound=bound,
+        seed=int(seeds[1]),
+        keep=keep,
+        time_limit=time_limit,
+        max_memory=max_memory,
+        progress=None if update is None else (lambda d, t: update(d, t + 1)),
+    )
 
     # -- model output in data space -----------------------------------------------------------
     alive = ~np.asarray(run.blown_up, bool)
@@ -1087,61 +1246,98 @@ def _check(surrogate, reference, spec, initial_states, update, *,
     for m in np.flatnonzero(alive):
         x = to_data(run.states[m])
         if x.shape[1] != n_vars:
-            raise DataError(f"the model's data space has {x.shape[1]} variables, the reference "
-                            f"{n_vars} ({list(variables)})")
+            raise DataError(
+                f"the model's data space has {x.shape[1]} variables, the reference "
+                f"{n_vars} ({list(variables)})"
+            )
         model[m] = x if order is None else x[:, order]
 
-    ctx = {"statistics": statistics, "max_lag_samples": max_lag, "dt": dt, "nperseg": nperseg,
-           "regimes": regimes, "variables": variables}
+    ctx = {
+        "statistics": statistics,
+        "max_lag_samples": max_lag,
+        "dt": dt,
+        "nperseg": nperseg,
+        "regimes": regimes,
+        "variables": variables,
+    }
     from ergodex.series import format_dt
 
     time_unit = getattr(data_reference, "time_unit", None)
     settings = {
         **piece_info,
-        "piece_length_time": L * dt, "gap": gap, "spinup": spinup, "max_lag": max_lag * dt,
-        "max_lag_samples": max_lag, "nperseg": nperseg, "decorrelation_time": tau_d,
+        "piece_length_time": L * dt,
+        "gap": gap,
+        "spinup": spinup,
+        "max_lag": max_lag * dt,
+        "max_lag_samples": max_lag,
+        "nperseg": nperseg,
+        "decorrelation_time": tau_d,
         "integrated_autocorrelation_time": {v: float(t) for v, t in zip(variables, tau)},
-        "member_length": n_out * dt, "pieces_per_member": pieces_per_member,
-        "statistics": list(statistics), "dt": dt,
+        "member_length": n_out * dt,
+        "pieces_per_member": pieces_per_member,
+        "statistics": list(statistics),
+        "dt": dt,
         # every time above is in this unit; "dt_text" is dt as printed (format_dt)
         "time_unit": time_unit,
         "dt_text": format_dt(dt, time_unit),
-        "start_seed": int(seeds[0]), "starts": starts_note, "noise_seed": run.seed,
+        "start_seed": int(seeds[0]),
+        "starts": starts_note,
+        "noise_seed": run.seed,
         "integration": run.summary(),
         "regimes_used": None if regimes is None else regimes.to_dict(),
         "quantile_levels": list(stats.DEFAULT_QUANTILES),
         "compared_in": "model space (reference mapped through the surrogate's transform)"
-                       if in_model_space else "data space",
+        if in_model_space
+        else "data space",
         "hidden_variables": [v for v in surrogate.variables if v not in observed],
     }
 
     # -- blow-ups -------------------------------------------------------------------------
     blowup_times = np.where(alive, np.nan, np.asarray(run.blowup_time, float))
-    blowups, blowup_fail, blowup_reasons = _blowup_accounting(blowup_times,
-                                                              spec.max_blowup_fraction)
+    blowups, blowup_fail, blowup_reasons = _blowup_accounting(
+        blowup_times, spec.max_blowup_fraction
+    )
 
     ref_stats = _PieceStats(ref_pieces, ctx)
     # A group is its pieces laid end to end. The autocorrelation and Welch segments then span
     # pool − 1 joins (a fraction ≈ max_lag / L of the lagged products); model groups are built
     # the same way, so the effect is common to both sides of every comparison.
     ref_groups, floor_index = _reference_groups(n_ref, pool, np.random.default_rng(int(seeds[2])))
-    group_stats = (ref_stats if pool == 1 else
-                   _PieceStats(np.stack([ref_pieces[list(g)].reshape(-1, n_vars) for g in ref_groups]),
-                               ctx))
+    group_stats = (
+        ref_stats
+        if pool == 1
+        else _PieceStats(
+            np.stack([ref_pieces[list(g)].reshape(-1, n_vars) for g in ref_groups]), ctx
+        )
+    )
     settings["pool"] = pool
     settings["n_reference_groups"] = len(ref_groups)
     settings["n_floor_pairs"] = int(floor_index[0].size)
-    floors = {s: np.nanmean(_pair_distances(s, group_stats, group_stats, floor_index), axis=0)
-              for s in statistics}
-    power, weak_reasons, consistency = _power(reference, ref_pieces, piece_info, ref_groups,
-                                              floor_index, group_stats, floors, ctx, spec, tau_d,
-                                              gap)
+    floors = {
+        s: np.nanmean(_pair_distances(s, group_stats, group_stats, floor_index), axis=0)
+        for s in statistics
+    }
+    power, weak_reasons, consistency = _power(
+        reference,
+        ref_pieces,
+        piece_info,
+        ref_groups,
+        floor_index,
+        group_stats,
+        floors,
+        ctx,
+        spec,
+        tau_d,
+        gap,
+    )
     rows: list[ScoreRow] = []
     agreement: dict = {}
     if alive.any():
         # pieces in member-minor order, so that a pooled group takes one piece from each of
         # ``pool`` different members, as a reference group takes independent pieces
-        live_pieces = model[alive][:, : pieces_per_member * L].reshape(-1, pieces_per_member, L, n_vars)
+        live_pieces = model[alive][:, : pieces_per_member * L].reshape(
+            -1, pieces_per_member, L, n_vars
+        )
         model_pieces = live_pieces.transpose(1, 0, 2, 3).reshape(-1, L, n_vars)
         n_groups = model_pieces.shape[0] // pool
         if n_groups == 0:
@@ -1152,36 +1348,69 @@ def _check(surrogate, reference, spec, initial_states, update, *,
         settings["n_model_groups"] = int(n_groups)
         for s in statistics:
             value = np.nanmean(_pair_distances(s, mod_stats, group_stats), axis=0)
-            rows.extend(_score_rows(s, _row_labels(s, variables, regimes), value, floors[s],
-                                    spec.tolerance_for(s)))
+            rows.extend(
+                _score_rows(
+                    s, _row_labels(s, variables, regimes), value, floors[s], spec.tolerance_for(s)
+                )
+            )
         agreement = _member_agreement(model, alive, L, ref_stats, ref_pieces, spec, ctx)
     else:
-        agreement = {"ratio": None, "tolerance": spec.tolerance, "verdict": "fail",
-                     "collapsed_members": [], "outlying_members": [], "per_variable": {}}
+        agreement = {
+            "ratio": None,
+            "tolerance": spec.tolerance,
+            "verdict": "fail",
+            "collapsed_members": [],
+            "outlying_members": [],
+            "per_variable": {},
+        }
 
-    verdict, reasons = _decide(rows, blowup_fail=blowup_fail, blowup_reasons=blowup_reasons,
-                               any_alive=bool(alive.any()),
-                               agreement_verdict=agreement.get("verdict"),
-                               agreement_reasons=agreement.pop("_reasons", []),
-                               weak_reasons=weak_reasons,
-                               reference_reasons=consistency.pop("_reasons", []))
+    verdict, reasons = _decide(
+        rows,
+        blowup_fail=blowup_fail,
+        blowup_reasons=blowup_reasons,
+        any_alive=bool(alive.any()),
+        agreement_verdict=agreement.get("verdict"),
+        agreement_reasons=agreement.pop("_reasons", []),
+        weak_reasons=weak_reasons,
+        reference_reasons=consistency.pop("_reasons", []),
+    )
     scorecard = Scorecard(
-        verdict=verdict, rows=rows, reasons=reasons, blowups=blowups, power=power,
-        member_agreement=agreement, spec=spec, model_fingerprint=surrogate.fingerprint(),
+        verdict=verdict,
+        rows=rows,
+        reasons=reasons,
+        blowups=blowups,
+        power=power,
+        member_agreement=agreement,
+        spec=spec,
+        model_fingerprint=surrogate.fingerprint(),
         data_fingerprint=data_reference.fingerprint(),
         created=utc_now(),
-        ergodex_version=ergodex.__version__, settings=settings)
+        ergodex_version=ergodex.__version__,
+        settings=settings,
+    )
     arrays = None
     if evidence:  # last: the scorecard never depends on it (it only draws from rng after use)
-        arrays = _evidence(reference, stacked, ref_pieces, ref_stats, model, alive,
-                           blowup_times, spec, ctx, rng)
+        arrays = _evidence(
+            reference, stacked, ref_pieces, ref_stats, model, alive, blowup_times, spec, ctx, rng
+        )
     if update is not None:
         update(n_out + 1, n_out + 1)  # the integration's outputs, then the scoring
     return CheckResult(scorecard, arrays)
 
 
-def _power(reference, ref_pieces, piece_info, groups, floor_index, group_stats, floors, ctx,
-           spec, tau_d, gap) -> tuple[dict, list[str], dict]:
+def _power(
+    reference,
+    ref_pieces,
+    piece_info,
+    groups,
+    floor_index,
+    group_stats,
+    floors,
+    ctx,
+    spec,
+    tau_d,
+    gap,
+) -> tuple[dict, list[str], dict]:
     """The power statement, the reasons the record is too weak, and the reference's consistency.
 
     See :mod:`ergodex.power` for the method (rescaled copies of the reference scored through
@@ -1191,15 +1420,18 @@ def _power(reference, ref_pieces, piece_info, groups, floor_index, group_stats, 
 
     dt = ctx["dt"]
     L = ref_pieces.shape[1]
-    detect = pw.detectable_changes(ref_pieces, groups, floor_index, group_stats, floors, ctx,
-                                   spec.tolerance_for)
+    detect = pw.detectable_changes(
+        ref_pieces, groups, floor_index, group_stats, floors, ctx, spec.tolerance_for
+    )
     record_time = float(sum(r.shape[0] for r in reference.runs) * dt)
-    power, weak = pw.power_statement(detect, record_time=record_time, piece_time=L * dt,
-                                     decorrelation_time=tau_d)
+    power, weak = pw.power_statement(
+        detect, record_time=record_time, piece_time=L * dt, decorrelation_time=tau_d
+    )
     per_run = piece_info.get("blocks_per_run", 1)
     run_of_piece = np.arange(ref_pieces.shape[0]) // per_run
-    consistency = pw.reference_consistency(ref_pieces, run_of_piece, int(math.ceil(gap / dt)),
-                                           ctx, spec.tolerance)
+    consistency = pw.reference_consistency(
+        ref_pieces, run_of_piece, int(math.ceil(gap / dt)), ctx, spec.tolerance
+    )
     power["reference_consistency"] = dict(consistency)
     if consistency["verdict"] == "fail":
         consistency["_reasons"] = [
@@ -1207,12 +1439,14 @@ def _power(reference, ref_pieces, piece_info, groups, floor_index, group_stats, 
             f"{_fmt(consistency['ratio'])}× more than parts of the same run do (tolerance "
             f"{consistency['tolerance']:g}); they do not sample one consistent behaviour (several "
             f"attractors, or runs too short to leave one), so no noise floor can be built from "
-            f"them: supply runs that each visit every state, or check the runs separately"]
+            f"them: supply runs that each visit every state, or check the runs separately"
+        ]
     return power, weak, consistency
 
 
-def _blowup_accounting(blowup_times: np.ndarray,
-                       max_fraction: float) -> tuple[dict, bool, list[str]]:
+def _blowup_accounting(
+    blowup_times: np.ndarray, max_fraction: float
+) -> tuple[dict, bool, list[str]]:
     """The scorecard's blow-up record, whether the blow-ups fail the check, and the reason.
 
     ``blowup_times`` holds one time per member, NaN for the members that survived. The check
@@ -1222,13 +1456,19 @@ def _blowup_accounting(blowup_times: np.ndarray,
     blown = ~np.isnan(times)
     members = times.size
     n_blown = int(np.count_nonzero(blown))
-    blowups = {"count": n_blown, "members": [int(m) for m in np.flatnonzero(blown)],
-               "times": [float(t) for t in times[blown]], "allowed_fraction": max_fraction}
+    blowups = {
+        "count": n_blown,
+        "members": [int(m) for m in np.flatnonzero(blown)],
+        "times": [float(t) for t in times[blown]],
+        "allowed_fraction": max_fraction,
+    }
     reasons = []
     if n_blown:
-        reasons.append(f"{n_blown} of {members} members blew up (left the data range ten-fold "
-                       f"or became non-finite), the first at t = {float(np.min(times[blown])):.4g} "
-                       f"after spin-up")
+        reasons.append(
+            f"{n_blown} of {members} members blew up (left the data range ten-fold "
+            f"or became non-finite), the first at t = {float(np.min(times[blown])):.4g} "
+            f"after spin-up"
+        )
     return blowups, n_blown > max_fraction * members, reasons
 
 
@@ -1245,10 +1485,17 @@ def _score_rows(statistic: str, labels, value, floor, tolerance: float) -> list[
     return rows
 
 
-def _decide(rows: list[ScoreRow], *, blowup_fail: bool, blowup_reasons: list[str],
-            any_alive: bool, agreement_verdict: str | None,
-            agreement_reasons: list[str], weak_reasons: list[str] = (),
-            reference_reasons: list[str] = ()) -> tuple[str, list[str]]:
+def _decide(
+    rows: list[ScoreRow],
+    *,
+    blowup_fail: bool,
+    blowup_reasons: list[str],
+    any_alive: bool,
+    agreement_verdict: str | None,
+    agreement_reasons: list[str],
+    weak_reasons: list[str] = (),
+    reference_reasons: list[str] = (),
+) -> tuple[str, list[str]]:
     """The family-wise verdict and its reasons, in the order the scorecard lists them.
 
     Pass only when no blow-up limit is exceeded, some member survived, no row fails and the
@@ -1263,11 +1510,15 @@ def _decide(rows: list[ScoreRow], *, blowup_fail: bool, blowup_reasons: list[str
     reasons = list(blowup_reasons)
     if not any_alive:
         reasons.insert(0, "every member blew up: no statistics can be compared")
-    failing = sorted((r for r in rows if r.verdict == "fail"),
-                     key=lambda r: -r.ratio if not math.isnan(r.ratio) else 0.0)
+    failing = sorted(
+        (r for r in rows if r.verdict == "fail"),
+        key=lambda r: -r.ratio if not math.isnan(r.ratio) else 0.0,
+    )
     for r in failing:
-        reasons.append(f"{r.statistic} of {r.variable}: distance {_fmt(r.ratio)}× the noise floor "
-                       f"(tolerance {r.tolerance:g})")
+        reasons.append(
+            f"{r.statistic} of {r.variable}: distance {_fmt(r.ratio)}× the noise floor "
+            f"(tolerance {r.tolerance:g})"
+        )
     reasons.extend(agreement_reasons)
     broken = blowup_fail or not any_alive
     if reference_reasons and not broken:
@@ -1291,14 +1542,17 @@ def _reference_groups(n: int, pool: int, rng, max_splits: int = 64):
         return [(i,) for i in range(n)], np.triu_indices(n, 1)
     if 2 * pool == n and math.comb(n - 1, pool - 1) <= max_splits:
         # every split once: the group holding piece 0, and its complement
-        splits = [(tuple(a), tuple(sorted(set(range(n)) - {0, *a[1:]})))
-                  for a in ((0, *rest) for rest in itertools.combinations(range(1, n), pool - 1))]
+        splits = [
+            (tuple(a), tuple(sorted(set(range(n)) - {0, *a[1:]})))
+            for a in ((0, *rest) for rest in itertools.combinations(range(1, n), pool - 1))
+        ]
     else:
         splits = []
         for _ in range(max_splits):
             perm = rng.permutation(n)
-            splits.append((tuple(sorted(perm[:pool].tolist())),
-                           tuple(sorted(perm[pool: 2 * pool].tolist()))))
+            splits.append(
+                (tuple(sorted(perm[:pool].tolist())), tuple(sorted(perm[pool : 2 * pool].tolist())))
+            )
     groups: dict[tuple[int, ...], int] = {}
     left = [groups.setdefault(a, len(groups)) for a, _ in splits]
     right = [groups.setdefault(b, len(groups)) for _, b in splits]
@@ -1325,16 +1579,23 @@ def _member_agreement(model, alive, L, ref_stats, ref_pieces, spec, ctx) -> dict
     members = np.flatnonzero(alive)
     ref_sd = np.nanstd(ref_pieces.reshape(-1, ref_pieces.shape[2]), axis=0)
     first = model[members, :L]  # each member's first piece, without copying whole members
-    collapsed = [int(m) for m in members
-                 if np.all(np.std(model[m], axis=0) < _COLLAPSE_FRACTION * ref_sd)]
+    collapsed = [
+        int(m) for m in members if np.all(np.std(model[m], axis=0) < _COLLAPSE_FRACTION * ref_sd)
+    ]
     reasons = []
     if collapsed and len(collapsed) == len(members):
         reasons.append("every surviving member settles on a fixed point")
     elif collapsed:
-        reasons.append(f"{len(collapsed)} of {len(members)} members settle on a fixed point while "
-                       f"the others keep moving")
-    out = {"tolerance": tol, "collapsed_members": collapsed, "outlying_members": [],
-           "per_variable": {}}
+        reasons.append(
+            f"{len(collapsed)} of {len(members)} members settle on a fixed point while "
+            f"the others keep moving"
+        )
+    out = {
+        "tolerance": tol,
+        "collapsed_members": collapsed,
+        "outlying_members": [],
+        "per_variable": {},
+    }
     if len(members) < 2:
         out.update(ratio=None, verdict="pass" if not collapsed else "fail")
         out["_reasons"] = reasons
@@ -1342,8 +1603,7 @@ def _member_agreement(model, alive, L, ref_stats, ref_pieces, spec, ctx) -> dict
     ctx_h = dict(ctx, statistics=("histogram",), regimes=None)
     mem = _PieceStats(first, ctx_h)
     ref_h = ref_stats if hasattr(ref_stats, "qf") else _PieceStats(ref_pieces, ctx_h)
-    floor = np.mean(_pair_distances("histogram", ref_h, ref_h,
-                                    np.triu_indices(ref_h.n, 1)), axis=0)
+    floor = np.mean(_pair_distances("histogram", ref_h, ref_h, np.triu_indices(ref_h.n, 1)), axis=0)
     ii, jj = np.triu_indices(len(members), 1)
     d = _pair_distances("histogram", mem, mem, (ii, jj))  # (pairs, n_vars)
     per_var = d.mean(axis=0) / np.maximum(floor, np.finfo(float).tiny)
@@ -1356,13 +1616,19 @@ def _member_agreement(model, alive, L, ref_stats, ref_pieces, spec, ctx) -> dict
     outlying = [int(members[k]) for k in np.flatnonzero(np.any(each / floor > tol, axis=1))]
     verdict = "pass" if ratio <= tol and not collapsed else "fail"
     if ratio > tol:
-        reasons.append(f"members disagree: their marginal distributions differ {_fmt(ratio)}× "
-                       f"more than reference pieces of the same length do (tolerance {tol:g}), "
-                       f"beyond sampling noise; the surrogate may have several attractors or "
-                       f"states it stays in for longer than a piece "
-                       f"(outlying members: {outlying[:8]})")
-    out.update(ratio=ratio, verdict=verdict, outlying_members=outlying,
-               per_variable={v: float(r) for v, r in zip(variables, per_var)})
+        reasons.append(
+            f"members disagree: their marginal distributions differ {_fmt(ratio)}× "
+            f"more than reference pieces of the same length do (tolerance {tol:g}), "
+            f"beyond sampling noise; the surrogate may have several attractors or "
+            f"states it stays in for longer than a piece "
+            f"(outlying members: {outlying[:8]})"
+        )
+    out.update(
+        ratio=ratio,
+        verdict=verdict,
+        outlying_members=outlying,
+        per_variable={v: float(r) for v, r in zip(variables, per_var)},
+    )
     out["_reasons"] = reasons
     return out
 
@@ -1385,8 +1651,9 @@ def _model_acf(live: list[np.ndarray], max_lag: int, like: np.ndarray) -> np.nda
         return out
 
 
-def _evidence(reference, stacked, ref_pieces, ref_stats, model, alive, blowup_times, spec, ctx,
-              rng) -> Evidence:
+def _evidence(
+    reference, stacked, ref_pieces, ref_stats, model, alive, blowup_times, spec, ctx, rng
+) -> Evidence:
     """Arrays for the figures; per-piece reference statistics come from ``ref_stats`` when the
     scored statistics already computed them."""
     variables = ctx["variables"]
@@ -1395,8 +1662,11 @@ def _evidence(reference, stacked, ref_pieces, ref_stats, model, alive, blowup_ti
     live = [model[m] for m in np.flatnonzero(alive)]
     pooled = np.concatenate(live) if live else np.full((1, n_vars), np.nan)
 
-    edges = np.stack([stats.histogram_edges(stacked[:, j], spec.bins) for j in range(n_vars)]) \
-        if spec.bins != "fd" else None
+    edges = (
+        np.stack([stats.histogram_edges(stacked[:, j], spec.bins) for j in range(n_vars)])
+        if spec.bins != "fd"
+        else None
+    )
     if edges is None:  # Freedman–Diaconis gives a different count per variable: use the largest
         counts = [stats.histogram_edges(stacked[:, j], "fd").size - 1 for j in range(n_vars)]
         edges = np.stack([stats.histogram_edges(stacked[:, j], max(counts)) for j in range(n_vars)])
@@ -1407,8 +1677,9 @@ def _evidence(reference, stacked, ref_pieces, ref_stats, model, alive, blowup_ti
     if hasattr(ref_stats, "psd"):
         psd_pieces = ref_stats.psd
     else:
-        psd_pieces = stats.welch_psd(np.ascontiguousarray(ref_pieces.transpose(0, 2, 1)), dt,
-                                     ctx["nperseg"])[1].transpose(0, 2, 1)
+        psd_pieces = stats.welch_psd(
+            np.ascontiguousarray(ref_pieces.transpose(0, 2, 1)), dt, ctx["nperseg"]
+        )[1].transpose(0, 2, 1)
     acf_pieces = ref_stats.acf if hasattr(ref_stats, "acf") else _acf_pieces(ref_pieces, max_lag)
     if live:
         acf_mod = _model_acf(live, max_lag, acf_ref)
@@ -1448,20 +1719,43 @@ def _evidence(reference, stacked, ref_pieces, ref_stats, model, alive, blowup_ti
         return x[idx]
 
     return Evidence(
-        variables=np.array(variables), hist_edges=edges, hist_reference=hist(stacked),
-        hist_reference_pieces=np.stack([hist(p) for p in ref_pieces]), hist_model=hist(pooled),
-        acf_lags=np.arange(max_lag + 1) * dt, acf_reference=acf_ref,
-        acf_reference_pieces=acf_pieces, acf_model=acf_mod,
-        psd_freq=freq, psd_reference=psd_ref, psd_reference_pieces=psd_pieces, psd_model=psd_mod,
-        regime_names=names, occupancy_reference=occ_ref, occupancy_reference_pieces=occ_pieces,
-        occupancy_model=occ_mod, residence_reference=res_ref, residence_model=res_mod,
-        transitions_reference=trans_ref, transitions_model=trans_mod,
-        sample_reference=sample(stacked), sample_model=sample(pooled),
-        blowup_times=np.asarray(blowup_times, float))
+        variables=np.array(variables),
+        hist_edges=edges,
+        hist_reference=hist(stacked),
+        hist_reference_pieces=np.stack([hist(p) for p in ref_pieces]),
+        hist_model=hist(pooled),
+        acf_lags=np.arange(max_lag + 1) * dt,
+        acf_reference=acf_ref,
+        acf_reference_pieces=acf_pieces,
+        acf_model=acf_mod,
+        psd_freq=freq,
+        psd_reference=psd_ref,
+        psd_reference_pieces=psd_pieces,
+        psd_model=psd_mod,
+        regime_names=names,
+        occupancy_reference=occ_ref,
+        occupancy_reference_pieces=occ_pieces,
+        occupancy_model=occ_mod,
+        residence_reference=res_ref,
+        residence_model=res_mod,
+        transitions_reference=trans_ref,
+        transitions_model=trans_mod,
+        sample_reference=sample(stacked),
+        sample_model=sample(pooled),
+        blowup_times=np.asarray(blowup_times, float),
+    )
 
 
-def validate(surrogate, reference, spec: CheckSpec | None = None, *,
-             initial_states=None, dt: float | None = None, progress=False) -> Scorecard:
+def validate(
+    surrogate,
+    reference,
+    spec: CheckSpec | None = None,
+    *,
+    initial_states=None,
+    dt: float | None = None,
+    progress=False,
+) -> Scorecard:
     """Like :func:`check`, returning only the scorecard."""
-    return check(surrogate, reference, spec, initial_states=initial_states, dt=dt,
-                 progress=progress).scorecard
+    return check(
+        surrogate, reference, spec, initial_states=initial_states, dt=dt, progress=progress
+    ).scorecard

@@ -58,8 +58,11 @@ def _time_text(i: int, dt: float) -> str:
 
 
 def _check_label(label: str, series: Series) -> str:
-    if label != label.strip() or any(c in label for c in ',"') or not label.isprintable() or (
-        not label
+    if (
+        label != label.strip()
+        or any(c in label for c in ',"')
+        or not label.isprintable()
+        or (not label)
     ):
         raise DataError(
             f"{series.source or 'series'}: run label {label!r} cannot be written to CSV "
@@ -284,8 +287,13 @@ def write_dataset(
     stems = _file_stems(series)
     # Relabel so that the labels the reader produces (file stems) are the ones recorded.
     labelled = Series.from_arrays(
-        list(series.runs), series.names, series.dt, units=units, run_labels=stems,
-        source=series.source, time_unit=series.time_unit,
+        list(series.runs),
+        series.names,
+        series.dt,
+        units=units,
+        run_labels=stems,
+        source=series.source,
+        time_unit=series.time_unit,
     )
     held: list[str] = []
     if holdout is not None:

@@ -69,8 +69,11 @@ def build_parser() -> argparse.ArgumentParser:
         ),
     )
     parser.add_argument("--version", action="version", version=f"ergodex {__version__}")
-    parser.add_argument("--debug", action="store_true",
-                        help="show the full traceback of an unexpected error (also ERGODEX_DEBUG=1)")
+    parser.add_argument(
+        "--debug",
+        action="store_true",
+        help="show the full traceback of an unexpected error (also ERGODEX_DEBUG=1)",
+    )
     subparsers = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     for name in COMMAND_MODULES:
         importlib.import_module(f"ergodex.cli.{name}").add_parser(subparsers)
@@ -91,7 +94,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         format="%(asctime)s %(levelname)s %(name)s: %(message)s",
     )
     debug = bool(getattr(args, "debug", False)) or os.environ.get("ERGODEX_DEBUG", "") not in (
-        "", "0")
+        "",
+        "0",
+    )
     try:
         return int(args.func(args))
     except ErgodexError as exc:
@@ -107,8 +112,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     except MemoryError:
         if debug:
             raise
-        print("ergodex: error: out of memory; use fewer members or outputs, or smaller inputs",
-              file=sys.stderr)
+        print(
+            "ergodex: error: out of memory; use fewer members or outputs, or smaller inputs",
+            file=sys.stderr,
+        )
         return EXIT_BAD_INPUT
     except OSError as exc:
         if debug:
@@ -119,9 +126,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     except Exception as exc:  # the last line of defence of the command line
         if debug:
             raise
-        print(f"ergodex: internal error: {type(exc).__name__}: {_one_line(exc)[:300]} "
-              "(a bug in ergodex; rerun with --debug or ERGODEX_DEBUG=1 for the traceback)",
-              file=sys.stderr)
+        print(
+            f"ergodex: internal error: {type(exc).__name__}: {_one_line(exc)[:300]} "
+            "(a bug in ergodex; rerun with --debug or ERGODEX_DEBUG=1 for the traceback)",
+            file=sys.stderr,
+        )
         return EXIT_BAD_INPUT
 
 

@@ -72,8 +72,9 @@ def _tolerances(text: str) -> dict[str, float]:
     return out
 
 
-def add_check_options(parser: argparse.ArgumentParser, *, seed: bool = True,
-                      title: str = "check settings") -> None:
+def add_check_options(
+    parser: argparse.ArgumentParser, *, seed: bool = True, title: str = "check settings"
+) -> None:
     """Add one option per check setting plus ``--check-config FILE``; all default to unset.
 
     ``seed=False`` leaves ``--seed`` to the command (``retrain`` seeds the whole decision).
@@ -87,41 +88,110 @@ def add_check_options(parser: argparse.ArgumentParser, *, seed: bool = True,
     group = parser.add_argument_group(
         title, "unset options keep the --check-config file's value, else the default"
     )
-    group.add_argument("--check-config", metavar="FILE", default=None,
-                       help="check settings (TOML, keys as the options below with '_' for '-')")
-    group.add_argument("--members", type=int, default=None, metavar="N",
-                       help="ensemble members (default 16)")
-    group.add_argument("--length", type=float, default=None, metavar="T",
-                       help="time per member after spin-up (default: the pooled reference pieces)")
-    group.add_argument("--spinup", type=float, default=None, metavar="T",
-                       help="spin-up time discarded (default: 5 decorrelation times)")
+    group.add_argument(
+        "--check-config",
+        metavar="FILE",
+        default=None,
+        help="check settings (TOML, keys as the options below with '_' for '-')",
+    )
+    group.add_argument(
+        "--members", type=int, default=None, metavar="N", help="ensemble members (default 16)"
+    )
+    group.add_argument(
+        "--length",
+        type=float,
+        default=None,
+        metavar="T",
+        help="time per member after spin-up (default: the pooled reference pieces)",
+    )
+    group.add_argument(
+        "--spinup",
+        type=float,
+        default=None,
+        metavar="T",
+        help="spin-up time discarded (default: 5 decorrelation times)",
+    )
     if seed:
-        group.add_argument("--seed", type=int, default=None, metavar="S",
-                           help="seed of start states and noise (default 0)")
-    group.add_argument("--bins", type=_bins, default=None, metavar="N|fd",
-                       help="histogram bins (default 35)")
-    group.add_argument("--max-lag", type=float, default=None, metavar="T",
-                       help="longest autocorrelation lag (default: 3 decorrelation times)")
-    group.add_argument("--regimes", metavar="FILE", default=None,
-                       help="regime definitions (TOML) for occupancy/residence/transition rows")
-    group.add_argument("--tolerance", type=float, default=None, metavar="X",
-                       help=f"largest allowed row ratio (default {DEFAULT_TOLERANCE}, calibrated)")
-    group.add_argument("--tolerances", type=_tolerances, default=None,
-                       metavar="STAT=X[,STAT=X]", help="per-statistic tolerances")
-    group.add_argument("--statistics", type=_names, default=None, metavar="A,B,...",
-                       help=f"rows to compute, from {', '.join(ALL_STATISTICS)} "
-                            f"(default {','.join(DEFAULT_STATISTICS)})")
-    group.add_argument("--min-pieces", type=int, default=None, metavar="N",
-                       help="fewest reference pieces for a noise floor (default 8)")
-    group.add_argument("--gap", type=float, default=None, metavar="T",
-                       help="time left out between blocks of one run (default: 5 decorrelation "
-                            "times)")
-    group.add_argument("--nperseg", type=int, default=None, metavar="N",
-                       help="Welch segment length in samples (default: min(256, piece/8))")
-    group.add_argument("--max-blowup-fraction", type=float, default=None, metavar="F",
-                       help="share of members allowed to blow up (default 0)")
-    group.add_argument("--pool", type=int, default=None, metavar="N",
-                       help="reference pieces pooled into one compared sample (default: half)")
+        group.add_argument(
+            "--seed",
+            type=int,
+            default=None,
+            metavar="S",
+            help="seed of start states and noise (default 0)",
+        )
+    group.add_argument(
+        "--bins", type=_bins, default=None, metavar="N|fd", help="histogram bins (default 35)"
+    )
+    group.add_argument(
+        "--max-lag",
+        type=float,
+        default=None,
+        metavar="T",
+        help="longest autocorrelation lag (default: 3 decorrelation times)",
+    )
+    group.add_argument(
+        "--regimes",
+        metavar="FILE",
+        default=None,
+        help="regime definitions (TOML) for occupancy/residence/transition rows",
+    )
+    group.add_argument(
+        "--tolerance",
+        type=float,
+        default=None,
+        metavar="X",
+        help=f"largest allowed row ratio (default {DEFAULT_TOLERANCE}, calibrated)",
+    )
+    group.add_argument(
+        "--tolerances",
+        type=_tolerances,
+        default=None,
+        metavar="STAT=X[,STAT=X]",
+        help="per-statistic tolerances",
+    )
+    group.add_argument(
+        "--statistics",
+        type=_names,
+        default=None,
+        metavar="A,B,...",
+        help=f"rows to compute, from {', '.join(ALL_STATISTICS)} "
+        f"(default {','.join(DEFAULT_STATISTICS)})",
+    )
+    group.add_argument(
+        "--min-pieces",
+        type=int,
+        default=None,
+        metavar="N",
+        help="fewest reference pieces for a noise floor (default 8)",
+    )
+    group.add_argument(
+        "--gap",
+        type=float,
+        default=None,
+        metavar="T",
+        help="time left out between blocks of one run (default: 5 decorrelation times)",
+    )
+    group.add_argument(
+        "--nperseg",
+        type=int,
+        default=None,
+        metavar="N",
+        help="Welch segment length in samples (default: min(256, piece/8))",
+    )
+    group.add_argument(
+        "--max-blowup-fraction",
+        type=float,
+        default=None,
+        metavar="F",
+        help="share of members allowed to blow up (default 0)",
+    )
+    group.add_argument(
+        "--pool",
+        type=int,
+        default=None,
+        metavar="N",
+        help="reference pieces pooled into one compared sample (default: half)",
+    )
 
 
 def read_check_config(path: str | Path) -> dict[str, Any]:

@@ -122,11 +122,17 @@ HOLDOUT_HELP = (
 
 def add_data_options(parser: argparse.ArgumentParser, *, holdout: bool = True) -> None:
     """Add ``--dt``, ``--split-at-gaps`` and (with ``holdout``) ``--holdout H``."""
-    parser.add_argument("--dt", type=float, default=None,
-                        help="sampling interval when DATA has no time column or manifest")
-    parser.add_argument("--split-at-gaps", action="store_true",
-                        help="split a run at rows with missing or non-finite values instead of "
-                             "refusing the file")
+    parser.add_argument(
+        "--dt",
+        type=float,
+        default=None,
+        help="sampling interval when DATA has no time column or manifest",
+    )
+    parser.add_argument(
+        "--split-at-gaps",
+        action="store_true",
+        help="split a run at rows with missing or non-finite values instead of refusing the file",
+    )
     if holdout:
         parser.add_argument("--holdout", metavar="H", default=None, help=HOLDOUT_HELP)
 
@@ -171,8 +177,14 @@ def parse_holdout_option(text: str | None) -> int | list[str] | None:
     return count
 
 
-def read_data(path: str, *, part: str, holdout: str | None = None, dt: float | None = None,
-              split_at_gaps: bool = False) -> DataChoice:
+def read_data(
+    path: str,
+    *,
+    part: str,
+    holdout: str | None = None,
+    dt: float | None = None,
+    split_at_gaps: bool = False,
+) -> DataChoice:
     """Read DATA and keep the runs a command should use: ``part="fit"`` or ``part="check"``.
 
     The hold-out comes from ``--holdout`` (:func:`parse_holdout_option`), else from the dataset
@@ -213,11 +225,15 @@ def read_data(path: str, *, part: str, holdout: str | None = None, dt: float | N
     series = fit_part if part == "fit" else check_part
     labels = _labels(check_part)
     if part == "fit":
-        note = (f"fitting on {fit_part.n_runs} of {whole.n_runs} runs of {path}; {labels} "
-                f"{origin} for checking (--holdout none to fit on every run)")
+        note = (
+            f"fitting on {fit_part.n_runs} of {whole.n_runs} runs of {path}; {labels} "
+            f"{origin} for checking (--holdout none to fit on every run)"
+        )
     else:
-        note = (f"checking on the {check_part.n_runs} runs {origin} ({labels}) of {path}; "
-                "--holdout none to check on every run")
+        note = (
+            f"checking on the {check_part.n_runs} runs {origin} ({labels}) of {path}; "
+            "--holdout none to check on every run"
+        )
     return DataChoice(series, whole, fit_part, check_part, note)
 
 
@@ -237,16 +253,20 @@ def own_data_warning(surrogate: Any, choice: DataChoice) -> str | None:
         return None
     checked = choice.series.fingerprint()
     if fitted_on == checked:
-        return ("the check data are exactly the data the model was fitted on; a check on training "
-                "data says little about new data: hold runs out at fit time and check on those "
-                "(--holdout), or check on other data")
+        return (
+            "the check data are exactly the data the model was fitted on; a check on training "
+            "data says little about new data: hold runs out at fit time and check on those "
+            "(--holdout), or check on other data"
+        )
     parts = [choice.whole] + [s for s in (choice.fit, choice.check) if s is not None]
     for part in parts:
         if part is choice.series or part.fingerprint() != fitted_on:
             continue
         if part is choice.whole or choice.series is choice.whole:
-            return ("the model was fitted on runs that this check uses (its data fingerprint "
-                    "matches part of these data); check on runs it was not fitted on (--holdout)")
+            return (
+                "the model was fitted on runs that this check uses (its data fingerprint "
+                "matches part of these data); check on runs it was not fitted on (--holdout)"
+            )
     return None
 
 
@@ -254,13 +274,20 @@ def add_limit_options(parser: argparse.ArgumentParser, *, time_limit: float | No
     """Add ``--time-limit SECONDS`` (default ``time_limit``; none when None) and ``--max-memory``."""
     default = "none" if time_limit is None else f"{time_limit:g} s"
     parser.add_argument(
-        "--time-limit", type=float, default=time_limit, metavar="SECONDS",
+        "--time-limit",
+        type=float,
+        default=time_limit,
+        metavar="SECONDS",
         help=f"wall-clock budget of the integration (default: {default}); a surrogate that needs "
-             "longer fails (exit 1) instead of running for hours")
+        "longer fails (exit 1) instead of running for hours",
+    )
     parser.add_argument(
-        "--max-memory", default=None, metavar="SIZE",
+        "--max-memory",
+        default=None,
+        metavar="SIZE",
         help="refuse (exit 2) a run whose estimated memory exceeds SIZE, e.g. 512M or 4G "
-             "(default: $ERGODEX_MAX_MEMORY, else half the memory available)")
+        "(default: $ERGODEX_MAX_MEMORY, else half the memory available)",
+    )
 
 
 def check_limit_options(args: argparse.Namespace) -> None:

@@ -27,7 +27,12 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
         "basin: monthly sea-surface temperature of an ocean basin (CF NetCDF, land mask), "
         "reduced to EOF modes and checked on the grid",
     )
-    parser.add_argument("--seed", type=int, default=None, help="seed of data and check (default: the committed sample datasets' seed, 2026)")
+    parser.add_argument(
+        "--seed",
+        type=int,
+        default=None,
+        help="seed of data and check (default: the committed sample datasets' seed, 2026)",
+    )
     parser.add_argument(
         "--data-root",
         default="datasets",

@@ -24,56 +24,115 @@ def format_dt(dt: float, unit: str | None) -> str:
 
     return series_format_dt(dt, unit)
 
-__all__ = ["add_check_options", "add_fit_options", "check_field_arg", "field_output_map",
-           "read_check_input", "read_fit_input", "time_unit_note", "write_simulated_field"]
+
+__all__ = [
+    "add_check_options",
+    "add_fit_options",
+    "check_field_arg",
+    "field_output_map",
+    "read_check_input",
+    "read_fit_input",
+    "time_unit_note",
+    "write_simulated_field",
+]
 
 
 def _common(group) -> None:
-    group.add_argument("--variable", metavar="NAME", default=None,
-                       help="read DATA as a gridded CF field: this variable on (time, [member], "
-                            "[level], lat, lon); DATA may be a quoted glob of files along time")
-    group.add_argument("--box", metavar="LAT0,LAT1,LON0,LON1", default=None,
-                       help="keep this latitude-longitude box (degrees; LON0 > LON1 crosses the "
-                            "date line; write --box=-20,20,... when LAT0 is negative)")
-    group.add_argument("--level", type=float, default=None, metavar="VALUE",
-                       help="select this value of a level (or other extra) coordinate")
-    group.add_argument("--chunks", type=int, default=None, metavar="N",
-                       help="read lazily through dask, N time samples per chunk (files larger "
-                            "than memory)")
+    group.add_argument(
+        "--variable",
+        metavar="NAME",
+        default=None,
+        help="read DATA as a gridded CF field: this variable on (time, [member], "
+        "[level], lat, lon); DATA may be a quoted glob of files along time",
+    )
+    group.add_argument(
+        "--box",
+        metavar="LAT0,LAT1,LON0,LON1",
+        default=None,
+        help="keep this latitude-longitude box (degrees; LON0 > LON1 crosses the "
+        "date line; write --box=-20,20,... when LAT0 is negative)",
+    )
+    group.add_argument(
+        "--level",
+        type=float,
+        default=None,
+        metavar="VALUE",
+        help="select this value of a level (or other extra) coordinate",
+    )
+    group.add_argument(
+        "--chunks",
+        type=int,
+        default=None,
+        metavar="N",
+        help="read lazily through dask, N time samples per chunk (files larger than memory)",
+    )
 
 
 def add_fit_options(parser: argparse.ArgumentParser) -> None:
     """Field and delay options of ``ergodex fit``."""
     group = parser.add_argument_group("gridded fields (NetCDF) and delay embeddings")
     _common(group)
-    group.add_argument("--modes", type=int, default=None, metavar="K",
-                       help="--variable: keep K EOF modes")
-    group.add_argument("--variance", type=float, default=None, metavar="F",
-                       help="--variable: keep the fewest modes reaching this variance share "
-                            "(default 0.9)")
-    group.add_argument("--north", action="store_true",
-                       help="--variable: keep the modes North et al. (1982) find separated")
-    group.add_argument("--max-modes", type=int, default=None, metavar="K",
-                       help="--variable: at most K modes under --variance or --north")
-    group.add_argument("--climatology", choices=("auto", "month", "day", "none"), default="auto",
-                       help="--variable: seasonal cycle removed before the EOFs, fitted on the "
-                            "fit data (default auto: none for yearly samples, calendar months for "
-                            "monthly ones, a smooth daily cycle for finer ones)")
-    group.add_argument("--detrend", action="store_true",
-                       help="--variable: remove a linear trend per grid point")
-    group.add_argument("--delays", type=int, default=None, metavar="M",
-                       help="embed each variable in M delay coordinates (single-index records)")
-    group.add_argument("--delay-step", type=int, default=1, metavar="L",
-                       help="--delays: samples between delayed copies (default 1)")
+    group.add_argument(
+        "--modes", type=int, default=None, metavar="K", help="--variable: keep K EOF modes"
+    )
+    group.add_argument(
+        "--variance",
+        type=float,
+        default=None,
+        metavar="F",
+        help="--variable: keep the fewest modes reaching this variance share (default 0.9)",
+    )
+    group.add_argument(
+        "--north",
+        action="store_true",
+        help="--variable: keep the modes North et al. (1982) find separated",
+    )
+    group.add_argument(
+        "--max-modes",
+        type=int,
+        default=None,
+        metavar="K",
+        help="--variable: at most K modes under --variance or --north",
+    )
+    group.add_argument(
+        "--climatology",
+        choices=("auto", "month", "day", "none"),
+        default="auto",
+        help="--variable: seasonal cycle removed before the EOFs, fitted on the "
+        "fit data (default auto: none for yearly samples, calendar months for "
+        "monthly ones, a smooth daily cycle for finer ones)",
+    )
+    group.add_argument(
+        "--detrend", action="store_true", help="--variable: remove a linear trend per grid point"
+    )
+    group.add_argument(
+        "--delays",
+        type=int,
+        default=None,
+        metavar="M",
+        help="embed each variable in M delay coordinates (single-index records)",
+    )
+    group.add_argument(
+        "--delay-step",
+        type=int,
+        default=1,
+        metavar="L",
+        help="--delays: samples between delayed copies (default 1)",
+    )
 
 
 def add_check_options(parser: argparse.ArgumentParser) -> None:
     """Field options of ``ergodex validate`` (the reduction itself comes from the model)."""
     group = parser.add_argument_group("gridded fields (NetCDF)")
     _common(group)
-    group.add_argument("--region", metavar="LAT0,LAT1,LON0,LON1", action="append", default=[],
-                       help="--variable: also compare the mean over this box (repeatable; "
-                            "write --region=-20,... when LAT0 is negative)")
+    group.add_argument(
+        "--region",
+        metavar="LAT0,LAT1,LON0,LON1",
+        action="append",
+        default=[],
+        help="--variable: also compare the mean over this box (repeatable; "
+        "write --region=-20,... when LAT0 is negative)",
+    )
 
 
 def _paths(data: str) -> list[str]:
@@ -92,8 +151,9 @@ def read_field_arg(args: argparse.Namespace):
     if args.chunks is not None and args.chunks < 1:
         raise SettingsError(f"--chunks must be at least 1; got {args.chunks}")
     box = parse_box(args.box) if args.box else None
-    return read_field(_paths(args.data), args.variable, box=box, level=args.level,
-                      chunks=args.chunks)
+    return read_field(
+        _paths(args.data), args.variable, box=box, level=args.level, chunks=args.chunks
+    )
 
 
 def read_fit_input(args: argparse.Namespace, read_series: Callable) -> tuple[Any, Callable, str]:
@@ -108,46 +168,69 @@ def read_fit_input(args: argparse.Namespace, read_series: Callable) -> tuple[Any
         used += [o for o in ("north", "detrend") if getattr(args, o)]
         used += ["climatology"] if args.climatology != "auto" else []
         if used:
-            raise SettingsError(f"--{used[0].replace('_', '-')} needs --variable NAME "
-                                f"(a gridded NetCDF field)")
+            raise SettingsError(
+                f"--{used[0].replace('_', '-')} needs --variable NAME (a gridded NetCDF field)"
+            )
         series = read_series(args.data, dt=args.dt)
         if args.delays is None:
             return series, (lambda s: s), f"dt {format_dt(series.dt, series.time_unit)}"
         from ergodex.fields.modelling import attach_transform, delay_series
 
         if args.delays < 2 or args.delay_step < 1:
-            raise SettingsError(f"--delays must be at least 2 and --delay-step at least 1; got "
-                                f"{args.delays} and {args.delay_step}")
+            raise SettingsError(
+                f"--delays must be at least 2 and --delay-step at least 1; got "
+                f"{args.delays} and {args.delay_step}"
+            )
         transform, embedded = delay_series(series, args.delays, args.delay_step)
-        note = (f"dt {format_dt(series.dt, series.time_unit)}; {args.delays} delay coordinates "
-                f"{args.delay_step} sample(s) apart")
+        note = (
+            f"dt {format_dt(series.dt, series.time_unit)}; {args.delays} delay coordinates "
+            f"{args.delay_step} sample(s) apart"
+        )
         return embedded, (lambda s: attach_transform(s, transform)), note
     if getattr(args, "reference", None):
-        raise SettingsError("--reference is not supported with --variable; check the chosen "
-                            "model with ergodex validate MODEL DATA --variable NAME")
+        raise SettingsError(
+            "--reference is not supported with --variable; check the chosen "
+            "model with ergodex validate MODEL DATA --variable NAME"
+        )
     if args.delays is not None:
         raise SettingsError("--delays applies to single-index records, not with --variable")
     from ergodex.fields import FieldModes, modes_series
     from ergodex.fields.modelling import attach_transform
 
     field = read_field_arg(args)
-    transform = FieldModes(args.modes, variance=args.variance, north=args.north,
-                           climatology=None if args.climatology == "none" else args.climatology,
-                           detrend=args.detrend, max_modes=args.max_modes).fit(field)
+    transform = FieldModes(
+        args.modes,
+        variance=args.variance,
+        north=args.north,
+        climatology=None if args.climatology == "none" else args.climatology,
+        detrend=args.detrend,
+        max_modes=args.max_modes,
+    ).fit(field)
     series = modes_series(transform, field)
     info = transform.summary()
-    note = (f"{field.variable} on {field.mask.shape[0]}x{field.mask.shape[1]} grid "
-            f"({info['valid_points']} valid points), dt {transform.dt_text} "
-            f"({field.clock.calendar} calendar); {transform.n_modes_} modes capture "
-            f"{100 * info['variance_captured']:.1f} % of the area-weighted variance")
+    note = (
+        f"{field.variable} on {field.mask.shape[0]}x{field.mask.shape[1]} grid "
+        f"({info['valid_points']} valid points), dt {transform.dt_text} "
+        f"({field.clock.calendar} calendar); {transform.n_modes_} modes capture "
+        f"{100 * info['variance_captured']:.1f} % of the area-weighted variance"
+    )
 
     def finish(surrogate):
-        return attach_transform(surrogate, transform, field={
-            "source": field.source, "variable": field.variable,
-            "box": None if args.box is None else args.box, "level": args.level,
-            "time_unit": field.clock.unit, "dt": field.clock.step,
-            "calendar": field.clock.calendar, "n_modes": transform.n_modes_,
-            "variance_captured": info["variance_captured"]})
+        return attach_transform(
+            surrogate,
+            transform,
+            field={
+                "source": field.source,
+                "variable": field.variable,
+                "box": None if args.box is None else args.box,
+                "level": args.level,
+                "time_unit": field.clock.unit,
+                "dt": field.clock.step,
+                "calendar": field.clock.calendar,
+                "n_modes": transform.n_modes_,
+                "variance_captured": info["variance_captured"],
+            },
+        )
 
     return series, finish, note
 
@@ -159,9 +242,11 @@ def read_check_input(args: argparse.Namespace, surrogate, read_series: Callable)
     transform = field_transform_of(surrogate)
     if args.variable is None:
         if transform is not None:
-            raise SettingsError(f"the model reduces the gridded variable "
-                                f"{transform.variable_!r}; pass --variable "
-                                f"{transform.variable_} (and the same --box)")
+            raise SettingsError(
+                f"the model reduces the gridded variable "
+                f"{transform.variable_!r}; pass --variable "
+                f"{transform.variable_} (and the same --box)"
+            )
         if args.region:
             raise SettingsError("--region needs --variable NAME (a gridded NetCDF field)")
         return read_series(args.data, dt=args.dt), None
@@ -180,9 +265,14 @@ def check_field_arg(args: argparse.Namespace, surrogate, field, spec):
     from ergodex.fields.checking import check_field
 
     regions = [parse_box(text) for text in args.region]
-    return check_field(surrogate, field, spec, regions=regions,
-                       time_limit=getattr(args, "time_limit", None),
-                       max_memory=getattr(args, "max_memory", None))
+    return check_field(
+        surrogate,
+        field,
+        spec,
+        regions=regions,
+        time_limit=getattr(args, "time_limit", None),
+        max_memory=getattr(args, "max_memory", None),
+    )
 
 
 def field_output_map(surrogate, dt: float):
@@ -199,8 +289,10 @@ def field_output_map(surrogate, dt: float):
     if transform is None:
         return None
     if abs(dt - transform.clock_.step) > 1e-9 * transform.clock_.step:
-        raise SettingsError(f"--dt {dt:g}: a field model writes its grid at its own step, "
-                            f"{transform.dt_text}; leave --dt out")
+        raise SettingsError(
+            f"--dt {dt:g}: a field model writes its grid at its own step, "
+            f"{transform.dt_text}; leave --dt out"
+        )
     return lambda z: transform.inverse_at(z, transform.record_end_ + np.arange(len(z)))
 
 
@@ -218,16 +310,28 @@ def write_simulated_field(path, surrogate, series, args: argparse.Namespace):
     model_name = str(getattr(args, "model", ""))
     version = _registered_version(model_name, getattr(args, "home", None))
     return write_field(
-        path, values, variable=t.variable_, lat=t.lat_, lon=t.lon_, mask=t.mask_,
-        clock=t.clock_, steps=t.record_end_ + np.arange(n),
-        time_units=t.dims_.get("time_units") or t.clock_.epoch, units=t.units_,
-        attrs=t.attrs_, member_dim="member", dims=t.dims_,
-        global_attrs={"title": f"ergodex simulation of {t.variable_}",
-                      "ergodex_model": str(model_name),
-                      "ergodex_model_fingerprint": surrogate.fingerprint(),
-                      "ergodex_model_version": version,
-                      "ergodex_version": __version__,
-                      "ergodex_members": ", ".join(series.run_labels or ())})
+        path,
+        values,
+        variable=t.variable_,
+        lat=t.lat_,
+        lon=t.lon_,
+        mask=t.mask_,
+        clock=t.clock_,
+        steps=t.record_end_ + np.arange(n),
+        time_units=t.dims_.get("time_units") or t.clock_.epoch,
+        units=t.units_,
+        attrs=t.attrs_,
+        member_dim="member",
+        dims=t.dims_,
+        global_attrs={
+            "title": f"ergodex simulation of {t.variable_}",
+            "ergodex_model": str(model_name),
+            "ergodex_model_fingerprint": surrogate.fingerprint(),
+            "ergodex_model_version": version,
+            "ergodex_version": __version__,
+            "ergodex_members": ", ".join(series.run_labels or ()),
+        },
+    )
 
 
 def time_unit_note(surrogate) -> str | None:
@@ -246,8 +350,10 @@ def time_unit_note(surrogate) -> str | None:
         unit, dt, calendar = provenance.get("time_unit"), provenance.get("dt"), ""
         if not isinstance(unit, str) or not unit or not isinstance(dt, (int, float)):
             return None
-    return (f"time unit: {unit} (dt = {format_dt(float(dt), unit)}{calendar}); "
-            f"times and rates are in {unit}")
+    return (
+        f"time unit: {unit} (dt = {format_dt(float(dt), unit)}{calendar}); "
+        f"times and rates are in {unit}"
+    )
 
 
 def _registered_version(ref: str, home) -> str | None:

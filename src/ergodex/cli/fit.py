@@ -26,24 +26,28 @@ EXIT_DEGENERATE = 1
 #: What to try when a fit comes out degenerate, per method.
 _DEGENERATE_HINTS = {
     "sparse": "lower the sparsity threshold (settings: threshold = ...), or check that the data "
-              "vary on the time unit given (--dt)",
+    "vary on the time unit given (--dt)",
     "quadratic-noise": "lower the sparsity threshold (settings: threshold = ...), or check that "
-                       "the data vary on the time unit given (--dt)",
+    "the data vary on the time unit given (--dt)",
     "linear-inverse": "choose tau0 (settings: tau0 = ...) as a lag at which the data are still "
-                      "correlated, in the data's time unit",
+    "correlated, in the data's time unit",
 }
 
 METHODS = tuple(FIT_METHODS)  # the fitter table's names, without importing any fitter
 
 #: What the fit's ``score`` means, printed beside it.
-SCORE_LEGEND = ("score: the fit's R², the share of the variance of the fitted tendencies "
-                "(for linear-inverse: of the state one lag later) that the model explains; 1 is "
-                "perfect; it is not the statistical check")
+SCORE_LEGEND = (
+    "score: the fit's R², the share of the variance of the fitted tendencies "
+    "(for linear-inverse: of the state one lag later) that the model explains; 1 is "
+    "perfect; it is not the statistical check"
+)
 #: What the selection table's columns mean, printed under it.
-SELECT_LEGEND = ("stat.score: largest ratio of the candidate's distance from the reference "
-                 "statistics to their noise floor (lower is better; the verdict compares it with "
-                 "the tolerance); tend.err: RMS error of the model's tendencies over their RMS "
-                 "(lower is better); * marks the chosen candidate")
+SELECT_LEGEND = (
+    "stat.score: largest ratio of the candidate's distance from the reference "
+    "statistics to their noise floor (lower is better; the verdict compares it with "
+    "the tolerance); tend.err: RMS error of the model's tendencies over their RMS "
+    "(lower is better); * marks the chosen candidate"
+)
 
 
 def add_parser(subparsers: Any) -> argparse.ArgumentParser:
@@ -59,25 +63,56 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
             "practice."
         ),
     )
-    parser.add_argument("data", metavar="DATA", help="data to fit: .csv, .npz, .nc, or a folder with dataset.toml")
-    parser.add_argument("--method", choices=METHODS, default=None,
-                        help="fit method (default: the config file's, else sparse)")
-    parser.add_argument("--config", metavar="FILE", default=None,
-                        help="fit settings (TOML): method = \"...\", a [settings] table, optional [select] table")
-    parser.add_argument("--out", metavar="MODEL.json", required=True, help="where to write the model")
+    parser.add_argument(
+        "data", metavar="DATA", help="data to fit: .csv, .npz, .nc, or a folder with dataset.toml"
+    )
+    parser.add_argument(
+        "--method",
+        choices=METHODS,
+        default=None,
+        help="fit method (default: the config file's, else sparse)",
+    )
+    parser.add_argument(
+        "--config",
+        metavar="FILE",
+        default=None,
+        help='fit settings (TOML): method = "...", a [settings] table, optional [select] table',
+    )
+    parser.add_argument(
+        "--out", metavar="MODEL.json", required=True, help="where to write the model"
+    )
     add_data_options(parser)
-    parser.add_argument("--select", action="store_true",
-                        help="sweep candidates (the config's [select] table, else a threshold sweep) "
-                             "and keep the sparsest whose statistics pass")
-    parser.add_argument("--reference", metavar="DATA", default=None,
-                        help="--select: data to check candidates against (default: DATA's "
-                             "held-out runs, else DATA itself)")
-    parser.add_argument("--scheduler", metavar="ADDRESS", default=None,
-                        help="--select: run candidates on a Dask cluster (e.g. tcp://127.0.0.1:8786)")
-    parser.add_argument("--n-jobs", type=int, default=None,
-                        help="--select: local worker processes (default 1: in this process; -1: every CPU)")
-    parser.add_argument("--json", metavar="OUT", default=None,
-                        help="write a JSON summary (fit diagnostics, or the selection front) here")
+    parser.add_argument(
+        "--select",
+        action="store_true",
+        help="sweep candidates (the config's [select] table, else a threshold sweep) "
+        "and keep the sparsest whose statistics pass",
+    )
+    parser.add_argument(
+        "--reference",
+        metavar="DATA",
+        default=None,
+        help="--select: data to check candidates against (default: DATA's "
+        "held-out runs, else DATA itself)",
+    )
+    parser.add_argument(
+        "--scheduler",
+        metavar="ADDRESS",
+        default=None,
+        help="--select: run candidates on a Dask cluster (e.g. tcp://127.0.0.1:8786)",
+    )
+    parser.add_argument(
+        "--n-jobs",
+        type=int,
+        default=None,
+        help="--select: local worker processes (default 1: in this process; -1: every CPU)",
+    )
+    parser.add_argument(
+        "--json",
+        metavar="OUT",
+        default=None,
+        help="write a JSON summary (fit diagnostics, or the selection front) here",
+    )
     parser.add_argument("--quiet", action="store_true", help="print nothing on success")
     add_check_options(parser, title="check settings (--select)")
     from ergodex.cli.fields import add_fit_options
@@ -132,8 +167,9 @@ def run(args: argparse.Namespace) -> int:
     holder: dict[str, Any] = {}
 
     def read_fit_part(path: str, dt: float | None = None):
-        holder["choice"] = read_data(path, part="fit", holdout=args.holdout, dt=dt,
-                                     split_at_gaps=args.split_at_gaps)
+        holder["choice"] = read_data(
+            path, part="fit", holdout=args.holdout, dt=dt, split_at_gaps=args.split_at_gaps
+        )
         if not args.quiet:
             print(f"ergodex fit: {holder['choice'].note}", file=sys.stderr)
         return holder["choice"].series
@@ -146,9 +182,11 @@ def run(args: argparse.Namespace) -> int:
         surrogate = finish(fitter.surrogate_)
         problem = degenerate_reason(surrogate)
         if problem is not None:
-            print(f"ergodex fit: model failed: the fitted {method} model {problem}; nothing "
-                  f"written. Try: {_DEGENERATE_HINTS.get(method, 'other fit settings')}",
-                  file=sys.stderr)
+            print(
+                f"ergodex fit: model failed: the fitted {method} model {problem}; nothing "
+                f"written. Try: {_DEGENERATE_HINTS.get(method, 'other fit settings')}",
+                file=sys.stderr,
+            )
             return EXIT_DEGENERATE
         summary = {
             "method": method,
@@ -161,8 +199,10 @@ def run(args: argparse.Namespace) -> int:
         }
         _write(args, surrogate, summary)
         if not args.quiet:
-            print(f"fitted {method} model to {args.data} ({series.n_runs} runs, {series.n_samples} samples): "
-                  f"{fitter.n_terms_} terms, score {fitter.score_:.4g}")
+            print(
+                f"fitted {method} model to {args.data} ({series.n_runs} runs, {series.n_samples} samples): "
+                f"{fitter.n_terms_} terms, score {fitter.score_:.4g}"
+            )
             print(f"  ({SCORE_LEGEND})")
             print(f"  data: {data_note}")
             for line in surrogate.equations():
@@ -175,18 +215,30 @@ def run(args: argparse.Namespace) -> int:
 
     from ergodex.fitting.selection import parse_selection, select
 
-    candidates = parse_selection(document, method=method, settings=settings, source=args.config or "defaults")
+    candidates = parse_selection(
+        document, method=method, settings=settings, source=args.config or "defaults"
+    )
     if args.reference:
         reference = read_series(args.reference, dt=args.dt, split_at_gaps=args.split_at_gaps)
     else:
         # the held-out runs, when DATA holds some out (a gridded field holds none out)
         reference = choice.held_out if choice is not None else None
     if reference is None or reference.fingerprint() == series.fingerprint():
-        print("ergodex fit: warning: --select checks the candidates on the data they are fitted "
-              "on, which says little about new data; hold runs out (--holdout, or a dataset.toml "
-              "'holdout' list) or give --reference", file=sys.stderr)
-    result = select(series, candidates, spec, reference=reference, scheduler=args.scheduler,
-                    n_jobs=args.n_jobs, progress=show_progress(args))
+        print(
+            "ergodex fit: warning: --select checks the candidates on the data they are fitted "
+            "on, which says little about new data; hold runs out (--holdout, or a dataset.toml "
+            "'holdout' list) or give --reference",
+            file=sys.stderr,
+        )
+    result = select(
+        series,
+        candidates,
+        spec,
+        reference=reference,
+        scheduler=args.scheduler,
+        n_jobs=args.n_jobs,
+        progress=show_progress(args),
+    )
     if not args.quiet:
         print(result.table())
         print(SELECT_LEGEND)
@@ -232,10 +284,13 @@ def tau_test_note(fitter) -> str | None:
     changes = [float(c) for c in test.get("relative_change", []) if c is not None]
     worst = max(changes) if changes else float("nan")
     problems = "; ".join(str(p) for p in test.get("problems", []) or [])
-    return (f"the tau test failed: the operator changes by up to {worst:.3g} (relative) across "
-            f"lags {', '.join(f'{lag:g}' for lag in test.get('lags', []))}, above the tolerance "
-            f"{test.get('tolerance', float('nan')):g}" + (f" ({problems})" if problems else "")
-            + "; the model may not hold at other lags: try another tau0 or check its scorecard")
+    return (
+        f"the tau test failed: the operator changes by up to {worst:.3g} (relative) across "
+        f"lags {', '.join(f'{lag:g}' for lag in test.get('lags', []))}, above the tolerance "
+        f"{test.get('tolerance', float('nan')):g}"
+        + (f" ({problems})" if problems else "")
+        + "; the model may not hold at other lags: try another tau0 or check its scorecard"
+    )
 
 
 def _write(args: argparse.Namespace, surrogate, summary: dict) -> None:

@@ -65,8 +65,9 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
             "version folders' own records (with a warning), and nothing is ever deleted."
         ),
     )
-    actions = parser.add_subparsers(dest="models_command", metavar="ACTION",
-                                    parser_class=type(parser))
+    actions = parser.add_subparsers(
+        dest="models_command", metavar="ACTION", parser_class=type(parser)
+    )
     parser.set_defaults(func=_missing_action(parser))
 
     p = actions.add_parser("list", help="every model name with its version counts")
@@ -87,7 +88,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     p = actions.add_parser(
         "accept",
         help="promote a candidate (the previously accepted version is retired); needs a "
-             "passing scorecard unless --override with --reason",
+        "passing scorecard unless --override with --reason",
     )
     p.add_argument("ref", metavar="NAME@VERSION")
     p.add_argument("--reason", default="", help="why (required with --override)")
@@ -99,8 +100,10 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     _common(p)
     p.set_defaults(func=run_accept)
 
-    for action, text in (("reject", "mark a candidate rejected"),
-                         ("retire", "take an accepted version out of use")):
+    for action, text in (
+        ("reject", "mark a candidate rejected"),
+        ("retire", "take an accepted version out of use"),
+    ):
         p = actions.add_parser(action, help=text)
         p.add_argument("ref", metavar="NAME@VERSION")
         p.add_argument("--reason", required=True, help="why (recorded in the history)")
@@ -115,7 +118,9 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     _common(p, json_output=True)
     p.set_defaults(func=run_verify)
 
-    p = actions.add_parser("export", help="write a self-contained folder for someone without ergodex")
+    p = actions.add_parser(
+        "export", help="write a self-contained folder for someone without ergodex"
+    )
     p.add_argument("ref", metavar="NAME[@VERSION]")
     p.add_argument("--to", required=True, metavar="DIR", help="new (or empty) folder to write")
     _common(p)
@@ -123,14 +128,18 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
 
     p = actions.add_parser("import", help="register an exported folder as a new candidate")
     p.add_argument("folder", metavar="DIR")
-    p.add_argument("--name", default=None, help="register under this name (default: the exported one)")
+    p.add_argument(
+        "--name", default=None, help="register under this name (default: the exported one)"
+    )
     _common(p)
     p.set_defaults(func=run_import)
 
 
 def _common(parser: argparse.ArgumentParser, *, json_output: bool = False) -> None:
     if json_output:
-        parser.add_argument("--json", action="store_true", help="machine-readable output (stable keys)")
+        parser.add_argument(
+            "--json", action="store_true", help="machine-readable output (stable keys)"
+        )
     add_home_option(parser)
 
 
@@ -190,8 +199,10 @@ def run_show(args: argparse.Namespace) -> int:
             for info in infos:
                 verdict = info.verdict or "-"
                 flag = "  INTEGRITY FAILED" if info.integrity == "failed" else ""
-                print(f"{info.ref:<24} {info.status:<10} {verdict:<5} {info.created}  "
-                      f"{info.note}{flag}")
+                print(
+                    f"{info.ref:<24} {info.status:<10} {verdict:<5} {info.created}  "
+                    f"{info.note}{flag}"
+                )
         return 0
     info = registry.get(args.ref)
     if args.json:
@@ -223,9 +234,21 @@ def run_verify(args: argparse.Namespace) -> int:
     infos = registry.check_integrity(args.ref)
     ok = all(i.integrity == "ok" for i in infos)
     if args.json:
-        _print_json({"home": str(registry.home), "ok": ok, "versions": [
-            {"ref": i.ref, "status": i.status, "integrity": i.integrity,
-             "problems": i.integrity_problems} for i in infos]})
+        _print_json(
+            {
+                "home": str(registry.home),
+                "ok": ok,
+                "versions": [
+                    {
+                        "ref": i.ref,
+                        "status": i.status,
+                        "integrity": i.integrity,
+                        "problems": i.integrity_problems,
+                    }
+                    for i in infos
+                ],
+            }
+        )
         return 0 if ok else 1
     for info in infos:
         if info.integrity == "ok":
@@ -247,17 +270,30 @@ def run_history(args: argparse.Namespace) -> int:
     name, _ = parse_ref(args.ref)
     failed = [i for i in registry.check_integrity(args.ref) if i.integrity != "ok"]
     if args.json:
-        _print_json({"name": name, "events": [e.to_dict() for e in events],
-                     "integrity_failed": [i.version for i in failed]})
+        _print_json(
+            {
+                "name": name,
+                "events": [e.to_dict() for e in events],
+                "integrity_failed": [i.version for i in failed],
+            }
+        )
         return 0
     for info in failed:
-        print(f"warning: {info.ref} INTEGRITY FAILED (its files changed after registration; "
-              "its status and verdict are not to be trusted): run 'ergodex models verify'")
+        print(
+            f"warning: {info.ref} INTEGRITY FAILED (its files changed after registration; "
+            "its status and verdict are not to be trusted): run 'ergodex models verify'"
+        )
     for e in events:
-        change = f"{e.from_status or '-'} -> {e.to_status}" if e.from_status != e.to_status else e.to_status
+        change = (
+            f"{e.from_status or '-'} -> {e.to_status}"
+            if e.from_status != e.to_status
+            else e.to_status
+        )
         flag = "  OVERRIDE" if e.override else ""
         reason = f"  reason: {e.reason}" if e.reason else ""
-        print(f"{e.time}  {e.name}@{e.version}  {e.event:<16} {change:<24} by {e.actor}{flag}{reason}")
+        print(
+            f"{e.time}  {e.name}@{e.version}  {e.event:<16} {change:<24} by {e.actor}{flag}{reason}"
+        )
     return 0
 
 

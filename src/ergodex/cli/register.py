@@ -32,16 +32,23 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
         help="model name: letters, digits, '.', '_', '-' (at most 64 characters)",
     )
     parser.add_argument(
-        "--scorecard", metavar="FILE",
+        "--scorecard",
+        metavar="FILE",
         help="scorecard.json from 'ergodex validate' of this very MODEL (refused otherwise)",
     )
     parser.add_argument("--report", metavar="FILE", help="HTML report from 'ergodex validate'")
-    parser.add_argument("--evidence", metavar="FILE",
-                        help="evidence .npz saved with the check (default: the one 'ergodex "
-                             "validate --json CARD.json' wrote beside it, CARD.evidence.npz)")
-    parser.add_argument("--fit-settings", metavar="FILE",
-                        help="fit settings (.json or .toml: method and a settings table), checked "
-                             "against the fitter's settings (default: those recorded in MODEL)")
+    parser.add_argument(
+        "--evidence",
+        metavar="FILE",
+        help="evidence .npz saved with the check (default: the one 'ergodex "
+        "validate --json CARD.json' wrote beside it, CARD.evidence.npz)",
+    )
+    parser.add_argument(
+        "--fit-settings",
+        metavar="FILE",
+        help="fit settings (.json or .toml: method and a settings table), checked "
+        "against the fitter's settings (default: those recorded in MODEL)",
+    )
     parser.add_argument("--note", default=None, help="free text shown in listings")
     parser.add_argument(
         "--parent", metavar="NAME@V", default=None, help="the version this one was retrained from"
@@ -69,8 +76,10 @@ def check_fit_settings_file(path: str) -> None:
     except json.JSONDecodeError as exc:
         raise SettingsError(f"{path}: not valid JSON (line {exc.lineno}: {exc.msg})") from None
     if not isinstance(document, dict):
-        raise SettingsError(f"{path}: fit settings must be a JSON object with 'method' and "
-                            f"'settings'; got {type(document).__name__}")
+        raise SettingsError(
+            f"{path}: fit settings must be a JSON object with 'method' and "
+            f"'settings'; got {type(document).__name__}"
+        )
     parse_fit_settings(document, source=path)
 
 

@@ -57,15 +57,24 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         "--title", default=None, help="page title (default: 'NAME@VERSION: validation report')"
     )
     parser.add_argument(
-        "--data", metavar="DATA", default=None,
+        "--data",
+        metavar="DATA",
+        default=None,
         help="the data the version was checked on, to recompute figures a version stored "
-             "without evidence (recognised by the scorecard's data fingerprint)",
+        "without evidence (recognised by the scorecard's data fingerprint)",
     )
-    parser.add_argument("--holdout", metavar="H", default=None,
-                        help="--data: the held-out runs, as for 'ergodex validate'")
-    parser.add_argument("--no-figures", action="store_true",
-                        help="write the page without figures when no evidence is stored and "
-                             "no --data is given (default: refuse)")
+    parser.add_argument(
+        "--holdout",
+        metavar="H",
+        default=None,
+        help="--data: the held-out runs, as for 'ergodex validate'",
+    )
+    parser.add_argument(
+        "--no-figures",
+        action="store_true",
+        help="write the page without figures when no evidence is stored and "
+        "no --data is given (default: refuse)",
+    )
     add_home_option(parser)
     parser.set_defaults(func=run)
     return parser
@@ -91,9 +100,8 @@ def load_check_result(registry: Any, ref: str):
     Evidence is optional (older versions, or a scorecard registered on its own): without it the
     result carries ``evidence=None`` and the report shows the scorecard without figures.
     """
-    from ergodex.validation import CheckResult, Evidence, Scorecard
-
     from ergodex.cli.common import resolve_registered
+    from ergodex.validation import CheckResult, Evidence, Scorecard
 
     info, surrogate = resolve_registered(registry, ref)
     if "scorecard.json" not in info.artifacts:
@@ -117,8 +125,7 @@ def load_check_result(registry: Any, ref: str):
     return info, CheckResult(scorecard=scorecard, evidence=evidence), surrogate, fit_settings
 
 
-def recompute_evidence(surrogate: Any, scorecard: Any, data: str, holdout: str | None,
-                       ref: str):
+def recompute_evidence(surrogate: Any, scorecard: Any, data: str, holdout: str | None, ref: str):
     """Evidence of a stored check, recomputed from the data it was checked on.
 
     The runs of ``data`` whose fingerprint is the scorecard's (the held-out runs, or every run)
@@ -153,8 +160,9 @@ def run(args: argparse.Namespace) -> int:
     target = _output_path(args.out, info.name, info.version, registry.home)
     if result.evidence is None:
         if args.data is not None:
-            evidence = recompute_evidence(surrogate, result.scorecard, args.data, args.holdout,
-                                          info.ref)
+            evidence = recompute_evidence(
+                surrogate, result.scorecard, args.data, args.holdout, info.ref
+            )
             result = replace(result, evidence=evidence)
         elif not args.no_figures:
             raise RegistryError(
@@ -176,10 +184,12 @@ def run(args: argparse.Namespace) -> int:
         from ergodex.fields.maps import stored_map_sections
 
         # a field model's check stores its grid maps beside the evidence arrays
-        sections = stored_map_sections(surrogate, registry.artifact(info, "evidence.npz"),
-                                       name=f"{info.ref}: evidence.npz")
+        sections = stored_map_sections(
+            surrogate, registry.artifact(info, "evidence.npz"), name=f"{info.ref}: evidence.npz"
+        )
     target.parent.mkdir(parents=True, exist_ok=True)
-    write_report(target, result, surrogate, title=title, fit_summary=summary,
-                 extra_sections=sections)
+    write_report(
+        target, result, surrogate, title=title, fit_summary=summary, extra_sections=sections
+    )
     print(target)
     return 0

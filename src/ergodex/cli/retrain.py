@@ -36,8 +36,12 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument("name", metavar="NAME", help="registry name of the model")
     parser.add_argument("data", metavar="DATA", help="new data: CSV, NPZ, NetCDF or dataset folder")
     add_common_retrain_options(parser)
-    parser.add_argument("--dt", type=float, default=None,
-                        help="sampling interval when DATA has no time column or manifest")
+    parser.add_argument(
+        "--dt",
+        type=float,
+        default=None,
+        help="sampling interval when DATA has no time column or manifest",
+    )
     parser.add_argument(
         "--split-at-gaps",
         action="store_true",
@@ -77,8 +81,9 @@ def add_common_retrain_options(parser: argparse.ArgumentParser) -> None:
     )
     from ergodex.cli.checks import add_check_options
 
-    add_check_options(parser, seed=False,
-                      title="check settings (default: as in the champion's recorded check)")
+    add_check_options(
+        parser, seed=False, title="check settings (default: as in the champion's recorded check)"
+    )
 
 
 def parse_holdout(text: str | None):
@@ -119,8 +124,9 @@ def read_new_data(args: argparse.Namespace):
 
     holdout = parse_holdout(args.holdout)
     path = args.data
-    is_dataset = (Path(path).is_dir() and (Path(path) / "dataset.toml").exists()
-                  or path.endswith(".toml"))
+    is_dataset = (
+        Path(path).is_dir() and (Path(path) / "dataset.toml").exists() or path.endswith(".toml")
+    )
     if is_dataset and args.dt is None:
         dataset = read_dataset(path, split_at_gaps=args.split_at_gaps)
         if args.holdout is None and dataset.holdout:
@@ -146,9 +152,17 @@ def run(args: argparse.Namespace) -> int:
     registry = registry_from_args(args)
     spec = spec_from_args(args)
     data, holdout = read_new_data(args)
-    decision = retrain(registry, args.name, data, config=args.config, spec=spec,
-                       seed=args.seed, holdout=holdout, report=not args.no_report,
-                       progress=show_progress(args))
+    decision = retrain(
+        registry,
+        args.name,
+        data,
+        config=args.config,
+        spec=spec,
+        seed=args.seed,
+        holdout=holdout,
+        report=not args.no_report,
+        progress=show_progress(args),
+    )
     if args.json == "-":
         sys.stdout.write(decision.to_json())
         print(decision.summary(), file=sys.stderr)

@@ -39,47 +39,73 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     )
     parser.add_argument("--host", default="127.0.0.1", help="address to bind (default: 127.0.0.1)")
     parser.add_argument(
-        "--port", type=int, default=DEFAULT_PORT,
+        "--port",
+        type=int,
+        default=DEFAULT_PORT,
         help=f"port (default: {DEFAULT_PORT}; 0 picks a free one and prints it)",
     )
     add_home_option(parser)
     parser.add_argument(
-        "--workers", type=int, default=2, metavar="N",
+        "--workers",
+        type=int,
+        default=2,
+        metavar="N",
         help="job worker processes (default: 2)",
     )
     parser.add_argument(
-        "--token-file", metavar="FILE", default=None,
+        "--token-file",
+        metavar="FILE",
+        default=None,
         help="file whose first line is the write token (default: $ERGODEX_TOKEN; none: no writes)",
     )
     parser.add_argument(
-        "--protect-reads", action="store_true",
+        "--protect-reads",
+        action="store_true",
         help="require the token for read endpoints too (/health stays open)",
     )
     parser.add_argument(
-        "--max-upload-mb", type=float, default=32.0, metavar="MB",
+        "--max-upload-mb",
+        type=float,
+        default=32.0,
+        metavar="MB",
         help="largest dataset upload accepted, in MiB (default: 32)",
     )
     parser.add_argument(
-        "--max-dataset-mb", type=float, default=None, metavar="MB",
+        "--max-dataset-mb",
+        type=float,
+        default=None,
+        metavar="MB",
         help="largest size an NPZ upload may declare for its arrays once inflated, checked "
         "before inflating, in MiB (default: 8 × --max-upload-mb)",
     )
     parser.add_argument(
-        "--queue-per-token", type=int, default=DEFAULT_QUEUE_PER_TOKEN, metavar="N",
+        "--queue-per-token",
+        type=int,
+        default=DEFAULT_QUEUE_PER_TOKEN,
+        metavar="N",
         help="most jobs queued or running at once per token; more get 429 queue-full "
         f"(default: {DEFAULT_QUEUE_PER_TOKEN})",
     )
     parser.add_argument(
-        "--queue-limit", type=int, default=DEFAULT_QUEUE_TOTAL, metavar="N",
+        "--queue-limit",
+        type=int,
+        default=DEFAULT_QUEUE_TOTAL,
+        metavar="N",
         help=f"most jobs queued or running at once in all (default: {DEFAULT_QUEUE_TOTAL})",
     )
     parser.add_argument(
-        "--job-time-limit", type=float, default=DEFAULT_JOB_TIME_LIMIT, metavar="SECONDS",
+        "--job-time-limit",
+        type=float,
+        default=DEFAULT_JOB_TIME_LIMIT,
+        metavar="SECONDS",
         help="wall-clock time a job may run before its worker is ended and the job fails with "
         f"time-limit (default: {DEFAULT_JOB_TIME_LIMIT:g})",
     )
     parser.add_argument(
-        "--job-memory-mb", type=float, default=DEFAULT_JOB_MEMORY / 2**20, metavar="MB",
+        "--job-memory-mb",
+        type=float,
+        default=DEFAULT_JOB_MEMORY / 2**20,
+        metavar="MB",
         help="address space a job (and an upload's reader) may use, in MiB; a job over it fails "
         "with memory-limit, check options estimated over it are refused (default: "
         f"{DEFAULT_JOB_MEMORY / 2**20:g})",
@@ -116,19 +142,23 @@ def _home_folder(home: Path) -> Path:
     from ergodex.exceptions import SettingsError
 
     if home.exists() and not home.is_dir():
-        raise SettingsError(f"--home {home} is a file, not a folder; give a folder (it is "
-                            "created if missing)")
+        raise SettingsError(
+            f"--home {home} is a file, not a folder; give a folder (it is created if missing)"
+        )
     try:
         home.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
-        raise SettingsError(f"--home {home}: cannot create the folder: "
-                            f"{exc.strerror or exc}") from None
+        raise SettingsError(
+            f"--home {home}: cannot create the folder: {exc.strerror or exc}"
+        ) from None
     if not os.access(home, os.W_OK | os.X_OK):
         raise SettingsError(f"--home {home}: the folder is not writable by this user")
     service = home / SERVICE_DIR
     if service.exists() and not service.is_dir():
-        raise SettingsError(f"--home {home}: {service} is a file, but the service keeps its "
-                            "job table and uploads in a folder of that name; move the file")
+        raise SettingsError(
+            f"--home {home}: {service} is a file, but the service keeps its "
+            "job table and uploads in a folder of that name; move the file"
+        )
     return home
 
 
@@ -142,18 +172,22 @@ def run(args: argparse.Namespace) -> int:
         raise SettingsError(f"--port must be between 0 and 65535, got {args.port}")
     upload_bytes = _mebibytes("--max-upload-mb", args.max_upload_mb)
     dataset_bytes = (
-        None if args.max_dataset_mb is None
-        else _mebibytes("--max-dataset-mb", args.max_dataset_mb)
+        None if args.max_dataset_mb is None else _mebibytes("--max-dataset-mb", args.max_dataset_mb)
     )
     memory_bytes = _mebibytes("--job-memory-mb", args.job_memory_mb)
-    for option, value in (("--workers", args.workers), ("--queue-per-token",
-                          args.queue_per_token), ("--queue-limit", args.queue_limit)):
+    for option, value in (
+        ("--workers", args.workers),
+        ("--queue-per-token", args.queue_per_token),
+        ("--queue-limit", args.queue_limit),
+    ):
         if value < (0 if option == "--workers" else 1):
-            raise SettingsError(f"{option} must be {'0' if option == '--workers' else '1'} or "
-                                f"more, got {value}")
+            raise SettingsError(
+                f"{option} must be {'0' if option == '--workers' else '1'} or more, got {value}"
+            )
     if not (math.isfinite(args.job_time_limit) and args.job_time_limit > 0):
-        raise SettingsError(f"--job-time-limit must be a finite number of seconds > 0, got "
-                            f"{args.job_time_limit}")
+        raise SettingsError(
+            f"--job-time-limit must be a finite number of seconds > 0, got {args.job_time_limit}"
+        )
     settings = ServiceSettings(
         home=_home_folder(resolve_home(args.home)),
         token=read_token(args.token_file),
@@ -202,7 +236,10 @@ def run(args: argparse.Namespace) -> int:
     )
     server = uvicorn.Server(config)
     shown = f"[{host}]" if family == socket.AF_INET6 else host
-    print(f"ergodex serve: listening on http://{shown}:{port} (home {settings.home}, "
-          f"{settings.workers} workers)", flush=True)
+    print(
+        f"ergodex serve: listening on http://{shown}:{port} (home {settings.home}, "
+        f"{settings.workers} workers)",
+        flush=True,
+    )
     server.run(sockets=[sock])
     return 0

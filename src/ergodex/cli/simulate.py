@@ -93,26 +93,62 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         ),
     )
     parser.add_argument("model", metavar="MODEL", help=MODEL_HELP)
-    parser.add_argument("--members", type=int, required=True, metavar="N", help="number of members (>= 1)")
-    parser.add_argument("--steps", type=int, required=True, metavar="K", help="outputs per member (>= 1)")
-    parser.add_argument("--seed", type=int, default=None, metavar="S",
-                        help="seed of the perturbations and of the noise (default: fresh, printed)")
-    parser.add_argument("--dt", type=float, default=None, metavar="DT",
-                        help="output interval in time units (default: the 'dt' recorded in the model)")
-    parser.add_argument("--out", default=None, metavar="FILE",
-                        help="output file (.csv, .npz, .nc); default: CSV on standard output")
-    parser.add_argument("--format", choices=["csv", "npz", "nc"], default=None,
-                        help="output format (default: from the --out extension)")
-    parser.add_argument("--initial", default=None, metavar="FILE",
-                        help="start states in data space (CSV, NPZ, NetCDF or dataset folder)")
-    parser.add_argument("--spinup", type=float, default=None, metavar="T",
-                        help="time integrated and discarded before the first output "
-                             "(default: 1000*dt from the model's own run, 0 with --initial)")
-    parser.add_argument("--substep", type=float, default=None, metavar="H",
-                        help="integration step (default: chosen from the model's stiffness at the start "
-                             "states and at the --initial states or, without them, states across the "
-                             "range the model was fitted on; never below DT/1e6: a model that needs "
-                             "less fails as too stiff, exit 1)")
+    parser.add_argument(
+        "--members", type=int, required=True, metavar="N", help="number of members (>= 1)"
+    )
+    parser.add_argument(
+        "--steps", type=int, required=True, metavar="K", help="outputs per member (>= 1)"
+    )
+    parser.add_argument(
+        "--seed",
+        type=int,
+        default=None,
+        metavar="S",
+        help="seed of the perturbations and of the noise (default: fresh, printed)",
+    )
+    parser.add_argument(
+        "--dt",
+        type=float,
+        default=None,
+        metavar="DT",
+        help="output interval in time units (default: the 'dt' recorded in the model)",
+    )
+    parser.add_argument(
+        "--out",
+        default=None,
+        metavar="FILE",
+        help="output file (.csv, .npz, .nc); default: CSV on standard output",
+    )
+    parser.add_argument(
+        "--format",
+        choices=["csv", "npz", "nc"],
+        default=None,
+        help="output format (default: from the --out extension)",
+    )
+    parser.add_argument(
+        "--initial",
+        default=None,
+        metavar="FILE",
+        help="start states in data space (CSV, NPZ, NetCDF or dataset folder)",
+    )
+    parser.add_argument(
+        "--spinup",
+        type=float,
+        default=None,
+        metavar="T",
+        help="time integrated and discarded before the first output "
+        "(default: 1000*dt from the model's own run, 0 with --initial)",
+    )
+    parser.add_argument(
+        "--substep",
+        type=float,
+        default=None,
+        metavar="H",
+        help="integration step (default: chosen from the model's stiffness at the start "
+        "states and at the --initial states or, without them, states across the "
+        "range the model was fitted on; never below DT/1e6: a model that needs "
+        "less fails as too stiff, exit 1)",
+    )
     add_home_option(parser)
     from ergodex.cli.common import add_limit_options
 
@@ -142,7 +178,6 @@ def initial_states_from_file(surrogate, path: str, members: int) -> tuple[np.nda
     import numpy as np
 
     from ergodex.readers import read_series
-
     from ergodex.validation import align_columns
 
     # the model's variables in any column order, as validate accepts them
@@ -175,11 +210,24 @@ def _check_memory(surrogate, args: argparse.Namespace) -> None:
     # the written text: about 25 characters per value (CSV or netCDF encodings are smaller)
     output = 25.0 * float(args.members) * float(args.steps) * n_data
     # the run's outputs, the data-space runs and the Series' checked copy: three copies
-    estimate = ensemble_memory(args.members, args.steps, surrogate.n_variables,
-                               surrogate.n_variables, surrogate.n_terms, copies=3) + output
-    check_memory(estimate, f"simulating {args.members} members x {args.steps} outputs x "
-                           f"{surrogate.n_variables} variables",
-                 "use fewer --members or --steps", args.max_memory)
+    estimate = (
+        ensemble_memory(
+            args.members,
+            args.steps,
+            surrogate.n_variables,
+            surrogate.n_variables,
+            surrogate.n_terms,
+            copies=3,
+        )
+        + output
+    )
+    check_memory(
+        estimate,
+        f"simulating {args.members} members x {args.steps} outputs x "
+        f"{surrogate.n_variables} variables",
+        "use fewer --members or --steps",
+        args.max_memory,
+    )
 
 
 def _constant_columns(runs: list[np.ndarray]) -> list[int]:
@@ -213,8 +261,10 @@ def run(args: argparse.Namespace) -> int:
     if args.steps is None or args.steps < 1:
         raise SettingsError(f"--steps must be at least 1, got {args.steps}")
     if args.members * args.steps < 2:
-        raise SettingsError("one member with one output is a single state; a data file needs "
-                            "at least two; use --steps 2 or more")
+        raise SettingsError(
+            "one member with one output is a single state; a data file needs "
+            "at least two; use --steps 2 or more"
+        )
     if args.seed is not None and args.seed < 0:
         raise SettingsError(f"--seed must be a non-negative integer, got {args.seed}")
     fmt = args.format
@@ -226,7 +276,9 @@ def run(args: argparse.Namespace) -> int:
             )
     if args.out is None:
         if fmt not in (None, "csv"):
-            raise SettingsError(f"--format {fmt} needs --out FILE (only CSV goes to standard output)")
+            raise SettingsError(
+                f"--format {fmt} needs --out FILE (only CSV goes to standard output)"
+            )
         fmt = "csv"
     if args.out is not None and not Path(args.out).parent.exists():
         raise SettingsError(f"--out {args.out}: folder {Path(args.out).parent} does not exist")
@@ -252,7 +304,11 @@ def run(args: argparse.Namespace) -> int:
         x0, every_state = initial_states_from_file(surrogate, args.initial, args.members)
         spinup = 0.0 if args.spinup is None else args.spinup
         # Ten times the range of the given states (see blowup_bound); non-finite always counts.
-        bound = bound_over(surrogate, observed, every_state[:, observed]) if len(every_state) > 1 else None
+        bound = (
+            bound_over(surrogate, observed, every_state[:, observed])
+            if len(every_state) > 1
+            else None
+        )
         stiffness_states = every_state
     else:
         x0 = initial_states_from_model(surrogate, args.members, rng)
@@ -267,10 +323,18 @@ def run(args: argparse.Namespace) -> int:
 
     with reporter(show_progress(args), args.steps, desc="simulate", unit="output") as update:
         result = integrate_ensemble(
-            surrogate, x0, dt_out=dt, n_out=args.steps, spinup=spinup, substep=args.substep,
+            surrogate,
+            x0,
+            dt_out=dt,
+            n_out=args.steps,
+            spinup=spinup,
+            substep=args.substep,
             stiffness_states=stiffness_states,
-            seed=int(rng.integers(0, 2**63 - 1)), bound=bound, progress=update,
-            time_limit=args.time_limit, max_memory=args.max_memory,
+            seed=int(rng.integers(0, 2**63 - 1)),
+            bound=bound,
+            progress=update,
+            time_limit=args.time_limit,
+            max_memory=args.max_memory,
         )
 
     from ergodex.cli.fields import field_output_map, write_simulated_field
@@ -294,26 +358,39 @@ def run(args: argparse.Namespace) -> int:
         print(f"ergodex simulate: {time_unit_note(surrogate)}", file=sys.stderr)
     if result.n_blown_up:
         which = ", ".join(
-            f"{m} (t={t:.6g})" for m, t in zip(np.flatnonzero(result.blown_up), result.blowup_time[result.blown_up])
+            f"{m} (t={t:.6g})"
+            for m, t in zip(np.flatnonzero(result.blown_up), result.blowup_time[result.blown_up])
         )
         print(f"ergodex simulate: members that blew up: {which}", file=sys.stderr)
         if dropped:
-            print(f"ergodex simulate: left out of the output: members {', '.join(map(str, dropped))}",
-                  file=sys.stderr)
+            print(
+                f"ergodex simulate: left out of the output: members {', '.join(map(str, dropped))}",
+                file=sys.stderr,
+            )
     if not runs:
-        print("ergodex simulate: every member blew up before its first output; nothing written",
-              file=sys.stderr)
+        print(
+            "ergodex simulate: every member blew up before its first output; nothing written",
+            file=sys.stderr,
+        )
         return 1
 
     settled = _constant_columns(runs)
     if settled:
         stays = ", ".join(f"{names[c]} stays at {runs[0][0, c]:.6g}" for c in settled[:4])
-        print(f"ergodex simulate: the ensemble settled on a fixed point ({stays} in every member "
-              "and output); a data file cannot hold a constant variable; nothing written",
-              file=sys.stderr)
+        print(
+            f"ergodex simulate: the ensemble settled on a fixed point ({stays} in every member "
+            "and output); a data file cannot hold a constant variable; nothing written",
+            file=sys.stderr,
+        )
         return 1
-    series = Series.from_arrays(runs, names, dt, run_labels=labels, source=str(args.model),
-                                time_unit=surrogate.provenance.get("time_unit") or None)
+    series = Series.from_arrays(
+        runs,
+        names,
+        dt,
+        run_labels=labels,
+        source=str(args.model),
+        time_unit=surrogate.provenance.get("time_unit") or None,
+    )
     if args.out is None:
         with tempfile.TemporaryDirectory() as tmp:
             target = write_csv(Path(tmp) / "simulation.csv", series)
@@ -324,6 +401,8 @@ def run(args: argparse.Namespace) -> int:
             target = write_simulated_field(args.out, surrogate, series, args)
         else:
             target = writer(args.out, series)
-        print(f"ergodex simulate: wrote {series.n_runs} members x {args.steps} outputs to {target}",
-              file=sys.stderr)
+        print(
+            f"ergodex simulate: wrote {series.n_runs} members x {args.steps} outputs to {target}",
+            file=sys.stderr,
+        )
     return 1 if result.n_blown_up else 0

@@ -45,7 +45,7 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     parser = subparsers.add_parser(
         "validate",
         help="check a surrogate's long-run statistics against data (exit 0 pass, 1 fail, "
-             "3 inconclusive)",
+        "3 inconclusive)",
         description=(
             "Integrate the surrogate from many states drawn from the data and compare its long-run "
             "statistics (histograms, autocorrelation, spectra, quantiles, regimes) with the data's, "
@@ -59,20 +59,37 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         ),
     )
     parser.add_argument("model", metavar="MODEL", help=MODEL_HELP)
-    parser.add_argument("data", metavar="DATA",
-                        help="reference data: .csv, .npz, .nc, or a folder with dataset.toml")
+    parser.add_argument(
+        "data",
+        metavar="DATA",
+        help="reference data: .csv, .npz, .nc, or a folder with dataset.toml",
+    )
     add_data_options(parser)
-    parser.add_argument("--json", metavar="OUT", default=None,
-                        help="write the scorecard JSON here (and the evidence beside it, as "
-                             "OUT's name with .evidence.npz, unless --evidence says where)")
-    parser.add_argument("--evidence", metavar="OUT.npz", default=None,
-                        help="write the evidence arrays (NPZ) here")
-    parser.add_argument("--report", metavar="OUT.html", nargs="?", const=_DEFAULT, default=None,
-                        help="write a self-contained HTML report here (without a file name: next "
-                             "to a model file as MODEL.report.html, or under the registry home "
-                             "in reports/ for NAME@VERSION)")
-    parser.add_argument("--quiet", action="store_true",
-                        help="print only the verdict line and, unless passed, its reasons")
+    parser.add_argument(
+        "--json",
+        metavar="OUT",
+        default=None,
+        help="write the scorecard JSON here (and the evidence beside it, as "
+        "OUT's name with .evidence.npz, unless --evidence says where)",
+    )
+    parser.add_argument(
+        "--evidence", metavar="OUT.npz", default=None, help="write the evidence arrays (NPZ) here"
+    )
+    parser.add_argument(
+        "--report",
+        metavar="OUT.html",
+        nargs="?",
+        const=_DEFAULT,
+        default=None,
+        help="write a self-contained HTML report here (without a file name: next "
+        "to a model file as MODEL.report.html, or under the registry home "
+        "in reports/ for NAME@VERSION)",
+    )
+    parser.add_argument(
+        "--quiet",
+        action="store_true",
+        help="print only the verdict line and, unless passed, its reasons",
+    )
     add_home_option(parser)
     from ergodex.cli.fields import add_check_options as add_field_check_options
 
@@ -127,8 +144,9 @@ def run(args: argparse.Namespace) -> int:
     holder: dict[str, Any] = {}
 
     def read_check_part(path: str, dt: float | None = None):
-        holder["choice"] = read_data(path, part="check", holdout=args.holdout, dt=dt,
-                                     split_at_gaps=args.split_at_gaps)
+        holder["choice"] = read_data(
+            path, part="check", holdout=args.holdout, dt=dt, split_at_gaps=args.split_at_gaps
+        )
         return holder["choice"].series
 
     reference, field = read_check_input(args, surrogate, read_check_part)
@@ -148,9 +166,15 @@ def run(args: argparse.Namespace) -> int:
     extra_arrays = None
     if field is None:
         # the evidence arrays only when a file or the report will hold them
-        result = check(surrogate, reference, spec, time_limit=args.time_limit,
-                       max_memory=args.max_memory, progress=show_progress(args),
-                       evidence=bool(evidence or report))
+        result = check(
+            surrogate,
+            reference,
+            spec,
+            time_limit=args.time_limit,
+            max_memory=args.max_memory,
+            progress=show_progress(args),
+            evidence=bool(evidence or report),
+        )
     else:
         from ergodex.cli.fields import check_field_arg
 

@@ -46,9 +46,9 @@ def _patterns(lat, lon, mask) -> np.ndarray:
     la, lo = np.meshgrid(lat, lon, indexing="ij")
     y = (la - 27.5) / 17.5
     x = (lo - 315.0) / 25.0
-    p1 = np.exp(-((y + 0.4) ** 2) / 0.3) * np.cos(np.pi * x / 2.4)          # southern tongue
+    p1 = np.exp(-((y + 0.4) ** 2) / 0.3) * np.cos(np.pi * x / 2.4)  # southern tongue
     p2 = np.exp(-((y - 0.1) ** 2) / 0.4) * np.sin(np.pi * (x + 0.3) / 1.8)  # east-west dipole
-    p3 = np.tanh(3.0 * y) * np.exp(-(x**2) / 1.5)                           # gyre boundary
+    p3 = np.tanh(3.0 * y) * np.exp(-(x**2) / 1.5)  # gyre boundary
     q, _ = np.linalg.qr(np.stack([p[mask] for p in (p1, p2, p3)]).T)
     return q.T * np.sqrt(mask.sum())  # unit RMS per point
 
@@ -62,8 +62,11 @@ def _oscillator(rng, n_months: int, n_sub: int = 8) -> np.ndarray:
     for t in range(n_months):
         dw = rng.standard_normal((n_sub, 2)) * np.sqrt(h)
         for k in range(n_sub):  # Euler-Maruyama (Kloeden & Platen 1992) on a fine step
-            z = z + ((mu + 1j * omega) * z - abs(z) ** 2 * z) * h + sigma * (dw[k, 0]
-                                                                             + 1j * dw[k, 1])
+            z = (
+                z
+                + ((mu + 1j * omega) * z - abs(z) ** 2 * z) * h
+                + sigma * (dw[k, 0] + 1j * dw[k, 1])
+            )
         out[t] = z.real, z.imag
     return out
 
@@ -78,7 +81,7 @@ def basin_field(n_members: int = 6, n_years: int = 60, *, seed: int = 2026):
     mean_state = 27.0 - 0.35 * (la - 10.0)
     amplitude = 0.5 + 0.08 * (la - 10.0)
     month = np.arange(n) % 12
-    season = -np.cos(2 * np.pi * (month - 1.5) / 12.0)[:, None] * amplitude   # warmest in Aug
+    season = -np.cos(2 * np.pi * (month - 1.5) / 12.0)[:, None] * amplitude  # warmest in Aug
     from scipy.ndimage import gaussian_filter
 
     values = np.empty((n_members, n, mask.sum()))
@@ -93,33 +96,63 @@ def basin_field(n_members: int = 6, n_years: int = 60, *, seed: int = 2026):
             white = gaussian_filter(rng.standard_normal(mask.shape), 1.5)
             noise = 0.6 * noise + np.sqrt(1 - 0.36) * white / 0.19
             red[t] = noise[mask]
-        values[m] = (mean_state + season + 1.2 * osc @ patterns[:2]
-                     + 0.4 * slow[:, None] * patterns[2] + 0.15 * red)
+        values[m] = (
+            mean_state
+            + season
+            + 1.2 * osc @ patterns[:2]
+            + 0.4 * slow[:, None] * patterns[2]
+            + 0.15 * red
+        )
     clock = Clock("months", 1.0, 12.0 * 1950, "days since 1900-01-01", "noleap", 15.0)
     return values, lat, lon, mask, clock
 
 
-def write_basin(folder: str | os.PathLike, *, n_fit: int = 4, n_check: int = 2,
-                n_years: int = 60, seed: int = 2026) -> tuple[Path, Path]:
+def write_basin(
+    folder: str | os.PathLike,
+    *,
+    n_fit: int = 4,
+    n_check: int = 2,
+    n_years: int = 60,
+    seed: int = 2026,
+) -> tuple[Path, Path]:
     """Write the basin scenario as two CF NetCDF files: fit runs and held-out check runs."""
     values, lat, lon, mask, clock = basin_field(n_fit + n_check, n_years, seed=seed)
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
-    return (_write(folder / "basin_sst_fit.nc", values[:n_fit], lat, lon, mask, clock, seed),
-            _write(folder / "basin_sst_check.nc", values[n_fit:], lat, lon, mask, clock, seed))
+    return (
+        _write(folder / "basin_sst_fit.nc", values[:n_fit], lat, lon, mask, clock, seed),
+        _write(folder / "basin_sst_check.nc", values[n_fit:], lat, lon, mask, clock, seed),
+    )
 
 
 def _write(path: Path, values, lat, lon, mask, clock, seed: int) -> Path:
     from ergodex.fields.writing import write_field
 
     return write_field(
-        path, values, variable=BASIN_VARIABLE, lat=lat, lon=lon, mask=mask, clock=clock,
-        steps=np.arange(values.shape[1]), time_units=_TIME_UNITS, units="degC",
-        attrs={"standard_name": "sea_surface_temperature", "long_name": "sea surface temperature",
-               "cell_methods": "time: mean"},
+        path,
+        values,
+        variable=BASIN_VARIABLE,
+        lat=lat,
+        lon=lon,
+        mask=mask,
+        clock=clock,
+        steps=np.arange(values.shape[1]),
+        time_units=_TIME_UNITS,
+        units="degC",
+        attrs={
+            "standard_name": "sea_surface_temperature",
+            "long_name": "sea surface temperature",
+            "cell_methods": "time: mean",
+        },
         member_dim="realization",
-        global_attrs={"title": "ergodex basin demo scenario (invented data)",
-                      "source": f"ergodex.fields.basin, seed {seed}"},
-        packing={"dtype": "int16", "scale_factor": 0.001, "add_offset": 20.0,
-                 "_FillValue": np.int16(-32767)},
+        global_attrs={
+            "title": "ergodex basin demo scenario (invented data)",
+            "source": f"ergodex.fields.basin, seed {seed}",
+        },
+        packing={
+            "dtype": "int16",
+            "scale_factor": 0.001,
+            "add_offset": 20.0,
+            "_FillValue": np.int16(-32767),
+        },
     )

@@ -22,8 +22,13 @@ __all__ = ["Clock", "clock_from_times", "days_in_year", "decode_times"]
 #: Relative spread of steps still read as uniform (timestamps written with float32 rounding).
 _STEP_TOLERANCE = 1e-3
 
-_YEAR_DAYS = {"noleap": 365.0, "365_day": 365.0, "all_leap": 366.0, "366_day": 366.0,
-              "360_day": 360.0}
+_YEAR_DAYS = {
+    "noleap": 365.0,
+    "365_day": 365.0,
+    "all_leap": 366.0,
+    "366_day": 366.0,
+    "360_day": 360.0,
+}
 
 
 def _cftime():
@@ -36,12 +41,19 @@ def decode_times(numbers: np.ndarray, units: str, calendar: str, *, where: str) 
     """cftime dates of CF time numbers; DataError naming ``where`` when the units are unreadable."""
     cftime = _cftime()
     try:
-        return np.asarray(cftime.num2date(np.asarray(numbers, dtype=np.float64), units,
-                                          calendar=calendar, only_use_cftime_datetimes=True))
+        return np.asarray(
+            cftime.num2date(
+                np.asarray(numbers, dtype=np.float64),
+                units,
+                calendar=calendar,
+                only_use_cftime_datetimes=True,
+            )
+        )
     except Exception as exc:  # noqa: BLE001 - cftime raises ValueError or its own types
-        raise DataError(f"{where}: cannot decode times with units {units!r} and calendar "
-                        f"{calendar!r} ({exc}); give CF units such as 'days since 2000-01-01'") \
-            from None
+        raise DataError(
+            f"{where}: cannot decode times with units {units!r} and calendar "
+            f"{calendar!r} ({exc}); give CF units such as 'days since 2000-01-01'"
+        ) from None
 
 
 def days_in_year(dates: np.ndarray, calendar: str) -> np.ndarray:
@@ -101,8 +113,10 @@ class Clock:
         rounded = np.round(steps)
         bad = np.flatnonzero(np.abs(steps - rounded) > 0.05)
         if bad.size:
-            raise DataError(f"{where}: time index {int(bad[0])} ({dates[bad[0]]}) falls between "
-                            f"the model's samples every {self.dt_text}; resample the data")
+            raise DataError(
+                f"{where}: time index {int(bad[0])} ({dates[bad[0]]}) falls between "
+                f"the model's samples every {self.dt_text}; resample the data"
+            )
         return rounded.astype(np.int64)
 
     def dates_at(self, steps: np.ndarray) -> np.ndarray:
@@ -116,37 +130,57 @@ class Clock:
         months = self.origin + steps * (self.step * (12.0 if self.unit == "years" else 1.0))
         months = np.round(months).astype(np.int64)
         day = int(min(28, max(1, np.floor(self.day))))
-        return np.array([cftime.datetime(int(m // 12), int(m % 12) + 1, day, calendar=self.calendar)
-                         for m in months])
+        return np.array(
+            [
+                cftime.datetime(int(m // 12), int(m % 12) + 1, day, calendar=self.calendar)
+                for m in months
+            ]
+        )
 
     def numbers_at(self, steps: np.ndarray, units: str) -> np.ndarray:
         """CF time numbers (in ``units``) of sample indices, for writing."""
         cftime = _cftime()
-        return np.asarray(cftime.date2num(list(self.dates_at(steps)), units,
-                                          calendar=self.calendar), dtype=np.float64)
+        return np.asarray(
+            cftime.date2num(list(self.dates_at(steps)), units, calendar=self.calendar),
+            dtype=np.float64,
+        )
 
     def _positions(self, dates: np.ndarray) -> np.ndarray:
         cftime = _cftime()
         if self.unit in ("hours", "days"):
-            days = np.asarray(cftime.date2num(list(dates), self.epoch, calendar=self.calendar),
-                              dtype=np.float64)
+            days = np.asarray(
+                cftime.date2num(list(dates), self.epoch, calendar=self.calendar), dtype=np.float64
+            )
             return days * (24.0 if self.unit == "hours" else 1.0)
         return np.array([12.0 * d.year + d.month - 1 for d in dates])
 
     def to_dict(self) -> dict[str, Any]:
-        return {"unit": self.unit, "step": float(self.step), "origin": float(self.origin),
-                "epoch": self.epoch, "calendar": self.calendar, "day": float(self.day)}
+        return {
+            "unit": self.unit,
+            "step": float(self.step),
+            "origin": float(self.origin),
+            "epoch": self.epoch,
+            "calendar": self.calendar,
+            "day": float(self.day),
+        }
 
     @classmethod
     def from_dict(cls, d: Mapping[str, Any]) -> Clock:
         try:
-            clock = cls(str(d["unit"]), float(d["step"]), float(d["origin"]), str(d["epoch"]),
-                        str(d["calendar"]), float(d.get("day", 15.0)))
+            clock = cls(
+                str(d["unit"]),
+                float(d["step"]),
+                float(d["origin"]),
+                str(d["epoch"]),
+                str(d["calendar"]),
+                float(d.get("day", 15.0)),
+            )
         except (KeyError, TypeError, ValueError) as exc:
             raise ModelFileError(f"field transform: malformed clock ({exc})") from None
         if clock.unit not in ("hours", "days", "months", "years") or not clock.step > 0:
-            raise ModelFileError(f"field transform: clock unit {clock.unit!r} / step {clock.step}"
-                                 " is not valid")
+            raise ModelFileError(
+                f"field transform: clock unit {clock.unit!r} / step {clock.step} is not valid"
+            )
         return clock
 
 
@@ -170,8 +204,10 @@ def clock_from_times(dates: np.ndarray, units: str, calendar: str, *, where: str
     steps = np.diff(days)
     if np.any(steps <= 0):
         i = int(np.flatnonzero(steps <= 0)[0]) + 1
-        raise DataError(f"{where}: times are not increasing at time index {i} "
-                        f"({dates[i - 1]} then {dates[i]}); sort the file along time")
+        raise DataError(
+            f"{where}: times are not increasing at time index {i} "
+            f"({dates[i - 1]} then {dates[i]}); sort the file along time"
+        )
     median = float(np.median(steps))
     if np.max(np.abs(steps - median)) <= _STEP_TOLERANCE * median:
         if median < 1.0 - 1e-9:
@@ -185,5 +221,7 @@ def clock_from_times(dates: np.ndarray, units: str, calendar: str, *, where: str
             return Clock("years", float(dm[0] // 12), float(months[0]), epoch, calendar, day)
         return Clock("months", float(dm[0]), float(months[0]), epoch, calendar, day)
     i = int(np.argmax(np.abs(steps - median))) + 1
-    raise DataError(f"{where}: time steps are not uniform: step {i} is {steps[i - 1]:g} days, "
-                    f"the usual step {median:g} days; resample the data to a uniform step")
+    raise DataError(
+        f"{where}: time steps are not uniform: step {i} is {steps[i - 1]:g} days, "
+        f"the usual step {median:g} days; resample the data to a uniform step"
+    )

@@ -51,8 +51,8 @@ __all__ = ["FieldCheck", "check_field", "grid_rows"]
 class FieldCheck:
     """A check result with its grid rows merged in, and the maps the report draws."""
 
-    result: Any                     # ergodex.validation.CheckResult
-    maps: dict[str, np.ndarray] = field(default_factory=dict)   # name -> (n_lat, n_lon)
+    result: Any  # ergodex.validation.CheckResult
+    maps: dict[str, np.ndarray] = field(default_factory=dict)  # name -> (n_lat, n_lon)
     lat: np.ndarray | None = None
     lon: np.ndarray | None = None
     mask: np.ndarray | None = None
@@ -86,12 +86,11 @@ def _lag1(x: np.ndarray) -> np.ndarray:
 class _Pieces:
     """Per-piece grid statistics: variance and lag-1 maps, mean series statistics."""
 
-    def __init__(self, anomalies: np.ndarray, weights: np.ndarray, boxes: np.ndarray,
-                 ctx: dict):
+    def __init__(self, anomalies: np.ndarray, weights: np.ndarray, boxes: np.ndarray, ctx: dict):
         # anomalies (P, L, p); boxes (n_series, p) weights of each mean series
         self.var = anomalies.var(axis=1)
         self.lag1 = _lag1(anomalies)
-        means = np.einsum("plx,sx->pls", anomalies, boxes)          # (P, L, n_series)
+        means = np.einsum("plx,sx->pls", anomalies, boxes)  # (P, L, n_series)
         L = means.shape[1]
         k = min(L, 2000)
         idx = np.minimum(np.ceil((np.arange(k) + 0.5) / k * L).astype(int) - 1, L - 1)
@@ -99,8 +98,9 @@ class _Pieces:
         lags = ctx["max_lag"]
         acf = [stats.autocorrelation(means[i], lags) for i in range(means.shape[0])]
         self.acf = np.stack([np.atleast_2d(a.reshape(lags + 1, -1)) for a in acf])
-        _, psd = stats.welch_psd(np.ascontiguousarray(means.transpose(0, 2, 1)), ctx["dt"],
-                                 ctx["nperseg"])
+        _, psd = stats.welch_psd(
+            np.ascontiguousarray(means.transpose(0, 2, 1)), ctx["dt"], ctx["nperseg"]
+        )
         self.psd = psd.transpose(0, 2, 1)
 
 
@@ -118,17 +118,28 @@ def _distance(name: str, a: _Pieces, i: int, b: _Pieces, j: int, w: np.ndarray) 
 
 
 def _cut(runs: list[np.ndarray], length: int) -> np.ndarray:
-    pieces = [r[s:s + length] for r in runs for s in range(0, r.shape[0] - length + 1, length)]
+    pieces = [r[s : s + length] for r in runs for s in range(0, r.shape[0] - length + 1, length)]
     if len(pieces) < 2:
-        raise DataError(f"the reference gives {len(pieces)} piece(s) of {length} samples; the "
-                        f"grid rows need at least 2: supply more or longer runs")
+        raise DataError(
+            f"the reference gives {len(pieces)} piece(s) of {length} samples; the "
+            f"grid rows need at least 2: supply more or longer runs"
+        )
     return np.stack(pieces)
 
 
-def grid_rows(transform: FieldModes, reference_modes: list[np.ndarray],
-              reference_anomalies: list[np.ndarray], model_modes: list[np.ndarray], *,
-              piece_length: int, max_lag: int, dt: float, nperseg: int,
-              boxes: dict[str, np.ndarray], tolerance: float) -> tuple[list, dict]:
+def grid_rows(
+    transform: FieldModes,
+    reference_modes: list[np.ndarray],
+    reference_anomalies: list[np.ndarray],
+    model_modes: list[np.ndarray],
+    *,
+    piece_length: int,
+    max_lag: int,
+    dt: float,
+    nperseg: int,
+    boxes: dict[str, np.ndarray],
+    tolerance: float,
+) -> tuple[list, dict]:
     """Grid rows (ScoreRow) and maps from mode amplitudes of reference and model runs.
 
     ``reference_anomalies`` are the full-grid anomalies of the reference runs (for the
@@ -155,14 +166,27 @@ def grid_rows(transform: FieldModes, reference_modes: list[np.ndarray],
         if mod is None:
             value = np.full(len(labels), np.nan)
         else:
-            value = np.mean([_distance(stat, mod, i, ref, j, w)
-                             for i in range(mod_z.shape[0]) for j in range(n_ref)], axis=0)
+            value = np.mean(
+                [
+                    _distance(stat, mod, i, ref, j, w)
+                    for i in range(mod_z.shape[0])
+                    for j in range(n_ref)
+                ],
+                axis=0,
+            )
         for label, v, f in zip(labels, value, floor):
             ratio = _ratio(float(v), float(f))
-            rows.append(ScoreRow(stat if stat.endswith("map") else f"{stat} ({label})",
-                                 transform.variable_ if stat.endswith("map") else label,
-                                 float(v), float(f), ratio, tolerance,
-                                 "pass" if ratio <= tolerance else "fail"))
+            rows.append(
+                ScoreRow(
+                    stat if stat.endswith("map") else f"{stat} ({label})",
+                    transform.variable_ if stat.endswith("map") else label,
+                    float(v),
+                    float(f),
+                    ratio,
+                    tolerance,
+                    "pass" if ratio <= tolerance else "fail",
+                )
+            )
     # variance captured: the modes' share of each reference piece's area-weighted variance
     full = _cut(reference_anomalies, piece_length)
     total = np.array([np.sum(w * p.var(axis=0)) for p in full])
@@ -172,16 +196,28 @@ def grid_rows(transform: FieldModes, reference_modes: list[np.ndarray],
     floor = float(np.mean([abs(share[i] - share[j]) for i, j in floor_pairs]))
     captured = float(np.mean(np.abs(share - fit_share)))
     ratio = _ratio(captured, floor)
-    rows.append(ScoreRow("variance captured", f"modes 1-{transform.n_modes_}", captured, floor,
-                         ratio, tolerance, "pass" if ratio <= tolerance else "fail"))
-    maps = {"reference variance": ref.var.mean(axis=0),
-            "reference lag-1": ref.lag1.mean(axis=0)}
+    rows.append(
+        ScoreRow(
+            "variance captured",
+            f"modes 1-{transform.n_modes_}",
+            captured,
+            floor,
+            ratio,
+            tolerance,
+            "pass" if ratio <= tolerance else "fail",
+        )
+    )
+    maps = {"reference variance": ref.var.mean(axis=0), "reference lag-1": ref.lag1.mean(axis=0)}
     if mod is not None:
         maps["surrogate variance"] = mod.var.mean(axis=0)
         maps["surrogate lag-1"] = mod.lag1.mean(axis=0)
-    info = {"variance_captured_fit": fit_share, "variance_captured_check": float(share.mean()),
-            "grid_reference_pieces": int(n_ref), "grid_model_pieces": int(mod_z.shape[0]),
-            "grid_series": names}
+    info = {
+        "variance_captured_fit": fit_share,
+        "variance_captured_check": float(share.mean()),
+        "grid_reference_pieces": int(n_ref),
+        "grid_model_pieces": int(mod_z.shape[0]),
+        "grid_series": names,
+    }
     return rows, {"maps": maps, "info": info}
 
 
@@ -193,20 +229,30 @@ def _box_weights(transform: FieldModes, regions: list[Box]) -> dict[str, np.ndar
     plat, plon = lat2[transform.mask_], lon2[transform.mask_]
     for box in regions:
         inside = np.zeros(plat.size, bool)
-        inside[np.isin(plat, transform.lat_[box.lat_index(transform.lat_)])
-               & np.isin(plon, transform.lon_[box.lon_index(transform.lon_)])] = True
+        inside[
+            np.isin(plat, transform.lat_[box.lat_index(transform.lat_)])
+            & np.isin(plon, transform.lon_[box.lon_index(transform.lon_)])
+        ] = True
         label = "box " + ",".join(f"{v:g}" for v in box.to_list())
         if not inside.any():
-            raise DataError(f"--region {box.to_list()}: no valid grid point of variable "
-                            f"{transform.variable_!r} lies in this box")
+            raise DataError(
+                f"--region {box.to_list()}: no valid grid point of variable "
+                f"{transform.variable_!r} lies in this box"
+            )
         bw = np.where(inside, w, 0.0)
         out[label] = bw / bw.sum()
     return out
 
 
-def check_field(surrogate, reference: Field, spec=None, *, regions: Sequence[Box] = (),
-                time_limit: float | None = None,
-                max_memory: int | str | None = None) -> FieldCheck:
+def check_field(
+    surrogate,
+    reference: Field,
+    spec=None,
+    *,
+    regions: Sequence[Box] = (),
+    time_limit: float | None = None,
+    max_memory: int | str | None = None,
+) -> FieldCheck:
     """Check a field surrogate on the reference field: mode rows plus grid rows, one verdict.
 
     Parameters
@@ -240,9 +286,15 @@ def check_field(surrogate, reference: Field, spec=None, *, regions: Sequence[Box
     modes = modes_series(transform, reference)
     # the mode-space check runs on the model without its transform: the reference is already
     # in model space (the grid → modes map has been applied with the right dates)
-    bare = Surrogate(surrogate.variables, surrogate.terms, surrogate.coefficients,
-                     kind=surrogate.kind, noise=surrogate.noise, settings=surrogate.settings,
-                     provenance=surrogate.provenance)
+    bare = Surrogate(
+        surrogate.variables,
+        surrogate.terms,
+        surrogate.coefficients,
+        kind=surrogate.kind,
+        noise=surrogate.noise,
+        settings=surrogate.settings,
+        provenance=surrogate.provenance,
+    )
     started = time.monotonic()
     result = check(bare, modes, spec, time_limit=time_limit, max_memory=max_memory)
     card = result.scorecard
@@ -257,43 +309,73 @@ def check_field(surrogate, reference: Field, spec=None, *, regions: Sequence[Box
     n_out = max(L, round(float(st["member_length"]) / dt))
     # grid pieces of reference and model, each a stack and its reconstruction (two copies)
     n_pieces = sum(n // L for n in modes.lengths) + spec.members * (n_out // L)
-    check_memory(2.0 * 8 * n_pieces * L * transform.area_.size,
-                 f"the grid rows ({n_pieces} pieces x {L} samples x {transform.area_.size} grid "
-                 "points)", "use fewer members, a smaller --box or a shorter record",
-                 max_memory)
+    check_memory(
+        2.0 * 8 * n_pieces * L * transform.area_.size,
+        f"the grid rows ({n_pieces} pieces x {L} samples x {transform.area_.size} grid points)",
+        "use fewer members, a smaller --box or a shorter record",
+        max_memory,
+    )
     remaining = None
     if time_limit is not None:
         # what the mode-space check left of the limit (a sliver, not zero, when it used it all:
         # the grid ensemble then stops at its first check of the clock)
         remaining = max(float(time_limit) - (time.monotonic() - started), 1e-3)
-    run = integrate_ensemble(surrogate, starts, dt_out=dt, n_out=n_out, spinup=float(st["spinup"]),
-                             bound=blowup_bound(stacked, factor=10.0),
-                             seed=int(rng.integers(2**31)), time_limit=remaining,
-                             max_memory=max_memory)
+    run = integrate_ensemble(
+        surrogate,
+        starts,
+        dt_out=dt,
+        n_out=n_out,
+        spinup=float(st["spinup"]),
+        bound=blowup_bound(stacked, factor=10.0),
+        seed=int(rng.integers(2**31)),
+        time_limit=remaining,
+        max_memory=max_memory,
+    )
     alive = [run.states[m] for m in range(spec.members) if not run.blown_up[m]]
-    steps = transform.clock_.steps_of(reference.clock.dates_at(reference.steps),
-                                      where=reference.source)
-    anomalies = [transform.anomalies_at(reference.values[m], steps)
-                 for m in range(reference.n_members)]
-    rows, extra = grid_rows(transform, list(modes.runs), anomalies, alive, piece_length=L,
-                            max_lag=int(st["max_lag_samples"]), dt=dt,
-                            nperseg=int(min(st["nperseg"], L)),
-                            boxes=_box_weights(transform, list(regions)),
-                            tolerance=spec.tolerance)
+    steps = transform.clock_.steps_of(
+        reference.clock.dates_at(reference.steps), where=reference.source
+    )
+    anomalies = [
+        transform.anomalies_at(reference.values[m], steps) for m in range(reference.n_members)
+    ]
+    rows, extra = grid_rows(
+        transform,
+        list(modes.runs),
+        anomalies,
+        alive,
+        piece_length=L,
+        max_lag=int(st["max_lag_samples"]),
+        dt=dt,
+        nperseg=int(min(st["nperseg"], L)),
+        boxes=_box_weights(transform, list(regions)),
+        tolerance=spec.tolerance,
+    )
     card.rows.extend(rows)
-    failing = sorted((r for r in rows if r.verdict == "fail"),
-                     key=lambda r: -r.ratio if not math.isnan(r.ratio) else 0.0)
+    failing = sorted(
+        (r for r in rows if r.verdict == "fail"),
+        key=lambda r: -r.ratio if not math.isnan(r.ratio) else 0.0,
+    )
     for r in failing:
-        card.reasons.append(f"{r.statistic} of {r.variable} on the grid: distance "
-                            f"{r.ratio:.3g}× the noise floor (tolerance {r.tolerance:g})")
+        card.reasons.append(
+            f"{r.statistic} of {r.variable} on the grid: distance "
+            f"{r.ratio:.3g}× the noise floor (tolerance {r.tolerance:g})"
+        )
     if failing:
         card.verdict = "fail"
-    card.settings["grid"] = {**extra["info"], "time_unit": transform.clock_.unit,
-                             "calendar": transform.clock_.calendar,
-                             "dt_text": transform.dt_text,
-                             "area_weights": transform.area_source_,
-                             "members_for_grid_rows": len(alive)}
+    card.settings["grid"] = {
+        **extra["info"],
+        "time_unit": transform.clock_.unit,
+        "calendar": transform.clock_.calendar,
+        "dt_text": transform.dt_text,
+        "area_weights": transform.area_source_,
+        "members_for_grid_rows": len(alive),
+    }
     summary = transform.summary()
-    return FieldCheck(result=result, maps=extra["maps"], lat=transform.lat_, lon=transform.lon_,
-                      mask=transform.mask_, summary=summary)
-
+    return FieldCheck(
+        result=result,
+        maps=extra["maps"],
+        lat=transform.lat_,
+        lon=transform.lon_,
+        mask=transform.mask_,
+        summary=summary,
+    )

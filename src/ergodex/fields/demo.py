@@ -20,8 +20,9 @@ __all__ = ["BASIN_NAME", "run_basin_demo"]
 BASIN_NAME = "basin-sst"
 
 
-def run_basin_demo(*, scenario: str = "basin", home=None, data_root="datasets",
-                   seed: int | None = None) -> DemoResult:
+def run_basin_demo(
+    *, scenario: str = "basin", home=None, data_root="datasets", seed: int | None = None
+) -> DemoResult:
     """Build the basin data, fit, check on the grid, register, report; see the module docstring.
 
     ``scenario`` is accepted (and must be ``"basin"``) so that the call matches
@@ -52,36 +53,69 @@ def run_basin_demo(*, scenario: str = "basin", home=None, data_root="datasets",
     settings: dict = {}
     fitter = make_fitter("linear-inverse", settings).fit(fit_modes)
     summary = transform.summary()
-    surrogate = attach_transform(fitter.surrogate_, transform, field={
-        "source": fit_path.name, "variable": BASIN_VARIABLE, "time_unit": summary["time_unit"],
-        "dt": summary["dt"], "calendar": summary["calendar"], "n_modes": summary["n_modes"],
-        "variance_captured": summary["variance_captured"]})
+    surrogate = attach_transform(
+        fitter.surrogate_,
+        transform,
+        field={
+            "source": fit_path.name,
+            "variable": BASIN_VARIABLE,
+            "time_unit": summary["time_unit"],
+            "dt": summary["dt"],
+            "calendar": summary["calendar"],
+            "n_modes": summary["n_modes"],
+            "variance_captured": summary["variance_captured"],
+        },
+    )
     spec = CheckSpec(seed=seed)
     field_check = check_field(surrogate, check_data, spec, regions=[Box(10.0, 25.0, 300.0, 340.0)])
     result = field_check.result
-    title = (f"Ocean basin SST: linear inverse model on {transform.n_modes_} EOF modes "
-             f"(dt {transform.dt_text})")
-    html = render_report(result, surrogate, title=title,
-                         fit_summary={"method": "linear-inverse", "settings": settings,
-                                      "reduction": summary},
-                         extra_sections=field_check.report_sections())
+    title = (
+        f"Ocean basin SST: linear inverse model on {transform.n_modes_} EOF modes "
+        f"(dt {transform.dt_text})"
+    )
+    html = render_report(
+        result,
+        surrogate,
+        title=title,
+        fit_summary={"method": "linear-inverse", "settings": settings, "reduction": summary},
+        extra_sections=field_check.report_sections(),
+    )
     registry = Registry(home)
     with tempfile.TemporaryDirectory(prefix="ergodex-evidence-") as tmp:
         evidence = Path(tmp) / "evidence.npz"
         result.evidence.to_npz(evidence, extra=evidence_maps(field_check))
         info = registry.register(
-            BASIN_NAME, surrogate, scorecard=result.scorecard, report_html=html,
-            evidence_path=evidence, fit_settings={"method": "linear-inverse",
-                                                  "settings": settings, "reduction": summary},
+            BASIN_NAME,
+            surrogate,
+            scorecard=result.scorecard,
+            report_html=html,
+            evidence_path=evidence,
+            fit_settings={"method": "linear-inverse", "settings": settings, "reduction": summary},
             note=f"ergodex demo (basin), seed {seed}",
-            datasets={"fit": fit_modes.fingerprint(),
-                      "check": modes_series(transform, check_data).fingerprint()})
-    flow = FlowResult(surrogate=surrogate, check=result, fitter=fitter, name=info.name,
-                      version=info.version, status=info.status, folder=Path(info.folder))
+            datasets={
+                "fit": fit_modes.fingerprint(),
+                "check": modes_series(transform, check_data).fingerprint(),
+            },
+        )
+    flow = FlowResult(
+        surrogate=surrogate,
+        check=result,
+        fitter=fitter,
+        name=info.name,
+        version=info.version,
+        status=info.status,
+        folder=Path(info.folder),
+    )
     if result.scorecard.passed:
-        registry.accept(f"{BASIN_NAME}@{info.version}",
-                        reason="scorecard passed on held-out runs (modes and grid)")
+        registry.accept(
+            f"{BASIN_NAME}@{info.version}",
+            reason="scorecard passed on held-out runs (modes and grid)",
+        )
         flow.status = "accepted"
     assert flow.folder is not None  # set just above
-    return DemoResult(flow=flow, dataset_folder=folder, home=Path(registry.home),
-                      report_path=flow.folder / "report.html")
+    return DemoResult(
+        flow=flow,
+        dataset_folder=folder,
+        home=Path(registry.home),
+        report_path=flow.folder / "report.html",
+    )

@@ -11,8 +11,14 @@ from collections.abc import Mapping
 
 import numpy as np
 
-__all__ = ["MAP_KEY_PREFIX", "evidence_maps", "grid_maps_svg", "map_section", "plot_map",
-           "stored_map_sections"]
+__all__ = [
+    "MAP_KEY_PREFIX",
+    "evidence_maps",
+    "grid_maps_svg",
+    "map_section",
+    "plot_map",
+    "stored_map_sections",
+]
 
 #: Key prefix of the grid maps stored in an evidence NPZ beside its fixed fields
 #: (``grid_map_reference_variance`` holds the map ``reference variance`` on the valid points).
@@ -28,15 +34,31 @@ def _edges(c: np.ndarray) -> np.ndarray:
     return np.concatenate([[2 * c[0] - mid[0]], mid, [2 * c[-1] - mid[-1]]])
 
 
-def plot_map(values: np.ndarray, lat: np.ndarray, lon: np.ndarray, *, ax=None, title: str = "",
-             cmap: str = "viridis", vmin: float | None = None, vmax: float | None = None):
+def plot_map(
+    values: np.ndarray,
+    lat: np.ndarray,
+    lon: np.ndarray,
+    *,
+    ax=None,
+    title: str = "",
+    cmap: str = "viridis",
+    vmin: float | None = None,
+    vmax: float | None = None,
+):
     """Draw a (n_lat, n_lon) map (NaN = masked) on ``ax`` with a colour bar; return the axis."""
     if ax is None:
         from matplotlib.figure import Figure
 
         ax = Figure(figsize=(3.4, 2.6)).subplots()
-    mesh = ax.pcolormesh(_edges(lon), _edges(lat), np.ma.masked_invalid(values), cmap=cmap,
-                         vmin=vmin, vmax=vmax, shading="flat")
+    mesh = ax.pcolormesh(
+        _edges(lon),
+        _edges(lat),
+        np.ma.masked_invalid(values),
+        cmap=cmap,
+        vmin=vmin,
+        vmax=vmax,
+        shading="flat",
+    )
     ax.figure.colorbar(mesh, ax=ax, shrink=0.85)
     ax.set_title(title, fontsize=8.5)
     ax.set_xlabel("longitude (°E)", fontsize=7.5)
@@ -46,8 +68,14 @@ def plot_map(values: np.ndarray, lat: np.ndarray, lon: np.ndarray, *, ax=None, t
     return ax
 
 
-def grid_maps_svg(maps: Mapping[str, np.ndarray], lat: np.ndarray, lon: np.ndarray,
-                  mask: np.ndarray, *, statistics=("variance", "lag-1")) -> str:
+def grid_maps_svg(
+    maps: Mapping[str, np.ndarray],
+    lat: np.ndarray,
+    lon: np.ndarray,
+    mask: np.ndarray,
+    *,
+    statistics=("variance", "lag-1"),
+) -> str:
     """One SVG: a row per statistic with reference, surrogate and surrogate − reference."""
     from matplotlib.figure import Figure
 
@@ -69,15 +97,24 @@ def grid_maps_svg(maps: Mapping[str, np.ndarray], lat: np.ndarray, lon: np.ndarr
         hi = float(np.nanmax([np.nanmax(g) for g in both]))
         for c, who in enumerate(("reference", "surrogate")):
             if who in grid:
-                plot_map(grid[who], lat, lon, ax=axes[r, c], title=f"{who}: {stat}", vmin=lo,
-                         vmax=hi)
+                plot_map(
+                    grid[who], lat, lon, ax=axes[r, c], title=f"{who}: {stat}", vmin=lo, vmax=hi
+                )
             else:
                 axes[r, c].set_visible(False)
         if "surrogate" in grid:
             diff = grid["surrogate"] - grid["reference"]
             m = float(np.nanmax(np.abs(diff))) or 1.0
-            plot_map(diff, lat, lon, ax=axes[r, 2], title=f"surrogate − reference: {stat}",
-                     cmap="RdBu_r", vmin=-m, vmax=m)
+            plot_map(
+                diff,
+                lat,
+                lon,
+                ax=axes[r, 2],
+                title=f"surrogate − reference: {stat}",
+                cmap="RdBu_r",
+                vmin=-m,
+                vmax=m,
+            )
         else:
             axes[r, 2].set_visible(False)
     figure.subplots_adjust(left=0.06, right=0.98, bottom=0.1, top=0.9, wspace=0.35, hspace=0.45)
@@ -88,14 +125,15 @@ def map_section(field_check) -> tuple[str, str, str]:
     """A report section (anchor, heading, html) with the grid maps and the reduction summary."""
     from ergodex.report.html import _figure, _key_value_table, _section
 
-    svg = grid_maps_svg(field_check.maps, field_check.lat, field_check.lon,
-                        field_check.mask)
+    svg = grid_maps_svg(field_check.maps, field_check.lat, field_check.lon, field_check.mask)
     s = field_check.summary
-    caption = (f"Grid-point variance and lag-one autocorrelation of {s.get('variable', '')} "
-               f"anomalies, averaged over pieces: reference (as its {s.get('n_modes')} kept modes "
-               f"carry it), surrogate, and their difference. Masked points are blank. The kept "
-               f"modes capture {100 * s.get('variance_captured', float('nan')):.1f} % of the "
-               f"area-weighted variance of the fit data.")
+    caption = (
+        f"Grid-point variance and lag-one autocorrelation of {s.get('variable', '')} "
+        f"anomalies, averaged over pieces: reference (as its {s.get('n_modes')} kept modes "
+        f"carry it), surrogate, and their difference. Masked points are blank. The kept "
+        f"modes capture {100 * s.get('variance_captured', float('nan')):.1f} % of the "
+        f"area-weighted variance of the fit data."
+    )
     table = _key_value_table(s)
     body = _figure(svg, "maps of variance and lag-one autocorrelation", caption, wide=True) + table
     return _section("grid-maps", "Maps on the grid", body)
@@ -105,8 +143,10 @@ def evidence_maps(field_check) -> dict[str, np.ndarray]:
     """A field check's maps (values on the valid points) as extra arrays of its evidence file,
     so that ``ergodex report`` redraws them from the registry (grid and mask come from the
     model's transform)."""
-    return {MAP_KEY_PREFIX + name.replace(" ", "_"): np.asarray(values, dtype=np.float64)
-            for name, values in field_check.maps.items()}
+    return {
+        MAP_KEY_PREFIX + name.replace(" ", "_"): np.asarray(values, dtype=np.float64)
+        for name, values in field_check.maps.items()
+    }
 
 
 def stored_map_sections(surrogate, evidence_bytes: bytes, *, name: str) -> list:
@@ -127,17 +167,28 @@ def stored_map_sections(surrogate, evidence_bytes: bytes, *, name: str) -> list:
         return []
     try:
         with np.load(io.BytesIO(evidence_bytes), allow_pickle=False) as z:
-            maps = {key[len(MAP_KEY_PREFIX):].replace("_", " "): np.asarray(z[key], float)
-                    for key in z.files if key.startswith(MAP_KEY_PREFIX)}
+            maps = {
+                key[len(MAP_KEY_PREFIX) :].replace("_", " "): np.asarray(z[key], float)
+                for key in z.files
+                if key.startswith(MAP_KEY_PREFIX)
+            }
     except (OSError, ValueError) as exc:
         raise ModelFileError(f"{name}: cannot read the grid maps ({exc})") from None
     n_valid = int(np.count_nonzero(transform.mask_))
     for key, values in maps.items():
         if values.shape != (n_valid,):
-            raise ModelFileError(f"{name}: grid map {key!r} has shape {values.shape}; the model "
-                                 f"has {n_valid} valid grid points")
+            raise ModelFileError(
+                f"{name}: grid map {key!r} has shape {values.shape}; the model "
+                f"has {n_valid} valid grid points"
+            )
     if not maps:
         return []
-    check = FieldCheck(result=None, maps=maps, lat=transform.lat_, lon=transform.lon_,
-                       mask=transform.mask_, summary=transform.summary())
+    check = FieldCheck(
+        result=None,
+        maps=maps,
+        lat=transform.lat_,
+        lon=transform.lon_,
+        mask=transform.mask_,
+        summary=transform.summary(),
+    )
     return [map_section(check)]

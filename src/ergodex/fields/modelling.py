@@ -21,12 +21,20 @@ def attach_transform(surrogate, transform, **provenance: Any):
     from ergodex.surrogate import Surrogate
 
     if tuple(transform.output_names) != tuple(surrogate.variables):
-        raise DataError(f"the transform gives {list(transform.output_names)}, the model has "
-                        f"{list(surrogate.variables)}")
-    return Surrogate(surrogate.variables, surrogate.terms, surrogate.coefficients,
-                     kind=surrogate.kind, noise=surrogate.noise, transform=transform,
-                     settings=surrogate.settings, provenance={**surrogate.provenance,
-                                                              **provenance})
+        raise DataError(
+            f"the transform gives {list(transform.output_names)}, the model has "
+            f"{list(surrogate.variables)}"
+        )
+    return Surrogate(
+        surrogate.variables,
+        surrogate.terms,
+        surrogate.coefficients,
+        kind=surrogate.kind,
+        noise=surrogate.noise,
+        transform=transform,
+        settings=surrogate.settings,
+        provenance={**surrogate.provenance, **provenance},
+    )
 
 
 def field_transform_of(surrogate):

@@ -60,10 +60,14 @@ class SeasonalCycle:
 
     def _check(self) -> None:
         if self.kind not in CLIMATOLOGIES:
-            raise SettingsError(f"climatology must be one of {list(CLIMATOLOGIES)}; "
-                                f"got {self.kind!r}")
-        if (isinstance(self.n_harmonics, bool) or not isinstance(self.n_harmonics, int)
-                or not 1 <= self.n_harmonics <= 6):
+            raise SettingsError(
+                f"climatology must be one of {list(CLIMATOLOGIES)}; got {self.kind!r}"
+            )
+        if (
+            isinstance(self.n_harmonics, bool)
+            or not isinstance(self.n_harmonics, int)
+            or not 1 <= self.n_harmonics <= 6
+        ):
             raise SettingsError(f"n_harmonics must be an integer 1..6; got {self.n_harmonics!r}")
 
     def design(self, dates: np.ndarray) -> np.ndarray:
@@ -85,9 +89,11 @@ class SeasonalCycle:
             present = {d.month for d in dates}
             missing = sorted(set(range(1, 13)) - present)
             if missing:
-                raise DataError(f"a monthly climatology needs every calendar month in the fit "
-                                f"data; month(s) {missing} are absent; use a longer record, "
-                                f"--climatology day, or --climatology none")
+                raise DataError(
+                    f"a monthly climatology needs every calendar month in the fit "
+                    f"data; month(s) {missing} are absent; use a longer record, "
+                    f"--climatology day, or --climatology none"
+                )
         elif np.ptp(year_fraction(dates, calendar)) < 0.5:
             raise DataError("a daily climatology needs fit data spanning most of a year")
         design = self.design(dates)
@@ -102,8 +108,12 @@ class SeasonalCycle:
         return self.design(dates) @ self.coefficients_
 
     def to_dict(self) -> dict[str, Any]:
-        return {"kind": self.kind, "n_harmonics": int(self.n_harmonics),
-                "calendar": self.calendar_, "coefficients": self.coefficients_.tolist()}
+        return {
+            "kind": self.kind,
+            "n_harmonics": int(self.n_harmonics),
+            "calendar": self.calendar_,
+            "coefficients": self.coefficients_.tolist(),
+        }
 
     @classmethod
     def from_dict(cls, d: Mapping[str, Any], n_points: int) -> SeasonalCycle:
@@ -115,8 +125,10 @@ class SeasonalCycle:
         rows = 12 if t.kind == "month" else 1 + 2 * t.n_harmonics
         coef = np.asarray(d.get("coefficients"), dtype=np.float64)
         if coef.shape != (rows, n_points) or not np.all(np.isfinite(coef)):
-            raise ModelFileError(f"field transform climatology: coefficients of shape "
-                                 f"{coef.shape}, expected ({rows}, {n_points}) finite numbers")
+            raise ModelFileError(
+                f"field transform climatology: coefficients of shape "
+                f"{coef.shape}, expected ({rows}, {n_points}) finite numbers"
+            )
         t.coefficients_ = coef
         t.calendar_ = str(d.get("calendar", "standard"))
         return t

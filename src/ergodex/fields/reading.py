@@ -115,7 +115,7 @@ class Field:
     member_labels: tuple[str, ...] = ("0",)
     source: str = ""
     attrs: dict = field(default_factory=dict)
-    names: dict = field(default_factory=dict)   # the file's dimension names (time, lat, lon, ...)
+    names: dict = field(default_factory=dict)  # the file's dimension names (time, lat, lon, ...)
     level: float | None = None
 
     @property
@@ -157,8 +157,9 @@ class Field:
         idx = [int(i) for i in indices]
         if not idx or min(idx) < 0 or max(idx) >= self.n_members:
             raise DataError(f"{self.source}: members {idx} out of range 0..{self.n_members - 1}")
-        return replace(self, values=self.values[idx],
-                       member_labels=tuple(self.member_labels[i] for i in idx))
+        return replace(
+            self, values=self.values[idx], member_labels=tuple(self.member_labels[i] for i in idx)
+        )
 
     def loaded(self) -> Field:
         """The same field with its values in memory (computes a lazy array)."""
@@ -194,8 +195,10 @@ def _monotonic(values: np.ndarray, where: str) -> int:
     if np.all(d < 0):
         return -1
     i = int(np.flatnonzero(np.sign(d) != np.sign(d[0]))[0]) + 1
-    raise DataError(f"{where}: coordinate is not monotonic at index {i} "
-                    f"({values[i - 1]:g} then {values[i]:g}); sort it")
+    raise DataError(
+        f"{where}: coordinate is not monotonic at index {i} "
+        f"({values[i - 1]:g} then {values[i]:g}); sort it"
+    )
 
 
 @dataclass
@@ -215,13 +218,15 @@ def _open_part(xr, path: Path, variable: str, chunks) -> _Part:
     if not path.is_file():
         raise DataError(f"{path}: no such file (or not a regular file)")
     try:
-        ds = xr.open_dataset(path, decode_times=False, mask_and_scale=True,
-                             chunks=chunks if chunks else None)
+        ds = xr.open_dataset(
+            path, decode_times=False, mask_and_scale=True, chunks=chunks if chunks else None
+        )
     except Exception as exc:  # noqa: BLE001 - each backend raises its own type
         raise DataError(f"{where}: cannot be read as NetCDF ({_one_line(exc)})") from None
     if variable not in ds.data_vars:
-        raise DataError(f"{where}: no variable {variable!r}; the file holds "
-                        f"{sorted(map(str, ds.data_vars))}")
+        raise DataError(
+            f"{where}: no variable {variable!r}; the file holds {sorted(map(str, ds.data_vars))}"
+        )
     da = ds[variable]
     if da.dtype.kind not in "biuf":
         raise DataError(f"{where}: variable {variable!r} is not numeric ({da.dtype})")
@@ -232,23 +237,28 @@ def _open_part(xr, path: Path, variable: str, chunks) -> _Part:
             if c is not None and " since " in str(c.attrs.get("units", "")):
                 tdim = str(dim)
     if tdim is None:
-        raise DataError(f"{where}: variable {variable!r} has no time dimension (dimensions "
-                        f"{tuple(map(str, da.dims))}); a field needs one named 'time' or with CF "
-                        f"time units")
+        raise DataError(
+            f"{where}: variable {variable!r} has no time dimension (dimensions "
+            f"{tuple(map(str, da.dims))}); a field needs one named 'time' or with CF "
+            f"time units"
+        )
     if tdim not in ds.coords:
         raise DataError(f"{where}: variable {variable!r}, dimension {tdim!r}: no time coordinate")
     tcoord = ds[tdim]
     units = tcoord.attrs.get("units")
     if not isinstance(units, str) or " since " not in units:
-        raise DataError(f"{where}: variable {variable!r}, dimension {tdim!r}: the time coordinate "
-                        f"has no CF 'units' attribute (got {units!r}); add e.g. "
-                        f"units = 'days since 2000-01-01'")
+        raise DataError(
+            f"{where}: variable {variable!r}, dimension {tdim!r}: the time coordinate "
+            f"has no CF 'units' attribute (got {units!r}); add e.g. "
+            f"units = 'days since 2000-01-01'"
+        )
     calendar = str(tcoord.attrs.get("calendar", "standard")).lower()
     if calendar == "gregorian":
         calendar = "standard"
     numbers = np.asarray(tcoord.values, dtype=np.float64)
-    dates = decode_times(numbers, units, calendar, where=f"{where}: variable {variable!r}, "
-                                                         f"dimension {tdim!r}")
+    dates = decode_times(
+        numbers, units, calendar, where=f"{where}: variable {variable!r}, dimension {tdim!r}"
+    )
     return _Part(path, da.rename({tdim: "time"}), dates, units, calendar, ds)
 
 
@@ -256,9 +266,11 @@ def _check_calendars(parts: list[_Part], variable: str) -> None:
     first = parts[0]
     for p in parts[1:]:
         if p.calendar != first.calendar:
-            raise DataError(f"{p.path}: variable {variable!r}, dimension 'time': calendar "
-                            f"{p.calendar!r} differs from {first.calendar!r} in {first.path}; "
-                            f"files of one field must share a calendar")
+            raise DataError(
+                f"{p.path}: variable {variable!r}, dimension 'time': calendar "
+                f"{p.calendar!r} differs from {first.calendar!r} in {first.path}; "
+                f"files of one field must share a calendar"
+            )
 
 
 def read_field(
@@ -303,8 +315,15 @@ def read_field(
         require("dask", "dask", "reading fields lazily in chunks")
     parts = [_open_part(xr, Path(p), variable, {"time": chunks} if chunks else None) for p in paths]
     try:
-        return _assemble(xr, parts, variable, box=box, level=level, lazy=chunks is not None,
-                         min_samples=min_samples)
+        return _assemble(
+            xr,
+            parts,
+            variable,
+            box=box,
+            level=level,
+            lazy=chunks is not None,
+            min_samples=min_samples,
+        )
     finally:
         if chunks is None:
             for p in parts:
@@ -330,19 +349,25 @@ def _assemble(xr, parts: list[_Part], variable: str, *, box, level, lazy, min_sa
         da = p.da
         dims = set(map(str, da.dims))
         if dims != set(map(str, da0.dims)):
-            raise DataError(f"{p.path}: variable {variable!r} has dimensions "
-                            f"{tuple(map(str, da.dims))}, {first.path} has "
-                            f"{tuple(map(str, da0.dims))}")
+            raise DataError(
+                f"{p.path}: variable {variable!r} has dimensions "
+                f"{tuple(map(str, da.dims))}, {first.path} has "
+                f"{tuple(map(str, da0.dims))}"
+            )
         for dim in extra:
             if da.sizes[dim] == 1:
                 da = da.isel({dim: 0})
             elif level is None:
-                raise DataError(f"{p.path}: variable {variable!r}, dimension {dim!r} has "
-                                f"{da.sizes[dim]} values; choose one with --level")
+                raise DataError(
+                    f"{p.path}: variable {variable!r}, dimension {dim!r} has "
+                    f"{da.sizes[dim]} values; choose one with --level"
+                )
             else:
                 if dim not in da.coords:
-                    raise DataError(f"{p.path}: variable {variable!r}, dimension {dim!r} has no "
-                                    f"coordinate to select --level {level:g} from")
+                    raise DataError(
+                        f"{p.path}: variable {variable!r}, dimension {dim!r} has no "
+                        f"coordinate to select --level {level:g} from"
+                    )
                 da = da.sel({dim: level}, method="nearest")
         das.append(da)
     # grid: identical in every file, monotonic, latitude made ascending
@@ -352,8 +377,10 @@ def _assemble(xr, parts: list[_Part], variable: str, *, box, level, lazy, min_sa
         for dim, ref in ((lat_dim, lat), (lon_dim, lon)):
             vals = np.asarray(da[dim].values, dtype=np.float64)
             if vals.shape != ref.shape or not np.allclose(vals, ref):
-                raise DataError(f"{p.path}: variable {variable!r}, dimension {dim!r}: grid "
-                                f"differs from {first.path}")
+                raise DataError(
+                    f"{p.path}: variable {variable!r}, dimension {dim!r}: grid "
+                    f"differs from {first.path}"
+                )
     if _monotonic(lat, f"{where}, dimension {lat_dim!r}") < 0:
         das = [da.isel({lat_dim: slice(None, None, -1)}) for da in das]
         lat = lat[::-1]
@@ -361,20 +388,27 @@ def _assemble(xr, parts: list[_Part], variable: str, *, box, level, lazy, min_sa
     if box is not None:
         iy, ix = box.lat_index(lat), box.lon_index(lon)
         if iy.size == 0 or ix.size == 0:
-            raise DataError(f"{where}: the box {box.to_list()} holds no grid points (latitudes "
-                            f"{lat.min():g}..{lat.max():g}, longitudes "
-                            f"{lon.min():g}..{lon.max():g})")
+            raise DataError(
+                f"{where}: the box {box.to_list()} holds no grid points (latitudes "
+                f"{lat.min():g}..{lat.max():g}, longitudes "
+                f"{lon.min():g}..{lon.max():g})"
+            )
         das = [da.isel({lat_dim: iy, lon_dim: ix}) for da in das]
         lat, lon = lat[iy], lon[ix]
     # time: one clock across files
     dates = np.concatenate([p.dates for p in parts])
-    clock = clock_from_times(dates, first.units, first.calendar,
-                             where=f"{source}: variable {variable!r}, dimension 'time'")
+    clock = clock_from_times(
+        dates,
+        first.units,
+        first.calendar,
+        where=f"{source}: variable {variable!r}, dimension 'time'",
+    )
     if len(dates) < min_samples:
         raise DataError(f"{where}, dimension 'time': {len(dates)} samples; need {min_samples}")
     steps = np.arange(len(dates), dtype=np.int64)
-    order = ["time", lat_dim, lon_dim] if member_dim is None else [member_dim, "time", lat_dim,
-                                                                     lon_dim]
+    order = (
+        ["time", lat_dim, lon_dim] if member_dim is None else [member_dim, "time", lat_dim, lon_dim]
+    )
     arrays = [da.transpose(*order).data for da in das]
     if lazy:
         import dask.array as dsa
@@ -390,29 +424,53 @@ def _assemble(xr, parts: list[_Part], variable: str, *, box, level, lazy, min_sa
     mask, finite_count = _mask(full, lazy)
     n_time = full.shape[1]
     if not mask.any():
-        raise DataError(f"{where}: every value is missing (NaN or _FillValue) in the selected "
-                        f"region; check the variable or the --box")
+        raise DataError(
+            f"{where}: every value is missing (NaN or _FillValue) in the selected "
+            f"region; check the variable or the --box"
+        )
     partial = (finite_count > 0) & (finite_count < n_time * full.shape[0])
     if partial.any():
         iy, ix = np.argwhere(partial)[0]
-        raise DataError(f"{where}: the point at {lat_dim}={lat[iy]:g}, {lon_dim}={lon[ix]:g} is "
-                        f"missing at {n_time * full.shape[0] - int(finite_count[iy, ix])} of "
-                        f"{n_time * full.shape[0]} times (dimension 'time'); a field needs each "
-                        f"point present always or never: fill the gaps or choose a --box")
+        raise DataError(
+            f"{where}: the point at {lat_dim}={lat[iy]:g}, {lon_dim}={lon[ix]:g} is "
+            f"missing at {n_time * full.shape[0] - int(finite_count[iy, ix])} of "
+            f"{n_time * full.shape[0]} times (dimension 'time'); a field needs each "
+            f"point present always or never: fill the gaps or choose a --box"
+        )
     values = full.reshape(full.shape[:2] + (-1,))[..., mask.ravel()]
     if values.dtype not in (np.float32, np.float64):
         values = values.astype(np.float64)
     del full
     area, area_source = _area(first, das[0], lat, lon, lat_dim, lon_dim, mask, box)
-    attrs = {str(k): v for k, v in da0.attrs.items()
-             if isinstance(v, (str, int, float, np.number)) and k not in ("_FillValue",)}
+    attrs = {
+        str(k): v
+        for k, v in da0.attrs.items()
+        if isinstance(v, (str, int, float, np.number)) and k not in ("_FillValue",)
+    }
     units = attrs.get("units", "")
-    return Field(values=values, lat=lat, lon=lon, mask=mask, area=area, area_source=area_source,
-                 clock=clock, steps=steps, variable=variable, units=str(units),
-                 member_labels=labels, source=source, attrs=attrs,
-                 names={"time": "time", "lat": lat_dim, "lon": lon_dim,
-                        "member": member_dim or "", "time_units": first.units},
-                 level=level)
+    return Field(
+        values=values,
+        lat=lat,
+        lon=lon,
+        mask=mask,
+        area=area,
+        area_source=area_source,
+        clock=clock,
+        steps=steps,
+        variable=variable,
+        units=str(units),
+        member_labels=labels,
+        source=source,
+        attrs=attrs,
+        names={
+            "time": "time",
+            "lat": lat_dim,
+            "lon": lon_dim,
+            "member": member_dim or "",
+            "time_units": first.units,
+        },
+        level=level,
+    )
 
 
 def _member_labels(da, member_dim: str | None) -> tuple[str, ...]:

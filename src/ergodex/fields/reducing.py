@@ -82,8 +82,9 @@ def north_mode_count(eigenvalues: np.ndarray, n_samples: int) -> int:
 def _check(rule: str, n_modes: int | None, variance: float | None) -> None:
     if rule not in RULES:
         raise SettingsError(f"mode rule must be one of {list(RULES)}; got {rule!r}")
-    if rule == "count" and (isinstance(n_modes, bool) or not isinstance(n_modes, (int, np.integer))
-                            or n_modes < 1):
+    if rule == "count" and (
+        isinstance(n_modes, bool) or not isinstance(n_modes, (int, np.integer)) or n_modes < 1
+    ):
         raise SettingsError(f"--modes must be an integer ≥ 1; got {n_modes!r}")
     if rule == "variance" and not (isinstance(variance, (int, float)) and 0 < variance <= 1):
         raise SettingsError(f"--variance must be a fraction in (0, 1]; got {variance!r}")
@@ -165,8 +166,13 @@ def weighted_eof(
     else:
         k = north_mode_count(s**2 / (n - 1), n)
     k = max(1, min(k, limit, s.size))
-    return EOFResult(components=np.ascontiguousarray(vt[:k]), singular_values=s,
-                     total_variance=total, variance_fraction=fractions[:k], solver=used)
+    return EOFResult(
+        components=np.ascontiguousarray(vt[:k]),
+        singular_values=s,
+        total_variance=total,
+        variance_fraction=fractions[:k],
+        solver=used,
+    )
 
 
 def _lazy_svd(anomalies, sqrt_w, want: int, seed: int, n_iter: int = 4, oversample: int = 20):
@@ -189,11 +195,11 @@ def _lazy_svd(anomalies, sqrt_w, want: int, seed: int, n_iter: int = 4, oversamp
     omega = rng.standard_normal((p, ell))
     y = np.empty((n, ell))
     total = 0.0
-    for a, b, blk in blocks():                      # Y = A Ω, and the total sum of squares
+    for a, b, blk in blocks():  # Y = A Ω, and the total sum of squares
         y[a:b] = blk @ omega
         total += float(np.einsum("ij,ij->", blk, blk))
     q, _ = np.linalg.qr(y)
-    for _ in range(n_iter):                          # power iterations, re-orthonormalised
+    for _ in range(n_iter):  # power iterations, re-orthonormalised
         z = np.zeros((p, ell))
         for a, b, blk in blocks():
             z += blk.T @ q[a:b]
@@ -201,7 +207,7 @@ def _lazy_svd(anomalies, sqrt_w, want: int, seed: int, n_iter: int = 4, oversamp
         for a, b, blk in blocks():
             y[a:b] = blk @ z
         q, _ = np.linalg.qr(y)
-    bt = np.zeros((p, ell))                          # B^T = A^T Q
+    bt = np.zeros((p, ell))  # B^T = A^T Q
     for a, b, blk in blocks():
         bt += blk.T @ q[a:b]
     _, s, vt = np.linalg.svd(bt.T, full_matrices=False)

@@ -35,8 +35,9 @@ def _floats(value: Any, name: str, shape: tuple[int, ...] | None = None) -> np.n
     except (TypeError, ValueError):
         raise ModelFileError(f"field transform: {name!r} must be numbers") from None
     if (shape is not None and arr.shape != shape) or not np.all(np.isfinite(arr)):
-        raise ModelFileError(f"field transform: {name!r} has shape {arr.shape}, expected "
-                             f"{shape} finite numbers")
+        raise ModelFileError(
+            f"field transform: {name!r} has shape {arr.shape}, expected {shape} finite numbers"
+        )
     return arr
 
 
@@ -74,9 +75,18 @@ class FieldModes(Transform):
 
     kind = "field-modes"
 
-    def __init__(self, n_modes: int | None = None, *, variance: float | None = None,
-                 north: bool = False, climatology: str | None = "auto", detrend: bool = False,
-                 max_modes: int | None = None, solver: str = "auto", seed: int = 0) -> None:
+    def __init__(
+        self,
+        n_modes: int | None = None,
+        *,
+        variance: float | None = None,
+        north: bool = False,
+        climatology: str | None = "auto",
+        detrend: bool = False,
+        max_modes: int | None = None,
+        solver: str = "auto",
+        seed: int = 0,
+    ) -> None:
         super().__init__()
         self.n_modes = n_modes
         self.variance = variance
@@ -99,21 +109,26 @@ class FieldModes(Transform):
         if chosen > 1:
             raise SettingsError("give at most one of --modes, --variance and --north")
         if self.climatology not in (None, "auto", *CLIMATOLOGIES):
-            raise SettingsError(f"climatology must be auto, month, day or none; got "
-                                f"{self.climatology!r}")
+            raise SettingsError(
+                f"climatology must be auto, month, day or none; got {self.climatology!r}"
+            )
         if not isinstance(self.detrend, bool):
             raise SettingsError(f"detrend must be True or False; got {self.detrend!r}")
 
     def _settings_repr(self) -> str:
-        return (f"n_modes={self.n_modes}, variance={self.variance}, north={self.north}, "
-                f"climatology={self.climatology!r}, detrend={self.detrend}")
+        return (
+            f"n_modes={self.n_modes}, variance={self.variance}, north={self.north}, "
+            f"climatology={self.climatology!r}, detrend={self.detrend}"
+        )
 
     # -- fitting -------------------------------------------------------------------------------
     def fit(self, X: Any, *, names: Sequence[str] | None = None) -> FieldModes:
         """Fit on a :class:`~ergodex.fields.reading.Field` (every member is used)."""
         if not isinstance(X, Field):
-            raise SettingsError("a field-modes transform is fitted on a Field "
-                                "(ergodex.fields.read_field), not on a table of columns")
+            raise SettingsError(
+                "a field-modes transform is fitted on a Field "
+                "(ergodex.fields.read_field), not on a table of columns"
+            )
         self._check_settings()
         field = X
         self.clock_ = field.clock
@@ -132,8 +147,7 @@ class FieldModes(Transform):
             self.climatology_ = {"years": None, "months": "month"}.get(self.clock_.unit, "day")
         if self.climatology_ is not None:
             dates = self.clock_.dates_at(steps)
-            self.cycle_ = SeasonalCycle(self.climatology_).fit(values, dates,
-                                                                self.clock_.calendar)
+            self.cycle_ = SeasonalCycle(self.climatology_).fit(values, dates, self.clock_.calendar)
         self.mean_ = np.zeros(field.n_points)
         if isinstance(values, np.ndarray):
             # one float64 working copy, changed in place (the benchmark's memory budget)
@@ -148,12 +162,18 @@ class FieldModes(Transform):
                 self.trend_ = LinearTrend().fit(_minus(values, steps, self._cycle_only), steps)
             self.mean_ = np.asarray(_minus(values, steps, self._baseline).mean(axis=0).compute())
             anomalies = _minus(values, steps, self._baseline)
-        variance = self.variance if (self.variance is not None or self.rule != "variance") \
-            else 0.9
-        eof: EOFResult = weighted_eof(anomalies, self.area_, rule=self.rule,
-                                      n_modes=self.n_modes, variance=variance,
-                                      max_modes=self.max_modes, solver=self.solver,
-                                      seed=self.seed, overwrite=True)
+        variance = self.variance if (self.variance is not None or self.rule != "variance") else 0.9
+        eof: EOFResult = weighted_eof(
+            anomalies,
+            self.area_,
+            rule=self.rule,
+            n_modes=self.n_modes,
+            variance=variance,
+            max_modes=self.max_modes,
+            solver=self.solver,
+            seed=self.seed,
+            overwrite=True,
+        )
         del anomalies
         self.components_ = eof.components
         self.variance_fraction_ = eof.variance_fraction
@@ -161,7 +181,7 @@ class FieldModes(Transform):
         self.singular_values_ = eof.singular_values
         self.eof_solver_ = eof.solver
         self.n_fit_samples_ = int(values.shape[0])
-        self.record_end_ = int(field.steps[-1]) + 1   # first step after the fit record
+        self.record_end_ = int(field.steps[-1]) + 1  # first step after the fit record
         self.input_names_ = field.point_names()
         return self
 
@@ -227,13 +247,18 @@ class FieldModes(Transform):
     def summary(self) -> dict[str, Any]:
         """What a person reads about the reduction (JSON-able)."""
         return {
-            "variable": self.variable_, "units": self.units_,
+            "variable": self.variable_,
+            "units": self.units_,
             "grid": [int(self.lat_.size), int(self.lon_.size)],
-            "valid_points": int(self.mask_.sum()), "area_weights": self.area_source_,
-            "dt": self.clock_.step, "time_unit": self.clock_.unit,
+            "valid_points": int(self.mask_.sum()),
+            "area_weights": self.area_source_,
+            "dt": self.clock_.step,
+            "time_unit": self.clock_.unit,
             "calendar": self.clock_.calendar,
             "climatology": None if self.cycle_ is None else self.cycle_.kind,
-            "detrend": self.detrend, "mode_rule": self.rule, "n_modes": self.n_modes_,
+            "detrend": self.detrend,
+            "mode_rule": self.rule,
+            "n_modes": self.n_modes_,
             "variance_fraction": [float(f) for f in self.variance_fraction_],
             "variance_captured": float(np.sum(self.variance_fraction_)),
             "eof_solver": self.eof_solver_,
@@ -251,35 +276,53 @@ class FieldModes(Transform):
 
     def _state(self) -> dict[str, Any]:
         return {
-            "settings": {"n_modes": self.n_modes, "variance": self.variance,
-                         "north": bool(self.north), "climatology": self.climatology,
-                         "detrend": bool(self.detrend), "max_modes": self.max_modes,
-                         "solver": self.solver, "seed": int(self.seed)},
-            "variable": self.variable_, "units": self.units_,
-            "attrs": {k: (v.item() if isinstance(v, np.generic) else v)
-                      for k, v in self.attrs_.items()},
+            "settings": {
+                "n_modes": self.n_modes,
+                "variance": self.variance,
+                "north": bool(self.north),
+                "climatology": self.climatology,
+                "detrend": bool(self.detrend),
+                "max_modes": self.max_modes,
+                "solver": self.solver,
+                "seed": int(self.seed),
+            },
+            "variable": self.variable_,
+            "units": self.units_,
+            "attrs": {
+                k: (v.item() if isinstance(v, np.generic) else v) for k, v in self.attrs_.items()
+            },
             "dims": self.dims_,
-            "lat": self.lat_.tolist(), "lon": self.lon_.tolist(),
+            "lat": self.lat_.tolist(),
+            "lon": self.lon_.tolist(),
             "valid_points": np.flatnonzero(self.mask_.ravel()).tolist(),
-            "area": self.area_.tolist(), "area_source": self.area_source_,
+            "area": self.area_.tolist(),
+            "area_source": self.area_source_,
             "clock": self.clock_.to_dict(),
             "climatology": None if self.cycle_ is None else self.cycle_.to_dict(),
             "trend": None if self.trend_ is None else self.trend_.to_dict(),
-            "mean": self.mean_.tolist(), "components": self.components_.tolist(),
+            "mean": self.mean_.tolist(),
+            "components": self.components_.tolist(),
             "variance_fraction": self.variance_fraction_.tolist(),
             "total_variance": float(self.total_variance_),
             "singular_values": self.singular_values_.tolist(),
-            "eof_solver": self.eof_solver_, "n_fit_samples": int(self.n_fit_samples_),
+            "eof_solver": self.eof_solver_,
+            "n_fit_samples": int(self.n_fit_samples_),
             "record_end": int(self.record_end_),
         }
 
     @classmethod
     def _from_state(cls, d: Mapping[str, Any], n_inputs: int) -> FieldModes:
         s = d.get("settings") or {}
-        t = cls(s.get("n_modes"), variance=s.get("variance"), north=bool(s.get("north")),
-                climatology=s.get("climatology"), detrend=bool(s.get("detrend")),
-                max_modes=s.get("max_modes"), solver=str(s.get("solver", "auto")),
-                seed=int(s.get("seed", 0)))
+        t = cls(
+            s.get("n_modes"),
+            variance=s.get("variance"),
+            north=bool(s.get("north")),
+            climatology=s.get("climatology"),
+            detrend=bool(s.get("detrend")),
+            max_modes=s.get("max_modes"),
+            solver=str(s.get("solver", "auto")),
+            seed=int(s.get("seed", 0)),
+        )
         t.lat_ = _floats(d["lat"], "lat")
         t.lon_ = _floats(d["lon"], "lon")
         valid = np.asarray(d["valid_points"], dtype=np.int64)
@@ -296,17 +339,20 @@ class FieldModes(Transform):
         t.attrs_ = dict(d.get("attrs") or {})
         t.dims_ = dict(d.get("dims") or {})
         t.clock_ = Clock.from_dict(d["clock"])
-        t.cycle_ = None if d.get("climatology") is None else \
-            SeasonalCycle.from_dict(d["climatology"], p)
+        t.cycle_ = (
+            None if d.get("climatology") is None else SeasonalCycle.from_dict(d["climatology"], p)
+        )
         t.trend_ = None if d.get("trend") is None else LinearTrend.from_dict(d["trend"], p)
         t.mean_ = _floats(d["mean"], "mean", (p,))
         comps = _floats(d["components"], "components")
         if comps.ndim != 2 or comps.shape[1] != p or comps.shape[0] < 1:
-            raise ModelFileError(f"field transform: 'components' has shape {comps.shape}, "
-                                 f"expected (n_modes, {p})")
+            raise ModelFileError(
+                f"field transform: 'components' has shape {comps.shape}, expected (n_modes, {p})"
+            )
         t.components_ = comps
-        t.variance_fraction_ = _floats(d["variance_fraction"], "variance_fraction",
-                                       (comps.shape[0],))
+        t.variance_fraction_ = _floats(
+            d["variance_fraction"], "variance_fraction", (comps.shape[0],)
+        )
         t.total_variance_ = float(d["total_variance"])
         t.singular_values_ = _floats(d.get("singular_values", []), "singular_values")
         t.eof_solver_ = str(d.get("eof_solver", ""))
@@ -324,30 +370,44 @@ def modes_series(transform: FieldModes, field: Field) -> Series:
     after the fit data gets the right seasonal cycle.
     """
     transform._require_fitted()
-    if field.variable != transform.variable_ or field.mask.shape != transform.mask_.shape \
-            or not np.array_equal(field.mask, transform.mask_):
-        raise DataError(f"{field.source}: variable {field.variable!r} on a {field.mask.shape} "
-                        f"grid with {int(field.mask.sum())} valid points does not match the "
-                        f"model's {transform.variable_!r} on {transform.mask_.shape} with "
-                        f"{int(transform.mask_.sum())}; read the same variable and --box")
+    if (
+        field.variable != transform.variable_
+        or field.mask.shape != transform.mask_.shape
+        or not np.array_equal(field.mask, transform.mask_)
+    ):
+        raise DataError(
+            f"{field.source}: variable {field.variable!r} on a {field.mask.shape} "
+            f"grid with {int(field.mask.sum())} valid points does not match the "
+            f"model's {transform.variable_!r} on {transform.mask_.shape} with "
+            f"{int(transform.mask_.sum())}; read the same variable and --box"
+        )
     if field.clock.unit != transform.clock_.unit or field.clock.step != transform.clock_.step:
-        raise DataError(f"{field.source}: variable {field.variable!r}, dimension 'time': samples "
-                        f"every {field.clock.dt_text}, the model's every {transform.dt_text}")
-    steps = transform.clock_.steps_of(field.clock.dates_at(field.steps),
-                                      where=f"{field.source}: variable {field.variable!r}")
+        raise DataError(
+            f"{field.source}: variable {field.variable!r}, dimension 'time': samples "
+            f"every {field.clock.dt_text}, the model's every {transform.dt_text}"
+        )
+    steps = transform.clock_.steps_of(
+        field.clock.dates_at(field.steps), where=f"{field.source}: variable {field.variable!r}"
+    )
     w = transform.components_ * transform.sqrt_weights
     runs = []
     for m in range(field.n_members):
         x = field.values[m]
         if isinstance(x, np.ndarray):
-            z = np.concatenate([(x[a:b] - transform._baseline(steps[a:b])) @ w.T
-                                for a, b in _blocks(x.shape[0])])
+            z = np.concatenate(
+                [(x[a:b] - transform._baseline(steps[a:b])) @ w.T for a, b in _blocks(x.shape[0])]
+            )
         else:
             z = np.asarray((_minus(x, steps, transform._baseline) @ w.T).compute())
         runs.append(z)
-    return Series.from_arrays(runs, transform.output_names, transform.clock_.step,
-                              run_labels=list(field.member_labels), source=field.source,
-                              time_unit=transform.clock_.unit)
+    return Series.from_arrays(
+        runs,
+        transform.output_names,
+        transform.clock_.step,
+        run_labels=list(field.member_labels),
+        source=field.source,
+        time_unit=transform.clock_.unit,
+    )
 
 
 _BLOCK_ROWS = 256
@@ -378,7 +438,11 @@ def _minus(values: Any, steps: np.ndarray, baseline) -> Any:
 
     def block(b, block_info=None):
         start, stop = block_info[0]["array-location"][0]
-        return b - baseline(steps[start:stop])[:, block_info[0]["array-location"][1][0]:
-                                               block_info[0]["array-location"][1][1]]
+        return (
+            b
+            - baseline(steps[start:stop])[
+                :, block_info[0]["array-location"][1][0] : block_info[0]["array-location"][1][1]
+            ]
+        )
 
     return values.map_blocks(block, dtype=np.float64)

@@ -65,32 +65,57 @@ def write_field(
     grid = np.full((n_members, n_time) + mask.shape, np.nan, dtype=np.float32)
     grid[:, :, mask] = values
     times = clock.numbers_at(np.asarray(steps), time_units)
-    var_attrs = {k: v for k, v in dict(attrs or {}).items()
-                 if k not in ("_FillValue", "missing_value", "scale_factor", "add_offset",
-                              "cell_measures")}
+    var_attrs = {
+        k: v
+        for k, v in dict(attrs or {}).items()
+        if k not in ("_FillValue", "missing_value", "scale_factor", "add_offset", "cell_measures")
+    }
     if units:
         var_attrs["units"] = units
     ds = xr.Dataset(
         {variable: ((member_dim, "time", lat_dim, lon_dim), grid, var_attrs)},
         coords={
-            "time": ("time", times, {"units": time_units, "calendar": clock.calendar,
-                                     "standard_name": "time", "axis": "T"}),
-            lat_dim: (lat_dim, np.asarray(lat, dtype=np.float64),
-                      {"units": "degrees_north", "standard_name": "latitude", "axis": "Y"}),
-            lon_dim: (lon_dim, np.asarray(lon, dtype=np.float64),
-                      {"units": "degrees_east", "standard_name": "longitude", "axis": "X"}),
+            "time": (
+                "time",
+                times,
+                {
+                    "units": time_units,
+                    "calendar": clock.calendar,
+                    "standard_name": "time",
+                    "axis": "T",
+                },
+            ),
+            lat_dim: (
+                lat_dim,
+                np.asarray(lat, dtype=np.float64),
+                {"units": "degrees_north", "standard_name": "latitude", "axis": "Y"},
+            ),
+            lon_dim: (
+                lon_dim,
+                np.asarray(lon, dtype=np.float64),
+                {"units": "degrees_east", "standard_name": "longitude", "axis": "X"},
+            ),
             member_dim: (member_dim, np.arange(n_members, dtype=np.int32)),
         },
-        attrs={"Conventions": "CF-1.8", "ergodex_version": __version__,
-               **{str(k): v for k, v in dict(global_attrs or {}).items() if v is not None}},
+        attrs={
+            "Conventions": "CF-1.8",
+            "ergodex_version": __version__,
+            **{str(k): v for k, v in dict(global_attrs or {}).items() if v is not None},
+        },
     )
-    encoding: dict[str, Any] = {"time": {"dtype": "float64", "_FillValue": None},
-                                lat_dim: {"_FillValue": None}, lon_dim: {"_FillValue": None}}
+    encoding: dict[str, Any] = {
+        "time": {"dtype": "float64", "_FillValue": None},
+        lat_dim: {"_FillValue": None},
+        lon_dim: {"_FillValue": None},
+    }
     if packing:
         encoding[variable] = dict(packing)
     else:
         encoding[variable] = {"dtype": "float32", "_FillValue": _FILL}
     path = Path(path)
-    atomic_write_path(path, lambda tmp: ds.to_netcdf(tmp, engine=_netcdf_engine(),
-                                                     encoding=encoding), make_folder=False)
+    atomic_write_path(
+        path,
+        lambda tmp: ds.to_netcdf(tmp, engine=_netcdf_engine(), encoding=encoding),
+        make_folder=False,
+    )
     return path

@@ -19,8 +19,8 @@ from typing import Any, ClassVar
 import numpy as np
 from sklearn.base import BaseEstimator
 
-from ergodex.fit_methods import FIT_METHODS
 from ergodex.exceptions import DataError, NotFittedError, SettingsError
+from ergodex.fit_methods import FIT_METHODS
 from ergodex.fitting.settings import Rule, check_settings
 
 log = logging.getLogger(__name__)
@@ -117,9 +117,15 @@ class Fitter(BaseEstimator):
         check_series(series)
         before = copy.deepcopy(self.get_params(deep=False))
         total = len(self.fit_stages) + 1
-        log.info("fit %s: %d runs, %d samples of %d variables (%s), dt=%g",
-                 self.method, series.n_runs, series.n_samples, series.n_variables,
-                 ", ".join(series.names), series.dt)
+        log.info(
+            "fit %s: %d runs, %d samples of %d variables (%s), dt=%g",
+            self.method,
+            series.n_runs,
+            series.n_samples,
+            series.n_variables,
+            ", ".join(series.names),
+            series.dt,
+        )
         started = time.perf_counter()
         with reporter(progress, total, desc=f"fit {self.method}") as update:
             self._stage_state = [0, total, update]
@@ -135,8 +141,13 @@ class Fitter(BaseEstimator):
                 f"{type(self).__name__}._fit changed a setting; learned state belongs in "
                 "attributes ending in '_'"
             )
-        log.info("fit %s done in %.2f s: %d terms, score %.4g", self.method,
-                 time.perf_counter() - started, getattr(self, "n_terms_", -1), self.score_)
+        log.info(
+            "fit %s done in %.2f s: %d terms, score %.4g",
+            self.method,
+            time.perf_counter() - started,
+            getattr(self, "n_terms_", -1),
+            self.score_,
+        )
         return self
 
     def _stage(self, name: str) -> None:
@@ -203,7 +214,9 @@ def check_series(series) -> None:
             )
     stacked = np.concatenate([np.asarray(r, dtype=float) for r in series.runs], axis=0)
     if not np.all(np.isfinite(stacked)):
-        raise DataError(f"{_source(series)}: the data hold non-finite values; clean or split the runs first")
+        raise DataError(
+            f"{_source(series)}: the data hold non-finite values; clean or split the runs first"
+        )
     spread = np.ptp(stacked, axis=0)
     scale = np.maximum(np.abs(stacked).max(axis=0), 1.0)
     for j, name in enumerate(series.names):
@@ -289,7 +302,9 @@ def check_fit_settings(method: str | type[Fitter], settings: Mapping[str, Any]) 
     """Check a method name and its settings without building anything; raise :class:`SettingsError`."""
     cls = fitter_class(method)
     if not isinstance(settings, Mapping):
-        raise SettingsError(f"{cls.method} settings must be a table of key = value; got {type(settings).__name__}")
+        raise SettingsError(
+            f"{cls.method} settings must be a table of key = value; got {type(settings).__name__}"
+        )
     check_settings(cls.method, settings, cls.settings_table)
 
 
@@ -326,7 +341,9 @@ def make_fitter(method: str | type[Fitter], settings: Mapping[str, Any] | None =
 _TOP_LEVEL_KEYS = ("method", "settings", "select")
 
 
-def parse_fit_settings(document: Mapping[str, Any], *, source: str = "fit settings") -> tuple[str, dict]:
+def parse_fit_settings(
+    document: Mapping[str, Any], *, source: str = "fit settings"
+) -> tuple[str, dict]:
     """Validate a parsed fit-settings document and return ``(method, settings)``.
 
     The document holds ``method = "sparse"`` and a ``[settings]`` table; a ``[select]`` table is
@@ -339,10 +356,14 @@ def parse_fit_settings(document: Mapping[str, Any], *, source: str = "fit settin
             )
     method = document.get("method", "sparse")
     if not isinstance(method, str) or method not in FITTERS:
-        raise SettingsError(f"{source}: key 'method' must be one of {', '.join(FITTERS)}; got {method!r}")
+        raise SettingsError(
+            f"{source}: key 'method' must be one of {', '.join(FITTERS)}; got {method!r}"
+        )
     settings = document.get("settings", {})
     if not isinstance(settings, Mapping):
-        raise SettingsError(f"{source}: 'settings' must be a table ([settings]); got {type(settings).__name__}")
+        raise SettingsError(
+            f"{source}: 'settings' must be a table ([settings]); got {type(settings).__name__}"
+        )
     try:
         check_fit_settings(method, settings)
     except SettingsError as exc:

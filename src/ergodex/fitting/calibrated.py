@@ -78,7 +78,7 @@ def piece_noise_covariance(
                 f"runs of {len(run)} samples are too short to cut into {per_run} pieces longer "
                 f"than the largest lag ({max(lags)} samples); supply longer runs"
             )
-        pieces.extend(run[k * length:(k + 1) * length] for k in range(per_run))
+        pieces.extend(run[k * length : (k + 1) * length] for k in range(per_run))
     values = np.array([statistics_vector([p], lags) for p in pieces])
     variance = values.var(axis=0, ddof=1) / len(pieces)
     floor = 1e-6 * np.maximum(np.abs(values.mean(axis=0)), 1e-12)
@@ -106,8 +106,14 @@ def surrogate_statistics(
     from ergodex.integrate import integrate_ensemble
 
     result = integrate_ensemble(
-        surrogate, initial_states, dt_out=dt, n_out=n_out, spinup=spinup, seed=seed,
-        stiffness_states=stiffness_states, bound=bound,
+        surrogate,
+        initial_states,
+        dt_out=dt,
+        n_out=n_out,
+        spinup=spinup,
+        seed=seed,
+        stiffness_states=stiffness_states,
+        bound=bound,
     )
     n = surrogate.n_variables
     if result.n_blown_up:
@@ -175,12 +181,20 @@ class CalibratedLinearInverse(LinearInverseModel):
     settings_table = {
         **LinearInverseModel.settings_table,
         "cubic_damping": Rule("bool", help="add per-variable cubic damping (coefficient >= 0)"),
-        "calibration_lags": Rule("float-list", low=0.0, low_open=True,
-                                 help="autocorrelation target lags, multiples of tau0"),
+        "calibration_lags": Rule(
+            "float-list",
+            low=0.0,
+            low_open=True,
+            help="autocorrelation target lags, multiples of tau0",
+        ),
         "members": Rule("int", low=4, help="parameter ensemble size of the calibration"),
         "iterations": Rule("int", low=0, high=50, help="ensemble Kalman updates"),
-        "simulation_length": Rule("float", low=0.0, low_open=True,
-                                  help="forward run length, multiple of the fit runs' length"),
+        "simulation_length": Rule(
+            "float",
+            low=0.0,
+            low_open=True,
+            help="forward run length, multiple of the fit runs' length",
+        ),
         "n_pieces": Rule("int", low=2, help="pieces of the fit runs for the statistics' noise"),
         "seed": Rule("int", low=0, help="seed of the calibration"),
         "homogeneous": Rule("bool", help="variables on a homogeneous ring: fit on all rotations"),
@@ -207,8 +221,13 @@ class CalibratedLinearInverse(LinearInverseModel):
         homogeneous: bool = False,
     ) -> None:
         super().__init__(
-            tau0=tau0, tau_test=tau_test, tau_test_tolerance=tau_test_tolerance, n_modes=n_modes,
-            standardise=standardise, unstable=unstable, negative_noise=negative_noise,
+            tau0=tau0,
+            tau_test=tau_test,
+            tau_test_tolerance=tau_test_tolerance,
+            n_modes=n_modes,
+            standardise=standardise,
+            unstable=unstable,
+            negative_noise=negative_noise,
         )
         self.cubic_damping = cubic_damping
         self.calibration_lags = calibration_lags
@@ -222,8 +241,12 @@ class CalibratedLinearInverse(LinearInverseModel):
     def _reduce(self, series):
         if not self.homogeneous:
             return super()._reduce(series)
-        return reduce_series(cyclic_rotations(series), method=self.method, n_modes=self.n_modes,
-                             standardise=self.standardise)
+        return reduce_series(
+            cyclic_rotations(series),
+            method=self.method,
+            n_modes=self.n_modes,
+            standardise=self.standardise,
+        )
 
     def _fit(self, series) -> None:
         self._stage("linear inverse model")
@@ -269,23 +292,23 @@ class CalibratedLinearInverse(LinearInverseModel):
         # scale parameters, no source for the widths).
         prior = np.empty((self.members, p))
         prior[:, :g] = np.exp(rng.normal(0.0, 0.2, size=(self.members, g)))
-        prior[:, g:2 * g] = np.exp(rng.normal(0.0, 0.3, size=(self.members, g)))
-        prior[:, 2 * g:3 * g] = rng.normal(0.0, 0.2, size=(self.members, g))
+        prior[:, g : 2 * g] = np.exp(rng.normal(0.0, 0.3, size=(self.members, g)))
+        prior[:, 2 * g : 3 * g] = rng.normal(0.0, 0.2, size=(self.members, g))
         if self.cubic_damping:
-            prior[:, 3 * g:] = np.exp(rng.normal(np.log(0.1), 1.0, size=(self.members, g)))
+            prior[:, 3 * g :] = np.exp(rng.normal(np.log(0.1), 1.0, size=(self.members, g)))
 
         positive = np.ones(p, dtype=bool)
-        positive[2 * g:3 * g] = False  # the damping shifts may take either sign
+        positive[2 * g : 3 * g] = False  # the damping shifts may take either sign
 
         def expand(theta: np.ndarray) -> np.ndarray:
             """Per-group parameters → per-variable (r, s, d, c), c in its own units."""
-            blocks = [theta[k * g:(k + 1) * g][groups] for k in range(3)]
-            c = theta[3 * g:][groups] * damping_unit if self.cubic_damping else np.zeros(n)
+            blocks = [theta[k * g : (k + 1) * g][groups] for k in range(3)]
+            c = theta[3 * g :][groups] * damping_unit if self.cubic_damping else np.zeros(n)
             return np.concatenate(blocks + [c])
 
         def build(theta: np.ndarray):
             full = expand(theta)
-            r, s, d, c = full[:n], full[n:2 * n], full[2 * n:3 * n], full[3 * n:]
+            r, s, d, c = full[:n], full[n : 2 * n], full[2 * n : 3 * n], full[3 * n :]
             return self._damped_surrogate(linear, r, s, d, c), c
 
         def forward(thetas: np.ndarray) -> np.ndarray:
@@ -293,8 +316,15 @@ class CalibratedLinearInverse(LinearInverseModel):
             for j, theta in enumerate(thetas):
                 surrogate, _ = build(theta)
                 out[j] = surrogate_statistics(
-                    surrogate, starts, dt=dt, n_out=n_out, spinup=5.0 * self.tau0_ * max(lags),
-                    lags=lags, seed=forward_seed, stiffness_states=stiffness_states, bound=bound,
+                    surrogate,
+                    starts,
+                    dt=dt,
+                    n_out=n_out,
+                    spinup=5.0 * self.tau0_ * max(lags),
+                    lags=lags,
+                    seed=forward_seed,
+                    stiffness_states=stiffness_states,
+                    bound=bound,
                 )
             return out
 
@@ -306,8 +336,14 @@ class CalibratedLinearInverse(LinearInverseModel):
                 stage_state[2](stage_state[0] * total_steps + done, stage_state[1] * total_steps)
 
         result = ensemble_kalman_inversion(
-            forward, target, gamma, prior, rng=rng, positive=positive,
-            n_iterations=self.iterations, progress=progress,
+            forward,
+            target,
+            gamma,
+            prior,
+            rng=rng,
+            positive=positive,
+            n_iterations=self.iterations,
+            progress=progress,
         )
         theta = result.parameters
         assert result.statistics is not None  # eki records the final statistics
@@ -326,15 +362,19 @@ class CalibratedLinearInverse(LinearInverseModel):
         from ergodex.surrogate import Surrogate
 
         self.surrogate_ = Surrogate(
-            surrogate.variables, surrogate.terms, surrogate.coefficients,
+            surrogate.variables,
+            surrogate.terms,
+            surrogate.coefficients,
             kind="cubic-stochastic" if self.cubic_damping else "linear-stochastic",
-            noise=surrogate.noise, transform=surrogate.transform, settings=settings,
+            noise=surrogate.noise,
+            transform=surrogate.transform,
+            settings=settings,
             provenance=provenance,
         )
         full = expand(theta)
         self.drift_scale_ = full[:n]
-        self.noise_scale_ = full[n:2 * n]
-        self.damping_shift_ = full[2 * n:3 * n] * np.abs(np.diag(self.L_))
+        self.noise_scale_ = full[n : 2 * n]
+        self.damping_shift_ = full[2 * n : 3 * n] * np.abs(np.diag(self.L_))
         self.parameter_groups_ = groups
         self.cubic_coefficients_ = c
         self.target_statistics_ = target
@@ -371,8 +411,7 @@ class CalibratedLinearInverse(LinearInverseModel):
             "homogeneous": self.homogeneous,
         }
 
-    def _damped_surrogate(self, linear, r: np.ndarray, s: np.ndarray, d: np.ndarray,
-                          c: np.ndarray):
+    def _damped_surrogate(self, linear, r: np.ndarray, s: np.ndarray, d: np.ndarray, c: np.ndarray):
         """Rows of L scaled by r, Lᵢᵢ shifted by dᵢ|Lᵢᵢ|, noise S Q S, and −cᵢ (xᵢ − μᵢ)³.
 
         (xᵢ − μᵢ)³ = xᵢ³ − 3μᵢ xᵢ² + 3μᵢ² xᵢ − μᵢ³, so the cubic adds monomials in xᵢ alone.
@@ -409,6 +448,12 @@ class CalibratedLinearInverse(LinearInverseModel):
                 coefficients[i, index[Term("monomial", tuple(powers))]] += factor * c[i]
         noise = s[:, None] * self.noise_covariance_ * s[None, :]
         return Surrogate(
-            linear.variables, terms, coefficients, kind="cubic-stochastic", noise=noise,
-            transform=linear.transform, settings=linear.settings, provenance=linear.provenance,
+            linear.variables,
+            terms,
+            coefficients,
+            kind="cubic-stochastic",
+            noise=noise,
+            transform=linear.transform,
+            settings=linear.settings,
+            provenance=linear.provenance,
         )

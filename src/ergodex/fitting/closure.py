@@ -106,8 +106,12 @@ class QuadraticNoiseModel(Fitter):
         "degree": Rule("int", low=1, high=4, help="highest total degree of the drift"),
         "ridge": Rule("float", low=0.0, help="ridge weight on unit-scaled terms"),
         "noise": Rule("choice", choices=("white", "ar1"), help="noise closure"),
-        "differentiation": Rule("choice", choices=("forward", "finite-difference"), help="tendency estimate"),
-        "n_modes": Rule("int", low=1, allow_none=True, help="principal components kept (None: all variables)"),
+        "differentiation": Rule(
+            "choice", choices=("forward", "finite-difference"), help="tendency estimate"
+        ),
+        "n_modes": Rule(
+            "int", low=1, allow_none=True, help="principal components kept (None: all variables)"
+        ),
         "standardise": Rule("bool", help="unit variance before PCA"),
     }
 
@@ -174,8 +178,14 @@ class QuadraticNoiseModel(Fitter):
             # Euler–Maruyama reading of one step: residual = √(Q/dt) ξ, so Q = dt · Cov(residual).
             noise = 0.5 * (residual_cov + residual_cov.T) * dt
             surrogate = Surrogate(
-                names, terms, coefficients, kind="polynomial-stochastic", noise=noise, transform=transform,
-                settings=settings, provenance=provenance,
+                names,
+                terms,
+                coefficients,
+                kind="polynomial-stochastic",
+                noise=noise,
+                transform=transform,
+                settings=settings,
+                provenance=provenance,
             )
         else:
             noise, ar1, surrogate = self._ar1_level(
@@ -224,7 +234,7 @@ class QuadraticNoiseModel(Fitter):
             big_terms.append(candidate)
         big = np.zeros((2 * n, len(big_terms)))
         big[:n, : len(terms)] = coefficients
-        big[:n, len(terms):] = np.eye(n)
+        big[:n, len(terms) :] = np.eye(n)
         index = {t: k for k, t in enumerate(big_terms)}
         constant = Term("monomial", (0,) * (2 * n))
         for j in range(2 * n):
@@ -239,7 +249,13 @@ class QuadraticNoiseModel(Fitter):
         # With a transform (PCA modes, standardising) the observed variables are its outputs, in
         # its order; the Surrogate maps only those to data space.
         surrogate = Surrogate(
-            tuple(names) + hidden, big_terms, big, kind="polynomial-emr", noise=noise, transform=transform,
-            settings=settings, provenance=provenance,
+            tuple(names) + hidden,
+            big_terms,
+            big,
+            kind="polynomial-emr",
+            noise=noise,
+            transform=transform,
+            settings=settings,
+            provenance=provenance,
         )
         return noise_hidden, B, surrogate

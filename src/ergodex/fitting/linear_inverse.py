@@ -21,7 +21,9 @@ from ergodex.fitting.transforming import reduce_series
 __all__ = ["LinearInverseModel", "lim_operators"]
 
 
-def lim_operators(C0: np.ndarray, Ctau: np.ndarray, tau: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def lim_operators(
+    C0: np.ndarray, Ctau: np.ndarray, tau: float
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Green's function, drift and noise of a linear inverse model from two covariances.
 
     Parameters
@@ -52,7 +54,9 @@ def lim_operators(C0: np.ndarray, Ctau: np.ndarray, tau: float) -> tuple[np.ndar
     """
     G = np.linalg.solve(C0.T, Ctau.T).T  # C(τ) C(0)⁻¹ without forming the inverse
     eigenvalues = np.linalg.eigvals(G)
-    bad = eigenvalues[(eigenvalues.real <= 0) & (np.abs(eigenvalues.imag) <= 1e-8 * np.abs(eigenvalues).max())]
+    bad = eigenvalues[
+        (eigenvalues.real <= 0) & (np.abs(eigenvalues.imag) <= 1e-8 * np.abs(eigenvalues).max())
+    ]
     if bad.size:
         raise DataError(
             f"G(τ₀) = C(τ₀) C(0)⁻¹ at τ₀ = {tau:g} has the eigenvalue {bad[0].real:.3g} ≤ 0, which has no real "
@@ -150,13 +154,25 @@ class LinearInverseModel(Fitter):
 
     method = "linear-inverse"
     settings_table = {
-        "tau0": Rule("float", low=0.0, low_open=True, allow_none=True, help="training lag (time units)"),
-        "tau_test": Rule("float-list", low=0.0, low_open=True, help="tau-test lags as multiples of tau0"),
-        "tau_test_tolerance": Rule("float", low=0.0, low_open=True, help="relative change of L called flat"),
-        "n_modes": Rule("int", low=1, allow_none=True, help="principal components kept (None: all variables)"),
+        "tau0": Rule(
+            "float", low=0.0, low_open=True, allow_none=True, help="training lag (time units)"
+        ),
+        "tau_test": Rule(
+            "float-list", low=0.0, low_open=True, help="tau-test lags as multiples of tau0"
+        ),
+        "tau_test_tolerance": Rule(
+            "float", low=0.0, low_open=True, help="relative change of L called flat"
+        ),
+        "n_modes": Rule(
+            "int", low=1, allow_none=True, help="principal components kept (None: all variables)"
+        ),
         "standardise": Rule("bool", help="unit variance before PCA"),
-        "unstable": Rule("choice", choices=("refuse", "flag"), help="growing modes: refuse or flag"),
-        "negative_noise": Rule("choice", choices=("clip", "refuse"), help="negative noise eigenvalues"),
+        "unstable": Rule(
+            "choice", choices=("refuse", "flag"), help="growing modes: refuse or flag"
+        ),
+        "negative_noise": Rule(
+            "choice", choices=("clip", "refuse"), help="negative noise eigenvalues"
+        ),
     }
 
     def __init__(
@@ -229,7 +245,9 @@ class LinearInverseModel(Fitter):
                 f"tau0 = {tau0:g}"
             )
             if self.negative_noise == "refuse":
-                raise DataError(f"{_source(series)}: {message}; set negative_noise = 'clip' to keep the model")
+                raise DataError(
+                    f"{_source(series)}: {message}; set negative_noise = 'clip' to keep the model"
+                )
             w, V = np.linalg.eigh(Q)
             noise = (V * np.clip(w, 0.0, None)) @ V.T
             noise = 0.5 * (noise + noise.T)
@@ -266,7 +284,11 @@ class LinearInverseModel(Fitter):
             kind="linear-stochastic",
             noise=noise,
             transform=transform,
-            settings={"method": self.method, **_json_settings(self.get_params()), "tau0_used": tau0},
+            settings={
+                "method": self.method,
+                **_json_settings(self.get_params()),
+                "tau0_used": tau0,
+            },
             provenance=data_provenance(
                 series,
                 runs,
@@ -298,7 +320,9 @@ class LinearInverseModel(Fitter):
 
     def _reduce(self, series):
         """The transform, the runs in model space and their names (a subclass may widen the runs)."""
-        return reduce_series(series, method=self.method, n_modes=self.n_modes, standardise=self.standardise)
+        return reduce_series(
+            series, method=self.method, n_modes=self.n_modes, standardise=self.standardise
+        )
 
     def _lag_samples(self, runs, mean, C0, dt: float) -> int:
         if self.tau0 is not None:

@@ -31,7 +31,14 @@ from ergodex.fitting.base import check_fit_settings, fitter_class, make_fitter
 
 log = logging.getLogger(__name__)
 
-__all__ = ["Candidate", "SelectionResult", "select", "threshold_sweep", "parse_selection", "DEFAULT_THRESHOLDS"]
+__all__ = [
+    "Candidate",
+    "SelectionResult",
+    "select",
+    "threshold_sweep",
+    "parse_selection",
+    "DEFAULT_THRESHOLDS",
+]
 
 #: Thresholds of the default sweep (geometric, in the data's tendency units).
 DEFAULT_THRESHOLDS = (0.01, 0.03, 0.1, 0.3, 1.0, 3.0)
@@ -44,11 +51,11 @@ class Candidate:
     index: int
     method: str
     settings: Mapping[str, Any]
-    verdict: str                      # "pass" | "fail" | "error" (the fit itself failed)
-    n_terms: int | None = None        # non-zero coefficients
-    statistical_score: float | None = None   # the scorecard's largest ratio to the noise floor
+    verdict: str  # "pass" | "fail" | "error" (the fit itself failed)
+    n_terms: int | None = None  # non-zero coefficients
+    statistical_score: float | None = None  # the scorecard's largest ratio to the noise floor
     tendency_error: float | None = None
-    fit_score: float | None = None    # the fitter's own score_ (tendency R² for sparse)
+    fit_score: float | None = None  # the fitter's own score_ (tendency R² for sparse)
     blowup_count: int = 0
     first_blowup_time: float | None = None
     reasons: list[str] = field(default_factory=list)
@@ -143,14 +150,22 @@ class SelectionResult:
 
     def table(self) -> str:
         """Plain-text front, one line per candidate, the chosen one marked."""
-        lines = [f"{'':2}{'#':>3}  {'method':16} {'terms':>5}  {'stat.score':>10}  {'tend.err':>8}  verdict"]
+        lines = [
+            f"{'':2}{'#':>3}  {'method':16} {'terms':>5}  {'stat.score':>10}  {'tend.err':>8}  verdict"
+        ]
         for c in self.front:
             mark = "* " if c.index == self.chosen else "  "
             score = "-" if c.statistical_score is None else f"{c.statistical_score:.3g}"
             tend = "-" if c.tendency_error is None else f"{c.tendency_error:.3g}"
             terms = "-" if c.n_terms is None else str(c.n_terms)
-            extra = f" (blow-up at t={c.first_blowup_time:.3g})" if c.first_blowup_time is not None else ""
-            lines.append(f"{mark}{c.index:>3}  {c.method:16} {terms:>5}  {score:>10}  {tend:>8}  {c.verdict}{extra}")
+            extra = (
+                f" (blow-up at t={c.first_blowup_time:.3g})"
+                if c.first_blowup_time is not None
+                else ""
+            )
+            lines.append(
+                f"{mark}{c.index:>3}  {c.method:16} {terms:>5}  {score:>10}  {tend:>8}  {c.verdict}{extra}"
+            )
         return "\n".join(lines)
 
 
@@ -158,13 +173,19 @@ def _clean(x: float | None) -> float | None:
     return None if x is None or not math.isfinite(x) else float(x)
 
 
-def threshold_sweep(thresholds: Sequence[float] = DEFAULT_THRESHOLDS, *, method: str = "sparse",
-                    settings: Mapping[str, Any] | None = None) -> list[tuple[str, dict]]:
+def threshold_sweep(
+    thresholds: Sequence[float] = DEFAULT_THRESHOLDS,
+    *,
+    method: str = "sparse",
+    settings: Mapping[str, Any] | None = None,
+) -> list[tuple[str, dict]]:
     """Candidates that differ only in the sparsity threshold (STLSQ ``threshold``)."""
     return [(method, {**dict(settings or {}), "threshold": float(t)}) for t in thresholds]
 
 
-def _evaluate(index: int, method: str, settings: dict, fit_data, reference, spec_dict: dict) -> dict:
+def _evaluate(
+    index: int, method: str, settings: dict, fit_data, reference, spec_dict: dict
+) -> dict:
     """Fit, check and summarise one candidate (runs in a worker; returns plain data)."""
     from ergodex.validation import CheckSpec, check
 
@@ -175,7 +196,11 @@ def _evaluate(index: int, method: str, settings: dict, fit_data, reference, spec
     except (ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:
         # a numerical failure inside one candidate (e.g. the optimizer) is that candidate's
         # finding; the sweep goes on and the front records it
-        return {"index": index, "verdict": "error", "reasons": [f"fit failed ({type(exc).__name__}): {exc}"]}
+        return {
+            "index": index,
+            "verdict": "error",
+            "reasons": [f"fit failed ({type(exc).__name__}): {exc}"],
+        }
     surrogate = fitter.surrogate_
     out = {
         "index": index,
@@ -185,8 +210,9 @@ def _evaluate(index: int, method: str, settings: dict, fit_data, reference, spec
         "model_json": surrogate.to_json(),
     }
     try:
-        scorecard = check(surrogate, reference, CheckSpec.from_dict(spec_dict),
-                          evidence=False).scorecard
+        scorecard = check(
+            surrogate, reference, CheckSpec.from_dict(spec_dict), evidence=False
+        ).scorecard
     except ErgodexError as exc:
         out.update(verdict="error", reasons=[f"check failed: {exc}"])
         return out
@@ -206,7 +232,14 @@ def _choose(candidates: list[Candidate]) -> int | None:
     passing = [c for c in candidates if c.passed]
     if not passing:
         return None
-    best = min(passing, key=lambda c: (c.n_terms, c.statistical_score if c.statistical_score is not None else math.inf, c.index))
+    best = min(
+        passing,
+        key=lambda c: (
+            c.n_terms,
+            c.statistical_score if c.statistical_score is not None else math.inf,
+            c.index,
+        ),
+    )
     return best.index
 
 
@@ -286,8 +319,12 @@ def select(
 
     jobs = [(k, m, s) for k, (m, s) in enumerate(candidates)]
     show = sys.stderr.isatty() if progress is None else progress
-    log.info("select: %d candidates on %d runs, checked against %d runs", len(jobs),
-             series.n_runs, reference.n_runs)
+    log.info(
+        "select: %d candidates on %d runs, checked against %d runs",
+        len(jobs),
+        series.n_runs,
+        reference.n_runs,
+    )
     results, backend = _run(jobs, series, reference, spec_dict, scheduler, n_jobs, show)
 
     by_index = {r["index"]: r for r in results}
@@ -321,8 +358,15 @@ def select(
             f"{c.statistical_score:.3g}): the sparsest of {sum(x.passed for x in out)} passing candidates"
         )
     for c in out:
-        log.info("select: candidate %d (%s %s): %s, %s terms, score %s", c.index, c.method,
-                 c.settings, c.verdict, c.n_terms, c.statistical_score)
+        log.info(
+            "select: candidate %d (%s %s): %s, %s terms, score %s",
+            c.index,
+            c.method,
+            c.settings,
+            c.verdict,
+            c.n_terms,
+            c.statistical_score,
+        )
     log.info("select: %s", message)
     return SelectionResult(
         candidates=out,
@@ -348,10 +392,13 @@ def _run(jobs, series, reference, spec_dict, scheduler, n_jobs, show) -> tuple[l
     n_jobs = max(1, min(int(n_jobs), len(tasks)))
     if n_jobs == 1:
         # in this process, one candidate at a time (lazily, so the progress bar moves)
-        return _collect((func(*args, **kwargs) for func, args, kwargs in tasks),
-                        len(tasks), show), "sequential"
+        return _collect(
+            (func(*args, **kwargs) for func, args, kwargs in tasks), len(tasks), show
+        ), "sequential"
     with joblib.parallel_config(backend="loky", n_jobs=n_jobs):
-        return _collect(joblib.Parallel(return_as="generator_unordered")(tasks), len(tasks), show), "loky"
+        return _collect(
+            joblib.Parallel(return_as="generator_unordered")(tasks), len(tasks), show
+        ), "loky"
 
 
 def _run_dask(tasks, scheduler, show) -> list[dict]:
@@ -371,7 +418,9 @@ def _run_dask(tasks, scheduler, show) -> list[dict]:
         try:
             client = Client(scheduler, timeout=20)
         except (OSError, TimeoutError) as exc:
-            raise SettingsError(f"cannot reach the Dask scheduler at {scheduler!r}: {exc}") from None
+            raise SettingsError(
+                f"cannot reach the Dask scheduler at {scheduler!r}: {exc}"
+            ) from None
     elif isinstance(scheduler, Client):
         client = scheduler
     else:
@@ -381,7 +430,9 @@ def _run_dask(tasks, scheduler, show) -> list[dict]:
         )
     try:
         with joblib.parallel_config(backend="dask", client=client):
-            return _collect(joblib.Parallel(n_jobs=-1, return_as="generator_unordered")(tasks), len(tasks), show)
+            return _collect(
+                joblib.Parallel(n_jobs=-1, return_as="generator_unordered")(tasks), len(tasks), show
+            )
     finally:
         if own:
             client.close()
@@ -403,8 +454,13 @@ def _collect(iterator, total: int, show: Any) -> list[dict]:
 _SELECT_KEYS = ("thresholds", "candidates")
 
 
-def parse_selection(document: Mapping[str, Any], *, method: str, settings: Mapping[str, Any],
-                    source: str = "fit settings") -> list[tuple[str, dict]]:
+def parse_selection(
+    document: Mapping[str, Any],
+    *,
+    method: str,
+    settings: Mapping[str, Any],
+    source: str = "fit settings",
+) -> list[tuple[str, dict]]:
     """Candidates from the ``[select]`` table of a fit-settings document.
 
     ``thresholds = [0.05, 0.1, 0.2]`` sweeps the threshold of ``method`` with the ``[settings]``
@@ -416,20 +472,33 @@ def parse_selection(document: Mapping[str, Any], *, method: str, settings: Mappi
         raise SettingsError(f"{source}: 'select' must be a table ([select])")
     for key in table:
         if key not in _SELECT_KEYS:
-            raise SettingsError(f"{source}: [select] has no key '{key}'; allowed keys: {', '.join(_SELECT_KEYS)}")
+            raise SettingsError(
+                f"{source}: [select] has no key '{key}'; allowed keys: {', '.join(_SELECT_KEYS)}"
+            )
     out: list[tuple[str, dict]] = []
     thresholds = table.get("thresholds")
     if thresholds is not None:
-        if not isinstance(thresholds, list) or not thresholds or not all(
-            isinstance(t, (int, float)) and not isinstance(t, bool) and t >= 0 for t in thresholds
+        if (
+            not isinstance(thresholds, list)
+            or not thresholds
+            or not all(
+                isinstance(t, (int, float)) and not isinstance(t, bool) and t >= 0
+                for t in thresholds
+            )
         ):
-            raise SettingsError(f"{source}: [select] 'thresholds' must be a non-empty list of numbers >= 0; got {thresholds!r}")
+            raise SettingsError(
+                f"{source}: [select] 'thresholds' must be a non-empty list of numbers >= 0; got {thresholds!r}"
+            )
         if "threshold" not in fitter_class(method).settings_table:
-            raise SettingsError(f"{source}: [select] 'thresholds' needs method 'sparse'; method is {method!r}")
+            raise SettingsError(
+                f"{source}: [select] 'thresholds' needs method 'sparse'; method is {method!r}"
+            )
         out += threshold_sweep(thresholds, method=method, settings=settings)
     for k, entry in enumerate(table.get("candidates", []) or []):
         if not isinstance(entry, Mapping) or "method" not in entry:
-            raise SettingsError(f"{source}: [[select.candidates]] entry {k + 1} needs a 'method' key")
+            raise SettingsError(
+                f"{source}: [[select.candidates]] entry {k + 1} needs a 'method' key"
+            )
         entry = dict(entry)
         cand_method = entry.pop("method")
         try:

@@ -52,7 +52,9 @@ class Rule:
         if self.kind == "choice":
             text = "one of " + ", ".join(repr(c) for c in self.choices)
         elif self.kind in ("int", "float", "float-list"):
-            noun = {"int": "an integer", "float": "a number", "float-list": "a list of numbers"}[self.kind]
+            noun = {"int": "an integer", "float": "a number", "float-list": "a list of numbers"}[
+                self.kind
+            ]
             parts = []
             if self.low is not None:
                 parts.append(f"{'>' if self.low_open else '>='} {self.low:g}")
@@ -98,9 +100,17 @@ def check_setting(owner: str, name: str, value: Any, rule: Rule) -> None:
         raise SettingsError(f"{owner} setting '{name}' must be {rule.describe()}; got None")
     ok = True
     if rule.kind == "int":
-        ok = isinstance(value, Integral) and not isinstance(value, bool) and _number_ok(rule, float(value))
+        ok = (
+            isinstance(value, Integral)
+            and not isinstance(value, bool)
+            and _number_ok(rule, float(value))
+        )
     elif rule.kind == "float":
-        ok = isinstance(value, Real) and not isinstance(value, bool) and _number_ok(rule, float(value))
+        ok = (
+            isinstance(value, Real)
+            and not isinstance(value, bool)
+            and _number_ok(rule, float(value))
+        )
     elif rule.kind == "bool":
         ok = isinstance(value, bool)
     elif rule.kind == "choice":
@@ -112,7 +122,8 @@ def check_setting(owner: str, name: str, value: Any, rule: Rule) -> None:
             isinstance(value, (list, tuple))
             and len(value) > 0
             and all(
-                isinstance(v, Real) and not isinstance(v, bool) and _number_ok(rule, float(v)) for v in value
+                isinstance(v, Real) and not isinstance(v, bool) and _number_ok(rule, float(v))
+                for v in value
             )
         )
     else:  # pragma: no cover - a programming error in a table

@@ -37,30 +37,53 @@ DIFFERENTIATIONS = ("finite-difference", "smoothed-finite-difference", "weak")
 
 sparse_settings_table: dict[str, Rule] = {
     "degree": Rule("int", low=0, high=5, help="highest total degree of the polynomial terms"),
-    "threshold": Rule("float", low=0.0, help="STLSQ: coefficients smaller than this are set to zero"),
+    "threshold": Rule(
+        "float", low=0.0, help="STLSQ: coefficients smaller than this are set to zero"
+    ),
     "optimizer": Rule("choice", choices=OPTIMIZERS, help="sparse regression method"),
     "library": Rule("choice", choices=LIBRARIES, help="candidate terms"),
-    "n_frequencies": Rule("int", low=1, high=20, help="Fourier library: sin/cos of 1…n times each variable"),
+    "n_frequencies": Rule(
+        "int", low=1, high=20, help="Fourier library: sin/cos of 1…n times each variable"
+    ),
     "include_bias": Rule("bool", help="include the constant term"),
     "alpha": Rule("float", low=0.0, help="STLSQ: ridge weight of each least-squares step"),
     "reg_weight_lam": Rule("float", low=0.0, help="SR3: weight of the sparsity penalty"),
     "regularizer": Rule("choice", choices=("L0", "L1"), help="SR3: penalty"),
     "max_iter": Rule("int", low=1, high=100000, allow_none=True, help="optimizer iterations"),
-    "differentiation": Rule("choice", choices=DIFFERENTIATIONS, help="how tendencies are estimated"),
+    "differentiation": Rule(
+        "choice", choices=DIFFERENTIATIONS, help="how tendencies are estimated"
+    ),
     "fd_order": Rule("int", low=1, high=8, help="order of accuracy of the finite differences"),
-    "smoother_window": Rule("int", low=5, help="smoothed differences: Savitzky–Golay window (samples, odd)"),
-    "smoother_polyorder": Rule("int", low=1, high=7, help="smoothed differences: Savitzky–Golay degree"),
+    "smoother_window": Rule(
+        "int", low=5, help="smoothed differences: Savitzky–Golay window (samples, odd)"
+    ),
+    "smoother_polyorder": Rule(
+        "int", low=1, high=7, help="smoothed differences: Savitzky–Golay degree"
+    ),
     "weak_window": Rule("int", low=5, help="weak form: samples per test-function window"),
-    "weak_stride": Rule("int", low=1, allow_none=True, help="weak form: samples between windows "
-                        "(None: window/4, closer for large libraries)"),
+    "weak_stride": Rule(
+        "int",
+        low=1,
+        allow_none=True,
+        help="weak form: samples between windows (None: window/4, closer for large libraries)",
+    ),
     "weak_degree": Rule("int", low=2, high=16, help="weak form: test function (1 - s^2)^p, this p"),
-    "ensemble": Rule("bool", help="bagging: refit on resampled rows, keep terms by inclusion probability"),
+    "ensemble": Rule(
+        "bool", help="bagging: refit on resampled rows, keep terms by inclusion probability"
+    ),
     "n_models": Rule("int", low=2, high=10000, help="ensemble: number of resampled fits"),
-    "inclusion_threshold": Rule("float", low=0.0, high=1.0, low_open=True, help="ensemble: keep a term "
-                                "included in at least this fraction of the fits"),
+    "inclusion_threshold": Rule(
+        "float",
+        low=0.0,
+        high=1.0,
+        low_open=True,
+        help="ensemble: keep a term included in at least this fraction of the fits",
+    ),
     "trapping": Rule("bool", help="globally stable quadratic model (needs cvxpy)"),
     "seed": Rule("int", low=0, help="seed of the ensemble's resampling"),
-    "n_modes": Rule("int", low=1, allow_none=True, help="principal components kept (None: all variables)"),
+    "n_modes": Rule(
+        "int", low=1, allow_none=True, help="principal components kept (None: all variables)"
+    ),
     "standardise": Rule("bool", help="unit variance (before PCA)"),
 }
 
@@ -221,7 +244,9 @@ class SparseODE(Fitter):
 
     def _check_consistency(self) -> None:
         if self.smoother_window % 2 == 0:
-            raise SettingsError(f"sparse setting 'smoother_window' must be odd; got {self.smoother_window}")
+            raise SettingsError(
+                f"sparse setting 'smoother_window' must be odd; got {self.smoother_window}"
+            )
         if self.smoother_polyorder >= self.smoother_window:
             raise SettingsError(
                 f"sparse setting 'smoother_polyorder' ({self.smoother_polyorder}) must be smaller than "
@@ -256,8 +281,10 @@ class SparseODE(Fitter):
         Theta, Y = self._regression_rows(ps, runs, float(series.dt), terms, _source(series))
         check_library_rank(Theta, names, what=_source(series))
 
-        self._stage(f"sparse regression: {self.optimizer} on {Theta.shape[0]} rows"
-                    + (f", ensemble of {self.n_models}" if self.ensemble else ""))
+        self._stage(
+            f"sparse regression: {self.optimizer} on {Theta.shape[0]} rows"
+            + (f", ensemble of {self.n_models}" if self.ensemble else "")
+        )
         coefficients, extras = self._solve(ps, Theta, Y, n_features=len(terms))
         fitted = Theta @ coefficients.T
         r2 = r2_score(Y, fitted)
@@ -275,8 +302,12 @@ class SparseODE(Fitter):
         # the tendency error is measured pointwise with order-4 differences whatever the fit used,
         # so that candidates fitted in weak form and by differences compare on one scale
         self._stage("surrogate and tendency error")
-        self.tendency_error_ = relative_tendency_error(_AsDrift(terms, coefficients), runs, float(series.dt))
-        self.surrogate_ = self._build_surrogate(series, runs, variables, transform, terms, coefficients, ps)
+        self.tendency_error_ = relative_tendency_error(
+            _AsDrift(terms, coefficients), runs, float(series.dt)
+        )
+        self.surrogate_ = self._build_surrogate(
+            series, runs, variables, transform, terms, coefficients, ps
+        )
 
     # ----------------------------------------------------------------------------------------
     def _make_library(self, ps):
@@ -290,7 +321,9 @@ class SparseODE(Fitter):
             return ps.PolynomialLibrary(degree=0, include_bias=True) + fourier
         return poly + fourier
 
-    def _regression_rows(self, ps, runs, dt: float, terms, source: str) -> tuple[np.ndarray, np.ndarray]:
+    def _regression_rows(
+        self, ps, runs, dt: float, terms, source: str
+    ) -> tuple[np.ndarray, np.ndarray]:
         """Stack the regression rows of every run: (Θ, Y) with Y the tendencies or weak integrals."""
         thetas, ys = [], []
         stride = self.weak_stride
@@ -312,7 +345,9 @@ class SparseODE(Fitter):
             if self.differentiation == "weak":
                 assert stride is not None  # set above when weak_stride is None
                 Theta = evaluate_terms(terms, X)
-                T, Y = weak_matrices(X, Theta, dt, window=self.weak_window, stride=stride, degree=self.weak_degree)
+                T, Y = weak_matrices(
+                    X, Theta, dt, window=self.weak_window, stride=stride, degree=self.weak_degree
+                )
             else:
                 X_used, Xdot = self._pointwise(ps, X, dt)
                 # drop the edges, where the stencils are one-sided and least accurate
@@ -342,7 +377,11 @@ class SparseODE(Fitter):
         smoother = ps.SmoothedFiniteDifference(
             order=self.fd_order,
             smoother=savgol_filter,
-            smoother_kws={"window_length": self.smoother_window, "polyorder": self.smoother_polyorder, "axis": 0},
+            smoother_kws={
+                "window_length": self.smoother_window,
+                "polyorder": self.smoother_polyorder,
+                "axis": 0,
+            },
             save_smooth=True,
         )
         Xdot = np.asarray(smoother(X, t=dt))
@@ -358,7 +397,9 @@ class SparseODE(Fitter):
             return ps.STLSQ(threshold=self.threshold, alpha=self.alpha, **kwargs)
         return ps.SR3(reg_weight_lam=self.reg_weight_lam, regularizer=self.regularizer, **kwargs)
 
-    def _solve(self, ps, Theta: np.ndarray, Y: np.ndarray, *, n_features: int) -> tuple[np.ndarray, dict]:
+    def _solve(
+        self, ps, Theta: np.ndarray, Y: np.ndarray, *, n_features: int
+    ) -> tuple[np.ndarray, dict]:
         import warnings
 
         def one_fit(rows: np.ndarray | None) -> np.ndarray:
@@ -379,20 +420,28 @@ class SparseODE(Fitter):
         # Bagging (Fasel et al. 2022): resample rows with replacement with our own generator.
         rng = np.random.default_rng(self.seed)
         n_rows = Theta.shape[0]
-        samples = np.stack([one_fit(rng.integers(0, n_rows, size=(n_rows,))) for _ in range(self.n_models)])
+        samples = np.stack(
+            [one_fit(rng.integers(0, n_rows, size=(n_rows,))) for _ in range(self.n_models)]
+        )
         inclusion = np.mean(samples != 0.0, axis=0)
         coefficients = np.median(samples, axis=0)
         coefficients[inclusion < self.inclusion_threshold] = 0.0
         return coefficients, {"inclusion": inclusion, "samples": samples}
 
-    def _build_surrogate(self, series, runs, variables, transform, terms, coefficients: np.ndarray, ps):
+    def _build_surrogate(
+        self, series, runs, variables, transform, terms, coefficients: np.ndarray, ps
+    ):
         from ergodex.surrogate import Surrogate
 
         active = np.flatnonzero(np.any(coefficients != 0.0, axis=0))
         if active.size == 0:
             active = np.array([0])  # keep one column so the surrogate has a well-formed table
         provenance = data_provenance(
-            series, runs, variables, pysindy_version=getattr(ps, "__version__", "unknown"), score=self.score_
+            series,
+            runs,
+            variables,
+            pysindy_version=getattr(ps, "__version__", "unknown"),
+            score=self.score_,
         )
         return Surrogate(
             tuple(variables),
@@ -413,8 +462,6 @@ class _AsDrift:
 
     def rhs(self, X: np.ndarray) -> np.ndarray:
         return evaluate_terms(self.terms, X) @ self.coefficients.T
-
-
 
 
 def _import_pysindy():

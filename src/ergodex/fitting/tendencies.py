@@ -22,6 +22,7 @@ __all__ = [
     "r2_score",
 ]
 
+
 def terms_from_feature_names(names: Sequence[str], n_variables: int) -> tuple:
     """Turn pysindy feature names (``'1'``, ``'x0 x1'``, ``'x0^2'``, ``'sin(1 x0)'``) into Terms.
 
@@ -164,7 +165,9 @@ def check_library_rank(Theta: np.ndarray, names: Sequence[str], *, what: str = "
     norms = np.linalg.norm(Theta, axis=0)
     zero = [names[int(k)] for k in np.flatnonzero(norms == 0)]
     if zero:
-        raise DataError(f"{what}: library term(s) {', '.join(zero)} are zero on every sample; remove them")
+        raise DataError(
+            f"{what}: library term(s) {', '.join(zero)} are zero on every sample; remove them"
+        )
     scaled = Theta / norms
     _, s, vt = np.linalg.svd(scaled, full_matrices=False)
     if s[-1] < 1e-10 * s[0]:
@@ -185,7 +188,9 @@ def r2_score(Y: np.ndarray, Y_fit: np.ndarray) -> np.ndarray:
     return 1.0 - ss_res / np.where(ss_tot > 0, ss_tot, 1.0)
 
 
-def lagged_covariance(runs: Sequence[np.ndarray], lag: int, mean: np.ndarray) -> tuple[np.ndarray, int]:
+def lagged_covariance(
+    runs: Sequence[np.ndarray], lag: int, mean: np.ndarray
+) -> tuple[np.ndarray, int]:
     """Covariance C(τ) = E[x(t+τ) x(t)ᵀ] of anomalies, pooled over runs (pairs never cross runs).
 
     Parameters

@@ -57,7 +57,9 @@ def model_space_runs(series, transform) -> tuple[list[np.ndarray], tuple[str, ..
     """The runs in model space and the model-space variable names."""
     if transform is None:
         return [np.asarray(r, dtype=float) for r in series.runs], tuple(series.names)
-    runs = [np.asarray(transform.forward(np.asarray(r, dtype=float)), dtype=float) for r in series.runs]
+    runs = [
+        np.asarray(transform.forward(np.asarray(r, dtype=float)), dtype=float) for r in series.runs
+    ]
     return runs, tuple(transform.output_names)
 
 
@@ -73,6 +75,7 @@ def cyclic_rotations(series):
     from ergodex.series import Series
 
     n = series.n_variables
-    runs = [np.roll(np.asarray(run, dtype=float), k, axis=1)
-            for run in series.runs for k in range(n)]
+    runs = [
+        np.roll(np.asarray(run, dtype=float), k, axis=1) for run in series.runs for k in range(n)
+    ]
     return Series.from_arrays(runs, series.names, series.dt)

@@ -68,9 +68,17 @@ def figure_to_svg(figure: Figure) -> str:
     return buffer.getvalue()
 
 
-def _grid_figure(n_panels: int, *, width: float = _PANEL_WIDTH, height: float = _PANEL_HEIGHT,
-                 columns: int | None = None, legend: bool = True, left: float = 0.62,
-                 bottom: float = 0.5, right: float = 0.15) -> tuple[Figure, list]:
+def _grid_figure(
+    n_panels: int,
+    *,
+    width: float = _PANEL_WIDTH,
+    height: float = _PANEL_HEIGHT,
+    columns: int | None = None,
+    legend: bool = True,
+    left: float = 0.62,
+    bottom: float = 0.5,
+    right: float = 0.15,
+) -> tuple[Figure, list]:
     """A grid of panels with margins fixed in inches.
 
     Fixed margins instead of matplotlib's constrained layout: the layout engine measures every
@@ -124,28 +132,58 @@ def _title(ax, text: str, colour: str = TEXT_COLOUR) -> None:
 def _legend(figure: Figure, axes: list, *, n_columns: int = 3) -> None:
     handles, labels = axes[0].get_legend_handles_labels()
     if handles:
-        figure.legend(handles, labels, loc="upper center", bbox_to_anchor=(0.5, 1.0),
-                      ncols=n_columns, fontsize=_FONT, frameon=False, borderaxespad=0.2)
+        figure.legend(
+            handles,
+            labels,
+            loc="upper center",
+            bbox_to_anchor=(0.5, 1.0),
+            ncols=n_columns,
+            fontsize=_FONT,
+            frameon=False,
+            borderaxespad=0.2,
+        )
 
 
 def _note_missing_model(ax, values: np.ndarray) -> None:
     """Say so in the panel when the surrogate produced nothing to draw (every member blew up)."""
     if not np.any(np.isfinite(values)):
-        ax.text(0.5, 0.5, "no surrogate output\n(every member blew up)", transform=ax.transAxes,
-                ha="center", va="center", fontsize=_FONT, color=SURROGATE_DARK,
-                bbox={"facecolor": "white", "edgecolor": SURROGATE_COLOUR, "pad": 3.0})
+        ax.text(
+            0.5,
+            0.5,
+            "no surrogate output\n(every member blew up)",
+            transform=ax.transAxes,
+            ha="center",
+            va="center",
+            fontsize=_FONT,
+            color=SURROGATE_DARK,
+            bbox={"facecolor": "white", "edgecolor": SURROGATE_COLOUR, "pad": 3.0},
+        )
 
 
-def _curve_panel(ax, x: np.ndarray, band: tuple[np.ndarray, np.ndarray] | None,
-                 reference: np.ndarray, model: np.ndarray, *, widths: tuple[float, float]) -> None:
+def _curve_panel(
+    ax,
+    x: np.ndarray,
+    band: tuple[np.ndarray, np.ndarray] | None,
+    reference: np.ndarray,
+    model: np.ndarray,
+    *,
+    widths: tuple[float, float],
+) -> None:
     """Reference band, reference curve and dashed surrogate curve on one panel (line and band
     figures draw these alike); a surrogate curve with no finite value is noted on the panel."""
     if band is not None:
-        ax.fill_between(x, band[0], band[1], color=REFERENCE_BAND, alpha=0.7, linewidth=0,
-                        label=BAND_LABEL)
+        ax.fill_between(
+            x, band[0], band[1], color=REFERENCE_BAND, alpha=0.7, linewidth=0, label=BAND_LABEL
+        )
     ax.plot(x, reference, color=REFERENCE_COLOUR, linewidth=widths[0], label=REFERENCE_LABEL)
-    ax.plot(x, model, color=SURROGATE_COLOUR, linewidth=widths[1], linestyle=(0, (4, 2)),
-            label=SURROGATE_LABEL)
+    ax.plot(
+        x,
+        model,
+        color=SURROGATE_COLOUR,
+        linewidth=widths[1],
+        linestyle=(0, (4, 2)),
+        label=SURROGATE_LABEL,
+    )
     _note_missing_model(ax, np.asarray(model, dtype=float))
 
 
@@ -173,8 +211,13 @@ def _densities(mass: np.ndarray, edges: np.ndarray) -> tuple[np.ndarray, float, 
     return mass[1:-1] / widths, float(mass[0]), float(mass[-1])
 
 
-def histogram_figure(variables: Sequence[str], edges: np.ndarray, reference: np.ndarray,
-                     model: np.ndarray, reference_pieces: np.ndarray | None = None) -> str:
+def histogram_figure(
+    variables: Sequence[str],
+    edges: np.ndarray,
+    reference: np.ndarray,
+    model: np.ndarray,
+    reference_pieces: np.ndarray | None = None,
+) -> str:
     """Marginal densities of reference and surrogate per variable, with the reference pieces' band.
 
     Parameters
@@ -193,9 +236,14 @@ def histogram_figure(variables: Sequence[str], edges: np.ndarray, reference: np.
     return figure_to_svg(figure)
 
 
-def draw_histograms(axes: Sequence, variables: Sequence[str], edges: np.ndarray,
-                    reference: np.ndarray, model: np.ndarray,
-                    reference_pieces: np.ndarray | None = None) -> None:
+def draw_histograms(
+    axes: Sequence,
+    variables: Sequence[str],
+    edges: np.ndarray,
+    reference: np.ndarray,
+    model: np.ndarray,
+    reference_pieces: np.ndarray | None = None,
+) -> None:
     """Draw :func:`histogram_figure`'s panels, one variable per axes (arguments alike)."""
     edges = np.atleast_2d(np.asarray(edges, dtype=float))
     for j, (ax, name) in enumerate(zip(axes, variables)):
@@ -207,14 +255,28 @@ def draw_histograms(axes: Sequence, variables: Sequence[str], edges: np.ndarray,
             band = _band(piece_densities)
             if band is not None:
                 low, high = band
-                ax.fill_between(edges[j], np.append(low, low[-1]), np.append(high, high[-1]),
-                                step="post", color=REFERENCE_BAND, alpha=0.7, linewidth=0,
-                                label=BAND_LABEL)
+                ax.fill_between(
+                    edges[j],
+                    np.append(low, low[-1]),
+                    np.append(high, high[-1]),
+                    step="post",
+                    color=REFERENCE_BAND,
+                    alpha=0.7,
+                    linewidth=0,
+                    label=BAND_LABEL,
+                )
                 top = max(top, float(np.nanmax(high)))
-        ax.stairs(ref_density, edges[j], color=REFERENCE_COLOUR, linewidth=1.6,
-                  label=REFERENCE_LABEL)
-        ax.stairs(mod_density, edges[j], color=SURROGATE_COLOUR, linewidth=1.8, linestyle=(0, (4, 2)),
-                  label=SURROGATE_LABEL)
+        ax.stairs(
+            ref_density, edges[j], color=REFERENCE_COLOUR, linewidth=1.6, label=REFERENCE_LABEL
+        )
+        ax.stairs(
+            mod_density,
+            edges[j],
+            color=SURROGATE_COLOUR,
+            linewidth=1.8,
+            linestyle=(0, (4, 2)),
+            label=SURROGATE_LABEL,
+        )
         _note_missing_model(ax, mod_density)
         model_top = float(np.nanmax(mod_density)) if np.any(np.isfinite(mod_density)) else 0.0
         if model_top > _CLIP_FACTOR * top:
@@ -222,10 +284,17 @@ def draw_histograms(axes: Sequence, variables: Sequence[str], edges: np.ndarray,
             ax.set_ylim(0, limit)
             peak = int(np.nanargmax(mod_density))
             centre = 0.5 * (edges[j][peak] + edges[j][peak + 1])
-            ax.annotate(f"surrogate peak\n{model_top / top:.0f}\u00d7 reference max",
-                        xy=(centre, limit), xytext=(0, -4), textcoords="offset points",
-                        ha="center", va="top", fontsize=_FONT - 1, color=SURROGATE_DARK,
-                        bbox={"facecolor": "white", "edgecolor": "none", "alpha": 0.85, "pad": 1.0})
+            ax.annotate(
+                f"surrogate peak\n{model_top / top:.0f}\u00d7 reference max",
+                xy=(centre, limit),
+                xytext=(0, -4),
+                textcoords="offset points",
+                ha="center",
+                va="top",
+                fontsize=_FONT - 1,
+                color=SURROGATE_DARK,
+                bbox={"facecolor": "white", "edgecolor": "none", "alpha": 0.85, "pad": 1.0},
+            )
         else:
             ax.set_ylim(0, 1.08 * max(top, model_top))
         ax.set_xlim(edges[j][0], edges[j][-1])
@@ -233,14 +302,21 @@ def draw_histograms(axes: Sequence, variables: Sequence[str], edges: np.ndarray,
         ax.set_ylabel("density", fontsize=_FONT)
         outside = []
         if (ref_below + ref_above) > 0 or (mod_below + mod_above) > 0:
-            outside.append(f"outside range: ref {100 * (ref_below + ref_above):.1f}%, "
-                           f"surr {100 * (mod_below + mod_above):.1f}%")
+            outside.append(
+                f"outside range: ref {100 * (ref_below + ref_above):.1f}%, "
+                f"surr {100 * (mod_below + mod_above):.1f}%"
+            )
         if outside:
             ax.set_xlabel(outside[0], fontsize=_FONT - 1, color=MUTED_COLOUR)
 
 
-def autocorrelation_figure(variables: Sequence[str], lags: np.ndarray, reference: np.ndarray,
-                           model: np.ndarray, reference_pieces: np.ndarray | None = None) -> str:
+def autocorrelation_figure(
+    variables: Sequence[str],
+    lags: np.ndarray,
+    reference: np.ndarray,
+    model: np.ndarray,
+    reference_pieces: np.ndarray | None = None,
+) -> str:
     """Autocorrelation against lag per variable; reference band from the reference pieces.
 
     Parameters
@@ -256,15 +332,26 @@ def autocorrelation_figure(variables: Sequence[str], lags: np.ndarray, reference
     return figure_to_svg(figure)
 
 
-def draw_autocorrelation(axes: Sequence, variables: Sequence[str], lags: np.ndarray,
-                         reference: np.ndarray, model: np.ndarray,
-                         reference_pieces: np.ndarray | None = None) -> None:
+def draw_autocorrelation(
+    axes: Sequence,
+    variables: Sequence[str],
+    lags: np.ndarray,
+    reference: np.ndarray,
+    model: np.ndarray,
+    reference_pieces: np.ndarray | None = None,
+) -> None:
     """Draw :func:`autocorrelation_figure`'s panels, one variable per axes (arguments alike)."""
     lags = np.asarray(lags, dtype=float)
     band = _band(reference_pieces)
     for j, (ax, name) in enumerate(zip(axes, variables)):
-        _curve_panel(ax, lags, None if band is None else (band[0][j], band[1][j]),
-                     reference[j], model[j], widths=(1.6, 1.8))
+        _curve_panel(
+            ax,
+            lags,
+            None if band is None else (band[0][j], band[1][j]),
+            reference[j],
+            model[j],
+            widths=(1.6, 1.8),
+        )
         ax.axhline(0.0, color=MUTED_COLOUR, linewidth=0.7)
         ax.set_xlim(lags[0], lags[-1])
         ax.set_ylim(-1.05, 1.05)
@@ -273,8 +360,13 @@ def draw_autocorrelation(axes: Sequence, variables: Sequence[str], lags: np.ndar
         ax.set_ylabel("autocorrelation", fontsize=_FONT)
 
 
-def spectrum_figure(variables: Sequence[str], frequencies: np.ndarray, reference: np.ndarray,
-                    model: np.ndarray, reference_pieces: np.ndarray | None = None) -> str:
+def spectrum_figure(
+    variables: Sequence[str],
+    frequencies: np.ndarray,
+    reference: np.ndarray,
+    model: np.ndarray,
+    reference_pieces: np.ndarray | None = None,
+) -> str:
     """Power spectral densities on log–log axes per variable, reference band from pieces.
 
     Parameters
@@ -291,9 +383,14 @@ def spectrum_figure(variables: Sequence[str], frequencies: np.ndarray, reference
     return figure_to_svg(figure)
 
 
-def draw_spectra(axes: Sequence, variables: Sequence[str], frequencies: np.ndarray,
-                 reference: np.ndarray, model: np.ndarray,
-                 reference_pieces: np.ndarray | None = None) -> None:
+def draw_spectra(
+    axes: Sequence,
+    variables: Sequence[str],
+    frequencies: np.ndarray,
+    reference: np.ndarray,
+    model: np.ndarray,
+    reference_pieces: np.ndarray | None = None,
+) -> None:
     """Draw :func:`spectrum_figure`'s panels, one variable per axes (arguments alike)."""
     frequencies = np.asarray(frequencies, dtype=float)
     keep = frequencies > 0
@@ -330,8 +427,13 @@ def draw_spectra(axes: Sequence, variables: Sequence[str], frequencies: np.ndarr
         ax.set_ylabel("power spectral density", fontsize=_FONT)
 
 
-def _grouped_bars(ax, names: Sequence[str], reference: np.ndarray, model: np.ndarray,
-                  reference_range: tuple[np.ndarray, np.ndarray] | None = None) -> None:
+def _grouped_bars(
+    ax,
+    names: Sequence[str],
+    reference: np.ndarray,
+    model: np.ndarray,
+    reference_range: tuple[np.ndarray, np.ndarray] | None = None,
+) -> None:
     x = np.arange(len(names))
     width = 0.38
     ref = np.asarray(reference, dtype=float)
@@ -339,19 +441,40 @@ def _grouped_bars(ax, names: Sequence[str], reference: np.ndarray, model: np.nda
     ax.bar(x - width / 2, ref, width, color=REFERENCE_COLOUR, label=REFERENCE_LABEL)
     if reference_range is not None:
         low, high = reference_range
-        ax.errorbar(x - width / 2, ref, yerr=[np.clip(ref - low, 0, None), np.clip(high - ref, 0, None)],
-                    fmt="none", ecolor=TEXT_COLOUR, elinewidth=1.0, capsize=3, label=BAND_LABEL)
+        ax.errorbar(
+            x - width / 2,
+            ref,
+            yerr=[np.clip(ref - low, 0, None), np.clip(high - ref, 0, None)],
+            fmt="none",
+            ecolor=TEXT_COLOUR,
+            elinewidth=1.0,
+            capsize=3,
+            label=BAND_LABEL,
+        )
     # Hatching keeps the two bar families apart on a grey print.
-    ax.bar(x + width / 2, np.nan_to_num(mod), width, color=SURROGATE_COLOUR, hatch="///",
-           edgecolor="white", linewidth=0, label=SURROGATE_LABEL)
+    ax.bar(
+        x + width / 2,
+        np.nan_to_num(mod),
+        width,
+        color=SURROGATE_COLOUR,
+        hatch="///",
+        edgecolor="white",
+        linewidth=0,
+        label=SURROGATE_LABEL,
+    )
     ax.set_xticks(x, [str(n) for n in names], fontsize=_FONT - 0.5)
     ax.grid(False, axis="x")
 
 
-def regime_figure(regime_names: Sequence[str], occupancy_reference: np.ndarray,
-                  occupancy_model: np.ndarray, *, occupancy_pieces: np.ndarray | None = None,
-                  residence_reference: np.ndarray | None = None,
-                  residence_model: np.ndarray | None = None) -> str:
+def regime_figure(
+    regime_names: Sequence[str],
+    occupancy_reference: np.ndarray,
+    occupancy_model: np.ndarray,
+    *,
+    occupancy_pieces: np.ndarray | None = None,
+    residence_reference: np.ndarray | None = None,
+    residence_model: np.ndarray | None = None,
+) -> str:
     """Fraction of time in each regime (and mean residence time) for reference and surrogate.
 
     Parameters
@@ -367,27 +490,45 @@ def regime_figure(regime_names: Sequence[str], occupancy_reference: np.ndarray,
     n_panels = 2 if with_residence else 1
     width = max(_PANEL_WIDTH, 0.75 * len(regime_names) + 1.2)
     figure, axes = _grid_figure(n_panels, width=width, height=2.5, columns=2)
-    draw_regimes(axes, regime_names, occupancy_reference, occupancy_model,
-                 occupancy_pieces=occupancy_pieces, residence_reference=residence_reference,
-                 residence_model=residence_model)
+    draw_regimes(
+        axes,
+        regime_names,
+        occupancy_reference,
+        occupancy_model,
+        occupancy_pieces=occupancy_pieces,
+        residence_reference=residence_reference,
+        residence_model=residence_model,
+    )
     _legend(figure, axes)
     return figure_to_svg(figure)
 
 
-def has_residence(residence_reference: np.ndarray | None,
-                  residence_model: np.ndarray | None) -> bool:
+def has_residence(
+    residence_reference: np.ndarray | None, residence_model: np.ndarray | None
+) -> bool:
     """Whether the regime figure gets its second panel (mean residence times)."""
-    return (residence_reference is not None and np.size(residence_reference) > 0
-            and residence_model is not None and np.size(residence_model) > 0)
+    return (
+        residence_reference is not None
+        and np.size(residence_reference) > 0
+        and residence_model is not None
+        and np.size(residence_model) > 0
+    )
 
 
-def draw_regimes(axes: Sequence, regime_names: Sequence[str], occupancy_reference: np.ndarray,
-                 occupancy_model: np.ndarray, *, occupancy_pieces: np.ndarray | None = None,
-                 residence_reference: np.ndarray | None = None,
-                 residence_model: np.ndarray | None = None) -> None:
+def draw_regimes(
+    axes: Sequence,
+    regime_names: Sequence[str],
+    occupancy_reference: np.ndarray,
+    occupancy_model: np.ndarray,
+    *,
+    occupancy_pieces: np.ndarray | None = None,
+    residence_reference: np.ndarray | None = None,
+    residence_model: np.ndarray | None = None,
+) -> None:
     """Draw :func:`regime_figure`'s panels: occupancy on ``axes[0]``, residence on ``axes[1]``."""
-    _grouped_bars(axes[0], regime_names, occupancy_reference, occupancy_model,
-                  _band(occupancy_pieces))
+    _grouped_bars(
+        axes[0], regime_names, occupancy_reference, occupancy_model, _band(occupancy_pieces)
+    )
     _title(axes[0], "time spent in each regime")
     axes[0].set_ylabel("fraction of time", fontsize=_FONT)
     if has_residence(residence_reference, residence_model) and len(axes) > 1:
@@ -413,20 +554,31 @@ def transition_panels(regime_names: Sequence[str]) -> tuple[Figure, list]:
     names = [str(n) for n in regime_names]
     size = max(2.6, 0.62 * len(names) + 1.5)
     label_room = 0.2 + 0.065 * max(len(n) for n in names)  # inches for the longest regime name
-    return _grid_figure(2, width=size + label_room, height=size, columns=2, legend=False,
-                        left=label_room + 0.35, bottom=label_room * 0.6 + 0.45, right=1.1)
+    return _grid_figure(
+        2,
+        width=size + label_room,
+        height=size,
+        columns=2,
+        legend=False,
+        left=label_room + 0.35,
+        bottom=label_room * 0.6 + 0.45,
+        right=1.1,
+    )
 
 
-def draw_transitions(axes: Sequence, regime_names: Sequence[str], reference: np.ndarray,
-                     model: np.ndarray) -> Any:
+def draw_transitions(
+    axes: Sequence, regime_names: Sequence[str], reference: np.ndarray, model: np.ndarray
+) -> Any:
     """Draw the reference matrix on ``axes[0]``, the surrogate's on ``axes[1]``.
 
     Returns the surrogate's image (one colour scale, 0 to 1, for both) for a colour bar.
     """
     names = [str(n) for n in regime_names]
     image = None
-    for ax, matrix, label in ((axes[0], reference, REFERENCE_LABEL),
-                              (axes[1], model, SURROGATE_LABEL)):
+    for ax, matrix, label in (
+        (axes[0], reference, REFERENCE_LABEL),
+        (axes[1], model, SURROGATE_LABEL),
+    ):
         matrix = np.asarray(matrix, dtype=float)
         ax.grid(False)
         image = ax.imshow(matrix, cmap="cividis", vmin=0.0, vmax=1.0)
@@ -437,8 +589,15 @@ def draw_transitions(axes: Sequence, regime_names: Sequence[str], reference: np.
         ax.set_ylabel("from", fontsize=_FONT)
         for (row, col), value in np.ndenumerate(matrix):
             text = "–" if not np.isfinite(value) else f"{value:.2f}"
-            ax.text(col, row, text, ha="center", va="center", fontsize=_FONT - 1,
-                    color="white" if (np.isfinite(value) and value < 0.55) else "black")
+            ax.text(
+                col,
+                row,
+                text,
+                ha="center",
+                va="center",
+                fontsize=_FONT - 1,
+                color="white" if (np.isfinite(value) and value < 0.55) else "black",
+            )
         colour = REFERENCE_COLOUR if label == REFERENCE_LABEL else SURROGATE_DARK
         _title(ax, label, colour)
     return image
@@ -447,14 +606,21 @@ def draw_transitions(axes: Sequence, regime_names: Sequence[str], reference: np.
 def colour_bar(figure: Figure, beside: Any, image: Any) -> None:
     """A slim colour bar just right of the ``beside`` axes (in the room the layout left)."""
     right_edge = beside.get_position()
-    bar_axes = figure.add_axes((right_edge.x1 + 0.15 / figure.get_figwidth(), right_edge.y0,
-                                0.12 / figure.get_figwidth(), right_edge.height))
+    bar_axes = figure.add_axes(
+        (
+            right_edge.x1 + 0.15 / figure.get_figwidth(),
+            right_edge.y0,
+            0.12 / figure.get_figwidth(),
+            right_edge.height,
+        )
+    )
     bar = figure.colorbar(image, cax=bar_axes)
     bar.ax.tick_params(labelsize=_FONT - 1)
 
 
-def projection_basis(reference_sample: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray,
-                                                            np.ndarray]:
+def projection_basis(
+    reference_sample: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Centre, scale and two leading principal directions of the (standardised) reference sample.
 
     Returns ``(centre, scale, directions (n_vars, 2), explained fraction (2,))``. The surrogate's
@@ -476,8 +642,9 @@ def projection_basis(reference_sample: np.ndarray) -> tuple[np.ndarray, np.ndarr
     return centre, scale, directions, explained[:2]
 
 
-def projection_figure(variables: Sequence[str], reference_sample: np.ndarray,
-                      model_sample: np.ndarray) -> str:
+def projection_figure(
+    variables: Sequence[str], reference_sample: np.ndarray, model_sample: np.ndarray
+) -> str:
     """Reference and surrogate states in one 2-D projection, side by side on the same axes.
 
     With two variables the projection is the variables themselves; with more, the two leading
@@ -488,15 +655,19 @@ def projection_figure(variables: Sequence[str], reference_sample: np.ndarray,
     return figure_to_svg(figure)
 
 
-def draw_projection(axes: Sequence, variables: Sequence[str], reference_sample: np.ndarray,
-                    model_sample: np.ndarray) -> None:
+def draw_projection(
+    axes: Sequence, variables: Sequence[str], reference_sample: np.ndarray, model_sample: np.ndarray
+) -> None:
     """Draw :func:`projection_figure`'s two panels: reference on ``axes[0]``, surrogate on
     ``axes[1]`` (arguments alike)."""
     reference_sample = np.asarray(reference_sample, dtype=float)
     model_sample = np.asarray(model_sample, dtype=float)
     reference_sample = reference_sample[np.all(np.isfinite(reference_sample), axis=1)]
-    model_finite = model_sample[np.all(np.isfinite(model_sample), axis=1)] if model_sample.size \
+    model_finite = (
+        model_sample[np.all(np.isfinite(model_sample), axis=1)]
+        if model_sample.size
         else model_sample.reshape(0, reference_sample.shape[1])
+    )
     if reference_sample.shape[1] == 1:
         # One variable: a delay plot x(t) against x(t + 1 sample) is the only 2-D picture.
         ref_xy = np.column_stack([reference_sample[:-1, 0], reference_sample[1:, 0]])
@@ -509,19 +680,37 @@ def draw_projection(axes: Sequence, variables: Sequence[str], reference_sample: 
         centre, scale, directions, explained = projection_basis(reference_sample)
         ref_xy = ((reference_sample - centre) / scale) @ directions
         mod_xy = ((model_finite - centre) / scale) @ directions
-        labels = (f"principal component 1 ({100 * explained[0]:.0f}% of variance)",
-                  f"principal component 2 ({100 * explained[1]:.0f}% of variance)")
+        labels = (
+            f"principal component 1 ({100 * explained[0]:.0f}% of variance)",
+            f"principal component 2 ({100 * explained[1]:.0f}% of variance)",
+        )
     limits_from = ref_xy if len(ref_xy) else mod_xy
     pad_x = 0.08 * (np.ptp(limits_from[:, 0]) or 1.0)
     pad_y = 0.08 * (np.ptp(limits_from[:, 1]) or 1.0)
-    for ax, points, colour, label in ((axes[0], ref_xy, REFERENCE_COLOUR, REFERENCE_LABEL),
-                                      (axes[1], mod_xy, SURROGATE_COLOUR, SURROGATE_LABEL)):
+    for ax, points, colour, label in (
+        (axes[0], ref_xy, REFERENCE_COLOUR, REFERENCE_LABEL),
+        (axes[1], mod_xy, SURROGATE_COLOUR, SURROGATE_LABEL),
+    ):
         if len(points):
-            ax.scatter(points[:, 0], points[:, 1], s=2.0, color=colour, alpha=0.45, linewidths=0,
-                       rasterized=True)
+            ax.scatter(
+                points[:, 0],
+                points[:, 1],
+                s=2.0,
+                color=colour,
+                alpha=0.45,
+                linewidths=0,
+                rasterized=True,
+            )
         else:
-            ax.text(0.5, 0.5, "no finite states", transform=ax.transAxes, ha="center",
-                    fontsize=_FONT, color=MUTED_COLOUR)
+            ax.text(
+                0.5,
+                0.5,
+                "no finite states",
+                transform=ax.transAxes,
+                ha="center",
+                fontsize=_FONT,
+                color=MUTED_COLOUR,
+            )
         ax.set_xlim(limits_from[:, 0].min() - pad_x, limits_from[:, 0].max() + pad_x)
         ax.set_ylim(limits_from[:, 1].min() - pad_y, limits_from[:, 1].max() + pad_y)
         ax.set_xlabel(labels[0], fontsize=_FONT)
@@ -530,32 +719,63 @@ def draw_projection(axes: Sequence, variables: Sequence[str], reference_sample: 
         _title(ax, f"{label} ({len(points)} states)", title_colour)
 
 
-def selection_figure(complexity: np.ndarray, score: np.ndarray, chosen: int | None, *,
-                     complexity_label: str = "number of terms",
-                     score_label: str = "largest ratio to noise floor",
-                     tolerance: float | None = None) -> str:
+def selection_figure(
+    complexity: np.ndarray,
+    score: np.ndarray,
+    chosen: int | None,
+    *,
+    complexity_label: str = "number of terms",
+    score_label: str = "largest ratio to noise floor",
+    tolerance: float | None = None,
+) -> str:
     """Candidates of a sweep: complexity against check score, the chosen one marked."""
     figure, axes = _grid_figure(1, width=4.6, height=2.8)
-    draw_selection(axes[0], complexity, score, chosen, complexity_label=complexity_label,
-                   score_label=score_label, tolerance=tolerance)
+    draw_selection(
+        axes[0],
+        complexity,
+        score,
+        chosen,
+        complexity_label=complexity_label,
+        score_label=score_label,
+        tolerance=tolerance,
+    )
     _legend(figure, axes)
     return figure_to_svg(figure)
 
 
-def draw_selection(ax: Any, complexity: np.ndarray, score: np.ndarray, chosen: int | None, *,
-                   complexity_label: str = "number of terms",
-                   score_label: str = "largest ratio to noise floor",
-                   tolerance: float | None = None) -> None:
+def draw_selection(
+    ax: Any,
+    complexity: np.ndarray,
+    score: np.ndarray,
+    chosen: int | None,
+    *,
+    complexity_label: str = "number of terms",
+    score_label: str = "largest ratio to noise floor",
+    tolerance: float | None = None,
+) -> None:
     """Draw :func:`selection_figure`'s panel: one point per candidate, ``chosen`` ringed."""
     complexity = np.asarray(complexity, dtype=float)
     score = np.asarray(score, dtype=float)
     ax.scatter(complexity, score, s=22, color=MUTED_COLOUR, label="candidate", zorder=3)
     if chosen is not None and 0 <= chosen < len(score):
-        ax.scatter([complexity[chosen]], [score[chosen]], s=80, facecolors="none",
-                   edgecolors=SURROGATE_DARK, linewidths=2, label="chosen", zorder=4)
+        ax.scatter(
+            [complexity[chosen]],
+            [score[chosen]],
+            s=80,
+            facecolors="none",
+            edgecolors=SURROGATE_DARK,
+            linewidths=2,
+            label="chosen",
+            zorder=4,
+        )
     if tolerance is not None and np.isfinite(tolerance):
-        ax.axhline(tolerance, color=TEXT_COLOUR, linewidth=0.9, linestyle=":",
-                   label=f"tolerance {tolerance:g}")
+        ax.axhline(
+            tolerance,
+            color=TEXT_COLOUR,
+            linewidth=0.9,
+            linestyle=":",
+            label=f"tolerance {tolerance:g}",
+        )
     finite = score[np.isfinite(score)]
     if finite.size and np.all(finite > 0) and finite.max() / finite.min() > 30:
         ax.set_yscale("log")

@@ -32,6 +32,7 @@ _BANNER_REASONS = 4
 # Small helpers: reading fields from objects or mappings, formatting, escaping
 # ----------------------------------------------------------------------------------------------
 
+
 def _field(obj: Any, name: str, default: Any = None) -> Any:
     """Attribute ``name`` of ``obj``, or key ``name`` of a mapping, else ``default``."""
     if obj is None:
@@ -151,7 +152,7 @@ def _key_value_table(mapping: Mapping[str, Any], *, css_class: str = "kv") -> st
     if not rows:
         return '<p class="muted">none recorded</p>'
     body = "".join(
-        f"<tr><th scope=\"row\">{_esc(k)}</th><td>{_value_text(v)}</td></tr>" for k, v in rows
+        f'<tr><th scope="row">{_esc(k)}</th><td>{_value_text(v)}</td></tr>' for k, v in rows
     )
     return f'<table class="{css_class}"><tbody>{body}</tbody></table>'
 
@@ -174,11 +175,13 @@ def _section(anchor: str, heading: str, body: str) -> tuple[str, str, str]:
 # Sections
 # ----------------------------------------------------------------------------------------------
 
+
 def _ordered_rows(rows: Sequence[Any]) -> list[Any]:
     """Failing rows first (largest ratio first), then rows without a verdict, then passing rows.
 
     Passing rows keep the validator's order, which groups them by statistic.
     """
+
     def ratio(row: Any) -> float:
         value = _field(row, "ratio")
         try:
@@ -209,8 +212,10 @@ def _scorecard_section(scorecard: Any) -> tuple[str, str, str]:
             fill = 0.0
         # A small bar drawn by CSS: half the cell is the tolerance, so a failing ratio crosses the
         # tick in the middle. Pure CSS keeps the page free of scripts.
-        bar = (f'<span class="gauge" aria-hidden="true"><span class="fill {_esc(verdict)}" '
-               f'style="width:{100 * fill:.0f}%"></span></span>')
+        bar = (
+            f'<span class="gauge" aria-hidden="true"><span class="fill {_esc(verdict)}" '
+            f'style="width:{100 * fill:.0f}%"></span></span>'
+        )
         body_rows.append(
             f'<tr class="row-{_esc(verdict or "none")}">'
             f"<td>{_esc(_field(row, 'statistic', ''))}</td>"
@@ -257,13 +262,17 @@ def _verdict_banner(scorecard: Any) -> str:
     elif verdict == "fail":
         headline = "The surrogate's long-run statistics differ from the reference beyond its noise."
     elif verdict == "inconclusive":
-        headline = ("Inconclusive: the record cannot tell whether the long-run statistics match "
-                    "(not a pass; the reasons say what more data would settle it).")
+        headline = (
+            "Inconclusive: the record cannot tell whether the long-run statistics match "
+            "(not a pass; the reasons say what more data would settle it)."
+        )
     else:
         headline = "The check has no verdict."
     if rows:
-        detail = (f"{len(rows) - n_fail} of {len(rows)} rows within tolerance; "
-                  f"largest ratio to the noise floor {_number(worst)}.")
+        detail = (
+            f"{len(rows) - n_fail} of {len(rows)} rows within tolerance; "
+            f"largest ratio to the noise floor {_number(worst)}."
+        )
     else:
         detail = "No statistic could be compared."
     power = _field(scorecard, "power", None) or {}
@@ -281,8 +290,10 @@ def _verdict_banner(scorecard: Any) -> str:
         reasons_html = f'<ul class="reasons">{items}</ul>'
         if folded:
             more = "".join(f"<li>{_esc(r)}</li>" for r in folded)
-            reasons_html += (f'<details><summary>{len(folded)} more reasons</summary>'
-                             f'<ul class="reasons">{more}</ul></details>')
+            reasons_html += (
+                f"<details><summary>{len(folded)} more reasons</summary>"
+                f'<ul class="reasons">{more}</ul></details>'
+            )
     return (
         f'<div class="banner {_esc(verdict)}" role="status">'
         f'<p class="verdict-line">Verdict: <strong id="verdict" data-verdict="{_esc(verdict)}">'
@@ -314,16 +325,21 @@ def _distribution_sections(evidence: Any, names: list[str]) -> list[tuple[str, s
     hist_ref = _array(evidence, "hist_reference")
     hist_mod = _array(evidence, "hist_model")
     if edges is not None and hist_ref is not None and hist_mod is not None:
-        svg = figures.histogram_figure(names, edges, hist_ref, hist_mod,
-                                       _array(evidence, "hist_reference_pieces"))
+        svg = figures.histogram_figure(
+            names, edges, hist_ref, hist_mod, _array(evidence, "hist_reference_pieces")
+        )
         body = (
             "<p>Share of time each variable spends at each value (density), from long surrogate "
             "runs and from the reference data, on the reference's bins. A surrogate curve inside "
             "the shaded band differs from the data no more than the data's own pieces differ from "
             "one another.</p>"
-            + _figure(svg, "histograms of each variable, reference and surrogate",
-                      "Marginal distributions. Mass outside the reference's range is noted under "
-                      "a panel when there is any.", wide=wide)
+            + _figure(
+                svg,
+                "histograms of each variable, reference and surrogate",
+                "Marginal distributions. Mass outside the reference's range is noted under "
+                "a panel when there is any.",
+                wide=wide,
+            )
         )
         sections.append(_section("distributions", "Distributions", body))
     n_vars = len(names)
@@ -335,8 +351,12 @@ def _distribution_sections(evidence: Any, names: list[str]) -> list[tuple[str, s
             body = (
                 "<p>How quickly each variable forgets its past. Matching autocorrelation means "
                 "the surrogate has the right time scales, not only the right values.</p>"
-                + _figure(svg, "autocorrelation of each variable against lag",
-                          "Autocorrelation against lag.", wide=wide)
+                + _figure(
+                    svg,
+                    "autocorrelation of each variable against lag",
+                    "Autocorrelation against lag.",
+                    wide=wide,
+                )
             )
             sections.append(_section("autocorrelation", "Autocorrelation", body))
     freq = _array(evidence, "psd_freq")
@@ -347,8 +367,9 @@ def _distribution_sections(evidence: Any, names: list[str]) -> list[tuple[str, s
             body = (
                 "<p>Power spectral density on logarithmic axes: where in frequency each "
                 "variable's variance lives.</p>"
-                + _figure(svg, "power spectra of each variable on log axes", "Power spectra.",
-                          wide=wide)
+                + _figure(
+                    svg, "power spectra of each variable on log axes", "Power spectra.", wide=wide
+                )
             )
             sections.append(_section("spectra", "Power spectra", body))
     return sections
@@ -367,7 +388,9 @@ def _regime_section(evidence: Any) -> tuple[str, str, str] | None:
         "the reference bars span its pieces.</p>",
         _figure(
             figures.regime_figure(
-                names, occ_ref, occ_mod,
+                names,
+                occ_ref,
+                occ_mod,
                 occupancy_pieces=_array(evidence, "occupancy_reference_pieces"),
                 residence_reference=_array(evidence, "residence_reference"),
                 residence_model=_array(evidence, "residence_model"),
@@ -379,12 +402,14 @@ def _regime_section(evidence: Any) -> tuple[str, str, str] | None:
     trans_ref = _array(evidence, "transitions_reference")
     trans_mod = _array(evidence, "transitions_model")
     if trans_ref is not None and trans_mod is not None:
-        parts.append(_figure(
-            figures.transition_figure(names, trans_ref, trans_mod),
-            "regime transition matrices, reference and surrogate",
-            "Of the departures from the row's regime, the fraction that go next to the column's "
-            "regime (changes of regime only, so the diagonal is zero).",
-        ))
+        parts.append(
+            _figure(
+                figures.transition_figure(names, trans_ref, trans_mod),
+                "regime transition matrices, reference and surrogate",
+                "Of the departures from the row's regime, the fraction that go next to the column's "
+                "regime (changes of regime only, so the diagonal is zero).",
+            )
+        )
     return _section("regimes", "Regimes", "".join(parts))
 
 
@@ -399,14 +424,21 @@ def _projection_section(evidence: Any, names: list[str]) -> tuple[str, str, str]
     if len(finite) < 3:
         return None
     svg = figures.projection_figure(names, ref, mod)
-    how = ("the two variables" if ref.shape[1] == 2 else
-           "the two leading principal components of the standardised reference states; the "
-           "surrogate is projected on the same axes")
+    how = (
+        "the two variables"
+        if ref.shape[1] == 2
+        else "the two leading principal components of the standardised reference states; the "
+        "surrogate is projected on the same axes"
+    )
     body = (
         f"<p>The shape of the attractor: sampled states of reference and surrogate, plotted on "
         f"{how}. Statistics can agree on average while the shape differs; this picture shows "
-        f"it.</p>" + _figure(svg, "2-D projection of reference and surrogate states",
-                             "Reference (left) and surrogate (right) states on the same axes.")
+        f"it.</p>"
+        + _figure(
+            svg,
+            "2-D projection of reference and surrogate states",
+            "Reference (left) and surrogate (right) states on the same axes.",
+        )
     )
     return _section("attractor", "Attractor shape", body)
 
@@ -432,8 +464,9 @@ def _stability_section(scorecard: Any, evidence: Any) -> tuple[str, str, str]:
             f"the blow-ups count against the verdict.</p>"
         )
     else:
-        parts.append(f"<p>No member blew up ({_esc(members if members is not None else '?')} "
-                     f"members).</p>")
+        parts.append(
+            f"<p>No member blew up ({_esc(members if members is not None else '?')} members).</p>"
+        )
     if count and blowups:
         parts.append("<h3>Blow-ups</h3>" + _key_value_table(blowups))
     agreement = _as_dict(_field(scorecard, "member_agreement"))
@@ -469,15 +502,17 @@ def _model_section(surrogate: Any) -> tuple[str, str, str]:
     if noise is not None:
         noise = np.asarray(noise, dtype=float)
         facts["noise"] = "additive white noise, variances per unit time: " + ", ".join(
-            _number(v) for v in np.diag(noise))
+            _number(v) for v in np.diag(noise)
+        )
     else:
         facts["noise"] = "none (deterministic)"
     parts.append(_key_value_table(facts))
     return _section("equations", "Equations", "".join(parts))
 
 
-def _settings_section(surrogate: Any, fit_summary: Mapping[str, Any] | None
-                      ) -> tuple[str, str, str] | None:
+def _settings_section(
+    surrogate: Any, fit_summary: Mapping[str, Any] | None
+) -> tuple[str, str, str] | None:
     settings = _as_dict(_field(surrogate, "settings"))
     summary = _as_dict(fit_summary)
     if not settings and not summary:
@@ -516,8 +551,11 @@ def _candidate_rows(selection: Any) -> tuple[list[dict[str, Any]], int | None]:
                 continue  # the whole model and scorecard: far too long for a table cell
             if key == "reasons" and isinstance(value, (list, tuple)):
                 value = "; ".join(str(v) for v in value)
-            if (isinstance(value, (int, float, str, bool, np.integer, np.floating)) or value is None
-                    or isinstance(value, Mapping)):
+            if (
+                isinstance(value, (int, float, str, bool, np.integer, np.floating))
+                or value is None
+                or isinstance(value, Mapping)
+            ):
                 row[key] = value
         rows.append(row)
     if isinstance(chosen, bool) or not isinstance(chosen, (int, np.integer)):
@@ -557,12 +595,17 @@ def _selection_section(selection: Any, tolerance: Any) -> tuple[str, str, str] |
         mark = ' class="chosen"' if i == chosen else ""
         body.append(f"<tr{mark}>{''.join(cells)}</tr>")
     message = _field(selection, "message", "") if not isinstance(selection, Sequence) else ""
-    parts = ["<p>Candidates tried in the sweep, simplest first; the chosen one is highlighted."
-             + (f" {_esc(message)}" if message else "") + "</p>"]
+    parts = [
+        "<p>Candidates tried in the sweep, simplest first; the chosen one is highlighted."
+        + (f" {_esc(message)}" if message else "")
+        + "</p>"
+    ]
     x_key = next((k for k in ("n_terms", "complexity") if k in columns), None)
-    y_key = next((k for k in ("statistical_score", "largest_ratio", "score", "ratio")
-                  if k in columns), None)
+    y_key = next(
+        (k for k in ("statistical_score", "largest_ratio", "score", "ratio") if k in columns), None
+    )
     if x_key and y_key:
+
         def number(v: Any) -> float:
             try:
                 return float(v)
@@ -573,21 +616,37 @@ def _selection_section(selection: Any, tolerance: Any) -> tuple[str, str, str] |
         y = np.array([number(r.get(y_key)) for r in rows])
         if np.any(np.isfinite(x) & np.isfinite(y)):
             tol = number(tolerance) if tolerance is not None else None
-            parts.append(_figure(
-                figures.selection_figure(x, y, chosen, complexity_label=x_key.replace("_", " "),
-                                         score_label=y_key.replace("_", " ") + " (ratio to noise floor)"
-                                         if y_key == "statistical_score" else y_key.replace("_", " "),
-                                         tolerance=tol),
-                "selection front: number of terms against check score", "Candidates of the sweep."))
-    parts.append(f'<table class="front"><thead><tr>{head}</tr></thead>'
-                 f"<tbody>{''.join(body)}</tbody></table>")
+            parts.append(
+                _figure(
+                    figures.selection_figure(
+                        x,
+                        y,
+                        chosen,
+                        complexity_label=x_key.replace("_", " "),
+                        score_label=y_key.replace("_", " ") + " (ratio to noise floor)"
+                        if y_key == "statistical_score"
+                        else y_key.replace("_", " "),
+                        tolerance=tol,
+                    ),
+                    "selection front: number of terms against check score",
+                    "Candidates of the sweep.",
+                )
+            )
+    parts.append(
+        f'<table class="front"><thead><tr>{head}</tr></thead><tbody>{"".join(body)}</tbody></table>'
+    )
     return _section("selection", "Selection", "".join(parts))
 
 
 def _provenance_section(scorecard: Any, surrogate: Any) -> tuple[str, str, str]:
     card = {}
-    for key in ("model_fingerprint", "data_fingerprint", "fingerprints", "created",
-                "ergodex_version"):
+    for key in (
+        "model_fingerprint",
+        "data_fingerprint",
+        "fingerprints",
+        "created",
+        "ergodex_version",
+    ):
         value = _field(scorecard, key)
         if value not in (None, "", {}):
             card[key.replace("_", " ")] = value
@@ -596,12 +655,14 @@ def _provenance_section(scorecard: Any, surrogate: Any) -> tuple[str, str, str]:
         card["seed"] = spec["seed"]
     parts = ["<h3>Check</h3>" + _key_value_table(card)]
     if spec:
-        parts.append("<h3>Check settings (enough to repeat the check exactly)</h3>"
-                     + _key_value_table(spec))
+        parts.append(
+            "<h3>Check settings (enough to repeat the check exactly)</h3>" + _key_value_table(spec)
+        )
     derived = _as_dict(_field(scorecard, "settings"))
     if derived:
-        parts.append("<h3>Settings the check derived from the data</h3>"
-                     + _key_value_table(derived))
+        parts.append(
+            "<h3>Settings the check derived from the data</h3>" + _key_value_table(derived)
+        )
     model = {}
     try:
         model["model fingerprint (now)"] = surrogate.fingerprint()
@@ -610,10 +671,15 @@ def _provenance_section(scorecard: Any, surrogate: Any) -> tuple[str, str, str]:
     model.update(_as_dict(_field(surrogate, "provenance")))
     if model:
         parts.append("<h3>Model</h3>" + _key_value_table(model))
-    parts.append("<h3>Report</h3>" + _key_value_table({
-        "written by": f"ergodex {__version__}",
-        "written at": _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M:%S UTC"),
-    }))
+    parts.append(
+        "<h3>Report</h3>"
+        + _key_value_table(
+            {
+                "written by": f"ergodex {__version__}",
+                "written at": _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M:%S UTC"),
+            }
+        )
+    )
     return _section("provenance", "Provenance", "".join(parts))
 
 
@@ -704,9 +770,15 @@ footer { margin-top: 2.5rem; padding-top: 0.6rem; border-top: 1px solid var(--ru
 """
 
 
-def render_report(result: Any, surrogate: Any, *, title: str | None = None,
-                  fit_summary: Mapping[str, Any] | None = None, selection: Any = None,
-                  extra_sections: Sequence[tuple[str, str, str]] = ()) -> str:
+def render_report(
+    result: Any,
+    surrogate: Any,
+    *,
+    title: str | None = None,
+    fit_summary: Mapping[str, Any] | None = None,
+    selection: Any = None,
+    extra_sections: Sequence[tuple[str, str, str]] = (),
+) -> str:
     """Render the validation report of one check as a self-contained HTML page.
 
     Parameters
@@ -771,7 +843,9 @@ def render_report(result: Any, surrogate: Any, *, title: str | None = None,
     toc = " ".join(f'<a href="#{anchor}">{_esc(heading)}</a>' for anchor, heading, _ in sections)
     missing_evidence = (
         '<p class="muted">No evidence arrays were stored with this check, so the report shows '
-        "the scorecard without figures.</p>" if evidence is None else ""
+        "the scorecard without figures.</p>"
+        if evidence is None
+        else ""
     )
     created = _field(scorecard, "created")
     subtitle_bits = []
@@ -783,15 +857,17 @@ def render_report(result: Any, surrogate: Any, *, title: str | None = None,
     if created:
         subtitle_bits.append(f"checked {created}")
     subtitle = _esc(" \u00b7 ".join(subtitle_bits))
-    caution = f'<div class="caution" role="note"><p><strong>Caution.</strong> {_esc(CAUTION)}</p></div>'
+    caution = (
+        f'<div class="caution" role="note"><p><strong>Caution.</strong> {_esc(CAUTION)}</p></div>'
+    )
     return (
-        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+        '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
         '<meta name="viewport" content="width=device-width, initial-scale=1">'
         # No request may leave the page: forbid every fetch except inline data.
-        "<meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; "
+        '<meta http-equiv="Content-Security-Policy" content="default-src \'none\'; '
         "img-src data:; style-src 'unsafe-inline'\">"
         f"<title>{_esc(title)}</title><style>{_STYLE}</style></head><body>"
-        f"<header><h1>{_esc(title)}</h1><p class=\"subtitle\">{subtitle}</p>"
+        f'<header><h1>{_esc(title)}</h1><p class="subtitle">{subtitle}</p>'
         f"{_verdict_banner(scorecard)}{caution}"
         f'<nav class="toc" aria-label="contents">{toc}</nav></header><main>{missing_evidence}'
         + "".join(body for _, _, body in sections)
@@ -812,4 +888,3 @@ def write_report(path: str | os.PathLike[str], result: Any, surrogate: Any, **kw
     from ergodex.files import atomic_write_text
 
     return atomic_write_text(target, page)
-

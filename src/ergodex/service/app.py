@@ -121,7 +121,6 @@ ARTIFACTS = {
 }
 
 
-
 def _error_response(
     status: int, code: str, message: str, extra_headers: dict[str, str] | None = None
 ) -> JSONResponse:
@@ -228,8 +227,9 @@ def _version_out(info) -> schemas.VersionOut:
     data = info.to_dict()
     data.pop("folder", None)  # a server path tells a client nothing it can use
     prefix = f"{info.folder}{os.sep}"
-    data["integrity_problems"] = [p.replace(prefix, f"{info.ref}/")
-                                  for p in data.get("integrity_problems", [])]
+    data["integrity_problems"] = [
+        p.replace(prefix, f"{info.ref}/") for p in data.get("integrity_problems", [])
+    ]
     fields = schemas.VersionOut.model_fields
     return schemas.VersionOut(**{k: v for k, v in data.items() if k in fields})
 
@@ -405,15 +405,21 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
         status_code=201,
         response_model=schemas.DatasetInfo,
         tags=["datasets"],
-        responses={200: {"model": schemas.DatasetInfo, "description": "the same data was "
-                         "uploaded before; its record is returned"}},
+        responses={
+            200: {
+                "model": schemas.DatasetInfo,
+                "description": "the same data was uploaded before; its record is returned",
+            }
+        },
     )
     async def upload_dataset(
         response: Response,
         file: Annotated[UploadFile, File(description="CSV, NPZ or NetCDF file; a plain name")],
         dt: Annotated[
             float | None,
-            Form(gt=0, allow_inf_nan=False, description="sampling interval, for files without time"),
+            Form(
+                gt=0, allow_inf_nan=False, description="sampling interval, for files without time"
+            ),
         ] = None,
     ) -> schemas.DatasetInfo:
         """Upload a dataset file; it is read and checked like on the command line.
@@ -459,9 +465,7 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
             raise ApiError(404, "not-found", f"no uploaded dataset with id {dataset_id}")
         return record
 
-    def check_options(
-        options: schemas.CheckOptions | None, reference: dict[str, Any]
-    ) -> None:
+    def check_options(options: schemas.CheckOptions | None, reference: dict[str, Any]) -> None:
         """Refuse bad check options, and options whose ensemble cannot fit the memory limit.
 
         ``reference`` is the record of the dataset the check compares with (its ``dt`` turns a
@@ -594,7 +598,9 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
         limit: Annotated[int, Query(ge=1, le=1000)] = 100,
     ) -> schemas.JobList:
         """Jobs, newest first, optionally in one state."""
-        return schemas.JobList(jobs=[_job_out(j, clean) for j in store.list(state=state, limit=limit)])
+        return schemas.JobList(
+            jobs=[_job_out(j, clean) for j in store.list(state=state, limit=limit)]
+        )
 
     @reads.get("/jobs/{job_id}", response_model=schemas.JobInfo, tags=["jobs"])
     def get_job(job_id: Annotated[str, Path(pattern=schemas.JOB_PATTERN)]) -> schemas.JobInfo:
@@ -649,8 +655,9 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
         info = _registry_get(registry, version_ref(name, version))
         if filename not in info.artifacts:
             raise ApiError(
-                404, "not-found", f"{info.ref} has no {filename} (it holds "
-                f"{', '.join(sorted(info.artifacts))})"
+                404,
+                "not-found",
+                f"{info.ref} has no {filename} (it holds {', '.join(sorted(info.artifacts))})",
             )
         try:
             data = registry.artifact(info, filename)
@@ -671,8 +678,12 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
             tags=["models"],
             summary=summary,
             operation_id=f"download_{filename.replace('.', '_')}",
-            responses={200: {"description": f"the stored {filename}, byte for byte (verified)",
-                             "content": {media: {"schema": schema}}}},
+            responses={
+                200: {
+                    "description": f"the stored {filename}, byte for byte (verified)",
+                    "content": {media: {"schema": schema}},
+                }
+            },
         )
         def route(name: ModelName, version: VersionRef) -> Response:
             return download(name, version, filename)

@@ -41,7 +41,10 @@ _SAFE_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]{0,127}$")
 
 #: First bytes of each binary format (the NPZ zip local header; netCDF classic "CDF" or the
 #: HDF5 signature of netCDF-4).
-_MAGIC = {"npz": (b"PK\x03\x04",), "netcdf": (b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF\r\n\x1a\n")}
+_MAGIC = {
+    "npz": (b"PK\x03\x04",),
+    "netcdf": (b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF\r\n\x1a\n"),
+}
 
 
 class UploadRefused(ApiError):
@@ -96,7 +99,9 @@ def check_content(filename: str, fmt: str, head: bytes) -> None:
                     f"{filename}: not UTF-8 text (byte {exc.start}); a CSV upload must be text",
                 ) from None
         if b"\x00" in head:
-            raise UploadRefused(422, "invalid-dataset", f"{filename}: a CSV file holds no NUL bytes")
+            raise UploadRefused(
+                422, "invalid-dataset", f"{filename}: a CSV file holds no NUL bytes"
+            )
 
 
 def check_inflated_size(path: Path, filename: str, fmt: str, limit: int) -> None:
@@ -189,8 +194,11 @@ def store_upload(
             )
         try:
             summary = read_isolated(
-                path, filename, options,
-                memory_bytes=settings.job_memory_bytes, timeout=settings.parse_time_limit,
+                path,
+                filename,
+                options,
+                memory_bytes=settings.job_memory_bytes,
+                timeout=settings.parse_time_limit,
             )
         finally:
             _READERS.release()

@@ -287,7 +287,14 @@ class JobStore:
             cursor = db.execute(
                 "UPDATE jobs SET state = ?, result = ?, finished = ? "
                 "WHERE id = ? AND claim = ? AND state = ?",
-                (SUCCEEDED, json.dumps(result, sort_keys=True), _job_time(), job_id, claim, RUNNING),
+                (
+                    SUCCEEDED,
+                    json.dumps(result, sort_keys=True),
+                    _job_time(),
+                    job_id,
+                    claim,
+                    RUNNING,
+                ),
             )
             return cursor.rowcount == 1
 
@@ -318,8 +325,15 @@ class JobStore:
             after = db.execute(
                 "UPDATE jobs SET state = ?, finished = ?, claim = NULL, error_code = ?, "
                 "error_message = ? WHERE id = ? AND state = ? AND claim IS ? RETURNING *",
-                (CANCELLED, _job_time(), "cancelled", "cancelled at a client's request",
-                 job_id, before.state, before.claim),
+                (
+                    CANCELLED,
+                    _job_time(),
+                    "cancelled",
+                    "cancelled at a client's request",
+                    job_id,
+                    before.state,
+                    before.claim,
+                ),
             ).fetchone()
         if after is None:  # it moved on meanwhile (claimed or finished): look again
             return self.cancel(job_id)
@@ -331,7 +345,8 @@ class JobStore:
             rows = db.execute("SELECT * FROM jobs WHERE state = ?", (RUNNING,)).fetchall()
         now = _parse_job_time(_job_time())
         return [
-            job for job in map(JobRecord.from_row, rows)
+            job
+            for job in map(JobRecord.from_row, rows)
             if job.started is not None and now - _parse_job_time(job.started) > seconds
         ]
 
@@ -375,8 +390,18 @@ class JobStore:
         row["variables"] = json.dumps(list(row["variables"]))
         row["options"] = json.dumps(dict(row.get("options") or {}), sort_keys=True)
         columns = (
-            "id", "fingerprint", "filename", "format", "size_bytes", "sha256", "variables",
-            "dt", "runs", "samples", "options", "created",
+            "id",
+            "fingerprint",
+            "filename",
+            "format",
+            "size_bytes",
+            "sha256",
+            "variables",
+            "dt",
+            "runs",
+            "samples",
+            "options",
+            "created",
         )
         with self._connect() as db:
             cursor = db.execute(
@@ -535,8 +560,9 @@ def worker_main(
                 out_of_memory = True
                 code = MEMORY_LIMIT
                 allowed = (
-                    f"this server allows one job ({memory_bytes / 2**20:.0f} MiB, "
-                    "--job-memory-mb)" if memory_bytes else "this machine could give it"
+                    f"this server allows one job ({memory_bytes / 2**20:.0f} MiB, --job-memory-mb)"
+                    if memory_bytes
+                    else "this machine could give it"
                 )
                 message = (
                     f"the job needed more memory than {allowed}; ask for less (fewer members, "
@@ -550,8 +576,9 @@ def worker_main(
         else:
             recorded = store.succeed(job.id, job.claim or "", result)
         if not recorded:
-            log.warning("job %s finished after its claim was withdrawn; worker %d stops", job.id,
-                        pid)
+            log.warning(
+                "job %s finished after its claim was withdrawn; worker %d stops", job.id, pid
+            )
             os._exit(CLAIM_LOST_EXIT)
         if out_of_memory:  # a heap that hit its ceiling may be fragmented: start afresh
             os._exit(CLAIM_LOST_EXIT)
@@ -600,8 +627,14 @@ class WorkerPool:
         reader, writer = self._context.Pipe(duplex=False)
         process = self._context.Process(
             target=worker_main,
-            args=(str(self.jobs_path), str(self.home), os.getpid(), reader, self.poll_interval,
-                  self.memory_bytes),
+            args=(
+                str(self.jobs_path),
+                str(self.home),
+                os.getpid(),
+                reader,
+                self.poll_interval,
+                self.memory_bytes,
+            ),
             name=f"ergodex-worker-{index}",
             daemon=True,
         )
@@ -628,11 +661,18 @@ class WorkerPool:
                 if process.is_alive() or process.exitcode is None:
                     continue
                 if process.exitcode == CLAIM_LOST_EXIT:
-                    log.info("worker %s (pid %s) stopped after its job; starting another",
-                             process.name, process.pid)
+                    log.info(
+                        "worker %s (pid %s) stopped after its job; starting another",
+                        process.name,
+                        process.pid,
+                    )
                 else:
-                    log.warning("worker %s (pid %s) died with exit code %s; starting another",
-                                process.name, process.pid, process.exitcode)
+                    log.warning(
+                        "worker %s (pid %s) died with exit code %s; starting another",
+                        process.name,
+                        process.pid,
+                        process.exitcode,
+                    )
                 failed += store.fail_running(
                     f"the worker process running this job died (exit code {process.exitcode}); "
                     "submit it again",

@@ -80,9 +80,18 @@ class ServerProcess:
     def command(self) -> list[str]:
         """The command line that starts the server."""
         cmd = [
-            sys.executable, "-c", "import sys; from ergodex.cli import main; sys.exit(main())",
-            "serve", "--host", "127.0.0.1", "--port", "0", "--home", str(self.home),
-            "--workers", str(self.workers),
+            sys.executable,
+            "-c",
+            "import sys; from ergodex.cli import main; sys.exit(main())",
+            "serve",
+            "--host",
+            "127.0.0.1",
+            "--port",
+            "0",
+            "--home",
+            str(self.home),
+            "--workers",
+            str(self.workers),
         ]
         if self.token_file is not None:
             cmd += ["--token-file", str(self.token_file)]

@@ -41,8 +41,10 @@ def summarize(path: Path, filename: str, options: dict[str, Any]) -> dict[str, A
                 "message": f"{filename}: reading it needs more memory than this server allows "
                 "one upload; send a smaller file",
             }
-        text = str(exc) if isinstance(exc, ErgodexError) else (
-            f"{filename}: cannot be read: {type(exc).__name__}: {exc}"
+        text = (
+            str(exc)
+            if isinstance(exc, ErgodexError)
+            else (f"{filename}: cannot be read: {type(exc).__name__}: {exc}")
         )
         return {
             "code": "invalid-dataset",
@@ -87,12 +89,21 @@ def read_isolated(
     ended and the upload refused; nothing it did stays behind (it writes nothing).
     """
     command = [
-        sys.executable, "-m", "ergodex.service.reader",
-        str(path), filename, json.dumps(options), str(int(memory_bytes)),
+        sys.executable,
+        "-m",
+        "ergodex.service.reader",
+        str(path),
+        filename,
+        json.dumps(options),
+        str(int(memory_bytes)),
     ]
     try:
         done = subprocess.run(
-            command, capture_output=True, text=True, timeout=timeout, stdin=subprocess.DEVNULL,
+            command,
+            capture_output=True,
+            text=True,
+            timeout=timeout,
+            stdin=subprocess.DEVNULL,
             check=False,
         )
     except subprocess.TimeoutExpired:
@@ -113,8 +124,12 @@ def read_isolated(
                 f"{done.returncode}), at this server's memory limit for one upload; send a "
                 "smaller file",
             )
-        log.error("the reader of upload %s failed (exit %s): %s", filename, done.returncode,
-                  done.stderr[-2000:])
+        log.error(
+            "the reader of upload %s failed (exit %s): %s",
+            filename,
+            done.returncode,
+            done.stderr[-2000:],
+        )
         raise ApiError(
             500, "internal-error", f"the reader of {filename} failed; see the server log"
         )

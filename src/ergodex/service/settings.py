@@ -147,14 +147,14 @@ def check_token(token: str) -> None:
         raise SettingsError(
             f"the service token holds {len(bad)} character(s) that are spaces or outside "
             f"printable ASCII (first: {bad[0]!r}); HTTP clients cannot send it in a header; use "
-            "letters, digits and punctuation only (for example: python -c \"import secrets; "
-            "print(secrets.token_urlsafe(32))\")"
+            'letters, digits and punctuation only (for example: python -c "import secrets; '
+            'print(secrets.token_urlsafe(32))")'
         )
     if len(token) < MIN_TOKEN_LENGTH:
         raise SettingsError(
             f"the service token is {len(token)} characters long; use at least "
-            f"{MIN_TOKEN_LENGTH} (for example: python -c \"import secrets; "
-            f"print(secrets.token_urlsafe(32))\")"
+            f'{MIN_TOKEN_LENGTH} (for example: python -c "import secrets; '
+            f'print(secrets.token_urlsafe(32))")'
         )
 
 
@@ -183,7 +183,9 @@ def read_token(token_file: str | os.PathLike[str] | None = None, *, environ=None
         lines = text.strip().splitlines()
         token = lines[0].strip() if lines else ""
         if not token:
-            raise SettingsError(f"the token file {path} is empty; write the token on its first line")
+            raise SettingsError(
+                f"the token file {path} is empty; write the token on its first line"
+            )
         return token
     token = environ.get(TOKEN_ENV, "").strip()
     return token or None
