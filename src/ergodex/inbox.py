@@ -193,7 +193,7 @@ def settings_fingerprint(name: str, registry: Any, retrain_kwargs: dict[str, Any
     from ergodex.jsonable import jsonable
     from ergodex.retraining import DEFAULT_HOLDOUT
 
-    spec = retrain_kwargs.get("spec")
+    spec: Any = retrain_kwargs.get("spec")
     if callable(getattr(spec, "to_dict", None)):
         spec = spec.to_dict()
     payload = {
@@ -433,6 +433,7 @@ class _Watcher:
             self._put_back(path, file_name)
             return None
         if verdict == "busy":
+            assert before is not None  # "busy" is only said of an existing ledger row
             log.info("%s is being retrained by %s; leaving it", file_name, before["owner"])
             if path != final:
                 self._put_back(path, file_name)
@@ -440,6 +441,7 @@ class _Watcher:
         if verdict in ("done", "rejected"):
             return self._already(file_name, path, sha, before)
         if verdict == "exhausted":
+            assert before is not None  # "exhausted" is only said of an existing ledger row
             error = (
                 f"processing of {file_name} was interrupted {before['attempts']} times "
                 "(the watcher stopped mid-retrain); moved aside instead of trying again"
@@ -689,24 +691,24 @@ class _Watcher:
                     queue.append((path.name, path))
             _remove_empty(folder)
         queued = {str(path) for _, path in queue}
-        for row in self.ledger.rows():
-            claimed = row["claimed_path"]
+        for entry in self.ledger.rows():
+            claimed = entry["claimed_path"]
             if (
-                row["state"] == "processing"
+                entry["state"] == "processing"
                 and claimed
                 and claimed not in queued
-                and not owner_is_alive_elsewhere(row["owner"])
+                and not owner_is_alive_elsewhere(entry["owner"])
                 and not Path(claimed).exists()
             ):
-                self._vanished(row["file_name"], Path(claimed), row["sha256"])
+                self._vanished(entry["file_name"], Path(claimed), entry["sha256"])
             elif (
-                row["state"] == "rejected"
-                and row["moved_to"]
-                and should_retry(row, self.fingerprint, self.retry_rejected)
+                entry["state"] == "rejected"
+                and entry["moved_to"]
+                and should_retry(entry, self.fingerprint, self.retry_rejected)
             ):
-                taken = self._take_back(row)
+                taken = self._take_back(entry)
                 if taken is not None:
-                    queue.append((row["file_name"], taken))
+                    queue.append((entry["file_name"], taken))
         return queue
 
     def _take_back(self, row: Any) -> Path | None:

@@ -211,14 +211,15 @@ def choose_substep(
     method: str = "rk4",
     safety: float = SAFETY,
 ) -> float:
-    """Largest substep that divides ``dt_out`` and keeps the scheme well inside its stability region.
+    """Largest substep that divides ``dt_out`` and keeps the scheme well inside its stability
+    region.
 
     The stiffness is measured as the largest spectral radius ``rho`` of the Jacobian over (up to
     256 of) ``sample_states``, from the sparse Jacobian of the term table: exact up to 32
     variables, above that a short Arnoldi estimate with a 15 % margin at fewer states
-    (:func:`ergodex.stiffness.spectral_radius`); the substep is at most ``safety * limit / rho`` where ``limit`` is
-    the stability boundary of ``method`` on the negative real axis (2.785 for RK4), and
-    ``dt_out`` is an integer multiple of it.
+    (:func:`ergodex.stiffness.spectral_radius`); the substep is at most ``safety * limit / rho``
+    where ``limit`` is the stability boundary of ``method`` on the negative real axis (2.785 for
+    RK4), and ``dt_out`` is an integer multiple of it.
 
     Parameters
     ----------
@@ -261,7 +262,8 @@ def _choose(surrogate, sample_states, dt_out, method, safety) -> tuple[float, in
         raise ModelLimitError(
             f"too stiff: needs substep {h_max:.3g} < floor {dt_out / MAX_SUBSTEPS_PER_OUTPUT:.3g} "
             f"(output interval / {MAX_SUBSTEPS_PER_OUTPUT:.0e}; largest spectral radius of the "
-            f"Jacobian {rho:.3g} at states typical of the run); the surrogate's fastest mode is far "
+            f"Jacobian {rho:.3g} at states typical of the run); "
+            "the surrogate's fastest mode is far "
             "faster than the data's sampling"
         )
     k = max(1, math.ceil(dt_out / h_max - 1e-9))
@@ -329,7 +331,10 @@ def _positive(value: Any, name: str) -> float:
 
 
 def _noise_factor(cov: np.ndarray) -> np.ndarray:
-    """``L`` with ``L L^T = cov``: Cholesky when positive definite, else from the eigendecomposition."""
+    """``L`` with ``L L^T = cov``.
+
+    Cholesky when positive definite, else from the eigendecomposition.
+    """
     try:
         return np.linalg.cholesky(cov)
     except np.linalg.LinAlgError:
@@ -348,7 +353,8 @@ def _resolve_keep(surrogate: Surrogate, keep: Sequence[int | str] | None) -> np.
         if isinstance(item, str):
             if item not in surrogate.variables:
                 raise SettingsError(
-                    f"keep: unknown variable {item!r}; the model has {', '.join(surrogate.variables)}"
+                    f"keep: unknown variable {item!r}; "
+                    f"the model has {', '.join(surrogate.variables)}"
                 )
             out.append(surrogate.variables.index(item))
         elif isinstance(item, (int, np.integer)) and not isinstance(item, bool):
@@ -556,7 +562,7 @@ def integrate_ensemble(
     keep_idx = _resolve_keep(surrogate, keep)
 
     seed_used: int | None = None
-    rng = None
+    rng: np.random.Generator | None = None
     chol = np.zeros((n, n))
     if stochastic:
         seed_used = _resolve_seed(seed)
@@ -634,6 +640,7 @@ def integrate_ensemble(
     def draw(n_steps: int) -> np.ndarray:
         if not stochastic:
             return empty_noise
+        assert rng is not None  # made above for every stochastic run
         return rng.standard_normal((n_steps, M, n))
 
     # Chunks keep the noise buffer near 2**20 numbers (stochastic) or each compiled call near
@@ -704,7 +711,8 @@ def integrate_ensemble(
     if n_blown:
         first = float(np.nanmin(blowup_time))
         message = (
-            f"{n_blown} of {M} members blew up (non-finite or outside the bound), first at t={first:.6g}; "
+            f"{n_blown} of {M} members blew up (non-finite or outside the bound), "
+            f"first at t={first:.6g}; "
             f"{how}"
         )
     else:
@@ -750,7 +758,10 @@ def _numpy_block(
     lower,
     upper,
 ) -> None:
-    """Reference engine: the same steps as :func:`ergodex.kernels.advance`, vectorised with numpy."""
+    """Reference engine: the same steps as :func:`ergodex.kernels.advance`.
+
+    Vectorised with numpy.
+    """
     f = surrogate.rhs
     sqh = math.sqrt(h)
     for j in range(n_blocks):

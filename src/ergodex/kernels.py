@@ -85,6 +85,7 @@ def build_program(tables: dict, n_variables: int) -> Program:
     linear: list[list[tuple[int, float]]] = [[] for _ in range(n)]
     quadratic: list[list[tuple[int, int, float]]] = [[] for _ in range(n)]
     n_products = 0
+    source: tuple[str, int] | tuple[str, int, int] | None
     for a in range(len(kind)):
         f0, f1 = int(fptr[a]), int(fptr[a + 1])
         vars_, pows = [int(v) for v in fvar[f0:f1]], [int(p) for p in fpow[f0:f1]]
@@ -111,7 +112,7 @@ def build_program(tables: dict, n_variables: int) -> Program:
                 bias[t] += w
             elif source[0] == "lin":
                 linear[t].append((source[1], w))
-            else:
+            elif len(source) == 3:
                 quadratic[t].append((source[1], source[2], w))
 
     zero_row = n + n_products
@@ -353,8 +354,8 @@ def advance(
                     m = idx[c]
                     for i in range(n):
                         acc = 0.0
-                        for l in range(n):
-                            acc += chol[i, l] * noise[step, m, l]
+                        for col in range(n):
+                            acc += chol[i, col] * noise[step, m, col]
                         dW[i, c] = sqh * acc
             nbad = 0
             for stage in range(n_stages):
@@ -369,7 +370,8 @@ def advance(
                 else:
                     src = ba
                     dst = bb
-                # RK4: the next stage input is x + a1 k (stages 1-3); the new state x + h/6 (Acc + k4).
+                # RK4: the next stage input is x + a1 k (stages 1-3); the new state
+                # x + h/6 (Acc + k4).
                 if stage == 0 or stage == 1:
                     a1 = half
                 elif stage == 2:

@@ -47,6 +47,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
+from typing import Any
 
 import numpy as np
 
@@ -137,7 +138,14 @@ def detectable_changes(
         return False
 
     def smallest(change) -> float | None:
-        return next((f for f in LADDER if rejected(lambda p, f=f: change(p, f))), None)
+        for f in LADDER:
+
+            def at_factor(p: np.ndarray, f: float = f) -> np.ndarray:
+                return change(p, f)
+
+            if rejected(at_factor):
+                return f
+        return None
 
     out: dict = {}
     if any(s in TEMPORAL_STATISTICS for s in floors):
@@ -225,7 +233,12 @@ def reference_consistency(
     run_of_piece = np.asarray(run_of_piece)
     L = ref_pieces.shape[1]
     half = (L - min(gap_samples, L // 3)) // 2
-    out = {"ratio": None, "tolerance": tolerance, "verdict": None, "per_variable": {}}
+    out: dict[str, Any] = {
+        "ratio": None,
+        "tolerance": tolerance,
+        "verdict": None,
+        "per_variable": {},
+    }
     if np.unique(run_of_piece).size < 2 or half < 16:
         return out
     parts = np.concatenate([ref_pieces[:, :half], ref_pieces[:, L - half :]])

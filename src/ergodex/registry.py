@@ -41,14 +41,14 @@ processes that open the index, which network filesystems do not provide reliably
 Version numbers
 ---------------
 Version numbers are never reused or lost (docs/formats.md, "Registry home"). Here a number is
-*taken* only by the commit that makes the version visible: the number, the rename and the index rows are one transaction. A crashed
-registration therefore never consumed a number, and the next registration receives the number the
-crashed one would have had — a number nobody ever saw. Committed numbers are never deleted, so a
-number is never reused, and there are no gaps to explain. The next number is one past both the
-index's highest and the highest numbered folder on disk, so even a lost index cannot make a
-registration overwrite an existing version. (The alternative, reserving a number
-before writing the files, would leave a gap for every crash and need a status for reserved but
-abandoned numbers.)
+*taken* only by the commit that makes the version visible: the number, the rename and the index
+rows are one transaction. A crashed registration therefore never consumed a number, and the next
+registration receives the number the crashed one would have had — a number nobody ever saw.
+Committed numbers are never deleted, so a number is never reused, and there are no gaps to explain.
+The next number is one past both the index's highest and the highest numbered folder on disk, so
+even a lost index cannot make a registration overwrite an existing version. (The alternative,
+reserving a number before writing the files, would leave a gap for every crash and need a status
+for reserved but abandoned numbers.)
 
 Statuses (docs/formats.md)
 --------------------------
@@ -627,6 +627,12 @@ class Registry:
                 "wrote this file it is not an ergodex registry"
             ) from exc
 
+    @staticmethod
+    def _live(conn: sqlite3.Connection | None) -> sqlite3.Connection:
+        """The connection of an index known to exist (created, or checked by the caller)."""
+        assert conn is not None, "registry index is not open"
+        return conn
+
     def _open(self) -> sqlite3.Connection:
         conn = sqlite3.connect(
             self.index_path,
@@ -892,6 +898,7 @@ class Registry:
         if not folders:
             return []
         with self._connect(create=True) as conn:
+            conn = self._live(conn)  # create=True always yields a connection
             if not self._plan(conn, folders):
                 return []
             moved: list[Path] = []
@@ -956,7 +963,8 @@ class Registry:
         hashes = {str(k): str(v) for k, v in files.items()}
         record_hash = status.get("record_sha256") or sha256_hex(f.record_bytes or b"")
         hashes["record.json"] = str(record_hash)
-        card = record.get("scorecard") if isinstance(record.get("scorecard"), dict) else {}
+        scorecard = record.get("scorecard")
+        card = scorecard if isinstance(scorecard, dict) else {}
         created = str(record.get("created") or _now())
         self._claim_name(conn, f.name, created)
         key = (f.name, f.version)
@@ -1034,6 +1042,7 @@ class Registry:
         self, conn: sqlite3.Connection, name: str, version: int, *, committed: bool
     ) -> bytes:
         row = self._row(conn, name, version)
+        assert row is not None, "a status is written only for an indexed version"
         record_hash = conn.execute(
             "SELECT sha256 FROM artifacts WHERE name = ? AND version = ? AND filename = ?",
             (name, version, "record.json"),
@@ -1187,7 +1196,10 @@ class Registry:
         )
 
     def _prepare(self, surrogate, scorecard, report_html, evidence_path, fit_settings, datasets):
-        """Turn the caller's inputs into ``{filename: bytes}`` plus index metadata; write nothing."""
+        """Turn the caller's inputs into ``{filename: bytes}`` plus index metadata.
+
+        Writes nothing.
+        """
         files: dict[str, bytes] = {}
         meta: dict[str, Any] = {}
 
@@ -1219,7 +1231,8 @@ class Registry:
                 what = f"scorecard file {scorecard}"
             else:
                 raise RegistryError(
-                    f"scorecard must be a Scorecard, a dict or a path, got {type(scorecard).__name__}"
+                    "scorecard must be a Scorecard, a dict or a path, "
+                    f"got {type(scorecard).__name__}"
                 )
             card = _read_json_object(card_bytes, what)
             verdict = card.get("verdict")
@@ -1375,6 +1388,7 @@ class Registry:
         hashes = {fn: sha256_hex(data) for fn, data in files.items()}
 
         with self._connect(create=True) as conn:
+            conn = self._live(conn)  # create=True always yields a connection
             # The entry names its owner (pid, host) so that a sweep can tell a live one from a
             # leftover without any lock.
             stage = self._staging_entry()
@@ -1502,7 +1516,7 @@ class Registry:
     # ---------------------------------------------------------------- reading
 
     @staticmethod
-    def _row(conn, name: str, version: int) -> sqlite3.Row | None:
+    def _row(conn, name: str, version: int | None) -> sqlite3.Row | None:
         return conn.execute(
             "SELECT * FROM versions WHERE name = ? AND version = ?", (name, version)
         ).fetchone()
@@ -1600,6 +1614,7 @@ class Registry:
         """Every version of ``name``, oldest first, each with its files' integrity checked."""
         with self._connect() as conn:
             self._resolve_name(conn, name)
+            conn = self._live(conn)  # _resolve_name raised if there is no index
             rows = conn.execute(
                 "SELECT * FROM versions WHERE name = ? ORDER BY version", (name,)
             ).fetchall()
@@ -1687,16 +1702,21 @@ class Registry:
             return out
 
     def history(self, name: str) -> list[Event]:
-        """Every event of every version of ``name`` (or of one version, ``"name@v"``), oldest first."""
+        """Every event of every version of ``name``, oldest first.
+
+        ``"name@v"`` gives the events of one version only.
+        """
         with self._connect() as conn:
             base, version = parse_ref(name)
             if version is None:
                 self._resolve_name(conn, base)
+                conn = self._live(conn)  # _resolve_name raised if there is no index
                 rows = conn.execute(
                     "SELECT * FROM events WHERE name = ? ORDER BY time, id", (base,)
                 ).fetchall()
             else:
                 self._resolve(conn, name)
+                conn = self._live(conn)  # _resolve raised if there is no index
                 rows = conn.execute(
                     "SELECT * FROM events WHERE name = ? AND version = ? ORDER BY time, id",
                     (base, version),
@@ -1856,6 +1876,7 @@ class Registry:
         with self._connect() as conn:
             if conn is None:
                 self._resolve(conn, ref)
+            conn = self._live(conn)  # _resolve raised if there is no index
             with self._write(conn):
                 row = self._resolve(conn, ref, need_version=True)
                 current = row["status"]
@@ -1904,7 +1925,8 @@ class Registry:
         others = [
             int(r[0])
             for r in conn.execute(
-                "SELECT version FROM versions WHERE name = ? AND status = 'accepted' AND version != ?",
+                "SELECT version FROM versions "
+                "WHERE name = ? AND status = 'accepted' AND version != ?",
                 (name, version),
             )
         ]
@@ -1939,6 +1961,7 @@ class Registry:
         with self._connect() as conn:
             if conn is None:
                 self._resolve(conn, ref)
+            conn = self._live(conn)  # _resolve raised if there is no index
             with self._write(conn):
                 row = self._resolve(conn, ref, need_version=True)
                 self._insert_event(

@@ -15,8 +15,9 @@ and the registered model name and makes one documented decision:
    data it was accepted on.
 3. **Challenger.** A new model is fitted on the fitting part with the champion's recorded fit
    settings (its ``fit-settings`` file, else the method and settings its own model file records:
-   :func:`fit_settings_from_model`), or the settings given, and checked against the *same* reference with the *same*
-   spec and seed, so the two scorecards stand side by side on the same evidence.
+   :func:`fit_settings_from_model`), or the settings given, and checked against the *same*
+   reference with the *same* spec and seed, so the two scorecards stand side by side on the same
+   evidence.
 4. **Register and decide.** The challenger is always registered (as a candidate, with lineage:
    ``parent`` = the champion's version, ``datasets`` = fingerprints of the fitting and reference
    parts, ``fit-settings.json`` = what it was fitted with). Then:
@@ -53,9 +54,10 @@ finite, so a model that blows up is worse than any model that does not. The verd
 bound on this quantity, so "not worse on the shared score" compares like with like.
 
 **Reproducibility.** Every check is seeded through ``seed`` (the check spec's seed); the fitters
-are deterministic given their settings (an ensemble fit's own ``seed`` setting included). The same registry state, data and seed give the same decision record, except
-the wall-clock times, which :meth:`Decision.to_dict` keeps under their own key ``"times"`` and
-:meth:`Decision.record` leaves out.
+are deterministic given their settings (an ensemble fit's own ``seed`` setting included). The
+same registry state, data and seed give the same decision record, except the wall-clock times,
+which :meth:`Decision.to_dict` keeps under their own key ``"times"`` and :meth:`Decision.record`
+leaves out.
 
 Caution: a passed statistical check is not a certification; before a surrogate informs decisions
 that can hurt people, defer to the applicable codes, standards and licensed practice.
@@ -96,7 +98,7 @@ OUTCOMES: dict[str, int] = {
 DEFAULT_HOLDOUT = 0.5
 
 #: Fit settings used on a first run when no config is given.
-DEFAULT_FIT = ("sparse", {})
+DEFAULT_FIT: tuple[str, dict[str, Any]] = ("sparse", {})
 
 SCORE_DEFINITION = (
     "largest row ratio (model distance / reference noise floor over all statistic x variable "
@@ -641,6 +643,7 @@ def _retrain(
     champion_ref = None if champion_info is None else champion_info.ref
     champion = None if champion_info is None else registry.load(champion_ref)
     if champion is not None:
+        assert champion_ref is not None  # a champion was loaded by its reference
         series = _check_variables(champion, series, champion_ref)
     fit_part, reference = split_for_retrain(series, holdout)
     log.info(
@@ -722,10 +725,12 @@ def _retrain(
     log.info("challenger %s: %s (score %.3g)", ch.ref, ch.verdict, ch.score)
     cp = None
     if champion_result is not None:
+        assert champion_info is not None  # only a champion is re-checked
         cp = _verdict(
             "champion", champion_result.scorecard, ref=champion_ref, version=champion_info.version
         )
     elif champion_limit is not None:
+        assert champion_info is not None and champion is not None  # only a champion is re-checked
         cp = ModelVerdict(
             role="champion",
             ref=champion_ref,
@@ -808,12 +813,14 @@ def _decide(cp: ModelVerdict | None, ch: ModelVerdict) -> tuple[str, list[str]]:
         if ch.passed:
             return "first-accepted", [
                 (
-                    f"no accepted version existed; challenger {ch.ref or '(not registered)'} passed its "
+                    "no accepted version existed; "
+                    f"challenger {ch.ref or '(not registered)'} passed its "
                     f"check (score {ch_score}) and was accepted"
                 )
             ]
         return "no-acceptable-model", [
-            f"no accepted version existed and challenger {ch.ref or '(not registered)'} {_did_not_pass(ch)} "
+            "no accepted version existed and "
+            f"challenger {ch.ref or '(not registered)'} {_did_not_pass(ch)} "
             f"(score {ch_score}): " + _brief(ch.reasons)
         ]
     cp_score = _fmt(cp.score)
@@ -821,13 +828,14 @@ def _decide(cp: ModelVerdict | None, ch: ModelVerdict) -> tuple[str, list[str]]:
         reasons = [f"champion {cp.ref} still passes on the new data (score {cp_score}); it stays"]
         if ch.passed:
             reasons.append(
-                f"challenger {ch.ref or '(not registered)'} also passed (score {ch_score}); left as a "
+                f"challenger {ch.ref or '(not registered)'} also passed (score {ch_score}); "
+                "left as a "
                 "candidate, not promoted over a champion that still matches"
             )
         else:
             reasons.append(
-                f"challenger {ch.ref or '(not registered)'} {_did_not_pass(ch)} (score {ch_score}): "
-                + _brief(ch.reasons)
+                f"challenger {ch.ref or '(not registered)'} {_did_not_pass(ch)} "
+                f"(score {ch_score}): " + _brief(ch.reasons)
             )
         return "kept", reasons
     drift = (
@@ -838,7 +846,8 @@ def _decide(cp: ModelVerdict | None, ch: ModelVerdict) -> tuple[str, list[str]]:
     reasons = [f"champion {cp.ref} {drift} (score {cp_score}): " + _brief(cp.reasons)]
     if ch.passed and ch.score <= cp.score:
         reasons.append(
-            f"challenger {ch.ref or '(not registered)'} passed (score {ch_score} <= {cp_score}) and replaces it"
+            f"challenger {ch.ref or '(not registered)'} passed "
+            f"(score {ch_score} <= {cp_score}) and replaces it"
         )
         return "replaced", reasons
     if ch.passed:

@@ -417,7 +417,7 @@ def _sokal_tau(acf_1d: np.ndarray, c: float) -> tuple[float, int]:
     return float(partial[w]), int(lags[w])
 
 
-def integrated_autocorrelation_time(x, dt: float = 1.0, *, c: float = 5.0) -> np.ndarray:
+def integrated_autocorrelation_time(x, dt: float = 1.0, *, c: float = 5.0) -> float | np.ndarray:
     """Integrated autocorrelation time per variable, with Sokal's automatic window.
 
     ``tau = dt * (1/2 + Σ_{k=1}^{W} ρ_k)``, the trapezoid-rule value of ``∫_0^∞ ρ(t) dt``; for an
@@ -454,7 +454,7 @@ def integrated_autocorrelation_time(x, dt: float = 1.0, *, c: float = 5.0) -> np
     return float(out[0]) if one_d else out
 
 
-def effective_sample_size(x, *, c: float = 5.0) -> np.ndarray:
+def effective_sample_size(x, *, c: float = 5.0) -> float | np.ndarray:
     """Number of effectively independent samples per variable: ``n / (1 + 2 Σ ρ_k)``.
 
     Uses the same automatic window as :func:`integrated_autocorrelation_time`; several runs add
@@ -550,7 +550,9 @@ def power_spectrum(x, dt: float, *, nperseg: int = 256) -> tuple[np.ndarray, np.
     nper = int(min(nperseg, min(r.shape[0] for r in runs)))
     if nper < 4:
         raise DataError(f"runs of {nper} samples are too short for a spectrum")
-    total, weight, freq = None, 0.0, None
+    total: np.ndarray | None = None
+    freq: np.ndarray | None = None
+    weight = 0.0
     step = nper - nper // 2
     for r in runs:
         if not np.all(np.isfinite(r)):
@@ -559,6 +561,7 @@ def power_spectrum(x, dt: float, *, nperseg: int = 256) -> tuple[np.ndarray, np.
         n_seg = (r.shape[0] - nper) // step + 1
         total = p.T * n_seg if total is None else total + p.T * n_seg
         weight += n_seg
+    assert total is not None and freq is not None  # there is at least one run
     psd = total / weight
     return freq, (psd[:, 0] if one_d else psd)
 
@@ -592,7 +595,9 @@ def quantiles(x, levels: Sequence[float] = DEFAULT_QUANTILES) -> np.ndarray:
     )
 
 
-def exceedance_rate(x, thresholds, *, dt: float | None = None, below: bool = False) -> np.ndarray:
+def exceedance_rate(
+    x, thresholds, *, dt: float | None = None, below: bool = False
+) -> float | np.ndarray:
     """How often each variable lies beyond a threshold (usually a reference quantile).
 
     Parameters

@@ -58,9 +58,10 @@ import math
 import os
 import zipfile
 import zlib
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import BinaryIO
+from typing import Any, BinaryIO
 
 import numpy as np
 
@@ -628,7 +629,8 @@ class Evidence:
         clash = sorted(set(extra or {}) & {*EVIDENCE_FIELDS, "format"})
         if clash:
             raise SettingsError(f"evidence: extra array {clash[0]!r} would replace a fixed field")
-        arrays = {name: np.asarray(getattr(self, name)) for name in EVIDENCE_FIELDS}
+        # Any values: numpy's stub types savez's keyword arrays as its own bool option
+        arrays: dict[str, Any] = {name: np.asarray(getattr(self, name)) for name in EVIDENCE_FIELDS}
         arrays["format"] = np.array(EVIDENCE_FORMAT)
         arrays.update({key: np.asarray(value) for key, value in (extra or {}).items()})
 
@@ -699,7 +701,10 @@ class CheckResult:
 
     # Figures (see ergodex.plotting): ax=None returns a new Figure, else draws on ax, returns it.
     def plot_histograms(self, *, variables=None, ax=None):
-        """Marginal densities, reference and surrogate (:func:`ergodex.plotting.plot_histograms`)."""
+        """Marginal densities, reference and surrogate.
+
+        See :func:`ergodex.plotting.plot_histograms`.
+        """
         from ergodex.plotting import plot_histograms
 
         return plot_histograms(self, variables=variables, ax=ax)
@@ -744,7 +749,7 @@ def _reference_pieces(reference, min_pieces: int, gap_time: float) -> tuple[np.n
     """Equal-length, nearly independent pieces of the reference: (n_pieces, L, n_vars)."""
     from ergodex.series import cut_blocks
 
-    info = {"piece_source": "runs"}
+    info: dict[str, Any] = {"piece_source": "runs"}
     series = reference
     if reference.n_runs < min_pieces:
         blocks = -(-min_pieces // reference.n_runs)  # ceiling division
@@ -789,11 +794,11 @@ class _PieceStats:
         if regimes is not None:
             nr = regimes.n_regimes
             labels = [regimes.classify(p, ctx["variables"]) for p in pieces]
-            self.occ = np.stack([occupancy(l, nr) for l in labels])
+            self.occ = np.stack([occupancy(lab, nr) for lab in labels])
             if "residence" in stats_wanted:
-                self.res = np.stack([mean_residence_times(l, ctx["dt"], nr) for l in labels])
+                self.res = np.stack([mean_residence_times(lab, ctx["dt"], nr) for lab in labels])
             if "transitions" in stats_wanted:
-                self.trans = np.stack([transition_matrix(l, nr) for l in labels])
+                self.trans = np.stack([transition_matrix(lab, nr) for lab in labels])
 
 
 def _acf_pieces(pieces: np.ndarray, max_lag: int) -> np.ndarray:
@@ -1151,8 +1156,10 @@ def _check(
         raise SettingsError(f"nperseg {nperseg} exceeds the reference piece length {L} samples")
     if L < 4 * max_lag or L < 16:
         raise DataError(
-            f"{reference.source or 'reference data'}: reference pieces of {L} samples are too short "
-            f"(need at least {max(16, 4 * max_lag)} for lags up to {max_lag} samples); supply longer runs"
+            f"{reference.source or 'reference data'}: reference pieces of {L} samples "
+            "are too short "
+            f"(need at least {max(16, 4 * max_lag)} for lags up to {max_lag} samples); "
+            "supply longer runs"
         )
     spinup = _SPINUP_TIMES * tau_d if spec.spinup is None else float(spec.spinup)
     n_ref = ref_pieces.shape[0]
@@ -1493,8 +1500,8 @@ def _decide(
     any_alive: bool,
     agreement_verdict: str | None,
     agreement_reasons: list[str],
-    weak_reasons: list[str] = (),
-    reference_reasons: list[str] = (),
+    weak_reasons: Sequence[str] = (),
+    reference_reasons: Sequence[str] = (),
 ) -> tuple[str, list[str]]:
     """The family-wise verdict and its reasons, in the order the scorecard lists them.
 
@@ -1670,7 +1677,10 @@ def _evidence(
     if edges is None:  # Freedman–Diaconis gives a different count per variable: use the largest
         counts = [stats.histogram_edges(stacked[:, j], "fd").size - 1 for j in range(n_vars)]
         edges = np.stack([stats.histogram_edges(stacked[:, j], max(counts)) for j in range(n_vars)])
-    hist = lambda x: np.stack([stats.histogram(x[..., j], edges[j]) for j in range(n_vars)])
+
+    def hist(x):
+        return np.stack([stats.histogram(x[..., j], edges[j]) for j in range(n_vars)])
+
     max_lag = ctx["max_lag_samples"]
     acf_ref = stats.autocorrelation(list(reference.runs), max_lag)
     freq, psd_ref = stats.power_spectrum(list(reference.runs), dt, nperseg=ctx["nperseg"])

@@ -2,9 +2,10 @@
 
 Each command group lives in its own module exposing ``add_parser(subparsers)``, which adds its
 subparser and sets ``func=run`` where ``run(args) -> int`` returns the exit code. Exit codes
-(README, "Exit codes"): 0 success (for ``validate``/``retrain``: the model passed / an accepted model stands),
-1 the work ran but the model failed its check, 2 bad input or usage — one line on stderr, nothing
-written — and 3 inconclusive (``validate``: the record cannot tell). The library never calls ``sys.exit``; this module is the one place that turns an
+(README, "Exit codes"): 0 success (for ``validate``/``retrain``: the model passed / an accepted
+model stands), 1 the work ran but the model failed its check, 2 bad input or usage — one line on
+stderr, nothing written — and 3 inconclusive (``validate``: the record cannot tell). The library
+never calls ``sys.exit``; this module is the one place that turns an
 :class:`~ergodex.exceptions.ErgodexError` into exit code 2 (or the ``exit_code`` the class names:
 1 for :class:`~ergodex.exceptions.ModelLimitError`, a model too stiff or too slow to integrate).
 

@@ -213,9 +213,11 @@ def read_data(
     if chosen is None or chosen == 0:
         why = "--holdout none" if chosen == 0 else "no hold-out"
         # the manifest's split still tells the own-data warning what a fit would have used
-        parts = split_runs(whole, list(manifest_holdout)) if manifest_holdout else (None, None)
+        fit_part, check_part = (
+            split_runs(whole, list(manifest_holdout)) if manifest_holdout else (None, None)
+        )
         note = f"using all {whole.n_runs} runs of {path} ({why})"
-        return DataChoice(whole, whole, *parts, note=note)
+        return DataChoice(whole, whole, fit_part, check_part, note=note)
     if whole.n_runs < 2:
         raise DataError(
             f"{path}: has a single run, so no run can be held out; give --holdout none "
@@ -271,7 +273,10 @@ def own_data_warning(surrogate: Any, choice: DataChoice) -> str | None:
 
 
 def add_limit_options(parser: argparse.ArgumentParser, *, time_limit: float | None) -> None:
-    """Add ``--time-limit SECONDS`` (default ``time_limit``; none when None) and ``--max-memory``."""
+    """Add ``--time-limit SECONDS`` and ``--max-memory``.
+
+    ``--time-limit`` defaults to ``time_limit`` (none when None).
+    """
     default = "none" if time_limit is None else f"{time_limit:g} s"
     parser.add_argument(
         "--time-limit",

@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import argparse
+from collections.abc import Callable
+from typing import Any
 
 from ergodex.cli.common import add_home_option, add_log_level_option
 
@@ -46,13 +48,14 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from ergodex.cli.common import resolve_home, show_progress
-    from ergodex.pipeline import run_demo
+    from ergodex.pipeline import DemoResult, run_demo
 
     if args.seed is not None and args.seed < 0:
         from ergodex.exceptions import SettingsError
 
         raise SettingsError(f"--seed must be a non-negative integer, got {args.seed}")
-    demo, options = run_demo, {"progress": show_progress(args)}
+    demo: Callable[..., DemoResult] = run_demo
+    options: dict[str, Any] = {"progress": show_progress(args)}
     if args.scenario == "basin":
         from ergodex.fields.demo import run_basin_demo
 
@@ -65,6 +68,7 @@ def run(args: argparse.Namespace) -> int:
         **options,
     )
     flow = result.flow
+    assert flow.folder is not None  # the demo always registers its model
     card = flow.check.scorecard
     print("Equations found:")
     for line in flow.surrogate.equations():

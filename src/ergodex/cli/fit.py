@@ -12,12 +12,15 @@ from __future__ import annotations
 import argparse
 import sys
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from ergodex.cli.checks import OPTIONS, add_check_options, build_spec
 from ergodex.cli.common import add_data_options, read_data
 from ergodex.exceptions import SettingsError
 from ergodex.fit_methods import FIT_METHODS
+
+if TYPE_CHECKING:
+    from ergodex.series import Series
 
 EXIT_OK = 0
 EXIT_NONE_PASSED = 1
@@ -56,7 +59,8 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         "fit",
         help="fit a surrogate to data (or select one by its long-run statistics)",
         description=(
-            "Fit a surrogate to DATA and write it as MODEL.json. With --select, fit every candidate "
+            "Fit a surrogate to DATA and write it as MODEL.json. "
+            "With --select, fit every candidate "
             "of a sweep, check each one's long-run statistics against the data's noise floor, and "
             "keep the sparsest that passes (exit 1 when none does). Caution: a passed statistical "
             "check is not a certification; defer to the applicable codes, standards and licensed "
@@ -156,7 +160,8 @@ def run(args: argparse.Namespace) -> int:
         document = read_fit_document(args.config)
         if args.method is not None and "method" in document and document["method"] != args.method:
             raise SettingsError(
-                f"--method {args.method} contradicts method = {document['method']!r} in {args.config}; "
+                f"--method {args.method} contradicts method = {document['method']!r} "
+                f"in {args.config}; "
                 f"drop one of them"
             )
     if args.method is not None:
@@ -200,7 +205,8 @@ def run(args: argparse.Namespace) -> int:
         _write(args, surrogate, summary)
         if not args.quiet:
             print(
-                f"fitted {method} model to {args.data} ({series.n_runs} runs, {series.n_samples} samples): "
+                f"fitted {method} model to {args.data} "
+                f"({series.n_runs} runs, {series.n_samples} samples): "
                 f"{fitter.n_terms_} terms, score {fitter.score_:.4g}"
             )
             print(f"  ({SCORE_LEGEND})")
@@ -218,6 +224,7 @@ def run(args: argparse.Namespace) -> int:
     candidates = parse_selection(
         document, method=method, settings=settings, source=args.config or "defaults"
     )
+    reference: Series | None
     if args.reference:
         reference = read_series(args.reference, dt=args.dt, split_at_gaps=args.split_at_gaps)
     else:

@@ -60,7 +60,7 @@ import math
 import sys
 import tempfile
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, cast
 
 if TYPE_CHECKING:  # numpy loads when a command runs, not for --help
     import numpy as np
@@ -85,7 +85,8 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
             "Members start from the model's own long run (origin + tiny seeded perturbations, "
             "spun up for 1000 output steps) unless --initial gives start states. A member is "
             "stopped (blew up) when it leaves ten times the range of the --initial states or, "
-            "without them, of the data the model was fitted on. Exit codes: 0 all members finished, "
+            "without them, of the data the model was fitted on. "
+            "Exit codes: 0 all members finished, "
             "1 some member blew up, the output settled on a fixed point, or the surrogate was too "
             "stiff or too slow (--time-limit), 2 bad input (also a run over --max-memory). "
             "A simulated ensemble is not a certification; defer to the applicable codes, "
@@ -297,7 +298,11 @@ def run(args: argparse.Namespace) -> int:
     for name in _data_names(surrogate):  # refused before the run, not after it
         check_name(name, what="the model's variable name", source=str(args.model))
     observed = surrogate.observed_index
-    seed = args.seed if args.seed is not None else int(np.random.SeedSequence().entropy % (2**63))
+    if args.seed is not None:
+        seed = args.seed
+    else:
+        # cast: a SeedSequence made without entropy draws an int (the stub allows any entropy)
+        seed = int(cast(int, np.random.SeedSequence().entropy) % (2**63))
     rng = np.random.default_rng(seed)
 
     if args.initial is not None:
@@ -309,7 +314,7 @@ def run(args: argparse.Namespace) -> int:
             if len(every_state) > 1
             else None
         )
-        stiffness_states = every_state
+        stiffness_states: np.ndarray | None = every_state
     else:
         x0 = initial_states_from_model(surrogate, args.members, rng)
         spinup = SPINUP_STEPS * dt if args.spinup is None else args.spinup

@@ -48,7 +48,8 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         "3 inconclusive)",
         description=(
             "Integrate the surrogate from many states drawn from the data and compare its long-run "
-            "statistics (histograms, autocorrelation, spectra, quantiles, regimes) with the data's, "
+            "statistics (histograms, autocorrelation, spectra, quantiles, regimes) "
+            "with the data's, "
             "against the data's own sampling noise. The reference is DATA's held-out runs "
             "(dataset.toml 'holdout', or --holdout). Exit 0 when it passes, 1 when it fails (also "
             "when it is too stiff for the substep floor or exceeds --time-limit), 2 on "
@@ -195,6 +196,7 @@ def run(args: argparse.Namespace) -> int:
         scorecard.to_json(args.json)
     if evidence:
         Path(evidence).parent.mkdir(parents=True, exist_ok=True)
+        assert result.evidence is not None  # the check was asked for its evidence above
         result.evidence.to_npz(evidence, extra=extra_arrays)
     if report:
         from ergodex.report import write_report

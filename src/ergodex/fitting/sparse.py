@@ -249,7 +249,8 @@ class SparseODE(Fitter):
             )
         if self.smoother_polyorder >= self.smoother_window:
             raise SettingsError(
-                f"sparse setting 'smoother_polyorder' ({self.smoother_polyorder}) must be smaller than "
+                f"sparse setting 'smoother_polyorder' ({self.smoother_polyorder}) "
+                "must be smaller than "
                 f"'smoother_window' ({self.smoother_window})"
             )
         if self.trapping and (self.degree != 2 or self.library != "polynomial"):
@@ -324,7 +325,10 @@ class SparseODE(Fitter):
     def _regression_rows(
         self, ps, runs, dt: float, terms, source: str
     ) -> tuple[np.ndarray, np.ndarray]:
-        """Stack the regression rows of every run: (Θ, Y) with Y the tendencies or weak integrals."""
+        """Stack the regression rows of every run: (Θ, Y).
+
+        Y holds the tendencies or weak integrals.
+        """
         thetas, ys = [], []
         stride = self.weak_stride
         if self.differentiation == "weak" and stride is None:
@@ -479,6 +483,8 @@ def _require_cvxpy() -> None:
         import cvxpy  # noqa: F401
     except ImportError:
         raise OptionalDependencyError(
-            "sparse setting trapping = true needs the optional package 'cvxpy' (pysindy's TrappingSR3 "
-            "solves convex programs with it); install it with pip install cvxpy, or set trapping = false"
+            "sparse setting trapping = true needs the optional package 'cvxpy' "
+            "(pysindy's TrappingSR3 "
+            "solves convex programs with it); install it with pip install cvxpy, "
+            "or set trapping = false"
         ) from None
