@@ -1,4 +1,5 @@
-"""Calibrate the validator's default tolerance: false-reject and false-accept rates on known systems.
+"""Calibrate the validator's default tolerance: false-reject and false-accept rates on known
+systems.
 
 For each case, many independent trials are run: fresh reference data from a scenario (its own
 seed) and a check of a surrogate against it (its own seed). A *true* surrogate (the equations that

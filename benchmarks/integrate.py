@@ -318,7 +318,8 @@ def main() -> None:
     )
     if not lorenz_shape:
         print(
-            "note: the fit found terms beyond the Lorenz structure; the hand kernels use the Lorenz terms only"
+            "note: the fit found terms beyond the Lorenz structure; the hand kernels use the "
+            "Lorenz terms only"
         )
     coefs = (
         C[0, terms[(1, 0, 0)]],
@@ -355,10 +356,12 @@ def main() -> None:
     for name, r in rates.items():
         print(f"  {name:30s} {r:14.4g}")
     print(
-        f"  ergodex / pysindy simulate     {rates['ergodex'] / rates['pysindy simulate']:14.1f}x   (target >= 1000)"
+        f"  ergodex / pysindy simulate     {rates['ergodex'] / rates['pysindy simulate']:14.1f}x   "
+        "(target >= 1000)"
     )
     print(
-        f"  ergodex / numpy RK4            {rates['ergodex'] / rates['numpy RK4']:14.1f}x   (target >= 10)"
+        f"  ergodex / numpy RK4            {rates['ergodex'] / rates['numpy RK4']:14.1f}x   "
+        "(target >= 10)"
     )
     print(f"  ergodex / hand numba (best)    {rates['ergodex'] / ceiling:14.2f}x   (target >= 0.5)")
     print(
@@ -391,12 +394,14 @@ def main() -> None:
     l96_hand(y0, 3, K, H, 8.0, hand)
     print(
         f"\nLorenz-96 N=40 ({l96.n_terms} candidate terms, {len(tables['active'])} active, "
-        f"{len(tables['coef_value'])} non-zero coefficients), {steps96} steps, member-steps per second:"
+        f"{len(tables['coef_value'])} non-zero coefficients), {steps96} steps, "
+        "member-steps per second:"
     )
     for name, r in r96.items():
         print(f"  {name:30s} {r:14.4g}")
     print(
-        f"  ergodex / hand numba           {r96['ergodex'] / r96['hand numba']:14.2f}x   (target >= 0.3)"
+        f"  ergodex / hand numba           {r96['ergodex'] / r96['hand numba']:14.2f}x   "
+        "(target >= 0.3)"
     )
     print(f"  same, round by round: median {med96[0]:.2f}, range {med96[1]:.2f}-{med96[2]:.2f}")
     print(f"  max |ergodex - hand| after 0.2 time units: {np.max(np.abs(check - hand)):.2e}")

@@ -74,7 +74,8 @@ def main() -> None:
         close = np.allclose(frame.to_numpy()[:, 1:], series.runs[0], rtol=1e-15, atol=0)
         assert same and close and first.fingerprint() == series.fingerprint()
         print(
-            f"pandas.read_csv  best {min(theirs):.2f} s  (all: {', '.join(f'{t:.2f}' for t in theirs)})"
+            f"pandas.read_csv  best {min(theirs):.2f} s  (all: "
+            f"{', '.join(f'{t:.2f}' for t in theirs)})"
         )
         print(
             f"ergodex read_csv best {min(ours):.2f} s  (all: {', '.join(f'{t:.2f}' for t in ours)})"
@@ -82,7 +83,8 @@ def main() -> None:
         print(f"ergodex first call in process (numba import + cache load): {cold:.2f} s")
         print(f"ratio ergodex / pandas (best of {args.repeats}): {min(ours) / min(theirs):.2f}")
         print(
-            f"values identical to Python float() on sampled lines: {same}; within 1e-15 of pandas: {close}"
+            f"values identical to Python float() on sampled lines: {same}; within 1e-15 of pandas: "
+            f"{close}"
         )
         del frame
 

@@ -1,4 +1,5 @@
-"""Registry speed: registering (one writer vs several at once) and loading (verified vs a bare read).
+"""Registry speed: registering (one writer vs several at once) and loading (verified vs a bare
+read).
 
 Run from the repository root:
 
@@ -115,7 +116,8 @@ def main() -> None:
     )
     print(f"  ratio serial / concurrent:   {serial / parallel:8.2f}")
     print(
-        f"load with verification:        {verified * 1e3:8.2f} ms (model + scorecard + 0.5 MB evidence hashed)"
+        f"load with verification:        {verified * 1e3:8.2f} ms (model + scorecard + 0.5 MB "
+        "evidence hashed)"
     )
     print(f"bare Surrogate.from_json:      {bare * 1e3:8.2f} ms")
     print(f"  ratio verified / bare:       {verified / bare:8.2f}")

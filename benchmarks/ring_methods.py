@@ -157,12 +157,18 @@ def main() -> None:
         fit_runs, check_runs = data.select_runs([0, 1]), data.select_runs([2, 3])
         training = cyclic_shifts(fit_runs, args.shifts)
         surrogate = make_fitter(*CHOSEN).fit(training).surrogate_
-        line = f"data seed {data_seed}: {CHOSEN[0]} {CHOSEN[1]} | {score(surrogate, check_runs, [data_seed])}"
+        line = (
+            f"data seed {data_seed}: {CHOSEN[0]} {CHOSEN[1]} | "
+            f"{score(surrogate, check_runs, [data_seed])}"
+        )
         for method, settings in extra:
             other = make_fitter(method, settings).fit(training).surrogate_
             line += f" | {method} {settings}: {score(other, check_runs, [data_seed])}"
         if not args.skip_truth:
-            line += f" | true equations, 10 modes: {score(true_equations_in_modes(fit_runs, 10), check_runs, [data_seed])}"
+            line += (
+                " | true equations, 10 modes: "
+                f"{score(true_equations_in_modes(fit_runs, 10), check_runs, [data_seed])}"
+            )
         print(line, flush=True)
 
 

@@ -7,7 +7,8 @@ holds); any failed request makes the script exit with code 1.
 
 Run from the repository root:
 
-    /work/venv/bin/python benchmarks/service_load.py [--clients 50] [--requests 20] [--time-limit 120]
+    /work/venv/bin/python benchmarks/service_load.py [--clients 50] [--requests 20]
+        [--time-limit 120]
 """
 
 from __future__ import annotations

@@ -1,4 +1,5 @@
-"""``ergodex register`` and ``ergodex models …`` through the real command line (exit codes, --json)."""
+"""``ergodex register`` and ``ergodex models …`` through the real command line (exit codes,
+--json)."""
 
 from __future__ import annotations
 
@@ -264,6 +265,7 @@ def test_console_process_exits_2_with_one_line(files, tmp_path):
     )
     assert proc.returncode == 2
     assert proc.stderr.strip().splitlines() == [
-        "ergodex: error: model name '../escape' contains a path separator; use letters, digits, . _ -"
+        "ergodex: error: model name '../escape' contains a path separator; "
+        "use letters, digits, . _ -"
     ]
     assert not (tmp_path / "home").exists() and not (tmp_path / "escape").exists()

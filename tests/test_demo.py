@@ -35,7 +35,8 @@ def test_demo_recovers_the_loop_equations_passes_and_registers(tmp_path, monkeyp
     out = capsys.readouterr().out
     assert code == 0, out
 
-    # Files land under the current folder: datasets/ and models/ (the registry layout of docs/formats.md).
+    # Files land under the current folder: datasets/ and models/ (the registry layout of
+    # docs/formats.md).
     assert (tmp_path / "datasets" / "convection-loop" / "dataset.toml").is_file()
     assert (tmp_path / "models" / "registry.sqlite3").is_file()
     version = tmp_path / "models" / "convection-loop" / "1"

@@ -90,7 +90,8 @@ def test_settings_file(tmp_path):
         ),
         (
             'method = "magic"\n',
-            r"fit.toml: key 'method' must be one of sparse, linear-inverse, quadratic-noise, calibrated-linear-inverse; got 'magic'",
+            r"fit.toml: key 'method' must be one of sparse, linear-inverse, quadratic-noise, "
+            r"calibrated-linear-inverse; got 'magic'",
         ),
         ('method = "sparse"\nsettings = 3\n', r"'settings' must be a table"),
         ('methd = "sparse"\n', r"fit.toml: unknown key 'methd'"),

@@ -16,7 +16,8 @@ from ergodex.surrogate import Surrogate
 @pytest.fixture(scope="module")
 def series():
     # A stable, weakly nonlinear 2-variable system with noise, simulated with Euler–Maruyama:
-    # every fitter can fit it (the LIM sees a stationary process, the sparse fitter smooth dynamics).
+    # every fitter can fit it (the LIM sees a stationary process, the sparse fitter smooth
+    # dynamics).
     rng = np.random.default_rng(40)
     dt, n = 0.05, 4000
     runs = []

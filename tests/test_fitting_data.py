@@ -1,4 +1,5 @@
-"""Reference trajectories for the fitter tests, made with scipy (independent of ergodex's integrator).
+"""Reference trajectories for the fitter tests, made with scipy (independent of ergodex's
+integrator).
 
 Lorenz-63 is integrated with scipy's DOP853 at tight tolerances; the Ornstein–Uhlenbeck process is
 sampled exactly through its transition density. The tests below check the generators themselves
@@ -65,7 +66,8 @@ def lorenz63_reference_runs(n_runs: int = 2, duration: float = 40.0, seed: int =
 def lorenz63_reference_series(
     dt: float, *, noise: float = 0.0, seed: int = 0, n_runs: int = 2, duration: float = 40.0
 ) -> Series:
-    """Clean reference runs sampled every ``dt`` (a multiple of 0.002), with optional sensor noise."""
+    """Clean reference runs sampled every ``dt`` (a multiple of 0.002), with optional sensor
+    noise."""
     every = int(round(dt / 0.002))
     assert abs(every * 0.002 - dt) < 1e-12
     rng = np.random.default_rng(seed)

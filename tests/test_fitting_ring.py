@@ -1,4 +1,5 @@
-"""The reduced-order case: a ring of 40 weather stations (Lorenz-96, N=40, F=8) on its leading modes.
+"""The reduced-order case: a ring of 40 weather stations (Lorenz-96, N=40, F=8) on its leading
+modes.
 
 A surrogate on k principal components claims to reproduce the statistics of those k modes, not
 of the 40 stations: with 10 modes about half of the variance is left out (measured on the sample

@@ -110,7 +110,8 @@ def test_runs_of_different_lengths_are_fitted_together():
 
 
 def test_sr3_with_l0_recovers_lorenz63():
-    # SR3 (Zheng et al. 2019) with an L0 penalty λ: effective threshold sqrt(2 λ ν) = 0.1 for λ=0.005.
+    # SR3 (Zheng et al. 2019) with an L0 penalty λ: effective threshold sqrt(2 λ ν) = 0.1 for
+    # λ=0.005.
     series = lorenz63_reference_series(0.01)
     fitter = make_fitter(
         "sparse", {"optimizer": "sr3", "reg_weight_lam": 0.005, "max_iter": 200}

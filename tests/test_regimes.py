@@ -17,7 +17,8 @@ def test_convection_loop_regimes_parse_and_classify():
     assert rs.names == ("clockwise", "counter-clockwise", "reversal")
     plus, minus = scenarios.lorenz63_fixed_points()
     states = np.array([plus, minus, [0.0, 0.0, 13.5], [0.0, 0.0, -30.0], [np.nan, 0, 0]])
-    # the fixed points C± are the lobe centres and (0, 0, (ρ−1)/2) the reversal centre (by construction)
+    # the fixed points C± are the lobe centres and (0, 0, (ρ−1)/2) the reversal centre
+    # (by construction)
     np.testing.assert_array_equal(rs.classify(states, VARS), [0, 1, 2, -1, -1])
     assert regimes.RegimeSet.from_dict(rs.to_dict()) == rs
 

@@ -1,4 +1,5 @@
-"""The registry: versions, statuses, integrity, names, lineage, export/import (real SQLite, real files)."""
+"""The registry: versions, statuses, integrity, names, lineage, export/import (real SQLite, real
+files)."""
 
 from __future__ import annotations
 

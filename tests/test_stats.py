@@ -64,7 +64,8 @@ def test_hellinger_identities():
     rng = np.random.default_rng(5)
     p, q = rng.random(12), rng.random(12)
     p, q = p / p.sum(), q / q.sum()
-    # definition: H = ||sqrt p - sqrt q||_2 / sqrt 2 (Hellinger 1909), via scipy's euclidean distance
+    # definition: H = ||sqrt p - sqrt q||_2 / sqrt 2 (Hellinger 1909), via scipy's euclidean
+    # distance
     expected = scipy.spatial.distance.euclidean(np.sqrt(p), np.sqrt(q)) / np.sqrt(2)
     assert stats.hellinger(p, q) == pytest.approx(expected, rel=1e-10)
     assert stats.hellinger(p, p) == pytest.approx(0.0, abs=1e-7)
@@ -188,7 +189,8 @@ def test_logistic_map_invariant_density():
     sample = np.concatenate(samples)
     edges = np.linspace(0, 1, 21)
     mass = stats.histogram(sample, edges)[1:-1]
-    # invariant density 1/(π sqrt(x(1-x))) (Ulam & von Neumann 1947); its CDF is (2/π) arcsin(sqrt x)
+    # invariant density 1/(π sqrt(x(1-x))) (Ulam & von Neumann 1947); its CDF is
+    # (2/π) arcsin(sqrt x)
     cdf = 2 / np.pi * np.arcsin(np.sqrt(edges))
     expected = np.diff(cdf)
     # at r = 4 lagged correlations of x vanish under the invariant law, so counts are nearly
@@ -202,7 +204,8 @@ def test_welch_psd_matches_scipy_on_many_series():
     x = rng.normal(size=(3, 2, 1000)).cumsum(axis=-1)
     for nperseg in (64, 101):
         f, p = stats.welch_psd(x, 0.1, nperseg)
-        # reference library: scipy.signal.welch with its defaults (Hann, half overlap, constant detrend)
+        # reference library: scipy.signal.welch with its defaults (Hann, half overlap, constant
+        # detrend)
         f_ref, p_ref = scipy.signal.welch(x, fs=10.0, nperseg=nperseg, axis=-1)
         np.testing.assert_allclose(f, f_ref, rtol=1e-12)
         np.testing.assert_allclose(p, p_ref, rtol=1e-10)

@@ -1,4 +1,5 @@
-"""ergodex: fit cheap surrogate dynamics and accept them only when their long-run statistics match the data's."""
+"""ergodex: fit cheap surrogate dynamics and accept them only when their long-run statistics
+match the data's."""
 
 from __future__ import annotations
 

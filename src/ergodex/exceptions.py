@@ -2,8 +2,8 @@
 
 Every error a user can cause derives from :class:`ErgodexError`; the command line catches that one
 class and exits with code 2 after printing the message on one line (a class may name another code
-in ``exit_code``: :class:`ModelLimitError` is a model failure, exit 1). Subclasses also derive from the
-matching built-in so that callers who expect ``ValueError`` or ``KeyError`` still catch them.
+in ``exit_code``: :class:`ModelLimitError` is a model failure, exit 1). Subclasses also derive from
+the matching built-in so that callers who expect ``ValueError`` or ``KeyError`` still catch them.
 A message names the thing (file, row, column, parameter), the rule broken, the value received and
 what to do.
 """
@@ -42,7 +42,8 @@ class DataError(ErgodexError, ValueError):
 
 
 class SettingsError(ErgodexError, ValueError):
-    """A setting (constructor argument, TOML key, command-line option) is unknown or out of range."""
+    """A setting (constructor argument, TOML key, command-line option) is unknown or out of
+    range."""
 
 
 class ModelFileError(ErgodexError, ValueError):

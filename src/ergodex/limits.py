@@ -183,8 +183,8 @@ def check_regular_file(
             f"{path}: is {format_bytes(info.st_size)}, over the limit of {format_bytes(limit)} "
             f"for {what}; raise it with {FILE_SIZE_ENV}"
             if max_bytes is None
-            else f"{path}: is {format_bytes(info.st_size)}, over the limit of {format_bytes(limit)} "
-            f"for {what}"
+            else f"{path}: is {format_bytes(info.st_size)}, over the limit of "
+            f"{format_bytes(limit)} for {what}"
         )
     return info
 
@@ -238,7 +238,8 @@ def _refuse_constant(name: str) -> float:
 def load_json_text(
     text: str, source: str, *, error: type[Exception] = DataError, max_nesting: int = MAX_NESTING
 ) -> Any:
-    """Parse JSON strictly: no NaN/Infinity, no integers beyond Python's digit limit, bounded nesting.
+    """Parse JSON strictly: no NaN/Infinity, no integers beyond Python's digit limit, bounded
+    nesting.
 
     Raises
     ------

@@ -64,7 +64,8 @@ class Term:
     Parameters
     ----------
     kind : {"monomial", "sin", "cos"}
-        ``monomial``: ``prod_j x_j ** powers[j]``; ``sin``/``cos``: ``sin(frequency * x[variable])``.
+        ``monomial``: ``prod_j x_j ** powers[j]``; ``sin``/``cos``:
+        ``sin(frequency * x[variable])``.
     powers : tuple of int
         Monomial exponents, one non-negative integer per variable (all zero: the constant 1).
     variable : int
@@ -249,7 +250,8 @@ class Surrogate:
                 raise SettingsError(f"terms[{t}]: expected a Term, got {term!r}")
             if term.kind == "monomial" and len(term.powers) != n:
                 raise SettingsError(
-                    f"terms[{t}]: monomial has {len(term.powers)} powers, expected {n} (one per variable)"
+                    f"terms[{t}]: monomial has {len(term.powers)} powers, expected {n} (one per "
+                    "variable)"
                 )
             if term.kind != "monomial" and not 0 <= term.variable < n:
                 raise SettingsError(
@@ -298,7 +300,8 @@ class Surrogate:
             # a few ulps of the largest entry is a real error.
             if smallest < -1e-10 * scale:
                 raise SettingsError(
-                    f"noise: the covariance must be positive semi-definite, smallest eigenvalue {smallest:.3g}"
+                    "noise: the covariance must be positive semi-definite, smallest eigenvalue "
+                    f"{smallest:.3g}"
                 )
             noise_arr.setflags(write=False)
 
@@ -308,7 +311,8 @@ class Surrogate:
             hasattr(transform, attr) for attr in ("forward", "inverse", "to_dict")
         ):
             raise SettingsError(
-                f"transform: expected an ergodex Transform (forward/inverse/to_dict), got {type(transform).__name__}"
+                "transform: expected an ergodex Transform (forward/inverse/to_dict), got "
+                f"{type(transform).__name__}"
             )
         for field, value in (("settings", settings), ("provenance", provenance)):
             if value is not None and not isinstance(value, Mapping):
@@ -459,7 +463,8 @@ class Surrogate:
             x = x[None, :]
         if x.ndim != 2 or x.shape[1] != self.n_variables:
             raise SettingsError(
-                f"states: shape {np.shape(states)}, expected (M, {self.n_variables}) or ({self.n_variables},)"
+                f"states: shape {np.shape(states)}, expected (M, {self.n_variables}) or "
+                f"({self.n_variables},)"
             )
         return x, single
 
@@ -631,7 +636,8 @@ class Surrogate:
 
     @property
     def observed_index(self) -> np.ndarray:
-        """Model columns of :attr:`observed_variables`, in that order (every column unless some are hidden).
+        """Model columns of :attr:`observed_variables`, in that order (every column unless some
+        are hidden).
 
         Raises
         ------
@@ -729,7 +735,8 @@ class Surrogate:
         unknown = sorted(set(d) - set(_TOP_LEVEL_REQUIRED) - set(_TOP_LEVEL_OPTIONAL))
         if unknown:
             raise fail(
-                f"unknown field {unknown[0]!r} (allowed: {', '.join(_TOP_LEVEL_REQUIRED + _TOP_LEVEL_OPTIONAL)})"
+                f"unknown field {unknown[0]!r} (allowed: "
+                f"{', '.join(_TOP_LEVEL_REQUIRED + _TOP_LEVEL_OPTIONAL)})"
             )
 
         kind = d["kind"]
@@ -756,14 +763,16 @@ class Surrogate:
             if tk == "monomial":
                 if set(entry) != {"kind", "powers"}:
                     raise fail(
-                        f"{where}: a monomial has exactly the keys 'kind' and 'powers', got {sorted(entry)}"
+                        f"{where}: a monomial has exactly the keys 'kind' and 'powers', got "
+                        f"{sorted(entry)}"
                     )
                 powers = entry["powers"]
                 if not isinstance(powers, list) or not all(
                     isinstance(p, int) and not isinstance(p, bool) and p >= 0 for p in powers
                 ):
                     raise fail(
-                        f"{where}.powers must be a list of non-negative integers, got {_short(powers)}"
+                        f"{where}.powers must be a list of non-negative integers, got "
+                        f"{_short(powers)}"
                     )
                 if len(powers) != n:
                     raise fail(
@@ -778,7 +787,8 @@ class Surrogate:
             elif tk in ("sin", "cos"):
                 if set(entry) != {"kind", "variable", "frequency"}:
                     raise fail(
-                        f"{where}: a {tk} term has exactly the keys 'kind', 'variable', 'frequency', got {sorted(entry)}"
+                        f"{where}: a {tk} term has exactly the keys 'kind', 'variable', "
+                        f"'frequency', got {sorted(entry)}"
                     )
                 var, freq = entry["variable"], entry["frequency"]
                 if not isinstance(var, int) or isinstance(var, bool) or not 0 <= var < n:
@@ -1081,7 +1091,8 @@ def from_pysindy(
     coef = np.asarray(model.coefficients(), dtype=np.float64)
     if coef.shape != (n, len(names)):
         raise SettingsError(
-            f"from_pysindy: coefficient shape {coef.shape} does not match {n} variables x {len(names)} features"
+            f"from_pysindy: coefficient shape {coef.shape} does not match {n} variables x "
+            f"{len(names)} features"
         )
     terms = [_parse_pysindy_feature(name, n) for name in names]
     # A sum of libraries can list the same function twice (e.g. two constants); merge columns.

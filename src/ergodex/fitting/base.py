@@ -82,7 +82,8 @@ class Fitter(BaseEstimator):
         return self
 
     def check_params(self) -> None:
-        """Check every setting against the class's table; raise :class:`SettingsError` if one is bad."""
+        """Check every setting against the class's table; raise :class:`SettingsError` if one
+        is bad."""
         check_settings(self.method, self.get_params(), self.settings_table)
         self._check_consistency()
 
@@ -176,7 +177,8 @@ class Fitter(BaseEstimator):
         # Only called when normal lookup failed: a learned attribute asked for too early.
         if name.endswith("_") and not name.startswith("__"):
             raise NotFittedError(
-                f"{type(self).__name__}.{name} is not available before fit(); call fit(series) first"
+                f"{type(self).__name__}.{name} is not available before fit(); "
+                "call fit(series) first"
             )
         raise AttributeError(f"{type(self).__name__!r} object has no attribute {name!r}")
 
@@ -222,13 +224,14 @@ def check_series(series) -> None:
     for j, name in enumerate(series.names):
         if spread[j] <= 1e-12 * scale[j]:
             raise DataError(
-                f"{_source(series)}: variable '{name}' is constant ({stacked[0, j]:g}) over every run; "
-                f"it cannot be fitted: drop it from the data"
+                f"{_source(series)}: variable '{name}' is constant ({stacked[0, j]:g}) over every "
+                "run; it cannot be fitted: drop it from the data"
             )
 
 
 def data_provenance(series, model_runs=None, model_names=None, **extra: Any) -> dict[str, Any]:
-    """What every fitted surrogate records about its data: fingerprint, size, sampling interval, range.
+    """What every fitted surrogate records about its data: fingerprint, size, sampling interval,
+    range.
 
     The interval lets ``ergodex simulate`` default its output step to the data's; its unit
     (``time_unit``, recorded when the data name it) is what every time and rate of the model is
@@ -299,7 +302,8 @@ def fitter_class(method: str | type[Fitter]) -> type[Fitter]:
 
 
 def check_fit_settings(method: str | type[Fitter], settings: Mapping[str, Any]) -> None:
-    """Check a method name and its settings without building anything; raise :class:`SettingsError`."""
+    """Check a method name and its settings without building anything; raise
+    :class:`SettingsError`."""
     cls = fitter_class(method)
     if not isinstance(settings, Mapping):
         raise SettingsError(
@@ -352,7 +356,8 @@ def parse_fit_settings(
     for key in document:
         if key not in _TOP_LEVEL_KEYS:
             raise SettingsError(
-                f"{source}: unknown key '{key}'; allowed top-level keys: {', '.join(_TOP_LEVEL_KEYS)}"
+                f"{source}: unknown key '{key}'; allowed top-level keys: "
+                f"{', '.join(_TOP_LEVEL_KEYS)}"
             )
     method = document.get("method", "sparse")
     if not isinstance(method, str) or method not in FITTERS:
@@ -393,7 +398,8 @@ def load_fit_settings(path: str | os.PathLike) -> tuple[str, dict]:
 
 
 def read_fit_document(path: str | os.PathLike) -> dict:
-    """Read a fit-settings TOML file into a dict (not yet validated; see :func:`parse_fit_settings`).
+    """Read a fit-settings TOML file into a dict (not yet validated; see
+    :func:`parse_fit_settings`).
 
     Raises
     ------

@@ -59,15 +59,16 @@ def lim_operators(
     ]
     if bad.size:
         raise DataError(
-            f"G(τ₀) = C(τ₀) C(0)⁻¹ at τ₀ = {tau:g} has the eigenvalue {bad[0].real:.3g} ≤ 0, which has no real "
-            f"logarithm: τ₀ is longer than half the period of an oscillation in the data or longer than "
-            f"the data's memory; choose a shorter tau0"
+            f"G(τ₀) = C(τ₀) C(0)⁻¹ at τ₀ = {tau:g} has the eigenvalue {bad[0].real:.3g} ≤ 0, which "
+            "has no real logarithm: τ₀ is longer than half the period of an oscillation in the "
+            "data or longer than the data's memory; choose a shorter tau0"
         )
     logG = _principal_log(G)
     if np.iscomplexobj(logG):
         if np.max(np.abs(logG.imag)) > 1e-8 * max(np.max(np.abs(logG.real)), 1e-300):
             raise DataError(
-                f"log G(τ₀) at τ₀ = {tau:g} is not real: τ₀ aliases an oscillation of the data; choose a shorter tau0"
+                f"log G(τ₀) at τ₀ = {tau:g} is not real: τ₀ aliases an oscillation of the data; "
+                "choose a shorter tau0"
             )
         logG = logG.real
     L = logG / tau
@@ -204,8 +205,8 @@ class LinearInverseModel(Fitter):
         C0, _ = lagged_covariance(runs, 0, mean)
         if np.linalg.cond(C0) > 1e12:
             raise DataError(
-                f"{_source(series)}: the covariance of the {n} variables is singular (some are linear "
-                f"combinations of others); fit in principal components with n_modes < {n}"
+                f"{_source(series)}: the covariance of the {n} variables is singular (some are "
+                f"linear combinations of others); fit in principal components with n_modes < {n}"
             )
 
         longest = max(r.shape[0] for r in runs)
@@ -213,9 +214,9 @@ class LinearInverseModel(Fitter):
         lag0 = self._lag_samples(runs, mean, C0, dt)
         if lag0 > max_lag:
             raise DataError(
-                f"{_source(series)}: tau0 = {lag0 * dt:g} ({lag0} samples) is longer than the data allow: "
-                f"the longest run has {longest} samples, so tau0 may be at most {max_lag * dt:g} "
-                f"(half of it); choose a shorter tau0 or supply longer runs"
+                f"{_source(series)}: tau0 = {lag0 * dt:g} ({lag0} samples) is longer than the data "
+                f"allow: the longest run has {longest} samples, so tau0 may be at most "
+                f"{max_lag * dt:g} (half of it); choose a shorter tau0 or supply longer runs"
             )
         tau0 = lag0 * dt
         Ctau, pairs = lagged_covariance(runs, lag0, mean)
@@ -231,18 +232,19 @@ class LinearInverseModel(Fitter):
         if not stable and self.unstable == "refuse":
             worst = eigenvalues[np.argmax(eigenvalues.real)]
             raise DataError(
-                f"{_source(series)}: the fitted drift L has a growing mode (eigenvalue {worst:.3g}, real part "
-                f"≥ 0), so the model would blow up: the data are not a stationary linear process at "
-                f"tau0 = {tau0:g}; try another tau0, fewer modes, or unstable = 'flag' to keep it anyway"
+                f"{_source(series)}: the fitted drift L has a growing mode (eigenvalue "
+                f"{worst:.3g}, real part ≥ 0), so the model would blow up: the data are not a "
+                f"stationary linear process at tau0 = {tau0:g}; try another tau0, fewer modes, or "
+                "unstable = 'flag' to keep it anyway"
             )
 
         noise_eigenvalues = np.linalg.eigvalsh(Q)
         negative = noise_eigenvalues[noise_eigenvalues < 0]
         if negative.size:
             message = (
-                f"Q has {negative.size} negative eigenvalue(s) (most negative {negative.min():.3g}, "
-                f"largest {noise_eigenvalues.max():.3g}): the data are not linear plus white noise at "
-                f"tau0 = {tau0:g}"
+                f"Q has {negative.size} negative eigenvalue(s) (most negative "
+                f"{negative.min():.3g}, largest {noise_eigenvalues.max():.3g}): the data are not "
+                f"linear plus white noise at tau0 = {tau0:g}"
             )
             if self.negative_noise == "refuse":
                 raise DataError(
@@ -253,8 +255,8 @@ class LinearInverseModel(Fitter):
             noise = 0.5 * (noise + noise.T)
             removed = float(np.sum(-negative) / np.sum(np.abs(noise_eigenvalues)))
             message += (
-                f"; the negative eigenvalues were set to zero (Q replaced by its positive semi-definite "
-                f"part; {removed:.1%} of the eigenvalue magnitude removed)"
+                "; the negative eigenvalues were set to zero (Q replaced by its positive "
+                f"semi-definite part; {removed:.1%} of the eigenvalue magnitude removed)"
             )
         else:
             noise = Q
@@ -319,7 +321,8 @@ class LinearInverseModel(Fitter):
         self.tendency_error_ = relative_tendency_error(surrogate, runs, dt)
 
     def _reduce(self, series):
-        """The transform, the runs in model space and their names (a subclass may widen the runs)."""
+        """The transform, the runs in model space and their names (a subclass may widen the
+        runs)."""
         return reduce_series(
             series, method=self.method, n_modes=self.n_modes, standardise=self.standardise
         )
@@ -329,8 +332,8 @@ class LinearInverseModel(Fitter):
             lag = int(round(self.tau0 / dt))
             if lag < 1 or abs(lag * dt - self.tau0) > 1e-6 * max(self.tau0, dt):
                 raise SettingsError(
-                    f"linear-inverse setting 'tau0' = {self.tau0:g} must be a whole number (≥ 1) of sampling "
-                    f"intervals dt = {dt:g}"
+                    f"linear-inverse setting 'tau0' = {self.tau0:g} must be a whole number (≥ 1) "
+                    f"of sampling intervals dt = {dt:g}"
                 )
             return lag
         # Half the e-folding time of the mean normalised autocorrelation (see the class docstring).

@@ -151,7 +151,8 @@ class SelectionResult:
     def table(self) -> str:
         """Plain-text front, one line per candidate, the chosen one marked."""
         lines = [
-            f"{'':2}{'#':>3}  {'method':16} {'terms':>5}  {'stat.score':>10}  {'tend.err':>8}  verdict"
+            f"{'':2}{'#':>3}  {'method':16} {'terms':>5}  {'stat.score':>10}  {'tend.err':>8}  "
+            "verdict"
         ]
         for c in self.front:
             mark = "* " if c.index == self.chosen else "  "
@@ -164,7 +165,8 @@ class SelectionResult:
                 else ""
             )
             lines.append(
-                f"{mark}{c.index:>3}  {c.method:16} {terms:>5}  {score:>10}  {tend:>8}  {c.verdict}{extra}"
+                f"{mark}{c.index:>3}  {c.method:16} {terms:>5}  {score:>10}  {tend:>8}  "
+                f"{c.verdict}{extra}"
             )
         return "\n".join(lines)
 
@@ -314,7 +316,8 @@ def select(
     reference = series if reference is None else reference
     if tuple(reference.names) != tuple(series.names):
         raise SettingsError(
-            f"reference variables {list(reference.names)} differ from the fitting data's {list(series.names)}"
+            f"reference variables {list(reference.names)} differ from the fitting data's "
+            f"{list(series.names)}"
         )
 
     jobs = [(k, m, s) for k, (m, s) in enumerate(candidates)]
@@ -355,7 +358,8 @@ def select(
         c = out[chosen]
         message = (
             f"chose candidate {chosen} ({c.method}, {c.n_terms} terms, statistical score "
-            f"{c.statistical_score:.3g}): the sparsest of {sum(x.passed for x in out)} passing candidates"
+            f"{c.statistical_score:.3g}): the sparsest of {sum(x.passed for x in out)} passing "
+            "candidates"
         )
     for c in out:
         log.info(
@@ -425,8 +429,8 @@ def _run_dask(tasks, scheduler, show) -> list[dict]:
         client = scheduler
     else:
         raise SettingsError(
-            f"scheduler must be an address such as 'tcp://127.0.0.1:8786' or a dask.distributed.Client; "
-            f"got {type(scheduler).__name__}"
+            "scheduler must be an address such as 'tcp://127.0.0.1:8786' or a "
+            f"dask.distributed.Client; got {type(scheduler).__name__}"
         )
     try:
         with joblib.parallel_config(backend="dask", client=client):
@@ -487,7 +491,8 @@ def parse_selection(
             )
         ):
             raise SettingsError(
-                f"{source}: [select] 'thresholds' must be a non-empty list of numbers >= 0; got {thresholds!r}"
+                f"{source}: [select] 'thresholds' must be a non-empty list of numbers >= 0; got "
+                f"{thresholds!r}"
             )
         if "threshold" not in fitter_class(method).settings_table:
             raise SettingsError(

@@ -49,7 +49,8 @@ def evaluate_terms(terms: Sequence, X: np.ndarray) -> np.ndarray:
 
 
 def term_names(terms: Sequence, variables: Sequence[str]) -> list[str]:
-    """Human-readable names of terms (``'1'``, ``'flow dT_up'``, ``'flow^2'``, ``'sin(2 flow)'``)."""
+    """Human-readable names of terms (``'1'``, ``'flow dT_up'``, ``'flow^2'``,
+    ``'sin(2 flow)'``)."""
     return [term.label(variables) for term in terms]
 
 
@@ -150,7 +151,8 @@ def weak_matrices(
 
 
 def check_library_rank(Theta: np.ndarray, names: Sequence[str], *, what: str = "the data") -> None:
-    """Raise :class:`DataError` when the library cannot be fitted: too few rows or dependent columns.
+    """Raise :class:`DataError` when the library cannot be fitted: too few rows or dependent
+    columns.
 
     Columns are scaled to unit norm first so that the rank test does not depend on the units of the
     variables; a relative singular value below 1e-10 counts as a dependency.
@@ -175,9 +177,9 @@ def check_library_rank(Theta: np.ndarray, names: Sequence[str], *, what: str = "
         listed = ", ".join(repr(names[int(k)]) for k in dependent)
         rank = int(np.sum(s >= 1e-10 * s[0]))
         raise DataError(
-            f"{what}: the term library is rank-deficient (rank {rank} of {n_terms} terms); the terms "
-            f"{listed} are linearly dependent on these data: lower the degree, drop a variable that "
-            f"is a combination of others, or add data that moves every variable"
+            f"{what}: the term library is rank-deficient (rank {rank} of {n_terms} terms); the "
+            f"terms {listed} are linearly dependent on these data: lower the degree, drop a "
+            "variable that is a combination of others, or add data that moves every variable"
         )
 
 
@@ -236,7 +238,8 @@ def forward_tendencies(runs: Sequence[np.ndarray], dt: float) -> tuple[np.ndarra
 
 
 def relative_tendency_error(surrogate, runs: Sequence[np.ndarray], dt: float) -> float:
-    """RMS of (order-4 finite-difference tendency − surrogate drift) over RMS tendency, in model space.
+    """RMS of (order-4 finite-difference tendency − surrogate drift) over RMS tendency, in model
+    space.
 
     One figure comparable across fitters for the selection front. For a stochastic model the
     noise makes it large whatever the drift; compare it only between models of one kind.

@@ -59,7 +59,8 @@ def _as_dict(obj: Any) -> dict[str, Any]:
 
 
 def _array(evidence: Any, name: str) -> np.ndarray | None:
-    """Evidence field as an array, or ``None`` when absent or empty (the section is then left out)."""
+    """Evidence field as an array, or ``None`` when absent or empty (the section is then left
+    out)."""
     value = _field(evidence, name)
     if value is None:
         return None
@@ -406,8 +407,8 @@ def _regime_section(evidence: Any) -> tuple[str, str, str] | None:
             _figure(
                 figures.transition_figure(names, trans_ref, trans_mod),
                 "regime transition matrices, reference and surrogate",
-                "Of the departures from the row's regime, the fraction that go next to the column's "
-                "regime (changes of regime only, so the diagonal is zero).",
+                "Of the departures from the row's regime, the fraction that go next to the "
+                "column's regime (changes of regime only, so the diagonal is zero).",
             )
         )
     return _section("regimes", "Regimes", "".join(parts))
@@ -767,7 +768,7 @@ footer { margin-top: 2.5rem; padding-top: 0.6rem; border-top: 1px solid var(--ru
   figure img { max-height: 240mm; }
   a { color: inherit; text-decoration: none; }
 }
-"""
+"""  # noqa: E501
 
 
 def render_report(

@@ -52,14 +52,16 @@ class UploadRefused(ApiError):
 
 
 def check_filename(filename: str | None) -> str:
-    """The upload's format name, or :class:`UploadRefused` for a missing, path-like or foreign name."""
+    """The upload's format name, or :class:`UploadRefused` for a missing, path-like or foreign
+    name."""
     if not filename:
         raise UploadRefused(400, "bad-filename", "the uploaded file has no file name")
     if any(part in filename for part in ("/", "\\", "..", "\x00", ":")):
         raise UploadRefused(
             400,
             "bad-filename",
-            f"file name {filename[:80]!r} has folder parts; send a plain file name such as data.csv",
+            f"file name {filename[:80]!r} has folder parts; send a plain file name such as "
+            "data.csv",
         )
     if not _SAFE_NAME.match(filename):
         raise UploadRefused(

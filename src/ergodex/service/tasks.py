@@ -121,7 +121,8 @@ def run_validate(params: dict[str, Any], *, home: Path, job_id: str) -> dict[str
 
 
 def run_retrain(params: dict[str, Any], *, home: Path, job_id: str) -> dict[str, Any]:
-    """Retrain a registered model on an uploaded dataset (see :func:`ergodex.retraining.retrain`)."""
+    """Retrain a registered model on an uploaded dataset (see
+    :func:`ergodex.retraining.retrain`)."""
     from ergodex.registry import Registry
     from ergodex.retraining import retrain
 
