@@ -235,9 +235,11 @@ def main(argv=None) -> int:
         pick = stiff[np.linspace(0, len(stiff) - 1, 16).astype(np.int64)]
         np.abs(np.linalg.eigvals(ring.jacobian(pick))).max()
 
-    run = lambda: integrate.integrate_ensemble(
-        ring, x0, dt_out=0.05, n_out=args.outputs, substep=h, seed=0
-    )
+    def run():
+        return integrate.integrate_ensemble(
+            ring, x0, dt_out=0.05, n_out=args.outputs, substep=h, seed=0
+        )
+
     run()
     best = _best_side_by_side(
         {
