@@ -299,6 +299,22 @@ class Event:
     def to_dict(self) -> dict[str, Any]:
         return asdict(self)
 
+    @classmethod
+    def from_row(cls, r: Any) -> Event:
+        """The event of one row of the index's ``events`` table."""
+        return cls(
+            id=r["id"],
+            time=r["time"],
+            name=r["name"],
+            version=r["version"],
+            event=r["event"],
+            from_status=r["from_status"],
+            to_status=r["to_status"],
+            actor=r["actor"],
+            reason=r["reason"],
+            override=bool(r["override"]),
+        )
+
 
 @dataclass(frozen=True)
 class ModelSummary:
@@ -1721,21 +1737,7 @@ class Registry:
                     "SELECT * FROM events WHERE name = ? AND version = ? ORDER BY time, id",
                     (base, version),
                 ).fetchall()
-            return [
-                Event(
-                    id=r["id"],
-                    time=r["time"],
-                    name=r["name"],
-                    version=r["version"],
-                    event=r["event"],
-                    from_status=r["from_status"],
-                    to_status=r["to_status"],
-                    actor=r["actor"],
-                    reason=r["reason"],
-                    override=bool(r["override"]),
-                )
-                for r in rows
-            ]
+            return [Event.from_row(r) for r in rows]
 
     # ---------------------------------------------------------------- verified reading
 
@@ -1977,18 +1979,7 @@ class Registry:
                 event_id = conn.execute("SELECT last_insert_rowid()").fetchone()[0]
                 self._write_status(conn, row["name"], int(row["version"]), committed=True)
             r = conn.execute("SELECT * FROM events WHERE id = ?", (event_id,)).fetchone()
-            return Event(
-                id=r["id"],
-                time=r["time"],
-                name=r["name"],
-                version=r["version"],
-                event=r["event"],
-                from_status=r["from_status"],
-                to_status=r["to_status"],
-                actor=r["actor"],
-                reason=r["reason"],
-                override=bool(r["override"]),
-            )
+            return Event.from_row(r)
 
     # ---------------------------------------------------------------- export and import
 
