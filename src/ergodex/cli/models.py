@@ -200,7 +200,7 @@ def run_show(args: argparse.Namespace) -> int:
                 verdict = info.verdict or "-"
                 flag = "  INTEGRITY FAILED" if info.integrity == "failed" else ""
                 print(
-                    f"{info.ref:<24} {info.status:<10} {verdict:<5} {info.created}  "
+                    f"{info.ref:<24} {info.status:<10} {verdict:<12} {info.created}  "
                     f"{info.note}{flag}"
                 )
         return 0
