@@ -12,7 +12,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from ergodex.cli.common import add_home_option, add_log_level_option
+from ergodex.cli.common import add_data_options, add_home_option, add_log_level_option
 from ergodex.exceptions import SettingsError
 
 
@@ -36,17 +36,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument("name", metavar="NAME", help="registry name of the model")
     parser.add_argument("data", metavar="DATA", help="new data: CSV, NPZ, NetCDF or dataset folder")
     add_common_retrain_options(parser)
-    parser.add_argument(
-        "--dt",
-        type=float,
-        default=None,
-        help="sampling interval when DATA has no time column or manifest",
-    )
-    parser.add_argument(
-        "--split-at-gaps",
-        action="store_true",
-        help="split a run at rows with missing or non-finite values instead of refusing the file",
-    )
+    add_data_options(parser, holdout=False)  # --holdout comes with the retrain options
     parser.add_argument(
         "--json",
         metavar="OUT",
