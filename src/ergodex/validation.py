@@ -1765,7 +1765,13 @@ def validate(
     dt: float | None = None,
     progress=False,
 ) -> Scorecard:
-    """Like :func:`check`, returning only the scorecard."""
+    """Like :func:`check`, returning only the scorecard (no evidence is built for it)."""
     return check(
-        surrogate, reference, spec, initial_states=initial_states, dt=dt, progress=progress
+        surrogate,
+        reference,
+        spec,
+        initial_states=initial_states,
+        dt=dt,
+        progress=progress,
+        evidence=False,
     ).scorecard
