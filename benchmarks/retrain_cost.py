@@ -25,7 +25,7 @@ def main() -> None:
     parser.add_argument("--files", type=int, default=10, help="files for the inbox throughput")
     args = parser.parse_args()
 
-    from ergodex.inbox import watch
+    from ergodex.watching import watch
     from ergodex.registry import Registry
     from ergodex.retraining import retrain
     from ergodex.scenarios import convection_loop

@@ -7,7 +7,7 @@ import pytest
 import scipy.linalg
 
 from ergodex.surrogate import Surrogate, polynomial_terms
-from ergodex.transforms import Standardise
+from ergodex.model_space import Standardise
 
 xr = pytest.importorskip("xarray")
 

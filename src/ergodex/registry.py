@@ -87,7 +87,7 @@ from typing import Any
 
 from ergodex import CAUTION
 from ergodex.exceptions import IntegrityError, ModelFileError, RegistryError
-from ergodex.host import pid_alive, utc_now
+from ergodex.timestamps import pid_alive, utc_now
 
 __all__ = [
     "CAUTION",

@@ -69,7 +69,7 @@ from ergodex import CAUTION, stats
 from ergodex.check_names import ALL_STATISTICS, DEFAULT_STATISTICS, DEFAULT_TOLERANCE
 from ergodex.exceptions import DataError, ModelFileError, SettingsError
 from ergodex.files import atomic_write_path, atomic_write_text
-from ergodex.host import utc_now
+from ergodex.timestamps import utc_now
 from ergodex.jsonable import jsonable
 from ergodex.regimes import (
     NONE_NAME,
@@ -914,7 +914,7 @@ def _compared_space(surrogate, reference, observed):
     if transform is None or tuple(transform.output_names) == tuple(reference.names):
         return reference, False
     from ergodex.series import Series
-    from ergodex.transforms import transform_series
+    from ergodex.model_space import transform_series
 
     mapped = transform_series(transform, reference)
     if observed != list(mapped.names):

@@ -27,7 +27,7 @@ from ergodex.fitting.tendencies import (
     terms_from_feature_names,
     weak_matrices,
 )
-from ergodex.fitting.transforming import reduce_series
+from ergodex.fitting.reduction import reduce_series
 
 __all__ = ["SparseODE", "sparse_settings_table"]
 

@@ -23,7 +23,7 @@ import zipfile
 from pathlib import Path
 from typing import Any
 
-from ergodex.host import utc_now
+from ergodex.timestamps import utc_now
 from ergodex.service.errors import ApiError, one_line
 from ergodex.service.jobs import JobStore
 from ergodex.service.limits import declared_inflated_size

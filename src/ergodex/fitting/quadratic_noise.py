@@ -22,7 +22,7 @@ from ergodex.fitting.tendencies import (
     r2_score,
     term_names,
 )
-from ergodex.fitting.transforming import reduce_series
+from ergodex.fitting.reduction import reduce_series
 
 __all__ = ["QuadraticNoiseModel", "ridge_regression"]
 

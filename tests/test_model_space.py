@@ -10,7 +10,7 @@ import pytest
 from ergodex.exceptions import DataError, ModelFileError, NotFittedError, SettingsError
 from ergodex.scenarios import station_ring
 from ergodex.series import Series
-from ergodex.transforms import (
+from ergodex.model_space import (
     PCA,
     Chain,
     DelayEmbedding,
