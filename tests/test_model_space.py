@@ -8,8 +8,6 @@ import numpy as np
 import pytest
 
 from ergodex.exceptions import DataError, ModelFileError, NotFittedError, SettingsError
-from ergodex.scenarios import station_ring
-from ergodex.series import Series
 from ergodex.model_space import (
     PCA,
     Chain,
@@ -18,6 +16,8 @@ from ergodex.model_space import (
     transform_from_dict,
     transform_series,
 )
+from ergodex.scenarios import station_ring
+from ergodex.series import Series
 
 
 @pytest.fixture(scope="module")

@@ -24,6 +24,9 @@ import pytest
 import ergodex
 from ergodex.cli import main
 from ergodex.exceptions import SettingsError
+from ergodex.readers import read_series
+from ergodex.registry import Registry
+from ergodex.validation import CheckSpec
 from ergodex.watching import (
     CLAIMED_FOLDER,
     DONE_FOLDER,
@@ -37,9 +40,6 @@ from ergodex.watching import (
     read_ledger,
     watch,
 )
-from ergodex.readers import read_series
-from ergodex.registry import Registry
-from ergodex.validation import CheckSpec
 from retrain_support import write_csv
 
 NAME = "loop-inbox"

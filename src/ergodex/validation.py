@@ -69,7 +69,6 @@ from ergodex import CAUTION, stats
 from ergodex.check_names import ALL_STATISTICS, DEFAULT_STATISTICS, DEFAULT_TOLERANCE
 from ergodex.exceptions import DataError, ModelFileError, SettingsError
 from ergodex.files import atomic_write_path, atomic_write_text
-from ergodex.timestamps import utc_now
 from ergodex.jsonable import jsonable
 from ergodex.regimes import (
     NONE_NAME,
@@ -78,6 +77,7 @@ from ergodex.regimes import (
     occupancy,
     transition_matrix,
 )
+from ergodex.timestamps import utc_now
 
 __all__ = [
     "ALL_STATISTICS",
@@ -913,8 +913,8 @@ def _compared_space(surrogate, reference, observed):
         reference = align_columns(surrogate, reference)  # the same variables in any order
     if transform is None or tuple(transform.output_names) == tuple(reference.names):
         return reference, False
-    from ergodex.series import Series
     from ergodex.model_space import transform_series
+    from ergodex.series import Series
 
     mapped = transform_series(transform, reference)
     if observed != list(mapped.names):

@@ -23,8 +23,8 @@ from ergodex.fields.calendar import Clock
 from ergodex.fields.preparing import CLIMATOLOGIES, LinearTrend, SeasonalCycle
 from ergodex.fields.reading import Field
 from ergodex.fields.reducing import EOFResult, weighted_eof
-from ergodex.series import Series
 from ergodex.model_space import Transform
+from ergodex.series import Series
 
 __all__ = ["FieldModes", "modes_series"]
 

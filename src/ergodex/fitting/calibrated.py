@@ -19,8 +19,8 @@ import numpy as np
 from ergodex.exceptions import DataError
 from ergodex.fitting.calibration import ensemble_kalman_inversion
 from ergodex.fitting.linear_inverse import LinearInverseModel
-from ergodex.fitting.settings import Rule
 from ergodex.fitting.reduction import cyclic_rotations, model_space_runs, reduce_series
+from ergodex.fitting.settings import Rule
 
 __all__ = [
     "CalibratedLinearInverse",
