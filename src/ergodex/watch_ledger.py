@@ -16,7 +16,8 @@ import sqlite3
 from pathlib import Path
 from typing import Any
 
-from ergodex.timestamps import pid_alive, utc_now
+from ergodex.processes import pid_alive
+from ergodex.timestamps import utc_now
 
 #: Attempts (including ones cut short by a crash) before a file is moved aside for good.
 MAX_ATTEMPTS = 2
