@@ -195,7 +195,7 @@ def _finish_frame(
     time_unit=None,
 ):
     """dt from the times (the CSV reader's rules), then the runs through the readers' checks."""
-    from ergodex import readers
+    from ergodex.readers import csv_reader as readers
 
     tol = readers.DEFAULT_TIME_TOLERANCE if time_tolerance is None else time_tolerance
     dt_arg = readers._check_dt_argument(dt, source)
