@@ -25,10 +25,10 @@ def main() -> None:
     parser.add_argument("--files", type=int, default=10, help="files for the inbox throughput")
     args = parser.parse_args()
 
-    from ergodex.inbox import watch
     from ergodex.registry import Registry
     from ergodex.retraining import retrain
     from ergodex.scenarios import convection_loop
+    from ergodex.watching import watch
 
     root = Path(tempfile.mkdtemp(prefix="ergodex-retrain-bench-"))
     try:

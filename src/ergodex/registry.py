@@ -87,7 +87,8 @@ from typing import Any
 
 from ergodex import CAUTION
 from ergodex.exceptions import IntegrityError, ModelFileError, RegistryError
-from ergodex.host import pid_alive, utc_now
+from ergodex.processes import pid_alive
+from ergodex.timestamps import utc_now
 
 __all__ = [
     "CAUTION",

@@ -77,9 +77,9 @@ from typing import Any
 from ergodex import CAUTION
 from ergodex.exceptions import DataError, ModelLimitError, SettingsError
 from ergodex.files import atomic_write_text
-from ergodex.host import utc_now
 from ergodex.jsonable import jsonable
 from ergodex.series import Series, split_blocks, split_runs
+from ergodex.timestamps import utc_now
 
 log = logging.getLogger(__name__)
 

@@ -40,7 +40,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from ergodex.host import utc_now
+from ergodex.timestamps import utc_now
 
 log = logging.getLogger(__name__)
 

@@ -24,7 +24,10 @@ import pytest
 import ergodex
 from ergodex.cli import main
 from ergodex.exceptions import SettingsError
-from ergodex.inbox import (
+from ergodex.readers import read_series
+from ergodex.registry import Registry
+from ergodex.validation import CheckSpec
+from ergodex.watching import (
     CLAIMED_FOLDER,
     DONE_FOLDER,
     LEDGER_NAME,
@@ -37,9 +40,6 @@ from ergodex.inbox import (
     read_ledger,
     watch,
 )
-from ergodex.readers import read_series
-from ergodex.registry import Registry
-from ergodex.validation import CheckSpec
 from retrain_support import write_csv
 
 NAME = "loop-inbox"
@@ -609,7 +609,7 @@ def test_a_watcher_killed_mid_retrain_is_recovered_at_the_next_start(tmp_path):
     _drop(inbox, "feed.csv", text)
     script = (
         "import os, signal, sys\n"
-        "from ergodex.inbox import watch\n"
+        "from ergodex.watching import watch\n"
         "from ergodex.registry import Registry\n"
         "from ergodex.validation import CheckSpec\n"
         "def progress(step):\n"
@@ -765,7 +765,7 @@ def test_two_watcher_processes_on_one_folder_retrain_each_file_once(tmp_path):
         _drop(inbox, name, text)
     script = (
         "import sys\n"
-        "from ergodex.inbox import watch\n"
+        "from ergodex.watching import watch\n"
         "from ergodex.registry import Registry\n"
         "from ergodex.validation import CheckSpec\n"
         "items = watch(sys.argv[1], sys.argv[2], registry=Registry(sys.argv[3]),"
@@ -815,7 +815,7 @@ def test_a_watcher_stopped_with_ctrl_c_mid_retrain_runs_the_file_again_uncounted
     _drop(inbox, "feed.csv", text)
     script = (
         "import os, signal, sys\n"
-        "from ergodex.inbox import watch\n"
+        "from ergodex.watching import watch\n"
         "from ergodex.registry import Registry\n"
         "from ergodex.validation import CheckSpec\n"
         "def progress(step):\n"

@@ -44,7 +44,7 @@ Rules, and why:
    caught half-way through being claimed goes back into the inbox. A file another live watcher
    on this machine is retraining right now is left to it. Run one watcher per folder per process.
 7. **One log line per step** through the standard :mod:`logging` module (logger
-   ``ergodex.inbox``); the command line sets the level with ``--log-level``.
+   ``ergodex.watching``); the command line sets the level with ``--log-level``.
 
 A retrain that runs and finds no acceptable model (exit code 1) is a processed file, not a
 failure: its decision record says so, and the registry holds the drift event.
@@ -67,7 +67,7 @@ from pathlib import Path
 from typing import Any
 
 from ergodex.exceptions import DataError, ErgodexError, SettingsError
-from ergodex.inbox_ledger import (  # noqa: F401 - part of this module's interface
+from ergodex.watch_ledger import (  # noqa: F401 - part of this module's interface
     MAX_ATTEMPTS,
     REASONS,
     Ledger,
