@@ -100,7 +100,7 @@ __all__ = [
     "validate_name",
 ]
 
-log = logging.getLogger(__name__)
+log = logging.getLogger("ergodex.registry")
 
 INDEX_FILE = "registry.sqlite3"
 STAGING_DIR = ".staging"
