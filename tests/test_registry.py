@@ -470,7 +470,7 @@ def test_no_accepted_name_can_leave_the_home(tmp_path):
 
 
 def test_forward_migration_upgrades_an_existing_index(full_version, monkeypatch):
-    import ergodex.registry as registry_module
+    import ergodex.registry.index as registry_module
 
     reg, info, truth = full_version
     reg.close()

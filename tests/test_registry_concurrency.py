@@ -211,9 +211,10 @@ def _kill_self() -> None:
 
 def _register_then_die_at(home, model, card, point) -> None:
     import ergodex.registry as registry_module
+    import ergodex.registry.registration as registration_module
 
     if point == "second-file-written":
-        real = registry_module._write_file
+        real = registration_module._write_file
         calls = []
 
         def write_then_maybe_die(path, data, **kw):
@@ -222,7 +223,7 @@ def _register_then_die_at(home, model, card, point) -> None:
             if len(calls) == 2:
                 _kill_self()
 
-        registry_module._write_file = write_then_maybe_die
+        registration_module._write_file = write_then_maybe_die
     elif point == "moved-into-place":
         real_rename = os.rename
 
@@ -230,7 +231,7 @@ def _register_then_die_at(home, model, card, point) -> None:
             real_rename(src, dst)
             _kill_self()
 
-        registry_module.os.rename = rename_then_die
+        registration_module.os.rename = rename_then_die
     elif point == "indexed-before-commit":
 
         def die(*args, **kwargs):

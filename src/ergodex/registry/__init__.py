@@ -1,34 +1,47 @@
-"""The registry of surrogates: an SQLite index plus one folder per version (see :mod:`.core`)."""
+"""The registry of surrogates: an SQLite index plus one folder per version.
 
-from ergodex.registry.core import (
-    CAUTION,
+:class:`Registry` (in :mod:`.core`) is the public face; its parts live in one module per job:
+:mod:`.storage` (layout and file writes), :mod:`.names` (names and references), :mod:`.records`
+(what callers receive), :mod:`.index` (SQLite schema, migrations, connections),
+:mod:`.recovery`, :mod:`.registration`, :mod:`.queries`, :mod:`.status` and :mod:`.transfer`
+(export and import).
+"""
+
+from ergodex import CAUTION
+from ergodex.registry.core import Registry
+from ergodex.registry.index import MIGRATIONS, SCHEMA_VERSION
+from ergodex.registry.names import parse_ref, validate_name
+from ergodex.registry.records import STATUSES, Event, ModelSummary, VersionInfo
+from ergodex.registry.status import TRANSITIONS
+from ergodex.registry.storage import (
     EXPORT_FORMAT,
     INDEX_FILE,
-    MIGRATIONS,
     QUARANTINE_DIR,
     RECORD_FORMAT,
-    SCHEMA_VERSION,
     STAGING_DIR,
     STATUS_FILE,
     STATUS_FORMAT,
-    STATUSES,
-    TRANSITIONS,
-    Event,
-    ModelSummary,
-    Registry,
-    VersionInfo,
-    parse_ref,
     sha256_hex,
-    validate_name,
 )
 
 __all__ = [
     "CAUTION",
+    "EXPORT_FORMAT",
+    "INDEX_FILE",
+    "MIGRATIONS",
+    "QUARANTINE_DIR",
+    "RECORD_FORMAT",
+    "SCHEMA_VERSION",
+    "STAGING_DIR",
     "STATUSES",
+    "STATUS_FILE",
+    "STATUS_FORMAT",
+    "TRANSITIONS",
     "Event",
     "ModelSummary",
     "Registry",
     "VersionInfo",
     "parse_ref",
+    "sha256_hex",
     "validate_name",
 ]
