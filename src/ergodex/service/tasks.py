@@ -15,12 +15,11 @@ from typing import Any
 from ergodex.exceptions import DataError, RegistryError
 from ergodex.jsonable import jsonable
 from ergodex.service.settings import ServiceSettings
+from ergodex.service.store import JobStore
 
 
 def dataset_path(home: Path, dataset_id: str) -> tuple[Path, dict[str, Any]]:
     """Path of an uploaded dataset's stored file and its record; ``DataError`` if unknown."""
-    from ergodex.service.jobs import JobStore
-
     settings = ServiceSettings(home=home)
     record = JobStore(settings.jobs_path).get_dataset(dataset_id)
     if record is None:
