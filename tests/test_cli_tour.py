@@ -187,7 +187,7 @@ def test_a_cli_fitted_model_registers_reports_and_retrains_without_hand_written_
     assert code in (0, 1)
     record = json.loads(decision.read_text())
     recorded = Surrogate.from_json(fitted).settings
-    fit = record["challenger"]["fit"]
+    fit = record["refit"]["fit"]
     assert fit["method"] == "linear-inverse" == recorded["method"]
     assert all(recorded[key] == value for key, value in fit["settings"].items())
     assert record["spec"]["members"] == 8
@@ -229,7 +229,7 @@ def test_retrain_accepts_the_same_variables_in_another_column_order(dataset, fit
         ]
     ) in (0, 1)
     record = json.loads(decision.read_text())
-    assert record["data"]["names"] == list(whole.names)  # put back in the champion's order
+    assert record["data"]["names"] == list(whole.names)  # put back in the incumbent's order
     # the columns were moved, not relabelled: the reference part equals the original runs 3-4
     assert record["data"]["reference_fingerprint"] == whole.select_runs([2, 3]).fingerprint()
 

@@ -190,6 +190,27 @@ def test_a_job_failed_as_interrupted_cannot_be_finished_by_its_old_worker(tmp_pa
     assert store.get(second.id).state == "queued"
 
 
+def test_a_retrain_result_stored_by_an_earlier_server_is_shown_with_todays_side_names(tmp_path):
+    from ergodex.service.app import _job_out
+
+    store = JobStore(tmp_path / "jobs.sqlite3")
+    store.submit("retrain", {"name": "loop"})
+    job = store.claim(worker_pid=12345)
+    side = {"ref": "loop/1", "verdict": "pass", "score": 0.8}
+    old = {
+        "format": "ergodex-decision/1",
+        "outcome": "kept",
+        "champion": {**side, "role": "champion"},
+        "challenger": {**side, "ref": "loop/2", "role": "challenger"},
+    }
+    assert store.succeed(job.id, job.claim, old)
+    shown = _job_out(store.get(job.id)).result
+    assert shown["format"] == "ergodex-decision/2"
+    assert shown["incumbent"] == {**side, "role": "incumbent"}
+    assert shown["refit"] == {**side, "ref": "loop/2", "role": "refit"}
+    assert "champion" not in shown and "challenger" not in shown
+
+
 # -- against a running server -----------------------------------------------------------------
 
 

@@ -206,6 +206,12 @@ class BodyLimit:
 
 
 def _job_out(job: JobRecord, clean=one_line) -> schemas.JobInfo:
+    result = job.result
+    if job.kind == "retrain" and isinstance(result, dict):
+        from ergodex.retraining import OLD_DECISION_FORMATS, upgrade_decision
+
+        if result.get("format") in OLD_DECISION_FORMATS:  # stored by an earlier server
+            result = upgrade_decision(result, f"result of job {job.id}")
     error = None
     if job.error_code is not None:
         error = schemas.ErrorBody(code=job.error_code, message=clean(job.error_message or ""))
@@ -218,7 +224,7 @@ def _job_out(job: JobRecord, clean=one_line) -> schemas.JobInfo:
         created=job.created,
         started=job.started,
         finished=job.finished,
-        result=job.result,
+        result=result,
         error=error,
     )
 

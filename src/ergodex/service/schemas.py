@@ -114,7 +114,7 @@ class ValidateJobRequest(_Strict):
 class RetrainJobRequest(_Strict):
     name: str = Field(pattern=NAME_PATTERN, description="registered model to retrain")
     dataset: str = Field(pattern=DATASET_PATTERN, description="id of an uploaded dataset")
-    method: str | None = Field(None, description="challenger fit method; default: as before")
+    method: str | None = Field(None, description="fit method of the refit; default: as before")
     settings: dict[str, Any] | None = None
     check: CheckOptions | None = None
     holdout: int | None = Field(None, ge=1, le=10_000)
