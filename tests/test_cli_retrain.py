@@ -89,7 +89,7 @@ def test_new_data_from_the_same_loop_exit_0_with_the_incumbent_kept(first_run, t
     captured = capsys.readouterr()
     assert code == 0
     record = json.loads(captured.out)  # with '-' the record alone goes to standard output
-    assert record["outcome"] == "kept" and record["standing"] == f"{LOOP}@1"
+    assert record["outcome"] == "kept" and record["standing"] == f"{LOOP}/1"
     assert record["seed"] == 4 and record["spec"]["seed"] == 4
     assert set(record["incumbent"]) == SIDE_KEYS
     assert record["incumbent"]["verdict"] == "pass"
@@ -144,9 +144,9 @@ def test_data_the_configured_method_cannot_represent_exit_1(tmp_path, capsys):
     out = capsys.readouterr().out
     assert code == 1
     assert f"retrain {WELL}: no-acceptable-model (exit code 1)" in out
-    info = Registry(home).get(f"{WELL}@1")
+    info = Registry(home).get(f"{WELL}/1")
     assert info.status == "rejected"
-    assert json.loads(Registry(home).artifact(f"{WELL}@1", "fit-settings.json")) == {
+    assert json.loads(Registry(home).artifact(f"{WELL}/1", "fit-settings.json")) == {
         "method": "sparse",
         "settings": {"degree": 2},
     }

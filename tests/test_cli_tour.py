@@ -137,7 +137,7 @@ def test_a_cli_fitted_model_registers_reports_and_retrains_without_hand_written_
             [
                 "models",
                 "accept",
-                "ou@1",
+                "ou/1",
                 "--home",
                 str(home),
                 "--override",
@@ -198,7 +198,7 @@ def test_retrain_accepts_the_same_variables_in_another_column_order(dataset, fit
     home = tmp_path / "home"
     assert main(["register", str(fitted), "--name", "ou", "--home", str(home)]) == 0
     assert (
-        main(["models", "accept", "ou@1", "--home", str(home), "--override", "--reason", "test"])
+        main(["models", "accept", "ou/1", "--home", str(home), "--override", "--reason", "test"])
         == 0
     )
     whole = read_dataset(dataset).series
@@ -242,7 +242,7 @@ def test_validate_simulate_and_report_resolve_registry_references_alike(fitted, 
         main(
             [
                 "simulate",
-                "ou@1",
+                "ou/1",
                 "--members",
                 "2",
                 "--steps",
@@ -260,15 +260,15 @@ def test_validate_simulate_and_report_resolve_registry_references_alike(fitted, 
     capsys.readouterr()
     # an unknown reference is one line, exit 2, for every command
     for argv in (
-        ["validate", "ou@7", str(out)],
-        ["simulate", "ou@7", "--members", "2", "--steps", "5"],
-        ["report", "ou@7"],
+        ["validate", "ou/7", str(out)],
+        ["simulate", "ou/7", "--members", "2", "--steps", "5"],
+        ["report", "ou/7"],
     ):
         assert main([*argv, "--home", str(home)]) == 2
         err = capsys.readouterr().err.strip().splitlines()
-        assert len(err) == 1 and "ou@7" in err[0]
-    assert main(["retrain", "ou@1", str(out), "--home", str(home)]) == 2
-    assert "without @VERSION" in capsys.readouterr().err
+        assert len(err) == 1 and "ou/7" in err[0]
+    assert main(["retrain", "ou/1", str(out), "--home", str(home)]) == 2
+    assert "without /VERSION" in capsys.readouterr().err
 
 
 def test_register_refuses_fit_settings_retrain_could_not_use(fitted, tmp_path, capsys):

@@ -118,7 +118,7 @@ def test_eight_processes_register_200_versions_without_gap_or_repeat(tmp_path):
     reg = Registry(home)
     assert _assert_consistent(reg, "convection-loop") == 200
     for v in (1, 100, 200):
-        assert reg.load(f"convection-loop@{v}") == truth
+        assert reg.load(f"convection-loop/{v}") == truth
 
 
 def _register_forever(home, model, card, evidence) -> None:
@@ -266,7 +266,7 @@ def test_sigkill_at_each_step_of_a_registration(tmp_path, point):
         assert any(n.endswith("-convection-loop-2") for n in kept)
     # The crashed registration never took a number: the next one receives 2.
     assert reopened.register("convection-loop", model, scorecard=card).version == 2
-    assert reopened.load("convection-loop@2") == truth
+    assert reopened.load("convection-loop/2") == truth
 
 
 def _register_once(reg, model, card) -> None:

@@ -83,11 +83,11 @@ def test_first_run_fits_checks_registers_and_accepts(loop_home):
     registry = Registry(home)
     assert decision.outcome == "first-accepted" and decision.exit_code == 0
     assert decision.incumbent is None
-    assert decision.refit.ref == f"{LOOP}@1" and decision.refit.passed
+    assert decision.refit.ref == f"{LOOP}/1" and decision.refit.passed
     info = registry.get(LOOP)  # newest accepted
     assert info.version == 1 and info.status == "accepted" and info.parent is None
     # The recorded fit settings are what the next retrain refits with.
-    recorded = json.loads(registry.artifact(f"{LOOP}@1", "fit-settings.json"))
+    recorded = json.loads(registry.artifact(f"{LOOP}/1", "fit-settings.json"))
     assert recorded == {"method": "sparse", "settings": {}}
     # SINDy recovers the Lorenz-63 coefficients from clean-enough data (Brunton, Proctor & Kutz,
     # PNAS 2016): d dT_across/dt = rho flow - dT_across - flow dT_up with rho = 28. 2 % covers
@@ -100,15 +100,15 @@ def test_first_run_fits_checks_registers_and_accepts(loop_home):
 def test_new_data_from_the_same_loop_keep_the_incumbent(kept_pair):
     registry, decision = kept_pair[0]
     assert decision.outcome == "kept" and decision.exit_code == 0
-    assert decision.incumbent.ref == f"{LOOP}@1" and decision.incumbent.passed
-    assert decision.standing == f"{LOOP}@1"
+    assert decision.incumbent.ref == f"{LOOP}/1" and decision.incumbent.passed
+    assert decision.standing == f"{LOOP}/1"
     # The refit is registered all the same, with lineage, and not promoted.
     refit = registry.get(decision.refit.ref)
-    assert refit.version == 2 and refit.parent == f"{LOOP}@1"
+    assert refit.version == 2 and refit.parent == f"{LOOP}/1"
     assert refit.status in ("candidate", "rejected")
     assert refit.status == decision.refit.status
     assert registry.get(LOOP).version == 1  # downstream still loads the incumbent
-    events = [e.event for e in registry.history(f"{LOOP}@1")]
+    events = [e.event for e in registry.history(f"{LOOP}/1")]
     assert events[-1] == "drift-check-passed"
 
 
@@ -135,21 +135,21 @@ def test_changed_heating_replaces_the_drifted_incumbent_with_lineage(loop_home, 
     assert decision.outcome == "replaced" and decision.exit_code == 0
     assert not decision.incumbent.passed and decision.refit.passed
     assert decision.refit.score <= decision.incumbent.score
-    assert decision.standing == decision.refit.ref == f"{LOOP}@2"
+    assert decision.standing == decision.refit.ref == f"{LOOP}/2"
     info = registry.get(LOOP)
     assert info.version == 2 and info.status == "accepted"
-    assert info.parent == f"{LOOP}@1"
+    assert info.parent == f"{LOOP}/1"
     roles = {d["role"]: d["fingerprint"] for d in info.datasets}
     assert roles["fit"] == decision.data["fit_fingerprint"]
     assert roles["check"] == decision.data["reference_fingerprint"]
-    drift = [e for e in registry.history(f"{LOOP}@1") if e.event == "drift-detected"]
+    drift = [e for e in registry.history(f"{LOOP}/1") if e.event == "drift-detected"]
     assert len(drift) == 1 and new.fingerprint() in drift[0].reason
     # One accepted version per name: the old incumbent is retired by the promotion, with its
     # own event; nothing deleted, it still loads by version.
-    assert registry.get(f"{LOOP}@1").status == "retired"
-    retired = [e for e in registry.history(f"{LOOP}@1") if e.event == "retired"]
+    assert registry.get(f"{LOOP}/1").status == "retired"
+    retired = [e for e in registry.history(f"{LOOP}/1") if e.event == "retired"]
     assert [e.reason for e in retired] == ["replaced by version 2"]
-    registry.load(f"{LOOP}@1")
+    registry.load(f"{LOOP}/1")
     # The refit learned the new heating (Lorenz 1963 form; SINDy recovery as above).
     rho = _coefficient(registry.load(LOOP), "dT_across", (1, 0, 0))
     assert rho == pytest.approx(35.0, rel=0.02)
@@ -176,7 +176,7 @@ def test_data_the_method_cannot_represent_leave_no_acceptable_model(tmp_path):
         WELL, truth, scorecard=result.scorecard, datasets={"check": reference.fingerprint()}
     )
     registry.accept(
-        f"{WELL}@1",
+        f"{WELL}/1",
         reason="true equations did not fail on held-out runs",
         override=not result.scorecard.passed,
     )
@@ -192,10 +192,10 @@ def test_data_the_method_cannot_represent_leave_no_acceptable_model(tmp_path):
     assert decision.outcome == "no-acceptable-model" and decision.exit_code == 1
     assert not decision.incumbent.passed and not decision.refit.passed
     assert any("warned" in r for r in decision.reasons)
-    history = registry.history(f"{WELL}@1")
+    history = registry.history(f"{WELL}/1")
     assert [e.event for e in history if e.event == "drift-detected"] == ["drift-detected"]
-    refit = registry.get(f"{WELL}@2")
-    assert refit.status == "rejected" and refit.parent == f"{WELL}@1"
+    refit = registry.get(f"{WELL}/2")
+    assert refit.status == "rejected" and refit.parent == f"{WELL}/1"
     # Nothing deleted: both versions and their folders remain; the incumbent still loads.
     assert [v.version for v in registry.versions(WELL)] == [1, 2]
     assert all(v.folder.is_dir() for v in registry.versions(WELL))
@@ -232,7 +232,7 @@ def test_check_spec_defaults_to_the_incumbents_and_takes_overrides(loop_home):
     home, _ = loop_home
     registry = Registry(home)
     incumbent = find_incumbent(registry, LOOP)
-    assert incumbent.ref == f"{LOOP}@1"
+    assert incumbent.ref == f"{LOOP}/1"
     assert resolve_spec(None, registry, incumbent, 3) == CheckSpec(members=16, bins=30, seed=3)
     assert resolve_spec({"members": 5}, registry, incumbent, 0) == CheckSpec(members=5, bins=30)
     given = CheckSpec(members=4)
@@ -300,7 +300,7 @@ def test_exit_codes_follow_the_outcome():
     d = Decision(
         name="m",
         outcome="kept",
-        standing="m@1",
+        standing="m/1",
         incumbent=None,
         refit=None,
         reasons=["x"],

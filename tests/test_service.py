@@ -420,19 +420,19 @@ def test_upload_fit_validate_accept_download_round_trip(served):
     if fitted["result"]["verdict"] == "pass":
         assert accepted.status_code == 200, accepted.text
         assert accepted.json()["status"] == "accepted"
-        served_ref = "accepted"
+        served_ref = "current"
     else:  # the registry refuses a failed scorecard without an override: a 409, not a 500
         assert accepted.status_code == 409 and accepted.json()["code"] == "status-conflict"
-        served_ref = str(version)
+        served_ref = f"versions/{version}"
 
     registry = Registry(server.home)
     for filename in ("model.json", "scorecard.json", "report.html"):
-        response = client.get(f"/models/convection-loop/versions/{served_ref}/{filename}")
+        response = client.get(f"/models/convection-loop/{served_ref}/{filename}")
         assert response.status_code == 200, (filename, response.text)
-        assert response.content == registry.artifact(f"convection-loop@{version}", filename)
+        assert response.content == registry.artifact(f"convection-loop/{version}", filename)
         assert (
             response.headers["etag"].strip('"')
-            == registry.get(f"convection-loop@{version}").artifacts[filename]
+            == registry.get(f"convection-loop/{version}").artifacts[filename]
         )
     events = client.get("/models/convection-loop/history").json()["events"]
     assert [e["event"] for e in events][:1] == ["registered"]
@@ -576,7 +576,7 @@ def test_killed_server_or_worker_fails_its_job_and_the_queued_ones_still_run(tmp
     registry = Registry(home)
     # The interrupted fit left no version behind, and every stored byte matches its hash.
     assert [m.name for m in registry.list_models()] == ["truth"]
-    registry.verify("truth@1")
+    registry.verify("truth/1")
     assert [e.event for e in registry.history("truth")] == ["registered", "checked"]
 
 

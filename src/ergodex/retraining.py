@@ -123,7 +123,7 @@ class ModelVerdict:
     role : str
         ``"incumbent"`` or ``"refit"``.
     ref : str or None
-        Registry reference ``"name@version"`` (``None`` only if nothing was registered).
+        Registry reference ``"name/version"`` (``None`` only if nothing was registered).
     version : int or None
     verdict : str
         ``"pass"``, ``"fail"`` or ``"inconclusive"`` of the scorecard (only pass counts as
@@ -520,14 +520,14 @@ def find_incumbent(registry: Any, name: str) -> Any | None:
     A name never registered, or registered without an accepted version, has no incumbent: the
     retrain is then a first run.
     """
-    from ergodex.registry import validate_name
+    from ergodex.registry import format_ref, validate_name
 
     validate_name(name)
     for summary in registry.list_models():
         if summary.name == name:
             if summary.accepted is None:
                 return None
-            return registry.get(f"{name}@{summary.accepted}")
+            return registry.get(format_ref(name, summary.accepted))
     return None
 
 

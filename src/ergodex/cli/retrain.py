@@ -127,13 +127,15 @@ def read_new_data(args: argparse.Namespace):
 
 def run(args: argparse.Namespace) -> int:
     from ergodex.cli.common import registry_from_args, show_progress
+    from ergodex.registry import split_ref
     from ergodex.retraining import retrain
 
-    if "@" in args.name:
+    name, version, current = split_ref(args.name)  # refuses the former NAME@VERSION form
+    if version is not None or current:
         raise SettingsError(
             "retrain works on a name's accepted version (the incumbent); give "
-            f"{args.name.split('@')[0]} without @VERSION (to check one version on new data use "
-            "'ergodex validate NAME@VERSION DATA')"
+            f"{name} without /VERSION (to check one version on new data use "
+            "'ergodex validate NAME/VERSION DATA')"
         )
     if args.json not in (None, "-"):  # refused before the work, not after it
         from ergodex.files import check_writable

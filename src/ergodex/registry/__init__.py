@@ -10,12 +10,14 @@
 from ergodex import CAUTION
 from ergodex.registry.core import Registry
 from ergodex.registry.index import MIGRATIONS, SCHEMA_VERSION
-from ergodex.registry.names import parse_ref, validate_name
+from ergodex.registry.names import CURRENT, format_ref, parse_ref, split_ref, validate_name
 from ergodex.registry.records import STATUSES, Event, ModelSummary, VersionInfo
 from ergodex.registry.status import TRANSITIONS
 from ergodex.registry.storage import (
     EXPORT_FORMAT,
     INDEX_FILE,
+    OLD_EXPORT_FORMATS,
+    OLD_RECORD_FORMATS,
     QUARANTINE_DIR,
     RECORD_FORMAT,
     STAGING_DIR,
@@ -26,9 +28,12 @@ from ergodex.registry.storage import (
 
 __all__ = [
     "CAUTION",
+    "CURRENT",
     "EXPORT_FORMAT",
     "INDEX_FILE",
     "MIGRATIONS",
+    "OLD_EXPORT_FORMATS",
+    "OLD_RECORD_FORMATS",
     "QUARANTINE_DIR",
     "RECORD_FORMAT",
     "SCHEMA_VERSION",
@@ -41,7 +46,9 @@ __all__ = [
     "ModelSummary",
     "Registry",
     "VersionInfo",
+    "format_ref",
     "parse_ref",
     "sha256_hex",
+    "split_ref",
     "validate_name",
 ]

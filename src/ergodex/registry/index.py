@@ -20,6 +20,7 @@ from pathlib import Path
 from typing import Self
 
 from ergodex.exceptions import RegistryError
+from ergodex.registry.names import format_ref
 from ergodex.registry.records import VersionInfo
 from ergodex.registry.storage import (
     INDEX_FILE,
@@ -88,6 +89,9 @@ MIGRATIONS: dict[int, tuple[str, ...]] = {
                override INTEGER NOT NULL DEFAULT 0)""",
         "CREATE INDEX events_by_version ON events (name, version)",
     ),
+    # References became NAME/VERSION: rewrite the parents stored as NAME@VERSION (a name never
+    # holds '@' or '/', so the one '@' of a reference is its separator).
+    2: ("UPDATE versions SET parent = replace(parent, '@', '/') WHERE parent LIKE '%@%'",),
 }
 
 SCHEMA_VERSION = max(MIGRATIONS)
@@ -106,7 +110,13 @@ def _is_corruption(exc: sqlite3.DatabaseError) -> bool:
 
 def _log_status(name: str, version: int, old: str | None, new: str, reason: str) -> None:
     """One line on the ``ergodex.registry`` logger per committed status decision."""
-    log.info("%s@%s: %s -> %s (%s)", name, version, old or "new", new, reason or "no reason given")
+    log.info(
+        "%s: %s -> %s (%s)",
+        format_ref(name, version),
+        old or "new",
+        new,
+        reason or "no reason given",
+    )
 
 
 class RegistryIndex:
@@ -459,5 +469,7 @@ class RegistryIndex:
     def _info(self, conn, name: str, version: int) -> VersionInfo:
         row = self._row(conn, name, version)
         if row is None:  # pragma: no cover - callers check first
-            raise RegistryError(f"{name}@{version} is not in the registry at {self.home}")
+            raise RegistryError(
+                f"{format_ref(name, version)} is not in the registry at {self.home}"
+            )
         return self._info_from_row(conn, row)

@@ -10,7 +10,7 @@ from typing import Any
 
 from ergodex.exceptions import IntegrityError, RegistryError
 from ergodex.registry.index import RegistryIndex
-from ergodex.registry.names import parse_ref, validate_name
+from ergodex.registry.names import CURRENT, REF_SEPARATOR, format_ref, split_ref, validate_name
 from ergodex.registry.records import STATUSES, Event, ModelSummary, VersionInfo
 from ergodex.registry.storage import _hash_file, sha256_hex
 
@@ -19,9 +19,12 @@ class QueriesMixin(RegistryIndex):
     """Read versions, summaries and histories; every read that shows a status hashes files."""
 
     def _resolve(self, conn, ref: Any, *, need_version: bool = False) -> sqlite3.Row:
-        name, version = parse_ref(ref)
-        if need_version and version is None:
-            raise RegistryError(f"name a version for this change: {name}@VERSION")
+        name, version, current = split_ref(ref)
+        if need_version and version is None and not current:
+            raise RegistryError(
+                f"name a version for this change: {format_ref(name, 'VERSION')} "
+                f"(or {format_ref(name, CURRENT)} for the accepted one)"
+            )
         if (
             conn is None
             or conn.execute("SELECT 1 FROM models WHERE name = ?", (name,)).fetchone() is None
@@ -49,8 +52,8 @@ class QueriesMixin(RegistryIndex):
                 listing = ", ".join(f"{n} {s}" for s, n in sorted(counts.items()))
                 raise RegistryError(
                     f"{name} has no accepted version ({listing}); accept one with "
-                    f"'ergodex models accept {name}@VERSION' or load a version explicitly as "
-                    f"{name}@VERSION"
+                    f"'ergodex models accept {format_ref(name, 'VERSION')}' or load a version "
+                    f"explicitly as {format_ref(name, 'VERSION')}"
                 )
             return row
         row = self._row(conn, name, version)
@@ -59,12 +62,12 @@ class QueriesMixin(RegistryIndex):
                 "SELECT MAX(version) FROM versions WHERE name = ?", (name,)
             ).fetchone()[0]
             raise RegistryError(
-                f"{name}@{version} does not exist; versions of {name} run 1..{latest}"
+                f"{format_ref(name, version)} does not exist; versions of {name} run 1..{latest}"
             )
         return row
 
     def get(self, ref: str | VersionInfo) -> VersionInfo:
-        """Metadata of ``"name@v"``, or of the accepted version for ``"name"``.
+        """Metadata of ``"name/v"``, or of the accepted version (``"name"``, ``"name/current"``).
 
         Every file is hashed on the way: ``integrity`` is ``"ok"`` or ``"failed"`` (with
         ``integrity_problems``), so a status or verdict is never shown for changed bytes unmarked.
@@ -110,19 +113,19 @@ class QueriesMixin(RegistryIndex):
         return problems
 
     def check_integrity(self, ref: str | None = None) -> list[VersionInfo]:
-        """Hash every file of every version (of ``"name"``, or one ``"name@v"``); return them.
+        """Hash every file of every version (of ``"name"``, or one ``"name/v"``); return them.
 
         Each returned info has ``integrity`` ``"ok"`` or ``"failed"``; nothing raises for a
         changed file, so that one damaged version does not hide the state of the others.
         """
         if ref is None:
             return [i for m in self.list_models() for i in self.versions(m.name)]
-        name, version = parse_ref(ref)
-        return self.versions(name) if version is None else [self.get(ref)]
+        name, version, current = split_ref(ref)
+        return self.versions(name) if version is None and not current else [self.get(ref)]
 
     def _resolve_name(self, conn, name: str) -> None:
         validate_name(name)
-        if "@" in name:  # pragma: no cover - validate_name already refuses '@'
+        if REF_SEPARATOR in name:  # pragma: no cover - validate_name already refuses '/'
             raise RegistryError(f"expected a model name, got the reference {name!r}")
         if (
             conn is None
@@ -170,22 +173,22 @@ class QueriesMixin(RegistryIndex):
     def history(self, name: str) -> list[Event]:
         """Every event of every version of ``name``, oldest first.
 
-        ``"name@v"`` gives the events of one version only.
+        ``"name/v"`` (or ``"name/current"``) gives the events of one version only.
         """
         with self._connect() as conn:
-            base, version = parse_ref(name)
-            if version is None:
+            base, version, current = split_ref(name)
+            if version is None and not current:
                 self._resolve_name(conn, base)
                 conn = self._live(conn)  # _resolve_name raised if there is no index
                 rows = conn.execute(
                     "SELECT * FROM events WHERE name = ? ORDER BY time, id", (base,)
                 ).fetchall()
             else:
-                self._resolve(conn, name)
+                row = self._resolve(conn, name)
                 conn = self._live(conn)  # _resolve raised if there is no index
                 rows = conn.execute(
                     "SELECT * FROM events WHERE name = ? AND version = ? ORDER BY time, id",
-                    (base, version),
+                    (base, row["version"]),
                 ).fetchall()
             return [Event.from_row(r) for r in rows]
 
@@ -241,7 +244,7 @@ class QueriesMixin(RegistryIndex):
         return info.folder / filename
 
     def load(self, ref: str | VersionInfo):
-        """The surrogate of ``"name@v"``, or of the accepted version for ``"name"`` (at most one).
+        """The surrogate of ``"name/v"``, or of the accepted version for ``"name"`` (at most one).
 
         Every artifact of the version is checked against its sha256 first, so the surrogate
         returned is exactly the one registered, with its evidence intact.

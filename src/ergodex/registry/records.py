@@ -6,6 +6,8 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
+from ergodex.registry.names import format_ref
+
 STATUSES = ("candidate", "accepted", "rejected", "retired")
 
 
@@ -16,7 +18,7 @@ class VersionInfo:
     Attributes
     ----------
     name, version : str, int
-        The version's reference is ``f"{name}@{version}"`` (:attr:`ref`).
+        The version's reference is ``"name/version"`` (:attr:`ref`, e.g. ``"loop/3"``).
     status : str
         One of :data:`STATUSES`.
     created : str
@@ -26,7 +28,7 @@ class VersionInfo:
     folder : pathlib.Path
         The version folder.
     note, parent : str, str or None
-        Free text given at registration; the version it was retrained from (``"name@v"``).
+        Free text given at registration; the version it was retrained from (``"name/v"``).
     datasets : list of dict
         Data the version was fitted and checked on: ``{"role", "fingerprint", "source"}``.
     verdict : str or None
@@ -62,7 +64,7 @@ class VersionInfo:
 
     @property
     def ref(self) -> str:
-        return f"{self.name}@{self.version}"
+        return format_ref(self.name, self.version)
 
     def __repr__(self) -> str:
         from ergodex.display import version_repr
@@ -76,7 +78,7 @@ class VersionInfo:
         return version_html(self)
 
     def to_dict(self) -> dict[str, Any]:
-        """Plain JSON-ready dict (the ``--json`` shape of ``ergodex models show NAME@V``)."""
+        """Plain JSON-ready dict (the ``--json`` shape of ``ergodex models show NAME/V``)."""
         d = asdict(self)
         d["folder"] = str(self.folder)
         d["ref"] = self.ref

@@ -13,9 +13,10 @@ from pathlib import Path
 from ergodex.exceptions import RegistryError
 from ergodex.host import pid_alive
 from ergodex.registry.index import RegistryIndex, _log_status, log
-from ergodex.registry.names import validate_name
+from ergodex.registry.names import format_ref, upgrade_ref, validate_name
 from ergodex.registry.records import STATUSES
 from ergodex.registry.storage import (
+    OLD_RECORD_FORMATS,
     RECORD_FORMAT,
     STAGING_DIR,
     STATUS_FILE,
@@ -53,7 +54,7 @@ class _FolderState:
             candidate = json.loads(record_bytes)
             if (
                 isinstance(candidate, dict)
-                and candidate.get("format") == RECORD_FORMAT
+                and candidate.get("format") in (RECORD_FORMAT, *OLD_RECORD_FORMATS)
                 and candidate.get("name") == name
             ):
                 record = candidate
@@ -202,7 +203,7 @@ class RecoveryMixin(RegistryIndex):
                             log.warning("%s cannot be indexed (%s); quarantining it", f.folder, exc)
                             action = "quarantine"
                         else:
-                            reindexed.append(f"{f.name}@{f.version}")
+                            reindexed.append(format_ref(f.name, f.version))
                             recovered.append((f.name, f.version, f.status or {}))
                     if action == "quarantine":
                         target = self._quarantine(f.folder, f"{f.name}-{f.version}")
@@ -266,7 +267,11 @@ class RecoveryMixin(RegistryIndex):
                 current,
                 created,
                 str(record.get("note") or ""),
-                record.get("parent"),
+                upgrade_ref(
+                    record.get("parent"),
+                    str(f.folder / "record.json"),
+                    old_form=record.get("format") in OLD_RECORD_FORMATS,
+                ),
                 json.dumps(record.get("datasets") or []),
                 card.get("verdict"),
                 card.get("data_fingerprint"),

@@ -15,7 +15,7 @@ from typing import Any
 
 from ergodex.exceptions import ModelFileError, RegistryError
 from ergodex.registry.index import RegistryIndex, _log_status, log
-from ergodex.registry.names import parse_ref, validate_name
+from ergodex.registry.names import format_ref, parse_ref, validate_name
 from ergodex.registry.records import VersionInfo
 from ergodex.registry.storage import (
     RECORD_FORMAT,
@@ -90,7 +90,7 @@ class RegistrationMixin(RegistryIndex):
         note : str, optional
             Free text shown in listings.
         parent : str or int, optional
-            ``"name@v"`` of the version this one was retrained from (an int: that version of
+            ``"name/v"`` of the version this one was retrained from (an int: that version of
             ``name``); must exist.
         datasets : mapping or list, optional
             Fingerprints of the data the model was fitted and checked on: ``{"fit": fp, …}``
@@ -109,12 +109,12 @@ class RegistrationMixin(RegistryIndex):
         )
         parent_ref = None
         if isinstance(parent, int) and not isinstance(parent, bool):
-            parent = f"{name}@{parent}"  # a version number: a version of the same name
+            parent = format_ref(name, parent)  # a version number: a version of the same name
         if parent is not None:
             parent_name, parent_version = parse_ref(parent)
             if parent_version is None:
-                raise RegistryError(f"parent {parent!r} must name a version: NAME@VERSION")
-            parent_ref = f"{parent_name}@{parent_version}"
+                raise RegistryError(f"parent {parent!r} must name a version: NAME/VERSION")
+            parent_ref = format_ref(parent_name, parent_version)
         return self._commit_version(
             name, files, meta, note=note or "", parent=parent_ref, event="registered", reason=""
         )
@@ -386,7 +386,7 @@ class RegistrationMixin(RegistryIndex):
             except (OSError, sqlite3.Error, RegistryError) as exc:
                 # The version exists (committed); the next sweep marks its folder.
                 log.warning(
-                    "%s@%s is registered, but its status record could not be marked "
+                    "%s/%s is registered, but its status record could not be marked "
                     "committed (%s); the next open of the registry does it",
                     name,
                     version,

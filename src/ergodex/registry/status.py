@@ -7,7 +7,7 @@ import sqlite3
 
 from ergodex.exceptions import RegistryError
 from ergodex.registry.index import _log_status
-from ergodex.registry.names import parse_ref
+from ergodex.registry.names import format_ref, parse_ref
 from ergodex.registry.queries import QueriesMixin
 from ergodex.registry.records import Event, VersionInfo
 from ergodex.registry.storage import _bare_hash
@@ -44,7 +44,7 @@ class StatusMixin(QueriesMixin):
         """
         name, version = parse_ref(ref)
         if version is None:
-            raise RegistryError(f"name a version to accept: {name}@VERSION")
+            raise RegistryError(f"name a version to accept: {format_ref(name, 'VERSION')}")
         info = self.verify(ref)  # accept exactly the bytes that were checked
         problems = self._acceptance_problems(info)
         if problems and not override:
@@ -101,14 +101,17 @@ class StatusMixin(QueriesMixin):
                 if target not in TRANSITIONS[current]:
                     allowed = ", ".join(sorted(TRANSITIONS[current])) or "none (final status)"
                     raise RegistryError(
-                        f"{row['name']}@{row['version']} is {current}; it cannot become {target} "
+                        f"{format_ref(row['name'], row['version'])} is {current}; it cannot become "
+                        f"{target} "
                         f"(allowed from {current}: {allowed})"
                     )
                 if target == "accepted":
                     problems = self._acceptance_problems(self._info_from_row(conn, row))
                     override = override and bool(problems)
                     if problems and not override:  # the scorecard cannot change, but be strict
-                        raise RegistryError(f"{row['name']}@{row['version']} cannot be accepted")
+                        raise RegistryError(
+                            f"{format_ref(row['name'], row['version'])} cannot be accepted"
+                        )
                 conn.execute(
                     "UPDATE versions SET status = ? WHERE name = ? AND version = ?",
                     (target, row["name"], row["version"]),

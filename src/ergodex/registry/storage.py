@@ -22,12 +22,17 @@ STAGING_DIR = ".staging"
 # unknown numbered folders, a corrupt index file.
 QUARANTINE_DIR = ".quarantine"
 
-RECORD_FORMAT = "ergodex-record/1"
+# Version 2 writes references (``parent``, ``imported_from``) as NAME/VERSION; the versions before
+# it, still read, wrote NAME@VERSION.
+RECORD_FORMAT = "ergodex-record/2"
+OLD_RECORD_FORMATS = ("ergodex-record/1",)
 # Each version folder's own, mutable status record (status, events, committed flag); rewritten
 # atomically with every status change so that a lost index can be rebuilt from the folders.
 STATUS_FILE = "status.json"
 STATUS_FORMAT = "ergodex-status/1"
-EXPORT_FORMAT = "ergodex-export/1"
+# The export manifest's versions, on the same rule as the record's.
+EXPORT_FORMAT = "ergodex-export/2"
+OLD_EXPORT_FORMATS = ("ergodex-export/1",)
 
 
 def sha256_hex(data: bytes) -> str:

@@ -11,12 +11,13 @@ from pathlib import Path
 
 from ergodex import CAUTION
 from ergodex.exceptions import IntegrityError, ModelFileError, RegistryError
-from ergodex.registry.names import validate_name
+from ergodex.registry.names import format_ref, upgrade_ref, validate_name
 from ergodex.registry.queries import QueriesMixin
 from ergodex.registry.records import VersionInfo
 from ergodex.registry.registration import RegistrationMixin, _refuse_foreign_scorecard
 from ergodex.registry.storage import (
     EXPORT_FORMAT,
+    OLD_EXPORT_FORMATS,
     _check_npz,
     _fsync_dir,
     _now,
@@ -140,10 +141,17 @@ class TransferMixin(RegistrationMixin, QueriesMixin):
                 "'ergodex models export' (register a bare model.json with 'ergodex register')"
             )
         manifest = _read_json_object(manifest_path.read_bytes(), f"{manifest_path}")
-        if manifest.get("format") != EXPORT_FORMAT or not isinstance(manifest.get("files"), dict):
+        fmt = manifest.get("format")
+        if fmt not in (EXPORT_FORMAT, *OLD_EXPORT_FORMATS) or not isinstance(
+            manifest.get("files"), dict
+        ):
             raise ModelFileError(
-                f"{manifest_path}: format {manifest.get('format')!r} is not {EXPORT_FORMAT!r}"
+                f"{manifest_path}: format {fmt!r} is not {EXPORT_FORMAT!r} (or an earlier "
+                f"{', '.join(OLD_EXPORT_FORMATS)})"
             )
+        parent = upgrade_ref(
+            manifest.get("parent"), str(manifest_path), old_form=fmt in OLD_EXPORT_FORMATS
+        )
         contents: dict[str, bytes] = {}
         for filename, expected in sorted(manifest["files"].items()):
             if (
@@ -174,7 +182,7 @@ class TransferMixin(RegistrationMixin, QueriesMixin):
         if "model.json" not in contents:
             raise RegistryError(f"{folder}: the manifest lists no model.json")
         new_name = validate_name(name if name is not None else manifest.get("name", ""))
-        origin = f"{manifest.get('name')}@{manifest.get('version')}"
+        origin = format_ref(str(manifest.get("name")), str(manifest.get("version")))
 
         files = {
             fn: contents[fn]
@@ -209,7 +217,7 @@ class TransferMixin(RegistrationMixin, QueriesMixin):
                 "ref": origin,
                 "status": manifest.get("status"),
                 "folder": str(folder.absolute()),
-                "parent": manifest.get("parent"),
+                "parent": parent,
             }
         }
         return self._commit_version(
