@@ -201,8 +201,45 @@ def test_bad_names_exit_2_and_write_nothing(files, capsys, name, tmp_path):
     assert code == 2
     assert err.startswith("ergodex: error: model name") and err.count("\n") == 1
     assert not (tmp_path / "home").exists()
-    code, _, err = _run(capsys, "models", "show", name + "@1", "--home", files["home"])
-    assert code == 2 and "model name" in err
+    code, _, err = _run(capsys, "models", "show", name + "/1", "--home", files["home"])
+    # "a/b/1" reads as version "b/1" of model "a"
+    assert code == 2 and ("model name" in err or "version after '/'" in err)
+
+
+@pytest.mark.parametrize(
+    "argv",
+    [
+        ["models", "show", "loop@1"],
+        ["models", "accept", "loop@1"],
+        ["models", "history", "loop@1"],
+        ["report", "loop@1"],
+        ["validate", "loop@1", "data.csv"],
+        ["simulate", "loop@1", "--members", "2", "--steps", "3"],
+        ["retrain", "loop@1", "data.csv"],
+        ["register", "MODEL", "--name", "loop", "--parent", "loop@1"],
+    ],
+)
+def test_a_reference_in_the_former_at_form_exits_2_saying_how_to_write_it(files, capsys, argv):
+    argv = [files["model"] if a == "MODEL" else a for a in argv]
+    _run(capsys, "register", files["model"], "--name", "loop", "--home", files["home"])
+    code, out, err = _run(capsys, *argv, "--home", files["home"])
+    assert code == 2 and out == ""
+    assert err.count("\n") == 1 and "write loop/1, not loop@1" in err
+    assert len(Registry(files["home"]).versions("loop")) == 1  # nothing registered
+
+
+def test_a_reference_is_not_taken_for_the_version_folder_of_the_same_path(
+    files, capsys, monkeypatch
+):
+    """Inside the registry home, loop/1 is also a folder: a folder is never a model file."""
+    _run(capsys, "register", files["model"], "--name", "loop", "--home", files["home"])
+    monkeypatch.chdir(files["home"])
+    argv = ["simulate", "loop/1", "--members", "2", "--steps", "3", "--dt", "0.01"]
+    code, out, err = _run(capsys, *argv, "--home", ".")
+    assert code == 0, err
+    lines = out.splitlines()
+    assert lines[0] == "time,run,flow,dT_across,dT_up"  # the registered model's variables
+    assert len(lines) == 1 + 2 * 3
 
 
 def test_unknown_refs_and_missing_reason_are_usage_errors(files, capsys):

@@ -211,6 +211,54 @@ def test_a_retrain_result_stored_by_an_earlier_server_is_shown_with_todays_side_
     assert "champion" not in shown and "challenger" not in shown
 
 
+def test_current_serves_the_accepted_version_and_the_former_alias_names_the_new_path(tmp_path):
+    from fastapi.testclient import TestClient
+
+    from ergodex.registry import Registry
+    from ergodex.scenarios import lorenz63_surrogate
+    from ergodex.service.app import create_app
+    from ergodex.service.settings import ServiceSettings
+
+    truth = lorenz63_surrogate()
+    registry = Registry(tmp_path / "home")
+    card = {
+        "verdict": "pass",
+        "data_fingerprint": "sha256:" + "ab" * 32,
+        "model_fingerprint": truth.fingerprint(),
+    }
+    for _ in range(2):
+        registry.register("loop", truth, scorecard=card)
+    registry.accept("loop/1")
+    app = create_app(ServiceSettings(home=registry.home, token=TOKEN), start_workers=False)
+    with TestClient(app, raise_server_exceptions=False) as client:
+        shown = client.get("/models/loop/current").json()
+        assert (shown["ref"], shown["status"]) == ("loop/1", "accepted")
+        response = client.get("/models/loop/current/model.json")
+        assert response.status_code == 200
+        assert response.content == registry.artifact("loop/1", "model.json")
+        assert client.get("/models/loop/versions/2").json()["ref"] == "loop/2"
+        for old, now in (
+            ("/models/loop/versions/accepted", "/models/loop/current"),
+            ("/models/loop/versions/accepted/model.json", "/models/loop/current/model.json"),
+        ):
+            response = client.get(old)
+            assert response.status_code == 404
+            assert response.json() == {
+                "code": "not-found",
+                "message": f"{old} is now {now}: use that path",
+            }
+        refused = client.post(
+            "/jobs/validate",
+            json={"name": "loop", "version": "accepted", "dataset": "0" * 64},
+            headers=auth(),
+        )
+        assert refused.status_code == 422
+        assert "write 'current', not 'accepted'" in refused.json()["message"]
+        paths = app.openapi()["paths"]
+        assert "/models/{name}/current/model.json" in paths
+        assert not any("accepted" in path for path in paths)
+
+
 # -- against a running server -----------------------------------------------------------------
 
 

@@ -62,7 +62,9 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
             "and every change is recorded with time, user and reason. A name has at most one "
             "accepted version: accepting one retires the previous. Files are hashed whenever a "
             "status is shown; a missing, empty, corrupt or older index is rebuilt from the "
-            "version folders' own records (with a warning), and nothing is ever deleted."
+            "version folders' own records (with a warning), and nothing is ever deleted. A "
+            "version is NAME/VERSION (e.g. loop/3); NAME/current, or NAME alone, is the "
+            "accepted one."
         ),
     )
     actions = parser.add_subparsers(
@@ -74,7 +76,9 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     _common(p, json_output=True)
     p.set_defaults(func=run_list)
 
-    p = actions.add_parser("show", help="one version (NAME/V) or the accepted one (NAME)")
+    p = actions.add_parser(
+        "show", help="one version (NAME/V) or the accepted one (NAME or NAME/current)"
+    )
     p.add_argument("ref", metavar="NAME[/VERSION]")
     p.add_argument("--all", action="store_true", help="every version of NAME")
     _common(p, json_output=True)

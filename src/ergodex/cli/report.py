@@ -42,7 +42,7 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     parser.add_argument(
         "ref",
         metavar="NAME[/VERSION]",
-        help="the version to report on; NAME alone means the accepted version",
+        help="the version to report on; NAME/current, or NAME alone, means the accepted version",
     )
     parser.add_argument(
         "--out",

@@ -653,9 +653,10 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
     @reads.get("/models/{name}/versions/accepted", include_in_schema=False)
     @reads.get("/models/{name}/versions/accepted/{filename}", include_in_schema=False)
     def former_alias(name: str, filename: str | None = None) -> Response:
-        now = f"/models/{name}/{schemas.CURRENT}" + (f"/{filename}" if filename else "")
+        rest = f"/{filename}" if filename else ""
+        now = f"/models/{name}/{schemas.CURRENT}{rest}"
         raise ApiError(
-            404, "not-found", f"/models/{name}/versions/accepted is now {now}: use that path"
+            404, "not-found", f"/models/{name}/versions/accepted{rest} is now {now}: use that path"
         )
 
     @reads.get(
