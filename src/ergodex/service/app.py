@@ -652,12 +652,11 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
     # not answer it with a validation error).
     @reads.get("/models/{name}/versions/accepted", include_in_schema=False)
     @reads.get("/models/{name}/versions/accepted/{filename}", include_in_schema=False)
-    def former_alias(name: str, filename: str | None = None) -> Response:
+    def former_alias(name: ModelName, filename: str | None = None) -> Response:
         rest = f"/{filename}" if filename else ""
         now = f"/models/{name}/{schemas.CURRENT}{rest}"
-        raise ApiError(
-            404, "not-found", f"/models/{name}/versions/accepted{rest} is now {now}: use that path"
-        )
+        message = f"/models/{name}/versions/accepted{rest} is now {now}: use that path"
+        raise ApiError(404, "not-found", one_line(message))
 
     @reads.get(
         "/models/{name}/versions/{version}", response_model=schemas.VersionOut, tags=["models"]
