@@ -64,7 +64,7 @@ MODULES: dict[str, tuple[str, list[str]]] = {
         "src/ergodex/fitting/linear_inverse.py",
         ["tests/test_fitting_linear_inverse.py", "tests/test_defaults.py"],
     ),
-    "registry": ("src/ergodex/registry.py", ["tests/test_registry.py", "tests/test_defaults.py"]),
+    "registry": ("src/ergodex/registry/", ["tests/test_registry.py", "tests/test_defaults.py"]),
 }
 
 # mutmut's result names → our tally

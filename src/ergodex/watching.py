@@ -777,9 +777,9 @@ def watch(
     name : str
         Registry name of the model to retrain.
     registry : ergodex.registry.Registry
-        The registry to read the champion from and register challengers in.
+        The registry to read the incumbent from and register refits in.
     config : path-like, optional
-        Fit settings TOML for the challenger (see :func:`ergodex.retraining.retrain`); read once
+        Fit settings TOML for the refit (see :func:`ergodex.retraining.retrain`); read once
         here so that a broken config fails at start instead of rejecting every file.
     spec, seed, holdout, report, progress
         Passed on to :func:`ergodex.retraining.retrain` unchanged.
