@@ -124,7 +124,7 @@ def test_select_writes_the_sparsest_passing_model_and_the_front(tmp_path, capsys
     data = write_csv(tmp_path / "fit.csv", convection_loop(seed=70, n_runs=2, duration=60.0))
     held = write_csv(tmp_path / "held.csv", convection_loop(seed=71, n_runs=4, duration=40.0))
     config = tmp_path / "fit.toml"
-    config.write_text('method = "sparse"\n[select]\nthresholds = [0.1, 5.0]\n')
+    config.write_text('method = "sparse"\n[select]\nprune_below = [0.1, 5.0]\n')
     out, front = tmp_path / "model.json", tmp_path / "front.json"
     code = main(
         [

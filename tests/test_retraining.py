@@ -327,7 +327,7 @@ def test_a_champion_too_stiff_to_integrate_is_a_failed_drift_check_not_a_crash(t
         coefficients[i, terms.index(next(t for t in terms if t.powers == powers))] = -1e9
     # recorded as a sparse fit, so that retrain refits with the method the champion names
     stiff = Surrogate(
-        data.names, terms, coefficients, settings={"method": "sparse", "threshold": 0.1}
+        data.names, terms, coefficients, settings={"method": "sparse", "prune_below": 0.1}
     )
     registry = Registry(tmp_path / "home")
     info = registry.register(LOOP, stiff)

@@ -33,6 +33,7 @@ from ergodex.exceptions import ErgodexError, ModelFileError, SettingsError
 
 __all__ = [
     "FORMAT",
+    "OLD_FORMAT",
     "TERM_KINDS",
     "Term",
     "Surrogate",
@@ -40,8 +41,11 @@ __all__ = [
     "from_pysindy",
 ]
 
-#: Version string written to and required in the ``format`` field of ``model.json``.
-FORMAT = "ergodex-model/1"
+#: Version string written to the ``format`` field of ``model.json``.
+FORMAT = "ergodex-model/2"
+#: The version before the fit settings got names of ergodex's own: still read, its recorded
+#: settings mapped to the new names (:mod:`ergodex.setting_names`).
+OLD_FORMAT = "ergodex-model/1"
 
 #: Largest total degree of a monomial in a model file. Fitters write degree 5 at most; far higher
 #: powers overflow at ordinary states and make each evaluation slow.
@@ -714,7 +718,15 @@ class Surrogate:
         ------
         ModelFileError
             Naming ``source`` and the field: unknown format version, missing or unknown field,
-            wrong type, shape mismatch, non-finite number.
+            wrong type, shape mismatch, non-finite number, or (in an ``ergodex-model/2`` file)
+            a recorded setting under its old name.
+
+        Notes
+        -----
+        An ``ergodex-model/1`` file is read with its recorded fit settings renamed to the
+        current names; the surrogate keeps the fingerprint that file had, so scorecards and
+        registry records made for it still match (written again, it is a ``/2`` file with a new
+        fingerprint).
         """
 
         def fail(msg: str) -> ModelFileError:
@@ -724,10 +736,10 @@ class Surrogate:
             raise fail(f"expected a JSON object at the top level, got {type(d).__name__}")
         if "format" not in d:
             raise fail(f"missing field 'format' (expected {FORMAT!r})")
-        if d["format"] != FORMAT:
+        if d["format"] not in (FORMAT, OLD_FORMAT):
             raise fail(
-                f"field 'format' is {d['format']!r}; this ergodex reads only {FORMAT!r} "
-                "(a newer ergodex may have written it)"
+                f"field 'format' is {d['format']!r}; this ergodex reads {FORMAT!r} and "
+                f"{OLD_FORMAT!r} (a newer ergodex may have written it)"
             )
         for key in _TOP_LEVEL_REQUIRED:
             if key not in d:
@@ -832,19 +844,39 @@ class Surrogate:
         for key in ("settings", "provenance"):
             if d.get(key) is not None and not isinstance(d[key], Mapping):
                 raise fail(f"field {key!r} must be an object")
-        try:
-            return cls(
-                variables,
-                terms,
-                coef,
-                kind=kind,
-                noise=noise,
-                transform=transform,
-                settings=d.get("settings") or {},
-                provenance=d.get("provenance") or {},
+        from ergodex.setting_names import old_setting_in, renamed_message, upgrade_settings
+
+        settings = dict(d.get("settings") or {})
+        method = settings.get("method")
+        if d["format"] == FORMAT and (old := old_setting_in(method, settings)) is not None:
+            raise fail(renamed_message("field 'settings'", *old, version=FORMAT))
+
+        def build(recorded: Mapping[str, Any]) -> Surrogate:
+            try:
+                return cls(
+                    variables,
+                    terms,
+                    coef,
+                    kind=kind,
+                    noise=noise,
+                    transform=transform,
+                    settings=recorded,
+                    provenance=d.get("provenance") or {},
+                )
+            except SettingsError as exc:
+                raise fail(f"field {exc}") from None
+
+        if d["format"] == FORMAT or old_setting_in(method, settings) is None:
+            surrogate = build(settings)
+        else:
+            surrogate = build(upgrade_settings(method, settings))
+        if d["format"] == OLD_FORMAT:
+            # the fingerprint the old file had (format and setting names as written)
+            as_written = build(settings).to_dict()
+            surrogate.__dict__["_recorded_fingerprint"] = _fingerprint_of(
+                {**as_written, "format": OLD_FORMAT}
             )
-        except SettingsError as exc:
-            raise fail(f"field {exc}") from None
+        return surrogate
 
     def to_json(self, path: str | os.PathLike[str] | None = None) -> str:
         """Serialise to JSON text; with ``path``, also write it atomically (temp file + rename).
@@ -889,12 +921,18 @@ class Surrogate:
         """``"sha256:<hex>"`` of the canonical JSON of everything except ``provenance``.
 
         Provenance (when and from what it was fitted) is left out so that the same dynamics,
-        noise, transform and settings always have the same fingerprint.
+        noise, transform and settings always have the same fingerprint. A surrogate read from an
+        ``ergodex-model/1`` file keeps that file's fingerprint (see :meth:`from_dict`).
         """
-        d = self.to_dict()
-        d.pop("provenance")
-        canon = json.dumps(d, sort_keys=True, separators=(",", ":"), allow_nan=False)
-        return "sha256:" + hashlib.sha256(canon.encode("utf-8")).hexdigest()
+        recorded = self.__dict__.get("_recorded_fingerprint")
+        return recorded if recorded is not None else _fingerprint_of(self.to_dict())
+
+
+def _fingerprint_of(d: dict[str, Any]) -> str:
+    """``"sha256:<hex>"`` of the canonical JSON of a model dict without its provenance."""
+    d = {k: v for k, v in d.items() if k != "provenance"}
+    canon = json.dumps(d, sort_keys=True, separators=(",", ":"), allow_nan=False)
+    return "sha256:" + hashlib.sha256(canon.encode("utf-8")).hexdigest()
 
 
 def _observed_columns(

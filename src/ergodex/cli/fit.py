@@ -28,10 +28,10 @@ EXIT_DEGENERATE = 1
 
 #: What to try when a fit comes out degenerate, per method.
 _DEGENERATE_HINTS = {
-    "sparse": "lower the sparsity threshold (settings: threshold = ...), or check that the data "
-    "vary on the time unit given (--dt)",
-    "quadratic-noise": "lower the sparsity threshold (settings: threshold = ...), or check that "
-    "the data vary on the time unit given (--dt)",
+    "sparse": "lower the sparsity threshold (settings: prune_below = ...), or check that the "
+    "data vary on the time unit given (--dt)",
+    "quadratic-noise": "check that the data vary on the time unit given (--dt), or lower "
+    "the ridge weight (settings: ridge = ...)",
     "linear-inverse": "choose tau0 (settings: tau0 = ...) as a lag at which the data are still "
     "correlated, in the data's time unit",
 }
@@ -89,7 +89,7 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     parser.add_argument(
         "--select",
         action="store_true",
-        help="sweep candidates (the config's [select] table, else a threshold sweep) "
+        help="sweep candidates (the config's [select] table, else a sweep of prune_below) "
         "and keep the sparsest whose statistics pass",
     )
     parser.add_argument(
