@@ -402,7 +402,7 @@ def current_fit_document(
         if isinstance(entries, list):
             select["candidates"] = [
                 _current_settings(
-                    entry.get("method"), entry, old, f"{source}: [[select.candidates]] {k + 1}"
+                    entry.get("method"), entry, old, f"{source}: [[select.candidates]] entry {k + 1}"
                 )
                 if isinstance(entry, Mapping)
                 else entry
