@@ -29,7 +29,9 @@ def test_clean_lorenz63_every_coefficient_within_one_percent(dt, differentiation
     # β=8/3) from clean data. The 1 % tolerance is the issue's; order-4 differences err by ~1e-4
     # at dt = 0.01 (Taylor remainder), far inside it.
     series = lorenz63_reference_series(dt)
-    fitter = make_fitter("sparse", {"differentiation": differentiation, "difference_order": 4}).fit(series)
+    fitter = make_fitter("sparse", {"differentiation": differentiation, "difference_order": 4}).fit(
+        series
+    )
     assert fitter.coefficients_.shape == (3, 10)
     assert max_relative_error(fitter.coefficients_) < 0.01
     assert largest_spurious(fitter.coefficients_) == 0.0

@@ -400,10 +400,9 @@ def current_fit_document(
             select.pop(old_key, None)
         entries = select.get("candidates")
         if isinstance(entries, list):
+            where = f"{source}: [[select.candidates]] entry"
             select["candidates"] = [
-                _current_settings(
-                    entry.get("method"), entry, old, f"{source}: [[select.candidates]] entry {k + 1}"
-                )
+                _current_settings(entry.get("method"), entry, old, f"{where} {k + 1}")
                 if isinstance(entry, Mapping)
                 else entry
                 for k, entry in enumerate(entries)

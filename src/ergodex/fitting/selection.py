@@ -1,9 +1,9 @@
 """Choose a surrogate by its long-run statistics, not by how well it fits the tendencies.
 
 Each candidate (a fit method and its settings: a sweep of the sparse fitter's ``prune_below``,
-other term families, other derivative estimates) is fitted, integrated from many starting states and checked with
-:func:`ergodex.validation.check`. The chosen candidate is the *sparsest one whose statistics
-pass*; the whole front (number of terms, statistical score, tendency error, blow-up time of the
+other term families, other derivative estimates) is fitted, integrated from many starting states
+and checked with :func:`ergodex.validation.check`. The chosen candidate is the *sparsest one
+whose statistics pass*; the whole front (number of terms, statistical score, tendency error, blow-up time of the
 failures) is kept so that a report can show why the others lost. Selecting by tendency error alone
 is the common mistake this replaces: the best tendency fit often blows up or settles on a fixed
 point once integrated.

@@ -119,10 +119,9 @@ class SparseODE(Fitter):
     penalty : {"L0", "L1"}, default "L0"
     iterations : int or None, default None
         Optimizer iterations; None keeps pysindy's default.
-    differentiation : {"finite-difference", "smoothed-finite-difference", "weak"}, default
-        "smoothed-finite-difference"
-        Smoothing first costs nothing on clean data and keeps sensor noise from being amplified
-        by the differences; "weak" avoids differentiating the data at all.
+    differentiation : {"finite-difference", "smoothed-finite-difference", "weak"}, default "weak"
+        "weak" avoids differentiating the data at all; smoothing first costs nothing on clean
+        data and keeps sensor noise from being amplified by the differences.
     difference_order : int, default 4
         Order of the finite differences. At dt = 0.01 on Lorenz-63, order 2 biases ρ by 0.7 %.
     smoothing_window, smoothing_degree : int, default 9 and 4
@@ -170,6 +169,15 @@ class SparseODE(Fitter):
         Bootstrap only: shape (resamples, n_variables, n_library_terms).
     n_rows_ : int
         Rows of the regression (samples, or weak-form windows).
+
+    Notes
+    -----
+    The settings are ergodex's own names; the fitter hands them to pysindy under its parameter
+    names (``prune_below`` → STLSQ ``threshold``, ``ridge`` → ``alpha``, ``penalty_weight`` and
+    ``penalty`` → SR3 ``reg_weight_lam`` and ``regularizer``, ``iterations`` → ``max_iter``,
+    ``constant_term`` → ``include_bias``, ``harmonics`` → ``n_frequencies``,
+    ``difference_order`` → ``order``). Files written with the old names are read through
+    :mod:`ergodex.setting_names`.
 
     References
     ----------
