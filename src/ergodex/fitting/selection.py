@@ -1,12 +1,12 @@
 """Choose a surrogate by its long-run statistics, not by how well it fits the tendencies.
 
 Each candidate (a fit method and its settings: a sweep of the sparse fitter's ``prune_below``,
-other term families, other derivative estimates) is fitted, integrated from many starting states
-and checked with :func:`ergodex.validation.check`. The chosen candidate is the *sparsest one
-whose statistics pass*; the whole front (number of terms, statistical score, tendency error, blow-up time of the
-failures) is kept so that a report can show why the others lost. Selecting by tendency error alone
-is the common mistake this replaces: the best tendency fit often blows up or settles on a fixed
-point once integrated.
+other term families, other derivative estimates, other mode counts) is fitted, integrated from
+many starting states and checked with :func:`ergodex.validation.check`. The chosen candidate is
+the *sparsest one whose statistics pass*; the whole front (number of terms, statistical score,
+tendency error, blow-up time of the failures) is kept so that a report can show why the others
+lost. Selecting by tendency error alone is the common mistake this replaces: the best tendency
+fit often blows up or settles on a fixed point once integrated.
 
 Candidates run through joblib: local processes by default, or a ``dask.distributed`` cluster
 through joblib's Dask backend (``scheduler="tcp://host:8786"`` or a ``Client``). Every candidate is
@@ -160,8 +160,9 @@ class SelectionResult:
             "candidates": [c.to_dict() for c in self.candidates],
         }
 
-    def table(self) -> str:
-        """Plain-text front, one line per candidate, the chosen one marked."""
+    def table(self, *, settings: bool = False) -> str:
+        """Plain-text front, one line per candidate, the chosen one marked; with ``settings``,
+        each line ends with the candidate's settings (``n_modes=10``)."""
         lines = [
             f"{'':2}{'#':>3}  {'method':16} {'terms':>5}  {'stat.score':>10}  {'tend.err':>8}  "
             "verdict"
@@ -176,9 +177,12 @@ class SelectionResult:
                 if c.first_blowup_time is not None
                 else ""
             )
+            shown = ""
+            if settings:
+                shown = "  " + (" ".join(f"{k}={v}" for k, v in c.settings.items()) or "(defaults)")
             lines.append(
                 f"{mark}{c.index:>3}  {c.method:16} {terms:>5}  {score:>10}  {tend:>8}  "
-                f"{c.verdict}{extra}"
+                f"{c.verdict}{extra}{shown}"
             )
         return "\n".join(lines)
 
@@ -198,13 +202,19 @@ def prune_sweep(
 
 
 def _evaluate(
-    index: int, method: str, settings: dict, fit_data, reference, spec_dict: dict
+    index: int,
+    method: str,
+    settings: dict,
+    fit_data,
+    reference,
+    spec_dict: dict,
+    fit_progress: Any = False,
 ) -> dict:
     """Fit, check and summarise one candidate (runs in a worker; returns plain data)."""
     from ergodex.validation import CheckSpec, check
 
     try:
-        fitter = make_fitter(method, settings).fit(fit_data)
+        fitter = make_fitter(method, settings).fit(fit_data, progress=fit_progress)
     except ErgodexError as exc:
         return {"index": index, "verdict": "error", "reasons": [f"fit failed: {exc}"]}
     except (ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:
@@ -399,16 +409,21 @@ def select(
 def _run(jobs, series, reference, spec_dict, scheduler, n_jobs, show) -> tuple[list[dict], str]:
     import joblib
 
-    tasks = [joblib.delayed(_evaluate)(k, m, s, series, reference, spec_dict) for k, m, s in jobs]
-    if scheduler is not None:
-        return _run_dask(tasks, scheduler, show), "dask"
     if n_jobs is None:
         n_jobs = 1
     if n_jobs == -1:
         n_jobs = os.cpu_count() or 1
-    n_jobs = max(1, min(int(n_jobs), len(tasks)))
-    if n_jobs == 1:
-        # in this process, one candidate at a time (lazily, so the progress bar moves)
+    n_jobs = max(1, min(int(n_jobs), len(jobs)))
+    here = scheduler is None and n_jobs == 1
+    # in this process each fit may show its own progress under the candidates' bar
+    tasks = [
+        joblib.delayed(_evaluate)(k, m, s, series, reference, spec_dict, show if here else False)
+        for k, m, s in jobs
+    ]
+    if scheduler is not None:
+        return _run_dask(tasks, scheduler, show), "dask"
+    if here:
+        # one candidate at a time (lazily, so the progress bar moves)
         return _collect(
             (func(*args, **kwargs) for func, args, kwargs in tasks), len(tasks), show
         ), "sequential"
