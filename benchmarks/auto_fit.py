@@ -30,13 +30,14 @@ def main() -> None:
     parser.add_argument("--data-seeds", type=int, nargs="+", default=[1, 2, 3, 4, 5, 6, 7, 8])
     args = parser.parse_args()
     print(f"load average at start: {os.getloadavg()[0]:.1f}")
-    times, passes = [], 0
+    times, cpus, passes = [], [], 0
     for seed in args.data_seeds:
         data = scenarios.station_ring(seed=seed)
         fit_runs, held_out = data.select_runs([0, 1]), data.select_runs([2, 3])
-        started = time.perf_counter()
+        started, cpu = time.perf_counter(), time.process_time()
         result = choose_fit(fit_runs, CheckSpec(), progress=False)
-        elapsed = time.perf_counter() - started
+        elapsed, cpu = time.perf_counter() - started, time.process_time() - cpu
+        cpus.append(cpu)
         times.append(elapsed)
         tried = ", ".join(
             f"{c.method}/{c.settings.get('n_modes')}:{c.verdict}"
@@ -54,9 +55,13 @@ def main() -> None:
                 f"chose {chosen.method}/{chosen.settings.get('n_modes')}; held-out "
                 f"{card.verdict} {card.largest_ratio:.2f}"
             )
-        print(f"seed {seed}: {elapsed:5.1f} s  [{tried}]  {outcome}", flush=True)
+        print(
+            f"seed {seed}: {elapsed:5.1f} s wall, {cpu:5.1f} s CPU  [{tried}]  {outcome}",
+            flush=True,
+        )
     print(
-        f"choice time {min(times):.1f}–{max(times):.1f} s per record; held-out passes "
+        f"choice time {min(times):.1f}–{max(times):.1f} s wall ({min(cpus):.1f}–{max(cpus):.1f} s "
+        f"CPU) per record; held-out passes "
         f"{passes}/{len(args.data_seeds)}; load average at end: {os.getloadavg()[0]:.1f}"
     )
 

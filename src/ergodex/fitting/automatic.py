@@ -9,9 +9,10 @@ fit runs):
 1. the linear inverse model on the leading principal components, for each mode count of
    :func:`mode_counts` (6, 8, 10, 12 below the number of variables, and the number of variables
    itself when it is at most 12);
-2. only when none of those passes, the linear inverse model with cubic damping calibrated against
-   the fit runs' statistics (``calibrated-linear-inverse``) on the mode count whose linear model
-   came closest (the lowest largest ratio).
+2. only when none of those passes and at least one failed (rather than all being inconclusive:
+   fit runs too short to tell, which no other model changes), the linear inverse model with cubic
+   damping calibrated against the fit runs' statistics (``calibrated-linear-inverse``) on the mode
+   count whose linear model came closest (the lowest largest ratio).
 
 The chosen candidate is the passing one with the fewest terms (ties: the lower largest ratio),
 the rule of :func:`~ergodex.fitting.selection.select`, which fits and checks every candidate.
@@ -88,7 +89,7 @@ def choose_fit(
     options = {"progress": progress, "n_jobs": n_jobs, "scheduler": scheduler}
     first = select(series, linear_candidates(n), spec, reference=series, **options)
     result = first
-    if not first.passed:
+    if not first.passed and any(c.verdict == "fail" for c in first.candidates):
         scored = [c for c in first.candidates if c.statistical_score is not None]
         closest = min(scored, key=lambda c: c.statistical_score or math.inf) if scored else None
         k = int(closest.settings["n_modes"]) if closest is not None else mode_counts(n)[-1]
@@ -105,6 +106,19 @@ def choose_fit(
 def _why(result: SelectionResult) -> str:
     tolerance = result.spec.get("tolerance")
     limit = f" (tolerance {tolerance:g})" if isinstance(tolerance, (int, float)) else ""
+    errors = [c for c in result.candidates if c.verdict == "error"]
+    if result.chosen is None and len(errors) == len(result.candidates):
+        reason = errors[0].reasons[0] if errors[0].reasons else "no reason given"
+        return (
+            f"none of the {len(result.candidates)} candidates could be fitted and checked "
+            f"against the fit runs (the first: {reason}); nothing written"
+        )
+    if result.chosen is None and all(c.verdict == "inconclusive" for c in result.candidates):
+        return (
+            f"the fit runs are too short to tell whether any of the {len(result.candidates)} "
+            "candidates reproduces their statistics (inconclusive); nothing written. Give more "
+            "or longer runs, or --method and settings of your own (--config)"
+        )
     if result.chosen is None:
         return (
             f"none of the {len(result.candidates)} candidates passed the check against the fit "
