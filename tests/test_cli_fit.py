@@ -94,9 +94,9 @@ def test_bad_data_and_targets_exit_2(tmp_path, capsys):
     assert "bad.csv" in capsys.readouterr().err
     assert main(["fit", str(bad), "--out", str(tmp_path)]) == 2
     assert "is a folder" in capsys.readouterr().err
-    assert (
-        main(["fit", str(bad), "--out", str(tmp_path / "m.json"), "--scheduler", "tcp://x:1"]) == 2
-    )
+    # with --method there is no automatic choice either, so --scheduler is refused at once
+    args = ["fit", str(bad), "--method", "sparse", "--out", str(tmp_path / "m.json")]
+    assert main([*args, "--scheduler", "tcp://x:1"]) == 2
     assert "only apply with --select" in capsys.readouterr().err
     assert not (tmp_path / "m.json").exists()
 
