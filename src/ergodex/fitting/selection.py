@@ -415,9 +415,11 @@ def _run(jobs, series, reference, spec_dict, scheduler, n_jobs, show) -> tuple[l
         n_jobs = os.cpu_count() or 1
     n_jobs = max(1, min(int(n_jobs), len(jobs)))
     here = scheduler is None and n_jobs == 1
-    # in this process each fit may show its own progress under the candidates' bar
+    # in this process each fit shows its own bar under the candidates' bar (a callable given as
+    # progress hears of the candidates only)
+    fit_bar = here and show is True
     tasks = [
-        joblib.delayed(_evaluate)(k, m, s, series, reference, spec_dict, show if here else False)
+        joblib.delayed(_evaluate)(k, m, s, series, reference, spec_dict, fit_bar)
         for k, m, s in jobs
     ]
     if scheduler is not None:
