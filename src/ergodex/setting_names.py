@@ -19,6 +19,7 @@ __all__ = [
     "RENAMED_SETTINGS",
     "RENAMED_SELECT_KEYS",
     "old_setting_in",
+    "old_names",
     "renamed_message",
     "upgrade_settings",
 ]
@@ -71,6 +72,14 @@ def renamed_message(where: str, old: str, new: str, *, version: str) -> str:
         f"{where}: key '{old}' is the old name of '{new}' (renamed in {version}); "
         f"write {new} instead"
     )
+
+
+def old_names(method: Any, settings: Mapping[str, Any]) -> dict[str, Any]:
+    """The inverse of :func:`upgrade_settings`: settings under the names the old version used
+    (what model fingerprints are computed on, so that they do not change with the rename)."""
+    renamed = RENAMED_SETTINGS.get(method, {}) if isinstance(method, str) else {}
+    back = {new: old for old, new in renamed.items()}
+    return {back.get(key, key): value for key, value in settings.items()}
 
 
 def upgrade_settings(method: Any, settings: Mapping[str, Any]) -> dict[str, Any]:

@@ -724,9 +724,8 @@ class Surrogate:
         Notes
         -----
         An ``ergodex-model/1`` file is read with its recorded fit settings renamed to the
-        current names; the surrogate keeps the fingerprint that file had, so scorecards and
-        registry records made for it still match (written again, it is a ``/2`` file with a new
-        fingerprint).
+        current names. Its fingerprint does not change (see :meth:`fingerprint`), so scorecards
+        and registry records made for it still match, also once it is written again as ``/2``.
         """
 
         def fail(msg: str) -> ModelFileError:
@@ -866,17 +865,9 @@ class Surrogate:
             except SettingsError as exc:
                 raise fail(f"field {exc}") from None
 
-        if d["format"] == FORMAT or old_setting_in(method, settings) is None:
-            surrogate = build(settings)
-        else:
-            surrogate = build(upgrade_settings(method, settings))
         if d["format"] == OLD_FORMAT:
-            # the fingerprint the old file had (format and setting names as written)
-            as_written = build(settings).to_dict()
-            surrogate.__dict__["_recorded_fingerprint"] = _fingerprint_of(
-                {**as_written, "format": OLD_FORMAT}
-            )
-        return surrogate
+            settings = upgrade_settings(method, settings)
+        return build(settings)
 
     def to_json(self, path: str | os.PathLike[str] | None = None) -> str:
         """Serialise to JSON text; with ``path``, also write it atomically (temp file + rename).
@@ -921,18 +912,19 @@ class Surrogate:
         """``"sha256:<hex>"`` of the canonical JSON of everything except ``provenance``.
 
         Provenance (when and from what it was fitted) is left out so that the same dynamics,
-        noise, transform and settings always have the same fingerprint. A surrogate read from an
-        ``ergodex-model/1`` file keeps that file's fingerprint (see :meth:`from_dict`).
+        noise, transform and settings always have the same fingerprint. The JSON is taken in the
+        ``ergodex-model/1`` layout (that format string, the settings under their old names), so
+        a model's fingerprint did not change when the format became ``/2``: a model file of
+        either version, and a scorecard made for it, keep matching.
         """
-        recorded = self.__dict__.get("_recorded_fingerprint")
-        return recorded if recorded is not None else _fingerprint_of(self.to_dict())
+        from ergodex.setting_names import old_names
 
-
-def _fingerprint_of(d: dict[str, Any]) -> str:
-    """``"sha256:<hex>"`` of the canonical JSON of a model dict without its provenance."""
-    d = {k: v for k, v in d.items() if k != "provenance"}
-    canon = json.dumps(d, sort_keys=True, separators=(",", ":"), allow_nan=False)
-    return "sha256:" + hashlib.sha256(canon.encode("utf-8")).hexdigest()
+        d = self.to_dict()
+        d.pop("provenance")
+        d["format"] = OLD_FORMAT
+        d["settings"] = old_names(d["settings"].get("method"), d["settings"])
+        canon = json.dumps(d, sort_keys=True, separators=(",", ":"), allow_nan=False)
+        return "sha256:" + hashlib.sha256(canon.encode("utf-8")).hexdigest()
 
 
 def _observed_columns(
