@@ -850,24 +850,21 @@ class Surrogate:
         if d["format"] == FORMAT and (old := old_setting_in(method, settings)) is not None:
             raise fail(renamed_message("field 'settings'", *old, version=FORMAT))
 
-        def build(recorded: Mapping[str, Any]) -> Surrogate:
-            try:
-                return cls(
-                    variables,
-                    terms,
-                    coef,
-                    kind=kind,
-                    noise=noise,
-                    transform=transform,
-                    settings=recorded,
-                    provenance=d.get("provenance") or {},
-                )
-            except SettingsError as exc:
-                raise fail(f"field {exc}") from None
-
         if d["format"] == OLD_FORMAT:
             settings = upgrade_settings(method, settings)
-        return build(settings)
+        try:
+            return cls(
+                variables,
+                terms,
+                coef,
+                kind=kind,
+                noise=noise,
+                transform=transform,
+                settings=settings,
+                provenance=d.get("provenance") or {},
+            )
+        except SettingsError as exc:
+            raise fail(f"field {exc}") from None
 
     def to_json(self, path: str | os.PathLike[str] | None = None) -> str:
         """Serialise to JSON text; with ``path``, also write it atomically (temp file + rename).
