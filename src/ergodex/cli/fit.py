@@ -69,7 +69,8 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
             "of a sweep, check each one's long-run statistics against the data's noise floor, and "
             "keep the sparsest that passes (exit 1 when none does). Without --method and "
             "--config, a record of more than 6 variables gets the automatic choice: the linear "
-            "inverse model on 6, 8, 10 and 12 principal components (fewer than the variables), "
+            "inverse model on 6, 8, 10 and 12 principal components (those fewer than the "
+            "variables, and all of them when there are at most 12), "
             "then, if none passes, the calibrated linear inverse model on the mode count that "
             "came closest, each checked against the fit runs' own statistics (held-out runs "
             "untouched); the passing candidate with the fewest terms is written, one line per "
@@ -93,7 +94,8 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         "--config",
         metavar="FILE",
         default=None,
-        help='fit settings (TOML): method = "...", a [settings] table, optional [select] table',
+        help='fit settings (TOML): method = "...", a [settings] table, optional [select] '
+        'table; format = "ergodex-fit/1" reads a file in the old setting names',
     )
     parser.add_argument(
         "--out", metavar="MODEL.json", required=True, help="where to write the model"
