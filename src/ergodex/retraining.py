@@ -79,8 +79,8 @@ from ergodex.exceptions import DataError, ModelFileError, ModelLimitError, Setti
 from ergodex.files import atomic_write_text
 from ergodex.jsonable import jsonable
 from ergodex.series import Series, split_blocks, split_runs
-from ergodex.timestamps import utc_now
 from ergodex.setting_names import FIT_SETTINGS_FORMAT
+from ergodex.timestamps import utc_now
 
 log = logging.getLogger(__name__)
 
