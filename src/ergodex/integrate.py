@@ -585,30 +585,20 @@ def integrate_ensemble(
     if engine == "numba":
         from ergodex import kernels
 
-        table_args = tuple(kernels.build_program(surrogate.term_tables(), n))
-        code = kernels.METHOD_CODES[method]
+        program = kernels.build_program(surrogate.term_tables(), n)
 
         def run_block(
             t0: float, n_blocks: int, steps: int, noise: np.ndarray, j0: int, write: bool
         ) -> None:
             kernels.advance(
-                code,
+                method,
+                program,
                 state,
                 alive,
                 blowup_time,
-                t0,
-                h,
-                n_blocks,
-                steps,
-                noise,
-                chol,
-                out,
-                j0,
-                write,
-                keep_idx,
-                lower,
-                upper,
-                *table_args,
+                kernels.Run(t0, h, n_blocks, steps, lower, upper),
+                kernels.Noise(noise, chol),
+                kernels.Outputs(out, j0, write, keep_idx),
             )
     else:
 
