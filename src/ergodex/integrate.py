@@ -32,6 +32,7 @@ from typing import Any
 import numpy as np
 
 from ergodex.exceptions import ModelLimitError, SettingsError
+from ergodex.rk4 import rk4_step
 from ergodex.stiffness import spectral_radius, states_to_measure
 from ergodex.surrogate import Surrogate
 
@@ -763,11 +764,7 @@ def _numpy_block(
             step = j * steps + s
             with np.errstate(all="ignore"):
                 if method == "rk4":
-                    k1 = f(x)
-                    k2 = f(x + 0.5 * h * k1)
-                    k3 = f(x + 0.5 * h * k2)
-                    k4 = f(x + h * k3)
-                    xn = x + (h / 6.0) * (k1 + 2.0 * k2 + 2.0 * k3 + k4)
+                    xn = rk4_step(f, x, h)
                 else:
                     dw = sqh * (noise[step, live] @ chol.T)
                     k1 = f(x)
