@@ -234,8 +234,8 @@ def build_program(tables: dict, n_variables: int) -> Program:
 # round-off only). The flags that would let the compiler assume no NaN or infinity are not set:
 # the blow-up check relies on comparisons with NaN being false.
 _FASTMATH = {"contract", "nsz", "arcp"}
-_FAST = {"nogil": True, "error_model": "numpy", "fastmath": _FASTMATH}
-_EXACT = {"nogil": True, "error_model": "numpy"}
+_FAST: dict[str, Any] = {"nogil": True, "error_model": "numpy", "fastmath": _FASTMATH}
+_EXACT: dict[str, Any] = {"nogil": True, "error_model": "numpy"}
 
 
 def bind(template: Callable, name: str, *, fastmath: bool = True, **constants: Any) -> Any:
