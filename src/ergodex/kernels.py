@@ -38,9 +38,9 @@ plain evaluator :func:`evaluate`) by :func:`bind`, each copy with its method's b
 compile time; a call takes the program, the states and three small named tuples (:class:`Run`,
 :class:`Noise`, :class:`Outputs`). :func:`rk4_step` is the same RK4 as a separate compiled step
 around any compiled right-hand side on the members-inner layout (the scenario generators use it);
-the ensemble kernel keeps its stages fused into the passes, because separate step functions
-measured three to four times slower on small systems (numba counts references to every array
-argument of every call). Importing this
+the ensemble kernel keeps its stages fused into the passes, because the kernel written as separate
+compiled step and right-hand-side functions measured slower on Lorenz-63 (1.5-2 times at 16-64
+members, 5 times at one member). Importing this
 module imports numba (about half a second); :mod:`ergodex.integrate` imports it only when the
 compiled engine is used.
 """
@@ -244,9 +244,8 @@ def bind(template: Callable, name: str, *, fastmath: bool = True, **constants: A
     The ensemble kernel and the RK4 step are templates that read their method (``_METHOD``) or
     right-hand side (``_rhs``) as globals: each bound copy is compiled on its own, with the
     method's branches decided at compile time and the right-hand side called directly (and
-    inlined by the compiler). A function passed as an argument instead is called through a
-    pointer, which cost about six times the arithmetic of a Lorenz-63 step and keeps numba from
-    caching the caller on disk.
+    inlined by the compiler). A compiled function passed as an argument instead kept numba from
+    caching the caller on disk ("uses dynamic globals") and ran several times slower.
     """
     scope = dict(template.__globals__)
     scope.update(constants)
@@ -358,7 +357,7 @@ def _kernel(program, state, alive, blowup_time, run, noise_, outputs):  # pragma
     Everything runs inside this one function, with no calls in the step loop: passing arrays to
     a helper makes numba count references to each of them on every call, which costs more than
     the arithmetic for small systems (measured: a Lorenz-63 step with the right-hand side and the
-    RK4 stages as separate compiled functions took 3-4 times as long at 16 members). RK4 keeps
+    RK4 stages as separate compiled functions took about twice as long at 16 members). RK4 keeps
     ``k1 + 2 k2 + 2 k3`` in ``Acc``; its first stage writes ``Acc = k1`` and the next two stages
     add ``2 k``; the last pass of each equation does the stage arithmetic.
     """
