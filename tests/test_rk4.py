@@ -51,7 +51,7 @@ def test_numpy_rk4_has_fourth_order_against_solve_ivp():
 
 
 def test_compiled_step_does_numpys_arithmetic():
-    # The compiled step (kernels.rk4_step around a compiled right-hand side, members as columns,
+    # The compiled step (kernels.rk4_stepper around a compiled right-hand side, members as columns,
     # no fused multiply-add) does the numpy step's operations in the same order: the scenario
     # generators built on it reproduce rk4_trajectories exactly, for Lorenz-63 and Lorenz-96.
     pytest.importorskip("numba")
@@ -69,11 +69,11 @@ def test_compiled_step_does_numpys_arithmetic():
 
 
 def test_compiled_step_around_a_new_rhs_follows_solve_ivp():
-    # kernels.rk4_step takes any compiled right-hand side: here the van der Pol oscillator on
+    # kernels.rk4_stepper takes any compiled right-hand side: here the van der Pol oscillator on
     # the members-inner layout. Reference: DOP853 at 1e-13 as above; RK4 at h = 0.005 over two
     # time units errs by below 1e-7 (fourth order; measured 1.4e-9).
     nb = pytest.importorskip("numba")
-    from ergodex.kernels import rk4_step as compiled_rk4_step
+    from ergodex.kernels import rk4_stepper
 
     @nb.njit
     def van_der_pol_columns(mu, x, out):
@@ -81,7 +81,7 @@ def test_compiled_step_around_a_new_rhs_follows_solve_ivp():
             out[0, c] = x[1, c]
             out[1, c] = mu * (1.0 - x[0, c] * x[0, c]) * x[1, c] - x[0, c]
 
-    step = compiled_rk4_step(van_der_pol_columns)
+    step = rk4_stepper(van_der_pol_columns)
     rng = np.random.default_rng(9)
     x0 = rng.uniform(-2.0, 2.0, size=(4, 2))
     x = np.ascontiguousarray(x0.T)

@@ -36,7 +36,7 @@ Methods and arguments
 The kernel is one template compiled once per stepper (RK4, Euler-Maruyama, stochastic Heun, and the
 plain evaluator :func:`evaluate`) by :func:`bind`, each copy with its method's branches decided at
 compile time; a call takes the program, the states and three small named tuples (:class:`Run`,
-:class:`Noise`, :class:`Outputs`). :func:`rk4_step` is the same RK4 as a separate compiled step
+:class:`Noise`, :class:`Outputs`). :func:`rk4_stepper` is the same RK4 as a separate compiled step
 around any compiled right-hand side on the members-inner layout (the scenario generators use it);
 the ensemble kernel keeps its stages fused into the passes, because the kernel written as separate
 compiled step and right-hand-side functions measured slower on Lorenz-63 (1.5-2 times at 16-64
@@ -66,7 +66,7 @@ __all__ = [
     "evaluate",
     "bind",
     "rhs_columns",
-    "rk4_step",
+    "rk4_stepper",
 ]
 
 
@@ -259,7 +259,7 @@ def bind(template: Callable, name: str, *, fastmath: bool = True, **constants: A
 
 # ------------------------------------------------------------------ one RK4 step
 def _rhs(params, x, out):  # pragma: no cover - replaced by bind
-    """Placeholder of the right-hand side the RK4 template calls (see :func:`rk4_step`)."""
+    """Placeholder of the right-hand side the RK4 template calls (see :func:`rk4_stepper`)."""
     raise NotImplementedError
 
 
@@ -293,7 +293,7 @@ def _rk4(params, x, h, work):  # pragma: no cover - compiled
             )
 
 
-def rk4_step(rhs: Any, *, fastmath: bool = False) -> Any:
+def rk4_stepper(rhs: Any, *, fastmath: bool = False) -> Any:
     """The compiled RK4 step ``step(params, x, h, (y, k))`` of a compiled ``rhs(params, x, out)``.
 
     Members are columns (``x`` is (n, M)), so the loops run over members. Without ``fastmath``

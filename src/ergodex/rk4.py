@@ -3,7 +3,7 @@
 The one numpy form of RK4 in ergodex: the numpy ensemble engine (:mod:`ergodex.integrate`), the
 Lyapunov exponents (:mod:`ergodex.lyapunov`) and :func:`ergodex.scenarios.rk4_trajectories` step
 with it. The compiled form, for loops that must not return to Python between steps, is
-:func:`ergodex.kernels.rk4_step`, which does the same arithmetic in the same order.
+:func:`ergodex.kernels.rk4_stepper`, which does the same arithmetic in the same order.
 
 References
 ----------

@@ -1,7 +1,7 @@
 """Compiled data generators of the scenarios: Lorenz-63 and Lorenz-96 by RK4, the double well by
 Euler-Maruyama.
 
-The RK4 loops step with :func:`ergodex.kernels.rk4_step` (members as columns) around the
+The RK4 loops step with :func:`ergodex.kernels.rk4_stepper` (members as columns) around the
 reference right-hand sides written out here, compiled without fused multiply-add, so that they
 do numpy's arithmetic (:func:`ergodex.scenarios.rk4_trajectories` with
 :func:`~ergodex.scenarios.lorenz63_rhs` / :func:`~ergodex.scenarios.lorenz96_rhs`) in the same
@@ -14,7 +14,7 @@ from __future__ import annotations
 import numba as nb
 import numpy as np
 
-from ergodex.kernels import rk4_step
+from ergodex.kernels import rk4_stepper
 
 __all__ = ["double_well_euler_maruyama", "lorenz63_rk4", "lorenz96_rk4"]
 
@@ -44,8 +44,8 @@ def lorenz96_columns(forcing, x, out):  # pragma: no cover - compiled
             out[i, c] = (x[ip, c] - x[imm, c]) * x[im, c] - x[i, c] + forcing
 
 
-_lorenz63_step = rk4_step(lorenz63_columns)
-_lorenz96_step = rk4_step(lorenz96_columns)
+_lorenz63_step = rk4_stepper(lorenz63_columns)
+_lorenz96_step = rk4_stepper(lorenz96_columns)
 
 
 @nb.njit(cache=True)
