@@ -1,0 +1,139 @@
+"""How a check's time and peak memory grow with the samples and the variables.
+
+Each case runs in a fresh interpreter (so its peak resident memory is its own): the data are
+generated, a small check warms the compiled kernels up, the resident memory is read, then one
+scorecard-only check (``validate``'s default: no evidence) is timed. Printed per case: data
+size, check time, peak resident memory of the process, and that peak against the target
+``300 MB + 20 × data``; then the slopes of log time against log samples and log variables.
+
+Cases: the heated convection loop (Lorenz-63, 3 variables, 4 runs, the sample counts given)
+and the ring of stations (Lorenz-96, 4 runs × 2000 samples, the station counts given), each
+checked against its true equations with 16 members.
+
+Usage (repository root)::
+
+    /work/venv/bin/python benchmarks/check_scaling.py [--samples 1e4 1e5 1e6] [--stations 20 40 100]
+    /work/venv/bin/python benchmarks/check_scaling.py --one l63 1000000   # one case, JSON
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import os
+import resource
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def _peak_mb() -> float:
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+
+
+def _current_mb() -> float:
+    with open("/proc/self/statm") as handle:
+        return int(handle.read().split()[1]) * os.sysconf("SC_PAGE_SIZE") / 2**20
+
+
+def one_case(kind: str, size: int, workers: int | None) -> dict:
+    """Generate the data, warm up, time one scorecard-only check; sizes in MB."""
+    import numpy as np
+
+    from ergodex import scenarios, validation
+
+    extra = {} if workers is None else {"workers": workers}
+    if kind == "l63":
+        data = scenarios.convection_loop(seed=1, duration=size / 4 * 0.01)
+        sur = scenarios.lorenz63_surrogate()
+        small = scenarios.convection_loop(seed=2, duration=20.0)
+    else:
+        data = scenarios.station_ring(seed=1, n=size, duration=2000 * 0.05)
+        sur = scenarios.lorenz96_surrogate(n=size)
+        small = scenarios.station_ring(seed=2, n=size, duration=200 * 0.05)
+    spec = validation.CheckSpec(members=16, seed=0, **extra)
+    validation.check(sur, small, spec, evidence=False)  # kernels compiled or loaded from cache
+    before = _current_mb()
+    t0 = time.perf_counter()
+    card = validation.check(sur, data, spec, evidence=False).scorecard
+    elapsed = time.perf_counter() - t0
+    data_mb = sum(np.asarray(r).nbytes for r in data.runs) / 2**20
+    return {
+        "kind": kind,
+        "size": size,
+        "samples": int(data.n_samples),
+        "variables": int(data.n_variables),
+        "data_mb": data_mb,
+        "seconds": elapsed,
+        "rss_before_mb": before,
+        "peak_mb": _peak_mb(),
+        "target_mb": 300.0 + 20.0 * data_mb,
+        "verdict": card.verdict,
+        "largest_ratio": card.largest_ratio,
+    }
+
+
+def _run(kind: str, size: int, workers: int | None) -> dict:
+    env = dict(os.environ)
+    env["PYTHONPATH"] = os.pathsep.join([str(ROOT / "src"), env.get("PYTHONPATH", "")])
+    argv = [sys.executable, __file__, "--one", kind, str(size)]
+    if workers is not None:
+        argv += ["--workers", str(workers)]
+    proc = subprocess.run(argv, env=env, capture_output=True, text=True, check=False)
+    if proc.returncode != 0:
+        return {"kind": kind, "size": size, "error": proc.stderr.strip().splitlines()[-1:]}
+    return json.loads(proc.stdout.strip().splitlines()[-1])
+
+
+def _slope(rows: list[dict], key: str) -> float:
+    ok = [r for r in rows if "seconds" in r]
+    if len(ok) < 2:
+        return float("nan")
+    x = [math.log(r[key]) for r in ok]
+    y = [math.log(r["seconds"]) for r in ok]
+    mx, my = sum(x) / len(x), sum(y) / len(y)
+    return sum((a - mx) * (b - my) for a, b in zip(x, y)) / sum((a - mx) ** 2 for a in x)
+
+
+def _print(rows: list[dict]) -> None:
+    print(
+        f"{'case':<22} {'data MB':>8} {'check s':>8} {'peak MB':>8} {'target MB':>9}  "
+        f"{'peak/target':>11}  verdict"
+    )
+    for r in rows:
+        name = f"{r['kind']} {r['size']:g}"
+        if "error" in r:
+            print(f"{name:<22} failed: {r['error']}")
+            continue
+        print(
+            f"{name:<22} {r['data_mb']:>8.1f} {r['seconds']:>8.2f} {r['peak_mb']:>8.0f} "
+            f"{r['target_mb']:>9.0f}  {r['peak_mb'] / r['target_mb']:>11.2f}  {r['verdict']}"
+        )
+
+
+def main(argv=None) -> int:
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--samples", type=float, nargs="*", default=[1e4, 1e5, 1e6])
+    p.add_argument("--stations", type=int, nargs="*", default=[20, 40, 100])
+    p.add_argument("--workers", type=int, default=None, help="CheckSpec.workers (if it exists)")
+    p.add_argument("--one", nargs=2, metavar=("KIND", "SIZE"), help=argparse.SUPPRESS)
+    args = p.parse_args(argv)
+    if args.one:
+        print(json.dumps(one_case(args.one[0], int(float(args.one[1])), args.workers)))
+        return 0
+    print(f"machine: {os.cpu_count()} cores, load average {os.getloadavg()[0]:.1f}")
+    l63 = [_run("l63", int(n), args.workers) for n in args.samples]
+    l96 = [_run("l96", n, args.workers) for n in args.stations]
+    _print(l63 + l96)
+    print(f"slope of log time against log samples (Lorenz-63): {_slope(l63, 'samples'):.2f}")
+    print(f"slope of log time against log variables (Lorenz-96): {_slope(l96, 'variables'):.2f}")
+    print(f"load average after: {os.getloadavg()[0]:.1f}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
