@@ -408,38 +408,15 @@ def _run(jobs, series, reference, spec_dict, scheduler, n_jobs, show) -> tuple[l
 def _run_dask(tasks, scheduler, show) -> list[dict]:
     import joblib
 
-    try:
-        from dask.distributed import Client
-    except ImportError:
-        from ergodex.exceptions import OptionalDependencyError
+    from ergodex.cluster import open_client
 
-        raise OptionalDependencyError(
-            "running a sweep on a cluster needs the optional package 'dask[distributed]'; "
-            "install it with pip install 'ergodex[dask]'"
-        ) from None
-    own = isinstance(scheduler, str)
-    if own:
-        try:
-            client = Client(scheduler, timeout=20)
-        except (OSError, TimeoutError) as exc:
-            raise SettingsError(
-                f"cannot reach the Dask scheduler at {scheduler!r}: {exc}"
-            ) from None
-    elif isinstance(scheduler, Client):
-        client = scheduler
-    else:
-        raise SettingsError(
-            "scheduler must be an address such as 'tcp://127.0.0.1:8786' or a "
-            f"dask.distributed.Client; got {type(scheduler).__name__}"
+    with (
+        open_client(scheduler, what="running a sweep on a cluster") as client,
+        joblib.parallel_config(backend="dask", client=client),
+    ):
+        return _collect(
+            joblib.Parallel(n_jobs=-1, return_as="generator_unordered")(tasks), len(tasks), show
         )
-    try:
-        with joblib.parallel_config(backend="dask", client=client):
-            return _collect(
-                joblib.Parallel(n_jobs=-1, return_as="generator_unordered")(tasks), len(tasks), show
-            )
-    finally:
-        if own:
-            client.close()
 
 
 def _collect(iterator, total: int, show: Any) -> list[dict]:
