@@ -182,3 +182,29 @@ def test_bad_workers_are_refused():
     with pytest.raises(SettingsError, match="workers"):
         gs.resolve_workers(0)
     assert gs.resolve_workers(None) >= 1
+
+
+def test_pair_distances_are_the_distances_of_each_pair():
+    sps = pytest.importorskip("scipy.stats")
+    rng = np.random.default_rng(4)
+    pieces = _ar1_pieces(rng, n_pieces=6, length=300)
+    groups = [(0, 1), (2, 3), (4, 5), (1, 4)]
+    kw = dict(statistics=("histogram", "autocorrelation", "spectrum"), max_lag=20, nperseg=40)
+    st = gs.group_statistics(pieces, groups, **kw)
+    every = gs.pair_distances("histogram", st, st, workers=2)
+    assert every.shape == (16, 2)
+    cats = [np.concatenate([pieces[i] for i in g]) for g in groups]
+    for a in range(4):
+        for b in range(4):
+            for j in range(2):
+                # groups of 600 samples keep every order statistic: scipy's Wasserstein-1
+                want = sps.wasserstein_distance(cats[a][:, j], cats[b][:, j])
+                assert every[a * 4 + b, j] == pytest.approx(want, rel=1e-12, abs=1e-12)
+    pairs = (np.array([0, 3, 2]), np.array([1, 1, 0]))
+    acf = gs.pair_distances("autocorrelation", st, st, pairs, workers=2)
+    for k, (a, b) in enumerate(zip(*pairs)):
+        diff = st.acf[a, 1:] - st.acf[b, 1:]
+        np.testing.assert_allclose(acf[k], np.sqrt(np.mean(diff**2, axis=0)), rtol=1e-14)
+    psd = gs.pair_distances("spectrum", st, st, pairs, workers=1)
+    a, b = st.psd[0], st.psd[1]
+    np.testing.assert_allclose(psd[0], np.abs(a - b).sum(0) / (0.5 * (a + b).sum(0)), rtol=1e-14)

@@ -542,3 +542,82 @@ def _group_regimes(pieces, groups, used, regimes, variables, dt, wanted, workers
             rows = counts.sum(axis=1, keepdims=True)
             trans[gi] = np.divide(counts, rows, out=np.zeros_like(counts), where=rows > 0)
     return occ, res, trans
+
+
+# ---------------------------------------------------------------------------------------------
+# Distances between groups
+# ---------------------------------------------------------------------------------------------
+
+
+def _distance_function(
+    statistic: str,
+) -> tuple[str, Callable[[np.ndarray, np.ndarray], np.ndarray]]:
+    """The attribute a statistic compares and its distance (leading axes: pairs)."""
+
+    def mean_abs(x, y):
+        return np.mean(np.abs(x - y), axis=-2)
+
+    def rms_lags(x, y):
+        return np.sqrt(np.mean((x[..., 1:, :] - y[..., 1:, :]) ** 2, axis=-2))
+
+    def l1_relative(x, y):
+        return np.sum(np.abs(x - y), axis=-2) / (0.5 * np.sum(x + y, axis=-2))
+
+    def absolute(x, y):
+        return np.abs(x[..., :-1] - y[..., :-1])  # the "none" entry is not a row
+
+    def frobenius(x, y):
+        return np.sqrt(np.sum((x - y) ** 2, axis=(-2, -1)))[..., None]
+
+    table = {
+        # Wasserstein-1 between equal-length samples: mean |sorted a − sorted b| (Villani 2009)
+        "histogram": ("qf", mean_abs),
+        "quantiles": ("quant", mean_abs),
+        "autocorrelation": ("acf", rms_lags),
+        "spectrum": ("psd", l1_relative),
+        "occupancy": ("occ", absolute),
+        "residence": ("res", absolute),
+        "transitions": ("trans", frobenius),
+    }
+    if statistic not in table:
+        raise SettingsError(f"unknown statistic {statistic!r}")
+    return table[statistic]
+
+
+def pair_distances(
+    statistic: str,
+    a: GroupStatistics,
+    b: GroupStatistics,
+    index: tuple[np.ndarray, np.ndarray] | None = None,
+    *,
+    workers: int | None = 1,
+) -> np.ndarray:
+    """Distances between groups of ``a`` and groups of ``b``: (n_pairs, n_rows).
+
+    ``index`` gives the pairs ``(a[index[0][k]], b[index[1][k]])``; by default every pair, in
+    the order ``a``-major. Pairs are taken in chunks (a few tens of MB at a time), spread over
+    ``workers`` threads; the numbers do not depend on ``workers``.
+    """
+    name, fn = _distance_function(statistic)
+    x, y = getattr(a, name), getattr(b, name)
+    if index is None:
+        # every pair: broadcast a few rows of x against all of y at a time, which avoids
+        # copying y for each pair; the chunk keeps the temporary array to a few tens of MB
+        per_row = max(1, y[0].size * y.shape[0])
+        step = max(1, int(4_000_000 // per_row))
+
+        def rows(s: int) -> np.ndarray:
+            d = fn(x[s : s + step, None], y[None, :])
+            return d.reshape((-1,) + d.shape[2:])
+
+        parts = thread_map(rows, range(0, x.shape[0], step), workers)
+        return np.concatenate(parts)
+    ii, jj = np.ravel(index[0]), np.ravel(index[1])
+    if ii.size == 0:
+        return np.zeros((0,) + fn(x[:1], y[:1]).shape[1:])
+    step = max(1, min(64, int(4_000_000 // max(1, x[0].size))))
+
+    def chosen(s: int) -> np.ndarray:
+        return fn(x[ii[s : s + step]], y[jj[s : s + step]])
+
+    return np.concatenate(thread_map(chosen, range(0, ii.size, step), workers))
