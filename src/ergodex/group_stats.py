@@ -621,3 +621,23 @@ def pair_distances(
         return fn(x[ii[s : s + step]], y[jj[s : s + step]])
 
     return np.concatenate(thread_map(chosen, range(0, ii.size, step), workers))
+
+
+def statistics_of(
+    pieces: Sequence[np.ndarray] | np.ndarray,
+    groups: Sequence[Sequence[int]] | None,
+    ctx: dict,
+) -> GroupStatistics:
+    """:func:`group_statistics` with a check's settings (``ctx``: statistics, max_lag_samples,
+    dt, nperseg, regimes, variables and optionally workers)."""
+    return group_statistics(
+        pieces,
+        groups,
+        statistics=ctx["statistics"],
+        max_lag=ctx.get("max_lag_samples", 1),
+        dt=ctx.get("dt", 1.0),
+        nperseg=ctx.get("nperseg", 8),
+        regimes=ctx.get("regimes"),
+        variables=ctx.get("variables", ()),
+        workers=ctx.get("workers", 1),
+    )

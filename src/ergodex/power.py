@@ -119,18 +119,21 @@ def detectable_changes(
     of change no scored statistic can see (e.g. the time scale when only histograms are
     scored) is not tried and left out.
     """
-    from ergodex.validation import _pair_distances, _PieceStats
+    from ergodex.group_stats import pair_distances, statistics_of
 
     left, right = (np.ravel(i)[:MAX_POWER_PAIRS] for i in floor_index)
     n_vars = ref_pieces.shape[2]
     mean = ref_pieces.reshape(-1, n_vars).mean(axis=0)
+    workers = ctx.get("workers", 1)
 
     def rejected(change: Callable[[np.ndarray], np.ndarray]) -> bool:
-        changed = np.stack([change(ref_pieces[list(groups[g])]).reshape(-1, n_vars) for g in left])
-        s_stats = _PieceStats(changed, ctx)
+        # every change acts on each piece alone: change the pieces once, then pool them
+        s_stats = statistics_of(change(ref_pieces), [groups[g] for g in left], ctx)
         pairs = (np.arange(left.size), right)
         for s, floor in floors.items():
-            value = np.nanmean(_pair_distances(s, s_stats, group_stats, pairs), axis=0)
+            value = np.nanmean(
+                pair_distances(s, s_stats, group_stats, pairs, workers=workers), axis=0
+            )
             with np.errstate(invalid="ignore", divide="ignore"):
                 ratio = value / floor
             if np.any(ratio > tolerance_for(s)):
@@ -228,7 +231,7 @@ def reference_consistency(
     beyond their own noise. Skipped (``verdict`` None) with fewer than two runs or parts
     shorter than 16 samples.
     """
-    from ergodex.validation import _pair_distances, _PieceStats
+    from ergodex.group_stats import pair_distances, statistics_of
 
     run_of_piece = np.asarray(run_of_piece)
     L = ref_pieces.shape[1]
@@ -243,10 +246,10 @@ def reference_consistency(
         return out
     parts = np.concatenate([ref_pieces[:, :half], ref_pieces[:, L - half :]])
     runs = np.concatenate([run_of_piece, run_of_piece])
-    st = _PieceStats(parts, dict(ctx, statistics=("histogram",), regimes=None))
+    st = statistics_of(parts, None, dict(ctx, statistics=("histogram",), regimes=None))
     ii, jj = np.triu_indices(parts.shape[0], 1)
     same = runs[ii] == runs[jj]
-    d = _pair_distances("histogram", st, st, (ii, jj))
+    d = pair_distances("histogram", st, st, (ii, jj), workers=ctx.get("workers", 1))
     within, between = d[same].mean(axis=0), d[~same].mean(axis=0)
     per_var = between / np.maximum(within, np.finfo(float).tiny)
     ratio = float(np.max(per_var))
