@@ -46,7 +46,7 @@ def one_case(kind: str, size: int, workers: int | None) -> dict:
 
     from ergodex import scenarios, validation
 
-    extra = {} if workers is None else {"workers": workers}
+    extra = {} if workers is None else {"workers": workers}  # check()'s thread count
     if kind == "l63":
         data = scenarios.convection_loop(seed=1, duration=size / 4 * 0.01)
         sur = scenarios.lorenz63_surrogate()
@@ -55,11 +55,11 @@ def one_case(kind: str, size: int, workers: int | None) -> dict:
         data = scenarios.station_ring(seed=1, n=size, duration=2000 * 0.05)
         sur = scenarios.lorenz96_surrogate(n=size)
         small = scenarios.station_ring(seed=2, n=size, duration=200 * 0.05)
-    spec = validation.CheckSpec(members=16, seed=0, **extra)
-    validation.check(sur, small, spec, evidence=False)  # kernels compiled or loaded from cache
+    spec = validation.CheckSpec(members=16, seed=0)
+    validation.check(sur, small, spec, evidence=False, **extra)  # kernels compiled or loaded from cache
     before = _current_mb()
     t0 = time.perf_counter()
-    card = validation.check(sur, data, spec, evidence=False).scorecard
+    card = validation.check(sur, data, spec, evidence=False, **extra).scorecard
     elapsed = time.perf_counter() - t0
     data_mb = sum(np.asarray(r).nbytes for r in data.runs) / 2**20
     return {
@@ -101,8 +101,8 @@ def _slope(rows: list[dict], key: str) -> float:
 
 def _print(rows: list[dict]) -> None:
     print(
-        f"{'case':<22} {'data MB':>8} {'check s':>8} {'peak MB':>8} {'target MB':>9}  "
-        f"{'peak/target':>11}  verdict"
+        f"{'case':<22} {'data MB':>8} {'check s':>8} {'RSS before':>10} {'peak MB':>8} "
+        f"{'target MB':>9}  {'peak/target':>11}  verdict"
     )
     for r in rows:
         name = f"{r['kind']} {r['size']:g}"
@@ -110,7 +110,8 @@ def _print(rows: list[dict]) -> None:
             print(f"{name:<22} failed: {r['error']}")
             continue
         print(
-            f"{name:<22} {r['data_mb']:>8.1f} {r['seconds']:>8.2f} {r['peak_mb']:>8.0f} "
+            f"{name:<22} {r['data_mb']:>8.1f} {r['seconds']:>8.2f} {r['rss_before_mb']:>10.0f} "
+            f"{r['peak_mb']:>8.0f} "
             f"{r['target_mb']:>9.0f}  {r['peak_mb'] / r['target_mb']:>11.2f}  {r['verdict']}"
         )
 
@@ -119,7 +120,7 @@ def main(argv=None) -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--samples", type=float, nargs="*", default=[1e4, 1e5, 1e6])
     p.add_argument("--stations", type=int, nargs="*", default=[20, 40, 100])
-    p.add_argument("--workers", type=int, default=None, help="CheckSpec.workers (if it exists)")
+    p.add_argument("--workers", type=int, default=None, help="threads of the statistics (check(workers=...)); default: check()'s own default")
     p.add_argument("--one", nargs=2, metavar=("KIND", "SIZE"), help=argparse.SUPPRESS)
     args = p.parse_args(argv)
     if args.one:

@@ -51,6 +51,8 @@ MAX_QUANTILE_POINTS = 2000
 # Order statistics of shared pieces: positions of the joint sort are counted per piece at
 # every _BLOCK-th position, and the last block is resolved sample by sample.
 _BLOCK = 16
+# Numbers in one temporary array of pair distances (8 MB of float64).
+_PAIR_BLOCK = 1_000_000
 # Welch segments transformed at once inside one piece (bounds the temporary arrays).
 _SEGMENT_BATCH = 2048
 
@@ -231,32 +233,28 @@ def _lerp(a: np.ndarray, b: np.ndarray, t: np.ndarray) -> np.ndarray:
 def _order_statistics(pieces, groups, used, levels, with_qf: bool, workers):
     """(qf (G, K, n) or None, quantiles (G, levels, n)) of every group."""
     L, n_vars = pieces[0].shape
-    sizes = {len(g) for g in groups}
-    # groups of different sizes have different ranks: handle each size on its own
-    order = {s: [gi for gi, g in enumerate(groups) if len(g) == s] for s in sorted(sizes)}
-    qf_all = None
-    quant_all = np.empty((len(groups), len(levels), n_vars))
-    for size, members in order.items():
+    by_size: dict[int, list[int]] = {}
+    for gi, g in enumerate(groups):
+        by_size.setdefault(len(g), []).append(gi)
+    if with_qf and len(by_size) > 1:
+        raise SettingsError(
+            "groups of different lengths give quantile functions of different sizes"
+        )
+    nl = len(levels)
+    quant = np.empty((len(groups), nl, n_vars))
+    qf = None
+    for size, members in by_size.items():
         sub = [groups[gi] for gi in members]
         ranks, k, gamma = _ranks(size * L, levels, with_qf)
+        values = np.empty((len(sub), ranks.size, n_vars))  # written in place: no second copy
         if _shared_is_cheaper(sub, L, ranks.size):
-            values = _shared_order_stats(pieces, sub, ranks, workers)
+            _shared_order_stats(pieces, sub, ranks, workers, out=values)
         else:
-            values = _separate_order_stats(pieces, sub, ranks, workers)
-        # values: (G_sub, ranks, n)
-        nl = len(levels)
-        lower = values[:, k : k + nl]
-        upper = values[:, k + nl :]
-        quant_all[members] = _lerp(lower, upper, gamma[None, :, None])
+            _separate_order_stats(pieces, sub, ranks, workers, out=values)
+        quant[members] = _lerp(values[:, k : k + nl], values[:, k + nl :], gamma[None, :, None])
         if with_qf:
-            if qf_all is None:
-                qf_all = np.empty((len(groups), k, n_vars))
-            if qf_all.shape[1] != k:
-                raise SettingsError(
-                    "groups of different lengths give quantile functions of different sizes"
-                )
-            qf_all[members] = values[:, :k]
-    return qf_all, quant_all
+            qf = values[:, :k]  # one size of group: every group, in order
+    return qf, quant
 
 
 def _shared_is_cheaper(groups, piece_length: int, n_ranks: int) -> bool:
@@ -271,18 +269,22 @@ def _shared_is_cheaper(groups, piece_length: int, n_ranks: int) -> bool:
     return reused and len(groups[0]) * piece_length > 4 * n_ranks * _BLOCK
 
 
-def _separate_order_stats(pieces, groups, ranks, workers) -> np.ndarray:
+def _separate_order_stats(pieces, groups, ranks, workers, out=None) -> np.ndarray:
     """Order statistics at ``ranks`` of each group, sorting each group's samples once."""
+    n_vars = pieces[0].shape[1]
+    if out is None:
+        out = np.empty((len(groups), len(ranks), n_vars))
 
-    def one(g):
-        data = np.concatenate([pieces[i] for i in g])
+    def one(gi: int) -> None:
+        data = np.concatenate([pieces[i] for i in groups[gi]])
         data.sort(axis=0)
-        return data[ranks]
+        out[gi] = data[ranks]
 
-    return np.stack(thread_map(one, groups, workers))
+    thread_map(one, range(len(groups)), workers)
+    return out
 
 
-def _shared_order_stats(pieces, groups, ranks, workers) -> np.ndarray:
+def _shared_order_stats(pieces, groups, ranks, workers, out=None) -> np.ndarray:
     """Order statistics at ``ranks`` of groups drawn from a few shared pieces.
 
     Per variable, every used piece is sorted together once; the count of each piece's samples
@@ -300,8 +302,10 @@ def _shared_order_stats(pieces, groups, ranks, workers) -> np.ndarray:
         for i in g:
             weights[gi, slot[i]] += 1
     targets = np.asarray(ranks) + 1  # the r-th smallest is where the count first reaches r + 1
+    if out is None:
+        out = np.empty((len(groups), targets.size, n_vars))
 
-    def one_variable(j: int) -> np.ndarray:
+    def one_variable(j: int) -> None:
         values = np.concatenate([np.asarray(pieces[p][:, j], float) for p in used])
         order = np.argsort(values)  # ties may come in any order: their value is the same
         srt = values[order]
@@ -314,7 +318,6 @@ def _shared_order_stats(pieces, groups, ranks, workers) -> np.ndarray:
         del block_of
         at_block = np.zeros((n_blocks + 1, P))
         np.cumsum(counts, axis=0, out=at_block[1:])
-        out = np.empty((len(groups), targets.size))
         inside = np.arange(_BLOCK)
         for g0 in range(0, len(groups), 16):  # 16 groups at a time bound the count table
             wg = weights[g0 : g0 + 16]
@@ -325,11 +328,10 @@ def _shared_order_stats(pieces, groups, ranks, workers) -> np.ndarray:
                 pos = np.minimum(block[:, None] * _BLOCK + inside[None, :], n_total - 1)
                 w = w_row[lab[pos]]  # positions past the end repeat the last sample: never needed
                 reached = col[block][:, None] + np.cumsum(w, axis=1) >= targets[:, None]
-                out[g0 + k] = srt[block * _BLOCK + np.argmax(reached, axis=1)]
-        return out
+                out[g0 + k, :, j] = srt[block * _BLOCK + np.argmax(reached, axis=1)]
 
-    per_var = thread_map(one_variable, range(n_vars), workers)
-    return np.stack(per_var, axis=-1)
+    thread_map(one_variable, range(n_vars), workers)
+    return out
 
 
 # ---------------------------------------------------------------------------------------------
@@ -601,21 +603,24 @@ def pair_distances(
     name, fn = _distance_function(statistic)
     x, y = getattr(a, name), getattr(b, name)
     if index is None:
-        # every pair: broadcast a few rows of x against all of y at a time, which avoids
-        # copying y for each pair; the chunk keeps the temporary array to a few tens of MB
-        per_row = max(1, y[0].size * y.shape[0])
-        step = max(1, int(4_000_000 // per_row))
+        # every pair: broadcast a block of x against a block of y, which avoids copying y for
+        # each pair; blocks keep each temporary array to a few tens of MB
+        per_pair = max(1, x[0].size)
+        y_step = max(1, min(y.shape[0], int(_PAIR_BLOCK // per_pair)))
+        x_step = max(1, int(_PAIR_BLOCK // (per_pair * y_step)))
 
         def rows(s: int) -> np.ndarray:
-            d = fn(x[s : s + step, None], y[None, :])
+            xa = x[s : s + x_step, None]
+            d = np.concatenate(
+                [fn(xa, y[None, t : t + y_step]) for t in range(0, y.shape[0], y_step)], axis=1
+            )
             return d.reshape((-1,) + d.shape[2:])
 
-        parts = thread_map(rows, range(0, x.shape[0], step), workers)
-        return np.concatenate(parts)
+        return np.concatenate(thread_map(rows, range(0, x.shape[0], x_step), workers))
     ii, jj = np.ravel(index[0]), np.ravel(index[1])
     if ii.size == 0:
         return np.zeros((0,) + fn(x[:1], y[:1]).shape[1:])
-    step = max(1, min(64, int(4_000_000 // max(1, x[0].size))))
+    step = max(1, min(64, int(_PAIR_BLOCK // max(1, x[0].size))))
 
     def chosen(s: int) -> np.ndarray:
         return fn(x[ii[s : s + step]], y[jj[s : s + step]])
