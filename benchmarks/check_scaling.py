@@ -10,10 +10,15 @@ Cases: the heated convection loop (Lorenz-63, 3 variables, 4 runs, the sample co
 and the ring of stations (Lorenz-96, 4 runs × 2000 samples, the station counts given), each
 checked against its true equations with 16 members.
 
+``--threads KIND SIZE`` instead measures, in one process, the statistics of a check alone
+(group statistics of 70 reference groups of 4 pieces and of 16 model groups, and the distances
+of every row) with 1 and with 2 threads, alternating, and the whole check with each.
+
 Usage (repository root)::
 
     /work/venv/bin/python benchmarks/check_scaling.py [--samples 1e4 1e5 1e6] [--stations 20 40 100]
     /work/venv/bin/python benchmarks/check_scaling.py --one l63 1000000   # one case, JSON
+    /work/venv/bin/python benchmarks/check_scaling.py --threads l63 1000000 [--repeats 3]
 """
 
 from __future__ import annotations
@@ -56,7 +61,9 @@ def one_case(kind: str, size: int, workers: int | None) -> dict:
         sur = scenarios.lorenz96_surrogate(n=size)
         small = scenarios.station_ring(seed=2, n=size, duration=200 * 0.05)
     spec = validation.CheckSpec(members=16, seed=0)
-    validation.check(sur, small, spec, evidence=False, **extra)  # kernels compiled or loaded from cache
+    validation.check(
+        sur, small, spec, evidence=False, **extra
+    )  # kernels compiled or loaded from cache
     before = _current_mb()
     t0 = time.perf_counter()
     card = validation.check(sur, data, spec, evidence=False, **extra).scorecard
@@ -75,6 +82,78 @@ def one_case(kind: str, size: int, workers: int | None) -> dict:
         "verdict": card.verdict,
         "largest_ratio": card.largest_ratio,
     }
+
+
+def threads_case(kind: str, size: int, repeats: int) -> None:
+    """Statistics alone and the whole check, 1 thread against 2, alternating."""
+    import itertools
+    import statistics as st
+
+    import numpy as np
+
+    from ergodex import scenarios, validation
+    from ergodex.group_stats import group_statistics, pair_distances
+    from ergodex.integrate import integrate_ensemble
+
+    if kind == "l63":
+        data = scenarios.convection_loop(seed=1, duration=size / 4 * 0.01)
+        sur = scenarios.lorenz63_surrogate()
+    else:
+        data = scenarios.station_ring(seed=1, n=size, duration=2000 * 0.05)
+        sur = scenarios.lorenz96_surrogate(n=size)
+    runs = [np.asarray(r) for r in data.runs]
+    L = min(r.shape[0] for r in runs) // 2
+    pieces = np.stack([r[i * L : (i + 1) * L] for r in runs for i in range(2)])  # 8 pieces
+    groups = [tuple(c) for c in itertools.combinations(range(8), 4)]
+    model = integrate_ensemble(
+        sur,
+        np.concatenate(runs)[:: max(1, data.n_samples // 16)][:16],
+        dt_out=data.dt,
+        n_out=4 * L,
+        seed=0,
+    ).states
+    model_pieces = [model[m, k * L : (k + 1) * L] for k in range(4) for m in range(16)]
+    model_groups = [tuple(range(g * 4, g * 4 + 4)) for g in range(16)]
+    names = ("histogram", "quantiles", "autocorrelation", "spectrum")
+    kw = dict(statistics=names, max_lag=max(1, L // 40), dt=data.dt, nperseg=min(256, L // 8))
+
+    def statistics_alone(workers: int) -> float:
+        t0 = time.perf_counter()
+        ref = group_statistics(pieces, groups, workers=workers, **kw)
+        mod = group_statistics(model_pieces, model_groups, workers=workers, **kw)
+        for name in names:
+            pair_distances(name, mod, ref, workers=workers)
+        return time.perf_counter() - t0
+
+    spec = validation.CheckSpec(members=16, seed=0)
+
+    def whole(workers: int) -> float:
+        t0 = time.perf_counter()
+        validation.check(sur, data, spec, evidence=False, workers=workers)
+        return time.perf_counter() - t0
+
+    whole(1)  # warm-up
+    times: dict[str, list[float]] = {k: [] for k in ("s1", "s2", "c1", "c2")}
+    for _ in range(repeats):
+        times["s1"].append(statistics_alone(1))
+        times["s2"].append(statistics_alone(2))
+        times["c1"].append(whole(1))
+        times["c2"].append(whole(2))
+    med = {k: st.median(v) for k, v in times.items()}
+    print(f"machine: {os.cpu_count()} cores, load average {os.getloadavg()[0]:.1f}")
+    print(
+        f"{kind} {size:g}: {data.n_samples} samples x {data.n_variables} variables, "
+        f"medians of {repeats}"
+    )
+    print(
+        f"statistics alone: 1 thread {med['s1']:.2f} s, 2 threads {med['s2']:.2f} s, "
+        f"speed-up {med['s1'] / med['s2']:.2f}"
+    )
+    print(
+        f"whole check:      1 thread {med['c1']:.2f} s, 2 threads {med['c2']:.2f} s, "
+        f"speed-up {med['c1'] / med['c2']:.2f}"
+    )
+    print(f"load average after: {os.getloadavg()[0]:.1f}")
 
 
 def _run(kind: str, size: int, workers: int | None) -> dict:
@@ -120,9 +199,19 @@ def main(argv=None) -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--samples", type=float, nargs="*", default=[1e4, 1e5, 1e6])
     p.add_argument("--stations", type=int, nargs="*", default=[20, 40, 100])
-    p.add_argument("--workers", type=int, default=None, help="threads of the statistics (check(workers=...)); default: check()'s own default")
+    p.add_argument(
+        "--workers",
+        type=int,
+        default=None,
+        help="threads of the statistics (check(workers=...)); default: check()'s own default",
+    )
     p.add_argument("--one", nargs=2, metavar=("KIND", "SIZE"), help=argparse.SUPPRESS)
+    p.add_argument("--threads", nargs=2, metavar=("KIND", "SIZE"), default=None)
+    p.add_argument("--repeats", type=int, default=3)
     args = p.parse_args(argv)
+    if args.threads:
+        threads_case(args.threads[0], int(float(args.threads[1])), args.repeats)
+        return 0
     if args.one:
         print(json.dumps(one_case(args.one[0], int(float(args.one[1])), args.workers)))
         return 0

@@ -111,6 +111,9 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         default=None,
         help="--select: local worker processes (default 1: in this process; -1: every CPU)",
     )
+    from ergodex.cli.common import add_workers_option
+
+    add_workers_option(parser, scope="--select: ")
     parser.add_argument(
         "--json",
         metavar="OUT",
@@ -149,8 +152,14 @@ def run(args: argparse.Namespace) -> int:
     # read and check every input before any work: nothing is written when one is bad
     _check_target("out", args.out)
     _check_target("json", args.json)
-    if args.select is False and (args.scheduler or args.reference or args.n_jobs is not None):
-        raise SettingsError("--scheduler, --reference and --n-jobs only apply with --select")
+    if args.select is False and (
+        args.scheduler or args.reference or args.n_jobs is not None or args.workers is not None
+    ):
+        raise SettingsError(
+            "--scheduler, --reference, --n-jobs and --workers only apply with --select"
+        )
+    if args.workers is not None and args.workers < 1:
+        raise SettingsError(f"--workers must be a positive number of threads, got {args.workers}")
     given = [OPTIONS[k] for k in OPTIONS if getattr(args, k, None) is not None]
     if args.select is False and (given or args.check_config):
         raise SettingsError(f"{(given or ['--check-config'])[0]} only applies with --select")
@@ -244,6 +253,7 @@ def run(args: argparse.Namespace) -> int:
         reference=reference,
         scheduler=args.scheduler,
         n_jobs=args.n_jobs,
+        workers=args.workers,
         progress=show_progress(args),
     )
     if not args.quiet:

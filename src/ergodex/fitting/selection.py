@@ -186,7 +186,13 @@ def threshold_sweep(
 
 
 def _evaluate(
-    index: int, method: str, settings: dict, fit_data, reference, spec_dict: dict
+    index: int,
+    method: str,
+    settings: dict,
+    fit_data,
+    reference,
+    spec_dict: dict,
+    workers: int | None = None,
 ) -> dict:
     """Fit, check and summarise one candidate (runs in a worker; returns plain data)."""
     from ergodex.validation import CheckSpec, check
@@ -213,7 +219,7 @@ def _evaluate(
     }
     try:
         scorecard = check(
-            surrogate, reference, CheckSpec.from_dict(spec_dict), evidence=False
+            surrogate, reference, CheckSpec.from_dict(spec_dict), evidence=False, workers=workers
         ).scorecard
     except ErgodexError as exc:
         out.update(verdict="error", reasons=[f"check failed: {exc}"])
@@ -254,6 +260,7 @@ def select(
     thresholds: Sequence[float] | None = None,
     scheduler: Any = None,
     n_jobs: int | None = None,
+    workers: int | None = None,
     progress: Any = None,
 ) -> SelectionResult:
     """Fit and check every candidate; choose the sparsest whose statistics pass.
@@ -279,6 +286,9 @@ def select(
         pysindy and compiling the integrator's kernels (seconds to tens of seconds on a busy
         machine), so processes only pay off when each candidate takes longer than that; -1 uses
         every CPU.
+    workers : int, optional
+        Threads for each candidate's check statistics (:func:`ergodex.validation.check`);
+        default every core in this process, one thread in each worker process or on a cluster.
     progress : bool or callable(done, total), optional
         Progress over the candidates (see :mod:`ergodex.progress`); default: a bar only when
         standard error is a terminal.
@@ -328,7 +338,9 @@ def select(
         series.n_runs,
         reference.n_runs,
     )
-    results, backend = _run(jobs, series, reference, spec_dict, scheduler, n_jobs, show)
+    results, backend = _run(
+        jobs, series, reference, spec_dict, scheduler, n_jobs, show, workers=workers
+    )
 
     by_index = {r["index"]: r for r in results}
     out = []
@@ -383,10 +395,18 @@ def select(
     )
 
 
-def _run(jobs, series, reference, spec_dict, scheduler, n_jobs, show) -> tuple[list[dict], str]:
+def _run(
+    jobs, series, reference, spec_dict, scheduler, n_jobs, show, *, workers=None
+) -> tuple[list[dict], str]:
     import joblib
 
-    tasks = [joblib.delayed(_evaluate)(k, m, s, series, reference, spec_dict) for k, m, s in jobs]
+    local = n_jobs in (None, 1) and scheduler is None
+    # processes and cluster workers already share the cores: one thread each unless told
+    threads = workers if workers is not None or local else 1
+    tasks = [
+        joblib.delayed(_evaluate)(k, m, s, series, reference, spec_dict, threads)
+        for k, m, s in jobs
+    ]
     if scheduler is not None:
         return _run_dask(tasks, scheduler, show), "dask"
     if n_jobs is None:
