@@ -118,8 +118,9 @@ class GroupStatistics:
     res: np.ndarray
     trans: np.ndarray
 
-    def __init__(self, n: int):
+    def __init__(self, n: int, workers: int | None = 1):
         self.n = int(n)
+        self.workers = workers  # threads for distances to other groups (same numbers for any)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -175,7 +176,7 @@ def group_statistics(
     if not groups or any(len(g) == 0 for g in groups):
         raise SettingsError("every group needs at least one piece")
     used = sorted({i for g in groups for i in g})
-    out = GroupStatistics(len(groups))
+    out = GroupStatistics(len(groups), workers)
     wanted = set(statistics)
     if wanted & {"histogram", "quantiles"}:
         qf, quant = _order_statistics(

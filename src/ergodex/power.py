@@ -47,9 +47,12 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
+
+if TYPE_CHECKING:
+    from ergodex.validation.pieces import PieceSettings
 
 #: Factors tried, smallest first; the first one that some row rejects is reported.
 LADDER = (1.1, 1.2, 1.3, 1.4, 1.5, 1.75, 2.0, 3.0, 5.0)
@@ -98,7 +101,7 @@ def detectable_changes(
     floor_index,
     group_stats,
     floors: dict[str, np.ndarray],
-    ctx: dict,
+    settings: PieceSettings,
     tolerance_for: Callable[[str], float],
 ) -> dict:
     """Smallest time-scale and variance factors the check's rows would reject.
@@ -109,7 +112,7 @@ def detectable_changes(
     groups, floor_index, group_stats
         The check's reference groups, its floor pairs and the statistics of its groups.
     floors : dict statistic → floor per row
-    ctx : the check's statistics context
+    settings : the check's per-piece statistics settings
     tolerance_for : statistic → tolerance
 
     Returns
@@ -119,21 +122,18 @@ def detectable_changes(
     of change no scored statistic can see (e.g. the time scale when only histograms are
     scored) is not tried and left out.
     """
-    from ergodex.group_stats import pair_distances, statistics_of
+    from ergodex.validation.pieces import _pair_distances, _PieceStats
 
     left, right = (np.ravel(i)[:MAX_POWER_PAIRS] for i in floor_index)
     n_vars = ref_pieces.shape[2]
     mean = ref_pieces.reshape(-1, n_vars).mean(axis=0)
-    workers = ctx.get("workers", 1)
 
     def rejected(change: Callable[[np.ndarray], np.ndarray]) -> bool:
         # every change acts on each piece alone: change the pieces once, then pool them
-        s_stats = statistics_of(change(ref_pieces), [groups[g] for g in left], ctx)
+        s_stats = _PieceStats(change(ref_pieces), settings, [groups[g] for g in left])
         pairs = (np.arange(left.size), right)
         for s, floor in floors.items():
-            value = np.nanmean(
-                pair_distances(s, s_stats, group_stats, pairs, workers=workers), axis=0
-            )
+            value = np.nanmean(_pair_distances(s, s_stats, group_stats, pairs), axis=0)
             with np.errstate(invalid="ignore", divide="ignore"):
                 ratio = value / floor
             if np.any(ratio > tolerance_for(s)):
@@ -221,7 +221,11 @@ def power_statement(
 
 
 def reference_consistency(
-    ref_pieces: np.ndarray, run_of_piece: np.ndarray, gap_samples: int, ctx: dict, tolerance: float
+    ref_pieces: np.ndarray,
+    run_of_piece: np.ndarray,
+    gap_samples: int,
+    settings: PieceSettings,
+    tolerance: float,
 ) -> dict:
     """Do the reference runs sample the same thing, within their own noise?
 
@@ -231,7 +235,7 @@ def reference_consistency(
     beyond their own noise. Skipped (``verdict`` None) with fewer than two runs or parts
     shorter than 16 samples.
     """
-    from ergodex.group_stats import pair_distances, statistics_of
+    from ergodex.validation.pieces import _pair_distances, _PieceStats
 
     run_of_piece = np.asarray(run_of_piece)
     L = ref_pieces.shape[1]
@@ -246,16 +250,16 @@ def reference_consistency(
         return out
     parts = np.concatenate([ref_pieces[:, :half], ref_pieces[:, L - half :]])
     runs = np.concatenate([run_of_piece, run_of_piece])
-    st = statistics_of(parts, None, dict(ctx, statistics=("histogram",), regimes=None))
+    st = _PieceStats(parts, settings.histogram_only())
     ii, jj = np.triu_indices(parts.shape[0], 1)
     same = runs[ii] == runs[jj]
-    d = pair_distances("histogram", st, st, (ii, jj), workers=ctx.get("workers", 1))
+    d = _pair_distances("histogram", st, st, (ii, jj))
     within, between = d[same].mean(axis=0), d[~same].mean(axis=0)
     per_var = between / np.maximum(within, np.finfo(float).tiny)
     ratio = float(np.max(per_var))
     out.update(
         ratio=ratio,
         verdict="pass" if ratio <= tolerance else "fail",
-        per_variable={v: float(r) for v, r in zip(ctx["variables"], per_var)},
+        per_variable={v: float(r) for v, r in zip(settings.variables, per_var)},
     )
     return out
