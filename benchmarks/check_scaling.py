@@ -14,11 +14,16 @@ checked against its true equations with 16 members.
 (group statistics of 70 reference groups of 4 pieces and of 16 model groups, and the distances
 of every row) with 1 and with 2 threads, alternating, and the whole check with each.
 
+``--dask KIND SIZE`` compares, in one process, the ensemble integration and the whole check on
+this machine with the same on a 2-worker Dask LocalCluster (worker processes, one thread each;
+cluster start-up not counted), and says whether the scorecards agree.
+
 Usage (repository root)::
 
     /work/venv/bin/python benchmarks/check_scaling.py [--samples 1e4 1e5 1e6] [--stations 20 40 100]
     /work/venv/bin/python benchmarks/check_scaling.py --one l63 1000000   # one case, JSON
     /work/venv/bin/python benchmarks/check_scaling.py --threads l63 1000000 [--repeats 3]
+    /work/venv/bin/python benchmarks/check_scaling.py --dask l96 100 [--repeats 3]
 """
 
 from __future__ import annotations
@@ -156,6 +161,74 @@ def threads_case(kind: str, size: int, repeats: int) -> None:
     print(f"load average after: {os.getloadavg()[0]:.1f}")
 
 
+def _case_data(kind: str, size: int):
+    from ergodex import scenarios
+
+    if kind == "l63":
+        return scenarios.convection_loop(seed=1, duration=size / 4 * 0.01), (
+            scenarios.lorenz63_surrogate()
+        )
+    return scenarios.station_ring(seed=1, n=size, duration=2000 * 0.05), (
+        scenarios.lorenz96_surrogate(n=size)
+    )
+
+
+def dask_case(kind: str, size: int, repeats: int, members: int) -> None:
+    """Integration and whole check here and on a 2-worker LocalCluster, alternating."""
+    import statistics as st
+
+    import numpy as np
+    from dask.distributed import Client, LocalCluster
+
+    from ergodex import validation
+    from ergodex.cluster import integrate_scattered
+    from ergodex.integrate import integrate_ensemble
+
+    data, sur = _case_data(kind, size)
+    spec = validation.CheckSpec(members=members, seed=0)
+    starts = np.concatenate(data.runs)[:: max(1, data.n_samples // members)][:members]
+    n_out = 4 * min(data.lengths)
+    times: dict[str, list[float]] = {k: [] for k in ("i_here", "i_dask", "c_here", "c_dask")}
+    with (
+        LocalCluster(n_workers=2, threads_per_worker=1, dashboard_address=None) as cluster,
+        Client(cluster) as client,
+    ):
+        here = validation.check(sur, data, spec, evidence=False).scorecard  # warm-up
+        there = validation.check(sur, data, spec, evidence=False, scheduler=client).scorecard
+        for _ in range(repeats):
+            t0 = time.perf_counter()
+            integrate_ensemble(sur, starts, dt_out=data.dt, n_out=n_out, seed=0)
+            times["i_here"].append(time.perf_counter() - t0)
+            t0 = time.perf_counter()
+            integrate_scattered(sur, starts, dt_out=data.dt, n_out=n_out, seed=0, scheduler=client)
+            times["i_dask"].append(time.perf_counter() - t0)
+            t0 = time.perf_counter()
+            validation.check(sur, data, spec, evidence=False)
+            times["c_here"].append(time.perf_counter() - t0)
+            t0 = time.perf_counter()
+            validation.check(sur, data, spec, evidence=False, scheduler=client)
+            times["c_dask"].append(time.perf_counter() - t0)
+    med = {k: st.median(v) for k, v in times.items()}
+    same = [(r.value, r.noise_floor) for r in here.rows] == [
+        (r.value, r.noise_floor) for r in there.rows
+    ]
+    print(f"machine: {os.cpu_count()} cores, load average {os.getloadavg()[0]:.1f}")
+    print(f"{kind} {size:g}: {members} members, medians of {repeats}")
+    print(
+        f"integration ({members} x {n_out} outputs): here {med['i_here']:.2f} s, "
+        f"2-worker LocalCluster {med['i_dask']:.2f} s, ratio {med['i_here'] / med['i_dask']:.2f}"
+    )
+    print(
+        f"whole check: here {med['c_here']:.2f} s, LocalCluster {med['c_dask']:.2f} s, "
+        f"ratio {med['c_here'] / med['c_dask']:.2f}"
+    )
+    print(
+        f"scorecards agree: verdict {here.verdict == there.verdict}, every row value and "
+        f"floor {same}"
+    )
+    print(f"load average after: {os.getloadavg()[0]:.1f}")
+
+
 def _run(kind: str, size: int, workers: int | None) -> dict:
     env = dict(os.environ)
     env["PYTHONPATH"] = os.pathsep.join([str(ROOT / "src"), env.get("PYTHONPATH", "")])
@@ -207,8 +280,13 @@ def main(argv=None) -> int:
     )
     p.add_argument("--one", nargs=2, metavar=("KIND", "SIZE"), help=argparse.SUPPRESS)
     p.add_argument("--threads", nargs=2, metavar=("KIND", "SIZE"), default=None)
+    p.add_argument("--dask", nargs=2, metavar=("KIND", "SIZE"), default=None)
+    p.add_argument("--members", type=int, default=16, help="--dask: ensemble members")
     p.add_argument("--repeats", type=int, default=3)
     args = p.parse_args(argv)
+    if args.dask:
+        dask_case(args.dask[0], int(float(args.dask[1])), args.repeats, args.members)
+        return 0
     if args.threads:
         threads_case(args.threads[0], int(float(args.threads[1])), args.repeats)
         return 0
