@@ -89,10 +89,22 @@ def thread_map(fn: Callable[[Any], Any], items: Iterable[Any], workers: int | No
     n = min(resolve_workers(workers), len(items))
     if n <= 1:
         return [fn(x) for x in items]
-    from threadpoolctl import threadpool_limits
-
-    with threadpool_limits(limits=1, user_api="blas"), ThreadPoolExecutor(n) as pool:
+    with _blas_controller().limit(limits=1, user_api="blas"), ThreadPoolExecutor(n) as pool:
         return list(pool.map(fn, items))
+
+
+_CONTROLLER: Any = None
+
+
+def _blas_controller() -> Any:
+    """threadpoolctl's view of the loaded BLAS libraries, made once: making it scans every
+    loaded library (about 10 ms), limiting through it then costs microseconds."""
+    global _CONTROLLER
+    if _CONTROLLER is None:
+        from threadpoolctl import ThreadpoolController
+
+        _CONTROLLER = ThreadpoolController()
+    return _CONTROLLER
 
 
 # ---------------------------------------------------------------------------------------------
@@ -180,7 +192,7 @@ def group_statistics(
     wanted = set(statistics)
     if wanted & {"histogram", "quantiles"}:
         qf, quant = _order_statistics(
-            pieces, groups, used, quantile_levels, "histogram" in wanted, workers
+            pieces, groups, quantile_levels, "histogram" in wanted, workers
         )
         if "histogram" in wanted:
             out.qf = qf
@@ -231,7 +243,7 @@ def _lerp(a: np.ndarray, b: np.ndarray, t: np.ndarray) -> np.ndarray:
     return np.where(t >= 0.5, b - diff * (1.0 - t), out)
 
 
-def _order_statistics(pieces, groups, used, levels, with_qf: bool, workers):
+def _order_statistics(pieces, groups, levels, with_qf: bool, workers):
     """(qf (G, K, n) or None, quantiles (G, levels, n)) of every group."""
     L, n_vars = pieces[0].shape
     by_size: dict[int, list[int]] = {}
@@ -310,15 +322,24 @@ def _shared_order_stats(pieces, groups, ranks, workers, out=None) -> np.ndarray:
         values = np.concatenate([np.asarray(pieces[p][:, j], float) for p in used])
         order = np.argsort(values)  # ties may come in any order: their value is the same
         srt = values[order]
-        lab = (order // L).astype(np.int32)
-        del order, values
+        del values
+        np.floor_divide(order, L, out=order)
+        lab = order.astype(np.int32)  # the piece (slot) of each sorted sample
+        del order
         n_total = lab.size
         n_blocks = -(-n_total // _BLOCK)
-        block_of = np.arange(n_total) // _BLOCK
-        counts = np.bincount(block_of * P + lab, minlength=n_blocks * P).reshape(n_blocks, P)
-        del block_of
+        counts = np.zeros((n_blocks, P))
+        chunk = _BLOCK * 65536  # samples counted at once (bounded temporary arrays)
+        for c in range(0, n_total, chunk):
+            part = lab[c : c + chunk]
+            key = (np.arange(part.size) // _BLOCK) * P + part
+            nb = -(-part.size // _BLOCK)
+            counts[c // _BLOCK : c // _BLOCK + nb] = np.bincount(key, minlength=nb * P).reshape(
+                nb, P
+            )
         at_block = np.zeros((n_blocks + 1, P))
         np.cumsum(counts, axis=0, out=at_block[1:])
+        del counts
         inside = np.arange(_BLOCK)
         for g0 in range(0, len(groups), 16):  # 16 groups at a time bound the count table
             wg = weights[g0 : g0 + 16]
@@ -394,16 +415,22 @@ def _join_products(joins, got, max_lag: int) -> dict:
     """Σ of the lagged products across the join of piece p into piece q, lags 0..max_lag."""
     if not joins or max_lag == 0:
         return {pq: 0.0 for pq in joins}
-    tails = np.stack([got[p][5] for p, _ in joins])  # (J, n, K): last K samples of p
-    heads = np.stack([got[q][4] for _, q in joins])  # (J, n, K): first K samples of q
     nf = stats.fast_fft_length(2 * max_lag)
-    c = np.fft.irfft(
-        np.fft.rfft(tails, n=nf, axis=-1) * np.conj(np.fft.rfft(heads, n=nf, axis=-1)),
-        n=nf,
-        axis=-1,
-    )[..., :max_lag]  # c[m] = Σ_i tail[i + m] head[i]
-    products = np.concatenate([np.zeros(c.shape[:-1] + (1,)), c[..., ::-1]], axis=-1)
-    return {pq: products[s] for s, pq in enumerate(joins)}
+    n_vars = got[joins[0][0]][5].shape[0]
+    step = max(1, _PAIR_BLOCK // (n_vars * nf))  # joins at a time: bounded temporary arrays
+    out = {}
+    for s in range(0, len(joins), step):
+        part = joins[s : s + step]
+        tails = np.stack([got[p][5] for p, _ in part])  # (J, n, K): last K samples of p
+        heads = np.stack([got[q][4] for _, q in part])  # (J, n, K): first K samples of q
+        c = np.fft.irfft(
+            np.fft.rfft(tails, n=nf, axis=-1) * np.conj(np.fft.rfft(heads, n=nf, axis=-1)),
+            n=nf,
+            axis=-1,
+        )[..., :max_lag]  # c[m] = Σ_i tail[i + m] head[i]
+        products = np.concatenate([np.zeros(c.shape[:-1] + (1,)), c[..., ::-1]], axis=-1)
+        out.update({pq: products[k] for k, pq in enumerate(part)})
+    return out
 
 
 # ---------------------------------------------------------------------------------------------
