@@ -75,3 +75,16 @@ def test_cli_workers_option(tmp_path, capsys):
     code = main([*args, "--workers", "2", "--quiet"])
     assert code in (0, 3)  # the true equations never fail; a short record may be inconclusive
     assert "verdict:" in capsys.readouterr().out
+
+
+def test_fit_takes_workers_only_with_select(tmp_path, capsys):
+    from ergodex.cli import main
+    from ergodex.writers import write_csv
+
+    data = scenarios.convection_loop(seed=23, n_runs=2, duration=10.0)
+    write_csv(tmp_path / "loop.csv", data)
+    out = tmp_path / "model.json"
+    code = main(["fit", str(tmp_path / "loop.csv"), "--workers", "2", "--out", str(out)])
+    assert code == 2
+    assert "--workers" in capsys.readouterr().err
+    assert not out.exists()  # refused before any work
