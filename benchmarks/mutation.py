@@ -31,7 +31,8 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
 
-#: module → (source file, test files that exercise it). Only fast tests run (``-m "not slow"``).
+#: module → (source file, or a glob of a package's files; test files that exercise it). Only fast
+#: tests run (``-m "not slow"``).
 MODULES: dict[str, tuple[str, list[str]]] = {
     "validation": (
         "src/ergodex/validation/*",
@@ -56,15 +57,15 @@ MODULES: dict[str, tuple[str, list[str]]] = {
         "src/ergodex/regimes.py",
         ["tests/test_regimes.py", "tests/test_regime_labels.py", "tests/test_verdict.py"],
     ),
-    "transforms": (
-        "src/ergodex/transforms.py",
-        ["tests/test_transforms.py", "tests/test_defaults.py"],
+    "model_space": (
+        "src/ergodex/model_space.py",
+        ["tests/test_model_space.py", "tests/test_defaults.py"],
     ),
     "linear_inverse": (
         "src/ergodex/fitting/linear_inverse.py",
         ["tests/test_fitting_linear_inverse.py", "tests/test_defaults.py"],
     ),
-    "registry": ("src/ergodex/registry.py", ["tests/test_registry.py", "tests/test_defaults.py"]),
+    "registry": ("src/ergodex/registry/*", ["tests/test_registry.py", "tests/test_defaults.py"]),
 }
 
 # mutmut's result names → our tally

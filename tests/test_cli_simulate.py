@@ -10,11 +10,11 @@ import pytest
 from scipy.integrate import solve_ivp
 
 from ergodex.cli import main
+from ergodex.model_space import Standardise
 from ergodex.readers import read_series
 from ergodex.scenarios import CONVECTION_LOOP_VARIABLES, lorenz63_rhs, lorenz63_surrogate
 from ergodex.series import Series
 from ergodex.surrogate import Surrogate, Term, polynomial_terms
-from ergodex.transforms import Standardise
 from ergodex.writers import write_csv
 
 NAMES = CONVECTION_LOOP_VARIABLES
@@ -267,7 +267,7 @@ def test_simulate_refuses_bad_input_with_exit_code_2(tmp_path, capsys, extra, ma
 
 def test_simulate_refuses_a_broken_model_file(tmp_path, capsys):
     model = tmp_path / "model.json"
-    model.write_text(lorenz63().to_json().replace("ergodex-model/1", "ergodex-model/7"))
+    model.write_text(lorenz63().to_json().replace("ergodex-model/2", "ergodex-model/7"))
     out = tmp_path / "sim.npz"
     assert (
         main(
