@@ -127,7 +127,7 @@ def add_check_options(
         type=float,
         default=None,
         metavar="T",
-        help="longest autocorrelation lag (default: 3 decorrelation times)",
+        help="longest autocorrelation lag (default: 3 decorrelation times or 2 dominant periods)",
     )
     group.add_argument(
         "--regimes",
@@ -176,7 +176,8 @@ def add_check_options(
         type=int,
         default=None,
         metavar="N",
-        help="Welch segment length in samples (default: min(256, piece/8))",
+        help="Welch segment length in samples (default: min(256, piece/8), raised to cover "
+        "4 dominant periods up to piece/8)",
     )
     group.add_argument(
         "--max-blowup-fraction",
