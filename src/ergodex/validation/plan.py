@@ -30,6 +30,7 @@ from ergodex.validation.spec import (
     _LAG_TIMES,
     _REGIME_STATISTICS,
     _SPINUP_TIMES,
+    PERSISTENCE_STATISTICS,
     CheckSpec,
 )
 from ergodex.validation.timescales import TimeScales, oscillation_time_scales
@@ -96,9 +97,10 @@ def derive_plan(spec: CheckSpec, reference, stacked: np.ndarray) -> tuple[CheckP
     regimes = spec.regimes
     if regimes is not None and regimes.needs_fit:
         regimes = regimes.fit(stacked, variables)
-    statistics = tuple(
-        s for s in spec.statistics if regimes is not None or s not in _REGIME_STATISTICS
-    )
+    wanted = tuple(spec.statistics)
+    if regimes is not None and spec.persistence:
+        wanted += tuple(s for s in PERSISTENCE_STATISTICS if s not in wanted)
+    statistics = tuple(s for s in wanted if regimes is not None or s not in _REGIME_STATISTICS)
 
     tau = np.atleast_1d(stats.integrated_autocorrelation_time(list(reference.runs), dt))
     scales = oscillation_time_scales(list(reference.runs), dt)

@@ -15,6 +15,8 @@ from ergodex.regimes import RegimeSet
 # DEFAULT_TOLERANCE, ALL_STATISTICS and DEFAULT_STATISTICS live in ergodex.check_names (imported
 # above) so that the command line's --help need not import numpy.
 _REGIME_STATISTICS = ("occupancy", "residence", "transitions")
+#: The rows ``CheckSpec.persistence`` adds whenever regimes are given.
+PERSISTENCE_STATISTICS = ("residence", "transitions")
 
 # Decorrelation-time multiples for the defaults: gap between reference blocks and spin-up (5: the
 # correlation left after 5 integrated times is below e^-5 ≈ 0.7 % for exponential decay) and the
@@ -68,7 +70,12 @@ class CheckSpec:
         Largest autocorrelation lag in time units; default 3 decorrelation times or 2 dominant
         periods, whichever is longer (at most a quarter piece).
     regimes : RegimeSet, optional
-        Regimes for the occupancy/residence/transition rows (skipped without).
+        Regimes for the occupancy/residence/transition rows (skipped without). ``kmeans``
+        entries are fitted on the reference only (scikit-learn KMeans, seeded).
+    persistence : bool, default True
+        With regimes, also score how long the system stays in each regime and where it goes
+        next (the ``residence`` and ``transitions`` rows), whatever ``statistics`` lists; False
+        scores only the rows ``statistics`` names.
     tolerance : float, default :data:`DEFAULT_TOLERANCE`
         Largest allowed ratio of model distance to noise floor, for every row.
     tolerances : dict, optional
@@ -108,6 +115,7 @@ class CheckSpec:
     nperseg: int | None = None
     max_blowup_fraction: float = 0.0
     pool: int | None = None
+    persistence: bool = True
 
     def check_settings(self) -> None:
         """Raise SettingsError naming the first setting that breaks its rule."""
@@ -175,6 +183,8 @@ class CheckSpec:
             )
         if self.pool is not None:
             positive_int("pool", self.pool, 1)
+        if not isinstance(self.persistence, (bool, np.bool_)):
+            raise SettingsError(f"persistence must be true or false; got {self.persistence!r}")
         if self.regimes is not None and not isinstance(self.regimes, RegimeSet):
             raise SettingsError(f"regimes must be a RegimeSet; got {type(self.regimes).__name__}")
 
@@ -198,6 +208,7 @@ class CheckSpec:
             "nperseg": self.nperseg,
             "max_blowup_fraction": float(self.max_blowup_fraction),
             "pool": None if self.pool is None else int(self.pool),
+            "persistence": bool(self.persistence),
         }
 
     @classmethod
