@@ -268,7 +268,9 @@ def _score(
         floors,
         plan.pieces,
         spec,
-        plan.decorrelation_time,
+        # the power statement's record-length rule counts integrated autocorrelation times (on
+        # which it was calibrated); an oscillation's length is stated in dominant periods below
+        max(*plan.integrated_times, plan.dt),
         plan.gap,
     )
     period = plan.time_scales.dominant_period
