@@ -109,7 +109,7 @@ def test_derived_check_settings_follow_the_documented_rules():
     # CheckSpec docstring and the module's constants: the decorrelation time is the longest
     # integrated time or envelope time of an oscillating variable
     # (validation/plan.py); spin-up and gap 5 decorrelation times,
-    # max_lag 3 decorrelation times or 2 dominant periods (in samples, at least 1 and at most a
+    # max_lag 3 integrated times or one dominant period (in samples, at least 1 and at most a
     # quarter piece), Welch segment min(256, piece length // 8) (at least 8), raised to cover 4
     # dominant periods and 2 decorrelation times up to piece length // 8, pool half the
     # reference pieces, member length pool reference pieces
@@ -124,7 +124,7 @@ def test_derived_check_settings_follow_the_documented_rules():
     assert s["gap"] == pytest.approx(5 * tau, rel=1e-12)
     L = s["piece_length_samples"]
     period = max([p for p in s["dominant_period"].values() if p is not None], default=0.0)
-    lag = max(3 * tau, 2 * period)
+    lag = max(3 * max(s["integrated_autocorrelation_time"].values()), period)
     assert s["max_lag_samples"] == min(max(1, round(lag / data.dt)), L // 4)
     segment = round(max(4 * period, 2 * tau) / data.dt)
     assert s["nperseg"] == max(8, min(256, L // 8), min(segment, L // 8))

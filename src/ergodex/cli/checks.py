@@ -129,7 +129,7 @@ def add_check_options(
         type=float,
         default=None,
         metavar="T",
-        help="longest autocorrelation lag (default: 3 decorrelation times or 2 dominant periods)",
+        help="longest autocorrelation lag (default: 3 decorrelation times or one dominant period)",
     )
     group.add_argument(
         "--regimes",

@@ -67,8 +67,8 @@ class CheckSpec:
     bins : int or "fd", default 35
         Histogram bins (figures and evidence); see :func:`ergodex.stats.histogram_edges`.
     max_lag : float, optional
-        Largest autocorrelation lag in time units; default 3 decorrelation times or 2 dominant
-        periods, whichever is longer (at most a quarter piece).
+        Largest autocorrelation lag in time units; default 3 integrated autocorrelation times
+        or one dominant period, whichever is longer (at most a quarter piece).
     regimes : RegimeSet, optional
         Regimes for the occupancy/residence/transition rows (skipped without). ``kmeans``
         entries are fitted on the reference only (scikit-learn KMeans, seeded).
