@@ -27,7 +27,7 @@ from ergodex.validation.plan import CheckPlan, derive_plan
 from ergodex.validation.result import CheckResult
 from ergodex.validation.scorecard import Scorecard, ScoreRow, _fmt
 from ergodex.validation.spaces import ComparedSpace, compared_space
-from ergodex.validation.spec import CheckSpec
+from ergodex.validation.spec import CheckSpec, distance_units
 from ergodex.validation.verdict import (
     _blowup_accounting,
     _decide,
@@ -292,9 +292,14 @@ def _score(
         floors,
         plan.pieces,
         spec,
-        plan.decorrelation_time,
+        # the power statement's record-length rule counts integrated autocorrelation times (on
+        # which it was calibrated); an oscillation's length is stated in dominant periods below
+        max(*plan.integrated_times, plan.dt),
         plan.gap,
     )
+    period = plan.time_scales.dominant_period
+    power["dominant_period"] = period
+    power["record_dominant_periods"] = None if period is None else power["record_time"] / period
     rows: list[ScoreRow] = []
     if alive.any():
         mod_stats, settings["n_model_groups"] = _model_groups(model, alive, plan)
@@ -461,6 +466,10 @@ def _settings(
         "nperseg": plan.pieces.nperseg,
         "decorrelation_time": plan.decorrelation_time,
         "integrated_autocorrelation_time": dict(zip(plan.variables, plan.integrated_times)),
+        "envelope_time": dict(zip(plan.variables, plan.time_scales.envelope_times)),
+        "dominant_period": dict(zip(plan.variables, plan.time_scales.periods)),
+        # Welch frequency spacing, cycles per time unit
+        "spectral_resolution": 1.0 / (plan.pieces.nperseg * dt),
         "member_length": plan.n_out * dt,
         "pieces_per_member": plan.pieces_per_member,
         "statistics": list(plan.statistics),
@@ -478,6 +487,8 @@ def _settings(
         if space.in_model_space
         else "data space",
         "hidden_variables": [v for v in surrogate.variables if v not in space.observed],
+        "distance_units": distance_units(plan.statistics, time_unit),
+        **({"gap_note": plan.gap_note} if plan.gap_note else {}),
     }
 
 
