@@ -809,8 +809,19 @@ def watch(
     Raises
     ------
     SettingsError
-        The folder does not exist, an interval is out of range, or the config cannot be read.
+        The folder does not exist, an interval is out of range, the config cannot be read, or
+        ``name`` holds a version (``NAME/VERSION``).
+    RegistryError
+        ``name`` is not a model name (the former ``NAME@VERSION`` form gets the form to write).
     """
+    from ergodex.registry import split_ref
+
+    bare, version, current = split_ref(name)  # refuses NAME@VERSION, saying how to write it
+    if version is not None or current:
+        raise SettingsError(
+            f"watch retrains a name's accepted version (the incumbent); give {bare} without "
+            "/VERSION"
+        )
     inbox = Path(folder)
     if not inbox.is_dir():
         raise SettingsError(
