@@ -66,7 +66,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from ergodex.exceptions import DataError, ErgodexError, SettingsError
+from ergodex.exceptions import DataError, ErgodexError, SettingsError, one_line
 from ergodex.watch_ledger import (  # noqa: F401 - part of this module's interface
     MAX_ATTEMPTS,
     REASONS,
@@ -209,11 +209,12 @@ def settings_fingerprint(name: str, registry: Any, retrain_kwargs: dict[str, Any
 
 
 def _one_line(exc: BaseException) -> str:
-    text = " ".join(str(exc).split())
+    """:func:`~ergodex.exceptions.one_line`, marked as an internal error when ``exc`` is not one
+    ergodex raises on purpose: the ledger and the error notes of rejected files keep the mark, so
+    a bug is recognisable as one there."""
     if isinstance(exc, ErgodexError):
-        return text or type(exc).__name__
-    # Not an error we raise on purpose: say which kind, so a bug is recognisable as one.
-    return f"internal error ({type(exc).__name__}): {text}"
+        return one_line(exc)
+    return f"internal error ({type(exc).__name__}): {one_line(str(exc))}"
 
 
 def _reason_of(exc: BaseException, *, reading: bool) -> str:
