@@ -11,7 +11,8 @@ from typing import Any
 
 from ergodex.exceptions import DataError, ErgodexError, one_line
 
-#: Each rejection reason (:data:`~ergodex.watch_ledger.REASONS`) in a few words, for the line printed per file.
+#: Each rejection reason (:data:`~ergodex.watch_ledger.REASONS`) in a few words, for the line
+#: printed per file.
 _SHORT_REASON = {
     "data": "bad data",
     "settings": "settings",
