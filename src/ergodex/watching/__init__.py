@@ -51,7 +51,8 @@ failure: its decision record says so, and the registry holds the drift event.
 """
 
 # The package's parts, each with one job: inbox (the folder on disk), items (what happened to a
-# file), watcher (claim, retrain, move, recover) and loop (watch). Every name below was importable
+# file), watcher (settle, claim, retrain, move), recovery (what a stopped watcher left) and loop
+# (watch). Every name below was importable
 # from ergodex.watching when it was one module, and stays so.
 from ergodex.watch_ledger import (  # noqa: F401 - part of this package's interface
     MAX_ATTEMPTS,

@@ -14,7 +14,7 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
-from ergodex.watch_ledger import Ledger, owner_is_alive_elsewhere, should_retry
+from ergodex.watch_ledger import Ledger
 from ergodex.watching.inbox import (
     _TAKE_PREFIX,
     CLAIMED_FOLDER,
@@ -27,12 +27,12 @@ from ergodex.watching.inbox import (
     _remove_empty,
     _scan,
     _signature,
-    _take_owner,
     _unique_target,
     _write_note,
     file_sha256,
 )
 from ergodex.watching.items import _SHORT_REASON, InboxItem, _one_line, _reason_of
+from ergodex.watching.recovery import recover as recover_work_area
 
 log = logging.getLogger("ergodex.watching")  # one logger for the whole watcher (documented)
 
@@ -383,84 +383,6 @@ class _Watcher:
 
     # --- at start ------------------------------------------------------------------------------
     def recover(self) -> list[tuple[str, Path]]:
-        """Tidy up after a watcher that died, and collect files to (re)run before the scan.
-
-        Files caught half-way through a claim go back into the inbox; claimed files whose
-        retrain was interrupted are queued (their attempt is counted when they run); files whose
-        row is final but which were not moved yet are filed; rejected files that are to be
-        retried (see :func:`should_retry`) are taken back from ``rejected/``.
-        """
-        queue: list[tuple[str, Path]] = []
-        root = self.claimed_root
-        for folder in sorted(root.iterdir()) if root.is_dir() else []:
-            if not folder.is_dir():
-                continue
-            if folder.name.startswith(_TAKE_PREFIX):
-                if owner_is_alive_elsewhere(_take_owner(folder.name)):
-                    continue  # another watcher is claiming this file right now
-                for path in sorted(folder.iterdir()):
-                    log.info(
-                        "%s was being claimed when a watcher stopped; back to the inbox", path.name
-                    )
-                    self._put_back(path, path.name)
-                _remove_empty(folder)
-                continue
-            for path in sorted(p for p in folder.iterdir() if p.is_file()):
-                row = self.ledger.get(path.name, folder.name)
-                state = None if row is None else row["state"]
-                if state in ("done", "rejected"):
-                    home = self.done_dir if state == "done" else self.rejected_dir
-                    target = _move_no_clobber(path, home, path.name)
-                    log.info(
-                        "%s was left in the work area after it was %s; moved to %s",
-                        path.name,
-                        state,
-                        target,
-                    )
-                elif row is None or not owner_is_alive_elsewhere(row["owner"]):
-                    log.info(
-                        "%s was claimed by a watcher that stopped; running it again", path.name
-                    )
-                    queue.append((path.name, path))
-            _remove_empty(folder)
-        queued = {str(path) for _, path in queue}
-        for entry in self.ledger.rows():
-            claimed = entry["claimed_path"]
-            if (
-                entry["state"] == "processing"
-                and claimed
-                and claimed not in queued
-                and not owner_is_alive_elsewhere(entry["owner"])
-                and not Path(claimed).exists()
-            ):
-                self._vanished(entry["file_name"], Path(claimed), entry["sha256"])
-            elif (
-                entry["state"] == "rejected"
-                and entry["moved_to"]
-                and should_retry(entry, self.fingerprint, self.retry_rejected)
-            ):
-                taken = self._take_back(entry)
-                if taken is not None:
-                    queue.append((entry["file_name"], taken))
-        return queue
-
-    def _take_back(self, row: Any) -> Path | None:
-        """Move a rejected file from ``rejected/`` into a take folder to be tried again."""
-        source = Path(row["moved_to"])
-        if not source.is_file():
-            return None
-        take_dir = self._new_take_dir()
-        held = take_dir / row["file_name"]
-        try:
-            os.rename(source, held)
-        except FileNotFoundError:
-            _remove_empty(take_dir)
-            return None
-        source.with_name(source.name + ".error.txt").unlink(missing_ok=True)
-        log.info(
-            "taking %s back from %s to retry it (%s)",
-            row["file_name"],
-            source,
-            "--retry-rejected" if self.retry_rejected else "the settings changed",
-        )
-        return held
+        """Tidy up after a watcher that died; the files to (re)run before the scan (see
+        :func:`ergodex.watching.recovery.recover`)."""
+        return recover_work_area(self)
