@@ -53,7 +53,13 @@ def check(
     workers: int | None = None,
     scheduler: Any = None,
 ) -> CheckResult:
-    """Validate a surrogate against reference data: scorecard plus evidence.
+    """Check a surrogate against reference data; returns a :class:`CheckResult`, the scorecard
+    *and* the evidence behind it.
+
+    Use ``check`` when you want figures or files: ``result.plot_histograms()`` and the other
+    plots, an evidence NPZ or a report. This is what the command ``ergodex validate`` runs. For
+    the verdict alone use :func:`validate` (or ``check(..., evidence=False)``), which skips the
+    arrays and gives the same scorecard.
 
     Parameters
     ----------
@@ -91,6 +97,7 @@ def check(
     Returns
     -------
     CheckResult
+        ``.scorecard`` (verdict, table, reasons) and ``.evidence`` (None with ``evidence=False``).
 
     Raises
     ------
@@ -538,7 +545,13 @@ def validate(
     workers: int | None = None,
     scheduler: Any = None,
 ) -> Scorecard:
-    """Like :func:`check`, returning only the scorecard (no evidence is built for it)."""
+    """Check a surrogate against reference data; returns only the :class:`Scorecard`.
+
+    The same check and the same scorecard as :func:`check` (``check(...).scorecard``), without
+    building the evidence arrays, so it is cheaper: use it where the verdict and the table are all
+    you need (a script's pass/fail, a sweep). Use :func:`check` for figures, an evidence file or
+    a report. Note that the command ``ergodex validate`` runs :func:`check`, not this function.
+    """
     return check(
         surrogate,
         reference,
