@@ -326,3 +326,52 @@ def test_no_runs_give_empty_residence_times_quietly():
         warnings.simplefilter("error")
         means = mean_residence_times([np.array([0, 0, 1])], 1.0, 1)
     assert np.isnan(means).all()
+
+
+# -- the set -------------------------------------------------------------------------------------
+
+
+def test_first_listed_regime_wins_over_every_later_one():
+    # module docstring: "When regions overlap, the first regime listed wins"
+    rs = RegimeSet(
+        [
+            Threshold("a", (("x", "above", 0.0),)),
+            Threshold("b", (("y", "above", 0.0),)),
+            Threshold("c", (("x", "above", -1.0),)),
+        ]
+    )
+    states = np.array([[1.0, -1.0], [1.0, 1.0], [-0.5, 1.0], [-0.5, -1.0], [-2.0, -1.0]])
+    np.testing.assert_array_equal(rs.classify(states, XY), [0, 0, 1, 2, -1])
+
+
+def test_clusters_label_non_finite_states_none_and_the_rest_by_nearest_centre():
+    rs = RegimeSet([Cluster("a", {"x": 0.0, "y": 0.0}), Cluster("b", {"x": 4.0, "y": 0.0})])
+    states = np.array([[np.nan, 0.0], [3.0, 0.0], [1.0, np.inf], [1.0, 0.0]])
+    np.testing.assert_array_equal(rs.classify(states, XY), [-1, 1, -1, 0])
+
+
+def test_classify_checks_the_shape_of_the_states():
+    rs = RegimeSet([Ball("b", {"x": 0.0}, 1.0)])
+    with pytest.raises(DataError, match=r"^states must be \(n_samples, 2\); got \(4, 3\)$"):
+        rs.classify(np.zeros((4, 3)), XY)
+    with pytest.raises(DataError, match=r"^states must be \(n_samples, 2\); got \(4,\)$"):
+        rs.classify(np.zeros(4), XY)
+
+
+def test_a_regime_set_needs_regimes_with_distinct_names():
+    with pytest.raises(SettingsError, match="^a regime set needs at least one regime$"):
+        RegimeSet([])
+    with pytest.raises(SettingsError, match=r"^regime names must be unique; repeated: \['a'\]$"):
+        RegimeSet([Ball("a", {"x": 0.0}, 1.0), Ball("a", {"y": 0.0}, 1.0)])
+    with pytest.raises(SettingsError, match=re.escape(f"{S}: {NAME} '  '")):
+        _one(BALL | {"name": "  "})
+
+
+def test_fit_keeps_the_regimes_that_need_no_fitting_in_place():
+    rng = np.random.default_rng(8)
+    x = np.concatenate([rng.normal(-4, 0.3, (40, 2)), rng.normal(4, 0.3, (40, 2))])
+    rs = RegimeSet([Ball("b", {"x": 0.0}, 0.5), KMeansRule("k", 2), Ball("e", {"y": 9.0}, 1.0)])
+    fitted = rs.fit(x, XY)
+    assert fitted.names == ("b", "k0", "k1", "e")
+    assert fitted.regimes[0] == rs.regimes[0] and fitted.regimes[3] == rs.regimes[2]
+    assert not fitted.needs_fit and rs.needs_fit
