@@ -116,9 +116,9 @@ class SparseODE(Fitter):
     max_iter : int or None, default None
         Optimizer iterations; None keeps pysindy's default.
     differentiation : {"finite-difference", "smoothed-finite-difference", "weak"}, default
-        "smoothed-finite-difference"
-        Smoothing first costs nothing on clean data and keeps sensor noise from being amplified
-        by the differences; "weak" avoids differentiating the data at all.
+        "weak"
+        "weak" avoids differentiating the data at all; smoothing first costs nothing on clean
+        data and keeps sensor noise from being amplified by the differences.
     fd_order : int, default 4
         Order of the finite differences. At dt = 0.01 on Lorenz-63, order 2 biases ρ by 0.7 %.
     smoother_window, smoother_polyorder : int, default 9 and 4
