@@ -375,3 +375,23 @@ def test_fit_keeps_the_regimes_that_need_no_fitting_in_place():
     assert fitted.names == ("b", "k0", "k1", "e")
     assert fitted.regimes[0] == rs.regimes[0] and fitted.regimes[3] == rs.regimes[2]
     assert not fitted.needs_fit and rs.needs_fit
+
+
+def test_regime_defaults_as_documented():
+    # residence_times docstring: censored visits are "left out unless include_censored";
+    # Cluster: no scale (unscaled) and no radius unless given; KMeansRule: seed 0, all variables
+    import inspect
+
+    def defaults(fn):
+        return {
+            k: p.default
+            for k, p in inspect.signature(fn).parameters.items()
+            if p.default is not inspect.Parameter.empty
+        }
+
+    assert defaults(residence_times) == {"include_censored": False}
+    c = Cluster("c", {"x": 0.0})
+    assert c.scale == {} and c.radius is None
+    k = KMeansRule("k", 2)
+    assert k.seed == 0 and k.variables is None
+    assert defaults(RegimeSet.from_dict) == {"source": "regimes"}

@@ -137,3 +137,12 @@ def test_model_names_at_the_limits_are_allowed():
     # or digit
     for name in ("a", "7", "a" * 64, "A.b_c-9", "console", "loop.v2"):
         assert validate_name(name) == name
+
+
+def test_accept_defaults_to_no_override():
+    # Registry.accept docstring: refused unless the scorecard passes; override=True with a
+    # non-empty reason is the exception, so neither is assumed
+    import inspect
+
+    params = inspect.signature(Registry.accept).parameters
+    assert params["override"].default is False and params["reason"].default == ""
