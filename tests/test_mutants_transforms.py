@@ -354,3 +354,12 @@ def test_settings_show_in_repr():
         repr(Chain([PCA(variance_fraction=0.9)]))
         == "Chain([PCA(n_modes=None, variance_fraction=0.9)])"
     )
+
+
+def test_pca_has_no_default_size():
+    # PCA docstring: "Give exactly one of n_modes and variance_fraction" — neither is assumed
+    assert PCA().n_modes is None and PCA().variance_fraction is None
+    with pytest.raises(
+        SettingsError, match=_exact("give exactly one of n_modes and variance_fraction")
+    ):
+        PCA().fit(np.eye(3))
