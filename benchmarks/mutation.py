@@ -179,7 +179,8 @@ def _sample(project: Path, env: dict, log, size: int, seed: int) -> tuple[list[s
     """A seeded random sample of ``size`` mutants: (those some test reaches, those none does).
 
     A first ``mutmut run`` on a pattern that matches nothing generates the mutants and maps
-    tests to functions (mutmut's stats) without testing any mutant.
+    tests to functions (mutmut's stats) without testing any mutant (mutmut then stops on an
+    assertion, "nothing matches", which the log shows; the stats are saved before it).
     """
     import random
 
