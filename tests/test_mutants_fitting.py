@@ -485,3 +485,21 @@ def test_selection_candidates_from_a_settings_document():
             parse_selection({"select": table}, method="sparse", settings={}, source="f")
     with pytest.raises(SettingsError, match=r"^f: \[select\] has no key 'colour'; allowed keys: "):
         parse_selection({"select": {"colour": 1}}, method="sparse", settings={}, source="f")
+
+
+def test_library_rank_counts_relative_singular_values_below_1e_10_as_dependent():
+    # check_library_rank docstring: columns scaled to unit norm; "a relative singular value
+    # below 1e-10 counts as a dependency". Columns u and u + θ v (u ⟂ v unit vectors) have
+    # singular values ≈ √2 and θ/√2 (analytic, small θ): θ = 1.4e-10 gives a relative one of
+    # 0.7e-10 (dependent, rank 1), θ = 3e-10 one of 1.5e-10 (independent)
+    u = np.zeros(10)
+    v = np.zeros(10)
+    u[0], v[1] = 1.0, 1.0
+    with pytest.raises(
+        DataError, match=r"rank-deficient \(rank 1 of 2 terms\); the terms 'p', 'q'"
+    ):
+        check_library_rank(np.column_stack([u, u + 1.4e-10 * v]), ["p", "q"])
+    check_library_rank(np.column_stack([u, u + 3e-10 * v]), ["p", "q"])
+    # two terms zero everywhere are both named
+    with pytest.raises(DataError, match=r"library term\(s\) p, q are zero on every sample"):
+        check_library_rank(np.column_stack([np.zeros(10), np.zeros(10), u]), ["p", "q", "r"])
