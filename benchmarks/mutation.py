@@ -223,6 +223,8 @@ def run(
     if sample:
         statuses = {n: statuses[n] for n in only}
         statuses.update({n: "no tests" for n in unreached_sampled})
+    elif only:  # a run restricted by --only: the mutants it left alone are not part of it
+        statuses = {n: s for n, s in statuses.items() if s != "not checked"}
     counts, alive = _tally(statuses)
     killed = sum(v for k, v in counts.items() if k in _KILLED)
     survived = sum(v for k, v in counts.items() if k in _SURVIVED)
