@@ -363,3 +363,56 @@ def test_pca_has_no_default_size():
         SettingsError, match=_exact("give exactly one of n_modes and variance_fraction")
     ):
         PCA().fit(np.eye(3))
+
+
+def test_dictionary_round_trips_keep_every_setting():
+    rng = np.random.default_rng(12)
+    X = rng.normal(size=(40, 2))
+    t = Standardise(with_mean=False, with_scale=False).fit(X, names=["a", "b"])
+    back = transform_from_dict(json.loads(json.dumps(t.to_dict())))
+    assert (back.with_mean, back.with_scale) == (False, False)
+    p = PCA(variance_fraction=0.75).fit(X, names=["a", "b"])
+    back_p = transform_from_dict(json.loads(json.dumps(p.to_dict())))
+    assert back_p.variance_fraction == 0.75 and back_p.n_modes is None
+    good = {"kind": "standardise", "input_names": ["a"], "mean": [1.0], "scale": [0.5]}
+    assert transform_from_dict(good).scale_.tolist() == [0.5]  # any positive scale
+    for change, message in [
+        ({"scale": [1.0, 2.0]}, "transform field 'scale' has shape (2,), expected (1,)"),
+        ({"scale": "x"}, "transform field 'scale' must be numbers"),
+    ]:
+        with pytest.raises(ModelFileError, match=_exact(message)):
+            transform_from_dict(good | change)
+    bad = p.to_dict() | {"components": [["a", "b"]]}
+    with pytest.raises(
+        ModelFileError, match=_exact("transform field 'components' must be numbers")
+    ):
+        transform_from_dict(bad)
+
+
+def test_chains_of_three_steps_and_of_steps_of_different_widths():
+    rng = np.random.default_rng(13)
+    X = rng.normal(size=(60, 2))
+    chain = Chain([Standardise(), DelayEmbedding(2), PCA(2)]).fit(X, names=["a", "b"])
+    assert chain.output_names == ("mode_1", "mode_2")  # the last step's names
+    assert repr(Chain([Standardise(), PCA(2)])) == (
+        "Chain([Standardise(with_mean=True, with_scale=True), "
+        "PCA(n_modes=2, variance_fraction=None)])"
+    )
+    # 2 inputs → 4 delay coordinates → 1 mode: the chain's inputs are the first step's
+    narrow = Chain([DelayEmbedding(2), PCA(1)]).fit(X, names=["a", "b"])
+    back = transform_from_dict(json.loads(json.dumps(narrow.to_dict())))
+    np.testing.assert_array_equal(back.forward(X), narrow.forward(X))
+
+
+def test_integer_data_are_handled_as_floats():
+    # the Transform base class hands every kind 2-D float arrays (module docstring, point 3)
+    X = np.arange(12).reshape(6, 2)
+    Z = DelayEmbedding(2).fit(X).forward(X)
+    assert Z.dtype == np.float64
+
+
+def test_a_series_without_a_source_is_called_series_in_messages():
+    t = Standardise().fit(np.random.default_rng(14).normal(size=(10, 1)), names=["u"])
+    s = Series.from_arrays([np.random.default_rng(15).normal(size=(10, 1))], ["w"], 0.1)
+    with pytest.raises(DataError, match=r"^series: variables \['w'\] differ"):
+        transform_series(t, s)
