@@ -503,3 +503,54 @@ def test_library_rank_counts_relative_singular_values_below_1e_10_as_dependent()
     # two terms zero everywhere are both named
     with pytest.raises(DataError, match=r"library term\(s\) p, q are zero on every sample"):
         check_library_rank(np.column_stack([np.zeros(10), np.zeros(10), u]), ["p", "q", "r"])
+
+
+def _ou_series(source: str = "", time_unit: str | None = None) -> Series:
+    rng = np.random.default_rng(21)
+    x = np.zeros((400, 2))
+    for k in range(1, 400):  # AR(1) with coefficient 0.9: a decaying, noisy pair of variables
+        x[k] = 0.9 * x[k - 1] + rng.normal(size=2)
+    return Series.from_arrays([x], ["a", "b"], 0.1, source=source, time_unit=time_unit)
+
+
+def test_a_fit_records_its_data_and_reports_progress(caplog):
+    # data_provenance docstring: fingerprint, size, interval and the data's time unit
+    series = _ou_series(time_unit="s")
+    calls = []
+    with caplog.at_level("INFO", logger="ergodex"):
+        fitter = make_fitter("linear-inverse").fit(
+            series, progress=lambda d, t: calls.append((d, t))
+        )
+    prov = fitter.surrogate_.provenance
+    assert prov["data_fingerprint"] == series.fingerprint()
+    assert prov["fitted_on_runs"] == 1 and prov["fitted_on_samples"] == 400
+    assert prov["dt"] == 0.1 and prov["time_unit"] == "s"
+    assert calls and calls[-1][0] == calls[-1][1] >= 1  # the last call says "done"
+    assert "fit linear-inverse: 1 runs, 400 samples of 2 variables (a, b), dt=0.1" in caplog.text
+
+
+def test_settings_changed_after_construction_are_checked_at_fit():
+    fitter = make_fitter("linear-inverse")
+    fitter.tau0 = -1.0  # scikit-learn style: plain attributes, checked when fit runs
+    with pytest.raises(SettingsError, match=r"^linear-inverse setting 'tau0' must be a number > 0"):
+        fitter.fit(_ou_series())
+
+
+def test_fit_messages_name_the_data_file():
+    series = _ou_series(source="loop.csv")
+    nearly = series.runs[0].copy()
+    nearly[:, 1] = 3.0
+    nearly[7, 1] += 1e-13
+    flat = Series.from_arrays([nearly], ["a", "b"], 0.1, source="loop.csv")
+    with pytest.raises(DataError, match=r"^loop\.csv: variable 'b' is constant \(3\)"):
+        make_fitter("linear-inverse").fit(flat)
+
+
+def test_a_folder_given_as_fit_settings_says_what_was_expected(tmp_path):
+    from ergodex.fitting import load_fit_settings
+
+    (tmp_path / "fit.toml").mkdir()
+    with pytest.raises(
+        SettingsError, match=r"fit\.toml: is a folder, expected a fit settings file \(TOML\)$"
+    ):
+        load_fit_settings(tmp_path / "fit.toml")
