@@ -146,3 +146,21 @@ def test_accept_defaults_to_no_override():
 
     params = inspect.signature(Registry.accept).parameters
     assert params["override"].default is False and params["reason"].default == ""
+
+
+def test_datasets_given_with_their_source_keep_both(tmp_path):
+    # Registry.register docstring: datasets as role → {"fingerprint", "source"}; the scorecard's
+    # data fingerprint is added as role "check" when not given
+    reg = Registry(tmp_path / "home")
+    truth = lorenz63_surrogate()
+    fp = "sha256:" + "ef" * 32
+    info = reg.register(
+        "loop",
+        truth,
+        scorecard=_card(truth),
+        datasets={"fit": {"fingerprint": fp, "source": "a.csv"}},
+    )
+    by_role = {d["role"]: d for d in info.datasets}
+    assert by_role["fit"]["fingerprint"] == fp and by_role["fit"]["source"] == "a.csv"
+    assert by_role["check"]["fingerprint"] == "sha256:" + "cd" * 32
+    assert reg.versions("loop")[0].datasets == info.datasets
