@@ -554,3 +554,23 @@ def test_a_folder_given_as_fit_settings_says_what_was_expected(tmp_path):
         SettingsError, match=r"fit\.toml: is a folder, expected a fit settings file \(TOML\)$"
     ):
         load_fit_settings(tmp_path / "fit.toml")
+
+
+def test_linear_inverse_score_and_tau_test_record_as_documented():
+    # LinearInverseModel docstring: score_ is the mean R² of the lag-τ₀ forecast G x(t) of
+    # x(t + τ₀) over the variables (reference: scikit-learn's r2_score per column); tau_test_
+    # holds lags, relative_change, eigenvalues, tolerance and flat
+    from sklearn.metrics import r2_score as sk_r2
+
+    series = _ou_series()
+    fitter = make_fitter("linear-inverse").fit(series)
+    x = series.runs[0]
+    lag = int(round(fitter.tau0_ / 0.1))
+    anomaly = x - fitter.mean_
+    forecast = anomaly[:-lag] @ fitter.G_.T
+    expected = np.mean(sk_r2(anomaly[lag:], forecast, multioutput="raw_values"))
+    # (scikit-learn centres each column on its own mean, the model on the pooled mean: ≈ 1 %)
+    assert fitter.score_ == pytest.approx(expected, rel=1e-2)
+    assert {"lags", "relative_change", "eigenvalues", "tolerance", "flat"} <= set(fitter.tau_test_)
+    assert fitter.tau_test_["tolerance"] == 0.15
+    assert len(fitter.tau_test_["eigenvalues"]) == len(fitter.tau_test_["lags"])
