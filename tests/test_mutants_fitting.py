@@ -577,3 +577,17 @@ def test_linear_inverse_score_and_tau_test_record_as_documented():
     assert {"lags", "relative_change", "eigenvalues", "tolerance", "flat"} <= set(fitter.tau_test_)
     assert fitter.tau_test_["tolerance"] == 0.15
     assert len(fitter.tau_test_["eigenvalues"]) == len(fitter.tau_test_["lags"])
+
+
+def test_sparse_settings_that_contradict_each_other_are_refused():
+    # SparseODE docstring: trapping fits a quadratic model (degree 2, polynomial library);
+    # the Savitzky–Golay window is odd and longer than the polynomial order (scipy's rule)
+    for settings in ({"trapping": True, "degree": 3}, {"trapping": True, "library": "fourier"}):
+        with pytest.raises(SettingsError, match=r"^sparse setting 'trapping' needs library"):
+            make_fitter("sparse", settings)
+    with pytest.raises(
+        SettingsError, match=r"^sparse setting 'smoother_window' must be odd; got 8$"
+    ):
+        make_fitter("sparse", {"smoother_window": 8})
+    with pytest.raises(SettingsError, match=r"^sparse setting 'smoother_polyorder' \(5\) must be"):
+        make_fitter("sparse", {"smoother_window": 5, "smoother_polyorder": 5})
