@@ -11,7 +11,7 @@ caught by a test's time limit).
 Slow (tens of minutes per module on 2 cores), so not part of CI. Typical use, from the project
 root::
 
-    python benchmarks/mutation.py validation stats --workers 2 --json mutation.json
+    python benchmarks/mutation.py validation stats --workers 1 --json mutation.json
     python benchmarks/mutation.py validation --only 'ergodex.validation.x__decide*'
     python benchmarks/mutation.py sparse --workers 1 --sample 150 --seed 0
     python benchmarks/mutation.py regimes --workers 1 --tests tests/test_regimes.py
