@@ -11,8 +11,10 @@ caught by a test's time limit).
 Slow (tens of minutes per module on 2 cores), so not part of CI. Typical use, from the project
 root::
 
-    python benchmarks/mutation.py validation stats --workers 2 --json mutation.json
+    python benchmarks/mutation.py validation stats --workers 1 --json mutation.json
     python benchmarks/mutation.py validation --only 'ergodex.validation.verdict.x__decide*'
+    python benchmarks/mutation.py sparse --workers 1 --sample 150 --seed 0
+    python benchmarks/mutation.py regimes --workers 1 --tests tests/test_regimes.py
 
 Results and the surviving mutants are recorded in ``benchmarks/README.md``.
 """
@@ -55,17 +57,59 @@ MODULES: dict[str, tuple[str, list[str]]] = {
     ),
     "regimes": (
         "src/ergodex/regimes.py",
-        ["tests/test_regimes.py", "tests/test_regime_labels.py", "tests/test_verdict.py"],
+        [
+            "tests/test_regimes.py",
+            "tests/test_regime_labels.py",
+            "tests/test_verdict.py",
+            "tests/test_mutants_regimes.py",
+        ],
     ),
     "model_space": (
         "src/ergodex/model_space.py",
-        ["tests/test_model_space.py", "tests/test_defaults.py"],
+        ["tests/test_model_space.py", "tests/test_defaults.py", "tests/test_mutants_model_space.py"],
     ),
     "linear_inverse": (
         "src/ergodex/fitting/linear_inverse.py",
-        ["tests/test_fitting_linear_inverse.py", "tests/test_defaults.py"],
+        [
+            "tests/test_fitting_linear_inverse.py",
+            "tests/test_defaults.py",
+            "tests/test_mutants_fitting.py",
+        ],
     ),
-    "registry": ("src/ergodex/registry/*", ["tests/test_registry.py", "tests/test_defaults.py"]),
+    "fitting_base": (
+        "src/ergodex/fitting/base.py",
+        ["tests/test_fitting_base.py", "tests/test_defaults.py", "tests/test_mutants_fitting.py"],
+    ),
+    "fitting_settings": (
+        "src/ergodex/fitting/settings.py",
+        ["tests/test_fitting_base.py", "tests/test_mutants_fitting.py"],
+    ),
+    "tendencies": (
+        "src/ergodex/fitting/tendencies.py",
+        [
+            "tests/test_fitting_sparse.py",
+            "tests/test_fitting_linear_inverse.py",
+            "tests/test_mutants_fitting.py",
+        ],
+    ),
+    "sparse": (
+        "src/ergodex/fitting/sparse.py",
+        ["tests/test_fitting_sparse.py", "tests/test_defaults.py", "tests/test_mutants_fitting.py"],
+    ),
+    "selection": (
+        "src/ergodex/fitting/selection.py",
+        ["tests/test_fitting_selection.py", "tests/test_mutants_fitting.py"],
+    ),
+    "registry": (
+        "src/ergodex/registry/*",
+        [
+            "tests/test_registry.py",
+            "tests/test_registry_log.py",
+            "tests/test_registry_recovery.py",
+            "tests/test_defaults.py",
+            "tests/test_mutants_registry.py",
+        ],
+    ),
 }
 
 # mutmut's result names → our tally
@@ -74,9 +118,9 @@ _SURVIVED = {"survived", "suspicious"}
 _UNREACHED = {"no tests"}
 
 
-def _project_copy(module: str, workdir: Path) -> Path:
+def _project_copy(module: str, workdir: Path, tests: list[str]) -> Path:
     """A copy of sources, tests and pyproject.toml with a mutmut section for one module."""
-    source, tests = MODULES[module]
+    source = MODULES[module][0]
     dest = workdir / module
     if dest.exists():
         shutil.rmtree(dest)
@@ -99,30 +143,68 @@ def _project_copy(module: str, workdir: Path) -> Path:
     return dest
 
 
-def _tally(project: Path, env: dict) -> tuple[dict[str, int], list[str]]:
-    """Counts by status and the names of the mutants that were not killed."""
-    out = subprocess.run(
-        [sys.executable, "-m", "mutmut", "results", "--all", "true"],
+def _mutmut(project: Path, env: dict, *args: str, log=None) -> subprocess.CompletedProcess:
+    return subprocess.run(
+        [sys.executable, "-m", "mutmut", *args],
         cwd=project,
         env=env,
-        capture_output=True,
+        stdout=log if log is not None else subprocess.PIPE,
+        stderr=subprocess.STDOUT if log is not None else None,
         text=True,
-        check=True,
-    ).stdout
-    counts: dict[str, int] = {}
-    alive = []
+    )
+
+
+def _statuses(project: Path, env: dict) -> dict[str, str]:
+    """Every mutant's name → mutmut's status for it (``not checked`` before a run)."""
+    out = _mutmut(project, env, "results", "--all", "true").stdout
+    statuses = {}
     for line in out.splitlines():
         name, sep, status = line.strip().rpartition(": ")
-        if not sep:
-            continue
+        if sep and "__mutmut_" in name:
+            statuses[name] = status
+    return statuses
+
+
+def _tally(statuses: dict[str, str]) -> tuple[dict[str, int], list[str]]:
+    """Counts by status and the names of the mutants that were not killed."""
+    counts: dict[str, int] = {}
+    alive = []
+    for name, status in statuses.items():
         counts[status] = counts.get(status, 0) + 1
         if status not in _KILLED:
             alive.append(f"{name} ({status})")
     return counts, alive
 
 
-def run(module: str, workdir: Path, workers: int, only: list[str]) -> dict:
-    project = _project_copy(module, workdir)
+def _sample(project: Path, env: dict, log, size: int, seed: int) -> tuple[list[str], list[str]]:
+    """A seeded random sample of ``size`` mutants: (those some test reaches, those none does).
+
+    A first ``mutmut run`` on a pattern that matches nothing generates the mutants and maps
+    tests to functions (mutmut's stats) without testing any mutant (mutmut then stops on an
+    assertion, "nothing matches", which the log shows; the stats are saved before it).
+    """
+    import random
+
+    _mutmut(project, env, "run", "--max-children", "1", "no-such-mutant-*", log=log)
+    names = sorted(_statuses(project, env))
+    chosen = random.Random(seed).sample(names, min(size, len(names)))
+    stats = json.loads((project / "mutants" / "mutmut-stats.json").read_text())
+    reached = stats["tests_by_mangled_function_name"]
+    with_tests = [n for n in chosen if reached.get(n.partition("__mutmut_")[0])]
+    return with_tests, [n for n in chosen if n not in with_tests]
+
+
+def run(
+    module: str,
+    workdir: Path,
+    workers: int,
+    only: list[str],
+    tests: list[str] | None = None,
+    sample: int | None = None,
+    seed: int = 0,
+) -> dict:
+    tests = tests or MODULES[module][1]
+    project = _project_copy(module, workdir, tests)
     env = {k: v for k, v in os.environ.items() if k != "PYTHONPATH"}
     env.update(
         MPLBACKEND="Agg",
@@ -132,17 +214,19 @@ def run(module: str, workdir: Path, workers: int, only: list[str]) -> dict:
         NUMBA_NUM_THREADS="1",
     )
     start = time.perf_counter()
-    log = open(workdir / f"{module}.log", "w")
-    with log:
-        proc = subprocess.run(
-            [sys.executable, "-m", "mutmut", "run", "--max-children", str(workers), *only],
-            cwd=project,
-            env=env,
-            stdout=log,
-            stderr=subprocess.STDOUT,
-        )
+    unreached_sampled: list[str] = []
+    with open(workdir / f"{module}.log", "w") as log:
+        if sample:
+            only, unreached_sampled = _sample(project, env, log, sample, seed)
+        proc = _mutmut(project, env, "run", "--max-children", str(workers), *only, log=log)
     seconds = time.perf_counter() - start
-    counts, alive = _tally(project, env)
+    statuses = _statuses(project, env)
+    if sample:
+        statuses = {n: statuses[n] for n in only}
+        statuses.update({n: "no tests" for n in unreached_sampled})
+    elif only:  # a run restricted by --only: the mutants it left alone are not part of it
+        statuses = {n: s for n, s in statuses.items() if s != "not checked"}
+    counts, alive = _tally(statuses)
     killed = sum(v for k, v in counts.items() if k in _KILLED)
     survived = sum(v for k, v in counts.items() if k in _SURVIVED)
     unreached = sum(v for k, v in counts.items() if k in _UNREACHED)
@@ -150,8 +234,10 @@ def run(module: str, workdir: Path, workers: int, only: list[str]) -> dict:
     return {
         "module": module,
         "source": MODULES[module][0],
-        "tests": MODULES[module][1],
-        "only": only,
+        "tests": tests,
+        "only": [] if sample else only,
+        "sample": sample,
+        "seed": seed,
         "exit_code": proc.returncode,
         "seconds": round(seconds, 1),
         "counts": counts,
@@ -171,7 +257,7 @@ def main(argv: list[str] | None = None) -> int:
         default=list(MODULES),
         help=f"modules to mutate, of {list(MODULES)} (default: all)",
     )
-    parser.add_argument("--workers", type=int, default=2, help="parallel test processes")
+    parser.add_argument("--workers", type=int, default=1, help="parallel test processes")
     parser.add_argument(
         "--only",
         action="append",
@@ -185,16 +271,31 @@ def main(argv: list[str] | None = None) -> int:
         help="folder for the project copies and logs (default: a temporary one)",
     )
     parser.add_argument("--json", type=Path, default=None, help="write the results here")
+    parser.add_argument(
+        "--tests",
+        nargs="+",
+        default=None,
+        help="test files to run instead of the module's list (with one module)",
+    )
+    parser.add_argument(
+        "--sample",
+        type=int,
+        default=None,
+        help="test only a seeded random sample of this many mutants per module",
+    )
+    parser.add_argument("--seed", type=int, default=0, help="seed of --sample")
     args = parser.parse_args(argv)
     unknown = [m for m in args.modules if m not in MODULES]
     if unknown:
         parser.error(f"unknown module(s) {unknown}; known: {list(MODULES)}")
+    if args.tests and len(args.modules) != 1:
+        parser.error("--tests needs exactly one module")
     workdir = args.workdir or Path(tempfile.mkdtemp(prefix="ergodex-mutation-"))
     workdir.mkdir(parents=True, exist_ok=True)
     print(f"working in {workdir}")
     results = []
     for module in args.modules:
-        r = run(module, workdir, args.workers, args.only)
+        r = run(module, workdir, args.workers, args.only, args.tests, args.sample, args.seed)
         results.append(r)
         print(
             f"{module:>15}: {r['killed']:4d} killed, {r['survived']:4d} survived, "
