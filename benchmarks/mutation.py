@@ -66,7 +66,11 @@ MODULES: dict[str, tuple[str, list[str]]] = {
     ),
     "model_space": (
         "src/ergodex/model_space.py",
-        ["tests/test_model_space.py", "tests/test_defaults.py", "tests/test_mutants_model_space.py"],
+        [
+            "tests/test_model_space.py",
+            "tests/test_defaults.py",
+            "tests/test_mutants_model_space.py",
+        ],
     ),
     "linear_inverse": (
         "src/ergodex/fitting/linear_inverse.py",
