@@ -21,6 +21,12 @@ HEAVY = ("numpy", "scipy", "sklearn", "pysindy", "numba", "pandas", "xarray", "m
 
 def _loaded_after(argv: list[str]) -> tuple[int, str, set[str]]:
     """Run ``ergodex ARGV`` in a fresh interpreter; its exit code, stdout and top-level modules."""
+    code, out, modules = _modules_after(argv)
+    return code, out, {m.split(".")[0] for m in modules}
+
+
+def _modules_after(argv: list[str]) -> tuple[int, str, set[str]]:
+    """Run ``ergodex ARGV`` in a fresh interpreter; its exit code, stdout and every module."""
     script = (
         "import json, sys\n"
         "from ergodex.cli import main\n"
@@ -28,8 +34,7 @@ def _loaded_after(argv: list[str]) -> tuple[int, str, set[str]]:
         "    code = main(sys.argv[1:])\n"
         "except SystemExit as exc:\n"
         "    code = exc.code\n"
-        "names = sorted({m.split('.')[0] for m in sys.modules})\n"
-        "print('\\n@@' + json.dumps({'code': code, 'modules': names}))\n"
+        "print('\\n@@' + json.dumps({'code': code, 'modules': sorted(sys.modules)}))\n"
     )
     proc = subprocess.run(
         [sys.executable, "-c", script, *argv],
@@ -54,6 +59,25 @@ def test_help_loads_no_numerical_library():
     assert not modules & set(HEAVY), sorted(modules & set(HEAVY))
 
 
+def test_help_imports_no_command_module():
+    # the command list comes from ergodex.cli itself: no command module, nor what they import
+    # (the inbox ledger's sqlite3, the service's sockets, logging)
+    code, out, modules = _modules_after(["--help"])
+    assert code == 0 and "watch" in out
+    commands = {m for m in modules if m.startswith("ergodex.cli.")}
+    assert not commands, sorted(commands)
+    assert not modules & {"sqlite3", "socket", "hashlib", "logging", "ergodex.watching"}
+
+
+def test_a_command_imports_no_other_command_module():
+    code, out, modules = _modules_after(["fit", "--help"])
+    assert code == 0 and "usage" in out
+    assert "ergodex.cli.fit" in modules  # the probe sees the command that ran
+    others = {f"ergodex.cli.{name}" for name in ("watch", "serve", "models", "retrain", "demo")}
+    assert not modules & others, sorted(modules & others)
+    assert not modules & {"sqlite3", "socket", "ergodex.watching", "ergodex.service"}
+
+
 @pytest.mark.parametrize("command", ["fit", "validate", "simulate"])
 def test_command_help_loads_no_numerical_library(command):
     code, out, modules = _loaded_after([command, "--help"])
@@ -71,6 +95,22 @@ def test_linear_inverse_fit_never_imports_pysindy(tmp_path):
     assert document["settings"]["method"] == "linear-inverse"
     assert "numpy" in modules  # the fit really ran in that process
     assert "pysindy" not in modules
+
+
+def test_validate_imports_no_fitting_library(tmp_path):
+    from ergodex import scenarios
+
+    model = tmp_path / "truth.json"
+    scenarios.lorenz63_surrogate().to_json(model)
+    code, out, modules = _loaded_after(
+        ["validate", str(model), str(DATASET), "--members", "4", "--quiet"]
+    )
+    assert code in (0, 1, 3), out
+    assert "numpy" in modules  # the check really ran in that process
+    # a check integrates and compares statistics: no fitting, plotting or table library (not
+    # sqlite3 either, but numba imports coverage when it is installed, and coverage sqlite3)
+    unwanted = {"sklearn", "pysindy", "pandas", "xarray", "matplotlib"}
+    assert not modules & unwanted, sorted(modules & unwanted)
 
 
 def test_fast_fft_length_matches_scipy():

@@ -79,7 +79,7 @@ class _Commands(argparse._SubParsersAction):
         """List ``name`` (with its help line) without importing its module yet."""
         self._choices_actions.append(self._ChoicesPseudoAction(name, (), COMMAND_HELP[name]))
         # a placeholder, so that the choice is valid; load() replaces it before it is used
-        self._name_parser_map[name] = None  # type: ignore[assignment]
+        self._name_parser_map[name] = None
 
     def load(self, name: str) -> None:
         """Import the module of ``name`` and let it add its real subparser (once)."""
@@ -92,7 +92,7 @@ class _Commands(argparse._SubParsersAction):
         importlib.import_module(f"ergodex.cli.{name}").add_parser(self)
         self._choices_actions.insert(position, self._choices_actions.pop())
 
-    def __call__(self, parser, namespace, values, option_string=None):  # type: ignore[override]
+    def __call__(self, parser, namespace, values, option_string=None):
         self.load(values[0])
         super().__call__(parser, namespace, values, option_string)
 
