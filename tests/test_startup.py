@@ -122,3 +122,28 @@ def test_fast_fft_length_matches_scipy():
     rng = np.random.default_rng(19)
     sizes = [*range(1, 3000), *rng.integers(3000, 10**9, size=500).tolist()]
     assert [fast_fft_length(n) for n in sizes] == [next_fast_len(n, real=True) for n in sizes]
+
+
+def test_compiled_kernels_are_loaded_from_the_disk_cache_in_a_new_process():
+    # numba compiles on first use and caches on disk (cache=True); a second interpreter must load
+    # every kernel it runs from that cache instead of compiling it again (a kernel built inside
+    # a closure over non-global values, or without cache=True, would be compiled every time)
+    script = (
+        "import json\n"
+        "import numpy as np\n"
+        "from numba.core.dispatcher import Dispatcher\n"
+        "from ergodex import integrate, kernels, scenarios\n"
+        "integrate.integrate_ensemble(scenarios.lorenz63_surrogate(), np.ones((2, 3)),\n"
+        "                             dt_out=0.01, n_out=5, engine='numba')\n"
+        "used = {name: (sum(f.stats.cache_hits.values()), sum(f.stats.cache_misses.values()))\n"
+        "        for name, f in vars(kernels).items() if isinstance(f, Dispatcher)\n"
+        "        and (f.stats.cache_hits or f.stats.cache_misses)}\n"
+        "print(json.dumps(used))\n"
+    )
+    for _ in range(2):  # the first run may compile and write the cache; the second must not
+        proc = subprocess.run(
+            [sys.executable, "-c", script], check=True, capture_output=True, text=True, timeout=600
+        )
+    used = json.loads(proc.stdout.strip().splitlines()[-1])
+    assert used, "no compiled kernel ran"
+    assert all(misses == 0 and hits > 0 for hits, misses in used.values()), used
