@@ -7,14 +7,33 @@ import sys
 
 import pytest
 
-from ergodex.cli import COMMAND_MODULES, build_parser, main
+from ergodex.cli import COMMAND_HELP, COMMAND_MODULES, build_parser, main
 
 
 def test_every_command_module_is_wired_in():
-    parser = build_parser()
+    parser = build_parser(load_all=True)
     subparsers = next(a for a in parser._actions if a.dest == "command")
     # Each module contributes its command under its own name (the README's command list).
     assert set(COMMAND_MODULES) <= set(subparsers.choices)
+    assert all(subparsers.choices[name] is not None for name in COMMAND_MODULES)
+
+
+def test_command_list_without_imports_matches_the_modules():
+    # ``--help`` lists the commands from COMMAND_HELP without importing their modules: the
+    # listing must be the one the modules themselves would give, in the same order.
+    lazy = build_parser().format_help()
+    full = build_parser(load_all=True).format_help()
+    assert lazy == full
+    assert list(COMMAND_HELP) == list(COMMAND_MODULES)
+
+
+def test_choosing_a_command_loads_only_that_command():
+    parser = build_parser()
+    subparsers = next(a for a in parser._actions if a.dest == "command")
+    args = parser.parse_args(["models", "list"])
+    assert args.command == "models" and callable(args.func)
+    assert subparsers.choices["models"] is not None
+    assert subparsers.choices["fit"] is None  # still pending: its module was not needed
 
 
 def test_no_command_prints_help_and_exits_2(capsys):

@@ -18,7 +18,6 @@ from __future__ import annotations
 
 import argparse
 import importlib
-import logging
 import os
 import sys
 from collections.abc import Sequence
@@ -40,6 +39,22 @@ COMMAND_MODULES: tuple[str, ...] = (
     "serve",
 )
 
+#: Each command's line in the top-level ``--help``, so that listing the commands imports none of
+#: their modules (the module's own ``help=`` must say the same; ``tests/test_cli.py`` checks).
+COMMAND_HELP: dict[str, str] = {
+    "demo": "build the demo data, fit, validate, register, report; print where",
+    "fit": "fit a surrogate to data (or select one by its long-run statistics)",
+    "validate": "check a surrogate's long-run statistics against data (exit 0 pass, 1 fail, "
+    "3 inconclusive)",
+    "simulate": "integrate an ensemble of a surrogate and write it (CSV, NPZ, NetCDF)",
+    "register": "store a model (and its scorecard) as the next candidate version of NAME",
+    "models": "list, show, accept, reject, retire, verify, export or import registered models",
+    "report": "(re)write the HTML validation report of a registered version",
+    "retrain": "check the accepted model on new data, refit, validate, promote or keep",
+    "watch": "retrain a model once on every new dataset file that lands in a folder",
+    "serve": "run the HTTP service (uploads, jobs, registry)",
+}
+
 EXIT_OK = 0
 EXIT_FAILED_CHECK = 1
 EXIT_BAD_INPUT = 2
@@ -52,8 +67,42 @@ class _Parser(argparse.ArgumentParser):
         self.exit(EXIT_BAD_INPUT, f"ergodex: error: {message} (see '{self.prog} --help')\n")
 
 
-def build_parser() -> argparse.ArgumentParser:
-    """Return the top-level parser with every command module's subparsers attached."""
+class _Commands(argparse._SubParsersAction):
+    """Subcommands whose module is imported only when its command is chosen.
+
+    A script calling ``ergodex`` once per file pays every import on every call: ``--help`` lists
+    the commands from :data:`COMMAND_HELP`, and ``ergodex fit ...`` imports ``ergodex.cli.fit``
+    alone, which then adds its real subparser in place of the placeholder.
+    """
+
+    def add_pending(self, name: str) -> None:
+        """List ``name`` (with its help line) without importing its module yet."""
+        self._choices_actions.append(self._ChoicesPseudoAction(name, (), COMMAND_HELP[name]))
+        # a placeholder, so that the choice is valid; load() replaces it before it is used
+        self._name_parser_map[name] = None
+
+    def load(self, name: str) -> None:
+        """Import the module of ``name`` and let it add its real subparser (once)."""
+        if name not in self._name_parser_map or self._name_parser_map[name] is not None:
+            return
+        del self._name_parser_map[name]
+        # the module adds its own help line; it takes the place of the pending one
+        position = next(i for i, a in enumerate(self._choices_actions) if a.dest == name)
+        del self._choices_actions[position]
+        importlib.import_module(f"ergodex.cli.{name}").add_parser(self)
+        self._choices_actions.insert(position, self._choices_actions.pop())
+
+    def __call__(self, parser, namespace, values, option_string=None):
+        self.load(values[0])
+        super().__call__(parser, namespace, values, option_string)
+
+
+def build_parser(*, load_all: bool = False) -> argparse.ArgumentParser:
+    """Return the top-level parser; a command's module is imported when that command is chosen.
+
+    ``load_all`` imports every command module now and attaches its full subparser (for tests and
+    tools that walk the whole command tree).
+    """
     parser = _Parser(
         prog="ergodex",
         description=(
@@ -75,9 +124,14 @@ def build_parser() -> argparse.ArgumentParser:
         action="store_true",
         help="show the full traceback of an unexpected error (also ERGODEX_DEBUG=1)",
     )
-    subparsers = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    subparsers = parser.add_subparsers(
+        dest="command", metavar="COMMAND", parser_class=_Parser, action=_Commands
+    )
+    assert isinstance(subparsers, _Commands)
     for name in COMMAND_MODULES:
-        importlib.import_module(f"ergodex.cli.{name}").add_parser(subparsers)
+        subparsers.add_pending(name)
+        if load_all:
+            subparsers.load(name)
     return parser
 
 
@@ -90,6 +144,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         usage = " ".join(parser.format_usage().split())
         print(f"ergodex: error: no command given; {usage} (see 'ergodex --help')", file=sys.stderr)
         return EXIT_BAD_INPUT
+    import logging
+
     logging.basicConfig(
         level=getattr(args, "log_level", None) or "WARNING",
         format="%(asctime)s %(levelname)s %(name)s: %(message)s",
