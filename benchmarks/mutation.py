@@ -12,7 +12,7 @@ Slow (tens of minutes per module on 2 cores), so not part of CI. Typical use, fr
 root::
 
     python benchmarks/mutation.py validation stats --workers 2 --json mutation.json
-    python benchmarks/mutation.py validation --only 'ergodex.validation.x__decide*'
+    python benchmarks/mutation.py validation --only 'ergodex.validation.verdict.x__decide*'
 
 Results and the surviving mutants are recorded in ``benchmarks/README.md``.
 """
@@ -34,7 +34,7 @@ ROOT = Path(__file__).resolve().parents[1]
 #: module → (source file, test files that exercise it). Only fast tests run (``-m "not slow"``).
 MODULES: dict[str, tuple[str, list[str]]] = {
     "validation": (
-        "src/ergodex/validation.py",
+        "src/ergodex/validation/*",
         [
             "tests/test_verdict.py",
             "tests/test_scorecard_io.py",

@@ -11,7 +11,7 @@ from ergodex import scenarios, validation
 from ergodex.cli import main
 from ergodex.exceptions import SettingsError
 from ergodex.plotting import plot_histograms
-from ergodex.validation import CheckSpec
+from ergodex.validation import CheckSpec, checking
 from ergodex.writers import write_csv
 
 
@@ -42,13 +42,13 @@ def test_without_evidence_the_scorecard_is_the_same():
 def evidence_calls(monkeypatch):
     """Count the evidence builds of checks run in this process."""
     calls = []
-    build = validation._evidence
+    build = checking._evidence  # the coordinator's own reference to the builder
 
     def counted(*args, **kwargs):
         calls.append(1)
         return build(*args, **kwargs)
 
-    monkeypatch.setattr(validation, "_evidence", counted)
+    monkeypatch.setattr(checking, "_evidence", counted)
     return calls
 
 

@@ -14,7 +14,8 @@ from ergodex.cli import main
 from ergodex.exceptions import RegistryError
 from ergodex.registry import Registry
 from ergodex.series import Series
-from ergodex.validation import CheckSpec, Scorecard, ScoreRow, _decide
+from ergodex.validation import CheckSpec, Scorecard, ScoreRow
+from ergodex.validation.verdict import _decide
 from ergodex.writers import write_csv
 
 # A one-variable Ornstein–Uhlenbeck process dx = −x/τ dt + sqrt(2σ²/τ) dW with τ = 1, σ² = 1:

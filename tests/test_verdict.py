@@ -17,17 +17,13 @@ import scipy.stats
 from ergodex import scenarios, stats, validation
 from ergodex.regimes import RegimeSet
 from ergodex.surrogate import Surrogate, Term
-from ergodex.validation import (
-    CheckSpec,
-    ScoreRow,
-    _acf_pieces,
+from ergodex.validation import CheckSpec, PieceSettings, ScoreRow
+from ergodex.validation.pieces import _acf_pieces, _pair_distances, _PieceStats, _reference_groups
+from ergodex.validation.verdict import (
     _blowup_accounting,
     _decide,
     _member_agreement,
-    _pair_distances,
-    _PieceStats,
     _ratio,
-    _reference_groups,
     _score_rows,
 )
 
@@ -289,14 +285,14 @@ def test_noise_floor_of_the_check_is_the_mean_over_the_exact_splits():
 
 
 def _ctx(n_vars=1, statistics=("histogram",), max_lag=1, nperseg=8, regimes=None):
-    return {
-        "statistics": statistics,
-        "max_lag_samples": max_lag,
-        "dt": 1.0,
-        "nperseg": nperseg,
-        "regimes": regimes,
-        "variables": tuple(f"v{j}" for j in range(n_vars)),
-    }
+    return PieceSettings(
+        statistics=statistics,
+        variables=tuple(f"v{j}" for j in range(n_vars)),
+        dt=1.0,
+        max_lag_samples=max_lag,
+        nperseg=nperseg,
+        regimes=regimes,
+    )
 
 
 def _agreement_case(tolerance, shifts=((0, 0.0), (2, 2.0), (3, 6.0))):

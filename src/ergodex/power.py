@@ -47,9 +47,12 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
+
+if TYPE_CHECKING:
+    from ergodex.validation.pieces import PieceSettings
 
 #: Factors tried, smallest first; the first one that some row rejects is reported.
 LADDER = (1.1, 1.2, 1.3, 1.4, 1.5, 1.75, 2.0, 3.0, 5.0)
@@ -98,7 +101,7 @@ def detectable_changes(
     floor_index,
     group_stats,
     floors: dict[str, np.ndarray],
-    ctx: dict,
+    settings: PieceSettings,
     tolerance_for: Callable[[str], float],
 ) -> dict:
     """Smallest time-scale and variance factors the check's rows would reject.
@@ -109,7 +112,7 @@ def detectable_changes(
     groups, floor_index, group_stats
         The check's reference groups, its floor pairs and the statistics of its groups.
     floors : dict statistic → floor per row
-    ctx : the check's statistics context
+    settings : the check's per-piece statistics settings
     tolerance_for : statistic → tolerance
 
     Returns
@@ -119,7 +122,7 @@ def detectable_changes(
     of change no scored statistic can see (e.g. the time scale when only histograms are
     scored) is not tried and left out.
     """
-    from ergodex.validation import _pair_distances, _PieceStats
+    from ergodex.validation.pieces import _pair_distances, _PieceStats
 
     left, right = (np.ravel(i)[:MAX_POWER_PAIRS] for i in floor_index)
     n_vars = ref_pieces.shape[2]
@@ -127,7 +130,7 @@ def detectable_changes(
 
     def rejected(change: Callable[[np.ndarray], np.ndarray]) -> bool:
         changed = np.stack([change(ref_pieces[list(groups[g])]).reshape(-1, n_vars) for g in left])
-        s_stats = _PieceStats(changed, ctx)
+        s_stats = _PieceStats(changed, settings)
         pairs = (np.arange(left.size), right)
         for s, floor in floors.items():
             value = np.nanmean(_pair_distances(s, s_stats, group_stats, pairs), axis=0)
@@ -218,7 +221,11 @@ def power_statement(
 
 
 def reference_consistency(
-    ref_pieces: np.ndarray, run_of_piece: np.ndarray, gap_samples: int, ctx: dict, tolerance: float
+    ref_pieces: np.ndarray,
+    run_of_piece: np.ndarray,
+    gap_samples: int,
+    settings: PieceSettings,
+    tolerance: float,
 ) -> dict:
     """Do the reference runs sample the same thing, within their own noise?
 
@@ -228,7 +235,7 @@ def reference_consistency(
     beyond their own noise. Skipped (``verdict`` None) with fewer than two runs or parts
     shorter than 16 samples.
     """
-    from ergodex.validation import _pair_distances, _PieceStats
+    from ergodex.validation.pieces import _pair_distances, _PieceStats
 
     run_of_piece = np.asarray(run_of_piece)
     L = ref_pieces.shape[1]
@@ -243,7 +250,7 @@ def reference_consistency(
         return out
     parts = np.concatenate([ref_pieces[:, :half], ref_pieces[:, L - half :]])
     runs = np.concatenate([run_of_piece, run_of_piece])
-    st = _PieceStats(parts, dict(ctx, statistics=("histogram",), regimes=None))
+    st = _PieceStats(parts, settings.histogram_only())
     ii, jj = np.triu_indices(parts.shape[0], 1)
     same = runs[ii] == runs[jj]
     d = _pair_distances("histogram", st, st, (ii, jj))
@@ -253,6 +260,6 @@ def reference_consistency(
     out.update(
         ratio=ratio,
         verdict="pass" if ratio <= tolerance else "fail",
-        per_variable={v: float(r) for v, r in zip(ctx["variables"], per_var)},
+        per_variable={v: float(r) for v, r in zip(settings.variables, per_var)},
     )
     return out

@@ -146,7 +146,8 @@ def grid_rows(
     ``variance captured`` row); ``boxes`` maps a series name to per-point weights (area mean,
     box means).
     """
-    from ergodex.validation import ScoreRow, _ratio
+    from ergodex.validation import ScoreRow
+    from ergodex.validation.verdict import _ratio
 
     w = transform.area_
     names = list(boxes)

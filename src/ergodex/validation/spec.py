@@ -1,0 +1,201 @@
+"""Settings of a check (:class:`CheckSpec`) and the constants its defaults are derived from."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ergodex import stats
+from ergodex.check_names import ALL_STATISTICS, DEFAULT_STATISTICS, DEFAULT_TOLERANCE
+from ergodex.exceptions import SettingsError
+from ergodex.regimes import RegimeSet
+
+# DEFAULT_TOLERANCE, ALL_STATISTICS and DEFAULT_STATISTICS live in ergodex.check_names (imported
+# above) so that the command line's --help need not import numpy.
+_REGIME_STATISTICS = ("occupancy", "residence", "transitions")
+
+
+# Decorrelation-time multiples for the defaults: gap between reference blocks and spin-up (5: the
+# correlation left after 5 integrated times is below e^-5 ≈ 0.7 % for exponential decay) and the
+# autocorrelation lag (3: the part of the ACF that carries information). Common practice, no source.
+_GAP_TIMES = 5.0
+
+
+_SPINUP_TIMES = 5.0
+
+
+_LAG_TIMES = 3.0
+
+
+@dataclass
+class CheckSpec:
+    """Every setting needed to repeat a check exactly.
+
+    Parameters
+    ----------
+    members : int, default 16
+        Ensemble members, each started from a reference state drawn with ``seed``.
+    length : float, optional
+        Time integrated per member after spin-up; default ``pool`` reference pieces. Members are
+        cut into pieces of the reference pieces' length (at least one).
+    spinup : float, optional
+        Time integrated and discarded before output; default 5 decorrelation times.
+    seed : int, default 0
+        Seeds the draw of starting states and the noise of stochastic surrogates.
+    bins : int or "fd", default 35
+        Histogram bins (figures and evidence); see :func:`ergodex.stats.histogram_edges`.
+    max_lag : float, optional
+        Largest autocorrelation lag in time units; default 3 decorrelation times.
+    regimes : RegimeSet, optional
+        Regimes for the occupancy/residence/transition rows (skipped without).
+    tolerance : float, default :data:`DEFAULT_TOLERANCE`
+        Largest allowed ratio of model distance to noise floor, for every row.
+    tolerances : dict, optional
+        Per-statistic overrides, e.g. ``{"spectrum": 3.0}``.
+    statistics : tuple of str
+        Which rows to compute (see the module docstring).
+    min_pieces : int, default 8
+        Fewest reference pieces for a noise floor; runs are split into blocks when there are
+        fewer runs.
+    gap : float, optional
+        Time left out between blocks of one run; default 5 decorrelation times.
+    nperseg : int, optional
+        Welch segment length in samples; default ``min(256, piece length // 8)``.
+    max_blowup_fraction : float, default 0
+        Fraction of members allowed to blow up before the check fails.
+    pool : int, optional
+        Pieces pooled into one compared sample (the floor compares two disjoint groups of
+        ``pool`` reference pieces; the value compares groups of ``pool`` model pieces with groups
+        of reference pieces). Default half the reference pieces: pooling averages out more of
+        the sampling noise than single pieces do, so real differences stand out further.
+    """
+
+    members: int = 16
+    length: float | None = None
+    spinup: float | None = None
+    seed: int = 0
+    bins: int | str = stats.DEFAULT_BINS
+    max_lag: float | None = None
+    regimes: RegimeSet | None = None
+    tolerance: float = DEFAULT_TOLERANCE
+    tolerances: dict[str, float] = field(default_factory=dict)
+    statistics: tuple[str, ...] = DEFAULT_STATISTICS
+    min_pieces: int = 8
+    gap: float | None = None
+    nperseg: int | None = None
+    max_blowup_fraction: float = 0.0
+    pool: int | None = None
+
+    def check_settings(self) -> None:
+        """Raise SettingsError naming the first setting that breaks its rule."""
+
+        def positive_int(name, v, low=1):
+            if isinstance(v, bool) or not isinstance(v, (int, np.integer)) or v < low:
+                raise SettingsError(f"{name} must be an integer ≥ {low}; got {v!r}")
+
+        def positive_float(name, v, allow_none=True, allow_zero=False):
+            if v is None and allow_none:
+                return
+            ok = (
+                isinstance(v, (int, float, np.floating))
+                and not isinstance(v, bool)
+                and math.isfinite(v)
+            )
+            if not ok or v < 0 or (v == 0 and not allow_zero):
+                raise SettingsError(
+                    f"{name} must be a {'non-negative' if allow_zero else 'positive'} "
+                    f"number; got {v!r}"
+                )
+
+        positive_int("members", self.members, 2)
+        positive_float("length", self.length)
+        positive_float("spinup", self.spinup, allow_zero=True)
+        positive_int("seed", self.seed, 0)
+        if not (
+            self.bins == "fd"
+            or (
+                isinstance(self.bins, (int, np.integer))
+                and not isinstance(self.bins, bool)
+                and self.bins >= 1
+            )
+        ):
+            raise SettingsError(f"bins must be a positive integer or 'fd'; got {self.bins!r}")
+        positive_float("max_lag", self.max_lag)
+        positive_float("tolerance", self.tolerance, allow_none=False)
+        if not isinstance(self.tolerances, dict):
+            raise SettingsError(
+                f"tolerances must be a table statistic → number; got {self.tolerances!r}"
+            )
+        for k, v in self.tolerances.items():
+            if k not in ALL_STATISTICS:
+                raise SettingsError(
+                    f"tolerances: unknown statistic {k!r}; known: {list(ALL_STATISTICS)}"
+                )
+            positive_float(f"tolerances.{k}", v, allow_none=False)
+        if isinstance(self.statistics, str) or not self.statistics:
+            raise SettingsError(f"statistics must be a non-empty list; got {self.statistics!r}")
+        for s in self.statistics:
+            if s not in ALL_STATISTICS:
+                raise SettingsError(
+                    f"statistics: unknown statistic {s!r}; known: {list(ALL_STATISTICS)}"
+                )
+        positive_int("min_pieces", self.min_pieces, 2)
+        positive_float("gap", self.gap, allow_zero=True)
+        if self.nperseg is not None:
+            positive_int("nperseg", self.nperseg, 8)
+        positive_float(
+            "max_blowup_fraction", self.max_blowup_fraction, allow_none=False, allow_zero=True
+        )
+        if self.max_blowup_fraction >= 1:
+            raise SettingsError(
+                f"max_blowup_fraction must be below 1; got {self.max_blowup_fraction}"
+            )
+        if self.pool is not None:
+            positive_int("pool", self.pool, 1)
+        if self.regimes is not None and not isinstance(self.regimes, RegimeSet):
+            raise SettingsError(f"regimes must be a RegimeSet; got {type(self.regimes).__name__}")
+
+    def tolerance_for(self, statistic: str) -> float:
+        return float(self.tolerances.get(statistic, self.tolerance))
+
+    def to_dict(self) -> dict:
+        return {
+            "members": int(self.members),
+            "length": self.length,
+            "spinup": self.spinup,
+            "seed": int(self.seed),
+            "bins": self.bins,
+            "max_lag": self.max_lag,
+            "regimes": None if self.regimes is None else self.regimes.to_dict(),
+            "tolerance": float(self.tolerance),
+            "tolerances": dict(self.tolerances),
+            "statistics": list(self.statistics),
+            "min_pieces": int(self.min_pieces),
+            "gap": self.gap,
+            "nperseg": self.nperseg,
+            "max_blowup_fraction": float(self.max_blowup_fraction),
+            "pool": None if self.pool is None else int(self.pool),
+        }
+
+    @classmethod
+    def from_dict(cls, d: dict) -> CheckSpec:
+        if not isinstance(d, dict):
+            raise SettingsError(f"check settings must be a table; got {type(d).__name__}")
+        known = set(cls.__dataclass_fields__)
+        unknown = set(d) - known
+        if unknown:
+            raise SettingsError(
+                f"unknown check setting(s) {sorted(unknown)}; known: {sorted(known)}"
+            )
+        kw = dict(d)
+        if kw.get("regimes") is not None:
+            kw["regimes"] = RegimeSet.from_dict(kw["regimes"], source="check settings: regimes")
+        if "statistics" in kw and isinstance(kw["statistics"], list):
+            kw["statistics"] = tuple(kw["statistics"])
+        if "tolerances" in kw and kw["tolerances"] is None:
+            kw["tolerances"] = {}
+        spec = cls(**kw)
+        spec.check_settings()
+        return spec
