@@ -422,7 +422,11 @@ def main(argv=None) -> int:
         )
         with open(args.out, "w") as fh:
             json.dump(
-                {"argv": sys.argv[1:], "results": results, "wall_seconds": time.perf_counter() - t0},
+                {
+                    "argv": sys.argv[1:],
+                    "results": results,
+                    "wall_seconds": time.perf_counter() - t0,
+                },
                 fh,
                 indent=1,
                 default=lambda x: None if not math.isfinite(x) else x,

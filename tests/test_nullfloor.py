@@ -108,11 +108,14 @@ def test_null_threshold_of_a_known_null_matches_its_distribution():
     n, L, n_vars, groups, pool = 8, 64, 6, 4, 2
     pieces = rng.normal(size=(n, L, n_vars))
 
-    def score(reference, model):
-        return np.mean(model**2, axis=(0, 1)) / np.mean(reference**2, axis=(0, 1))
+    def prepare(model):
+        return np.mean(model**2, axis=1)  # mean square per pool group and variable
+
+    def score(reference, prepared, chosen):
+        return np.mean(prepared[chosen], axis=0) / np.mean(reference**2, axis=(0, 1))
 
     nt = nullfloor.NullThreshold(false_reject_rate=0.05, n_replicates=400, seed=2)
-    nt.fit(pieces, score, n_model_groups=groups, pool=pool, max_lag_samples=1)
+    nt.fit(pieces, prepare, score, n_model_groups=groups, pool=pool, max_lag_samples=1)
     assert nt.row_ratios_.shape == (400, n_vars)
     assert nt.threshold_ == nt.quantile_  # no floor
     # the bootstrap draws from the empirical distribution of the pieces, whose fourth moment is
@@ -121,7 +124,7 @@ def test_null_threshold_of_a_known_null_matches_its_distribution():
     expected = sps.f(d1, d2).ppf(0.95 ** (1 / n_vars))
     assert nt.quantile_ == pytest.approx(expected, rel=0.08)
     floored = nullfloor.NullThreshold(n_replicates=50, floor=10.0).fit(
-        pieces, score, n_model_groups=groups, pool=pool, max_lag_samples=1
+        pieces, prepare, score, n_model_groups=groups, pool=pool, max_lag_samples=1
     )
     assert floored.threshold_ == 10.0 and floored.quantile_ < 10.0
     d = floored.to_dict()
@@ -132,5 +135,10 @@ def test_null_threshold_refuses_bad_settings():
     pieces = np.zeros((4, 10, 1))
     with pytest.raises(ValueError, match="false_reject_rate"):
         nullfloor.NullThreshold(false_reject_rate=1.5).fit(
-            pieces, lambda a, b: np.ones(1), n_model_groups=1, pool=1, max_lag_samples=1
+            pieces,
+            lambda m: m,
+            lambda a, b, c: np.ones(1),
+            n_model_groups=1,
+            pool=1,
+            max_lag_samples=1,
         )

@@ -10,9 +10,13 @@ This module derives the threshold from the data instead. A *replicate* is a whol
 out where the truth is known: a pseudo-reference (as many pieces as the real reference) and a
 pseudo-model (as many groups as the real model) are both drawn from the reference by a moving-
 block bootstrap [1]_, and scored through the check's own rows, so the replicate's ratios are
-those of a surrogate that is exactly right. The ``1 − rate`` quantile of the largest ratio over
-the replicates is the threshold that rejects a right surrogate with probability ``rate`` (the
-*false-reject rate*). The quantile is the Harrell–Davis estimator [2]_ (a smooth weighted sum of
+those of a surrogate that is exactly right. To keep the cost near that of the check itself, the
+pseudo-model groups of all replicates are drawn from one bootstrap pool of
+:data:`MODEL_POOL_FACTOR` times as many groups (their statistics are computed once), each
+replicate taking its own random selection; the pseudo-reference is drawn afresh every time (it
+carries most of the variation of a ratio: the floor and every value rest on its few pieces).
+The ``1 − rate`` quantile of the largest ratio over the replicates is the threshold that rejects
+a right surrogate with probability ``rate`` (the *false-reject rate*). The quantile is the Harrell–Davis estimator [2]_ (a smooth weighted sum of
 all order statistics), steadier than one order statistic for a few dozen replicates.
 
 Blocks are a few lag windows long, so the autocorrelation up to the check's largest lag is kept
@@ -34,6 +38,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
+from typing import Any
 
 import numpy as np
 
@@ -59,6 +64,9 @@ BLOCK_LAGS = 4
 #: Floor pairs scored per replicate (of the check's own splits): the reference side of a
 #: replicate still has as many pieces as the real reference, only fewer of its splits are used.
 MAX_REPLICATE_SPLITS = 8
+#: The pool of pseudo-model groups shared by the replicates holds this many times the groups
+#: of one replicate.
+MODEL_POOL_FACTOR = 3
 
 METHOD = (
     "moving-block bootstrap of the reference (Künsch 1989): pseudo-reference and pseudo-model "
@@ -201,7 +209,8 @@ class NullThreshold:
     def fit(
         self,
         pieces: np.ndarray,
-        score: Callable[[np.ndarray, np.ndarray], np.ndarray],
+        prepare_model: Callable[[np.ndarray], Any],
+        score: Callable[[np.ndarray, Any, np.ndarray], np.ndarray],
         *,
         n_model_groups: int,
         pool: int,
@@ -213,9 +222,12 @@ class NullThreshold:
         ----------
         pieces : (n, L, n_vars) array
             The reference pieces of the check.
-        score : callable(pseudo_reference, pseudo_model) -> (n_rows,) ratios
-            The check's own scoring: ``pseudo_reference`` is (n, L, n_vars) pieces,
-            ``pseudo_model`` is (n_model_groups, pool·L, n_vars) groups.
+        prepare_model : callable(groups) -> prepared
+            Computes whatever the scoring needs of the pool of pseudo-model groups
+            ((n_pool, pool·L, n_vars), once).
+        score : callable(pseudo_reference, prepared, chosen) -> (n_rows,) ratios
+            The check's own scoring of ``pseudo_reference`` ((n, L, n_vars) pieces) against the
+            pool's groups ``chosen`` (``n_model_groups`` indices).
         n_model_groups, pool : int
             As in the check (the model side of a replicate has as many groups of as many
             pieces).
@@ -231,13 +243,14 @@ class NullThreshold:
         n, L, n_vars = pieces.shape
         self.block_ = block_length(L, max_lag_samples)
         rng = np.random.default_rng(self.seed)
+        n_pool = MODEL_POOL_FACTOR * int(n_model_groups)
+        model = block_bootstrap(pieces, n_pool * pool, L, self.block_, rng)
+        prepared = prepare_model(model.reshape(n_pool, pool * L, n_vars))
         out = []
         for _ in range(int(self.n_replicates)):
             reference = block_bootstrap(pieces, n, L, self.block_, rng)
-            model = block_bootstrap(pieces, n_model_groups * pool, L, self.block_, rng)
-            out.append(
-                np.asarray(score(reference, model.reshape(n_model_groups, pool * L, n_vars)))
-            )
+            chosen = np.sort(rng.choice(n_pool, size=int(n_model_groups), replace=False))
+            out.append(np.asarray(score(reference, prepared, chosen), float))
         self.row_ratios_ = np.array(out, float)
         self.largest_ratios_ = _largest(self.row_ratios_)
         self.quantile_ = quantile_of_largest(self.row_ratios_, rate)
