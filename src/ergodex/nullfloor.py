@@ -16,8 +16,9 @@ pseudo-model groups of all replicates are drawn from one bootstrap pool of
 replicate taking its own random selection; the pseudo-reference is drawn afresh every time (it
 carries most of the variation of a ratio: the floor and every value rest on its few pieces).
 The ``1 − rate`` quantile of the largest ratio over the replicates is the threshold that rejects
-a right surrogate with probability ``rate`` (the *false-reject rate*). The quantile is the Harrell–Davis estimator [2]_ (a smooth weighted sum of
-all order statistics), steadier than one order statistic for a few dozen replicates.
+a right surrogate with probability ``rate`` (the *false-reject rate*). The quantile is the
+Harrell–Davis estimator [2]_ (a smooth weighted sum of all order statistics), steadier than one
+order statistic for a few dozen replicates.
 
 Blocks are a few lag windows long, so the autocorrelation up to the check's largest lag is kept
 within blocks; both sides of a replicate are built the same way, so what the joins between blocks
