@@ -60,7 +60,8 @@ def test_perfectly_correlated_rows_give_the_threshold_of_one_variable():
         _spec(),
     )
     assert len(many.rows) == 4 * len(single.rows)
-    assert _quantile(many) == pytest.approx(_quantile(single), rel=1e-9)
+    # (the smoothing noise agrees to rounding: the copies' covariance has rank one)
+    assert _quantile(many) == pytest.approx(_quantile(single), rel=1e-6)
 
 
 def test_independent_variables_raise_the_threshold():
