@@ -56,15 +56,15 @@ MODULES: dict[str, tuple[str, list[str]]] = {
         "src/ergodex/regimes.py",
         ["tests/test_regimes.py", "tests/test_regime_labels.py", "tests/test_verdict.py"],
     ),
-    "transforms": (
-        "src/ergodex/transforms.py",
-        ["tests/test_transforms.py", "tests/test_defaults.py"],
+    "model_space": (
+        "src/ergodex/model_space.py",
+        ["tests/test_model_space.py", "tests/test_defaults.py"],
     ),
     "linear_inverse": (
         "src/ergodex/fitting/linear_inverse.py",
         ["tests/test_fitting_linear_inverse.py", "tests/test_defaults.py"],
     ),
-    "registry": ("src/ergodex/registry.py", ["tests/test_registry.py", "tests/test_defaults.py"]),
+    "registry": ("src/ergodex/registry/", ["tests/test_registry.py", "tests/test_defaults.py"]),
 }
 
 # mutmut's result names → our tally

@@ -98,7 +98,7 @@ def main() -> None:
         assert numbers == list(range(1, total + 1))
 
         # Loading: verified (every artifact hashed) vs reading model.json directly.
-        refs = [f"bench@{v}" for v in range(1, args.versions + 1)]
+        refs = [f"bench/{v}" for v in range(1, args.versions + 1)]
         start = time.perf_counter()
         for ref in refs:
             reg.load(ref)

@@ -1,6 +1,6 @@
 """What one retrain costs, step by step, and what the HTML report adds (inbox sizing).
 
-Runs the same retrain (champion present, new data of the same convection loop) on fresh copies of
+Runs the same retrain (incumbent present, new data of the same convection loop) on fresh copies of
 one registry, alternating ``report=True`` and ``report=False``, and prints the median wall time of
 each with their ratio, plus the inbox throughput without reports. Ratios come from one run, side by
 side, so they compare like with like on a loaded machine.
@@ -25,17 +25,17 @@ def main() -> None:
     parser.add_argument("--files", type=int, default=10, help="files for the inbox throughput")
     args = parser.parse_args()
 
-    from ergodex.inbox import watch
     from ergodex.registry import Registry
     from ergodex.retraining import retrain
     from ergodex.scenarios import convection_loop
+    from ergodex.watching import watch
 
     root = Path(tempfile.mkdtemp(prefix="ergodex-retrain-bench-"))
     try:
         first = convection_loop(seed=2, n_runs=6, duration=40.0, dt=0.02, spinup=10.0)
         new = convection_loop(seed=102, n_runs=6, duration=40.0, dt=0.02, spinup=10.0)
         base = root / "base"
-        retrain(Registry(base), "loop", first, report=False)  # the champion; warms imports too
+        retrain(Registry(base), "loop", first, report=False)  # the incumbent; warms imports too
         times: dict[bool, list[float]] = {True: [], False: []}
         for i in range(args.repeats):
             for report in (True, False):

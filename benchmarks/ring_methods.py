@@ -29,10 +29,10 @@ import numpy as np
 
 from ergodex import scenarios
 from ergodex.fitting import make_fitter
+from ergodex.model_space import PCA
 from ergodex.readers import read_dataset
 from ergodex.series import Series
 from ergodex.surrogate import Surrogate, polynomial_terms
-from ergodex.transforms import PCA
 from ergodex.validation import CheckSpec, check
 
 CANDIDATES = [

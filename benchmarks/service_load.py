@@ -124,8 +124,8 @@ def main(argv=None) -> int:
                     json={"reason": "load benchmark", "override": True},
                 )
                 accepted.raise_for_status()
-                expected = Registry(root / "home").artifact(f"{NAME}@{version}", "model.json")
-                path = f"/models/{NAME}/versions/accepted/model.json"
+                expected = Registry(root / "home").artifact(f"{NAME}/{version}", "model.json")
+                path = f"/models/{NAME}/current/model.json"
 
                 single, single_failures = asyncio.run(
                     load(server.url, path, expected, 1, 50, args.time_limit)

@@ -220,7 +220,7 @@ def test_accept_refusal_advises_the_override_options(ou_files, tmp_path, capsys)
         == 0
     )
     capsys.readouterr()
-    assert main(["models", "accept", "ou@1", "--home", str(home)]) == 2
+    assert main(["models", "accept", "ou/1", "--home", str(home)]) == 2
     err = capsys.readouterr().err
     assert "--override --reason TEXT" in err and "override=True" not in err
 

@@ -93,7 +93,7 @@ def test_register_list_show_accept_history(files, capsys):
     info = json.loads(out)
     assert set(info) == VERSION_KEYS
     assert (info["ref"], info["status"], info["verdict"], info["note"]) == (
-        "loop@1",
+        "loop/1",
         "candidate",
         "pass",
         "first fit",
@@ -110,7 +110,7 @@ def test_register_list_show_accept_history(files, capsys):
         "--home",
         home,
     )
-    assert code == 0 and "registered loop@2" in out
+    assert code == 0 and "registered loop/2" in out
 
     code, out, _ = _run(capsys, "models", "list", "--home", home, "--json")
     listing = json.loads(out)
@@ -126,22 +126,22 @@ def test_register_list_show_accept_history(files, capsys):
         }
     ]
 
-    code, _, err = _run(capsys, "models", "accept", "loop@2", "--home", home)
+    code, _, err = _run(capsys, "models", "accept", "loop/2", "--home", home)
     assert code == 2
     assert (
         err.count("\n") == 1
-        and "loop@2 cannot be accepted: its scorecard's verdict is 'fail'" in err
+        and "loop/2 cannot be accepted: its scorecard's verdict is 'fail'" in err
     )
-    code, _, err = _run(capsys, "models", "accept", "loop@2", "--override", "--home", home)
+    code, _, err = _run(capsys, "models", "accept", "loop/2", "--override", "--home", home)
     assert code == 2 and "needs a non-empty reason" in err
-    assert _run(capsys, "models", "accept", "loop@1", "--home", home)[0] == 0
-    code, out, _ = _run(capsys, "models", "show", "loop@1", "--home", home)
-    assert code == 0 and "loop@1  [accepted]" in out and "not a certification" in out
+    assert _run(capsys, "models", "accept", "loop/1", "--home", home)[0] == 0
+    code, out, _ = _run(capsys, "models", "show", "loop/1", "--home", home)
+    assert code == 0 and "loop/1  [accepted]" in out and "not a certification" in out
     code, _, _ = _run(
         capsys,
         "models",
         "accept",
-        "loop@2",
+        "loop/2",
         "--override",
         "--reason",
         "regime occupancy failed by a hair; reviewed",
@@ -162,7 +162,7 @@ def test_register_list_show_accept_history(files, capsys):
     ]
 
     assert (
-        _run(capsys, "models", "retire", "loop@2", "--reason", "superseded", "--home", home)[0] == 0
+        _run(capsys, "models", "retire", "loop/2", "--reason", "superseded", "--home", home)[0] == 0
     )
     code, out, _ = _run(capsys, "models", "history", "loop", "--home", home, "--json")
     history = json.loads(out)
@@ -201,19 +201,56 @@ def test_bad_names_exit_2_and_write_nothing(files, capsys, name, tmp_path):
     assert code == 2
     assert err.startswith("ergodex: error: model name") and err.count("\n") == 1
     assert not (tmp_path / "home").exists()
-    code, _, err = _run(capsys, "models", "show", name + "@1", "--home", files["home"])
-    assert code == 2 and "model name" in err
+    code, _, err = _run(capsys, "models", "show", name + "/1", "--home", files["home"])
+    # "a/b/1" reads as version "b/1" of model "a"
+    assert code == 2 and ("model name" in err or "version after '/'" in err)
+
+
+@pytest.mark.parametrize(
+    "argv",
+    [
+        ["models", "show", "loop@1"],
+        ["models", "accept", "loop@1"],
+        ["models", "history", "loop@1"],
+        ["report", "loop@1"],
+        ["validate", "loop@1", "data.csv"],
+        ["simulate", "loop@1", "--members", "2", "--steps", "3"],
+        ["retrain", "loop@1", "data.csv"],
+        ["register", "MODEL", "--name", "loop", "--parent", "loop@1"],
+    ],
+)
+def test_a_reference_in_the_former_at_form_exits_2_saying_how_to_write_it(files, capsys, argv):
+    argv = [files["model"] if a == "MODEL" else a for a in argv]
+    _run(capsys, "register", files["model"], "--name", "loop", "--home", files["home"])
+    code, out, err = _run(capsys, *argv, "--home", files["home"])
+    assert code == 2 and out == ""
+    assert err.count("\n") == 1 and "write loop/1, not loop@1" in err
+    assert len(Registry(files["home"]).versions("loop")) == 1  # nothing registered
+
+
+def test_a_reference_is_not_taken_for_the_version_folder_of_the_same_path(
+    files, capsys, monkeypatch
+):
+    """Inside the registry home, loop/1 is also a folder: a folder is never a model file."""
+    _run(capsys, "register", files["model"], "--name", "loop", "--home", files["home"])
+    monkeypatch.chdir(files["home"])
+    argv = ["simulate", "loop/1", "--members", "2", "--steps", "3", "--dt", "0.01"]
+    code, out, err = _run(capsys, *argv, "--home", ".")
+    assert code == 0, err
+    lines = out.splitlines()
+    assert lines[0] == "time,run,flow,dT_across,dT_up"  # the registered model's variables
+    assert len(lines) == 1 + 2 * 3
 
 
 def test_unknown_refs_and_missing_reason_are_usage_errors(files, capsys):
     home = files["home"]
     _run(capsys, "register", files["model"], "--name", "loop", "--home", home)
-    code, _, err = _run(capsys, "models", "show", "loop@5", "--home", home)
-    assert code == 2 and "loop@5 does not exist" in err
+    code, _, err = _run(capsys, "models", "show", "loop/5", "--home", home)
+    assert code == 2 and "loop/5 does not exist" in err
     code, _, err = _run(capsys, "models", "show", "loop", "--home", home)
     assert code == 2 and "no accepted version" in err
     with pytest.raises(SystemExit) as info:
-        main(["models", "reject", "loop@1", "--home", home])
+        main(["models", "reject", "loop/1", "--home", home])
     assert info.value.code == 2
     assert "--reason" in capsys.readouterr().err
 
@@ -232,12 +269,12 @@ def test_export_import_round_trip_through_cli(files, capsys, tmp_path):
         home,
     )
     out_dir = tmp_path / "export"
-    code, out, _ = _run(capsys, "models", "export", "loop@1", "--to", str(out_dir), "--home", home)
+    code, out, _ = _run(capsys, "models", "export", "loop/1", "--to", str(out_dir), "--home", home)
     assert code == 0 and (out_dir / "README.md").exists()
     other = str(tmp_path / "other")
     code, out, _ = _run(capsys, "models", "import", str(out_dir), "--name", "copy", "--home", other)
-    assert code == 0 and "copy@1" in out
-    assert Registry(other).load("copy@1") == files["truth"]
+    assert code == 0 and "copy/1" in out
+    assert Registry(other).load("copy/1") == files["truth"]
     # A changed byte in the exported folder: refused, named, nothing registered.
     scorecard = out_dir / "scorecard.json"
     scorecard.write_text(scorecard.read_text().replace("pass", "PASS"))

@@ -1,4 +1,4 @@
-"""``ergodex report NAME[@V]``: the report rebuilt from what the registry stored."""
+"""``ergodex report NAME[/V]``: the report rebuilt from what the registry stored."""
 
 from __future__ import annotations
 
@@ -41,7 +41,7 @@ def without_evidence(registered):
 def test_report_command_writes_the_page_from_the_registry(registered, tmp_path, capsys):
     home, info, result = registered
     out = tmp_path / "page.html"
-    assert main(["report", f"loop@{info.version}", "--out", str(out), "--home", str(home)]) == 0
+    assert main(["report", f"loop/{info.version}", "--out", str(out), "--home", str(home)]) == 0
     assert capsys.readouterr().out.strip() == str(out)
     page = out.read_text(encoding="utf-8")
     verdict = re.search(r'data-verdict="(\w+)"', page)
@@ -60,12 +60,12 @@ def test_report_without_evidence_refuses_unless_asked_and_never_writes_to_cwd(
     info = without_evidence
     monkeypatch.chdir(tmp_path)
     # No evidence stored and no data to recompute it: refused (one line naming --data), no page.
-    assert main(["report", f"loop@{info.version}", "--home", str(home)]) == 2
+    assert main(["report", f"loop/{info.version}", "--home", str(home)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "--data DATA" in err[0] and result.scorecard.data_fingerprint in err[0]
     assert not (home / "reports").exists()
     # Asked for a page without figures: written under the registry home, not the current folder.
-    assert main(["report", f"loop@{info.version}", "--home", str(home), "--no-figures"]) == 0
+    assert main(["report", f"loop/{info.version}", "--home", str(home), "--no-figures"]) == 0
     target = home / "reports" / f"loop-v{info.version}-report.html"
     assert capsys.readouterr().out.strip() == str(target)
     page = target.read_text(encoding="utf-8")
@@ -88,7 +88,7 @@ def test_report_recomputes_missing_evidence_from_the_checked_data(
         main(
             [
                 "report",
-                f"loop@{info.version}",
+                f"loop/{info.version}",
                 "--home",
                 str(home),
                 "--data",
@@ -110,7 +110,7 @@ def test_report_recomputes_missing_evidence_from_the_checked_data(
         main(
             [
                 "report",
-                f"loop@{info.version}",
+                f"loop/{info.version}",
                 "--home",
                 str(home),
                 "--data",
@@ -144,6 +144,6 @@ def test_report_command_unknown_version_exits_2_and_writes_nothing(
 def test_report_command_missing_out_folder_exits_2(registered, tmp_path, capsys):
     home, info, _ = registered
     out = tmp_path / "no" / "such" / "page.html"
-    assert main(["report", f"loop@{info.version}", "--out", str(out), "--home", str(home)]) == 2
+    assert main(["report", f"loop/{info.version}", "--out", str(out), "--home", str(home)]) == 2
     assert "does not exist" in capsys.readouterr().err
     assert not (tmp_path / "no").exists()

@@ -17,8 +17,8 @@ RECORD_KEYS = {
     "outcome",
     "exit_code",
     "standing",
-    "champion",
-    "challenger",
+    "incumbent",
+    "refit",
     "reasons",
     "score_definition",
     "seed",
@@ -61,13 +61,13 @@ def test_first_run_accepts_and_stores_the_report(first_run):
     assert code == 0
     assert record["outcome"] == "first-accepted" and record["exit_code"] == 0
     assert set(record) == RECORD_KEYS
-    assert record["champion"] is None and set(record["challenger"]) == SIDE_KEYS
+    assert record["incumbent"] is None and set(record["refit"]) == SIDE_KEYS
     info = Registry(home).get(LOOP)
     assert info.version == 1 and "report.html" in info.artifacts
 
 
 @pytest.mark.slow
-def test_new_data_from_the_same_loop_exit_0_with_the_champion_kept(first_run, tmp_path, capsys):
+def test_new_data_from_the_same_loop_exit_0_with_the_incumbent_kept(first_run, tmp_path, capsys):
     home, _, _ = first_run
     home = copy_home(home, tmp_path / "home")
     csv = write_csv(tmp_path / "loop-28-new.csv", loop_data(102))
@@ -89,10 +89,10 @@ def test_new_data_from_the_same_loop_exit_0_with_the_champion_kept(first_run, tm
     captured = capsys.readouterr()
     assert code == 0
     record = json.loads(captured.out)  # with '-' the record alone goes to standard output
-    assert record["outcome"] == "kept" and record["standing"] == f"{LOOP}@1"
+    assert record["outcome"] == "kept" and record["standing"] == f"{LOOP}/1"
     assert record["seed"] == 4 and record["spec"]["seed"] == 4
-    assert set(record["champion"]) == SIDE_KEYS
-    assert record["champion"]["verdict"] == "pass"
+    assert set(record["incumbent"]) == SIDE_KEYS
+    assert record["incumbent"]["verdict"] == "pass"
     assert f"retrain {LOOP}: kept" in captured.err  # the summary moves to stderr
 
 
@@ -144,9 +144,9 @@ def test_data_the_configured_method_cannot_represent_exit_1(tmp_path, capsys):
     out = capsys.readouterr().out
     assert code == 1
     assert f"retrain {WELL}: no-acceptable-model (exit code 1)" in out
-    info = Registry(home).get(f"{WELL}@1")
+    info = Registry(home).get(f"{WELL}/1")
     assert info.status == "rejected"
-    assert json.loads(Registry(home).artifact(f"{WELL}@1", "fit-settings.json")) == {
+    assert json.loads(Registry(home).artifact(f"{WELL}/1", "fit-settings.json")) == {
         "method": "sparse",
         "settings": {"degree": 2},
     }

@@ -10,11 +10,11 @@ import pytest
 from scipy.integrate import solve_ivp
 
 from ergodex.cli import main
+from ergodex.model_space import Standardise
 from ergodex.readers import read_series
 from ergodex.scenarios import CONVECTION_LOOP_VARIABLES, lorenz63_rhs, lorenz63_surrogate
 from ergodex.series import Series
 from ergodex.surrogate import Surrogate, Term, polynomial_terms
-from ergodex.transforms import Standardise
 from ergodex.writers import write_csv
 
 NAMES = CONVECTION_LOOP_VARIABLES

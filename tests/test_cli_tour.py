@@ -137,7 +137,7 @@ def test_a_cli_fitted_model_registers_reports_and_retrains_without_hand_written_
             [
                 "models",
                 "accept",
-                "ou@1",
+                "ou/1",
                 "--home",
                 str(home),
                 "--override",
@@ -187,7 +187,7 @@ def test_a_cli_fitted_model_registers_reports_and_retrains_without_hand_written_
     assert code in (0, 1)
     record = json.loads(decision.read_text())
     recorded = Surrogate.from_json(fitted).settings
-    fit = record["challenger"]["fit"]
+    fit = record["refit"]["fit"]
     assert fit["method"] == "linear-inverse" == recorded["method"]
     assert all(recorded[key] == value for key, value in fit["settings"].items())
     assert record["spec"]["members"] == 8
@@ -198,7 +198,7 @@ def test_retrain_accepts_the_same_variables_in_another_column_order(dataset, fit
     home = tmp_path / "home"
     assert main(["register", str(fitted), "--name", "ou", "--home", str(home)]) == 0
     assert (
-        main(["models", "accept", "ou@1", "--home", str(home), "--override", "--reason", "test"])
+        main(["models", "accept", "ou/1", "--home", str(home), "--override", "--reason", "test"])
         == 0
     )
     whole = read_dataset(dataset).series
@@ -229,7 +229,7 @@ def test_retrain_accepts_the_same_variables_in_another_column_order(dataset, fit
         ]
     ) in (0, 1)
     record = json.loads(decision.read_text())
-    assert record["data"]["names"] == list(whole.names)  # put back in the champion's order
+    assert record["data"]["names"] == list(whole.names)  # put back in the incumbent's order
     # the columns were moved, not relabelled: the reference part equals the original runs 3-4
     assert record["data"]["reference_fingerprint"] == whole.select_runs([2, 3]).fingerprint()
 
@@ -242,7 +242,7 @@ def test_validate_simulate_and_report_resolve_registry_references_alike(fitted, 
         main(
             [
                 "simulate",
-                "ou@1",
+                "ou/1",
                 "--members",
                 "2",
                 "--steps",
@@ -260,15 +260,15 @@ def test_validate_simulate_and_report_resolve_registry_references_alike(fitted, 
     capsys.readouterr()
     # an unknown reference is one line, exit 2, for every command
     for argv in (
-        ["validate", "ou@7", str(out)],
-        ["simulate", "ou@7", "--members", "2", "--steps", "5"],
-        ["report", "ou@7"],
+        ["validate", "ou/7", str(out)],
+        ["simulate", "ou/7", "--members", "2", "--steps", "5"],
+        ["report", "ou/7"],
     ):
         assert main([*argv, "--home", str(home)]) == 2
         err = capsys.readouterr().err.strip().splitlines()
-        assert len(err) == 1 and "ou@7" in err[0]
-    assert main(["retrain", "ou@1", str(out), "--home", str(home)]) == 2
-    assert "without @VERSION" in capsys.readouterr().err
+        assert len(err) == 1 and "ou/7" in err[0]
+    assert main(["retrain", "ou/1", str(out), "--home", str(home)]) == 2
+    assert "without /VERSION" in capsys.readouterr().err
 
 
 def test_register_refuses_fit_settings_retrain_could_not_use(fitted, tmp_path, capsys):

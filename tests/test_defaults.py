@@ -17,8 +17,8 @@ import scipy.signal
 
 from ergodex import integrate, scenarios, stats, validation
 from ergodex.fitting import make_fitter
+from ergodex.model_space import DelayEmbedding, Standardise
 from ergodex.series import Series
-from ergodex.transforms import DelayEmbedding, Standardise
 from ergodex.validation import CheckSpec
 
 

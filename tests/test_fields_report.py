@@ -1,4 +1,4 @@
-"""``ergodex report NAME@V`` of a field model redraws the grid maps from the registry; evidence
+"""``ergodex report NAME/V`` of a field model redraws the grid maps from the registry; evidence
 written without maps (older files, the plain check) still reads and reports."""
 
 from __future__ import annotations
@@ -92,7 +92,7 @@ def test_report_from_the_registry_redraws_the_maps_and_old_evidence_still_reads(
         == 0
     )
     out = tmp_path / "again.html"
-    assert main(["report", "sst@1", "--home", str(home), "--out", str(out)]) == 0
+    assert main(["report", "sst/1", "--home", str(home), "--out", str(out)]) == 0
     page = out.read_text()
     assert "Maps on the grid" in page
     assert "Grid-point variance and lag-one autocorrelation of tas anomalies" in page
@@ -119,7 +119,7 @@ def test_report_from_the_registry_redraws_the_maps_and_old_evidence_still_reads(
         )
         == 0
     )
-    assert main(["report", "sst@2", "--home", str(home), "--out", str(out)]) == 0
+    assert main(["report", "sst/2", "--home", str(home), "--out", str(out)]) == 0
     assert "Maps on the grid" not in out.read_text()
 
 

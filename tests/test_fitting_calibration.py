@@ -230,7 +230,7 @@ def test_calibrated_fitter_learns_the_light_tails_a_linear_model_cannot_make():
 
 
 def test_cyclic_rotations_make_the_covariance_circulant_with_fourier_modes():
-    from ergodex.fitting.transforming import cyclic_rotations
+    from ergodex.fitting.reduction import cyclic_rotations
     from ergodex.series import Series
 
     rng = np.random.default_rng(9)

@@ -20,10 +20,10 @@ import numpy as np
 import pytest
 
 from ergodex.fitting import make_fitter
+from ergodex.model_space import transform_series
 from ergodex.pipeline import _demo_recipe
 from ergodex.readers import read_dataset
 from ergodex.surrogate import Surrogate
-from ergodex.transforms import transform_series
 from ergodex.validation import DEFAULT_TOLERANCE, CheckSpec, check
 
 pytestmark = pytest.mark.slow

@@ -837,7 +837,7 @@ CASES += [
     _case(
         "register-name-unicode", ["register", "{H}/ok.json", "--name", "ψ☃", "--home", "{T}/home"]
     ),
-    _case("models-show-missing-home", ["models", "show", "m@1", "--home", "{T}/home"], {2}),
+    _case("models-show-missing-home", ["models", "show", "m/1", "--home", "{T}/home"], {2}),
     _case("models-show-bad-ref", ["models", "show", "m@-1", "--home", "{T}/home"], {2}),
     _case(
         "models-show-huge-version", ["models", "show", "m@" + "9" * 5001, "--home", "{T}/home"], {2}
@@ -873,14 +873,14 @@ CASES += [
         "retrain-json-proc",
         ["retrain", "m", "{H}/data.csv", "--json", "/proc/r.json", "--home", "{T}/home"],
     ),
-    _case("report-out-proc", ["report", "m@1", "--home", "{T}/home", "--out", "/proc/r.html"]),
+    _case("report-out-proc", ["report", "m/1", "--home", "{T}/home", "--out", "/proc/r.html"]),
     _case("report-bad-ref", ["report", "m@zero", "--home", "{T}/home"]),
-    _case("models-accept-missing", ["models", "accept", "m@1", "--home", "{T}/home"]),
+    _case("models-accept-missing", ["models", "accept", "m/1", "--home", "{T}/home"]),
     _case("models-list-missing-home", ["models", "list", "--home", "{T}/home"], ANY),
     _case("demo-bad-scenario", ["demo", "--scenario", "volcano"]),
     _case("demo-seed-negative", ["demo", "--seed", "-5"]),
     _case(
-        "report-missing", ["report", "nothing@1", "--home", "{T}/home", "--out", "{T}/r.html"], {2}
+        "report-missing", ["report", "nothing/1", "--home", "{T}/home", "--out", "{T}/r.html"], {2}
     ),
 ]
 

@@ -221,6 +221,7 @@ for _path in (
     "/models/m/versions/abc",
     "/models/m/versions/1/model.json",
     "/models/m/versions/1/../../../etc/passwd",
+    "/models/m/current/scorecard.json",
     "/models/m/versions/accepted/scorecard.json",
     "/models/m/versions/1/report.html",
     "/models/m/versions/1/secret.txt",

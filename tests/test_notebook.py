@@ -43,7 +43,7 @@ def test_tour_notebook_executes_and_shows_tables_and_figures(tmp_path, monkeypat
     assert any("SparseODE" in h for h in html)
     assert any("<b>Surrogate</b>" in h for h in html)
     assert any("<b>Scorecard</b>" in h for h in html)
-    assert any("convection-loop@1" in h for h in html)
+    assert any("convection-loop/1" in h for h in html)
     images = [o for o in outputs if "image/png" in o.get("data", {})]
     assert len(images) >= 3  # histograms, autocorrelation, the simulated member
     # nothing was written beside the notebook or in the scratch folder but what the cells made

@@ -180,11 +180,11 @@ def test_registry_refuses_to_accept_an_inconclusive_scorecard(short_files, tmp_p
     )
 
 
-def test_retrain_counts_an_inconclusive_challenger_as_not_passed():
+def test_retrain_counts_an_inconclusive_refit_as_not_passed():
     from ergodex.retraining import ModelVerdict
     from ergodex.retraining import _decide as retrain_decide
 
-    ch = ModelVerdict("challenger", "ou@2", 2, "inconclusive", 1.0, ["inconclusive: short"])
+    ch = ModelVerdict("refit", "ou/2", 2, "inconclusive", 1.0, ["inconclusive: short"])
     outcome, reasons = retrain_decide(None, ch)
     assert outcome == "no-acceptable-model"
     assert "was inconclusive" in reasons[0]

@@ -85,12 +85,12 @@ def test_surrogate_and_version_displays(tmp_path, result, model_and_data):
     assert len(repr(model)) < 160
     info = register_checked(Registry(tmp_path / "home"), "ou", model, result, report=False)
     assert repr(info) == (
-        f"VersionInfo('ou@1', status={info.status!r}, "
+        f"VersionInfo('ou/1', status={info.status!r}, "
         f"verdict={result.scorecard.verdict!r}, created={info.created!r})"
     )
     html = info._repr_html_()
     ET.fromstring(html)
-    assert "ou@1" in html and "model.json" in html
+    assert "ou/1" in html and "model.json" in html
 
 
 def test_plots_draw_on_given_axes_and_return_figures_without_pyplot(result):

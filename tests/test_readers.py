@@ -24,10 +24,10 @@ HYPOTHESIS = settings(
 @pytest.fixture(params=["python", "compiled"])
 def parser(request, monkeypatch):
     """Run a CSV test through both parsers: the Python one and the compiled scanner."""
-    import ergodex.readers as readers
+    from ergodex.readers import csv_reader
 
     monkeypatch.setattr(
-        readers, "_FAST_PARSE_MIN_BYTES", 0 if request.param == "compiled" else 1 << 60
+        csv_reader, "_FAST_PARSE_MIN_BYTES", 0 if request.param == "compiled" else 1 << 60
     )
     return request.param
 

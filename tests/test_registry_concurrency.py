@@ -118,7 +118,7 @@ def test_eight_processes_register_200_versions_without_gap_or_repeat(tmp_path):
     reg = Registry(home)
     assert _assert_consistent(reg, "convection-loop") == 200
     for v in (1, 100, 200):
-        assert reg.load(f"convection-loop@{v}") == truth
+        assert reg.load(f"convection-loop/{v}") == truth
 
 
 def _register_forever(home, model, card, evidence) -> None:
@@ -211,9 +211,10 @@ def _kill_self() -> None:
 
 def _register_then_die_at(home, model, card, point) -> None:
     import ergodex.registry as registry_module
+    import ergodex.registry.registration as registration_module
 
     if point == "second-file-written":
-        real = registry_module._write_file
+        real = registration_module._write_file
         calls = []
 
         def write_then_maybe_die(path, data, **kw):
@@ -222,7 +223,7 @@ def _register_then_die_at(home, model, card, point) -> None:
             if len(calls) == 2:
                 _kill_self()
 
-        registry_module._write_file = write_then_maybe_die
+        registration_module._write_file = write_then_maybe_die
     elif point == "moved-into-place":
         real_rename = os.rename
 
@@ -230,7 +231,7 @@ def _register_then_die_at(home, model, card, point) -> None:
             real_rename(src, dst)
             _kill_self()
 
-        registry_module.os.rename = rename_then_die
+        registration_module.os.rename = rename_then_die
     elif point == "indexed-before-commit":
 
         def die(*args, **kwargs):
@@ -265,7 +266,7 @@ def test_sigkill_at_each_step_of_a_registration(tmp_path, point):
         assert any(n.endswith("-convection-loop-2") for n in kept)
     # The crashed registration never took a number: the next one receives 2.
     assert reopened.register("convection-loop", model, scorecard=card).version == 2
-    assert reopened.load("convection-loop@2") == truth
+    assert reopened.load("convection-loop/2") == truth
 
 
 def _register_once(reg, model, card) -> None:

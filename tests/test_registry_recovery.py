@@ -48,7 +48,7 @@ def _tree(home) -> dict[str, str]:
 
 @pytest.fixture()
 def populated(tmp_path):
-    """loop@1 accepted, loop@2 candidate, ring@1 rejected; every registry closed afterwards."""
+    """loop/1 accepted, loop/2 candidate, ring/1 rejected; every registry closed afterwards."""
     truth = lorenz63_surrogate()
     other = lorenz63_surrogate(rho=24.0)
     home = tmp_path / "home"
@@ -56,9 +56,9 @@ def populated(tmp_path):
         reg.register("loop", truth, scorecard=_card(truth), note="first")
         reg.register("loop", other, scorecard=_card(other))
         reg.register("ring", truth, scorecard=_card(truth, "fail"))
-        reg.accept("loop@1", reason="passed")
-        reg.reject("ring@1", reason="failed its check")
-        reg.record_event("loop@1", "drift-check-passed", "new data match")
+        reg.accept("loop/1", reason="passed")
+        reg.reject("ring/1", reason="failed its check")
+        reg.record_event("loop/1", "drift-check-passed", "new data match")
     return home, truth, other
 
 
@@ -66,7 +66,7 @@ def _statuses(reg: Registry) -> dict[str, str]:
     return {i.ref: i.status for m in reg.list_models() for i in reg.versions(m.name)}
 
 
-EXPECTED = {"loop@1": "accepted", "loop@2": "candidate", "ring@1": "rejected"}
+EXPECTED = {"loop/1": "accepted", "loop/2": "candidate", "ring/1": "rejected"}
 
 
 @pytest.mark.parametrize("damage", ["emptied", "deleted", "corrupt"])
@@ -85,7 +85,7 @@ def test_lost_or_corrupt_index_is_rebuilt_from_the_folders(populated, damage, ca
     with caplog.at_level(logging.WARNING, logger="ergodex.registry"):
         reg = Registry(home)
         assert _statuses(reg) == EXPECTED
-    assert "rebuilt loop@1, loop@2, ring@1 from the folders' own records" in caplog.text
+    assert "rebuilt loop/1, loop/2, ring/1 from the folders' own records" in caplog.text
     assert _tree(home) == before  # nothing deleted, nothing changed
     # The history survives, with one "recovered" event per version.
     history = [
@@ -93,7 +93,7 @@ def test_lost_or_corrupt_index_is_rebuilt_from_the_folders(populated, damage, ca
     ]
     assert history == history_before
     assert sum(e.event == "recovered" for e in reg.history("loop")) == 2
-    assert reg.load("loop") == truth and reg.load("loop@2") == other
+    assert reg.load("loop") == truth and reg.load("loop/2") == other
     assert all(i.integrity == "ok" for i in reg.check_integrity())
     if damage == "corrupt":  # the damaged file is kept for inspection, never deleted
         kept = [p for p in (home / QUARANTINE_DIR).iterdir() if p.name.endswith(INDEX_FILE)]
@@ -133,23 +133,23 @@ def test_older_copy_of_the_index_is_detected_and_folders_win(populated, caplog):
     backup = home.parent / "backup.sqlite3"
     shutil.copyfile(home / INDEX_FILE, backup)
     with Registry(home) as reg:
-        reg.register("loop", truth, scorecard=_card(truth))  # loop@3
-        reg.accept("loop@2")  # retires loop@1
-        reg.record_event("loop@2", "drift-detected", "spectrum moved")
+        reg.register("loop", truth, scorecard=_card(truth))  # loop/3
+        reg.accept("loop/2")  # retires loop/1
+        reg.record_event("loop/2", "drift-detected", "spectrum moved")
         expected = _statuses(reg)
         events = [(e.version, e.event, e.reason) for e in reg.history("loop")]
     assert expected == {
         **EXPECTED,
-        "loop@1": "retired",
-        "loop@2": "accepted",
-        "loop@3": "candidate",
+        "loop/1": "retired",
+        "loop/2": "accepted",
+        "loop/3": "candidate",
     }
     shutil.copyfile(backup, home / INDEX_FILE)  # the older copy is restored
     with caplog.at_level(logging.WARNING, logger="ergodex.registry"):
         reg = Registry(home)
         assert _statuses(reg) == expected
     assert "older than the version folders" in caplog.text
-    assert "loop@1" in caplog.text and "loop@3" in caplog.text and "ring@1" not in caplog.text
+    assert "loop/1" in caplog.text and "loop/3" in caplog.text and "ring/1" not in caplog.text
     # Same events (events of one millisecond may come back in another order across versions).
     assert sorted(
         (e.version, e.event, e.reason) for e in reg.history("loop") if e.event != "recovered"
@@ -181,36 +181,36 @@ def test_changed_scorecard_is_shown_as_failing_integrity(populated, capsys):
     card.write_text(json.dumps({**_card(truth), "verdict": "pass", "edited": True}))
     actual = _sha256(card)
     reg = Registry(home)
-    info = reg.get("loop@1")
+    info = reg.get("loop/1")
     assert (info.status, info.integrity) == ("accepted", "failed")
     assert info.integrity_problems == [f"{card}: expected sha256 {expected}, actual {actual}"]
-    assert reg.get("loop@2").integrity == "ok"
+    assert reg.get("loop/2").integrity == "ok"
     assert [m.integrity_failed for m in reg.list_models()] == [[1], []]
     with pytest.raises(IntegrityError, match="sha256 mismatch"):
         reg.load("loop")
 
-    code = main(["models", "show", "loop@1", "--home", str(home)])
+    code = main(["models", "show", "loop/1", "--home", str(home)])
     out = capsys.readouterr().out
     assert code == 0 and "[accepted, INTEGRITY FAILED]" in out
     assert "scorecard:   pass (unverified: files changed)" in out
     code = main(["models", "list", "--home", str(home)])
-    assert "INTEGRITY FAILED: @1" in capsys.readouterr().out
+    assert "INTEGRITY FAILED: loop/1" in capsys.readouterr().out
     code = main(["models", "history", "loop", "--home", str(home)])
-    assert "loop@1 INTEGRITY FAILED" in capsys.readouterr().out
+    assert "loop/1 INTEGRITY FAILED" in capsys.readouterr().out
     code = main(["models", "verify", "--home", str(home)])
     out = capsys.readouterr().out
     assert code == 1
-    assert "FAILED  loop@1 (accepted)" in out and str(card) in out
+    assert "FAILED  loop/1 (accepted)" in out and str(card) in out
     assert expected in out and actual in out
     assert "3 versions checked" in out and "1 with changed files" in out
-    code = main(["models", "verify", "loop@2", "--home", str(home), "--json"])
+    code = main(["models", "verify", "loop/2", "--home", str(home), "--json"])
     report = json.loads(capsys.readouterr().out)
     assert code == 0 and report["ok"] and report["versions"][0]["integrity"] == "ok"
 
     # The index lost as well: the rebuilt index keeps the hashes the folder recorded, so the
     # change is still caught.
     (home / INDEX_FILE).unlink()
-    assert Registry(home).get("loop@1").integrity == "failed"
+    assert Registry(home).get("loop/1").integrity == "failed"
 
 
 def test_scorecard_of_another_model_is_refused(tmp_path, capsys):
@@ -251,14 +251,14 @@ def test_accepting_retires_the_previous_version_in_one_step(tmp_path):
     reg = Registry(tmp_path / "home")
     for _ in range(3):
         reg.register("loop", truth, scorecard=_card(truth))
-    reg.accept("loop@1")
-    reg.accept("loop@3")
+    reg.accept("loop/1")
+    reg.accept("loop/3")
     assert {i.version: i.status for i in reg.versions("loop")} == {
         1: "retired",
         2: "candidate",
         3: "accepted",
     }
-    retired = [e for e in reg.history("loop@1") if e.event == "retired"]
+    retired = [e for e in reg.history("loop/1") if e.event == "retired"]
     assert [(e.from_status, e.to_status, e.reason) for e in retired] == [
         ("accepted", "retired", "replaced by version 3")
     ]
@@ -275,10 +275,10 @@ def test_refused_acceptance_changes_nothing(tmp_path):
     reg = Registry(tmp_path / "home")
     reg.register("loop", truth, scorecard=_card(truth))
     reg.register("loop", truth, scorecard=_card(truth, "fail"))
-    reg.accept("loop@1")
+    reg.accept("loop/1")
     with pytest.raises(RegistryError, match="cannot be accepted"):
-        reg.accept("loop@2")
-    assert reg.get("loop").version == 1 and reg.get("loop@1").status == "accepted"
+        reg.accept("loop/2")
+    assert reg.get("loop").version == 1 and reg.get("loop/1").status == "accepted"
 
 
 def test_folder_written_before_status_records_gets_one(populated):
@@ -311,7 +311,7 @@ def test_cli_warns_on_stderr_when_it_rebuilds(populated):
         check=False,
     )
     assert proc.returncode == 0
-    assert "WARNING" in proc.stderr and "rebuilt loop@1, loop@2, ring@1" in proc.stderr
+    assert "WARNING" in proc.stderr and "rebuilt loop/1, loop/2, ring/1" in proc.stderr
     assert "loop" in proc.stdout and "ring" in proc.stdout and "no models" not in proc.stdout
 
 
@@ -331,12 +331,12 @@ def test_service_marks_a_changed_version_and_keeps_server_paths_out(populated):
         ServerProcess(home, workers=1) as server,
         httpx.Client(base_url=server.url, timeout=60) as client,
     ):
-        shown = client.get("/models/loop/versions/accepted").json()
+        shown = client.get("/models/loop/current").json()
         listing = client.get("/models").json()["models"]
         fine = client.get("/models/loop/versions/2").json()
     assert (shown["status"], shown["integrity"]) == ("accepted", "failed")
     assert shown["integrity_problems"] == [
-        f"loop@1/scorecard.json: expected sha256 {expected}, actual {actual}"
+        f"loop/1/scorecard.json: expected sha256 {expected}, actual {actual}"
     ]
     assert [m["integrity_failed"] for m in listing] == [[1], []]
     assert fine["integrity"] == "ok" and fine["integrity_problems"] == []

@@ -164,7 +164,7 @@ def test_failing_surrogate_puts_failing_rows_first_and_says_fail(collapsed_model
 
 
 def test_failing_surrogate_curves_leave_the_reference_band(true_model, collapsed_model):
-    from ergodex.report.html import _by_variable
+    from ergodex.report.markup import _by_variable
 
     # What the autocorrelation figure draws, in the layout it draws it: at rho = 22 the members
     # spiral towards the fixed points, so the surrogate's autocorrelation stays high and leaves

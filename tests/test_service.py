@@ -190,6 +190,75 @@ def test_a_job_failed_as_interrupted_cannot_be_finished_by_its_old_worker(tmp_pa
     assert store.get(second.id).state == "queued"
 
 
+def test_a_retrain_result_stored_by_an_earlier_server_is_shown_with_todays_side_names(tmp_path):
+    from ergodex.service.app import _job_out
+
+    store = JobStore(tmp_path / "jobs.sqlite3")
+    store.submit("retrain", {"name": "loop"})
+    job = store.claim(worker_pid=12345)
+    side = {"ref": "loop/1", "verdict": "pass", "score": 0.8}
+    old = {
+        "format": "ergodex-decision/1",
+        "outcome": "kept",
+        "champion": {**side, "role": "champion"},
+        "challenger": {**side, "ref": "loop/2", "role": "challenger"},
+    }
+    assert store.succeed(job.id, job.claim, old)
+    shown = _job_out(store.get(job.id)).result
+    assert shown["format"] == "ergodex-decision/2"
+    assert shown["incumbent"] == {**side, "role": "incumbent"}
+    assert shown["refit"] == {**side, "ref": "loop/2", "role": "refit"}
+    assert "champion" not in shown and "challenger" not in shown
+
+
+def test_current_serves_the_accepted_version_and_the_former_alias_names_the_new_path(tmp_path):
+    from fastapi.testclient import TestClient
+
+    from ergodex.registry import Registry
+    from ergodex.scenarios import lorenz63_surrogate
+    from ergodex.service.app import create_app
+    from ergodex.service.settings import ServiceSettings
+
+    truth = lorenz63_surrogate()
+    registry = Registry(tmp_path / "home")
+    card = {
+        "verdict": "pass",
+        "data_fingerprint": "sha256:" + "ab" * 32,
+        "model_fingerprint": truth.fingerprint(),
+    }
+    for _ in range(2):
+        registry.register("loop", truth, scorecard=card)
+    registry.accept("loop/1")
+    app = create_app(ServiceSettings(home=registry.home, token=TOKEN), start_workers=False)
+    with TestClient(app, raise_server_exceptions=False) as client:
+        shown = client.get("/models/loop/current").json()
+        assert (shown["ref"], shown["status"]) == ("loop/1", "accepted")
+        response = client.get("/models/loop/current/model.json")
+        assert response.status_code == 200
+        assert response.content == registry.artifact("loop/1", "model.json")
+        assert client.get("/models/loop/versions/2").json()["ref"] == "loop/2"
+        for old, now in (
+            ("/models/loop/versions/accepted", "/models/loop/current"),
+            ("/models/loop/versions/accepted/model.json", "/models/loop/current/model.json"),
+        ):
+            response = client.get(old)
+            assert response.status_code == 404
+            assert response.json() == {
+                "code": "not-found",
+                "message": f"{old} is now {now}: use that path",
+            }
+        refused = client.post(
+            "/jobs/validate",
+            json={"name": "loop", "version": "accepted", "dataset": "0" * 64},
+            headers=auth(),
+        )
+        assert refused.status_code == 422
+        assert "write 'current', not 'accepted'" in refused.json()["message"]
+        paths = app.openapi()["paths"]
+        assert "/models/{name}/current/model.json" in paths
+        assert not any("accepted" in path for path in paths)
+
+
 # -- against a running server -----------------------------------------------------------------
 
 
@@ -399,19 +468,19 @@ def test_upload_fit_validate_accept_download_round_trip(served):
     if fitted["result"]["verdict"] == "pass":
         assert accepted.status_code == 200, accepted.text
         assert accepted.json()["status"] == "accepted"
-        served_ref = "accepted"
+        served_ref = "current"
     else:  # the registry refuses a failed scorecard without an override: a 409, not a 500
         assert accepted.status_code == 409 and accepted.json()["code"] == "status-conflict"
-        served_ref = str(version)
+        served_ref = f"versions/{version}"
 
     registry = Registry(server.home)
     for filename in ("model.json", "scorecard.json", "report.html"):
-        response = client.get(f"/models/convection-loop/versions/{served_ref}/{filename}")
+        response = client.get(f"/models/convection-loop/{served_ref}/{filename}")
         assert response.status_code == 200, (filename, response.text)
-        assert response.content == registry.artifact(f"convection-loop@{version}", filename)
+        assert response.content == registry.artifact(f"convection-loop/{version}", filename)
         assert (
             response.headers["etag"].strip('"')
-            == registry.get(f"convection-loop@{version}").artifacts[filename]
+            == registry.get(f"convection-loop/{version}").artifacts[filename]
         )
     events = client.get("/models/convection-loop/history").json()["events"]
     assert [e["event"] for e in events][:1] == ["registered"]
@@ -589,7 +658,7 @@ def test_killed_server_or_worker_fails_its_job_and_the_queued_ones_still_run(tmp
     registry = Registry(home)
     # The interrupted fit left no version behind, and every stored byte matches its hash.
     assert [m.name for m in registry.list_models()] == ["truth"]
-    registry.verify("truth@1")
+    registry.verify("truth/1")
     assert [e.event for e in registry.history("truth")] == ["registered", "checked"]
 
 

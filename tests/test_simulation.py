@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 import scipy.linalg
 
+from ergodex.model_space import Standardise
 from ergodex.surrogate import Surrogate, polynomial_terms
-from ergodex.transforms import Standardise
 
 xr = pytest.importorskip("xarray")
 

@@ -315,7 +315,7 @@ def test_from_pysindy_refuses_unsupported_terms():
 
 def _hidden_level_surrogate(rng: np.random.Generator, observed=("mode_1", "mode_2")):
     """Two PCA modes of five data columns plus two hidden variables (a memory level)."""
-    from ergodex.transforms import PCA
+    from ergodex.model_space import PCA
 
     mixing = rng.normal(size=(5, 5))
     X = rng.normal(size=(400, 5)) @ mixing + rng.normal(size=5)

@@ -110,8 +110,8 @@ def test_true_ring_equations_in_pca_coordinates_pass_on_their_leading_modes():
     from pathlib import Path
 
     from ergodex import scenarios
+    from ergodex.model_space import PCA
     from ergodex.readers import read_dataset
-    from ergodex.transforms import PCA
 
     folder = Path(__file__).resolve().parents[1] / "datasets" / "station-ring"
     if not folder.is_dir():

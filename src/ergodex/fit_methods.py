@@ -13,6 +13,6 @@ __all__ = ["FIT_METHODS"]
 FIT_METHODS: dict[str, tuple[str, str]] = {
     "sparse": ("ergodex.fitting.sparse", "SparseODE"),
     "linear-inverse": ("ergodex.fitting.linear_inverse", "LinearInverseModel"),
-    "quadratic-noise": ("ergodex.fitting.closure", "QuadraticNoiseModel"),
+    "quadratic-noise": ("ergodex.fitting.quadratic_noise", "QuadraticNoiseModel"),
     "calibrated-linear-inverse": ("ergodex.fitting.calibrated", "CalibratedLinearInverse"),
 }

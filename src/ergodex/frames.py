@@ -195,13 +195,13 @@ def _finish_frame(
     time_unit=None,
 ):
     """dt from the times (the CSV reader's rules), then the runs through the readers' checks."""
-    from ergodex import readers
+    from ergodex.readers import shared
 
-    tol = readers.DEFAULT_TIME_TOLERANCE if time_tolerance is None else time_tolerance
-    dt_arg = readers._check_dt_argument(dt, source)
+    tol = shared.DEFAULT_TIME_TOLERANCE if time_tolerance is None else time_tolerance
+    dt_arg = shared._check_dt_argument(dt, source)
     try:
-        dt_final = readers._check_time(times, bounds, column, dt_arg, tol, source, where)
-    except readers._DtMismatch as exc:
+        dt_final = shared._check_time(times, bounds, column, dt_arg, tol, source, where)
+    except shared._DtMismatch as exc:
         if not dt_is_hint:
             raise
         dt_final = exc.own
@@ -217,8 +217,8 @@ def _finish_frame(
             block = block[: finite_rows[-1] + 1] if finite_rows.size else block[:0]
             if not len(block):
                 raise DataError(f"{source}: run {label!r} has no values (every row is missing)")
-        runs.append(readers._Run(values=block, label=label, where=lambda r, a=a: where(a + r)))
-    return readers._finish(
+        runs.append(shared._Run(values=block, label=label, where=lambda r, a=a: where(a + r)))
+    return shared._finish(
         runs,
         names,
         dt_final,

@@ -111,9 +111,9 @@ def fit_check_register(
     flow.folder = Path(info.folder)
     flow.status = info.status
     if accept and result.scorecard.passed:
-        registry.accept(f"{name}@{info.version}", reason="scorecard passed on held-out runs")
+        registry.accept(info.ref, reason="scorecard passed on held-out runs")
         flow.status = "accepted"
-    log.info("registered %s@%s (%s)", name, info.version, flow.status)
+    log.info("registered %s (%s)", info.ref, flow.status)
     return flow
 
 

@@ -1,50 +1,50 @@
-"""Retraining on new data: re-check the accepted model, fit a challenger, keep the better one.
+"""Retraining on new data: re-check the accepted model, refit, keep the better one.
 
 Observing systems and simulation campaigns keep producing data. :func:`retrain` takes the new data
 and the registered model name and makes one documented decision:
 
 1. **Split.** The new data are split into a fitting part and a held-out *reference* part
    (:func:`split_for_retrain`): whole runs when there are several, the last blocks of the run
-   otherwise. Neither model is ever checked on the runs the challenger was fitted on. The new
-   data may list the champion's variables in any column order; they are put in its order first
+   otherwise. Neither model is ever checked on the runs the refit was fitted on. The new
+   data may list the incumbent's variables in any column order; they are put in its order first
    (:func:`ergodex.validation.align_columns`).
-2. **Drift check.** The accepted version (the *champion*, the newest accepted version of the
+2. **Drift check.** The accepted version (the *incumbent*, the newest accepted version of the
    name) is checked against the reference with the seed given and the check spec recorded in its
    own scorecard (:func:`resolve_spec`; so the re-check repeats the check it was accepted on),
-   or the spec given. A champion that fails has *drifted*: the system no longer behaves as the
+   or the spec given. An incumbent that fails has *drifted*: the system no longer behaves as the
    data it was accepted on.
-3. **Challenger.** A new model is fitted on the fitting part with the champion's recorded fit
+3. **Refit.** A new model is fitted on the fitting part with the incumbent's recorded fit
    settings (its ``fit-settings`` file, else the method and settings its own model file records:
    :func:`fit_settings_from_model`), or the settings given, and checked against the *same*
    reference with the *same* spec and seed, so the two scorecards stand side by side on the same
    evidence.
-4. **Register and decide.** The challenger is always registered (as a candidate, with lineage:
-   ``parent`` = the champion's version, ``datasets`` = fingerprints of the fitting and reference
+4. **Register and decide.** The refit is always registered (as a candidate, with lineage:
+   ``parent`` = the incumbent's version, ``datasets`` = fingerprints of the fitting and reference
    parts, ``fit-settings.json`` = what it was fitted with). Then:
 
    ============================  ==============================  ======================  =====
-   champion                      challenger                      outcome                 exit
+   incumbent                     refit                           outcome                 exit
    ============================  ==============================  ======================  =====
    none (first run)              passes                          ``first-accepted``      0
    none (first run)              fails                           ``no-acceptable-model`` 1
    passes the drift check        any                             ``kept``                0
-   drifted                       passes, score <= champion's     ``replaced``            0
-   drifted                       fails, or score > champion's    ``no-acceptable-model`` 1
+   drifted                       passes, score <= incumbent's    ``replaced``            0
+   drifted                       fails, or score > incumbent's   ``no-acceptable-model`` 1
    ============================  ==============================  ======================  =====
 
-   A champion that still passes stays: a model fitted on a new sample of the same system is no
+   An incumbent that still passes stays: a model fitted on a new sample of the same system is no
    better on this evidence than one that already matches it, and swapping models on sampling
-   noise alone would make downstream results change for no reason. A challenger that passes
-   while the champion stands stays a *candidate* (a person may accept it); one that fails is
-   *rejected* with its reasons. Every re-check leaves an event in the champion's history,
+   noise alone would make downstream results change for no reason. A refit that passes
+   while the incumbent stands stays a *candidate* (a person may accept it); one that fails is
+   *rejected* with its reasons. Every re-check leaves an event in the incumbent's history,
    ``drift-check-passed`` or ``drift-detected`` (with the score, the rows that failed and the
-   data fingerprint); a passing challenger that is not promoted gets ``not-promoted`` with the
+   data fingerprint); a passing refit that is not promoted gets ``not-promoted`` with the
    reason. An *inconclusive* check (the new record is too short to tell, or its runs disagree)
-   is not a pass: it counts as "fails" / "drifted" in the table, the champion's event is then
+   is not a pass: it counts as "fails" / "drifted" in the table, the incumbent's event is then
    ``drift-check-inconclusive``, and the reasons say the record, not the model, was lacking.
-   A name has one accepted version: promoting the challenger retires the champion in the same
+   A name has one accepted version: promoting the refit retires the incumbent in the same
    registry transaction (event ``retired``, reason ``replaced by version N``); a
-   drifted champion that is not replaced stays accepted. Nothing is ever deleted.
+   drifted incumbent that is not replaced stays accepted. Nothing is ever deleted.
 
 **The shared score** (:func:`shared_score`) is the scorecard's *largest row ratio*: the largest,
 over every statistic × variable (or regime) row, of model distance ÷ reference noise floor. Lower is
@@ -75,16 +75,22 @@ from dataclasses import dataclass, field, replace
 from typing import Any
 
 from ergodex import CAUTION
-from ergodex.exceptions import DataError, ModelLimitError, SettingsError
+from ergodex.exceptions import DataError, ModelFileError, ModelLimitError, SettingsError
 from ergodex.files import atomic_write_text
-from ergodex.host import utc_now
 from ergodex.jsonable import jsonable
 from ergodex.series import Series, split_blocks, split_runs
+from ergodex.timestamps import utc_now
 
 log = logging.getLogger(__name__)
 
-#: Version tag of the decision record written by :meth:`Decision.to_dict`.
-DECISION_FORMAT = "ergodex-decision/1"
+#: Version tag of the decision record written by :meth:`Decision.to_dict`. Version 2 names the
+#: two sides ``incumbent`` and ``refit``; :func:`upgrade_decision` still reads version 1.
+DECISION_FORMAT = "ergodex-decision/2"
+#: Earlier version tags :func:`upgrade_decision` reads, each with its side keys → today's keys
+#: (the same words are the sides' ``role`` values).
+OLD_DECISION_FORMATS: dict[str, dict[str, str]] = {
+    "ergodex-decision/1": {"champion": "incumbent", "challenger": "refit"},
+}
 
 #: Outcomes, each with the exit code the command line returns for it.
 OUTCOMES: dict[str, int] = {
@@ -115,9 +121,9 @@ class ModelVerdict:
     Attributes
     ----------
     role : str
-        ``"champion"`` or ``"challenger"``.
+        ``"incumbent"`` or ``"refit"``.
     ref : str or None
-        Registry reference ``"name@version"`` (``None`` only if nothing was registered).
+        Registry reference ``"name/version"`` (``None`` only if nothing was registered).
     version : int or None
     verdict : str
         ``"pass"``, ``"fail"`` or ``"inconclusive"`` of the scorecard (only pass counts as
@@ -134,7 +140,7 @@ class ModelVerdict:
     rows : list of dict
         Per-row ``statistic``, ``variable``, ``ratio``, ``verdict`` (side-by-side evidence).
     fit : dict or None
-        For the challenger: ``{"method": ..., "settings": {...}}`` it was fitted with.
+        For the refit: ``{"method": ..., "settings": {...}}`` it was fitted with.
     """
 
     role: str
@@ -182,12 +188,12 @@ class Decision:
         One of :data:`OUTCOMES`: ``"first-accepted"``, ``"kept"``, ``"replaced"``,
         ``"no-acceptable-model"``.
     standing : str or None
-        The version ``Registry.load(name)`` returns after this decision: the challenger when
-        it was accepted, else the champion — with outcome ``no-acceptable-model`` that is the
-        drifted champion, still loaded downstream until someone acts (hence exit code 1);
+        The version ``Registry.load(name)`` returns after this decision: the refit when
+        it was accepted, else the incumbent — with outcome ``no-acceptable-model`` that is the
+        drifted incumbent, still loaded downstream until someone acts (hence exit code 1);
         ``None`` after a failed first run.
-    champion, challenger : ModelVerdict or None
-        Both sides of the comparison (``champion`` is ``None`` on a first run).
+    incumbent, refit : ModelVerdict or None
+        Both sides of the comparison (``incumbent`` is ``None`` on a first run).
     reasons : list of str
         Why the decision went this way, one sentence each.
     seed : int
@@ -206,8 +212,8 @@ class Decision:
     name: str
     outcome: str
     standing: str | None
-    champion: ModelVerdict | None
-    challenger: ModelVerdict | None
+    incumbent: ModelVerdict | None
+    refit: ModelVerdict | None
     reasons: list[str]
     seed: int
     holdout: Any
@@ -229,8 +235,8 @@ class Decision:
             "outcome": self.outcome,
             "exit_code": self.exit_code,
             "standing": self.standing,
-            "champion": None if self.champion is None else self.champion.to_dict(),
-            "challenger": None if self.challenger is None else self.challenger.to_dict(),
+            "incumbent": None if self.incumbent is None else self.incumbent.to_dict(),
+            "refit": None if self.refit is None else self.refit.to_dict(),
             "reasons": list(self.reasons),
             "score_definition": SCORE_DEFINITION,
             "seed": self.seed,
@@ -243,8 +249,8 @@ class Decision:
     def to_dict(self) -> dict[str, Any]:
         """The decision record (stable keys, documented here and in the module docs).
 
-        Keys: ``format`` (``"ergodex-decision/1"``), ``name``, ``outcome``, ``exit_code``,
-        ``standing``, ``champion`` and ``challenger`` (each ``null`` or a dict with ``role``,
+        Keys: ``format`` (``"ergodex-decision/2"``), ``name``, ``outcome``, ``exit_code``,
+        ``standing``, ``incumbent`` and ``refit`` (each ``null`` or a dict with ``role``,
         ``ref``, ``version``, ``status``, ``verdict``, ``score``, ``blowups``, ``reasons``,
         ``model_fingerprint``, ``fit``, ``rows``), ``reasons``, ``score_definition``, ``seed``,
         ``holdout``, ``data``, ``spec``, ``caution``, and ``times`` (``started``, ``finished``:
@@ -266,9 +272,9 @@ class Decision:
         lines = [f"retrain {self.name}: {self.outcome} (exit code {self.exit_code})"]
         src = self.data.get("source") or "data"
         lines.append(f"  data       {src} ({self.data.get('fingerprint', '')[:19]}…)")
-        for side in (self.champion, self.challenger):
+        for side in (self.incumbent, self.refit):
             if side is None:
-                lines.append("  champion   (none: first run)")
+                lines.append("  incumbent  (none: first run)")
                 continue
             score = "inf" if not math.isfinite(side.score) else f"{side.score:.3g}"
             lines.append(
@@ -281,6 +287,61 @@ class Decision:
             lines.append(f"  - {reason}")
         lines.append(f"  {CAUTION}")
         return "\n".join(lines)
+
+
+def upgrade_decision(record: Mapping[str, Any], source: str = "decision record") -> dict[str, Any]:
+    """A decision record of any version this ergodex reads, in today's shape.
+
+    A version-1 record (``ergodex-decision/1``) names its sides ``champion`` and ``challenger``:
+    they become ``incumbent`` and ``refit`` (keys and ``role`` values), and ``format`` becomes
+    :data:`DECISION_FORMAT`. A record of today's version that still uses an old key was written
+    by hand or by a broken tool and is refused, as is an unknown version.
+
+    Raises
+    ------
+    ModelFileError
+        One line naming ``source``, the format and the key.
+    """
+    fmt = record.get("format")
+    old_keys = {old for renames in OLD_DECISION_FORMATS.values() for old in renames}
+    if fmt == DECISION_FORMAT:
+        for key in sorted(old_keys & set(record)):
+            new = next(r[key] for r in OLD_DECISION_FORMATS.values() if key in r)
+            raise ModelFileError(
+                f"{source}: a {DECISION_FORMAT} record names its side {new!r}, not {key!r}; "
+                f"rename the key {key!r} to {new!r}"
+            )
+        return dict(record)
+    if fmt not in OLD_DECISION_FORMATS:
+        raise ModelFileError(
+            f"{source}: format {fmt!r} is not a decision record this ergodex reads "
+            f"({', '.join([DECISION_FORMAT, *OLD_DECISION_FORMATS])})"
+        )
+    renames = OLD_DECISION_FORMATS[fmt]
+    out: dict[str, Any] = {}
+    for key, value in record.items():
+        if key in renames:
+            side = dict(value) if isinstance(value, Mapping) else value
+            if isinstance(side, dict) and side.get("role") in renames:
+                side["role"] = renames[side["role"]]
+            out[renames[key]] = side
+        else:
+            out[key] = value
+    out["format"] = DECISION_FORMAT
+    return out
+
+
+def read_decision(path: str | os.PathLike[str]) -> dict[str, Any]:
+    """Read a decision record file (``--json`` of ``ergodex retrain``, ``*.decision.json`` of
+    ``ergodex watch``) of any version this ergodex reads, in today's shape
+    (:func:`upgrade_decision`)."""
+    from ergodex.limits import load_json_text, read_text_file
+
+    text = read_text_file(path, "decision record", error=ModelFileError)
+    record = load_json_text(text, str(path), error=ModelFileError)
+    if not isinstance(record, dict):
+        raise ModelFileError(f"{path}: a decision record is a JSON object")
+    return upgrade_decision(record, str(path))
 
 
 # --- pieces -------------------------------------------------------------------------------------
@@ -379,9 +440,9 @@ def fit_settings_from_model(surrogate: Any, *, source: str = "model") -> tuple[s
 
 
 def _resolve_fit(
-    config: Any, registry: Any, champion_info: Any, champion: Any = None
+    config: Any, registry: Any, incumbent_info: Any, incumbent: Any = None
 ) -> tuple[str, dict]:
-    """(method, settings) for the challenger: the config given, else the champion's record
+    """(method, settings) for the refit: the config given, else the incumbent's record
     (its ``fit-settings`` file, else the settings in its model file)."""
     from ergodex.fitting import load_fit_settings, parse_fit_settings
 
@@ -399,10 +460,10 @@ def _resolve_fit(
             "config must be a fit-settings TOML path, a (method, settings) pair or a mapping with "
             f"'method' and 'settings'; got {type(config).__name__}"
         )
-    if champion_info is None:
+    if incumbent_info is None:
         return DEFAULT_FIT[0], dict(DEFAULT_FIT[1])
-    ref = champion_info.ref
-    if "fit-settings.json" in champion_info.artifacts:
+    ref = incumbent_info.ref
+    if "fit-settings.json" in incumbent_info.artifacts:
         text = registry.artifact(ref, "fit-settings.json").decode("utf-8")
         try:
             recorded = json.loads(text)
@@ -413,19 +474,19 @@ def _resolve_fit(
         if not isinstance(recorded, Mapping):
             raise SettingsError(f"fit settings recorded with {ref} are not a table: {recorded!r}")
         return parse_fit_settings(recorded, source=f"fit settings recorded with {ref}")
-    if "fit-settings.toml" in champion_info.artifacts:
+    if "fit-settings.toml" in incumbent_info.artifacts:
         return load_fit_settings(registry.artifact_path(ref, "fit-settings.toml"))
-    if champion is None:
-        champion = registry.load(ref)
-    return fit_settings_from_model(champion, source=ref)
+    if incumbent is None:
+        incumbent = registry.load(ref)
+    return fit_settings_from_model(incumbent, source=ref)
 
 
-def resolve_spec(spec: Any, registry: Any, champion_info: Any, seed: int) -> Any:
+def resolve_spec(spec: Any, registry: Any, incumbent_info: Any, seed: int) -> Any:
     """The check spec both models are checked with.
 
     ``spec`` given as a :class:`~ergodex.validation.CheckSpec` is used as it is. Otherwise the
-    base is the spec recorded in the champion's scorecard (so the drift check repeats the check
-    the champion was accepted on: same members, lengths, regimes, tolerances), or the default
+    base is the spec recorded in the incumbent's scorecard (so the drift check repeats the check
+    the incumbent was accepted on: same members, lengths, regimes, tolerances), or the default
     spec on a first run; a mapping given as ``spec`` overrides single settings of that base
     (``{"members": 8}``). The seed is always replaced by ``seed``.
     """
@@ -435,11 +496,11 @@ def resolve_spec(spec: Any, registry: Any, champion_info: Any, seed: int) -> Any
         base = spec
     elif spec is None or isinstance(spec, Mapping):
         base = CheckSpec()
-        if champion_info is not None and "scorecard.json" in champion_info.artifacts:
-            recorded = json.loads(registry.artifact(champion_info.ref, "scorecard.json"))
+        if incumbent_info is not None and "scorecard.json" in incumbent_info.artifacts:
+            recorded = json.loads(registry.artifact(incumbent_info.ref, "scorecard.json"))
             if isinstance(recorded, Mapping) and isinstance(recorded.get("spec"), Mapping):
                 base = CheckSpec.from_dict(dict(recorded["spec"]))
-                log.info("check spec: as recorded with %s", champion_info.ref)
+                log.info("check spec: as recorded with %s", incumbent_info.ref)
         if spec:
             merged = base.to_dict()
             merged.update(dict(spec))
@@ -453,20 +514,20 @@ def resolve_spec(spec: Any, registry: Any, champion_info: Any, seed: int) -> Any
     return out
 
 
-def find_champion(registry: Any, name: str) -> Any | None:
+def find_incumbent(registry: Any, name: str) -> Any | None:
     """The newest accepted version of ``name`` (its ``VersionInfo``), or ``None`` if there is none.
 
-    A name never registered, or registered without an accepted version, has no champion: the
+    A name never registered, or registered without an accepted version, has no incumbent: the
     retrain is then a first run.
     """
-    from ergodex.registry import validate_name
+    from ergodex.registry import format_ref, validate_name
 
     validate_name(name)
     for summary in registry.list_models():
         if summary.name == name:
             if summary.accepted is None:
                 return None
-            return registry.get(f"{name}@{summary.accepted}")
+            return registry.get(format_ref(name, summary.accepted))
     return None
 
 
@@ -515,7 +576,7 @@ def retrain(
     report: bool = True,
     progress: Any = False,
 ) -> Decision:
-    """Re-check the accepted model on new data, fit and check a challenger, and decide.
+    """Re-check the accepted model on new data, refit and check the new model, and decide.
 
     Parameters
     ----------
@@ -526,7 +587,7 @@ def retrain(
         The new data (a path is read with :func:`ergodex.readers.read_series`, a table converted
         by :func:`ergodex.frames.as_series`).
     config : path-like, (method, settings) pair or mapping, optional
-        Fit settings for the challenger; default: the champion's recorded fit settings (its
+        Fit settings for the refit; default: the incumbent's recorded fit settings (its
         ``fit-settings`` file, else its model file's record; the sparse fitter's defaults on a
         first run).
     spec : ergodex.validation.CheckSpec or mapping, optional
@@ -537,10 +598,10 @@ def retrain(
     holdout : float, int or sequence
         What to hold out as the shared reference (see :func:`split_for_retrain`).
     report : bool, default True
-        Store the challenger's HTML report in its version folder (a few seconds of plotting;
+        Store the refit's HTML report in its version folder (a few seconds of plotting;
         an inbox that receives many files may turn it off).
     progress : bool or callable(done, total)
-        Progress over the five steps (``read``, ``drift check``, ``fit challenger``,
+        Progress over the five steps (``read``, ``drift check``, ``refit``,
         ``register``, ``decide``; see :mod:`ergodex.progress`), each also logged. A callable of
         one argument is still called with the step's name before the step, as before.
 
@@ -552,7 +613,7 @@ def retrain(
     Raises
     ------
     DataError, SettingsError, RegistryError
-        Bad input (unreadable data, variables that differ from the champion's, bad settings).
+        Bad input (unreadable data, variables that differ from the incumbent's, bad settings).
         Raised before anything is written to the registry.
     """
     started = utc_now()
@@ -573,7 +634,7 @@ def retrain(
         )
 
 
-_STEPS = ("read", "drift check", "fit challenger", "register", "decide")
+_STEPS = ("read", "drift check", "refit", "register", "decide")
 
 
 @contextlib.contextmanager
@@ -639,12 +700,12 @@ def _retrain(
 
     step("read")
     series = _as_series(data)
-    champion_info = find_champion(registry, name)
-    champion_ref = None if champion_info is None else champion_info.ref
-    champion = None if champion_info is None else registry.load(champion_ref)
-    if champion is not None:
-        assert champion_ref is not None  # a champion was loaded by its reference
-        series = _check_variables(champion, series, champion_ref)
+    incumbent_info = find_incumbent(registry, name)
+    incumbent_ref = None if incumbent_info is None else incumbent_info.ref
+    incumbent = None if incumbent_info is None else registry.load(incumbent_ref)
+    if incumbent is not None:
+        assert incumbent_ref is not None  # an incumbent was loaded by its reference
+        series = _check_variables(incumbent, series, incumbent_ref)
     fit_part, reference = split_for_retrain(series, holdout)
     log.info(
         "read %s: %d runs; fitting on %d, reference %d",
@@ -656,47 +717,47 @@ def _retrain(
     fingerprint = series.fingerprint()
     fit_fingerprint, reference_fingerprint = fit_part.fingerprint(), reference.fingerprint()
 
-    method, settings = _resolve_fit(config, registry, champion_info, champion)
-    spec = resolve_spec(spec, registry, champion_info, seed)
+    method, settings = _resolve_fit(config, registry, incumbent_info, incumbent)
+    spec = resolve_spec(spec, registry, incumbent_info, seed)
 
     step("drift check")
-    champion_result = None
-    champion_limit: str | None = None
-    if champion is not None:
+    incumbent_result = None
+    incumbent_limit: str | None = None
+    if incumbent is not None:
         log.info(
             "drift check: %s against %d reference runs (seed %d)",
-            champion_ref,
+            incumbent_ref,
             reference.n_runs,
             seed,
         )
         try:
-            champion_result = check(champion, reference, spec, evidence=False)  # scorecard only
+            incumbent_result = check(incumbent, reference, spec, evidence=False)  # scorecard only
         except ModelLimitError as exc:  # too stiff or too slow on these data: a failed check
-            champion_limit = str(exc)
-            log.info("drift check: %s could not be integrated: %s", champion_ref, exc)
+            incumbent_limit = str(exc)
+            log.info("drift check: %s could not be integrated: %s", incumbent_ref, exc)
         else:
             log.info(
                 "drift check: %s %s (score %.3g)",
-                champion_ref,
-                champion_result.scorecard.verdict,
-                shared_score(champion_result.scorecard),
+                incumbent_ref,
+                incumbent_result.scorecard.verdict,
+                shared_score(incumbent_result.scorecard),
             )
     else:
         log.info("no accepted version of %s: first run", name)
 
-    step("fit challenger")
-    log.info("fitting challenger (%s) on %d runs", method, fit_part.n_runs)
+    step("refit")
+    log.info("refitting (%s) on %d runs", method, fit_part.n_runs)
     # The shared fit -> check path (no registry: registration, with lineage, is done below).
     fit_record = {"method": method, "settings": jsonable(settings)}
     try:
         flow = fit_check_register(fit_part, reference, method=method, settings=settings, spec=spec)
     except ModelLimitError as exc:
-        # a challenger too stiff or too slow to integrate is a failed challenger, not a crash;
+        # a refit too stiff or too slow to integrate is a failed refit, not a crash;
         # with no scorecard it is not registered
         step("register")
         step("decide")
         ch = ModelVerdict(
-            role="challenger",
+            role="refit",
             ref=None,
             version=None,
             verdict="fail",
@@ -706,7 +767,7 @@ def _retrain(
         )
     else:
         step("register")
-        info = _register_challenger(
+        info = _register_refit(
             registry,
             name,
             flow,
@@ -714,31 +775,36 @@ def _retrain(
             fit_fingerprint,
             reference_fingerprint,
             fit_settings={"method": method, "settings": settings},
-            parent=None if champion_info is None else champion_info.ref,
+            parent=None if incumbent_info is None else incumbent_info.ref,
             seed=seed,
             report=report,
         )
         step("decide")
         ch = _verdict(
-            "challenger", flow.check.scorecard, ref=info.ref, version=info.version, fit=fit_record
+            "refit", flow.check.scorecard, ref=info.ref, version=info.version, fit=fit_record
         )
-    log.info("challenger %s: %s (score %.3g)", ch.ref, ch.verdict, ch.score)
+    log.info("refit %s: %s (score %.3g)", ch.ref, ch.verdict, ch.score)
     cp = None
-    if champion_result is not None:
-        assert champion_info is not None  # only a champion is re-checked
+    if incumbent_result is not None:
+        assert incumbent_info is not None  # only an incumbent is re-checked
         cp = _verdict(
-            "champion", champion_result.scorecard, ref=champion_ref, version=champion_info.version
+            "incumbent",
+            incumbent_result.scorecard,
+            ref=incumbent_ref,
+            version=incumbent_info.version,
         )
-    elif champion_limit is not None:
-        assert champion_info is not None and champion is not None  # only a champion is re-checked
+    elif incumbent_limit is not None:
+        assert (
+            incumbent_info is not None and incumbent is not None
+        )  # only an incumbent is re-checked
         cp = ModelVerdict(
-            role="champion",
-            ref=champion_ref,
-            version=champion_info.version,
+            role="incumbent",
+            ref=incumbent_ref,
+            version=incumbent_info.version,
             verdict="fail",
             score=math.inf,
-            reasons=[f"it could not be integrated: {champion_limit}"],
-            model_fingerprint=champion.fingerprint(),
+            reasons=[f"it could not be integrated: {incumbent_limit}"],
+            model_fingerprint=incumbent.fingerprint(),
         )
 
     outcome, reasons = _decide(cp, ch)
@@ -749,8 +815,8 @@ def _retrain(
         name=name,
         outcome=outcome,
         standing=standing,
-        champion=cp,
-        challenger=ch,
+        incumbent=cp,
+        refit=ch,
         reasons=reasons,
         seed=seed,
         holdout=holdout,
@@ -773,7 +839,7 @@ def _retrain(
     return decision
 
 
-def _register_challenger(
+def _register_refit(
     registry: Any,
     name: str,
     flow: Any,
@@ -786,7 +852,7 @@ def _register_challenger(
     seed: int,
     report: bool,
 ) -> Any:
-    """Register the challenger as a candidate with its evidence, lineage and data fingerprints."""
+    """Register the refit as a candidate with its evidence, lineage and data fingerprints."""
     from ergodex.pipeline import register_checked
 
     return register_checked(
@@ -795,13 +861,13 @@ def _register_challenger(
         flow.surrogate,
         flow.check,
         fit_settings=fit_settings,
-        note=f"retrain challenger on {source or 'new data'} (seed {seed})",
+        note=f"retrain refit on {source or 'new data'} (seed {seed})",
         parent=parent,
         datasets={
             "fit": {"fingerprint": fit_fingerprint, "source": source},
             "check": {"fingerprint": reference_fingerprint, "source": source},
         },
-        title=f"{name}: retrain challenger ({source or 'new data'})",
+        title=f"{name}: retrain refit ({source or 'new data'})",
         report=report,
     )
 
@@ -814,27 +880,27 @@ def _decide(cp: ModelVerdict | None, ch: ModelVerdict) -> tuple[str, list[str]]:
             return "first-accepted", [
                 (
                     "no accepted version existed; "
-                    f"challenger {ch.ref or '(not registered)'} passed its "
+                    f"refit {ch.ref or '(not registered)'} passed its "
                     f"check (score {ch_score}) and was accepted"
                 )
             ]
         return "no-acceptable-model", [
             "no accepted version existed and "
-            f"challenger {ch.ref or '(not registered)'} {_did_not_pass(ch)} "
+            f"refit {ch.ref or '(not registered)'} {_did_not_pass(ch)} "
             f"(score {ch_score}): " + _brief(ch.reasons)
         ]
     cp_score = _fmt(cp.score)
     if cp.passed:
-        reasons = [f"champion {cp.ref} still passes on the new data (score {cp_score}); it stays"]
+        reasons = [f"incumbent {cp.ref} still passes on the new data (score {cp_score}); it stays"]
         if ch.passed:
             reasons.append(
-                f"challenger {ch.ref or '(not registered)'} also passed (score {ch_score}); "
+                f"refit {ch.ref or '(not registered)'} also passed (score {ch_score}); "
                 "left as a "
-                "candidate, not promoted over a champion that still matches"
+                "candidate, not promoted over an incumbent that still matches"
             )
         else:
             reasons.append(
-                f"challenger {ch.ref or '(not registered)'} {_did_not_pass(ch)} "
+                f"refit {ch.ref or '(not registered)'} {_did_not_pass(ch)} "
                 f"(score {ch_score}): " + _brief(ch.reasons)
             )
         return "kept", reasons
@@ -843,21 +909,21 @@ def _decide(cp: ModelVerdict | None, ch: ModelVerdict) -> tuple[str, list[str]]:
         if cp.verdict != "inconclusive"
         else "had an inconclusive drift check"
     )
-    reasons = [f"champion {cp.ref} {drift} (score {cp_score}): " + _brief(cp.reasons)]
+    reasons = [f"incumbent {cp.ref} {drift} (score {cp_score}): " + _brief(cp.reasons)]
     if ch.passed and ch.score <= cp.score:
         reasons.append(
-            f"challenger {ch.ref or '(not registered)'} passed "
+            f"refit {ch.ref or '(not registered)'} passed "
             f"(score {ch_score} <= {cp_score}) and replaces it"
         )
         return "replaced", reasons
     if ch.passed:
         reasons.append(
-            f"challenger {ch.ref or '(not registered)'} passed but scored worse than the champion "
+            f"refit {ch.ref or '(not registered)'} passed but scored worse than the incumbent "
             f"({ch_score} > {cp_score}); not accepted"
         )
     else:
         reasons.append(
-            f"challenger {ch.ref or '(not registered)'} {_did_not_pass(ch)} (score {ch_score}): "
+            f"refit {ch.ref or '(not registered)'} {_did_not_pass(ch)} (score {ch_score}): "
             + _brief(ch.reasons)
         )
     reasons.append("no acceptable model for the new data: downstream users must be warned")
@@ -882,7 +948,7 @@ def _apply(
     """Write the decision into the registry: events and status changes (never deletions)."""
     on_data = f" [data {data_fingerprint}]"
     if cp is not None:
-        # Every re-check of the champion leaves a line in its history, passed or not.
+        # Every re-check of the incumbent leaves a line in its history, passed or not.
         event = (
             "drift-check-passed"
             if cp.passed
@@ -900,10 +966,10 @@ def _apply(
         registry.accept(ch.ref, reason=why + on_data)
         ch.status = "accepted"
     elif not ch.passed:
-        if ch.ref is not None:  # a challenger that could not be integrated was never registered
+        if ch.ref is not None:  # a refit that could not be integrated was never registered
             registry.reject(
                 ch.ref,
-                reason=f"retrain challenger {_did_not_pass(ch)}: " + _brief(ch.reasons) + on_data,
+                reason=f"retrain refit {_did_not_pass(ch)}: " + _brief(ch.reasons) + on_data,
             )
             ch.status = "rejected"
     else:
@@ -928,7 +994,7 @@ def _as_series(data: Any) -> Series:
 
 
 def _check_variables(surrogate: Any, series: Series, ref: str) -> Series:
-    """The new data with its columns in the champion's order (the same variables in any order
+    """The new data with its columns in the incumbent's order (the same variables in any order
     are accepted, as :func:`ergodex.validation.check` accepts them); other variables are bad
     input."""
     from ergodex.validation import align_columns

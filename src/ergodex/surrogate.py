@@ -820,7 +820,7 @@ class Surrogate:
             if not isinstance(d["transform"], Mapping):
                 raise fail("field 'transform' must be an object or null")
             # Imported here: transforms sit beside this module and the model works without one.
-            from ergodex.transforms import transform_from_dict
+            from ergodex.model_space import transform_from_dict
 
             try:
                 transform = transform_from_dict(d["transform"])

@@ -70,14 +70,20 @@ def show_progress(args: argparse.Namespace | None = None) -> bool:
 
 
 # --- models: one resolver for every command that takes a model --------------------------------
-MODEL_HELP = "model.json file, or NAME@VERSION in the registry (NAME alone: its accepted version)"
+MODEL_HELP = (
+    "a model file (ends in .json, or an existing file), else a registry reference: NAME/VERSION, "
+    "or NAME or NAME/current for the accepted version"
+)
 
 
 def load_model(ref: str, home: str | os.PathLike[str] | None = None):
-    """A Surrogate from a ``model.json`` path, or from the registry by ``NAME[@VERSION]``.
+    """A Surrogate from a ``model.json`` path, or from the registry by ``NAME[/VERSION]``.
 
-    A path that exists (or ends in ``.json``) is read as a file; anything else is looked up in
-    the registry under ``home`` (``NAME`` alone is the accepted version), hashes verified.
+    The rule (:func:`is_model_file`): ``ref`` ending in ``.json``, or naming an existing file, is
+    read as a model file; anything else is a reference looked up in the registry under ``home``
+    (``NAME`` or ``NAME/current`` is the accepted version), hashes verified. A folder is never a
+    model file, so ``loop/3`` stays a reference even inside the registry home, where the
+    version folder ``loop/3/`` exists.
     """
     return load_model_info(ref, home)[0]
 
@@ -89,6 +95,10 @@ def load_model_info(ref: str, home: str | os.PathLike[str] | None = None):
 
     if is_model_file(ref):
         return Surrogate.from_json(Path(ref)), None
+    if "@" in ref:  # the former NAME@VERSION form: say how to write it, registry or not
+        from ergodex.registry import split_ref
+
+        split_ref(ref)
     root = resolve_home(home)
     if not (root / "registry.sqlite3").exists():
         raise ModelFileError(
@@ -102,14 +112,17 @@ def load_model_info(ref: str, home: str | os.PathLike[str] | None = None):
 
 
 def resolve_registered(registry: Any, ref: str):
-    """``(VersionInfo, Surrogate)`` of ``NAME@VERSION``, or of NAME's accepted version."""
+    """``(VersionInfo, Surrogate)`` of ``NAME/VERSION``, or of NAME's accepted version."""
     info = registry.get(ref)
     return info, registry.load(info.ref)
 
 
 def is_model_file(ref: str) -> bool:
-    """True when ``ref`` names a file (as :func:`load_model` decides), False for a registry ref."""
-    return Path(ref).exists() or ref.endswith(".json")
+    """True when ``ref`` is a model file: it ends in ``.json`` or names an existing file.
+
+    Anything else (a folder included) is a registry reference, ``NAME[/VERSION]``.
+    """
+    return ref.endswith(".json") or Path(ref).is_file()
 
 
 # --- data: hold-outs honoured, the same way for every command -----------------------------------

@@ -81,7 +81,7 @@ def run(args: argparse.Namespace) -> int:
     print(card.table())
     print()
     print(f"data:      {result.dataset_folder}")
-    print(f"registry:  {result.home}  ({flow.name}@{flow.version}, {flow.status})")
+    print(f"registry:  {result.home}  ({flow.name}/{flow.version}, {flow.status})")
     print(f"model:     {flow.folder / 'model.json'}")
     print(f"scorecard: {flow.folder / 'scorecard.json'}")
     if result.report_path is not None:

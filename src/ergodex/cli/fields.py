@@ -357,13 +357,12 @@ def time_unit_note(surrogate) -> str | None:
 
 
 def _registered_version(ref: str, home) -> str | None:
-    """``NAME@VERSION`` of a registered model reference (None for a model file)."""
-    from pathlib import Path
+    """``NAME/VERSION`` of a registered model reference (None for a model file)."""
+    from ergodex.cli.common import is_model_file, resolve_home
 
-    if Path(ref).exists() or ref.endswith(".json"):
+    if is_model_file(ref):
         return None
-    from ergodex.cli.common import resolve_home
     from ergodex.registry import Registry
 
     info = Registry(resolve_home(home)).get(ref)
-    return f"{info.name}@{info.version}"
+    return info.ref

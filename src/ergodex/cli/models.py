@@ -3,14 +3,14 @@
 Subcommands::
 
     ergodex models list [--json]
-    ergodex models show NAME[@VERSION] [--json]
-    ergodex models history NAME[@VERSION] [--json]
-    ergodex models accept NAME@VERSION [--reason R] [--override]
-    ergodex models reject NAME@VERSION --reason R
-    ergodex models retire NAME@VERSION --reason R
-    ergodex models export NAME[@VERSION] --to DIR
+    ergodex models show NAME[/VERSION] [--json]
+    ergodex models history NAME[/VERSION] [--json]
+    ergodex models accept NAME/VERSION [--reason R] [--override]
+    ergodex models reject NAME/VERSION --reason R
+    ergodex models retire NAME/VERSION --reason R
+    ergodex models export NAME[/VERSION] --to DIR
     ergodex models import DIR [--name NAME]
-    ergodex models verify [NAME[@VERSION]] [--json]
+    ergodex models verify [NAME[/VERSION]] [--json]
 
 ``--json`` output (stable keys; new keys may be added, none removed or renamed):
 
@@ -18,9 +18,9 @@ Subcommands::
   "accepted": int | null, "statuses": {"candidate": int, "accepted": int, "rejected": int,
   "retired": int}, "integrity_failed": [int]}]}`` (versions whose files no longer match their
   recorded sha256)
-* ``show NAME@V`` (or ``show NAME``: its accepted version): ``{"ref": "name@v",
+* ``show NAME/V`` (or ``show NAME``: its accepted version): ``{"ref": "name/v",
   "name": str, "version": int, "status": str, "created": str (UTC ISO 8601), "note": str,
-  "parent": "name@v" | null, "datasets": [{"role", "fingerprint", "source"}], "verdict": "pass" |
+  "parent": "name/v" | null, "datasets": [{"role", "fingerprint", "source"}], "verdict": "pass" |
   "fail" | "inconclusive" | null, "data_fingerprint": str | null, "model_fingerprint": str | null,
   "scorecard_model_fingerprint": str | null, "artifacts": {filename: sha256}, "folder": str,
   "integrity": "ok" | "failed", "integrity_problems": [str]}``.
@@ -28,7 +28,7 @@ Subcommands::
 * ``history``: ``{"name": str, "events": [{"id": int, "time": str, "name": str, "version": int,
   "event": str, "from_status": str | null, "to_status": str | null, "actor": str,
   "reason": str, "override": bool}], "integrity_failed": [int]}``
-* ``verify``: ``{"home": str, "ok": bool, "versions": [{"ref": "name@v", "status": str,
+* ``verify``: ``{"home": str, "ok": bool, "versions": [{"ref": "name/v", "status": str,
   "integrity": "ok" | "failed", "problems": [str]}]}``
 
 Every status or verdict shown is read with every file of the version hashed: a version whose
@@ -62,7 +62,9 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
             "and every change is recorded with time, user and reason. A name has at most one "
             "accepted version: accepting one retires the previous. Files are hashed whenever a "
             "status is shown; a missing, empty, corrupt or older index is rebuilt from the "
-            "version folders' own records (with a warning), and nothing is ever deleted."
+            "version folders' own records (with a warning), and nothing is ever deleted. A "
+            "version is NAME/VERSION (e.g. loop/3); NAME/current, or NAME alone, is the "
+            "accepted one."
         ),
     )
     actions = parser.add_subparsers(
@@ -74,14 +76,16 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     _common(p, json_output=True)
     p.set_defaults(func=run_list)
 
-    p = actions.add_parser("show", help="one version (NAME@V) or the accepted one (NAME)")
-    p.add_argument("ref", metavar="NAME[@VERSION]")
+    p = actions.add_parser(
+        "show", help="one version (NAME/V) or the accepted one (NAME or NAME/current)"
+    )
+    p.add_argument("ref", metavar="NAME[/VERSION]")
     p.add_argument("--all", action="store_true", help="every version of NAME")
     _common(p, json_output=True)
     p.set_defaults(func=run_show)
 
     p = actions.add_parser("history", help="every recorded event of a model (or one version)")
-    p.add_argument("ref", metavar="NAME[@VERSION]")
+    p.add_argument("ref", metavar="NAME[/VERSION]")
     _common(p, json_output=True)
     p.set_defaults(func=run_history)
 
@@ -90,7 +94,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
         help="promote a candidate (the previously accepted version is retired); needs a "
         "passing scorecard unless --override with --reason",
     )
-    p.add_argument("ref", metavar="NAME@VERSION")
+    p.add_argument("ref", metavar="NAME/VERSION")
     p.add_argument("--reason", default="", help="why (required with --override)")
     p.add_argument(
         "--override",
@@ -105,23 +109,23 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
         ("retire", "take an accepted version out of use"),
     ):
         p = actions.add_parser(action, help=text)
-        p.add_argument("ref", metavar="NAME@VERSION")
+        p.add_argument("ref", metavar="NAME/VERSION")
         p.add_argument("--reason", required=True, help="why (recorded in the history)")
         _common(p)
         p.set_defaults(func=run_reject if action == "reject" else run_retire)
 
     p = actions.add_parser(
         "verify",
-        help="hash every file of every version (or of NAME, or NAME@V); exit 1 if one changed",
+        help="hash every file of every version (or of NAME, or NAME/V); exit 1 if one changed",
     )
-    p.add_argument("ref", metavar="NAME[@VERSION]", nargs="?", default=None)
+    p.add_argument("ref", metavar="NAME[/VERSION]", nargs="?", default=None)
     _common(p, json_output=True)
     p.set_defaults(func=run_verify)
 
     p = actions.add_parser(
         "export", help="write a self-contained folder for someone without ergodex"
     )
-    p.add_argument("ref", metavar="NAME[@VERSION]")
+    p.add_argument("ref", metavar="NAME[/VERSION]")
     p.add_argument("--to", required=True, metavar="DIR", help="new (or empty) folder to write")
     _common(p)
     p.set_defaults(func=run_export)
@@ -169,7 +173,9 @@ def run_list(args: argparse.Namespace) -> int:
         counts = ", ".join(f"{n} {s}" for s, n in m.statuses.items() if n)
         accepted = "-" if m.accepted is None else str(m.accepted)
         if m.integrity_failed:
-            counts += "  INTEGRITY FAILED: " + ", ".join(f"@{v}" for v in m.integrity_failed)
+            counts += "  INTEGRITY FAILED: " + ", ".join(
+                f"{m.name}/{v}" for v in m.integrity_failed
+            )
         print(f"{m.name:<32} {m.versions:>8} {m.latest:>6} {accepted:>8}  {counts}")
     if any(m.integrity_failed for m in models):
         print("files changed after registration: run 'ergodex models verify' for details")
@@ -292,7 +298,7 @@ def run_history(args: argparse.Namespace) -> int:
         flag = "  OVERRIDE" if e.override else ""
         reason = f"  reason: {e.reason}" if e.reason else ""
         print(
-            f"{e.time}  {e.name}@{e.version}  {e.event:<16} {change:<24} by {e.actor}{flag}{reason}"
+            f"{e.time}  {e.name}/{e.version}  {e.event:<16} {change:<24} by {e.actor}{flag}{reason}"
         )
     return 0
 

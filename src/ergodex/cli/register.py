@@ -1,6 +1,6 @@
 """``ergodex register MODEL --name NAME``: store a model file as the next candidate version.
 
-``--json`` prints the new version's record with the keys of ``ergodex models show NAME@V --json``
+``--json`` prints the new version's record with the keys of ``ergodex models show NAME/V --json``
 (see :mod:`ergodex.cli.models`).
 """
 
@@ -20,7 +20,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
         description=(
             "Copy MODEL (a model.json) and, if given, its scorecard, report and fit settings into "
             "the registry as the next version of NAME, with status 'candidate'. Nothing is "
-            "accepted here: use 'ergodex models accept NAME@VERSION'. Exit code 2 and nothing "
+            "accepted here: use 'ergodex models accept NAME/VERSION'. Exit code 2 and nothing "
             "written when an input is bad, including a scorecard made for another model (its "
             "model fingerprint differs from MODEL's). Version numbers are never reused."
         ),
@@ -51,7 +51,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     )
     parser.add_argument("--note", default=None, help="free text shown in listings")
     parser.add_argument(
-        "--parent", metavar="NAME@V", default=None, help="the version this one was retrained from"
+        "--parent", metavar="NAME/V", default=None, help="the version this one was retrained from"
     )
     parser.add_argument("--json", action="store_true", help="print the new version as JSON")
     add_home_option(parser)

@@ -1,4 +1,4 @@
-"""``ergodex report NAME[@VERSION]``: (re)write the validation report of a registered version.
+"""``ergodex report NAME[/VERSION]``: (re)write the validation report of a registered version.
 
 The page is rebuilt from what the registry stored for that version — ``model.json``,
 ``scorecard.json``, ``evidence.npz`` and, when present, the fit settings — each checked against
@@ -41,8 +41,8 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     )
     parser.add_argument(
         "ref",
-        metavar="NAME[@VERSION]",
-        help="the version to report on; NAME alone means the accepted version",
+        metavar="NAME[/VERSION]",
+        help="the version to report on; NAME/current, or NAME alone, means the accepted version",
     )
     parser.add_argument(
         "--out",
@@ -54,7 +54,7 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         ),
     )
     parser.add_argument(
-        "--title", default=None, help="page title (default: 'NAME@VERSION: validation report')"
+        "--title", default=None, help="page title (default: 'NAME/VERSION: validation report')"
     )
     parser.add_argument(
         "--data",

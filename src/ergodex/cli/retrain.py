@@ -1,7 +1,7 @@
 """``ergodex retrain NAME DATA``: re-check the accepted model on new data, refit, keep the better.
 
 Exit codes: 0 an accepted model stands (kept, replaced or accepted on a first run); 1 no acceptable
-model (the champion drifted and the challenger failed, or a first fit failed): downstream users
+model (the incumbent drifted and the refit failed, or a first fit failed): downstream users
 must be warned; 2 bad input (unreadable data, variables that differ, bad settings), nothing
 written. The decision record (``--json``) is documented in :mod:`ergodex.retraining`.
 """
@@ -21,11 +21,11 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
         "retrain",
         help="check the accepted model on new data, refit, validate, promote or keep",
         description=(
-            "Check the accepted version of NAME (the champion) against held-out runs of DATA, "
-            "fit a challenger on the other runs with the champion's recorded fit settings (or "
+            "Check the accepted version of NAME (the incumbent) against held-out runs of DATA, "
+            "refit on the other runs with the incumbent's recorded fit settings (or "
             "--config), check it against the same runs with the same seed, register it with "
             "lineage, and accept it only if it passes and scores no worse than a drifted "
-            "champion. Exit code 0 when an accepted model stands, 1 when none does, 2 on bad "
+            "incumbent. Exit code 0 when an accepted model stands, 1 when none does, 2 on bad "
             "input."
         ),
         epilog=(
@@ -54,7 +54,7 @@ def add_common_retrain_options(parser: argparse.ArgumentParser) -> None:
         "--config",
         metavar="FILE",
         default=None,
-        help="fit settings TOML for the challenger (default: the champion's recorded settings)",
+        help="fit settings TOML for the refit (default: the incumbent's recorded settings)",
     )
     parser.add_argument("--seed", type=int, default=0, help="seed of both checks (default 0)")
     parser.add_argument(
@@ -67,12 +67,12 @@ def add_common_retrain_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--no-report",
         action="store_true",
-        help="do not store an HTML report with the challenger (saves a few seconds per retrain)",
+        help="do not store an HTML report with the refit (saves a few seconds per retrain)",
     )
     from ergodex.cli.checks import add_check_options
 
     add_check_options(
-        parser, seed=False, title="check settings (default: as in the champion's recorded check)"
+        parser, seed=False, title="check settings (default: as in the incumbent's recorded check)"
     )
 
 
@@ -98,7 +98,7 @@ def parse_holdout(text: str | None):
 
 def spec_from_args(args: argparse.Namespace):
     """Check settings given on the command line or in ``--check-config`` (``None``: none, so the
-    champion's recorded spec is used as it is); each is checked with a one-line error."""
+    incumbent's recorded spec is used as it is); each is checked with a one-line error."""
     from ergodex.cli.checks import build_spec, check_overrides
 
     settings, _origin = check_overrides(args)
@@ -127,13 +127,15 @@ def read_new_data(args: argparse.Namespace):
 
 def run(args: argparse.Namespace) -> int:
     from ergodex.cli.common import registry_from_args, show_progress
+    from ergodex.registry import split_ref
     from ergodex.retraining import retrain
 
-    if "@" in args.name:
+    name, version, current = split_ref(args.name)  # refuses the former NAME@VERSION form
+    if version is not None or current:
         raise SettingsError(
-            "retrain works on a name's accepted version (the champion); give "
-            f"{args.name.split('@')[0]} without @VERSION (to check one version on new data use "
-            "'ergodex validate NAME@VERSION DATA')"
+            "retrain works on a name's accepted version (the incumbent); give "
+            f"{name} without /VERSION (to check one version on new data use "
+            "'ergodex validate NAME/VERSION DATA')"
         )
     if args.json not in (None, "-"):  # refused before the work, not after it
         from ergodex.files import check_writable

@@ -3,7 +3,7 @@
     ergodex simulate MODEL --members N --steps K [--seed S] [--dt DT] [--out FILE]
                      [--initial FILE] [--spinup T] [--format csv|npz|nc] [--substep H]
 
-MODEL is a ``model.json`` file, or ``NAME[@VERSION]`` of a registered model (``--home``).
+MODEL is a ``model.json`` file, or ``NAME[/VERSION]`` of a registered model (``--home``).
 
 Initial states
 --------------

@@ -1,6 +1,6 @@
 """``ergodex validate MODEL DATA``: check a surrogate's long-run statistics against data.
 
-MODEL is a ``model.json`` file or a registry reference (``NAME@VERSION``; ``NAME`` alone is the
+MODEL is a ``model.json`` file or a registry reference (``NAME/VERSION``; ``NAME`` alone is the
 accepted version). DATA's held-out runs are the reference: the ``holdout`` list of a dataset's
 ``dataset.toml``, or ``--holdout``; a warning goes to stderr when the check would use data the
 model was fitted on. Every check setting has an option, and ``--check-config FILE`` reads them
@@ -84,7 +84,7 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         default=None,
         help="write a self-contained HTML report here (without a file name: next "
         "to a model file as MODEL.report.html, or under the registry home "
-        "in reports/ for NAME@VERSION)",
+        "in reports/ for NAME/VERSION)",
     )
     parser.add_argument(
         "--quiet",

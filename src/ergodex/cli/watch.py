@@ -7,7 +7,7 @@ such as ``*.part`` and dotfiles are ignored), claimed into the watcher's work ar
 go to ``done/`` with their decision record, rejected ones to ``rejected/`` with
 ``<file>.error.txt``. A file rejected because it did not fit the settings is retried when the
 watcher starts with other settings; ``--retry-rejected`` retries every rejected file. Prints one
-line saying what it watches, then one line per file. See :mod:`ergodex.inbox`.
+line saying what it watches, then one line per file. See :mod:`ergodex.watching`.
 
 Exit code 0 after a clean stop (``--once``, ``--max-files``, Ctrl-C); each file's outcome is in the
 output, the log, the ledger and the decision record next to it. 2 on bad input (no such folder,
@@ -24,7 +24,7 @@ from ergodex.cli.retrain import (
     parse_holdout,
     spec_from_args,
 )
-from ergodex.inbox import DEFAULT_SETTLE
+from ergodex.watching import DEFAULT_SETTLE
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
@@ -87,7 +87,7 @@ def run(args: argparse.Namespace) -> int:
     import logging
 
     from ergodex.cli.common import registry_from_args
-    from ergodex.inbox import watch
+    from ergodex.watching import watch
 
     registry = registry_from_args(args)
 
@@ -112,6 +112,6 @@ def run(args: argparse.Namespace) -> int:
             echo=echo,
         )
     except KeyboardInterrupt:
-        logging.getLogger("ergodex.inbox").info("interrupted; stopping")
+        logging.getLogger("ergodex.watching").info("interrupted; stopping")
         return 0
     return 0

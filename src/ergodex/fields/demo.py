@@ -108,7 +108,7 @@ def run_basin_demo(
     )
     if result.scorecard.passed:
         registry.accept(
-            f"{BASIN_NAME}@{info.version}",
+            info.ref,
             reason="scorecard passed on held-out runs (modes and grid)",
         )
         flow.status = "accepted"

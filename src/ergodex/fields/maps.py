@@ -123,7 +123,7 @@ def grid_maps_svg(
 
 def map_section(field_check) -> tuple[str, str, str]:
     """A report section (anchor, heading, html) with the grid maps and the reduction summary."""
-    from ergodex.report.html import _figure, _key_value_table, _section
+    from ergodex.report.markup import _figure, _key_value_table, _section
 
     svg = grid_maps_svg(field_check.maps, field_check.lat, field_check.lon, field_check.mask)
     s = field_check.summary

@@ -47,7 +47,7 @@ def field_transform_of(surrogate):
 
 def delay_series(series: Series, n_delays: int, delay: int = 1):
     """Fit a delay embedding on ``series`` and map every run: ``(transform, embedded series)``."""
-    from ergodex.transforms import DelayEmbedding, transform_series
+    from ergodex.model_space import DelayEmbedding, transform_series
 
     t = DelayEmbedding(n_delays, delay=delay).fit(series)
     return t, transform_series(t, series)

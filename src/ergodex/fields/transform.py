@@ -1,6 +1,6 @@
 """The field transform: grid values ↔ mode amplitudes, stored in the model file.
 
-:class:`FieldModes` is a :class:`~ergodex.transforms.Transform` (kind ``field-modes``) whose data
+:class:`FieldModes` is a :class:`~ergodex.model_space.Transform` (kind ``field-modes``) whose data
 space is the field's valid grid points and whose model space is the amplitudes of its leading
 area-weighted EOFs. Forward: subtract the seasonal cycle and the trend at each sample's date (on
 the model calendar), subtract the remaining time mean, weight by sqrt(area), project on the EOFs.
@@ -23,8 +23,8 @@ from ergodex.fields.calendar import Clock
 from ergodex.fields.preparing import CLIMATOLOGIES, LinearTrend, SeasonalCycle
 from ergodex.fields.reading import Field
 from ergodex.fields.reducing import EOFResult, weighted_eof
+from ergodex.model_space import Transform
 from ergodex.series import Series
-from ergodex.transforms import Transform
 
 __all__ = ["FieldModes", "modes_series"]
 

@@ -3,7 +3,7 @@
 Four methods, listed in :data:`FITTERS` under the names the command line and fit-settings files
 use: ``"sparse"`` (:class:`~ergodex.fitting.sparse.SparseODE`, sparse nonlinear ODEs through
 pysindy), ``"linear-inverse"`` (:class:`~ergodex.fitting.linear_inverse.LinearInverseModel`) and
-``"quadratic-noise"`` (:class:`~ergodex.fitting.closure.QuadraticNoiseModel`) and
+``"quadratic-noise"`` (:class:`~ergodex.fitting.quadratic_noise.QuadraticNoiseModel`) and
 ``"calibrated-linear-inverse"`` (:class:`~ergodex.fitting.calibrated.CalibratedLinearInverse`, a
 linear inverse model with cubic damping tuned to the data's statistics). The classes load on
 first use so that importing this package stays cheap (pysindy takes seconds to import).
@@ -40,7 +40,7 @@ __all__ = [
 _LAZY = {
     "SparseODE": "ergodex.fitting.sparse",
     "LinearInverseModel": "ergodex.fitting.linear_inverse",
-    "QuadraticNoiseModel": "ergodex.fitting.closure",
+    "QuadraticNoiseModel": "ergodex.fitting.quadratic_noise",
     "CalibratedLinearInverse": "ergodex.fitting.calibrated",
     "select": "ergodex.fitting.selection",
     "SelectionResult": "ergodex.fitting.selection",

@@ -19,8 +19,8 @@ import numpy as np
 from ergodex.exceptions import DataError
 from ergodex.fitting.calibration import ensemble_kalman_inversion
 from ergodex.fitting.linear_inverse import LinearInverseModel
+from ergodex.fitting.reduction import cyclic_rotations, model_space_runs, reduce_series
 from ergodex.fitting.settings import Rule
-from ergodex.fitting.transforming import cyclic_rotations, model_space_runs, reduce_series
 
 __all__ = [
     "CalibratedLinearInverse",
@@ -148,7 +148,7 @@ class CalibratedLinearInverse(LinearInverseModel):
         The variables are stations on a ring with the same statistics under a cyclic shift
         (say so only when that is known): the transform, the linear model and the target
         statistics use the runs plus all their rotations around the ring (see
-        :func:`~ergodex.fitting.transforming.cyclic_rotations`), so the modes are Fourier pairs;
+        :func:`~ergodex.fitting.reduction.cyclic_rotations`), so the modes are Fourier pairs;
         the noise of the targets still comes from pieces of the runs as given; the two modes of
         each Fourier pair share their calibrated parameters.
 

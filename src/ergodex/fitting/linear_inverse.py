@@ -14,9 +14,9 @@ import scipy.linalg
 
 from ergodex.exceptions import DataError, SettingsError
 from ergodex.fitting.base import Fitter, _source, data_provenance
+from ergodex.fitting.reduction import reduce_series
 from ergodex.fitting.settings import Rule
 from ergodex.fitting.tendencies import lagged_covariance, relative_tendency_error
-from ergodex.fitting.transforming import reduce_series
 
 __all__ = ["LinearInverseModel", "lim_operators"]
 

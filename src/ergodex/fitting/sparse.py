@@ -17,6 +17,7 @@ import numpy as np
 
 from ergodex.exceptions import DataError, OptionalDependencyError, SettingsError
 from ergodex.fitting.base import Fitter, _source, data_provenance
+from ergodex.fitting.reduction import reduce_series
 from ergodex.fitting.settings import Rule
 from ergodex.fitting.tendencies import (
     check_library_rank,
@@ -27,7 +28,6 @@ from ergodex.fitting.tendencies import (
     terms_from_feature_names,
     weak_matrices,
 )
-from ergodex.fitting.transforming import reduce_series
 
 __all__ = ["SparseODE", "sparse_settings_table"]
 

@@ -17,8 +17,9 @@ POST     /jobs/fit, /jobs/validate, /jobs/retrain           write
 POST     /jobs/{id}/cancel                                  write
 GET      /jobs, /jobs/{id}                                  read
 GET      /models, /models/{name}, /models/{name}/history    read
-GET      /models/{name}/versions/{version}                  read
-GET      …/versions/{version}/model.json|scorecard.json|report.html   read
+GET      /models/{name}/versions/{n}, /models/{name}/current   read
+GET      …/versions/{n}/model.json|scorecard.json|report.html          read
+GET      /models/{name}/current/model.json|scorecard.json|report.html  read
 POST     …/versions/{n}/accept|reject|retire                write
 =======  =================================================  =====
 
@@ -206,6 +207,12 @@ class BodyLimit:
 
 
 def _job_out(job: JobRecord, clean=one_line) -> schemas.JobInfo:
+    result = job.result
+    if job.kind == "retrain" and isinstance(result, dict):
+        from ergodex.retraining import OLD_DECISION_FORMATS, upgrade_decision
+
+        if result.get("format") in OLD_DECISION_FORMATS:  # stored by an earlier server
+            result = upgrade_decision(result, f"result of job {job.id}")
     error = None
     if job.error_code is not None:
         error = schemas.ErrorBody(code=job.error_code, message=clean(job.error_message or ""))
@@ -218,7 +225,7 @@ def _job_out(job: JobRecord, clean=one_line) -> schemas.JobInfo:
         created=job.created,
         started=job.started,
         finished=job.finished,
-        result=job.result,
+        result=result,
         error=error,
     )
 
@@ -613,11 +620,7 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
     # -- models -------------------------------------------------------------------------------
 
     ModelName = Annotated[str, Path(pattern=schemas.NAME_PATTERN, description="model name")]
-    VersionRef = Annotated[
-        str,
-        Path(pattern=schemas.VERSION_PATTERN, description="version number, or 'accepted'"),
-    ]
-    VersionNumber = Annotated[int, Path(ge=1, le=999_999_999)]
+    VersionNumber = Annotated[int, Path(ge=1, le=999_999_999, description="version number")]
 
     @reads.get("/models", response_model=schemas.ModelList, tags=["models"])
     def list_models() -> schemas.ModelList:
@@ -644,14 +647,34 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
             raise ApiError(404, "not-found", one_line(str(exc))) from None
         return schemas.History(name=name, events=[_event_out(e) for e in events])
 
+    # The former alias of the accepted version, /models/NAME/versions/accepted[/FILE], is now
+    # /models/NAME/current[/FILE]: say so (declared first, so that the numbered routes below do
+    # not answer it with a validation error).
+    @reads.get("/models/{name}/versions/accepted", include_in_schema=False)
+    @reads.get("/models/{name}/versions/accepted/{filename}", include_in_schema=False)
+    def former_alias(name: ModelName, filename: str | None = None) -> Response:
+        rest = f"/{filename}" if filename else ""
+        now = f"/models/{name}/{schemas.CURRENT}{rest}"
+        message = f"/models/{name}/versions/accepted{rest} is now {now}: use that path"
+        raise ApiError(404, "not-found", one_line(message))
+
     @reads.get(
         "/models/{name}/versions/{version}", response_model=schemas.VersionOut, tags=["models"]
     )
-    def get_version(name: ModelName, version: VersionRef) -> schemas.VersionOut:
+    def get_version(name: ModelName, version: VersionNumber) -> schemas.VersionOut:
         """One version's status, artifact hashes and lineage."""
         return _version_out(_registry_get(registry, version_ref(name, version)))
 
-    def download(name: str, version: str, filename: str) -> Response:
+    @reads.get(
+        f"/models/{{name}}/{schemas.CURRENT}",
+        response_model=schemas.VersionOut,
+        tags=["models"],
+    )
+    def get_current(name: ModelName) -> schemas.VersionOut:
+        """The accepted version of a model (the one downstream users load)."""
+        return _version_out(_registry_get(registry, version_ref(name, schemas.CURRENT)))
+
+    def download(name: str, version: int | str, filename: str) -> Response:
         info = _registry_get(registry, version_ref(name, version))
         if filename not in info.artifacts:
             raise ApiError(
@@ -671,31 +694,44 @@ def create_app(settings: ServiceSettings, *, start_workers: bool = True) -> Fast
 
     def _file_route(filename: str, schema: dict[str, Any], summary: str):
         media = ARTIFACTS[filename].split(";")[0]
+        responses: dict[int | str, dict[str, Any]] = {
+            200: {
+                "description": f"the stored {filename}, byte for byte (verified)",
+                "content": {media: {"schema": schema}},
+            }
+        }
+        operation = f"download_{filename.replace('.', '_')}"
 
         @reads.get(
             f"/models/{{name}}/versions/{{version}}/{filename}",
             response_class=Response,
             tags=["models"],
             summary=summary,
-            operation_id=f"download_{filename.replace('.', '_')}",
-            responses={
-                200: {
-                    "description": f"the stored {filename}, byte for byte (verified)",
-                    "content": {media: {"schema": schema}},
-                }
-            },
+            operation_id=operation,
+            responses=responses,
         )
-        def route(name: ModelName, version: VersionRef) -> Response:
+        def route(name: ModelName, version: VersionNumber) -> Response:
             return download(name, version, filename)
 
-        return route
+        @reads.get(
+            f"/models/{{name}}/{schemas.CURRENT}/{filename}",
+            response_class=Response,
+            tags=["models"],
+            summary=summary.replace("a version's", "the accepted version's"),
+            operation_id=f"{operation}_current",
+            responses=responses,
+        )
+        def current_route(name: ModelName) -> Response:
+            return download(name, schemas.CURRENT, filename)
+
+        return route, current_route
 
     _file_route("model.json", {"type": "object"}, "Download a version's model.json")
     _file_route("scorecard.json", {"type": "object"}, "Download a version's scorecard.json")
     _file_route("report.html", {"type": "string"}, "Download a version's report.html")
 
     def change(name: str, version: int, action: str, **kwargs) -> schemas.VersionOut:
-        ref = f"{name}@{version}"
+        ref = version_ref(name, version)
         _registry_get(registry, ref)
         try:
             info = getattr(registry, action)(ref, **kwargs)

@@ -23,12 +23,12 @@ import zipfile
 from pathlib import Path
 from typing import Any
 
-from ergodex.host import utc_now
 from ergodex.service.errors import ApiError, one_line
-from ergodex.service.jobs import JobStore
 from ergodex.service.limits import declared_inflated_size
 from ergodex.service.reader import read_isolated
 from ergodex.service.settings import ServiceSettings
+from ergodex.service.store import JobStore
+from ergodex.timestamps import utc_now
 
 log = logging.getLogger(__name__)
 

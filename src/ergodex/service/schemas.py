@@ -8,14 +8,15 @@ from ergodex.exceptions import require
 
 require("pydantic", "service", "the HTTP service")
 
-from typing import Any, Literal  # noqa: E402
+from typing import Any, Final, Literal  # noqa: E402
 
-from pydantic import BaseModel, ConfigDict, Field  # noqa: E402
+from pydantic import BaseModel, ConfigDict, Field, field_validator  # noqa: E402
 
 #: A model name as the registry accepts it (see ergodex.registry.validate_name).
 NAME_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$"
-#: A version in a path: a number, or ``accepted`` for the newest accepted version.
-VERSION_PATTERN = r"^(accepted|[1-9][0-9]{0,8})$"
+#: The word that names a model's accepted version (``/models/NAME/current``, ``"version":
+#: "current"``), as in the registry's references ``NAME/current``.
+CURRENT: Final = "current"
 #: A dataset id: the hex sha256 digest of the data's fingerprint.
 DATASET_PATTERN = r"^[0-9a-f]{64}$"
 #: A job id.
@@ -114,9 +115,17 @@ class FitJobRequest(_Strict):
 
 class ValidateJobRequest(_Strict):
     name: str = Field(pattern=NAME_PATTERN)
-    version: int | Literal["accepted"] = Field(
-        "accepted", description="version number, or 'accepted' for the newest accepted one"
+    version: int | Literal["current"] = Field(
+        CURRENT, description="version number, or 'current' for the accepted version"
     )
+
+    @field_validator("version", mode="before")
+    @classmethod
+    def _former_word(cls, value: Any) -> Any:
+        if value == "accepted":  # the word before 'current'
+            raise ValueError("write 'current', not 'accepted', for the accepted version")
+        return value
+
     dataset: str = Field(pattern=DATASET_PATTERN, description="id of an uploaded dataset")
     check: CheckOptions | None = None
 
@@ -124,7 +133,7 @@ class ValidateJobRequest(_Strict):
 class RetrainJobRequest(_Strict):
     name: str = Field(pattern=NAME_PATTERN, description="registered model to retrain")
     dataset: str = Field(pattern=DATASET_PATTERN, description="id of an uploaded dataset")
-    method: str | None = Field(None, description="challenger fit method; default: as before")
+    method: str | None = Field(None, description="fit method of the refit; default: as before")
     settings: dict[str, Any] | None = None
     check: CheckOptions | None = None
     holdout: int | None = Field(None, ge=1, le=10_000)

@@ -15,12 +15,11 @@ from typing import Any
 from ergodex.exceptions import DataError, RegistryError
 from ergodex.jsonable import jsonable
 from ergodex.service.settings import ServiceSettings
+from ergodex.service.store import JobStore
 
 
 def dataset_path(home: Path, dataset_id: str) -> tuple[Path, dict[str, Any]]:
     """Path of an uploaded dataset's stored file and its record; ``DataError`` if unknown."""
-    from ergodex.service.jobs import JobStore
-
     settings = ServiceSettings(home=home)
     record = JobStore(settings.jobs_path).get_dataset(dataset_id)
     if record is None:
@@ -47,8 +46,14 @@ def check_spec(options: dict[str, Any] | None):
 
 
 def version_ref(name: str, version: int | str) -> str:
-    """Registry reference: ``name`` (newest accepted) for ``"accepted"``, else ``name@N``."""
-    return name if str(version) == "accepted" else f"{name}@{int(version)}"
+    """Registry reference: ``name/current`` (the accepted version) for ``"current"``, else
+    ``name/N``. ``"accepted"``, the word before ``current``, can still come from the stored
+    parameters of a job queued by an earlier server."""
+    from ergodex.registry import CURRENT, format_ref
+
+    if str(version) in (CURRENT, "accepted"):
+        return format_ref(name, CURRENT)
+    return format_ref(name, int(version))
 
 
 def run_fit(params: dict[str, Any], *, home: Path, job_id: str) -> dict[str, Any]:
@@ -101,7 +106,7 @@ def run_validate(params: dict[str, Any], *, home: Path, job_id: str) -> dict[str
     surrogate = registry.load(ref)
     data = load_dataset(home, params["dataset"])
     scorecard = validate(surrogate, data, check_spec(params.get("check")))
-    exact_ref = f"{info.name}@{info.version}"
+    exact_ref = info.ref
     try:
         registry.record_event(
             exact_ref,

@@ -15,7 +15,7 @@ import numpy as np
 
 from ergodex import stats
 from ergodex.exceptions import DataError, SettingsError
-from ergodex.host import utc_now
+from ergodex.timestamps import utc_now
 from ergodex.validation.evidence import _evidence
 from ergodex.validation.pieces import (
     _pair_distances,

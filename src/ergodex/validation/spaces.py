@@ -42,8 +42,8 @@ def _compared_space(surrogate, reference, observed):
         reference = align_columns(surrogate, reference)  # the same variables in any order
     if transform is None or tuple(transform.output_names) == tuple(reference.names):
         return reference, False
+    from ergodex.model_space import transform_series
     from ergodex.series import Series
-    from ergodex.transforms import transform_series
 
     mapped = transform_series(transform, reference)
     if observed != list(mapped.names):

@@ -24,7 +24,10 @@ import pytest
 import ergodex
 from ergodex.cli import main
 from ergodex.exceptions import SettingsError
-from ergodex.inbox import (
+from ergodex.readers import read_series
+from ergodex.registry import Registry
+from ergodex.validation import CheckSpec
+from ergodex.watching import (
     CLAIMED_FOLDER,
     DONE_FOLDER,
     LEDGER_NAME,
@@ -37,9 +40,6 @@ from ergodex.inbox import (
     read_ledger,
     watch,
 )
-from ergodex.readers import read_series
-from ergodex.registry import Registry
-from ergodex.validation import CheckSpec
 from retrain_support import write_csv
 
 NAME = "loop-inbox"
@@ -303,7 +303,7 @@ def test_twenty_files_dropped_quickly_are_each_retrained_once(tmp_path):
     assert sorted(names) == sorted(good + ["broken.csv"])  # each exactly once
     assert {i.file_name: i.state for i in handled}["broken.csv"] == "rejected"
     assert all(i.state == "done" for i in handled if i.file_name != "broken.csv")
-    # One registered challenger per good file: a file retrained twice would show up here.
+    # One registered refit per good file: a file retrained twice would show up here.
     assert len(registry.versions(NAME)) == 20
     done = inbox / DONE_FOLDER
     assert sorted(p.name for p in done.glob("*.csv")) == good
@@ -454,7 +454,7 @@ def test_a_file_replaced_while_the_previous_one_is_retrained_is_retrained_too(tm
     busy, replaced = threading.Event(), threading.Event()
 
     def progress(step: str) -> None:
-        if step == "fit challenger" and not busy.is_set():
+        if step == "refit" and not busy.is_set():
             busy.set()  # the first retrain is under way: let the writer replace the file now
             assert replaced.wait(60)
 
@@ -575,7 +575,7 @@ def test_a_file_removed_mid_retrain_does_not_stop_the_queue(tmp_path):
     removed: list[Path] = []
 
     def progress(step: str) -> None:
-        if step == "fit challenger" and not removed:
+        if step == "refit" and not removed:
             # Someone tidies the watcher's work area while the first retrain runs.
             removed.extend((inbox / CLAIMED_FOLDER).glob("*/a.csv"))
             for path in removed:
@@ -609,11 +609,11 @@ def test_a_watcher_killed_mid_retrain_is_recovered_at_the_next_start(tmp_path):
     _drop(inbox, "feed.csv", text)
     script = (
         "import os, signal, sys\n"
-        "from ergodex.inbox import watch\n"
+        "from ergodex.watching import watch\n"
         "from ergodex.registry import Registry\n"
         "from ergodex.validation import CheckSpec\n"
         "def progress(step):\n"
-        "    if step == 'fit challenger':\n"
+        "    if step == 'refit':\n"
         "        os.kill(os.getpid(), signal.SIGKILL)\n"
         "watch(sys.argv[1], sys.argv[2], registry=Registry(sys.argv[3]), spec=CheckSpec(members=4),"
         " report=False, poll_interval=0.02, settle=0.1, max_files=1, progress=progress)\n"
@@ -670,7 +670,7 @@ def test_a_file_its_writer_goes_on_writing_after_the_claim_is_retrained_whole(tm
     busy, written = threading.Event(), threading.Event()
 
     def progress(step: str) -> None:
-        if step == "fit challenger" and not busy.is_set():
+        if step == "refit" and not busy.is_set():
             busy.set()  # the claimed bytes are being retrained: let the writer go on now
             assert written.wait(60)
 
@@ -765,7 +765,7 @@ def test_two_watcher_processes_on_one_folder_retrain_each_file_once(tmp_path):
         _drop(inbox, name, text)
     script = (
         "import sys\n"
-        "from ergodex.inbox import watch\n"
+        "from ergodex.watching import watch\n"
         "from ergodex.registry import Registry\n"
         "from ergodex.validation import CheckSpec\n"
         "items = watch(sys.argv[1], sys.argv[2], registry=Registry(sys.argv[3]),"
@@ -798,7 +798,7 @@ def test_two_watcher_processes_on_one_folder_retrain_each_file_once(tmp_path):
     # point here: a file the check cannot use is rejected, and that too happens once.)
     assert sorted(name for name, _ in handled) == names
     done = sorted(name for name, state in handled if state == "done")
-    assert len(Registry(home).versions(NAME)) == len(done) > 0  # one challenger per retrain
+    assert len(Registry(home).versions(NAME)) == len(done) > 0  # one refit per retrain
     rows = read_ledger(inbox)
     assert sorted((r["file_name"], r["state"], r["attempts"]) for r in rows) == sorted(
         (name, state, 1) for name, state in handled
@@ -815,11 +815,11 @@ def test_a_watcher_stopped_with_ctrl_c_mid_retrain_runs_the_file_again_uncounted
     _drop(inbox, "feed.csv", text)
     script = (
         "import os, signal, sys\n"
-        "from ergodex.inbox import watch\n"
+        "from ergodex.watching import watch\n"
         "from ergodex.registry import Registry\n"
         "from ergodex.validation import CheckSpec\n"
         "def progress(step):\n"
-        "    if step == 'fit challenger':\n"
+        "    if step == 'refit':\n"
         "        os.kill(os.getpid(), signal.SIGINT)  # as Ctrl-C in a terminal\n"
         "try:\n"
         "    watch(sys.argv[1], sys.argv[2], registry=Registry(sys.argv[3]),"

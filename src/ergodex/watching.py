@@ -44,7 +44,7 @@ Rules, and why:
    caught half-way through being claimed goes back into the inbox. A file another live watcher
    on this machine is retraining right now is left to it. Run one watcher per folder per process.
 7. **One log line per step** through the standard :mod:`logging` module (logger
-   ``ergodex.inbox``); the command line sets the level with ``--log-level``.
+   ``ergodex.watching``); the command line sets the level with ``--log-level``.
 
 A retrain that runs and finds no acceptable model (exit code 1) is a processed file, not a
 failure: its decision record says so, and the registry holds the drift event.
@@ -67,7 +67,7 @@ from pathlib import Path
 from typing import Any
 
 from ergodex.exceptions import DataError, ErgodexError, SettingsError
-from ergodex.inbox_ledger import (  # noqa: F401 - part of this module's interface
+from ergodex.watch_ledger import (  # noqa: F401 - part of this module's interface
     MAX_ATTEMPTS,
     REASONS,
     Ledger,
@@ -777,9 +777,9 @@ def watch(
     name : str
         Registry name of the model to retrain.
     registry : ergodex.registry.Registry
-        The registry to read the champion from and register challengers in.
+        The registry to read the incumbent from and register refits in.
     config : path-like, optional
-        Fit settings TOML for the challenger (see :func:`ergodex.retraining.retrain`); read once
+        Fit settings TOML for the refit (see :func:`ergodex.retraining.retrain`); read once
         here so that a broken config fails at start instead of rejecting every file.
     spec, seed, holdout, report, progress
         Passed on to :func:`ergodex.retraining.retrain` unchanged.

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from ergodex.fitting import make_fitter
-from ergodex.fitting.closure import ridge_regression
+from ergodex.fitting.quadratic_noise import ridge_regression
 from ergodex.series import Series
 
 

@@ -13,6 +13,7 @@ import numpy as np
 
 from ergodex.exceptions import DataError
 from ergodex.fitting.base import Fitter, _source, data_provenance
+from ergodex.fitting.reduction import reduce_series
 from ergodex.fitting.settings import Rule
 from ergodex.fitting.tendencies import (
     check_library_rank,
@@ -22,7 +23,6 @@ from ergodex.fitting.tendencies import (
     r2_score,
     term_names,
 )
-from ergodex.fitting.transforming import reduce_series
 
 __all__ = ["QuadraticNoiseModel", "ridge_regression"]
 

@@ -5,7 +5,7 @@ transaction whether a watcher runs a file, leaves it to another live watcher, or
 handled before, so two watchers on one folder never both run it. A rejection records its reason
 (:data:`REASONS`) and the fingerprint of the settings it was rejected under, so that
 :func:`should_retry` can tell a file worth trying again (the settings changed) from one that is
-not (the same bad bytes). Used by :mod:`ergodex.inbox`.
+not (the same bad bytes). Used by :mod:`ergodex.watching`.
 """
 
 from __future__ import annotations
@@ -16,7 +16,8 @@ import sqlite3
 from pathlib import Path
 from typing import Any
 
-from ergodex.host import pid_alive, utc_now
+from ergodex.processes import pid_alive
+from ergodex.timestamps import utc_now
 
 #: Attempts (including ones cut short by a crash) before a file is moved aside for good.
 MAX_ATTEMPTS = 2

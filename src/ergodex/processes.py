@@ -1,14 +1,8 @@
-"""Facts about the running host that several modules record: UTC time stamps and live processes."""
+"""Whether a process on this host is alive: tells stale claims and folders from live ones."""
 
 from __future__ import annotations
 
 import os
-from datetime import UTC, datetime
-
-
-def utc_now(timespec: str = "seconds") -> str:
-    """The current UTC time in ISO 8601 (``2026-12-01T22:30:00+00:00``), for records and events."""
-    return datetime.now(UTC).isoformat(timespec=timespec)
 
 
 def pid_alive(pid: int) -> bool:

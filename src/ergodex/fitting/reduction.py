@@ -1,7 +1,7 @@
 """Fitting in a reduced space: build the data → model-space transform and map the runs through it.
 
 Kept apart so that every fitter that offers ``n_modes`` reduces the data the same way, through
-:mod:`ergodex.transforms` (whose transforms are stored inside the model file).
+:mod:`ergodex.model_space` (whose transforms are stored inside the model file).
 """
 
 from __future__ import annotations
@@ -41,14 +41,14 @@ def fit_transform(series, *, n_modes: int | None, standardise: bool):
     """
     if n_modes is None and not standardise:
         return None
-    from ergodex import transforms
+    from ergodex import model_space
 
-    steps: list[transforms.Transform] = []
+    steps: list[model_space.Transform] = []
     if standardise:
-        steps.append(transforms.Standardise())
+        steps.append(model_space.Standardise())
     if n_modes is not None:
-        steps.append(transforms.PCA(n_modes=n_modes))
-    transform = steps[0] if len(steps) == 1 else transforms.Chain(steps)
+        steps.append(model_space.PCA(n_modes=n_modes))
+    transform = steps[0] if len(steps) == 1 else model_space.Chain(steps)
     transform.fit(series)
     return transform
 

@@ -8,9 +8,7 @@ import numpy as np
 import pytest
 
 from ergodex.exceptions import DataError, ModelFileError, NotFittedError, SettingsError
-from ergodex.scenarios import station_ring
-from ergodex.series import Series
-from ergodex.transforms import (
+from ergodex.model_space import (
     PCA,
     Chain,
     DelayEmbedding,
@@ -18,6 +16,8 @@ from ergodex.transforms import (
     transform_from_dict,
     transform_series,
 )
+from ergodex.scenarios import station_ring
+from ergodex.series import Series
 
 
 @pytest.fixture(scope="module")
