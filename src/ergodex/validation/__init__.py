@@ -65,7 +65,13 @@ from ergodex.validation.evidence import EVIDENCE_FIELDS, EVIDENCE_FORMAT, Eviden
 from ergodex.validation.pieces import PieceSettings
 from ergodex.validation.plan import CheckPlan, derive_plan
 from ergodex.validation.result import CheckResult
-from ergodex.validation.scorecard import SCORECARD_FORMAT, Scorecard, ScoreRow, power_lines
+from ergodex.validation.scorecard import (
+    SCORECARD_FORMAT,
+    Scorecard,
+    ScoreRow,
+    power_lines,
+    threshold_line,
+)
 from ergodex.validation.spaces import align_columns, data_variables
 from ergodex.validation.spec import CheckSpec
 
@@ -87,6 +93,7 @@ __all__ = [
     "check",
     "data_variables",
     "derive_plan",
+    "threshold_line",
     "power_lines",
     "validate",
 ]
