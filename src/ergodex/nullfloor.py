@@ -72,7 +72,7 @@ DEFAULT_REPLICATES = 40
 BLOCK_LAGS = 4
 #: Floor pairs scored per replicate (of the check's own splits): the reference side of a
 #: replicate still has as many pieces as the real reference, only fewer of its splits are used.
-MAX_REPLICATE_SPLITS = 8
+MAX_REPLICATE_SPLITS = 4
 #: The pool of pseudo-model groups shared by the replicates holds this many times the groups
 #: of one replicate.
 MODEL_POOL_FACTOR = 3

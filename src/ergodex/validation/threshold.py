@@ -56,11 +56,14 @@ def null_threshold(
         ref_stats = _PieceStats(
             np.stack([reference[list(groups[g])].reshape(-1, n_vars) for g in used]), family
         )
-        every = (np.repeat(chosen, len(used)), np.tile(np.arange(len(used)), chosen.size))
         out: list[float] = []
         for s in statistics:
             floor = np.nanmean(_pair_distances(s, ref_stats, ref_stats, pairs), axis=0)
-            value = np.nanmean(_pair_distances(s, model, ref_stats, every), axis=0)
+            # every pool group against every reference group (the broadcast path, far cheaper
+            # than indexed pairs), then the chosen groups' rows
+            d = _pair_distances(s, model, ref_stats)
+            d = d.reshape(-1, len(used), d.shape[-1])[chosen]
+            value = np.nanmean(d.reshape(-1, d.shape[-1]), axis=0)
             out.extend(_ratio(float(v), float(f)) for v, f in zip(value, floor))
         return np.array(out)
 
