@@ -3,12 +3,20 @@ check's own pieces, groups and distances (so nothing about a statistic is writte
 
 from __future__ import annotations
 
+import hashlib
+from collections import OrderedDict
+
 import numpy as np
 
 from ergodex import nullfloor
 from ergodex.validation.pieces import PieceSettings, _pair_distances, _PieceStats
 from ergodex.validation.spec import CheckSpec
 from ergodex.validation.verdict import _ratio
+
+#: Thresholds of recent checks: candidates of one selection (and repeated checks of one record)
+#: share the reference, the settings and the seed, hence the threshold; it is computed once.
+_RECENT: OrderedDict[str, dict] = OrderedDict()
+_RECENT_SIZE = 8
 
 
 def null_threshold(
@@ -34,6 +42,43 @@ def null_threshold(
     statistics = [s for s in settings.statistics if s not in spec.tolerances]
     if spec.false_reject_rate is None or not statistics:
         return {"false_reject_rate": None, "threshold": float(spec.tolerance)}
+    key = hashlib.sha256(np.ascontiguousarray(ref_pieces, "<f8").tobytes())
+    key.update(
+        repr(
+            (
+                ref_pieces.shape,
+                [tuple(g) for g in groups],
+                [np.ravel(i).tolist() for i in floor_index],
+                settings.variables,
+                settings.dt,
+                settings.max_lag_samples,
+                settings.nperseg,
+                None if settings.regimes is None else settings.regimes.to_dict(),
+                statistics,
+                spec.false_reject_rate,
+                spec.null_replicates,
+                spec.threshold_floor,
+                pool,
+                n_model_groups,
+                seed,
+            )
+        ).encode()
+    )
+    digest = key.hexdigest()
+    if digest in _RECENT:
+        _RECENT.move_to_end(digest)
+        return dict(_RECENT[digest])
+    block = _fit(
+        ref_pieces, groups, floor_index, settings, spec, statistics, pool, n_model_groups, seed
+    )
+    _RECENT[digest] = block
+    while len(_RECENT) > _RECENT_SIZE:
+        _RECENT.popitem(last=False)
+    return dict(block)
+
+
+def _fit(ref_pieces, groups, floor_index, settings, spec, statistics, pool, n_model_groups, seed):
+    """The bootstrap behind :func:`null_threshold` (uncached)."""
     left = np.ravel(floor_index[0])[: nullfloor.MAX_REPLICATE_SPLITS]
     right = np.ravel(floor_index[1])[: nullfloor.MAX_REPLICATE_SPLITS]
     used = sorted(set(left.tolist()) | set(right.tolist()))
