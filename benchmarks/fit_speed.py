@@ -60,9 +60,9 @@ def main() -> None:
             "sparse", {"differentiation": "finite-difference"}
         ).fit(series),
         "pysindy SINDy.fit, plain differences": pysindy_direct,
-        "sparse, ensemble of 20 (weak form)": lambda: make_fitter("sparse", {"ensemble": True}).fit(
-            series
-        ),
+        "sparse, bootstrap of 20 (weak form)": lambda: make_fitter(
+            "sparse", {"bootstrap": True}
+        ).fit(series),
         "linear inverse model": lambda: make_fitter("linear-inverse", {"tau0": 0.05}).fit(series),
         "quadratic + white noise": lambda: make_fitter("quadratic-noise", {}).fit(series),
     }

@@ -31,7 +31,8 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
 
-#: module → (source file, test files that exercise it). Only fast tests run (``-m "not slow"``).
+#: module → (source file, or a glob of a package's files; test files that exercise it). Only fast
+#: tests run (``-m "not slow"``).
 MODULES: dict[str, tuple[str, list[str]]] = {
     "validation": (
         "src/ergodex/validation/*",
@@ -64,7 +65,7 @@ MODULES: dict[str, tuple[str, list[str]]] = {
         "src/ergodex/fitting/linear_inverse.py",
         ["tests/test_fitting_linear_inverse.py", "tests/test_defaults.py"],
     ),
-    "registry": ("src/ergodex/registry/", ["tests/test_registry.py", "tests/test_defaults.py"]),
+    "registry": ("src/ergodex/registry/*", ["tests/test_registry.py", "tests/test_defaults.py"]),
 }
 
 # mutmut's result names → our tally

@@ -94,9 +94,9 @@ def test_bad_data_and_targets_exit_2(tmp_path, capsys):
     assert "bad.csv" in capsys.readouterr().err
     assert main(["fit", str(bad), "--out", str(tmp_path)]) == 2
     assert "is a folder" in capsys.readouterr().err
-    assert (
-        main(["fit", str(bad), "--out", str(tmp_path / "m.json"), "--scheduler", "tcp://x:1"]) == 2
-    )
+    # with --method there is no automatic choice either, so --scheduler is refused at once
+    args = ["fit", str(bad), "--method", "sparse", "--out", str(tmp_path / "m.json")]
+    assert main([*args, "--scheduler", "tcp://x:1"]) == 2
     assert "only apply with --select" in capsys.readouterr().err
     assert not (tmp_path / "m.json").exists()
 
@@ -124,7 +124,7 @@ def test_select_writes_the_sparsest_passing_model_and_the_front(tmp_path, capsys
     data = write_csv(tmp_path / "fit.csv", convection_loop(seed=70, n_runs=2, duration=60.0))
     held = write_csv(tmp_path / "held.csv", convection_loop(seed=71, n_runs=4, duration=40.0))
     config = tmp_path / "fit.toml"
-    config.write_text('method = "sparse"\n[select]\nthresholds = [0.1, 5.0]\n')
+    config.write_text('method = "sparse"\n[select]\nprune_below = [0.1, 5.0]\n')
     out, front = tmp_path / "model.json", tmp_path / "front.json"
     code = main(
         [

@@ -147,6 +147,7 @@ def test_data_the_configured_method_cannot_represent_exit_1(tmp_path, capsys):
     info = Registry(home).get(f"{WELL}/1")
     assert info.status == "rejected"
     assert json.loads(Registry(home).artifact(f"{WELL}/1", "fit-settings.json")) == {
+        "format": "ergodex-fit/2",
         "method": "sparse",
         "settings": {"degree": 2},
     }

@@ -267,7 +267,7 @@ def test_simulate_refuses_bad_input_with_exit_code_2(tmp_path, capsys, extra, ma
 
 def test_simulate_refuses_a_broken_model_file(tmp_path, capsys):
     model = tmp_path / "model.json"
-    model.write_text(lorenz63().to_json().replace("ergodex-model/1", "ergodex-model/7"))
+    model.write_text(lorenz63().to_json().replace("ergodex-model/2", "ergodex-model/7"))
     out = tmp_path / "sim.npz"
     assert (
         main(

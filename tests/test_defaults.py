@@ -239,9 +239,9 @@ def test_linear_inverse_default_lag_is_half_the_e_folding_lag():
     assert d["unstable"] == "refuse" and d["negative_noise"] == "clip"
 
 
-def test_sparse_ensemble_inclusion_threshold_default():
-    # SparseODE docstring: "inclusion_threshold : float, default 0.5" (keep a term non-zero in
+def test_sparse_bootstrap_keep_fraction_default():
+    # SparseODE docstring: "keep_fraction : float, default 0.5" (keep a term non-zero in
     # at least that fraction of the bagged fits)
     from ergodex.fitting.sparse import SparseODE
 
-    assert _defaults(SparseODE.__init__)["inclusion_threshold"] == 0.5
+    assert _defaults(SparseODE.__init__)["keep_fraction"] == 0.5

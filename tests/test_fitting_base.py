@@ -32,7 +32,7 @@ def test_unknown_method_is_named_with_the_allowed_ones():
 
 def test_unknown_key_is_named_with_the_allowed_ones():
     with pytest.raises(
-        SettingsError, match=r"sparse has no setting 'treshold'; allowed settings: .*threshold"
+        SettingsError, match=r"sparse has no setting 'treshold'; allowed settings: .*prune_below"
     ):
         make_fitter("sparse", {"treshold": 0.1})
 
@@ -42,10 +42,10 @@ def test_unknown_key_is_named_with_the_allowed_ones():
     [
         ({"degree": -1}, r"'degree' must be an integer >= 0"),
         ({"degree": 2.5}, r"'degree' must be an integer"),
-        ({"threshold": "big"}, r"'threshold' must be a number >= 0; got 'big'"),
-        ({"optimizer": "lasso"}, r"'optimizer' must be one of 'stlsq', 'sr3'; got 'lasso'"),
-        ({"ensemble": 1}, r"'ensemble' must be true or false"),
-        ({"smoother_window": 10}, r"'smoother_window' must be odd"),
+        ({"prune_below": "big"}, r"'prune_below' must be a number >= 0; got 'big'"),
+        ({"regression": "lasso"}, r"'regression' must be one of 'stlsq', 'sr3'; got 'lasso'"),
+        ({"bootstrap": 1}, r"'bootstrap' must be true or false"),
+        ({"smoothing_window": 10}, r"'smoothing_window' must be odd"),
     ],
 )
 def test_bad_values_are_named(settings, message):
@@ -54,9 +54,9 @@ def test_bad_values_are_named(settings, message):
 
 
 def test_bad_value_set_after_construction_is_caught_by_fit():
-    fitter = FITTERS["sparse"](threshold=-1.0)
+    fitter = FITTERS["sparse"](prune_below=-1.0)
     series = Series.from_arrays([np.random.default_rng(0).normal(size=(200, 2))], ("a", "b"), 0.1)
-    with pytest.raises(SettingsError, match="'threshold' must be a number >= 0"):
+    with pytest.raises(SettingsError, match="'prune_below' must be a number >= 0"):
         fitter.fit(series)
 
 
@@ -69,16 +69,16 @@ def test_learned_state_before_fit_raises_not_fitted():
 
 
 def test_get_params_round_trips_through_make_fitter():
-    fitter = make_fitter("sparse", {"threshold": 0.2, "degree": 3})
+    fitter = make_fitter("sparse", {"prune_below": 0.2, "degree": 3})
     params = fitter.get_params()
-    assert params["threshold"] == 0.2 and params["degree"] == 3
+    assert params["prune_below"] == 0.2 and params["degree"] == 3
     assert make_fitter("sparse", params).get_params() == params
 
 
 def test_settings_file(tmp_path):
     path = tmp_path / "fit.toml"
-    path.write_text('method = "sparse"\n\n[settings]\ndegree = 3\nthreshold = 0.05\n')
-    assert load_fit_settings(path) == ("sparse", {"degree": 3, "threshold": 0.05})
+    path.write_text('method = "sparse"\n\n[settings]\ndegree = 3\nprune_below = 0.05\n')
+    assert load_fit_settings(path) == ("sparse", {"degree": 3, "prune_below": 0.05})
 
 
 @pytest.mark.parametrize(

@@ -8,12 +8,12 @@ import numpy as np
 import pytest
 
 from ergodex.exceptions import SettingsError
-from ergodex.fitting.selection import parse_selection, select, threshold_sweep
+from ergodex.fitting.selection import parse_selection, prune_sweep, select
 from ergodex.validation import CheckSpec
 
 CANDIDATES = [
-    ("sparse", {"threshold": 0.1}),
-    ("sparse", {"threshold": 5.0}),
+    ("sparse", {"prune_below": 0.1}),
+    ("sparse", {"prune_below": 5.0}),
     (
         "linear-inverse",
         {"tau0": 1000.0},
@@ -103,14 +103,14 @@ def test_bad_candidate_settings_are_refused_before_any_work(loop_data):
     fit_data, _ = loop_data
     with pytest.raises(SettingsError, match="candidate 1: sparse has no setting 'treshold'"):
         select(fit_data, [("sparse", {}), ("sparse", {"treshold": 1.0})])
-    with pytest.raises(SettingsError, match="either candidates or thresholds"):
-        select(fit_data, [("sparse", {})], thresholds=[0.1])
+    with pytest.raises(SettingsError, match="either candidates or prune_below"):
+        select(fit_data, [("sparse", {})], prune_below=[0.1])
 
 
-def test_threshold_sweep_keeps_the_base_settings():
-    assert threshold_sweep([0.1, 1.0], settings={"degree": 3}) == [
-        ("sparse", {"degree": 3, "threshold": 0.1}),
-        ("sparse", {"degree": 3, "threshold": 1.0}),
+def test_prune_sweep_keeps_the_base_settings():
+    assert prune_sweep([0.1, 1.0], settings={"degree": 3}) == [
+        ("sparse", {"degree": 3, "prune_below": 0.1}),
+        ("sparse", {"degree": 3, "prune_below": 1.0}),
     ]
 
 
@@ -118,7 +118,7 @@ def test_parse_selection_table():
     document = {
         "method": "sparse",
         "select": {
-            "thresholds": [0.05, 0.5],
+            "prune_below": [0.05, 0.5],
             "candidates": [
                 {"method": "linear-inverse", "tau0": 0.1},
                 {"method": "quadratic-noise", "degree": 3},
@@ -127,18 +127,18 @@ def test_parse_selection_table():
     }
     parsed = parse_selection(document, method="sparse", settings={"degree": 2})
     assert parsed == [
-        ("sparse", {"degree": 2, "threshold": 0.05}),
-        ("sparse", {"degree": 2, "threshold": 0.5}),
+        ("sparse", {"degree": 2, "prune_below": 0.05}),
+        ("sparse", {"degree": 2, "prune_below": 0.5}),
         ("linear-inverse", {"tau0": 0.1}),
         ("quadratic-noise", {"degree": 3}),
     ]
-    with pytest.raises(SettingsError, match=r"\[select\] has no key 'threshold'"):
-        parse_selection({"select": {"threshold": [1.0]}}, method="sparse", settings={})
+    with pytest.raises(SettingsError, match=r"\[select\] has no key 'prune'"):
+        parse_selection({"select": {"prune": [1.0]}}, method="sparse", settings={})
     with pytest.raises(SettingsError, match=r"entry 1: linear-inverse has no setting 'degree'"):
         parse_selection(
             {"select": {"candidates": [{"method": "linear-inverse", "degree": 2}]}},
             method="sparse",
             settings={},
         )
-    with pytest.raises(SettingsError, match="'thresholds' needs method 'sparse'"):
-        parse_selection({"select": {"thresholds": [1.0]}}, method="linear-inverse", settings={})
+    with pytest.raises(SettingsError, match="'prune_below' needs method 'sparse'"):
+        parse_selection({"select": {"prune_below": [1.0]}}, method="linear-inverse", settings={})

@@ -29,7 +29,9 @@ def test_clean_lorenz63_every_coefficient_within_one_percent(dt, differentiation
     # β=8/3) from clean data. The 1 % tolerance is the issue's; order-4 differences err by ~1e-4
     # at dt = 0.01 (Taylor remainder), far inside it.
     series = lorenz63_reference_series(dt)
-    fitter = make_fitter("sparse", {"differentiation": differentiation, "fd_order": 4}).fit(series)
+    fitter = make_fitter("sparse", {"differentiation": differentiation, "difference_order": 4}).fit(
+        series
+    )
     assert fitter.coefficients_.shape == (3, 10)
     assert max_relative_error(fitter.coefficients_) < 0.01
     assert largest_spurious(fitter.coefficients_) == 0.0
@@ -44,7 +46,7 @@ def test_order_two_differences_bias_rho_at_coarse_step():
     rho = {}
     for order in (2, 4):
         fitter = make_fitter(
-            "sparse", {"differentiation": "finite-difference", "fd_order": order}
+            "sparse", {"differentiation": "finite-difference", "difference_order": order}
         ).fit(series)
         rho[order] = abs(fitter.coefficients_[1, 1] - 28.0) / 28.0
     assert rho[2] > 10 * rho[4]
@@ -114,7 +116,7 @@ def test_sr3_with_l0_recovers_lorenz63():
     # λ=0.005.
     series = lorenz63_reference_series(0.01)
     fitter = make_fitter(
-        "sparse", {"optimizer": "sr3", "reg_weight_lam": 0.005, "max_iter": 200}
+        "sparse", {"regression": "sr3", "penalty_weight": 0.005, "iterations": 200}
     ).fit(series)
     assert np.all(fitter.coefficients_[ACTIVE] != 0)
     assert max_relative_error(fitter.coefficients_) < 0.01
@@ -125,7 +127,7 @@ def test_ensemble_inclusion_probabilities_and_seed():
     # Ensemble-SINDy (Fasel et al. 2022): true terms appear in (nearly) every bagged fit; the
     # seed is recorded and repeating it repeats the result exactly.
     series = lorenz63_reference_series(0.01, noise=0.01, seed=6)
-    settings = {"ensemble": True, "n_models": 10, "seed": 3}
+    settings = {"bootstrap": True, "resamples": 10, "seed": 3}
     a = make_fitter("sparse", settings).fit(series)
     b = make_fitter("sparse", settings).fit(series)
     c = make_fitter("sparse", {**settings, "seed": 4}).fit(series)
@@ -159,7 +161,7 @@ def test_fourier_library_recovers_a_damped_pendulum():
         runs.append(sol.y.T)
     series = Series.from_arrays(runs, ("angle", "rate"), 0.01)
     fitter = make_fitter(
-        "sparse", {"library": "polynomial+fourier", "degree": 1, "threshold": 0.05}
+        "sparse", {"terms": "polynomial+fourier", "degree": 1, "prune_below": 0.05}
     ).fit(series)
     names = fitter.feature_names_
     coef = dict(zip(names, fitter.coefficients_[1]))
@@ -203,7 +205,7 @@ def test_rank_deficient_library_names_the_dependent_terms():
         make_fitter("sparse", {"differentiation": "finite-difference"}).fit(series)
 
 
-def test_trapping_without_cvxpy_names_the_package():
+def test_bounded_quadratic_without_cvxpy_names_the_package():
     try:
         import cvxpy  # noqa: F401
     except ImportError:
@@ -212,7 +214,7 @@ def test_trapping_without_cvxpy_names_the_package():
         pytest.skip("cvxpy is installed; the missing-package message cannot be seen")
     series = lorenz63_reference_series(0.01)
     with pytest.raises(OptionalDependencyError, match=r"'cvxpy'"):
-        make_fitter("sparse", {"trapping": True}).fit(series)
+        make_fitter("sparse", {"bounded_quadratic": True}).fit(series)
 
 
 def test_demo_scenario_with_default_settings():

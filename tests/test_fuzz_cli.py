@@ -283,11 +283,11 @@ def hostile(tmp_path_factory) -> Path:
     _write(h / "reg_none_name.toml", '[[regime]]\nname = 5\nkind = "kmeans"\nclusters = 2\n')
 
     # fit settings files
-    _write(h / "cfg_latin1.toml", "threshold = 0.1 # \xe9\n".encode("latin-1"))
+    _write(h / "cfg_latin1.toml", "prune_below = 0.1 # \xe9\n".encode("latin-1"))
     _write(h / "cfg_deep.toml", "a = " + "[" * 100_000 + "]" * 100_000 + "\n")
-    _write(h / "cfg_bad.toml", "threshold = = 1\n")
+    _write(h / "cfg_bad.toml", "prune_below = = 1\n")
     _write(h / "cfg_unknown.toml", "colour = 'red'\n")
-    _write(h / "cfg_nan.toml", "[sparse]\nthreshold = nan\n")
+    _write(h / "cfg_nan.toml", "[sparse]\nprune_below = nan\n")
     _write(h / "cfg_degree.toml", "[sparse]\ndegree = 99\n")
     _write(h / "cfg_binary.toml", rng.bytes(512))
 

@@ -195,12 +195,12 @@ def test_fit_refuses_a_model_with_no_terms(tmp_path, capsys):
         tmp_path / "loop.csv", scenarios.convection_loop(seed=5, n_runs=1, duration=20.0)
     )
     config = tmp_path / "fit.toml"
-    config.write_text('method = "sparse"\n[settings]\nthreshold = 1e9\n')
+    config.write_text('method = "sparse"\n[settings]\nprune_below = 1e9\n')
     out = tmp_path / "model.json"
     code = main(["fit", str(data), "--config", str(config), "--out", str(out)])
     assert code == 1
     err = capsys.readouterr().err
-    assert "cannot move" in err and "threshold" in err
+    assert "cannot move" in err and "prune_below" in err
     assert not out.exists()
 
 

@@ -71,7 +71,7 @@ def full_version(tmp_path):
         scorecard=_card(truth),
         report_html="<html><body>report</body></html>",
         evidence_path=_evidence(tmp_path, rng),
-        fit_settings={"method": "sparse", "threshold": 0.1},
+        fit_settings={"method": "sparse", "prune_below": 0.1},
         note="true equations",
         datasets={"fit": "sha256:" + "01" * 32},
     )

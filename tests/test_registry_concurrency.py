@@ -131,7 +131,7 @@ def _register_forever(home, model, card, evidence) -> None:
             scorecard=card,
             evidence_path=evidence,
             report_html="<html>report</html>",
-            fit_settings={"threshold": 0.1},
+            fit_settings={"prune_below": 0.1},
         )
 
 
@@ -154,7 +154,7 @@ def _register_once_and_exit(home, model, card, evidence) -> None:
         scorecard=card,
         evidence_path=evidence,
         report_html="<html>report</html>",
-        fit_settings={"threshold": 0.1},
+        fit_settings={"prune_below": 0.1},
     )
 
 

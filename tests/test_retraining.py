@@ -88,7 +88,7 @@ def test_first_run_fits_checks_registers_and_accepts(loop_home):
     assert info.version == 1 and info.status == "accepted" and info.parent is None
     # The recorded fit settings are what the next retrain refits with.
     recorded = json.loads(registry.artifact(f"{LOOP}/1", "fit-settings.json"))
-    assert recorded == {"method": "sparse", "settings": {}}
+    assert recorded == {"format": "ergodex-fit/2", "method": "sparse", "settings": {}}
     # SINDy recovers the Lorenz-63 coefficients from clean-enough data (Brunton, Proctor & Kutz,
     # PNAS 2016): d dT_across/dt = rho flow - dT_across - flow dT_up with rho = 28. 2 % covers
     # the 0.05 sensor noise and the smoothed differences at dt = 0.02.
@@ -375,7 +375,7 @@ def test_an_incumbent_too_stiff_to_integrate_is_a_failed_drift_check_not_a_crash
         coefficients[i, terms.index(next(t for t in terms if t.powers == powers))] = -1e9
     # recorded as a sparse fit, so that retrain refits with the method the incumbent names
     stiff = Surrogate(
-        data.names, terms, coefficients, settings={"method": "sparse", "threshold": 0.1}
+        data.names, terms, coefficients, settings={"method": "sparse", "prune_below": 0.1}
     )
     registry = Registry(tmp_path / "home")
     info = registry.register(LOOP, stiff)

@@ -130,7 +130,7 @@ def test_json_round_trip_is_bit_exact(tmp_path):
         coef,
         kind="quadratic-stochastic",
         noise=noise,
-        settings={"threshold": np.float64(0.05), "degree": np.int64(2)},
+        settings={"prune_below": np.float64(0.05), "degree": np.int64(2)},
         provenance={"data": "sha256:abc"},
     )
     path = tmp_path / "model.json"
@@ -144,7 +144,7 @@ def test_json_round_trip_is_bit_exact(tmp_path):
         assert back.coefficients.tobytes() == s.coefficients.tobytes()
         assert back.noise.tobytes() == s.noise.tobytes()
         assert back.terms == s.terms and back.variables == s.variables
-        assert back.settings == {"threshold": 0.05, "degree": 2}
+        assert back.settings == {"prune_below": 0.05, "degree": 2}
         assert back.fingerprint() == s.fingerprint()
         assert back.to_json() == text
     assert json.loads(text)["format"] == FORMAT

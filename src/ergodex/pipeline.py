@@ -12,6 +12,7 @@ from pathlib import Path
 from typing import Any
 
 from ergodex.exceptions import SettingsError
+from ergodex.setting_names import FIT_SETTINGS_FORMAT
 
 log = logging.getLogger(__name__)
 
@@ -100,7 +101,7 @@ def fit_check_register(
         name,
         surrogate,
         result,
-        fit_settings={"method": method, "settings": settings},
+        fit_settings={"format": FIT_SETTINGS_FORMAT, "method": method, "settings": settings},
         note=note,
         parent=parent,
         datasets={"fit": fit_data.fingerprint(), "check": check_data.fingerprint()},

@@ -79,6 +79,7 @@ from ergodex.exceptions import DataError, ModelFileError, ModelLimitError, Setti
 from ergodex.files import atomic_write_text
 from ergodex.jsonable import jsonable
 from ergodex.series import Series, split_blocks, split_runs
+from ergodex.setting_names import FIT_SETTINGS_FORMAT
 from ergodex.timestamps import utc_now
 
 log = logging.getLogger(__name__)
@@ -473,9 +474,12 @@ def _resolve_fit(
             ) from None
         if not isinstance(recorded, Mapping):
             raise SettingsError(f"fit settings recorded with {ref} are not a table: {recorded!r}")
-        return parse_fit_settings(recorded, source=f"fit settings recorded with {ref}")
+        # recorded=True: a record without a format key was stored before the settings' renames
+        return parse_fit_settings(
+            recorded, source=f"fit settings recorded with {ref}", recorded=True
+        )
     if "fit-settings.toml" in incumbent_info.artifacts:
-        return load_fit_settings(registry.artifact_path(ref, "fit-settings.toml"))
+        return load_fit_settings(registry.artifact_path(ref, "fit-settings.toml"), recorded=True)
     if incumbent is None:
         incumbent = registry.load(ref)
     return fit_settings_from_model(incumbent, source=ref)
@@ -774,7 +778,7 @@ def _retrain(
             series.source or "",
             fit_fingerprint,
             reference_fingerprint,
-            fit_settings={"method": method, "settings": settings},
+            fit_settings={"format": FIT_SETTINGS_FORMAT, "method": method, "settings": settings},
             parent=None if incumbent_info is None else incumbent_info.ref,
             seed=seed,
             report=report,

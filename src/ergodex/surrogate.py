@@ -33,6 +33,7 @@ from ergodex.exceptions import ErgodexError, ModelFileError, SettingsError
 
 __all__ = [
     "FORMAT",
+    "OLD_FORMAT",
     "TERM_KINDS",
     "Term",
     "Surrogate",
@@ -40,8 +41,11 @@ __all__ = [
     "from_pysindy",
 ]
 
-#: Version string written to and required in the ``format`` field of ``model.json``.
-FORMAT = "ergodex-model/1"
+#: Version string written to the ``format`` field of ``model.json``.
+FORMAT = "ergodex-model/2"
+#: The version before the fit settings got names of ergodex's own: still read, its recorded
+#: settings mapped to the new names (:mod:`ergodex.setting_names`).
+OLD_FORMAT = "ergodex-model/1"
 
 #: Largest total degree of a monomial in a model file. Fitters write degree 5 at most; far higher
 #: powers overflow at ordinary states and make each evaluation slow.
@@ -714,7 +718,14 @@ class Surrogate:
         ------
         ModelFileError
             Naming ``source`` and the field: unknown format version, missing or unknown field,
-            wrong type, shape mismatch, non-finite number.
+            wrong type, shape mismatch, non-finite number, or (in an ``ergodex-model/2`` file)
+            a recorded setting under its old name.
+
+        Notes
+        -----
+        An ``ergodex-model/1`` file is read with its recorded fit settings renamed to the
+        current names. Its fingerprint does not change (see :meth:`fingerprint`), so scorecards
+        and registry records made for it still match, also once it is written again as ``/2``.
         """
 
         def fail(msg: str) -> ModelFileError:
@@ -724,10 +735,10 @@ class Surrogate:
             raise fail(f"expected a JSON object at the top level, got {type(d).__name__}")
         if "format" not in d:
             raise fail(f"missing field 'format' (expected {FORMAT!r})")
-        if d["format"] != FORMAT:
+        if d["format"] not in (FORMAT, OLD_FORMAT):
             raise fail(
-                f"field 'format' is {d['format']!r}; this ergodex reads only {FORMAT!r} "
-                "(a newer ergodex may have written it)"
+                f"field 'format' is {d['format']!r}; this ergodex reads {FORMAT!r} and "
+                f"{OLD_FORMAT!r} (a newer ergodex may have written it)"
             )
         for key in _TOP_LEVEL_REQUIRED:
             if key not in d:
@@ -832,6 +843,15 @@ class Surrogate:
         for key in ("settings", "provenance"):
             if d.get(key) is not None and not isinstance(d[key], Mapping):
                 raise fail(f"field {key!r} must be an object")
+        from ergodex.setting_names import old_setting_in, renamed_message, upgrade_settings
+
+        settings = dict(d.get("settings") or {})
+        method = settings.get("method")
+        if d["format"] == FORMAT and (old := old_setting_in(method, settings)) is not None:
+            raise fail(renamed_message("field 'settings'", *old, version=FORMAT))
+
+        if d["format"] == OLD_FORMAT:
+            settings = upgrade_settings(method, settings)
         try:
             return cls(
                 variables,
@@ -840,7 +860,7 @@ class Surrogate:
                 kind=kind,
                 noise=noise,
                 transform=transform,
-                settings=d.get("settings") or {},
+                settings=settings,
                 provenance=d.get("provenance") or {},
             )
         except SettingsError as exc:
@@ -889,10 +909,17 @@ class Surrogate:
         """``"sha256:<hex>"`` of the canonical JSON of everything except ``provenance``.
 
         Provenance (when and from what it was fitted) is left out so that the same dynamics,
-        noise, transform and settings always have the same fingerprint.
+        noise, transform and settings always have the same fingerprint. The JSON is taken in the
+        ``ergodex-model/1`` layout (that format string, the settings under their old names), so
+        a model's fingerprint did not change when the format became ``/2``: a model file of
+        either version, and a scorecard made for it, keep matching.
         """
+        from ergodex.setting_names import old_names
+
         d = self.to_dict()
         d.pop("provenance")
+        d["format"] = OLD_FORMAT
+        d["settings"] = old_names(d["settings"].get("method"), d["settings"])
         canon = json.dumps(d, sort_keys=True, separators=(",", ":"), allow_nan=False)
         return "sha256:" + hashlib.sha256(canon.encode("utf-8")).hexdigest()
 

@@ -1,7 +1,12 @@
 """``ergodex fit DATA --out MODEL.json``: fit a surrogate, or select one by its statistics.
 
-Exit codes: 0 a model was written; 1 ``--select`` ran but no candidate passed the statistical
-check (nothing written but the optional ``--json`` front), or the fit gave a degenerate model
+Without ``--method`` and ``--config``, a record of more than 6 variables gets the automatic
+choice (:mod:`ergodex.fitting.automatic`): mode count and method chosen by checking candidates
+against the fit runs' own statistics.
+
+Exit codes: 0 a model was written; 1 ``--select`` or the automatic choice ran but no candidate
+passed the statistical check (nothing written but the optional ``--json`` front), or the fit
+gave a degenerate model
 (no terms, or one that cannot move: nothing written, the reason and a suggestion on stderr);
 2 bad input (raised as
 :class:`~ergodex.exceptions.ErgodexError`, one line on stderr, nothing written).
@@ -28,10 +33,10 @@ EXIT_DEGENERATE = 1
 
 #: What to try when a fit comes out degenerate, per method.
 _DEGENERATE_HINTS = {
-    "sparse": "lower the sparsity threshold (settings: threshold = ...), or check that the data "
-    "vary on the time unit given (--dt)",
-    "quadratic-noise": "lower the sparsity threshold (settings: threshold = ...), or check that "
-    "the data vary on the time unit given (--dt)",
+    "sparse": "lower the sparsity threshold (settings: prune_below = ...), or check that the "
+    "data vary on the time unit given (--dt)",
+    "quadratic-noise": "check that the data vary on the time unit given (--dt), or lower "
+    "the ridge weight (settings: ridge = ...)",
     "linear-inverse": "choose tau0 (settings: tau0 = ...) as a lag at which the data are still "
     "correlated, in the data's time unit",
 }
@@ -62,7 +67,15 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
             "Fit a surrogate to DATA and write it as MODEL.json. "
             "With --select, fit every candidate "
             "of a sweep, check each one's long-run statistics against the data's noise floor, and "
-            "keep the sparsest that passes (exit 1 when none does). Caution: a passed statistical "
+            "keep the sparsest that passes (exit 1 when none does). Without --method and "
+            "--config, a record of more than 6 variables gets the automatic choice: the linear "
+            "inverse model on 6, 8, 10 and 12 principal components (those fewer than the "
+            "variables, and all of them when there are at most 12), "
+            "then, if none passes, the calibrated linear inverse model on the mode count that "
+            "came closest, each checked against the fit runs' own statistics (held-out runs "
+            "untouched); the passing candidate with the fewest terms is written, one line per "
+            "candidate tried is printed, and exit 1 when none passes. Give --method or --config "
+            "to skip the choice. Caution: a passed statistical "
             "check is not a certification; defer to the applicable codes, standards and licensed "
             "practice."
         ),
@@ -74,13 +87,15 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         "--method",
         choices=METHODS,
         default=None,
-        help="fit method (default: the config file's, else sparse)",
+        help="fit method (default: the config file's, else sparse; with neither, a record of "
+        "more than 6 variables gets the automatic choice)",
     )
     parser.add_argument(
         "--config",
         metavar="FILE",
         default=None,
-        help='fit settings (TOML): method = "...", a [settings] table, optional [select] table',
+        help='fit settings (TOML): method = "...", a [settings] table, optional [select] '
+        'table; format = "ergodex-fit/1" reads a file in the old setting names',
     )
     parser.add_argument(
         "--out", metavar="MODEL.json", required=True, help="where to write the model"
@@ -89,7 +104,7 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     parser.add_argument(
         "--select",
         action="store_true",
-        help="sweep candidates (the config's [select] table, else a threshold sweep) "
+        help="sweep candidates (the config's [select] table, else a sweep of prune_below) "
         "and keep the sparsest whose statistics pass",
     )
     parser.add_argument(
@@ -103,13 +118,15 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         "--scheduler",
         metavar="ADDRESS",
         default=None,
-        help="--select: run candidates on a Dask cluster (e.g. tcp://127.0.0.1:8786)",
+        help="--select or the automatic choice: run candidates on a Dask cluster "
+        "(e.g. tcp://127.0.0.1:8786)",
     )
     parser.add_argument(
         "--n-jobs",
         type=int,
         default=None,
-        help="--select: local worker processes (default 1: in this process; -1: every CPU)",
+        help="--select or the automatic choice: local worker processes (default 1: in this "
+        "process; -1: every CPU)",
     )
     parser.add_argument(
         "--json",
@@ -118,7 +135,7 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         help="write a JSON summary (fit diagnostics, or the selection front) here",
     )
     parser.add_argument("--quiet", action="store_true", help="print nothing on success")
-    add_check_options(parser, title="check settings (--select)")
+    add_check_options(parser, title="check settings (--select and the automatic choice)")
     from ergodex.cli.fields import add_fit_options
 
     add_fit_options(parser)
@@ -149,12 +166,17 @@ def run(args: argparse.Namespace) -> int:
     # read and check every input before any work: nothing is written when one is bad
     _check_target("out", args.out)
     _check_target("json", args.json)
-    if args.select is False and (args.scheduler or args.reference or args.n_jobs is not None):
-        raise SettingsError("--scheduler, --reference and --n-jobs only apply with --select")
+    # the automatic choice is possible only without --method, --config and --select; whether it
+    # happens depends on the number of variables, known once DATA is read
+    may_choose = not args.select and args.method is None and args.config is None
+    if args.reference and not args.select:
+        raise SettingsError("--reference only applies with --select")
+    if not (args.select or may_choose) and (args.scheduler or args.n_jobs is not None):
+        raise SettingsError("--scheduler and --n-jobs only apply with --select")
     given = [OPTIONS[k] for k in OPTIONS if getattr(args, k, None) is not None]
-    if args.select is False and (given or args.check_config):
+    if not (args.select or may_choose) and (given or args.check_config):
         raise SettingsError(f"{(given or ['--check-config'])[0]} only applies with --select")
-    spec = build_spec(args) if args.select else None
+    spec = build_spec(args) if (args.select or may_choose) else None
     document: dict = {}
     if args.config is not None:
         document = read_fit_document(args.config)
@@ -181,6 +203,17 @@ def run(args: argparse.Namespace) -> int:
 
     series, finish, data_note = read_fit_input(args, read_fit_part)
     choice = holder.get("choice")
+
+    from ergodex.fitting.automatic import MANY_VARIABLES
+
+    if may_choose and series.n_variables > MANY_VARIABLES:
+        return _choose_and_write(args, series, spec, finish, data_note)
+    if may_choose and (given or args.check_config or args.scheduler or args.n_jobs is not None):
+        option = (given or ["--check-config" if args.check_config else "--n-jobs"])[0]
+        raise SettingsError(
+            f"{option} only applies with --select or the automatic choice (a record of more "
+            f"than {MANY_VARIABLES} variables; this one has {series.n_variables})"
+        )
 
     if not args.select:
         fitter = make_fitter(method, settings).fit(series, progress=show_progress(args))
@@ -258,6 +291,41 @@ def run(args: argparse.Namespace) -> int:
         return EXIT_NONE_PASSED
     _write(args, finish(result.surrogate), result.to_dict())
     if not args.quiet:
+        print(f"wrote {args.out}")
+    return EXIT_OK
+
+
+def _choose_and_write(args: argparse.Namespace, series, spec, finish, data_note: str) -> int:
+    """The automatic choice (many variables, no method given): try, print, write the chosen."""
+    from ergodex.cli.common import show_progress, write_json_atomic
+    from ergodex.fitting.automatic import MANY_VARIABLES, choose_fit
+
+    if not args.quiet:
+        print(
+            f"ergodex fit: {series.n_variables} variables (more than {MANY_VARIABLES}) and no "
+            "--method or --config: choosing the mode count and method, each candidate checked "
+            "against the fit runs' own statistics (held-out runs untouched)",
+            file=sys.stderr,
+        )
+    result = choose_fit(
+        series,
+        spec,
+        progress=show_progress(args),
+        n_jobs=args.n_jobs,
+        scheduler=args.scheduler,
+    )
+    record = {**result.to_dict(), "choice": "automatic"}
+    if not args.quiet or result.chosen is None:
+        print(result.table(settings=True))
+        print(SELECT_LEGEND)
+        print(result.message)
+    if result.chosen is None:
+        if args.json is not None:
+            write_json_atomic(args.json, record)
+        return EXIT_NONE_PASSED
+    _write(args, finish(result.surrogate), record)
+    if not args.quiet:
+        print(f"  data: {data_note}")
         print(f"wrote {args.out}")
     return EXIT_OK
 

@@ -22,6 +22,14 @@ from sklearn.base import BaseEstimator
 from ergodex.exceptions import DataError, NotFittedError, SettingsError
 from ergodex.fit_methods import FIT_METHODS
 from ergodex.fitting.settings import Rule, check_settings
+from ergodex.setting_names import (
+    FIT_SETTINGS_FORMAT,
+    OLD_FIT_SETTINGS_FORMAT,
+    RENAMED_SELECT_KEYS,
+    old_setting_in,
+    renamed_message,
+    upgrade_settings,
+)
 
 log = logging.getLogger(__name__)
 
@@ -34,6 +42,7 @@ __all__ = [
     "load_fit_settings",
     "parse_fit_settings",
     "read_fit_document",
+    "current_fit_document",
     "data_provenance",
 ]
 
@@ -309,6 +318,11 @@ def check_fit_settings(method: str | type[Fitter], settings: Mapping[str, Any]) 
         raise SettingsError(
             f"{cls.method} settings must be a table of key = value; got {type(settings).__name__}"
         )
+    old = old_setting_in(cls.method, settings)
+    if old is not None:
+        raise SettingsError(
+            renamed_message(f"{cls.method} settings", *old, version=FIT_SETTINGS_FORMAT)
+        )
     check_settings(cls.method, settings, cls.settings_table)
 
 
@@ -328,10 +342,10 @@ def make_fitter(method: str | type[Fitter], settings: Mapping[str, Any] | None =
     >>> fitter = make_fitter("linear-inverse", {"tau0": 0.5})
     >>> type(fitter).__name__, fitter.get_params()["tau0"]
     ('LinearInverseModel', 0.5)
-    >>> make_fitter("sparse", {"treshold": 0.1})  # doctest: +ELLIPSIS
+    >>> make_fitter("sparse", {"prune_belo": 0.1})  # doctest: +ELLIPSIS
     Traceback (most recent call last):
     ...
-    ergodex.exceptions.SettingsError: sparse has no setting 'treshold'; allowed settings: alpha, ...
+    ergodex.exceptions.SettingsError: sparse has no setting 'prune_belo'; allowed settings: ...
     """
     settings = dict(settings or {})
     check_fit_settings(method, settings)
@@ -342,16 +356,78 @@ def make_fitter(method: str | type[Fitter], settings: Mapping[str, Any] | None =
 
 
 # -- settings files --------------------------------------------------------------------------
-_TOP_LEVEL_KEYS = ("method", "settings", "select")
+_TOP_LEVEL_KEYS = ("format", "method", "settings", "select")
+
+
+def current_fit_document(
+    document: Mapping[str, Any], *, source: str = "fit settings", recorded: bool = False
+) -> dict:
+    """A fit-settings document in the current version's names, without its ``format`` key.
+
+    ``format = "ergodex-fit/1"`` marks the old version: its setting names (in ``[settings]``,
+    ``[select]`` and each ``[[select.candidates]]``) are mapped to the new ones. A document of
+    the current version (``format = "ergodex-fit/2"``, or no ``format`` key) that uses an old
+    name is refused, the message naming the key and its new name. ``recorded=True`` reads a
+    document without a ``format`` key as the old version: settings ergodex stored itself (a
+    registry's ``fit-settings`` file) before the version existed.
+    """
+    document = dict(document)
+    version = document.pop("format", OLD_FIT_SETTINGS_FORMAT if recorded else FIT_SETTINGS_FORMAT)
+    if version not in (FIT_SETTINGS_FORMAT, OLD_FIT_SETTINGS_FORMAT):
+        raise SettingsError(
+            f"{source}: key 'format' must be {FIT_SETTINGS_FORMAT!r} (or the older "
+            f"{OLD_FIT_SETTINGS_FORMAT!r}); got {version!r}"
+        )
+    old = version == OLD_FIT_SETTINGS_FORMAT
+    method = document.get("method", "sparse")
+    if isinstance(document.get("settings"), Mapping):
+        document["settings"] = _current_settings(
+            method, document["settings"], old, f"{source}: [settings]"
+        )
+    select = document.get("select")
+    if isinstance(select, Mapping):
+        select = dict(select)
+        for old_key, new_key in RENAMED_SELECT_KEYS.items():
+            if old_key not in select:
+                continue
+            if not old:
+                raise SettingsError(
+                    renamed_message(
+                        f"{source}: [select]", old_key, new_key, version=FIT_SETTINGS_FORMAT
+                    )
+                )
+            select.setdefault(new_key, select.pop(old_key))
+            select.pop(old_key, None)
+        entries = select.get("candidates")
+        if isinstance(entries, list):
+            where = f"{source}: [[select.candidates]] entry"
+            select["candidates"] = [
+                _current_settings(entry.get("method"), entry, old, f"{where} {k + 1}")
+                if isinstance(entry, Mapping)
+                else entry
+                for k, entry in enumerate(entries)
+            ]
+        document["select"] = select
+    return document
+
+
+def _current_settings(method: Any, settings: Mapping[str, Any], old: bool, where: str) -> dict:
+    if old:
+        return upgrade_settings(method, settings)
+    found = old_setting_in(method, settings)
+    if found is not None:
+        raise SettingsError(renamed_message(where, *found, version=FIT_SETTINGS_FORMAT))
+    return dict(settings)
 
 
 def parse_fit_settings(
-    document: Mapping[str, Any], *, source: str = "fit settings"
+    document: Mapping[str, Any], *, source: str = "fit settings", recorded: bool = False
 ) -> tuple[str, dict]:
     """Validate a parsed fit-settings document and return ``(method, settings)``.
 
-    The document holds ``method = "sparse"`` and a ``[settings]`` table; a ``[select]`` table is
-    left for :func:`ergodex.fitting.selection.load_selection` to read.
+    The document holds ``method = "sparse"`` and a ``[settings]`` table, optionally a
+    ``format`` key (see :func:`current_fit_document`, which also says what ``recorded`` does);
+    a ``[select]`` table is left for :func:`ergodex.fitting.selection.parse_selection` to read.
     """
     for key in document:
         if key not in _TOP_LEVEL_KEYS:
@@ -359,6 +435,7 @@ def parse_fit_settings(
                 f"{source}: unknown key '{key}'; allowed top-level keys: "
                 f"{', '.join(_TOP_LEVEL_KEYS)}"
             )
+    document = current_fit_document(document, source=source, recorded=recorded)
     method = document.get("method", "sparse")
     if not isinstance(method, str) or method not in FITTERS:
         raise SettingsError(
@@ -376,7 +453,7 @@ def parse_fit_settings(
     return method, dict(settings)
 
 
-def load_fit_settings(path: str | os.PathLike) -> tuple[str, dict]:
+def load_fit_settings(path: str | os.PathLike, *, recorded: bool = False) -> tuple[str, dict]:
     """Read fit settings from a TOML file and return ``(method, settings)``.
 
     The file looks like::
@@ -385,7 +462,10 @@ def load_fit_settings(path: str | os.PathLike) -> tuple[str, dict]:
 
         [settings]
         degree = 2
-        threshold = 0.1
+        prune_below = 0.1
+
+    An optional ``format = "ergodex-fit/1"`` line reads a file written with the old setting
+    names (see :func:`current_fit_document`; ``recorded`` is passed on to it).
 
     Raises
     ------
@@ -394,7 +474,7 @@ def load_fit_settings(path: str | os.PathLike) -> tuple[str, dict]:
         not allowed (the message names the key and lists the allowed ones).
     """
     path = os.fspath(path)
-    return parse_fit_settings(read_fit_document(path), source=path)
+    return parse_fit_settings(read_fit_document(path), source=path, recorded=recorded)
 
 
 def read_fit_document(path: str | os.PathLike) -> dict:

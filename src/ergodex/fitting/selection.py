@@ -1,12 +1,12 @@
 """Choose a surrogate by its long-run statistics, not by how well it fits the tendencies.
 
-Each candidate (a fit method and its settings: a threshold sweep, other libraries, other
-derivative estimates) is fitted, integrated from many starting states and checked with
-:func:`ergodex.validation.check`. The chosen candidate is the *sparsest one whose statistics
-pass*; the whole front (number of terms, statistical score, tendency error, blow-up time of the
-failures) is kept so that a report can show why the others lost. Selecting by tendency error alone
-is the common mistake this replaces: the best tendency fit often blows up or settles on a fixed
-point once integrated.
+Each candidate (a fit method and its settings: a sweep of the sparse fitter's ``prune_below``,
+other term families, other derivative estimates, other mode counts) is fitted, integrated from
+many starting states and checked with :func:`ergodex.validation.check`. The chosen candidate is
+the *sparsest one whose statistics pass*; the whole front (number of terms, statistical score,
+tendency error, blow-up time of the failures) is kept so that a report can show why the others
+lost. Selecting by tendency error alone is the common mistake this replaces: the best tendency
+fit often blows up or settles on a fixed point once integrated.
 
 Candidates run through joblib: local processes by default, or a ``dask.distributed`` cluster
 through joblib's Dask backend (``scheduler="tcp://host:8786"`` or a ``Client``). Every candidate is
@@ -27,7 +27,12 @@ from typing import Any
 import numpy as np
 
 from ergodex.exceptions import ErgodexError, SettingsError
-from ergodex.fitting.base import check_fit_settings, fitter_class, make_fitter
+from ergodex.fitting.base import (
+    check_fit_settings,
+    current_fit_document,
+    fitter_class,
+    make_fitter,
+)
 
 log = logging.getLogger(__name__)
 
@@ -35,13 +40,17 @@ __all__ = [
     "Candidate",
     "SelectionResult",
     "select",
-    "threshold_sweep",
+    "prune_sweep",
     "parse_selection",
-    "DEFAULT_THRESHOLDS",
+    "DEFAULT_PRUNE_BELOW",
+    "SELECTION_FORMAT",
 ]
 
-#: Thresholds of the default sweep (geometric, in the data's tendency units).
-DEFAULT_THRESHOLDS = (0.01, 0.03, 0.1, 0.3, 1.0, 3.0)
+#: Written in the ``format`` key of a selection record (``fit --select --json``).
+SELECTION_FORMAT = "ergodex-selection/2"
+
+#: Values of ``prune_below`` in the default sweep (geometric, in the data's tendency units).
+DEFAULT_PRUNE_BELOW = (0.01, 0.03, 0.1, 0.3, 1.0, 3.0)
 
 
 @dataclass
@@ -136,8 +145,11 @@ class SelectionResult:
         return plot_selection_front(self, ax=ax)
 
     def to_dict(self) -> dict:
-        """JSON-ready record for reports and ``--json`` output."""
+        """JSON-ready record for reports and ``--json`` output (format ``ergodex-selection/2``:
+        the candidates' settings under ergodex's own names; files without a ``format`` key were
+        written before, with the old names)."""
         return {
+            "format": SELECTION_FORMAT,
             "chosen": self.chosen,
             "passed": self.passed,
             "message": self.message,
@@ -148,8 +160,9 @@ class SelectionResult:
             "candidates": [c.to_dict() for c in self.candidates],
         }
 
-    def table(self) -> str:
-        """Plain-text front, one line per candidate, the chosen one marked."""
+    def table(self, *, settings: bool = False) -> str:
+        """Plain-text front, one line per candidate, the chosen one marked; with ``settings``,
+        each line ends with the candidate's settings (``n_modes=10``)."""
         lines = [
             f"{'':2}{'#':>3}  {'method':16} {'terms':>5}  {'stat.score':>10}  {'tend.err':>8}  "
             "verdict"
@@ -164,9 +177,12 @@ class SelectionResult:
                 if c.first_blowup_time is not None
                 else ""
             )
+            shown = ""
+            if settings:
+                shown = "  " + (" ".join(f"{k}={v}" for k, v in c.settings.items()) or "(defaults)")
             lines.append(
                 f"{mark}{c.index:>3}  {c.method:16} {terms:>5}  {score:>10}  {tend:>8}  "
-                f"{c.verdict}{extra}"
+                f"{c.verdict}{extra}{shown}"
             )
         return "\n".join(lines)
 
@@ -175,24 +191,30 @@ def _clean(x: float | None) -> float | None:
     return None if x is None or not math.isfinite(x) else float(x)
 
 
-def threshold_sweep(
-    thresholds: Sequence[float] = DEFAULT_THRESHOLDS,
+def prune_sweep(
+    values: Sequence[float] = DEFAULT_PRUNE_BELOW,
     *,
     method: str = "sparse",
     settings: Mapping[str, Any] | None = None,
 ) -> list[tuple[str, dict]]:
-    """Candidates that differ only in the sparsity threshold (STLSQ ``threshold``)."""
-    return [(method, {**dict(settings or {}), "threshold": float(t)}) for t in thresholds]
+    """Candidates that differ only in the sparsity threshold (the setting ``prune_below``)."""
+    return [(method, {**dict(settings or {}), "prune_below": float(t)}) for t in values]
 
 
 def _evaluate(
-    index: int, method: str, settings: dict, fit_data, reference, spec_dict: dict
+    index: int,
+    method: str,
+    settings: dict,
+    fit_data,
+    reference,
+    spec_dict: dict,
+    fit_progress: Any = False,
 ) -> dict:
     """Fit, check and summarise one candidate (runs in a worker; returns plain data)."""
     from ergodex.validation import CheckSpec, check
 
     try:
-        fitter = make_fitter(method, settings).fit(fit_data)
+        fitter = make_fitter(method, settings).fit(fit_data, progress=fit_progress)
     except ErgodexError as exc:
         return {"index": index, "verdict": "error", "reasons": [f"fit failed: {exc}"]}
     except (ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:
@@ -251,7 +273,7 @@ def select(
     spec=None,
     *,
     reference=None,
-    thresholds: Sequence[float] | None = None,
+    prune_below: Sequence[float] | None = None,
     scheduler: Any = None,
     n_jobs: int | None = None,
     progress: Any = None,
@@ -263,14 +285,15 @@ def select(
     series : Series, pandas.DataFrame or xarray.Dataset
         Data to fit on (converted by :func:`ergodex.frames.as_series`).
     candidates : list of (method, settings), optional
-        What to try. Default: a threshold sweep of the sparse fitter over ``thresholds``.
+        What to try. Default: a sweep of the sparse fitter over ``prune_below``.
     spec : CheckSpec, optional
         How every candidate is checked (the same seed for all, so results are comparable).
     reference : Series, DataFrame or Dataset, optional
         Data to check against — held-out runs of the same system. Default: ``series`` itself,
         which flatters every candidate a little; pass held-out runs whenever there are some.
-    thresholds : sequence of float, optional
-        Thresholds of the default sweep (:data:`DEFAULT_THRESHOLDS`).
+    prune_below : sequence of float, optional
+        Values of the sparse fitter's ``prune_below`` in the default sweep
+        (:data:`DEFAULT_PRUNE_BELOW`).
     scheduler : str or dask.distributed.Client, optional
         Run on a Dask cluster through joblib's Dask backend: a scheduler address
         (``"tcp://127.0.0.1:8786"``) or a connected client. Default: local processes.
@@ -299,9 +322,9 @@ def select(
     if reference is not None:
         reference = as_series(reference, what="reference")
     if candidates is None:
-        candidates = threshold_sweep(thresholds if thresholds is not None else DEFAULT_THRESHOLDS)
-    elif thresholds is not None:
-        raise SettingsError("give either candidates or thresholds, not both")
+        candidates = prune_sweep(prune_below if prune_below is not None else DEFAULT_PRUNE_BELOW)
+    elif prune_below is not None:
+        raise SettingsError("give either candidates or prune_below, not both")
     candidates = [(m, dict(s)) for m, s in candidates]
     if not candidates:
         raise SettingsError("select needs at least one candidate")
@@ -386,16 +409,23 @@ def select(
 def _run(jobs, series, reference, spec_dict, scheduler, n_jobs, show) -> tuple[list[dict], str]:
     import joblib
 
-    tasks = [joblib.delayed(_evaluate)(k, m, s, series, reference, spec_dict) for k, m, s in jobs]
-    if scheduler is not None:
-        return _run_dask(tasks, scheduler, show), "dask"
     if n_jobs is None:
         n_jobs = 1
     if n_jobs == -1:
         n_jobs = os.cpu_count() or 1
-    n_jobs = max(1, min(int(n_jobs), len(tasks)))
-    if n_jobs == 1:
-        # in this process, one candidate at a time (lazily, so the progress bar moves)
+    n_jobs = max(1, min(int(n_jobs), len(jobs)))
+    here = scheduler is None and n_jobs == 1
+    # in this process each fit shows its own bar under the candidates' bar (a callable given as
+    # progress hears of the candidates only)
+    fit_bar = here and show is True
+    tasks = [
+        joblib.delayed(_evaluate)(k, m, s, series, reference, spec_dict, fit_bar)
+        for k, m, s in jobs
+    ]
+    if scheduler is not None:
+        return _run_dask(tasks, scheduler, show), "dask"
+    if here:
+        # one candidate at a time (lazily, so the progress bar moves)
         return _collect(
             (func(*args, **kwargs) for func, args, kwargs in tasks), len(tasks), show
         ), "sequential"
@@ -455,7 +485,7 @@ def _collect(iterator, total: int, show: Any) -> list[dict]:
 
 
 # -- the [select] table of a fit-settings file ------------------------------------------------
-_SELECT_KEYS = ("thresholds", "candidates")
+_SELECT_KEYS = ("prune_below", "candidates")
 
 
 def parse_selection(
@@ -467,10 +497,12 @@ def parse_selection(
 ) -> list[tuple[str, dict]]:
     """Candidates from the ``[select]`` table of a fit-settings document.
 
-    ``thresholds = [0.05, 0.1, 0.2]`` sweeps the threshold of ``method`` with the ``[settings]``
-    table as the base; ``[[select.candidates]]`` tables each give ``method`` and further keys as
-    settings. Without a ``[select]`` table the default threshold sweep is used.
+    ``prune_below = [0.05, 0.1, 0.2]`` sweeps that setting of ``method`` with the
+    ``[settings]`` table as the base; ``[[select.candidates]]`` tables each give ``method`` and
+    further keys as settings. Without a ``[select]`` table the default sweep of ``prune_below``
+    is used. An old-version document (``format = "ergodex-fit/1"``) is read in the new names.
     """
+    document = current_fit_document(document, source=source)
     table = document.get("select", {})
     if not isinstance(table, Mapping):
         raise SettingsError(f"{source}: 'select' must be a table ([select])")
@@ -480,25 +512,24 @@ def parse_selection(
                 f"{source}: [select] has no key '{key}'; allowed keys: {', '.join(_SELECT_KEYS)}"
             )
     out: list[tuple[str, dict]] = []
-    thresholds = table.get("thresholds")
-    if thresholds is not None:
+    values = table.get("prune_below")
+    if values is not None:
         if (
-            not isinstance(thresholds, list)
-            or not thresholds
+            not isinstance(values, list)
+            or not values
             or not all(
-                isinstance(t, (int, float)) and not isinstance(t, bool) and t >= 0
-                for t in thresholds
+                isinstance(t, (int, float)) and not isinstance(t, bool) and t >= 0 for t in values
             )
         ):
             raise SettingsError(
-                f"{source}: [select] 'thresholds' must be a non-empty list of numbers >= 0; got "
-                f"{thresholds!r}"
+                f"{source}: [select] 'prune_below' must be a non-empty list of numbers >= 0; got "
+                f"{values!r}"
             )
-        if "threshold" not in fitter_class(method).settings_table:
+        if "prune_below" not in fitter_class(method).settings_table:
             raise SettingsError(
-                f"{source}: [select] 'thresholds' needs method 'sparse'; method is {method!r}"
+                f"{source}: [select] 'prune_below' needs method 'sparse'; method is {method!r}"
             )
-        out += threshold_sweep(thresholds, method=method, settings=settings)
+        out += prune_sweep(values, method=method, settings=settings)
     for k, entry in enumerate(table.get("candidates", []) or []):
         if not isinstance(entry, Mapping) or "method" not in entry:
             raise SettingsError(
@@ -512,8 +543,8 @@ def parse_selection(
             raise SettingsError(f"{source}: [[select.candidates]] entry {k + 1}: {exc}") from None
         out.append((cand_method, entry))
     if not out:
-        if "threshold" in fitter_class(method).settings_table:
-            out = threshold_sweep(DEFAULT_THRESHOLDS, method=method, settings=settings)
+        if "prune_below" in fitter_class(method).settings_table:
+            out = prune_sweep(DEFAULT_PRUNE_BELOW, method=method, settings=settings)
         else:
             out = [(method, dict(settings))]
     return out

@@ -37,27 +37,31 @@ DIFFERENTIATIONS = ("finite-difference", "smoothed-finite-difference", "weak")
 
 sparse_settings_table: dict[str, Rule] = {
     "degree": Rule("int", low=0, high=5, help="highest total degree of the polynomial terms"),
-    "threshold": Rule(
+    "prune_below": Rule(
         "float", low=0.0, help="STLSQ: coefficients smaller than this are set to zero"
     ),
-    "optimizer": Rule("choice", choices=OPTIMIZERS, help="sparse regression method"),
-    "library": Rule("choice", choices=LIBRARIES, help="candidate terms"),
-    "n_frequencies": Rule(
-        "int", low=1, high=20, help="Fourier library: sin/cos of 1…n times each variable"
+    "regression": Rule("choice", choices=OPTIMIZERS, help="sparse regression method"),
+    "terms": Rule("choice", choices=LIBRARIES, help="candidate terms"),
+    "harmonics": Rule(
+        "int", low=1, high=20, help="Fourier terms: sin/cos of 1…n times each variable"
     ),
-    "include_bias": Rule("bool", help="include the constant term"),
-    "alpha": Rule("float", low=0.0, help="STLSQ: ridge weight of each least-squares step"),
-    "reg_weight_lam": Rule("float", low=0.0, help="SR3: weight of the sparsity penalty"),
-    "regularizer": Rule("choice", choices=("L0", "L1"), help="SR3: penalty"),
-    "max_iter": Rule("int", low=1, high=100000, allow_none=True, help="optimizer iterations"),
+    "constant_term": Rule("bool", help="include the constant term"),
+    "ridge": Rule("float", low=0.0, help="STLSQ: ridge weight of each least-squares step"),
+    "penalty_weight": Rule("float", low=0.0, help="SR3: weight of the sparsity penalty"),
+    "penalty": Rule("choice", choices=("L0", "L1"), help="SR3: penalty"),
+    "iterations": Rule(
+        "int", low=1, high=100000, allow_none=True, help="iterations of the sparse regression"
+    ),
     "differentiation": Rule(
         "choice", choices=DIFFERENTIATIONS, help="how tendencies are estimated"
     ),
-    "fd_order": Rule("int", low=1, high=8, help="order of accuracy of the finite differences"),
-    "smoother_window": Rule(
+    "difference_order": Rule(
+        "int", low=1, high=8, help="order of accuracy of the finite differences"
+    ),
+    "smoothing_window": Rule(
         "int", low=5, help="smoothed differences: Savitzky–Golay window (samples, odd)"
     ),
-    "smoother_polyorder": Rule(
+    "smoothing_degree": Rule(
         "int", low=1, high=7, help="smoothed differences: Savitzky–Golay degree"
     ),
     "weak_window": Rule("int", low=5, help="weak form: samples per test-function window"),
@@ -68,19 +72,19 @@ sparse_settings_table: dict[str, Rule] = {
         help="weak form: samples between windows (None: window/4, closer for large libraries)",
     ),
     "weak_degree": Rule("int", low=2, high=16, help="weak form: test function (1 - s^2)^p, this p"),
-    "ensemble": Rule(
-        "bool", help="bagging: refit on resampled rows, keep terms by inclusion probability"
+    "bootstrap": Rule(
+        "bool", help="refit on resampled rows, keep terms by how often they are included"
     ),
-    "n_models": Rule("int", low=2, high=10000, help="ensemble: number of resampled fits"),
-    "inclusion_threshold": Rule(
+    "resamples": Rule("int", low=2, high=10000, help="bootstrap: number of resampled fits"),
+    "keep_fraction": Rule(
         "float",
         low=0.0,
         high=1.0,
         low_open=True,
-        help="ensemble: keep a term included in at least this fraction of the fits",
+        help="bootstrap: keep a term included in at least this fraction of the fits",
     ),
-    "trapping": Rule("bool", help="globally stable quadratic model (needs cvxpy)"),
-    "seed": Rule("int", low=0, help="seed of the ensemble's resampling"),
+    "bounded_quadratic": Rule("bool", help="globally stable quadratic model (needs cvxpy)"),
+    "seed": Rule("int", low=0, help="seed of the bootstrap's resampling"),
     "n_modes": Rule(
         "int", low=1, allow_none=True, help="principal components kept (None: all variables)"
     ),
@@ -99,29 +103,28 @@ class SparseODE(Fitter):
     ----------
     degree : int, default 2
         Highest total degree of the polynomial terms.
-    threshold : float, default 0.1
+    prune_below : float, default 0.1
         STLSQ threshold: coefficients of smaller magnitude are removed (in the data's units).
-    optimizer : {"stlsq", "sr3"}, default "stlsq"
+    regression : {"stlsq", "sr3"}, default "stlsq"
         Sequentially thresholded least squares, or sparse relaxed regularised regression.
-    library : {"polynomial", "fourier", "polynomial+fourier"}, default "polynomial"
-    n_frequencies : int, default 1
-        Fourier terms sin(k x), cos(k x) for k = 1 … n_frequencies.
-    include_bias : bool, default True
+    terms : {"polynomial", "fourier", "polynomial+fourier"}, default "polynomial"
+    harmonics : int, default 1
+        Fourier terms sin(k x), cos(k x) for k = 1 … harmonics.
+    constant_term : bool, default True
         Include the constant term.
-    alpha : float, default 0.05
+    ridge : float, default 0.05
         STLSQ ridge weight (pysindy's default; negligible against thousands of samples).
-    reg_weight_lam : float, default 0.005
+    penalty_weight : float, default 0.005
         SR3 penalty weight (with L0 the effective threshold is sqrt(2 λ)).
-    regularizer : {"L0", "L1"}, default "L0"
-    max_iter : int or None, default None
+    penalty : {"L0", "L1"}, default "L0"
+    iterations : int or None, default None
         Optimizer iterations; None keeps pysindy's default.
-    differentiation : {"finite-difference", "smoothed-finite-difference", "weak"}, default
-        "smoothed-finite-difference"
-        Smoothing first costs nothing on clean data and keeps sensor noise from being amplified
-        by the differences; "weak" avoids differentiating the data at all.
-    fd_order : int, default 4
+    differentiation : {"finite-difference", "smoothed-finite-difference", "weak"}, default "weak"
+        "weak" avoids differentiating the data at all; smoothing first costs nothing on clean
+        data and keeps sensor noise from being amplified by the differences.
+    difference_order : int, default 4
         Order of the finite differences. At dt = 0.01 on Lorenz-63, order 2 biases ρ by 0.7 %.
-    smoother_window, smoother_polyorder : int, default 9 and 4
+    smoothing_window, smoothing_degree : int, default 9 and 4
         Savitzky–Golay smoothing before differencing (a degree-4 fit through 9 samples).
     weak_window : int, default 41
         Samples per weak-form window.
@@ -130,15 +133,15 @@ class SparseODE(Fitter):
         large (at least four windows per term where the data allow).
     weak_degree : int, default 4
         Test function (1 − s²)^p.
-    ensemble : bool, default False
-        Bagging: ``n_models`` fits on rows resampled with replacement; a term is kept when it is
-        non-zero in at least ``inclusion_threshold`` of them; coefficients are the median over fits.
-    n_models : int, default 20
-    inclusion_threshold : float, default 0.5
-    trapping : bool, default False
+    bootstrap : bool, default False
+        Bagging: ``resamples`` fits on rows resampled with replacement; a term is kept when it
+        is non-zero in at least ``keep_fraction`` of them; coefficients are the median over fits.
+    resamples : int, default 20
+    keep_fraction : float, default 0.5
+    bounded_quadratic : bool, default False
         Fit a globally stable quadratic model (trapping SR3); needs the optional package cvxpy.
     seed : int, default 0
-        Seed of the ensemble's resampling (recorded in the surrogate's settings).
+        Seed of the bootstrap's resampling (recorded in the surrogate's settings).
     n_modes : int or None, default None
         Fit in the leading principal components (the surrogate carries the transform).
     standardise : bool, default False
@@ -161,11 +164,20 @@ class SparseODE(Fitter):
     n_terms_ : int
         Number of non-zero coefficients.
     inclusion_probabilities_ : ndarray or None
-        Ensemble only: fraction of fits in which each coefficient was non-zero.
+        Bootstrap only: fraction of fits in which each coefficient was non-zero.
     ensemble_coefficients_ : ndarray or None
-        Ensemble only: shape (n_models, n_variables, n_library_terms).
+        Bootstrap only: shape (resamples, n_variables, n_library_terms).
     n_rows_ : int
         Rows of the regression (samples, or weak-form windows).
+
+    Notes
+    -----
+    The settings are ergodex's own names; the fitter hands them to pysindy under its parameter
+    names (``prune_below`` → STLSQ ``threshold``, ``ridge`` → ``alpha``, ``penalty_weight`` and
+    ``penalty`` → SR3 ``reg_weight_lam`` and ``regularizer``, ``iterations`` → ``max_iter``,
+    ``constant_term`` → ``include_bias``, ``harmonics`` → ``n_frequencies``,
+    ``difference_order`` → ``order``). Files written with the old names are read through
+    :mod:`ergodex.setting_names`.
 
     References
     ----------
@@ -193,77 +205,77 @@ class SparseODE(Fitter):
         self,
         *,
         degree: int = 2,
-        threshold: float = 0.1,
-        optimizer: str = "stlsq",
-        library: str = "polynomial",
-        n_frequencies: int = 1,
-        include_bias: bool = True,
-        alpha: float = 0.05,
-        reg_weight_lam: float = 0.005,
-        regularizer: str = "L0",
-        max_iter: int | None = None,
+        prune_below: float = 0.1,
+        regression: str = "stlsq",
+        terms: str = "polynomial",
+        harmonics: int = 1,
+        constant_term: bool = True,
+        ridge: float = 0.05,
+        penalty_weight: float = 0.005,
+        penalty: str = "L0",
+        iterations: int | None = None,
         differentiation: str = "weak",
-        fd_order: int = 4,
-        smoother_window: int = 9,
-        smoother_polyorder: int = 4,
+        difference_order: int = 4,
+        smoothing_window: int = 9,
+        smoothing_degree: int = 4,
         weak_window: int = 41,
         weak_stride: int | None = None,
         weak_degree: int = 4,
-        ensemble: bool = False,
-        n_models: int = 20,
-        inclusion_threshold: float = 0.5,
-        trapping: bool = False,
+        bootstrap: bool = False,
+        resamples: int = 20,
+        keep_fraction: float = 0.5,
+        bounded_quadratic: bool = False,
         seed: int = 0,
         n_modes: int | None = None,
         standardise: bool = False,
     ) -> None:
         self.degree = degree
-        self.threshold = threshold
-        self.optimizer = optimizer
-        self.library = library
-        self.n_frequencies = n_frequencies
-        self.include_bias = include_bias
-        self.alpha = alpha
-        self.reg_weight_lam = reg_weight_lam
-        self.regularizer = regularizer
-        self.max_iter = max_iter
+        self.prune_below = prune_below
+        self.regression = regression
+        self.terms = terms
+        self.harmonics = harmonics
+        self.constant_term = constant_term
+        self.ridge = ridge
+        self.penalty_weight = penalty_weight
+        self.penalty = penalty
+        self.iterations = iterations
         self.differentiation = differentiation
-        self.fd_order = fd_order
-        self.smoother_window = smoother_window
-        self.smoother_polyorder = smoother_polyorder
+        self.difference_order = difference_order
+        self.smoothing_window = smoothing_window
+        self.smoothing_degree = smoothing_degree
         self.weak_window = weak_window
         self.weak_stride = weak_stride
         self.weak_degree = weak_degree
-        self.ensemble = ensemble
-        self.n_models = n_models
-        self.inclusion_threshold = inclusion_threshold
-        self.trapping = trapping
+        self.bootstrap = bootstrap
+        self.resamples = resamples
+        self.keep_fraction = keep_fraction
+        self.bounded_quadratic = bounded_quadratic
         self.seed = seed
         self.n_modes = n_modes
         self.standardise = standardise
 
     def _check_consistency(self) -> None:
-        if self.smoother_window % 2 == 0:
+        if self.smoothing_window % 2 == 0:
             raise SettingsError(
-                f"sparse setting 'smoother_window' must be odd; got {self.smoother_window}"
+                f"sparse setting 'smoothing_window' must be odd; got {self.smoothing_window}"
             )
-        if self.smoother_polyorder >= self.smoother_window:
+        if self.smoothing_degree >= self.smoothing_window:
             raise SettingsError(
-                f"sparse setting 'smoother_polyorder' ({self.smoother_polyorder}) "
+                f"sparse setting 'smoothing_degree' ({self.smoothing_degree}) "
                 "must be smaller than "
-                f"'smoother_window' ({self.smoother_window})"
+                f"'smoothing_window' ({self.smoothing_window})"
             )
-        if self.trapping and (self.degree != 2 or self.library != "polynomial"):
+        if self.bounded_quadratic and (self.degree != 2 or self.terms != "polynomial"):
             raise SettingsError(
-                "sparse setting 'trapping' needs library = 'polynomial' and degree = 2 "
-                f"(the trapping theorem is for quadratic models); got library={self.library!r}, "
+                "sparse setting 'bounded_quadratic' needs terms = 'polynomial' and degree = 2 "
+                f"(the trapping theorem is for quadratic models); got terms={self.terms!r}, "
                 f"degree={self.degree}"
             )
 
     # ----------------------------------------------------------------------------------------
     def _fit(self, series) -> None:
         ps = _import_pysindy()
-        if self.trapping:
+        if self.bounded_quadratic:
             _require_cvxpy()
         transform, runs, variables = reduce_series(
             series, method=self.method, n_modes=self.n_modes, standardise=self.standardise
@@ -271,7 +283,7 @@ class SparseODE(Fitter):
         n = len(variables)
         internal = [f"x{j}" for j in range(n)]
 
-        self._stage(f"term library ({self.library}, degree {self.degree}) on {n} variables")
+        self._stage(f"term library ({self.terms}, degree {self.degree}) on {n} variables")
         library = self._make_library(ps)
         library.fit([runs[0]])
         feature_names = list(library.get_feature_names(internal))
@@ -283,8 +295,8 @@ class SparseODE(Fitter):
         check_library_rank(Theta, names, what=_source(series))
 
         self._stage(
-            f"sparse regression: {self.optimizer} on {Theta.shape[0]} rows"
-            + (f", ensemble of {self.n_models}" if self.ensemble else "")
+            f"sparse regression: {self.regression} on {Theta.shape[0]} rows"
+            + (f", bootstrap of {self.resamples}" if self.bootstrap else "")
         )
         coefficients, extras = self._solve(ps, Theta, Y, n_features=len(terms))
         fitted = Theta @ coefficients.T
@@ -312,12 +324,12 @@ class SparseODE(Fitter):
 
     # ----------------------------------------------------------------------------------------
     def _make_library(self, ps):
-        poly = ps.PolynomialLibrary(degree=self.degree, include_bias=self.include_bias)
-        if self.library == "polynomial":
+        poly = ps.PolynomialLibrary(degree=self.degree, include_bias=self.constant_term)
+        if self.terms == "polynomial":
             return poly
-        fourier = ps.FourierLibrary(n_frequencies=self.n_frequencies)
-        if self.library == "fourier":
-            if not self.include_bias:
+        fourier = ps.FourierLibrary(n_frequencies=self.harmonics)
+        if self.terms == "fourier":
+            if not self.constant_term:
                 return fourier
             return ps.PolynomialLibrary(degree=0, include_bias=True) + fourier
         return poly + fourier
@@ -355,9 +367,9 @@ class SparseODE(Fitter):
             else:
                 X_used, Xdot = self._pointwise(ps, X, dt)
                 # drop the edges, where the stencils are one-sided and least accurate
-                edge = max(self.fd_order // 2, 1)
+                edge = max(self.difference_order // 2, 1)
                 if self.differentiation == "smoothed-finite-difference":
-                    edge = max(edge, self.smoother_window // 2)
+                    edge = max(edge, self.smoothing_window // 2)
                 X_used, Xdot = X_used[edge:-edge], Xdot[edge:-edge]
                 T, Y = evaluate_terms(terms, X_used), Xdot
             thetas.append(T)
@@ -368,22 +380,22 @@ class SparseODE(Fitter):
         if self.differentiation == "weak":
             return self.weak_window
         if self.differentiation == "smoothed-finite-difference":
-            return self.smoother_window + 2
-        return self.fd_order + 3
+            return self.smoothing_window + 2
+        return self.difference_order + 3
 
     def _pointwise(self, ps, X: np.ndarray, dt: float) -> tuple[np.ndarray, np.ndarray]:
         if self.differentiation == "finite-difference":
-            return X, np.asarray(ps.FiniteDifference(order=self.fd_order)(X, t=dt))
+            return X, np.asarray(ps.FiniteDifference(order=self.difference_order)(X, t=dt))
         from scipy.signal import savgol_filter
 
         # The smoothed states (not the raw ones) enter the library too: noise in Θ biases the
         # regression just as noise in the tendencies does.
         smoother = ps.SmoothedFiniteDifference(
-            order=self.fd_order,
+            order=self.difference_order,
             smoother=savgol_filter,
             smoother_kws={
-                "window_length": self.smoother_window,
-                "polyorder": self.smoother_polyorder,
+                "window_length": self.smoothing_window,
+                "polyorder": self.smoothing_degree,
                 "axis": 0,
             },
             save_smooth=True,
@@ -393,13 +405,13 @@ class SparseODE(Fitter):
 
     def _make_optimizer(self, ps):
         kwargs: dict[str, Any] = {}
-        if self.max_iter is not None:
-            kwargs["max_iter"] = self.max_iter
-        if self.trapping:
+        if self.iterations is not None:
+            kwargs["max_iter"] = self.iterations
+        if self.bounded_quadratic:
             return ps.TrappingSR3(**kwargs)  # only reached when cvxpy imported
-        if self.optimizer == "stlsq":
-            return ps.STLSQ(threshold=self.threshold, alpha=self.alpha, **kwargs)
-        return ps.SR3(reg_weight_lam=self.reg_weight_lam, regularizer=self.regularizer, **kwargs)
+        if self.regression == "stlsq":
+            return ps.STLSQ(threshold=self.prune_below, alpha=self.ridge, **kwargs)
+        return ps.SR3(reg_weight_lam=self.penalty_weight, regularizer=self.penalty, **kwargs)
 
     def _solve(
         self, ps, Theta: np.ndarray, Y: np.ndarray, *, n_features: int
@@ -419,17 +431,17 @@ class SparseODE(Fitter):
             coef = np.asarray(optimizer.coef_, dtype=float).reshape(Y.shape[1], n_features)
             return coef
 
-        if not self.ensemble:
+        if not self.bootstrap:
             return one_fit(None), {}
         # Bagging (Fasel et al. 2022): resample rows with replacement with our own generator.
         rng = np.random.default_rng(self.seed)
         n_rows = Theta.shape[0]
         samples = np.stack(
-            [one_fit(rng.integers(0, n_rows, size=(n_rows,))) for _ in range(self.n_models)]
+            [one_fit(rng.integers(0, n_rows, size=(n_rows,))) for _ in range(self.resamples)]
         )
         inclusion = np.mean(samples != 0.0, axis=0)
         coefficients = np.median(samples, axis=0)
-        coefficients[inclusion < self.inclusion_threshold] = 0.0
+        coefficients[inclusion < self.keep_fraction] = 0.0
         return coefficients, {"inclusion": inclusion, "samples": samples}
 
     def _build_surrogate(
@@ -483,8 +495,8 @@ def _require_cvxpy() -> None:
         import cvxpy  # noqa: F401
     except ImportError:
         raise OptionalDependencyError(
-            "sparse setting trapping = true needs the optional package 'cvxpy' "
+            "sparse setting bounded_quadratic = true needs the optional package 'cvxpy' "
             "(pysindy's TrappingSR3 "
             "solves convex programs with it); install it with pip install cvxpy, "
-            "or set trapping = false"
+            "or set bounded_quadratic = false"
         ) from None
