@@ -12,9 +12,10 @@ Cases (M = 64 members, RK4 at h = 0.01, outputs every 10 steps):
    - ergodex ``integrate_ensemble`` (compiled kernel, sparse term table, blow-up checks);
    - a hand-written numba RK4 with the Lorenz equations typed in (two loop orders; the faster
      one is the ceiling).
-2. Lorenz-96, 40 stations, F = 8 as a quadratic table (861 candidate terms, 160 non-zero):
+2. The same at 16 members (validate's default ensemble), ergodex beside both hand kernels.
+3. Lorenz-96, 40 stations, F = 8 as a quadratic table (861 candidate terms, 160 non-zero):
    ergodex against a hand-written numba RK4 of the Lorenz-96 equations.
-3. The first call in a fresh process (import, load of the compiled kernel from numba's disk
+4. The first call in a fresh process (import, load of the compiled kernel from numba's disk
    cache, a short run), and the same with an empty cache (compilation).
 
 Every figure is member-steps per second; the compiled contenders run in turn, nine times each,
@@ -368,6 +369,32 @@ def main() -> None:
         f"  same, round by round: median {med63[0]:.2f}, range {med63[1]:.2f}-{med63[2]:.2f} "
         f"({len(rounds['ergodex'])} rounds)"
     )
+
+    # Validate's default ensemble: 16 members, the same model and contenders side by side.
+    m16 = 16
+    x16 = x0[:m16] if M >= m16 else x0[rng.integers(0, M, m16)]
+    out16 = np.empty((m16, n_out, 3))
+    integrate_ensemble(fitted, x16, dt_out=K * H, n_out=3, substep=H)
+    best16, rounds16 = interleaved_best(
+        {
+            "ergodex": lambda: integrate_ensemble(
+                fitted, x16, dt_out=K * H, n_out=n_out, substep=H
+            ),
+            "hand numba (members outer)": lambda: l63_members_outer(
+                x16, n_out, K, H, *coefs, out16
+            ),
+            "hand numba (steps outer)": lambda: l63_steps_outer(x16, n_out, K, H, *coefs, out16),
+        }
+    )
+    print(f"\nLorenz-63 (fitted) at {m16} members, member-steps per second:")
+    for name, sec in best16.items():
+        print(f"  {name:30s} {m16 * steps / sec:14.4g}   ({sec / steps * 1e9:7.0f} ns per step)")
+    for hand_name in ("hand numba (members outer)", "hand numba (steps outer)"):
+        med = round_ratio(rounds16, "ergodex", hand_name)
+        print(
+            f"  ergodex / {hand_name:26s} {best16[hand_name] / best16['ergodex']:6.2f}x   "
+            f"(round median {med[0]:.2f}, range {med[1]:.2f}-{med[2]:.2f})"
+        )
 
     # Lorenz-96, 40 stations.
     l96 = dense_quadratic(lorenz96_surrogate())

@@ -110,20 +110,28 @@ def test_check_settings_refuse_values_at_their_documented_limits():
 
 
 def test_derived_check_settings_follow_the_documented_rules():
-    # CheckSpec docstring and the module's constants: spin-up and gap 5 decorrelation times,
-    # max_lag 3 decorrelation times (in samples, at least 1 and at most a quarter piece), Welch
-    # segment min(256, piece length // 8) (at least 8), pool half the reference pieces, member
-    # length pool reference pieces
+    # CheckSpec docstring and the module's constants: the decorrelation time is the longest
+    # integrated time or envelope time of an oscillating variable
+    # (validation/plan.py); spin-up and gap 5 decorrelation times,
+    # max_lag 3 integrated times or one dominant period (in samples, at least 1 and at most a
+    # quarter piece), Welch segment min(256, piece length // 8) (at least 8), raised to cover 4
+    # dominant periods and 2 decorrelation times up to piece length // 8, pool half the
+    # reference pieces, member length pool reference pieces
     data = scenarios.ornstein_uhlenbeck(seed=51, duration=90.0)
     sc = validation.validate(scenarios.ou_surrogate(), data, CheckSpec(seed=2, members=4))
     s = sc.settings
     tau = s["decorrelation_time"]
-    assert tau == pytest.approx(max(s["integrated_autocorrelation_time"].values()), rel=1e-12)
+    oscillating = [t for v, t in s["envelope_time"].items() if s["dominant_period"][v] is not None]
+    times = [*s["integrated_autocorrelation_time"].values(), *oscillating]
+    assert tau == pytest.approx(max(times), rel=1e-12)
     assert s["spinup"] == pytest.approx(5 * tau, rel=1e-12)
     assert s["gap"] == pytest.approx(5 * tau, rel=1e-12)
     L = s["piece_length_samples"]
-    assert s["max_lag_samples"] == min(max(1, round(3 * tau / data.dt)), L // 4)
-    assert s["nperseg"] == max(8, min(256, L // 8))
+    period = max([p for p in s["dominant_period"].values() if p is not None], default=0.0)
+    lag = max(3 * max(s["integrated_autocorrelation_time"].values()), period)
+    assert s["max_lag_samples"] == min(max(1, round(lag / data.dt)), L // 4)
+    segment = round(max(4 * period, 2 * tau) / data.dt)
+    assert s["nperseg"] == max(8, min(256, L // 8), min(segment, L // 8))
     # 4 runs < min_pieces 8: each run is cut into ceil(8 / 4) = 2 blocks
     assert s["piece_source"] == "blocks" and s["blocks_per_run"] == 2
     assert s["n_reference_pieces"] == 8 and s["pool"] == 4

@@ -11,6 +11,9 @@ pytest.importorskip("xarray")
 cftime = pytest.importorskip("cftime")
 
 from ergodex.cli import main
+from ergodex.fields.demo import BASIN_NAME
+from ergodex.registry import Registry, format_ref
+from ergodex.retraining import _resolve_fit
 from ergodex.surrogate import Surrogate
 from fields_support import write_cf
 
@@ -283,3 +286,8 @@ def test_demo_basin_runs_end_to_end(tmp_path, monkeypatch, capsys):
     assert (tmp_path / "datasets" / "basin" / "basin_sst_fit.nc").is_file()
     page = next((tmp_path / "models" / "basin-sst").glob("*/report.html")).read_text()
     assert "Maps on the grid" in page
+    # retrain refits with the settings recorded with the version: the parser must accept them
+    registry = Registry(tmp_path / "models")
+    info = registry.get(format_ref(BASIN_NAME, 1))
+    assert "fit-settings.json" in info.artifacts
+    assert _resolve_fit(None, registry, info) == ("linear-inverse", {})

@@ -109,14 +109,16 @@ def test_white_noise_closure_on_six_modes_fails_on_autocorrelation(ring):
     # The same check rejects a wrong reduced model: a quadratic drift from one-step differences
     # with a white-noise closure, on 6 modes, leaves the unresolved modes' memory out and
     # decorrelates at the wrong rate (the failure that motivates memory closures, Kravtsov,
-    # Kondrashov & Ghil 2005). Measured here: autocorrelation ratio about 8, far beyond the
-    # tolerance, so the assertion does not hang on sampling noise.
+    # Kondrashov & Ghil 2005). Measured here: largest ratio 4.6 (spectrum) and autocorrelation
+    # up to 3.4 with the lag window covering the modes' dominant period (about 8 when the window
+    # stopped at 3 integrated times, a sixth of the period), so the assertion does not hang on
+    # sampling noise.
     fit_data, held_out = ring
     fitter = make_fitter("quadratic-noise", {"n_modes": 6}).fit(fit_data)
     scorecard = check(fitter.surrogate_, held_out, CheckSpec(seed=2026)).scorecard
     assert not scorecard.passed
     worst = max(scorecard.rows, key=lambda row: row.ratio)
-    assert worst.ratio > 2 * DEFAULT_TOLERANCE
+    assert worst.ratio > 1.5 * DEFAULT_TOLERANCE
     autocorrelation = max(r.ratio for r in scorecard.rows if r.statistic == "autocorrelation")
     assert autocorrelation > DEFAULT_TOLERANCE
 

@@ -41,12 +41,15 @@ def test_true_lorenz63_passes_and_wrong_parameters_fail(loop_data, loop_regimes)
     truth = validation.check(scenarios.lorenz63_surrogate(), loop_data, spec)
     assert truth.scorecard.verdict == "pass", truth.scorecard.table()
     assert truth.scorecard.largest_ratio <= spec.tolerance
+    # the default rows, and with regimes the persistence rows (CheckSpec.persistence)
     assert {r.statistic for r in truth.scorecard.rows} == {
         "histogram",
         "autocorrelation",
         "spectrum",
         "quantiles",
         "occupancy",
+        "residence",
+        "transitions",
     }
 
     for wrong in (scenarios.lorenz63_surrogate(rho=22.0), scenarios.lorenz63_surrogate(sigma=20.0)):

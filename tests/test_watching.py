@@ -389,6 +389,28 @@ def test_watch_command_bad_folder_is_bad_input(tmp_path, capsys):
     assert "does not exist" in capsys.readouterr().err
 
 
+@pytest.mark.parametrize(
+    ("given", "expected"),
+    [
+        ("loop@1", "write loop/1, not loop@1"),  # the hint every other command gives
+        ("loop@accepted", "write loop/current, not loop@accepted"),
+        ("loop/1", "give loop without /VERSION"),
+        ("loop/current", "give loop without /VERSION"),
+    ],
+)
+def test_watch_command_refuses_a_version_in_the_name_saying_what_to_write(
+    tmp_path, capsys, given, expected
+):
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    argv = ["watch", str(inbox), "--name", given, "--once", "--home", str(tmp_path / "home")]
+    code = main(argv)
+    out, err = capsys.readouterr()
+    assert code == 2 and out == ""
+    assert err.count("\n") == 1 and expected in err
+    assert list(inbox.iterdir()) == []  # refused before the ledger or a folder is made
+
+
 # --- end to end: real retrains, real threads and processes ------------------------------------
 def _watch_in_thread(inbox: Path, registry: Registry, *, timeout: float = 240.0, **kw):
     """Run :func:`watch` in its own thread (as a service would); fail if it does not return."""

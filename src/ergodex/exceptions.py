@@ -85,3 +85,13 @@ def require(module: str, extra: str, feature: str):
             f"{feature} needs the optional package '{module}'; install it with "
             f"pip install 'ergodex[{extra}]'"
         ) from exc
+
+
+def one_line(message: object) -> str:
+    """``message`` (an exception or a text) with its whitespace collapsed, so that it prints on
+    one line whatever a library wrote; an exception without a message gives its class name, so
+    the line is never empty."""
+    text = " ".join(str(message).split())
+    if not text and isinstance(message, BaseException):
+        return type(message).__name__
+    return text

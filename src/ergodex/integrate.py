@@ -32,6 +32,7 @@ from typing import Any
 import numpy as np
 
 from ergodex.exceptions import ModelLimitError, SettingsError
+from ergodex.rk4 import rk4_step
 from ergodex.stiffness import spectral_radius, states_to_measure
 from ergodex.surrogate import Surrogate
 
@@ -473,8 +474,80 @@ def integrate_ensemble(
     .. [2] Kloeden, P. E. & Platen, E. (1992). Numerical Solution of Stochastic Differential
        Equations. Springer (Euler-Maruyama, ch. 9; stochastic Heun, ch. 15).
     """
-    if not isinstance(surrogate, Surrogate):
-        raise SettingsError(f"surrogate: expected a Surrogate, got {type(surrogate).__name__}")
+    plan = _plan(
+        surrogate,
+        initial_states,
+        dt_out=dt_out,
+        n_out=n_out,
+        spinup=spinup,
+        substep=substep,
+        stiffness_states=stiffness_states,
+        method=method,
+        bound=bound,
+        seed=seed,
+        keep=keep,
+        engine=engine,
+        time_limit=time_limit,
+        max_memory=max_memory,
+    )
+    run = _Members.start(plan)
+    block = _block_runner(surrogate, plan, run)
+    _spin_up(plan, run, block)
+    _record(plan, run, block, progress)
+    return _result(surrogate, plan, run)
+
+
+@dataclass
+class _Plan:
+    """Checked settings of one ensemble run, with the substep and bounds derived from them."""
+
+    x0: np.ndarray  # (M, n) initial states
+    dt_out: float
+    n_out: int
+    method: str
+    stochastic: bool
+    engine: str
+    h: float  # substep
+    k: int  # substeps per output
+    rho: float | None  # spectral radius behind an automatic substep
+    lower: np.ndarray  # (n,) finite bounds
+    upper: np.ndarray
+    bound: np.ndarray | None  # as given
+    keep: np.ndarray  # kept variable indices
+    seed: int | None
+    chol: np.ndarray  # (n, n) noise factor (zeros when deterministic)
+    n_spin: int  # spin-up substeps
+    deadline: float | None
+    time_limit: float | None
+
+    @property
+    def n_members(self) -> int:
+        return int(self.x0.shape[0])
+
+    @property
+    def spin_time(self) -> float:
+        return self.n_spin * self.h
+
+    @property
+    def max_steps(self) -> int:
+        """Substeps per call: the noise buffer near 2**20 numbers (stochastic), or each compiled
+        call near _WORK_PER_CALL member-substeps (deterministic), so that progress is reported,
+        the time limit is checked and a run whose members have all blown up stops."""
+        M, n = self.x0.shape
+        if self.stochastic:
+            return max(1, (1 << 20) // (M * n))
+        return max(1, _WORK_PER_CALL // M)
+
+    def check_time(self, where: str) -> None:
+        if self.deadline is not None and time.monotonic() > self.deadline:
+            raise ModelLimitError(
+                f"time limit of {self.time_limit:g} s reached {where} ({self.n_members} members, "
+                f"substep {self.h:.3g}, {self.k} per output); the surrogate is too costly to "
+                "integrate in that time: raise the time limit, or use fewer members or outputs"
+            )
+
+
+def _initial_states(surrogate: Surrogate, initial_states: Any) -> np.ndarray:
     n = surrogate.n_variables
     x0 = np.array(initial_states, dtype=np.float64)
     if x0.ndim == 1 and x0.shape[0] == n:
@@ -484,6 +557,91 @@ def integrate_ensemble(
     if not np.all(np.isfinite(x0)):
         bad = int(np.flatnonzero(~np.all(np.isfinite(x0), axis=1))[0])
         raise SettingsError(f"initial_states: member {bad} has a non-finite value")
+    return x0
+
+
+def _method(surrogate: Surrogate, method: str) -> str:
+    if method == "auto":
+        method = "heun" if surrogate.is_stochastic else "rk4"
+    if method not in METHODS:
+        raise SettingsError(f"method {method!r} is not one of auto, {', '.join(METHODS)}")
+    if surrogate.is_stochastic and not METHODS[method][0]:
+        raise SettingsError(
+            f"method {method!r} ignores the surrogate's noise; use 'heun' or 'euler-maruyama', "
+            "or integrate surrogate.with_noise(None)"
+        )
+    return method
+
+
+def _substep(
+    surrogate: Surrogate,
+    x0: np.ndarray,
+    dt_out: float,
+    substep: float | None,
+    stiffness_states: Any,
+    method: str,
+) -> tuple[float, int, float | None]:
+    """``(h, k, rho)``: the substep, substeps per output and (automatic choice) the stiffness."""
+    n = surrogate.n_variables
+    if substep is None:
+        sample = x0
+        if stiffness_states is not None:
+            extra = np.asarray(stiffness_states, dtype=np.float64)
+            if extra.ndim != 2 or extra.shape[1] != n:
+                raise SettingsError(f"stiffness_states: shape {extra.shape}, expected (K, {n})")
+            sample = np.vstack([x0, extra])
+        return _choose(surrogate, sample, dt_out, method, SAFETY)
+    h_req = _positive(substep, "substep")
+    if dt_out / h_req > MAX_SUBSTEPS_PER_OUTPUT:
+        raise SettingsError(
+            f"substep {h_req:g} is below the floor {dt_out / MAX_SUBSTEPS_PER_OUTPUT:.3g} "
+            f"(output interval / {MAX_SUBSTEPS_PER_OUTPUT:.0e}); give a larger substep"
+        )
+    k = max(1, math.ceil(dt_out / h_req - 1e-9))
+    return dt_out / k, k, None
+
+
+def _bounds(bound: Any, n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
+    """``(lower, upper, bound as given)``; the first two finite, for the kernels."""
+    if bound is None:
+        return np.full(n, -_MAX_FLOAT), np.full(n, _MAX_FLOAT), None
+    bound_arr = np.array(bound, dtype=np.float64)
+    if (
+        bound_arr.shape != (n, 2)
+        or np.any(np.isnan(bound_arr))
+        or np.any(bound_arr[:, 0] >= bound_arr[:, 1])
+    ):
+        raise SettingsError(
+            f"bound: expected ({n}, 2) lower < upper per variable, got shape {bound_arr.shape}"
+        )
+    # Clipped to the finite range: the kernels rely on finite bounds to reject infinities.
+    lower = np.ascontiguousarray(np.clip(bound_arr[:, 0], -_MAX_FLOAT, _MAX_FLOAT))
+    upper = np.ascontiguousarray(np.clip(bound_arr[:, 1], -_MAX_FLOAT, _MAX_FLOAT))
+    return lower, upper, bound_arr
+
+
+def _plan(
+    surrogate: Surrogate,
+    initial_states: Any,
+    *,
+    dt_out: float,
+    n_out: int,
+    spinup: float,
+    substep: float | None,
+    stiffness_states: Any,
+    method: str,
+    bound: Any,
+    seed: int | np.random.Generator | None,
+    keep: Sequence[int | str] | None,
+    engine: str,
+    time_limit: float | None,
+    max_memory: int | str | None,
+) -> _Plan:
+    """Check every setting (before anything large is allocated) and derive the run's plan."""
+    if not isinstance(surrogate, Surrogate):
+        raise SettingsError(f"surrogate: expected a Surrogate, got {type(surrogate).__name__}")
+    n = surrogate.n_variables
+    x0 = _initial_states(surrogate, initial_states)
     M = x0.shape[0]
     dt_out = _positive(dt_out, "dt_out")
     if isinstance(n_out, bool) or not isinstance(n_out, (int, np.integer)) or n_out < 1:
@@ -495,17 +653,8 @@ def integrate_ensemble(
         raise SettingsError(f"spinup must be a number >= 0, got {spinup!r}") from None
     if not (math.isfinite(spinup) and spinup >= 0.0):
         raise SettingsError(f"spinup must be a finite number >= 0, got {spinup!r}")
-
-    if method == "auto":
-        method = "heun" if surrogate.is_stochastic else "rk4"
-    if method not in METHODS:
-        raise SettingsError(f"method {method!r} is not one of auto, {', '.join(METHODS)}")
+    method = _method(surrogate, method)
     stochastic = METHODS[method][0]
-    if surrogate.is_stochastic and not stochastic:
-        raise SettingsError(
-            f"method {method!r} ignores the surrogate's noise; use 'heun' or 'euler-maruyama', "
-            "or integrate surrogate.with_noise(None)"
-        )
     if engine not in ENGINES:
         raise SettingsError(f"engine {engine!r} is not one of {', '.join(ENGINES)}")
     if engine == "auto":
@@ -522,194 +671,169 @@ def integrate_ensemble(
         "use fewer members or outputs",
         max_memory,
     )
-
-    rho: float | None = None
-    if substep is None:
-        sample = x0
-        if stiffness_states is not None:
-            extra = np.asarray(stiffness_states, dtype=np.float64)
-            if extra.ndim != 2 or extra.shape[1] != n:
-                raise SettingsError(f"stiffness_states: shape {extra.shape}, expected (K, {n})")
-            sample = np.vstack([x0, extra])
-        h, k, rho = _choose(surrogate, sample, dt_out, method, SAFETY)
-    else:
-        h_req = _positive(substep, "substep")
-        if dt_out / h_req > MAX_SUBSTEPS_PER_OUTPUT:
-            raise SettingsError(
-                f"substep {h_req:g} is below the floor {dt_out / MAX_SUBSTEPS_PER_OUTPUT:.3g} "
-                f"(output interval / {MAX_SUBSTEPS_PER_OUTPUT:.0e}); give a larger substep"
-            )
-        k = max(1, math.ceil(dt_out / h_req - 1e-9))
-        h = dt_out / k
-
-    if bound is None:
-        lower = np.full(n, -_MAX_FLOAT)
-        upper = np.full(n, _MAX_FLOAT)
-        bound_arr = None
-    else:
-        bound_arr = np.array(bound, dtype=np.float64)
-        if (
-            bound_arr.shape != (n, 2)
-            or np.any(np.isnan(bound_arr))
-            or np.any(bound_arr[:, 0] >= bound_arr[:, 1])
-        ):
-            raise SettingsError(
-                f"bound: expected ({n}, 2) lower < upper per variable, got shape {bound_arr.shape}"
-            )
-        # Clipped to the finite range: the kernels rely on finite bounds to reject infinities.
-        lower = np.ascontiguousarray(np.clip(bound_arr[:, 0], -_MAX_FLOAT, _MAX_FLOAT))
-        upper = np.ascontiguousarray(np.clip(bound_arr[:, 1], -_MAX_FLOAT, _MAX_FLOAT))
+    h, k, rho = _substep(surrogate, x0, dt_out, substep, stiffness_states, method)
+    lower, upper, bound_arr = _bounds(bound, n)
     keep_idx = _resolve_keep(surrogate, keep)
-
     seed_used: int | None = None
-    rng: np.random.Generator | None = None
     chol = np.zeros((n, n))
     if stochastic:
         seed_used = _resolve_seed(seed)
-        rng = np.random.default_rng(seed_used)
         if surrogate.noise is not None:
             chol = np.ascontiguousarray(_noise_factor(np.asarray(surrogate.noise)))
-
     if spinup / h > 2.0**62:
         raise SettingsError(
             f"spinup {spinup:g} is {spinup / h:.3g} substeps of {h:.3g}; give a shorter spin-up"
         )
-    n_spin = math.ceil(spinup / h - 1e-9) if spinup > 0 else 0
-    spin_time = n_spin * h
+    return _Plan(
+        x0=x0,
+        dt_out=dt_out,
+        n_out=n_out,
+        method=method,
+        stochastic=stochastic,
+        engine=engine,
+        h=h,
+        k=k,
+        rho=rho,
+        lower=lower,
+        upper=upper,
+        bound=bound_arr,
+        keep=keep_idx,
+        seed=seed_used,
+        chol=chol,
+        n_spin=math.ceil(spinup / h - 1e-9) if spinup > 0 else 0,
+        deadline=deadline,
+        time_limit=time_limit,
+    )
 
-    state = x0.copy()
-    alive = np.ones(M, dtype=np.bool_)
-    blowup_time = np.full(M, np.nan)
-    out = np.full((M, n_out, len(keep_idx)), np.nan)
 
-    if engine == "numba":
+@dataclass
+class _Members:
+    """The run's state, updated in place by the engines: states, who is alive, outputs."""
+
+    state: np.ndarray  # (M, n)
+    alive: np.ndarray  # (M,) bool
+    blowup_time: np.ndarray  # (M,)
+    out: np.ndarray  # (M, n_out, n_kept)
+    rng: np.random.Generator | None
+
+    @classmethod
+    def start(cls, plan: _Plan) -> _Members:
+        M = plan.n_members
+        return cls(
+            state=plan.x0.copy(),
+            alive=np.ones(M, dtype=np.bool_),
+            blowup_time=np.full(M, np.nan),
+            out=np.full((M, plan.n_out, len(plan.keep)), np.nan),
+            rng=None if plan.seed is None else np.random.default_rng(plan.seed),
+        )
+
+    def draw(self, plan: _Plan, n_steps: int) -> np.ndarray:
+        """Standard normal draws for ``n_steps`` substeps (empty for a deterministic run)."""
+        M, n = self.state.shape
+        if self.rng is None:
+            return np.zeros((0, M, n))
+        return self.rng.standard_normal((n_steps, M, n))
+
+
+#: ``block(t0, n_blocks, steps, noise, j0, write)``: advance the live members by ``n_blocks``
+#: output blocks of ``steps`` substeps each, writing outputs from ``j0`` when ``write``.
+_Block = Callable[[float, int, int, np.ndarray, int, bool], None]
+
+
+def _block_runner(surrogate: Surrogate, plan: _Plan, run: _Members) -> _Block:
+    """The chosen engine as one callable over blocks of substeps."""
+    if plan.engine == "numba":
         from ergodex import kernels
 
-        table_args = tuple(kernels.build_program(surrogate.term_tables(), n))
-        code = kernels.METHOD_CODES[method]
+        program = kernels.build_program(surrogate.term_tables(), surrogate.n_variables)
 
-        def run_block(
+        def compiled(
             t0: float, n_blocks: int, steps: int, noise: np.ndarray, j0: int, write: bool
         ) -> None:
             kernels.advance(
-                code,
-                state,
-                alive,
-                blowup_time,
-                t0,
-                h,
-                n_blocks,
-                steps,
-                noise,
-                chol,
-                out,
-                j0,
-                write,
-                keep_idx,
-                lower,
-                upper,
-                *table_args,
-            )
-    else:
-
-        def run_block(
-            t0: float, n_blocks: int, steps: int, noise: np.ndarray, j0: int, write: bool
-        ) -> None:
-            _numpy_block(
-                surrogate,
-                method,
-                state,
-                alive,
-                blowup_time,
-                t0,
-                h,
-                n_blocks,
-                steps,
-                noise,
-                chol,
-                out,
-                j0,
-                write,
-                keep_idx,
-                lower,
-                upper,
+                plan.method,
+                program,
+                run.state,
+                run.alive,
+                run.blowup_time,
+                kernels.Run(t0, plan.h, n_blocks, steps, plan.lower, plan.upper),
+                kernels.Noise(noise, plan.chol),
+                kernels.Outputs(run.out, j0, write, plan.keep),
             )
 
-    empty_noise = np.zeros((0, M, n))
+        return compiled
 
-    def draw(n_steps: int) -> np.ndarray:
-        if not stochastic:
-            return empty_noise
-        assert rng is not None  # made above for every stochastic run
-        return rng.standard_normal((n_steps, M, n))
+    def reference(
+        t0: float, n_blocks: int, steps: int, noise: np.ndarray, j0: int, write: bool
+    ) -> None:
+        _numpy_block(surrogate, plan, run, t0, n_blocks, steps, noise, j0, write)
 
-    # Chunks keep the noise buffer near 2**20 numbers (stochastic) or each compiled call near
-    # _WORK_PER_CALL member-substeps (deterministic), so that progress is reported, the time
-    # limit is checked and a run whose members have all blown up stops.
-    per_step = M * n
-    max_steps = max(1, (1 << 20) // per_step) if stochastic else max(1, _WORK_PER_CALL // M)
-    spin_chunk = max_steps
+    return reference
 
-    def over_time(where: str) -> None:
-        if deadline is not None and time.monotonic() > deadline:
-            raise ModelLimitError(
-                f"time limit of {time_limit:g} s reached {where} ({M} members, substep {h:.3g}, "
-                f"{k} per output); the surrogate is too costly to integrate in that time: "
-                "raise the time limit, or use fewer members or outputs"
-            )
 
-    t = -spin_time
+def _spin_up(plan: _Plan, run: _Members, block: _Block) -> None:
+    """Integrate the spin-up (outputs discarded) in chunks; then record output 0."""
+    t = -plan.spin_time
     done = 0
-    while done < n_spin and alive.any():
-        steps = min(n_spin - done, spin_chunk)
-        run_block(t, 1, steps, draw(steps), 0, False)
+    while done < plan.n_spin and run.alive.any():
+        steps = min(plan.n_spin - done, plan.max_steps)
+        block(t, 1, steps, run.draw(plan, steps), 0, False)
         done += steps
-        t = -spin_time + done * h
-        over_time(f"during the spin-up (t={t:.6g} of 0)")
-    t = 0.0
+        t = -plan.spin_time + done * plan.h
+        plan.check_time(f"during the spin-up (t={t:.6g} of 0)")
     # Output 0: the state at the end of spin-up.
-    out[alive, 0, :] = state[alive][:, keep_idx]
+    run.out[run.alive, 0, :] = run.state[run.alive][:, plan.keep]
+
+
+def _record(
+    plan: _Plan, run: _Members, block: _Block, progress: Callable[[int, int], None] | None
+) -> None:
+    """Outputs 1 .. n_out - 1, in calls of about a hundredth of the run each."""
+    n_out, k, max_steps = plan.n_out, plan.k, plan.max_steps
     j = 1
-    outputs_per_block = max(
-        1, min(max_steps // k, math.ceil((n_out - 1) / 100)) if n_out > 1 else 1
-    )
+    per_call = max(1, min(max_steps // k, math.ceil((n_out - 1) / 100)) if n_out > 1 else 1)
     if progress is not None:
         progress(1, n_out)
-    while j < n_out and alive.any():
+    while j < n_out and run.alive.any():
+        t0 = (j - 1) * plan.dt_out
         if k <= max_steps:
-            nb = min(outputs_per_block, n_out - j)
-            run_block((j - 1) * dt_out, nb, k, draw(nb * k), j, True)
+            nb = min(per_call, n_out - j)
+            block(t0, nb, k, run.draw(plan, nb * k), j, True)
         else:
-            # More substeps per output than one noise buffer holds: split the interval.
+            # More substeps per output than one call takes: split the interval.
             nb = 1
             done = 0
             while done < k:
                 steps = min(k - done, max_steps)
-                run_block((j - 1) * dt_out + done * h, 1, steps, draw(steps), j, done + steps == k)
+                block(t0 + done * plan.h, 1, steps, run.draw(plan, steps), j, done + steps == k)
                 done += steps
-                over_time(f"at output {j} of {n_out}")
+                plan.check_time(f"at output {j} of {n_out}")
         j += nb
-        over_time(f"at output {j} of {n_out}")
+        plan.check_time(f"at output {j} of {n_out}")
         if progress is not None:
             progress(j, n_out)
 
-    times = np.arange(n_out) * dt_out
-    blown = ~alive
+
+def _result(surrogate: Surrogate, plan: _Plan, run: _Members) -> EnsembleResult:
+    """Mask outputs after blow-ups, and describe the run."""
+    M = plan.n_members
+    times = np.arange(plan.n_out) * plan.dt_out
+    blown = ~run.alive
     n_blown = int(np.count_nonzero(blown))
     # Safety net: outputs at or after a member's blow-up are NaN whatever the engine wrote.
     for m in np.flatnonzero(blown):
-        out[m, _first_output_after(times, blowup_time[m]) :, :] = np.nan
+        run.out[m, _first_output_after(times, run.blowup_time[m]) :, :] = np.nan
     if n_blown == 0:
         status = "ok"
     elif n_blown == M:
         status = "all-blowup"
     else:
         status = "blowup"
-    how = f"{method} ({engine}), substep {h:.6g} ({k} per output)"
-    if rho is not None:
-        how += f" chosen from spectral radius {rho:.4g}"
+    how = f"{plan.method} ({plan.engine}), substep {plan.h:.6g} ({plan.k} per output)"
+    if plan.rho is not None:
+        how += f" chosen from spectral radius {plan.rho:.4g}"
     if n_blown:
-        first = float(np.nanmin(blowup_time))
+        first = float(np.nanmin(run.blowup_time))
         message = (
             f"{n_blown} of {M} members blew up (non-finite or outside the bound), "
             f"first at t={first:.6g}; "
@@ -717,52 +841,46 @@ def integrate_ensemble(
         )
     else:
         message = (
-            f"{M} members integrated to t={times[-1]:.6g} after spin-up {spin_time:.6g}; {how}"
+            f"{M} members integrated to t={times[-1]:.6g} after spin-up {plan.spin_time:.6g}; {how}"
         )
     return EnsembleResult(
         times=times,
-        states=out,
+        states=run.out,
         blown_up=blown,
-        blowup_time=blowup_time,
-        last_finite=state,
-        method=method,
-        substep=h,
-        substeps_per_output=k,
-        seed=seed_used,
+        blowup_time=run.blowup_time,
+        last_finite=run.state,
+        method=plan.method,
+        substep=plan.h,
+        substeps_per_output=plan.k,
+        seed=plan.seed,
         status=status,
         message=message,
-        variables=tuple(surrogate.variables[i] for i in keep_idx),
-        spinup=spin_time,
-        spectral_radius=rho,
-        engine=engine,
-        bound=bound_arr,
+        variables=tuple(surrogate.variables[i] for i in plan.keep),
+        spinup=plan.spin_time,
+        spectral_radius=plan.rho,
+        engine=plan.engine,
+        bound=plan.bound,
     )
 
 
 def _numpy_block(
-    surrogate,
-    method,
-    state,
-    alive,
-    blowup_time,
-    t0,
-    h,
-    n_blocks,
-    steps,
-    noise,
-    chol,
-    out,
-    j0,
-    write,
-    keep_idx,
-    lower,
-    upper,
+    surrogate: Surrogate,
+    plan: _Plan,
+    run: _Members,
+    t0: float,
+    n_blocks: int,
+    steps: int,
+    noise: np.ndarray,
+    j0: int,
+    write: bool,
 ) -> None:
-    """Reference engine: the same steps as :func:`ergodex.kernels.advance`.
+    """Reference engine: the same steps as :func:`ergodex.kernels.advance`, vectorised with numpy.
 
-    Vectorised with numpy.
+    The right-hand side is :meth:`Surrogate.rhs` (numpy, independent of the compiled program).
     """
     f = surrogate.rhs
+    h, method, chol = plan.h, plan.method, plan.chol
+    state, alive, blowup_time = run.state, run.alive, run.blowup_time
     sqh = math.sqrt(h)
     for j in range(n_blocks):
         for s in range(steps):
@@ -773,11 +891,7 @@ def _numpy_block(
             step = j * steps + s
             with np.errstate(all="ignore"):
                 if method == "rk4":
-                    k1 = f(x)
-                    k2 = f(x + 0.5 * h * k1)
-                    k3 = f(x + 0.5 * h * k2)
-                    k4 = f(x + h * k3)
-                    xn = x + (h / 6.0) * (k1 + 2.0 * k2 + 2.0 * k3 + k4)
+                    xn = rk4_step(f, x, h)
                 else:
                     dw = sqh * (noise[step, live] @ chol.T)
                     k1 = f(x)
@@ -786,11 +900,11 @@ def _numpy_block(
                     else:
                         k2 = f(x + h * k1 + dw)
                         xn = x + 0.5 * h * (k1 + k2) + dw
-                ok = np.all(np.isfinite(xn) & (xn >= lower) & (xn <= upper), axis=1)
+                ok = np.all(np.isfinite(xn) & (xn >= plan.lower) & (xn <= plan.upper), axis=1)
             state[live[ok]] = xn[ok]
             dead = live[~ok]
             alive[dead] = False
             blowup_time[dead] = t0 + (step + 1) * h
         if write:
             live = np.flatnonzero(alive)
-            out[live, j0 + j, :] = state[live][:, keep_idx]
+            run.out[live, j0 + j, :] = state[live][:, plan.keep]

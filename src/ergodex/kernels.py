@@ -29,7 +29,18 @@ check, so that the data make as few trips through memory as possible.
 Three stage buffers rotate: the state lives in one of them, the stages write the other two, and the
 new state goes to the buffer the step no longer needs, so the previous state stays available for a
 member that blows up and nothing is copied in the usual case. A member that blows up is swapped out
-of the live block, so the loops keep running over contiguous live members only. Importing this
+of the live block, so the loops keep running over contiguous live members only.
+
+Methods and arguments
+---------------------
+The kernel is one template compiled once per stepper (RK4, Euler-Maruyama, stochastic Heun, and the
+plain evaluator :func:`evaluate`) by :func:`bind`, each copy with its method's branches decided at
+compile time; a call takes the program, the states and three small named tuples (:class:`Run`,
+:class:`Noise`, :class:`Outputs`). :func:`rk4_stepper` is the same RK4 as a separate compiled step
+around any compiled right-hand side on the members-inner layout (the scenario generators use it);
+the ensemble kernel keeps its stages fused into the passes, because the kernel written as separate
+compiled step and right-hand-side functions measured slower on Lorenz-63 (1.5-2 times at 16-64
+members, 5 times at one member). Importing this
 module imports numba (about half a second); :mod:`ergodex.integrate` imports it only when the
 compiled engine is used.
 """
@@ -37,14 +48,27 @@ compiled engine is used.
 from __future__ import annotations
 
 import math
+import types
+from collections.abc import Callable
+from typing import Any, NamedTuple
 
 import numba as nb
 import numpy as np
 
-__all__ = ["METHOD_CODES", "Program", "advance", "build_program", "rhs_columns"]
+__all__ = [
+    "METHODS",
+    "Noise",
+    "Outputs",
+    "Program",
+    "Run",
+    "advance",
+    "build_program",
+    "evaluate",
+    "bind",
+    "rhs_columns",
+    "rk4_stepper",
+]
 
-#: Stepper codes understood by :func:`advance`.
-METHOD_CODES = {"rk4": 0, "euler-maruyama": 1, "heun": 2}
 
 # Pass shapes: which sources a pass's loop body reads (the unused slots hold the zero row).
 _TWO_LINEAR = 0  # w0 x_l0 + w1 x_l1
@@ -53,8 +77,28 @@ _TWO_ONE = 2  # w0 x_l0 + w1 x_l1 + v0 x_a0 x_b0
 _TWO_TWO = 3  # all four sources
 
 
-class Program(tuple):
-    """The arrays :func:`advance` runs, in order (a plain tuple so numba can take it apart)."""
+class Program(NamedTuple):
+    """A right-hand side as product rows and accumulation passes (see :func:`build_program`).
+
+    A named tuple of arrays, so that compiled code takes it as one argument.
+    """
+
+    prod_kind: np.ndarray
+    prod_var: np.ndarray
+    prod_freq: np.ndarray
+    prod_fptr: np.ndarray
+    prod_fvar: np.ndarray
+    prod_fpow: np.ndarray
+    target: np.ndarray
+    shape: np.ndarray
+    final: np.ndarray
+    lin: np.ndarray
+    lin_w: np.ndarray
+    qa: np.ndarray
+    qb: np.ndarray
+    quad_w: np.ndarray
+    bias: np.ndarray
+    n_rows: int
 
 
 def build_program(tables: dict, n_variables: int) -> Program:
@@ -167,145 +211,162 @@ def build_program(tables: dict, n_variables: int) -> Program:
         return np.array(columns[key], dtype=np.float64)
 
     return Program(
-        (
-            np.array(prod_kind, dtype=np.int64),
-            np.array(prod_var, dtype=np.int64),
-            np.array(prod_freq, dtype=np.float64),
-            np.array(prod_fptr, dtype=np.int64),
-            np.array(prod_fvar, dtype=np.int64),
-            np.array(prod_fpow, dtype=np.int64),
-            ints("target"),
-            ints("shape"),
-            ints("final"),
-            ints("lin").reshape(-1, 2),
-            floats("lin_w").reshape(-1, 2),
-            ints("qa").reshape(-1, 2),
-            ints("qb").reshape(-1, 2),
-            floats("quad_w").reshape(-1, 2),
-            floats("bias"),
-            np.int64(scratch + 1),
-        )
+        np.array(prod_kind, dtype=np.int64),
+        np.array(prod_var, dtype=np.int64),
+        np.array(prod_freq, dtype=np.float64),
+        np.array(prod_fptr, dtype=np.int64),
+        np.array(prod_fvar, dtype=np.int64),
+        np.array(prod_fpow, dtype=np.int64),
+        ints("target"),
+        ints("shape"),
+        ints("final"),
+        ints("lin").reshape(-1, 2),
+        floats("lin_w").reshape(-1, 2),
+        ints("qa").reshape(-1, 2),
+        ints("qb").reshape(-1, 2),
+        floats("quad_w").reshape(-1, 2),
+        floats("bias"),
+        int(scratch + 1),
     )
 
 
-def rhs_columns(states, *program):
-    """Compiled ``rhs`` of many states (M, n) -> (M, n) through :func:`advance` itself.
-
-    Used by the tests to compare the compiled term evaluation with the numpy one.
-    """
-    states = np.array(states, dtype=np.float64, order="C")
-    M, n = states.shape
-    alive = np.ones(M, dtype=np.bool_)
-    blowup = np.full(M, np.nan)
-    out = np.empty((M, 1, n))
-    bound = np.full(n, np.finfo(np.float64).max)
-    advance(
-        _RHS_ONLY,
-        states,
-        alive,
-        blowup,
-        0.0,
-        1.0,
-        1,
-        1,
-        np.zeros((0, M, n)),
-        np.zeros((n, n)),
-        out,
-        0,
-        False,
-        np.arange(n, dtype=np.int64),
-        -bound,
-        bound,
-        *program,
-    )
-    return states
-
-
-_RHS_ONLY = 3
-
-
-# Fused multiply-add is allowed (about 15 % faster here; results change by round-off only). The
-# flags that would let the compiler assume no NaN or infinity are not set: the blow-up check
-# relies on comparisons with NaN being false.
+# Fused multiply-add is allowed in the ensemble kernel (about 15 % faster; results change by
+# round-off only). The flags that would let the compiler assume no NaN or infinity are not set:
+# the blow-up check relies on comparisons with NaN being false.
 _FASTMATH = {"contract", "nsz", "arcp"}
+_FAST: dict[str, Any] = {"nogil": True, "error_model": "numpy", "fastmath": _FASTMATH}
+_EXACT: dict[str, Any] = {"nogil": True, "error_model": "numpy"}
 
 
-@nb.njit(cache=True, nogil=True, error_model="numpy", fastmath=_FASTMATH)
-def advance(
-    method,
-    state,
-    alive,
-    blowup_time,
-    t0,
-    h,
-    n_outputs,
-    k,
-    noise,
-    chol,
-    out,
-    j0,
-    write,
-    keep,
-    lower,
-    upper,
-    prod_kind,
-    prod_var,
-    prod_freq,
-    prod_fptr,
-    prod_fvar,
-    prod_fpow,
-    p_target,
-    p_shape,
-    p_final,
-    p_lin,
-    p_lin_w,
-    p_qa,
-    p_qb,
-    p_quad_w,
-    p_bias,
-    n_rows,
-):
-    """Advance every live member by ``n_outputs * k`` substeps of length ``h``.
+def bind(template: Callable, name: str, *, fastmath: bool = True, **constants: Any) -> Any:
+    """Compile ``template`` with some of its global names bound to ``constants``.
 
-    Parameters (arrays C-contiguous float64 / int64 unless noted)
-    ----------
-    method : int
-        0 classical RK4, 1 Euler-Maruyama, 2 stochastic Heun (see :mod:`ergodex.integrate`);
-        3 (testing) replace each state by the right-hand side at that state.
-    state : (M, n)
-        Current states, updated in place; a member that blows up keeps its last accepted state.
-    alive : (M,) bool
-        Updated in place.
-    blowup_time : (M,)
-        Set (to ``t0 + steps * h``) for members that blow up during this call.
-    noise : (n_outputs * k, M, n)
-        Standard normal draws, indexed by member (so the draws do not depend on which members
-        are alive); unused (may be empty) for ``method == 0``.
-    chol : (n, n)
-        Factor ``L`` with ``L L^T`` = noise covariance per unit time.
-    out : (M, n_out, n_keep)
-        Outputs; after substep block ``j`` the kept variables of live members go to
-        ``out[:, j0 + j]`` when ``write``; dead members' slots are left as they are (NaN).
-    keep : (n_keep,)
-        Indices of the variables written to ``out``.
-    lower, upper : (n,)
-        Finite bounds: a state is accepted when ``lower <= x <= upper`` for every variable
-        (which also rejects NaN and infinities).
-    prod_kind … n_rows
-        The :func:`build_program` arrays.
+    The ensemble kernel and the RK4 step are templates that read their method (``_METHOD``) or
+    right-hand side (``_rhs``) as globals: each bound copy is compiled on its own, with the
+    method's branches decided at compile time and the right-hand side called directly (and
+    inlined by the compiler). A compiled function passed as an argument instead kept numba from
+    caching the caller on disk ("uses dynamic globals") and ran several times slower.
+    """
+    scope = dict(template.__globals__)
+    scope.update(constants)
+    fn = types.FunctionType(
+        template.__code__, scope, name, template.__defaults__, template.__closure__
+    )
+    fn.__qualname__ = name
+    fn.__doc__ = template.__doc__
+    return nb.njit(**(_FAST if fastmath else _EXACT))(fn)
 
-    Returns
-    -------
-    int
-        Number of live members after the call.
 
-    Notes
-    -----
+# ------------------------------------------------------------------ one RK4 step
+def _rhs(params, x, out):  # pragma: no cover - replaced by bind
+    """Placeholder of the right-hand side the RK4 template calls (see :func:`rk4_stepper`)."""
+    raise NotImplementedError
+
+
+def _rk4(params, x, h, work):  # pragma: no cover - compiled
+    """One classical RK4 step (Kutta 1901) of ``x`` in place: ``x + h/6 (k1 + 2 k2 + 2 k3 + k4)``.
+
+    ``x`` (n, M) holds one state per column; ``work = (y, k)`` with ``y`` like ``x`` and ``k``
+    (4, n, M); ``_rhs(params, x, out)`` writes the right-hand side of every column into ``out``.
+    """
+    y, k = work
+    n, M = x.shape
+    half = 0.5 * h
+    _rhs(params, x, k[0])
+    for i in range(n):
+        for c in range(M):
+            y[i, c] = x[i, c] + half * k[0, i, c]
+    _rhs(params, y, k[1])
+    for i in range(n):
+        for c in range(M):
+            y[i, c] = x[i, c] + half * k[1, i, c]
+    _rhs(params, y, k[2])
+    for i in range(n):
+        for c in range(M):
+            y[i, c] = x[i, c] + h * k[2, i, c]
+    _rhs(params, y, k[3])
+    sixth = h / 6.0
+    for i in range(n):
+        for c in range(M):
+            x[i, c] = x[i, c] + sixth * (
+                k[0, i, c] + 2.0 * k[1, i, c] + 2.0 * k[2, i, c] + k[3, i, c]
+            )
+
+
+def rk4_stepper(rhs: Any, *, fastmath: bool = False) -> Any:
+    """The compiled RK4 step ``step(params, x, h, (y, k))`` of a compiled ``rhs(params, x, out)``.
+
+    Members are columns (``x`` is (n, M)), so the loops run over members. Without ``fastmath``
+    the arithmetic is exactly numpy's ``x + h/6 * (k1 + 2 k2 + 2 k3 + k4)`` (no fused
+    multiply-add), which keeps the scenario generators' data identical to
+    :func:`ergodex.rk4.rk4_step` on the same right-hand side.
+    """
+    return bind(_rk4, f"rk4_step_{rhs.__name__}", fastmath=fastmath, _rhs=rhs)
+
+
+# ------------------------------------------------------------------ the ensemble kernel
+class Run(NamedTuple):
+    """Settings of one :func:`advance` call."""
+
+    t0: float  # time at the start of the call
+    h: float  # substep
+    n_outputs: int  # blocks of `k` substeps, one output after each
+    k: int
+    lower: np.ndarray  # (n,) finite bounds: a state is accepted when lower <= x <= upper
+    upper: np.ndarray
+
+
+class Noise(NamedTuple):
+    """Standard normal draws ``(n_outputs * k, M, n)`` by member (empty for RK4) and ``L``."""
+
+    draws: np.ndarray
+    chol: np.ndarray  # (n, n), L L^T = noise covariance per unit time
+
+
+class Outputs(NamedTuple):
+    """Where the kept variables go: ``out[:, j0 + j]`` after block ``j`` when ``write``."""
+
+    out: np.ndarray  # (M, n_out, n_keep); dead members' slots are left as they are (NaN)
+    j0: int
+    write: bool
+    keep: np.ndarray  # (n_keep,) indices of the kept variables
+
+
+@nb.njit(cache=True, nogil=True)
+def _flush(out, held, n_held, idx, na, first):
+    """Copy ``n_held`` held outputs of the live members to ``out[:, first:first + n_held]``.
+
+    Outputs are held member-inner (``held[b, q, c]``) and copied in blocks, so that each member's
+    stretch of ``out`` is written in one go: writing every output straight into ``out`` touches
+    one cache line per member each time, which cost about a quarter of a Lorenz-63 run.
+    """
+    for c in range(na):
+        m = idx[c]
+        for b in range(n_held):
+            for q in range(held.shape[1]):
+                out[m, first + b, q] = held[b, q, c]
+
+
+def _kernel(program, state, alive, blowup_time, run, noise_, outputs):  # pragma: no cover
+    """Advance every live member by ``run.n_outputs * run.k`` substeps of the bound method.
+
+    A template (see :func:`bind`): ``_METHOD`` is 0 classical RK4, 1 Euler-Maruyama, 2 stochastic
+    Heun, or 3 (the evaluator) replace each state by the right-hand side at that state; the
+    arguments are described at :func:`advance`.
+
     Everything runs inside this one function, with no calls in the step loop: passing arrays to
     a helper makes numba count references to each of them on every call, which costs more than
-    the arithmetic for small systems. RK4 keeps ``k1 + 2 k2 + 2 k3`` in ``Acc``; its first stage
-    writes ``Acc = k1`` and the next two stages add ``2 k``.
+    the arithmetic for small systems (measured: a Lorenz-63 step with the right-hand side and the
+    RK4 stages as separate compiled functions took about twice as long at 16 members). RK4 keeps
+    ``k1 + 2 k2 + 2 k3`` in ``Acc``; its first stage writes ``Acc = k1`` and the next two stages
+    add ``2 k``; the last pass of each equation does the stage arithmetic.
     """
+    prod_kind, prod_var, prod_freq, prod_fptr, prod_fvar, prod_fpow = program[:6]
+    p_target, p_shape, p_final, p_lin, p_lin_w, p_qa, p_qb, p_quad_w, p_bias = program[6:15]
+    n_rows = program.n_rows
+    t0, h, n_outputs, k, lower, upper = run
+    noise, chol = noise_
+    out, j0, write, keep = outputs
     M, n = state.shape
     idx = np.empty(M, dtype=np.int64)
     na = 0
@@ -337,9 +398,9 @@ def advance(
     half = 0.5 * h
     n_prod = prod_kind.shape[0]
     n_pass = p_target.shape[0]
-    if method == 0:
+    if _METHOD == 0:
         n_stages = 4
-    elif method == 2:
+    elif _METHOD == 2:
         n_stages = 2
     else:
         n_stages = 1
@@ -348,7 +409,7 @@ def advance(
             if na == 0:
                 break
             step = j * k + s
-            if method == 1 or method == 2:
+            if _METHOD == 1 or _METHOD == 2:
                 # Noise increment dW = sqrt(h) L xi, xi ~ N(0, I): covariance h * (L L^T).
                 for c in range(na):
                     m = idx[c]
@@ -433,7 +494,7 @@ def advance(
                     b_1 = p_qb[q, 1]
                     v1 = p_quad_w[q, 1]
                     b = p_bias[q]
-                    if p_final[q] == 0 or method != 0:
+                    if p_final[q] == 0 or _METHOD != 0:
                         # A partial sum (into the scratch row) or a plain right-hand side.
                         if p_final[q] == 0:
                             for c in range(na):
@@ -560,22 +621,22 @@ def advance(
                                 SS[dst, t, c] = v
                                 nbad += not ((v >= lo) & (v <= hi))
                 # 3. Between the stages of stochastic Heun: the predictor, into ba.
-                if method == 2 and stage == 0:
+                if _METHOD == 2 and stage == 0:
                     for i in range(n):
                         for c in range(na):
                             SS[ba, i, c] = SS[cur, i, c] + h * KK[0, i, c] + dW[i, c]
-            if method == _RHS_ONLY:
+            if _METHOD == _RHS_ONLY:
                 for c in range(na):
                     for i in range(n):
                         state[idx[c], i] = KK[0, i, c]
                 return na
-            if method == 1 or method == 2:
+            if _METHOD == 1 or _METHOD == 2:
                 for i in range(n):
                     lo = lower[i]
                     hi = upper[i]
                     for c in range(na):
                         x = SS[cur, i, c]
-                        if method == 2:
+                        if _METHOD == 2:
                             v = x + half * (KK[0, i, c] + KK[1, i, c]) + dW[i, c]
                         else:
                             v = x + h * KK[0, i, c] + dW[i, c]
@@ -627,16 +688,106 @@ def advance(
     return na
 
 
-@nb.njit(cache=True, nogil=True)
-def _flush(out, held, n_held, idx, na, first):
-    """Copy ``n_held`` held outputs of the live members to ``out[:, first:first + n_held]``.
+_RHS_ONLY = 3
+_METHOD = 0  # placeholder (see bind)
+#: The kernel compiled once per stepper (and once as the plain evaluator).
+_CODES = {"rk4": 0, "euler-maruyama": 1, "heun": 2, "rhs": _RHS_ONLY}
+_LOOPS = {
+    name: bind(_kernel, "kernel_" + name.replace("-", "_"), _METHOD=code)
+    for name, code in _CODES.items()
+}
+_rk4_loop = _LOOPS["rk4"]
+_euler_maruyama_loop = _LOOPS["euler-maruyama"]
+_heun_loop = _LOOPS["heun"]
+_rhs_loop = _LOOPS["rhs"]
 
-    Outputs are held member-inner (``held[b, q, c]``) and copied in blocks, so that each member's
-    stretch of ``out`` is written in one go: writing every output straight into ``out`` touches
-    one cache line per member each time, which cost about a quarter of a Lorenz-63 run.
+
+# One entry point per method, which numba caches on disk with its bound kernel inside.
+@nb.njit(cache=True, **_FAST)
+def _advance_rk4(program, state, alive, blowup_time, run, noise, outputs):  # pragma: no cover
+    return _rk4_loop(program, state, alive, blowup_time, run, noise, outputs)
+
+
+@nb.njit(cache=True, **_FAST)
+def _advance_euler_maruyama(
+    program, state, alive, blowup_time, run, noise, outputs
+):  # pragma: no cover
+    return _euler_maruyama_loop(program, state, alive, blowup_time, run, noise, outputs)
+
+
+@nb.njit(cache=True, **_FAST)
+def _advance_heun(program, state, alive, blowup_time, run, noise, outputs):  # pragma: no cover
+    return _heun_loop(program, state, alive, blowup_time, run, noise, outputs)
+
+
+@nb.njit(cache=True, **_FAST)
+def _evaluate(program, states, alive, blowup_time, run, noise, outputs):  # pragma: no cover
+    return _rhs_loop(program, states, alive, blowup_time, run, noise, outputs)
+
+
+_ADVANCE = {"rk4": _advance_rk4, "euler-maruyama": _advance_euler_maruyama, "heun": _advance_heun}
+#: Stepper names understood by :func:`advance`.
+METHODS = tuple(_ADVANCE)
+
+
+def advance(
+    method: str,
+    program: Program,
+    state: np.ndarray,
+    alive: np.ndarray,
+    blowup_time: np.ndarray,
+    run: Run,
+    noise: Noise,
+    outputs: Outputs,
+) -> int:
+    """Advance every live member by ``run.n_outputs * run.k`` substeps of ``method``.
+
+    Parameters
+    ----------
+    method : {"rk4", "euler-maruyama", "heun"}
+        The stepper (see :mod:`ergodex.integrate`); the stochastic ones add ``sqrt(h) L xi``
+        with ``xi`` from ``noise.draws`` indexed by member (so the draws do not depend on which
+        members are alive).
+    program : Program
+        From :func:`build_program`.
+    state : ndarray (M, n)
+        Current states, updated in place; a member that blows up keeps its last accepted state.
+    alive : ndarray (M,) bool
+        Updated in place.
+    blowup_time : ndarray (M,)
+        Set (to ``run.t0 + steps * h``) for members that blow up during this call.
+    run, noise, outputs : Run, Noise, Outputs
+        Step settings and bounds, the noise draws and factor, where the outputs go.
+
+    Returns
+    -------
+    int
+        Number of live members after the call.
     """
-    for c in range(na):
-        m = idx[c]
-        for b in range(n_held):
-            for q in range(held.shape[1]):
-                out[m, first + b, q] = held[b, q, c]
+    return int(_ADVANCE[method](program, state, alive, blowup_time, run, noise, outputs))
+
+
+def evaluate(program: Program, states: Any) -> np.ndarray:
+    """Right-hand side at many states ``(M, n) -> (M, n)``, by the compiled ``program``.
+
+    The one evaluator of a surrogate's terms: :meth:`Surrogate.rhs`, :mod:`ergodex.lyapunov` and
+    the ensemble kernel all run the same :class:`Program` through the same compiled passes.
+    """
+    x = np.array(states, dtype=np.float64, order="C", ndmin=2)
+    M, n = x.shape
+    bound = np.full(n, np.finfo(np.float64).max)
+    _evaluate(
+        program,
+        x,
+        np.ones(M, dtype=np.bool_),
+        np.full(M, np.nan),
+        Run(0.0, 1.0, 1, 1, -bound, bound),
+        Noise(np.zeros((0, M, n)), np.zeros((n, n))),
+        Outputs(np.empty((M, 1, n)), 0, False, np.arange(n, dtype=np.int64)),
+    )
+    return x
+
+
+def rhs_columns(states: Any, *program: Any) -> np.ndarray:
+    """:func:`evaluate` with the program's arrays given one by one."""
+    return evaluate(Program(*program), states)

@@ -26,6 +26,7 @@ import numpy as np
 
 from ergodex.exceptions import DataError, SettingsError
 from ergodex.integrate import choose_substep
+from ergodex.rk4 import rk4_step
 
 __all__ = ["LyapunovResult", "largest_lyapunov", "lyapunov_spectrum"]
 
@@ -66,64 +67,14 @@ class LyapunovResult:
     n_blown_up: int
 
 
-class _PolynomialField:
-    """Right-hand side and Jacobian of a monomial-only surrogate, evaluated together.
+def _field(surrogate):
+    """``rhs(states)`` of the surrogate: its compiled term program when it has a term table."""
+    if hasattr(surrogate, "term_tables"):
+        from ergodex import kernels
 
-    The tangent integration calls both at every RK4 stage; evaluating each needed monomial once
-    (the terms and their partial derivatives share one table of exponent vectors) makes a stage
-    several times cheaper than two generic calls.
-    """
-
-    def __init__(self, surrogate):
-        coef = np.asarray(surrogate.coefficients, float)
-        n = surrogate.n_variables
-        active = np.flatnonzero(np.any(coef != 0, axis=0))
-        powers = [tuple(surrogate.terms[a].powers) for a in active]
-        table: dict[tuple[int, ...], int] = {}
-
-        def slot(p):
-            return table.setdefault(p, len(table))
-
-        rhs_w = []  # (target i, slot, weight)
-        jac_w = []  # (target i, wrt k, slot, weight)
-        for col, a in enumerate(active):
-            p = powers[col]
-            s_ = slot(p)
-            for i in range(n):
-                if coef[i, a] != 0:
-                    rhs_w.append((i, s_, coef[i, a]))
-            for k, pk in enumerate(p):
-                if pk == 0:
-                    continue
-                d = tuple(q - 1 if j == k else q for j, q in enumerate(p))
-                sd = slot(d)
-                for i in range(n):
-                    if coef[i, a] != 0:
-                        jac_w.append((i, k, sd, coef[i, a] * pk))
-        self.exponents = np.array(list(table), dtype=float).reshape(len(table), n)
-        self.rhs_matrix = np.zeros((len(table), n))
-        for i, s_, w in rhs_w:
-            self.rhs_matrix[s_, i] += w
-        self.jac_tensor = np.zeros((len(table), n * n))
-        for i, k, s_, w in jac_w:
-            self.jac_tensor[s_, i * n + k] += w
-        self.n = n
-
-    @staticmethod
-    def usable(surrogate) -> bool:
-        return all(t.kind == "monomial" for t in getattr(surrogate, "terms", ())) and bool(
-            getattr(surrogate, "terms", ())
-        )
-
-    def _monomials(self, x: np.ndarray) -> np.ndarray:
-        return np.prod(x[:, None, :] ** self.exponents[None, :, :], axis=2)
-
-    def both(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        feats = self._monomials(x)
-        return feats @ self.rhs_matrix, (feats @ self.jac_tensor).reshape(-1, self.n, self.n)
-
-    def rhs(self, x: np.ndarray) -> np.ndarray:
-        return self._monomials(x) @ self.rhs_matrix
+        program = kernels.build_program(surrogate.term_tables(), surrogate.n_variables)
+        return lambda states: kernels.evaluate(program, states)
+    return surrogate.rhs
 
 
 def _check(initial_states, time, transient, renormalise_every, n):
@@ -200,26 +151,20 @@ def lyapunov_spectrum(
     n_steps = round(time / h)
     log_sum = np.zeros((m, k))
     alive = np.ones(m, bool)
-    if _PolynomialField.usable(surrogate):
-        field_both = _PolynomialField(surrogate).both
-    else:
+    rhs = _field(surrogate)
 
-        def field_both(states):
-            return surrogate.rhs(states), surrogate.jacobian(states)
-
-    def tangent_rhs(states, vectors):
-        fx, jx = field_both(states)
-        return fx, jx @ vectors
+    def augmented(z):
+        # the state and its tangent vectors, packed as one array (m, n + n k)
+        states = z[:, :n]
+        fx = rhs(states)
+        jq = surrogate.jacobian(states) @ z[:, n:].reshape(m, n, k)
+        return np.concatenate([fx, jq.reshape(m, n * k)], axis=1)
 
     total = n_transient + n_steps
     for i in range(1, total + 1):
         # classical RK4 on the augmented system (state, tangent vectors)
-        k1x, k1q = tangent_rhs(x, q)
-        k2x, k2q = tangent_rhs(x + 0.5 * h * k1x, q + 0.5 * h * k1q)
-        k3x, k3q = tangent_rhs(x + 0.5 * h * k2x, q + 0.5 * h * k2q)
-        k4x, k4q = tangent_rhs(x + h * k3x, q + h * k3q)
-        x = x + h / 6.0 * (k1x + 2 * k2x + 2 * k3x + k4x)
-        q = q + h / 6.0 * (k1q + 2 * k2q + 2 * k3q + k4q)
+        z = rk4_step(augmented, np.concatenate([x, q.reshape(m, n * k)], axis=1), h)
+        x, q = z[:, :n], z[:, n:].reshape(m, n, k)
         if i % renormalise_every == 0 or i == n_transient or i == total:
             bad = ~(np.all(np.isfinite(x), axis=1) & np.all(np.isfinite(q), axis=(1, 2)))
             if np.any(bad):
@@ -314,7 +259,7 @@ def largest_lyapunov(
     n = surrogate.n_variables
     x = _check(initial_states, time, transient, renormalise_every, n)
     m = x.shape[0]
-    f = _PolynomialField(surrogate).rhs if _PolynomialField.usable(surrogate) else surrogate.rhs
+    f = _field(surrogate)
     if step is None:
         try:
             h = choose_substep(surrogate, x, time, safety=_STEP_SAFETY)
@@ -335,11 +280,7 @@ def largest_lyapunov(
     alive = np.ones(m, bool)
     total = n_transient + n_steps
     for i in range(1, total + 1):
-        k1 = f(both)
-        k2 = f(both + 0.5 * h * k1)
-        k3 = f(both + 0.5 * h * k2)
-        k4 = f(both + h * k3)
-        both = both + h / 6.0 * (k1 + 2 * k2 + 2 * k3 + k4)
+        both = rk4_step(f, both, h)
         if i % renormalise_every == 0 or i == n_transient or i == total:
             xs, ys = both[:m], both[m:]
             diff = ys - xs

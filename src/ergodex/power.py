@@ -129,8 +129,8 @@ def detectable_changes(
     mean = ref_pieces.reshape(-1, n_vars).mean(axis=0)
 
     def rejected(change: Callable[[np.ndarray], np.ndarray]) -> bool:
-        changed = np.stack([change(ref_pieces[list(groups[g])]).reshape(-1, n_vars) for g in left])
-        s_stats = _PieceStats(changed, settings)
+        # every change acts on each piece alone: change the pieces once, then pool them
+        s_stats = _PieceStats(change(ref_pieces), settings, [groups[g] for g in left])
         pairs = (np.arange(left.size), right)
         for s, floor in floors.items():
             value = np.nanmean(_pair_distances(s, s_stats, group_stats, pairs), axis=0)

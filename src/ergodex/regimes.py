@@ -341,12 +341,23 @@ class RegimeSet:
     ----------
     regimes : sequence of Regime
         The first regime that contains a state gives its label (its position in the list).
+    hold : bool, default False
+        Core regimes: a state in no regime keeps the label of the regime last visited (within a
+        run; ``"none"`` only before the first visit), so a visit lasts from entering one regime
+        until entering another. For a one-dimensional diffusion with cores ``x ≤ −a`` and
+        ``x ≥ a`` the mean residence time is then the mean first-passage time from ``−a`` to
+        ``a`` (milestoning: C. Schütte, F. Noé, J. Lu, M. Sarich and E. Vanden-Eijnden, J. Chem.
+        Phys. 134, 204105, 2011). Without ``hold`` every crossing of a regime's edge ends a
+        visit, and residence times count the flicker at the edges.
     """
 
     FORMAT = "ergodex-regimes/1"
 
-    def __init__(self, regimes: Sequence[Regime]):
+    def __init__(self, regimes: Sequence[Regime], *, hold: bool = False):
         self.regimes = tuple(regimes)
+        if not isinstance(hold, (bool, np.bool_)):
+            raise SettingsError(f"regimes: 'hold' must be true or false; got {hold!r}")
+        self.hold = bool(hold)
         if not self.regimes:
             raise SettingsError("a regime set needs at least one regime")
         names = [r.name for r in self.regimes]
@@ -381,11 +392,15 @@ class RegimeSet:
             raise SettingsError(
                 f"{source}: expected a table with key 'regime'; got {type(d).__name__}"
             )
-        unknown = set(d) - {"regime", "format"}
+        unknown = set(d) - {"regime", "format", "hold"}
         if unknown:
             raise SettingsError(
-                f"{source}: unknown top-level key(s) {sorted(unknown)}; expected 'regime'"
+                f"{source}: unknown top-level key(s) {sorted(unknown)}; expected 'regime' "
+                f"(and optionally 'hold')"
             )
+        hold = d.get("hold", False)
+        if not isinstance(hold, bool):
+            raise SettingsError(f"{source}: key 'hold' must be true or false; got {hold!r}")
         entries = d.get("regime")
         if not isinstance(entries, list) or not entries:
             raise SettingsError(f"{source}: key 'regime' must be a non-empty list of regimes")
@@ -413,7 +428,7 @@ class RegimeSet:
                     f"allowed: {sorted(allowed)}"
                 )
             out.append(cls_.from_dict(e, where))
-        return cls(out)
+        return cls(out, hold=hold)
 
     @classmethod
     def from_toml(cls, path) -> RegimeSet:
@@ -427,14 +442,17 @@ class RegimeSet:
         return cls.from_dict(d, source=str(path))
 
     def to_dict(self) -> dict:
-        return {"format": self.FORMAT, "regime": [r.to_dict() for r in self.regimes]}
+        out: dict = {"format": self.FORMAT, "regime": [r.to_dict() for r in self.regimes]}
+        if self.hold:  # only when set, so that sets without it keep their dictionaries
+            out["hold"] = True
+        return out
 
     def fit(self, states, variables: Sequence[str]) -> RegimeSet:
         """A new set with every ``kmeans`` request replaced by clusters learned from ``states``."""
         out: list[Regime] = []
         for r in self.regimes:
             out.extend(r.fit(states, variables) if isinstance(r, KMeansRule) else [r])
-        return RegimeSet(out)
+        return RegimeSet(out, hold=self.hold)
 
     # -- labelling -------------------------------------------------------------------------
     def classify(self, states, variables: Sequence[str]) -> np.ndarray:
@@ -474,6 +492,12 @@ class RegimeSet:
             hit &= unset
             labels[hit] = i
             unset &= ~hit
+        if self.hold:
+            # carry the last regime forward over finite states in none; a non-finite row
+            # (and the start of the run) resets to none
+            marks = np.where((labels >= 0) | ~finite, np.arange(labels.size), -1)
+            last = np.maximum.accumulate(marks)
+            labels = np.where(last >= 0, labels[np.maximum(last, 0)], NONE_LABEL)
         return labels
 
 

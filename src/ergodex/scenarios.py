@@ -49,6 +49,7 @@ import numpy as np
 from scipy.linalg import expm, solve_continuous_lyapunov
 
 from ergodex.exceptions import SettingsError
+from ergodex.rk4 import rk4_step
 from ergodex.series import Series
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -177,100 +178,20 @@ def rk4_trajectories(
     h = dt / substeps
     for k in range(1, n_out):
         for _ in range(substeps):
-            k1 = rhs(x)
-            k2 = rhs(x + 0.5 * h * k1)
-            k3 = rhs(x + 0.5 * h * k2)
-            k4 = rhs(x + h * k3)
-            x = x + (h / 6.0) * (k1 + 2.0 * k2 + 2.0 * k3 + k4)
+            x = rk4_step(rhs, x, h)
         out[:, k] = x
     return out
 
 
-_compiled: dict[str, Any] = {}
-
-
 def _kernels() -> dict[str, Any]:
-    """Compiled RK4 loops for Lorenz-63 and Lorenz-96 and the Euler-Maruyama double well.
+    """The compiled generators (:mod:`ergodex.scenario_kernels`; imports numba when first used)."""
+    from ergodex import scenario_kernels as sk
 
-    The same arithmetic as :func:`rk4_trajectories` with :func:`lorenz63_rhs` /
-    :func:`lorenz96_rhs`, without Python overhead per step (numba, cached on disk).
-    """
-    if _compiled:
-        return _compiled
-    import numba
-
-    # Each kernel is self-contained (no calls to other jitted closures) so that numba can cache
-    # it on disk.
-    @numba.njit(cache=True)
-    def rk4_l63(x0, h, n_out, substeps, sigma, rho, beta, out):  # pragma: no cover - compiled
-        for m in range(x0.shape[0]):
-            x, y, z = x0[m, 0], x0[m, 1], x0[m, 2]
-            out[m, 0, 0], out[m, 0, 1], out[m, 0, 2] = x, y, z
-            for k in range(1, n_out):
-                for _ in range(substeps):
-                    a1 = sigma * (y - x)
-                    b1 = x * (rho - z) - y
-                    c1 = x * y - beta * z
-                    xs, ys, zs = x + 0.5 * h * a1, y + 0.5 * h * b1, z + 0.5 * h * c1
-                    a2 = sigma * (ys - xs)
-                    b2 = xs * (rho - zs) - ys
-                    c2 = xs * ys - beta * zs
-                    xs, ys, zs = x + 0.5 * h * a2, y + 0.5 * h * b2, z + 0.5 * h * c2
-                    a3 = sigma * (ys - xs)
-                    b3 = xs * (rho - zs) - ys
-                    c3 = xs * ys - beta * zs
-                    xs, ys, zs = x + h * a3, y + h * b3, z + h * c3
-                    a4 = sigma * (ys - xs)
-                    b4 = xs * (rho - zs) - ys
-                    c4 = xs * ys - beta * zs
-                    x = x + (h / 6.0) * (a1 + 2.0 * a2 + 2.0 * a3 + a4)
-                    y = y + (h / 6.0) * (b1 + 2.0 * b2 + 2.0 * b3 + b4)
-                    z = z + (h / 6.0) * (c1 + 2.0 * c2 + 2.0 * c3 + c4)
-                out[m, k, 0], out[m, k, 1], out[m, k, 2] = x, y, z
-
-    @numba.njit(cache=True)
-    def rk4_l96(x0, h, n_out, substeps, forcing, out):  # pragma: no cover - compiled
-        n = x0.shape[1]
-        ks = np.empty((4, n))
-        tmp = np.empty(n)
-        for m in range(x0.shape[0]):
-            x = x0[m].copy()
-            out[m, 0] = x
-            for k in range(1, n_out):
-                for _ in range(substeps):
-                    for stage in range(4):
-                        if stage == 0:
-                            for i in range(n):
-                                tmp[i] = x[i]
-                        else:
-                            w = h if stage == 3 else 0.5 * h
-                            for i in range(n):
-                                tmp[i] = x[i] + w * ks[stage - 1, i]
-                        for i in range(n):
-                            ks[stage, i] = (
-                                (tmp[(i + 1) % n] - tmp[(i - 2) % n]) * tmp[(i - 1) % n]
-                                - tmp[i]
-                                + forcing
-                            )
-                    for i in range(n):
-                        x[i] = x[i] + (h / 6.0) * (
-                            ks[0, i] + 2.0 * ks[1, i] + 2.0 * ks[2, i] + ks[3, i]
-                        )
-                out[m, k] = x
-
-    @numba.njit(cache=True)
-    def em_double_well(x, h, amp, dw, out, first):  # pragma: no cover - compiled
-        # dw: (n_chunk, substeps, n_runs) standard normals; out rows first.. get the samples
-        for k in range(dw.shape[0]):
-            for j in range(dw.shape[1]):
-                for m in range(x.shape[0]):
-                    xm = x[m]
-                    x[m] = xm + (xm - xm * xm * xm) * h + amp * dw[k, j, m]
-            if first + k >= 0:
-                out[:, first + k] = x
-
-    _compiled.update(l63=rk4_l63, l96=rk4_l96, double_well=em_double_well)
-    return _compiled
+    return {
+        "l63": sk.lorenz63_rk4,
+        "l96": sk.lorenz96_rk4,
+        "double_well": sk.double_well_euler_maruyama,
+    }
 
 
 def lorenz63_trajectories(

@@ -24,7 +24,7 @@ import sys
 from collections.abc import Sequence
 
 from ergodex import __version__
-from ergodex.exceptions import ErgodexError
+from ergodex.exceptions import ErgodexError, one_line
 
 #: Command modules under ``ergodex.cli``, in the order their commands appear in ``--help``.
 COMMAND_MODULES: tuple[str, ...] = (
@@ -104,7 +104,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         # one line, whatever the library wrote, with its advice in command-line form
         code = int(getattr(exc, "exit_code", EXIT_BAD_INPUT))
         label = "model failed" if code == EXIT_FAILED_CHECK else "error"
-        message = " ".join(exc.for_command_line().split())
+        message = one_line(exc.for_command_line())
         print(f"ergodex: {label}: {message}", file=sys.stderr)
         return code
     except KeyboardInterrupt:
@@ -122,22 +122,18 @@ def main(argv: Sequence[str] | None = None) -> int:
         if debug:
             raise
         where = f"{exc.filename}: " if getattr(exc, "filename", None) else ""
-        print(f"ergodex: error: {where}{exc.strerror or _one_line(exc)}", file=sys.stderr)
+        print(f"ergodex: error: {where}{exc.strerror or one_line(exc)}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except Exception as exc:  # the last line of defence of the command line
         if debug:
             raise
         print(
-            f"ergodex: internal error: {type(exc).__name__}: {_one_line(exc)[:300]} "
+            # the text only (no class-name fallback): the class is named just before it
+            f"ergodex: internal error: {type(exc).__name__}: {one_line(str(exc))[:300]} "
             "(a bug in ergodex; rerun with --debug or ERGODEX_DEBUG=1 for the traceback)",
             file=sys.stderr,
         )
         return EXIT_BAD_INPUT
-
-
-def _one_line(exc: BaseException) -> str:
-    """The message of ``exc`` on one line, whatever the library wrote."""
-    return " ".join(str(exc).split())
 
 
 def entry_point() -> None:  # pragma: no cover - thin wrapper for the console script

@@ -11,6 +11,7 @@ A check settings file::
     statistics = ["histogram", "autocorrelation", "occupancy"]
     min_pieces = 8
     regimes = "regimes.toml"        # a regimes file, relative to this file (or a [regimes] table)
+    persistence = true              # with regimes, residence and transition rows too
 
     [tolerances]
     spectrum = 3.0
@@ -24,7 +25,7 @@ from typing import Any
 
 from ergodex.exceptions import SettingsError
 
-#: CheckSpec field -> command-line option (the regimes option reads a file).
+#: CheckSpec field -> command-line option (the regimes option reads a file or asks for k-means).
 OPTIONS: dict[str, str] = {
     "members": "--members",
     "length": "--length",
@@ -44,6 +45,7 @@ OPTIONS: dict[str, str] = {
     "false_reject_rate": "--false-reject-rate",
     "null_replicates": "--null-replicates",
     "threshold_floor": "--threshold-floor",
+    "persistence": "--no-persistence",
 }
 
 
@@ -150,13 +152,25 @@ def add_check_options(
         type=float,
         default=None,
         metavar="T",
-        help="longest autocorrelation lag (default: 3 decorrelation times)",
+        help="longest autocorrelation lag (default: 3 decorrelation times or one dominant period)",
     )
     group.add_argument(
         "--regimes",
-        metavar="FILE",
+        metavar="FILE|kmeans:K[:SEED]",
         default=None,
-        help="regime definitions (TOML) for occupancy/residence/transition rows",
+        help="regimes for the occupancy, residence-time and transition rows: a regime file "
+        "(TOML), or kmeans:K for K regimes learned by k-means on the reference data only "
+        "(named kmeans0.., seed 0 unless :SEED); residence and transitions are scored too "
+        "unless --no-persistence",
+    )
+    group.add_argument(
+        "--no-persistence",
+        dest="persistence",
+        action="store_const",
+        const=False,
+        default=None,
+        help="with regimes, score only the rows --statistics names (default: residence times "
+        "and transitions too)",
     )
     group.add_argument(
         "--tolerance",
@@ -222,7 +236,8 @@ def add_check_options(
         type=int,
         default=None,
         metavar="N",
-        help="Welch segment length in samples (default: min(256, piece/8))",
+        help="Welch segment length in samples (default: min(256, piece/8), raised to cover "
+        "4 dominant periods up to piece/8)",
     )
     group.add_argument(
         "--max-blowup-fraction",
@@ -272,13 +287,32 @@ def read_check_config(path: str | Path) -> dict[str, Any]:
     return document
 
 
+def regimes_option(text: str):
+    """The RegimeSet ``--regimes`` names: ``kmeans:K[:SEED]`` (K k-means regimes, fitted on the
+    reference when the check runs), else a regime file."""
+    from ergodex.regimes import RegimeSet
+
+    if not text.startswith("kmeans:"):
+        return RegimeSet.from_toml(text)
+    parts = text.split(":")[1:]
+    try:
+        if len(parts) not in (1, 2):
+            raise ValueError
+        clusters, seed = int(parts[0]), int(parts[1]) if len(parts) == 2 else 0
+    except ValueError:
+        raise SettingsError(
+            f"--regimes: expected kmeans:K or kmeans:K:SEED with whole numbers; got {text!r}"
+        ) from None
+    entry = {"name": "kmeans", "kind": "kmeans", "clusters": clusters, "seed": seed}
+    return RegimeSet.from_dict({"regime": [entry]}, source=f"--regimes {text}")
+
+
 def check_overrides(args: argparse.Namespace) -> tuple[dict[str, Any], dict[str, str]]:
     """The check settings the command line asks for, and where each came from.
 
     Returns ``(settings, origin)``: CheckSpec keys with JSON-shaped values (regimes as a
     table), and for each key the option or file that set it (for error messages).
     """
-    from ergodex.regimes import RegimeSet
 
     settings: dict[str, Any] = {}
     origin: dict[str, str] = {}
@@ -291,7 +325,7 @@ def check_overrides(args: argparse.Namespace) -> tuple[dict[str, Any], dict[str,
         if value is None:
             continue
         if key == "regimes":
-            value = RegimeSet.from_toml(value).to_dict()
+            value = regimes_option(value).to_dict()
         settings[key], origin[key] = value, option
     return settings, origin
 

@@ -308,6 +308,18 @@ def add_limit_options(parser: argparse.ArgumentParser, *, time_limit: float | No
     )
 
 
+def add_workers_option(parser: argparse.ArgumentParser, *, scope: str = "") -> None:
+    """Add ``--workers N``: threads for a check's statistics (same numbers for any N)."""
+    parser.add_argument(
+        "--workers",
+        type=int,
+        default=None,
+        metavar="N",
+        help=f"{scope}threads for the check's statistics (default: every core; the numbers "
+        "are the same for any N)",
+    )
+
+
 def check_limit_options(args: argparse.Namespace) -> None:
     """Refuse a non-positive or non-finite ``--time-limit`` and a malformed ``--max-memory``."""
     import math
@@ -320,3 +332,6 @@ def check_limit_options(args: argparse.Namespace) -> None:
         raise SettingsError(f"--time-limit must be a positive number of seconds, got {limit}")
     if getattr(args, "max_memory", None) is not None:
         parse_size(args.max_memory, "--max-memory")
+    workers = getattr(args, "workers", None)
+    if workers is not None and workers < 1:
+        raise SettingsError(f"--workers must be a positive number of threads, got {workers}")

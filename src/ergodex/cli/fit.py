@@ -128,6 +128,9 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         help="--select or the automatic choice: local worker processes (default 1: in this "
         "process; -1: every CPU)",
     )
+    from ergodex.cli.common import add_workers_option
+
+    add_workers_option(parser, scope="--select: ")
     parser.add_argument(
         "--json",
         metavar="OUT",
@@ -173,6 +176,10 @@ def run(args: argparse.Namespace) -> int:
         raise SettingsError("--reference only applies with --select")
     if not (args.select or may_choose) and (args.scheduler or args.n_jobs is not None):
         raise SettingsError("--scheduler and --n-jobs only apply with --select")
+    if args.workers is not None and not args.select:
+        raise SettingsError("--workers only applies with --select")
+    if args.workers is not None and args.workers < 1:
+        raise SettingsError(f"--workers must be a positive number of threads, got {args.workers}")
     given = [OPTIONS[k] for k in OPTIONS if getattr(args, k, None) is not None]
     if not (args.select or may_choose) and (given or args.check_config):
         raise SettingsError(f"{(given or ['--check-config'])[0]} only applies with --select")
@@ -277,6 +284,7 @@ def run(args: argparse.Namespace) -> int:
         reference=reference,
         scheduler=args.scheduler,
         n_jobs=args.n_jobs,
+        workers=args.workers,
         progress=show_progress(args),
     )
     if not args.quiet:

@@ -96,9 +96,17 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
 
     add_field_check_options(parser)
     add_check_options(parser)
-    from ergodex.cli.common import add_limit_options
+    from ergodex.cli.common import add_limit_options, add_workers_option
 
     add_limit_options(parser, time_limit=DEFAULT_TIME_LIMIT)
+    add_workers_option(parser)
+    parser.add_argument(
+        "--scheduler",
+        metavar="ADDRESS",
+        default=None,
+        help="integrate the ensemble members on a Dask cluster (e.g. tcp://127.0.0.1:8786); "
+        "a deterministic model gives the same scorecard as on this machine",
+    )
     parser.set_defaults(func=run)
     return parser
 
@@ -175,6 +183,8 @@ def run(args: argparse.Namespace) -> int:
             max_memory=args.max_memory,
             progress=show_progress(args),
             evidence=bool(evidence or report),
+            workers=args.workers,
+            scheduler=args.scheduler,
         )
     else:
         from ergodex.cli.fields import check_field_arg

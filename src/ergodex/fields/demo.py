@@ -41,6 +41,7 @@ def run_basin_demo(
     from ergodex.registry import Registry
     from ergodex.report import render_report
     from ergodex.scenarios import SAMPLE_SEED
+    from ergodex.setting_names import FIT_SETTINGS_FORMAT
     from ergodex.validation import CheckSpec
 
     seed = SAMPLE_SEED if seed is None else int(seed)
@@ -90,7 +91,13 @@ def run_basin_demo(
             scorecard=result.scorecard,
             report_html=html,
             evidence_path=evidence,
-            fit_settings={"method": "linear-inverse", "settings": settings, "reduction": summary},
+            # What retrain refits with: a fit-settings document as `fit --config` reads it. The
+            # reduction is not a fit setting; the model file carries it (its transform).
+            fit_settings={
+                "format": FIT_SETTINGS_FORMAT,
+                "method": "linear-inverse",
+                "settings": settings,
+            },
             note=f"ergodex demo (basin), seed {seed}",
             datasets={
                 "fit": fit_modes.fingerprint(),

@@ -23,7 +23,7 @@ from typing import Any
 
 import numpy as np
 
-from ergodex.exceptions import DataError, require
+from ergodex.exceptions import DataError, one_line, require
 from ergodex.fields.calendar import Clock, clock_from_times, decode_times
 
 __all__ = ["MEMBER_DIMS", "Box", "Field", "parse_box", "read_field"]
@@ -171,10 +171,6 @@ class Field:
 
 
 # --- helpers ------------------------------------------------------------------------------------
-def _one_line(exc: BaseException) -> str:
-    return " ".join(str(exc).split()) or type(exc).__name__
-
-
 def _find_dim(da, names: Sequence[str], standard: str, units: Sequence[str]) -> str | None:
     for dim in da.dims:
         coord = da.coords.get(dim)
@@ -222,7 +218,7 @@ def _open_part(xr, path: Path, variable: str, chunks) -> _Part:
             path, decode_times=False, mask_and_scale=True, chunks=chunks if chunks else None
         )
     except Exception as exc:  # noqa: BLE001 - each backend raises its own type
-        raise DataError(f"{where}: cannot be read as NetCDF ({_one_line(exc)})") from None
+        raise DataError(f"{where}: cannot be read as NetCDF ({one_line(exc)})") from None
     if variable not in ds.data_vars:
         raise DataError(
             f"{where}: no variable {variable!r}; the file holds {sorted(map(str, ds.data_vars))}"

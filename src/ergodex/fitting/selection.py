@@ -209,6 +209,7 @@ def _evaluate(
     reference,
     spec_dict: dict,
     fit_progress: Any = False,
+    workers: int | None = None,
 ) -> dict:
     """Fit, check and summarise one candidate (runs in a worker; returns plain data)."""
     from ergodex.validation import CheckSpec, check
@@ -235,7 +236,7 @@ def _evaluate(
     }
     try:
         scorecard = check(
-            surrogate, reference, CheckSpec.from_dict(spec_dict), evidence=False
+            surrogate, reference, CheckSpec.from_dict(spec_dict), evidence=False, workers=workers
         ).scorecard
     except ErgodexError as exc:
         out.update(verdict="error", reasons=[f"check failed: {exc}"])
@@ -276,6 +277,7 @@ def select(
     prune_below: Sequence[float] | None = None,
     scheduler: Any = None,
     n_jobs: int | None = None,
+    workers: int | None = None,
     progress: Any = None,
 ) -> SelectionResult:
     """Fit and check every candidate; choose the sparsest whose statistics pass.
@@ -302,6 +304,9 @@ def select(
         pysindy and compiling the integrator's kernels (seconds to tens of seconds on a busy
         machine), so processes only pay off when each candidate takes longer than that; -1 uses
         every CPU.
+    workers : int, optional
+        Threads for each candidate's check statistics (:func:`ergodex.validation.check`);
+        default every core in this process, one thread in each worker process or on a cluster.
     progress : bool or callable(done, total), optional
         Progress over the candidates (see :mod:`ergodex.progress`); default: a bar only when
         standard error is a terminal.
@@ -351,7 +356,9 @@ def select(
         series.n_runs,
         reference.n_runs,
     )
-    results, backend = _run(jobs, series, reference, spec_dict, scheduler, n_jobs, show)
+    results, backend = _run(
+        jobs, series, reference, spec_dict, scheduler, n_jobs, show, workers=workers
+    )
 
     by_index = {r["index"]: r for r in results}
     out = []
@@ -406,7 +413,9 @@ def select(
     )
 
 
-def _run(jobs, series, reference, spec_dict, scheduler, n_jobs, show) -> tuple[list[dict], str]:
+def _run(
+    jobs, series, reference, spec_dict, scheduler, n_jobs, show, *, workers=None
+) -> tuple[list[dict], str]:
     import joblib
 
     if n_jobs is None:
@@ -418,8 +427,10 @@ def _run(jobs, series, reference, spec_dict, scheduler, n_jobs, show) -> tuple[l
     # in this process each fit shows its own bar under the candidates' bar (a callable given as
     # progress hears of the candidates only)
     fit_bar = here and show is True
+    # processes and cluster workers already share the cores: one thread each unless told
+    threads = workers if workers is not None or here else 1
     tasks = [
-        joblib.delayed(_evaluate)(k, m, s, series, reference, spec_dict, fit_bar)
+        joblib.delayed(_evaluate)(k, m, s, series, reference, spec_dict, fit_bar, threads)
         for k, m, s in jobs
     ]
     if scheduler is not None:
@@ -438,38 +449,15 @@ def _run(jobs, series, reference, spec_dict, scheduler, n_jobs, show) -> tuple[l
 def _run_dask(tasks, scheduler, show) -> list[dict]:
     import joblib
 
-    try:
-        from dask.distributed import Client
-    except ImportError:
-        from ergodex.exceptions import OptionalDependencyError
+    from ergodex.cluster import open_client
 
-        raise OptionalDependencyError(
-            "running a sweep on a cluster needs the optional package 'dask[distributed]'; "
-            "install it with pip install 'ergodex[dask]'"
-        ) from None
-    own = isinstance(scheduler, str)
-    if own:
-        try:
-            client = Client(scheduler, timeout=20)
-        except (OSError, TimeoutError) as exc:
-            raise SettingsError(
-                f"cannot reach the Dask scheduler at {scheduler!r}: {exc}"
-            ) from None
-    elif isinstance(scheduler, Client):
-        client = scheduler
-    else:
-        raise SettingsError(
-            "scheduler must be an address such as 'tcp://127.0.0.1:8786' or a "
-            f"dask.distributed.Client; got {type(scheduler).__name__}"
+    with (
+        open_client(scheduler, what="running a sweep on a cluster") as client,
+        joblib.parallel_config(backend="dask", client=client),
+    ):
+        return _collect(
+            joblib.Parallel(n_jobs=-1, return_as="generator_unordered")(tasks), len(tasks), show
         )
-    try:
-        with joblib.parallel_config(backend="dask", client=client):
-            return _collect(
-                joblib.Parallel(n_jobs=-1, return_as="generator_unordered")(tasks), len(tasks), show
-            )
-    finally:
-        if own:
-            client.close()
 
 
 def _collect(iterator, total: int, show: Any) -> list[dict]:

@@ -18,10 +18,10 @@ from typing import Any, cast
 
 import numpy as np
 
-from ergodex.exceptions import DataError
+from ergodex.exceptions import DataError, one_line
 from ergodex.limits import MAX_NESTING, MAX_TEXT_FILE_SIZE, check_regular_file, nesting_depth
 from ergodex.readers.formats import _FILE_READERS, _reader_kwargs
-from ergodex.readers.shared import DEFAULT_TIME_TOLERANCE, _DtMismatch, _one_line
+from ergodex.readers.shared import DEFAULT_TIME_TOLERANCE, _DtMismatch
 from ergodex.series import Series, check_name, split_runs
 
 _MANIFEST = "dataset.toml"
@@ -109,7 +109,7 @@ def read_dataset(
     except UnicodeDecodeError:
         raise _manifest_error(manifest, "is not UTF-8 text") from None
     except tomllib.TOMLDecodeError as exc:
-        raise _manifest_error(manifest, f"is not valid TOML ({_one_line(exc)})") from None
+        raise _manifest_error(manifest, f"is not valid TOML ({one_line(exc)})") from None
     except RecursionError:
         raise _manifest_error(manifest, "nests arrays or tables too deeply") from None
     if nesting_depth(doc) > MAX_NESTING:

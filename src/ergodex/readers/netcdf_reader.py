@@ -22,7 +22,7 @@ from typing import Any
 
 import numpy as np
 
-from ergodex.exceptions import DataError, ErgodexError, require
+from ergodex.exceptions import DataError, ErgodexError, one_line, require
 from ergodex.readers.shared import (
     DEFAULT_TIME_TOLERANCE,
     DT_HINTS,
@@ -32,7 +32,6 @@ from ergodex.readers.shared import (
     _check_time,
     _DtMismatch,
     _finish,
-    _one_line,
     _Run,
 )
 from ergodex.series import Series, check_name
@@ -230,7 +229,7 @@ def read_netcdf(
     except ErgodexError:
         raise
     except Exception as exc:  # noqa: BLE001 - every backend raises its own error type
-        raise DataError(f"{source}: cannot be read as NetCDF ({_one_line(exc)})") from None
+        raise DataError(f"{source}: cannot be read as NetCDF ({one_line(exc)})") from None
 
     member = member_dimension(ds, source)
     names, unit_list, blocks = _netcdf_columns(ds, source, member)

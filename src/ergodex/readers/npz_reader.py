@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ergodex.exceptions import DataError, ErgodexError
+from ergodex.exceptions import DataError, ErgodexError, one_line
 from ergodex.readers.shared import (
     DT_HINTS,
     _check_dt_argument,
@@ -25,7 +25,6 @@ from ergodex.readers.shared import (
     _check_min_samples,
     _DtMismatch,
     _finish,
-    _one_line,
     _Run,
 )
 from ergodex.series import Series, check_name
@@ -94,9 +93,9 @@ def read_npz(
     except ErgodexError:
         raise
     except (OSError, ValueError, EOFError, zipfile.BadZipFile, KeyError, RuntimeError) as exc:
-        raise DataError(f"{source}: cannot be read as an NPZ archive ({_one_line(exc)})") from None
+        raise DataError(f"{source}: cannot be read as an NPZ archive ({one_line(exc)})") from None
     except Exception as exc:  # noqa: BLE001 - zlib.error and friends from a corrupt archive
-        raise DataError(f"{source}: cannot be read as an NPZ archive ({_one_line(exc)})") from None
+        raise DataError(f"{source}: cannot be read as an NPZ archive ({one_line(exc)})") from None
 
     for key, item in data.items():
         if not isinstance(item, np.ndarray):

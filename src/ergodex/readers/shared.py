@@ -209,7 +209,3 @@ def _check_time(t, bounds, tname, dt_arg, tol, source, where) -> float:
             own=dt_time,
         )
     return dt_time
-
-
-def _one_line(exc: BaseException) -> str:
-    return " ".join(str(exc).split()) or type(exc).__name__

@@ -66,7 +66,12 @@ from starlette.concurrency import run_in_threadpool  # noqa: E402
 from starlette.exceptions import HTTPException as StarletteHTTPException  # noqa: E402
 
 from ergodex import CAUTION, __version__  # noqa: E402
-from ergodex.exceptions import ErgodexError, IntegrityError, RegistryError  # noqa: E402
+from ergodex.exceptions import (  # noqa: E402
+    ErgodexError,
+    IntegrityError,
+    RegistryError,
+    one_line,
+)
 from ergodex.service import schemas  # noqa: E402
 from ergodex.service.auth import (  # noqa: E402
     MESSAGES,
@@ -76,7 +81,7 @@ from ergodex.service.auth import (  # noqa: E402
     owner_key,
 )
 from ergodex.service.datasets import store_upload  # noqa: E402
-from ergodex.service.errors import HTTP_CODES, ApiError, describe_error, one_line  # noqa: E402
+from ergodex.service.errors import HTTP_CODES, ApiError, describe_error  # noqa: E402
 from ergodex.service.jobs import (  # noqa: E402
     JOB_STATES,
     RUNNING,

@@ -23,7 +23,8 @@ import zipfile
 from pathlib import Path
 from typing import Any
 
-from ergodex.service.errors import ApiError, one_line
+from ergodex.exceptions import one_line
+from ergodex.service.errors import ApiError
 from ergodex.service.limits import declared_inflated_size
 from ergodex.service.reader import read_isolated
 from ergodex.service.settings import ServiceSettings

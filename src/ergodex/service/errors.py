@@ -15,6 +15,7 @@ from ergodex.exceptions import (
     OptionalDependencyError,
     RegistryError,
     SettingsError,
+    one_line,
 )
 
 #: Library error class → stable code, most specific first (IntegrityError is a RegistryError).
@@ -28,11 +29,6 @@ _CODES: tuple[tuple[type[BaseException], str], ...] = (
     (OptionalDependencyError, "missing-dependency"),
     (ErgodexError, "ergodex-error"),
 )
-
-
-def one_line(text: str) -> str:
-    """Collapse whitespace so that a message stays on one line."""
-    return " ".join(str(text).split())
 
 
 def describe_error(exc: BaseException) -> tuple[str, str]:

@@ -17,7 +17,8 @@ import sys
 from pathlib import Path
 from typing import Any
 
-from ergodex.service.errors import ApiError, one_line
+from ergodex.exceptions import one_line
+from ergodex.service.errors import ApiError
 from ergodex.service.limits import apply_memory_limit, is_memory_error
 
 log = logging.getLogger(__name__)

@@ -97,6 +97,9 @@ class CheckOptions(_Strict):
     regimes: dict[str, Any] | None = Field(
         None, description="regime definitions as in a regimes file, as a JSON object"
     )
+    persistence: bool | None = Field(
+        None, description="with regimes, score residence times and transitions too (default)"
+    )
 
 
 class FitJobRequest(_Strict):

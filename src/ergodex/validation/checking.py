@@ -8,13 +8,14 @@ from __future__ import annotations
 
 import logging
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
 
 from ergodex import stats
 from ergodex.exceptions import DataError, SettingsError
+from ergodex.group_stats import GroupStatistics, resolve_workers
 from ergodex.timestamps import utc_now
 from ergodex.validation.evidence import _evidence
 from ergodex.validation.pieces import (
@@ -27,7 +28,7 @@ from ergodex.validation.plan import CheckPlan, derive_plan
 from ergodex.validation.result import CheckResult
 from ergodex.validation.scorecard import Scorecard, ScoreRow, _fmt
 from ergodex.validation.spaces import ComparedSpace, compared_space
-from ergodex.validation.spec import CheckSpec
+from ergodex.validation.spec import CheckSpec, distance_units
 from ergodex.validation.threshold import null_threshold
 from ergodex.validation.verdict import (
     _blowup_accounting,
@@ -51,8 +52,16 @@ def check(
     time_limit: float | None = None,
     max_memory: int | str | None = None,
     evidence: bool = True,
+    workers: int | None = None,
+    scheduler: Any = None,
 ) -> CheckResult:
-    """Validate a surrogate against reference data: scorecard plus evidence.
+    """Check a surrogate against reference data; returns a :class:`CheckResult`, the scorecard
+    *and* the evidence behind it.
+
+    Use ``check`` when you want figures or files: ``result.plot_histograms()`` and the other
+    plots, an evidence NPZ or a report. This is what the command ``ergodex validate`` runs. For
+    the verdict alone use :func:`validate` (or ``check(..., evidence=False)``), which skips the
+    arrays and gives the same scorecard.
 
     Parameters
     ----------
@@ -79,10 +88,18 @@ def check(
         tenth to a quarter of a check; with False, ``result.evidence`` is None (the verdict and
         scorecard are the same), and the figures can be recomputed later from the scorecard's
         spec and seed.
+    workers : int, optional
+        Threads for the statistics (default: every core); the numbers are the same for any
+        count (numpy's FFT and sort release the interpreter lock; BLAS is held to one thread).
+    scheduler : str or dask.distributed.Client, optional
+        Integrate the members on a Dask cluster (an address such as ``tcp://host:8786``, or a
+        connected client), see :func:`ergodex.cluster.integrate_scattered`: a deterministic
+        surrogate gives the same scorecard as on this machine.
 
     Returns
     -------
     CheckResult
+        ``.scorecard`` (verdict, table, reasons) and ``.evidence`` (None with ``evidence=False``).
 
     Raises
     ------
@@ -122,6 +139,8 @@ def check(
             time_limit=time_limit,
             max_memory=max_memory,
             evidence=evidence,
+            workers=workers,
+            scheduler=scheduler,
         )
     card = result.scorecard
     settings = card.settings
@@ -152,12 +171,16 @@ def _check(
     time_limit: float | None = None,
     max_memory: int | str | None = None,
     evidence: bool = True,
+    workers: int | None = None,
+    scheduler: Any = None,
 ) -> CheckResult:
     """The check itself, on a Series; ``update(done, total)`` (or None) hears of its progress."""
     spec = _as_spec(spec)
+    threads = resolve_workers(workers)
     space = compared_space(surrogate, reference)
     stacked = space.reference.stacked()
     plan, ref_pieces = derive_plan(spec, space.reference, stacked)
+    plan = replace(plan, pieces=replace(plan.pieces, workers=threads))
     _refuse_oversized(surrogate, spec, plan, max_memory)
 
     # the fourth seed (for the threshold) leaves the first three as they were
@@ -167,7 +190,16 @@ def _check(
         surrogate, spec, space, stacked, initial_states, len(reference.names), rng
     )
     run = _integrate(
-        surrogate, space, plan, starts, stacked, int(seeds[1]), update, time_limit, max_memory
+        surrogate,
+        space,
+        plan,
+        starts,
+        stacked,
+        int(seeds[1]),
+        update,
+        time_limit,
+        max_memory,
+        scheduler,
     )
     alive = ~np.asarray(run.blown_up, bool)
     model = _model_output(run, alive, space, plan, spec.members)
@@ -231,7 +263,7 @@ def _check(
 class _Scored:
     """What scoring the pooled groups gives: rows, member agreement, power and consistency."""
 
-    ref_stats: _PieceStats
+    ref_stats: GroupStatistics
     rows: list[ScoreRow]
     agreement: dict
     power: dict
@@ -261,9 +293,8 @@ def _score(
     ref_groups, floor_index = _reference_groups(
         plan.n_reference_pieces, plan.pool, np.random.default_rng(seed)
     )
-    group_stats = (
-        ref_stats if plan.pool == 1 else _PieceStats(_grouped(ref_pieces, ref_groups), plan.pieces)
-    )
+    # the groups' statistics from the pieces' parts: no group is copied
+    group_stats = ref_stats if plan.pool == 1 else _PieceStats(ref_pieces, plan.pieces, ref_groups)
     settings: dict[str, Any] = {
         "pool": plan.pool,
         "n_reference_groups": len(ref_groups),
@@ -300,10 +331,15 @@ def _score(
         floors,
         plan.pieces,
         spec,
-        plan.decorrelation_time,
+        # the power statement's record-length rule counts integrated autocorrelation times (on
+        # which it was calibrated); an oscillation's length is stated in dominant periods below
+        max(*plan.integrated_times, plan.dt),
         plan.gap,
         tolerance_for,
     )
+    period = plan.time_scales.dominant_period
+    power["dominant_period"] = period
+    power["record_dominant_periods"] = None if period is None else power["record_time"] / period
     rows: list[ScoreRow] = []
     if alive.any():
         mod_stats, settings["n_model_groups"] = _model_groups(model, alive, plan)
@@ -387,8 +423,10 @@ def _integrate(
     update,
     time_limit: float | None,
     max_memory,
+    scheduler: Any = None,
 ):
-    """The ensemble run from ``starts``, with the blow-up bound taken from the reference."""
+    """The ensemble run from ``starts``, with the blow-up bound taken from the reference; on a
+    Dask cluster when ``scheduler`` is given."""
     from ergodex.integrate import blowup_bound, integrate_ensemble
 
     z0 = space.to_model(starts)
@@ -408,7 +446,13 @@ def _integrate(
         bound = bound_all
         if len(observed) < surrogate.n_variables:
             keep = columns
-    return integrate_ensemble(
+    integrate: Any = integrate_ensemble
+    where: dict[str, Any] = {}
+    if scheduler is not None:
+        from ergodex.cluster import integrate_scattered
+
+        integrate, where = integrate_scattered, {"scheduler": scheduler}
+    return integrate(
         surrogate,
         z0,
         dt_out=plan.dt,
@@ -420,16 +464,22 @@ def _integrate(
         time_limit=time_limit,
         max_memory=max_memory,
         progress=None if update is None else (lambda d, t: update(d, t + 1)),
+        **where,
     )
 
 
 def _model_output(run, alive, space: ComparedSpace, plan: CheckPlan, members: int) -> np.ndarray:
-    """The members' output in the reference's space and column order; NaN for blown-up ones."""
+    """The members' output in the reference's space and column order; NaN for blown-up ones.
+
+    Written over the run's own array when the shapes allow (no second copy of the ensemble).
+    """
     variables = plan.variables
     n_vars = len(variables)
-    model = np.full((members, plan.n_out, n_vars), np.nan)
+    states = run.states
+    model = states if states.shape[2] == n_vars else np.empty((members, plan.n_out, n_vars))
+    model[~alive] = np.nan
     for m in np.flatnonzero(alive):
-        x = space.to_data(run.states[m])
+        x = space.to_data(states[m])
         if x.shape[1] != n_vars:
             raise DataError(
                 f"the model's data space has {x.shape[1]} variables, the reference "
@@ -458,6 +508,10 @@ def _settings(
         "nperseg": plan.pieces.nperseg,
         "decorrelation_time": plan.decorrelation_time,
         "integrated_autocorrelation_time": dict(zip(plan.variables, plan.integrated_times)),
+        "envelope_time": dict(zip(plan.variables, plan.time_scales.envelope_times)),
+        "dominant_period": dict(zip(plan.variables, plan.time_scales.periods)),
+        # Welch frequency spacing, cycles per time unit
+        "spectral_resolution": 1.0 / (plan.pieces.nperseg * dt),
         "member_length": plan.n_out * dt,
         "pieces_per_member": plan.pieces_per_member,
         "statistics": list(plan.statistics),
@@ -475,35 +529,33 @@ def _settings(
         if space.in_model_space
         else "data space",
         "hidden_variables": [v for v in surrogate.variables if v not in space.observed],
+        "distance_units": distance_units(plan.statistics, time_unit),
+        **({"gap_note": plan.gap_note} if plan.gap_note else {}),
     }
 
 
-def _grouped(pieces: np.ndarray, groups) -> np.ndarray:
-    """Each group's pieces laid end to end: (n_groups, pool · L, n_vars)."""
-    n_vars = pieces.shape[2]
-    return np.stack([pieces[list(g)].reshape(-1, n_vars) for g in groups])
-
-
-def _model_groups(model: np.ndarray, alive, plan: CheckPlan) -> tuple[_PieceStats, int]:
+def _model_groups(model: np.ndarray, alive, plan: CheckPlan) -> tuple[GroupStatistics, int]:
     """The statistics of the surviving members' pooled groups, and how many groups there are."""
-    L, pool, n_vars = plan.piece_length, plan.pool, len(plan.variables)
+    L, pool = plan.piece_length, plan.pool
     # pieces in member-minor order, so that a pooled group takes one piece from each of
-    # ``pool`` different members, as a reference group takes independent pieces
-    live_pieces = model[alive][:, : plan.pieces_per_member * L].reshape(
-        -1, plan.pieces_per_member, L, n_vars
-    )
-    model_pieces = live_pieces.transpose(1, 0, 2, 3).reshape(-1, L, n_vars)
-    n_groups = model_pieces.shape[0] // pool
+    # ``pool`` different members, as a reference group takes independent pieces; views into
+    # the run, never copied as a whole
+    model_pieces = [
+        model[m, k * L : (k + 1) * L]
+        for k in range(plan.pieces_per_member)
+        for m in np.flatnonzero(alive)
+    ]
+    n_groups = len(model_pieces) // pool
     if n_groups == 0:
-        model_pieces = np.concatenate([model_pieces] * pool)  # fewer survivors than pool
+        model_pieces = model_pieces * pool  # fewer survivors than pool
         n_groups = 1
-    model_groups = model_pieces[: n_groups * pool].reshape(n_groups, pool * L, n_vars)
-    return _PieceStats(model_groups, plan.pieces), int(n_groups)
+    groups = [tuple(range(g * pool, (g + 1) * pool)) for g in range(n_groups)]
+    return _PieceStats(model_pieces, plan.pieces, groups), int(n_groups)
 
 
 def _rows(
-    mod_stats: _PieceStats,
-    group_stats: _PieceStats,
+    mod_stats: GroupStatistics,
+    group_stats: GroupStatistics,
     floors: dict[str, np.ndarray],
     plan: CheckPlan,
     tolerance_for: Callable[[str], float],
@@ -526,8 +578,16 @@ def validate(
     initial_states=None,
     dt: float | None = None,
     progress=False,
+    workers: int | None = None,
+    scheduler: Any = None,
 ) -> Scorecard:
-    """Like :func:`check`, returning only the scorecard (no evidence is built for it)."""
+    """Check a surrogate against reference data; returns only the :class:`Scorecard`.
+
+    The same check and the same scorecard as :func:`check` (``check(...).scorecard``), without
+    building the evidence arrays, so it is cheaper: use it where the verdict and the table are all
+    you need (a script's pass/fail, a sweep). Use :func:`check` for figures, an evidence file or
+    a report. Note that the command ``ergodex validate`` runs :func:`check`, not this function.
+    """
     return check(
         surrogate,
         reference,
@@ -536,4 +596,6 @@ def validate(
         dt=dt,
         progress=progress,
         evidence=False,
+        workers=workers,
+        scheduler=scheduler,
     ).scorecard

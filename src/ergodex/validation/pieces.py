@@ -11,8 +11,9 @@ from typing import Any
 import numpy as np
 
 from ergodex import stats
-from ergodex.exceptions import DataError, SettingsError
-from ergodex.regimes import RegimeSet, mean_residence_times, occupancy, transition_matrix
+from ergodex.exceptions import DataError
+from ergodex.group_stats import GroupStatistics, group_statistics, pair_distances
+from ergodex.regimes import RegimeSet
 
 
 @dataclass(frozen=True)
@@ -26,15 +27,11 @@ class PieceSettings:
     max_lag_samples: int
     nperseg: int
     regimes: RegimeSet | None = None
+    workers: int = 1  # threads for the statistics; the numbers do not depend on it
 
     def histogram_only(self) -> PieceSettings:
         """The same settings reduced to the histogram (member agreement, run consistency)."""
         return replace(self, statistics=("histogram",), regimes=None)
-
-
-# Quantile functions are compared on at most this many probability levels (exact when a piece
-# is shorter); the approximation error is far below the sampling noise of a piece.
-_MAX_QUANTILE_POINTS = 2000
 
 
 def _reference_pieces(reference, min_pieces: int, gap_time: float) -> tuple[np.ndarray, dict]:
@@ -61,36 +58,24 @@ def _reference_pieces(reference, min_pieces: int, gap_time: float) -> tuple[np.n
     return pieces, info
 
 
-class _PieceStats:
-    """The per-piece statistics every row needs, computed once per set of pieces."""
+def _PieceStats(pieces, settings: PieceSettings, groups=None) -> GroupStatistics:
+    """The statistics every row needs, of each group of pieces laid end to end (each piece
+    alone without ``groups``), assembled from per-piece parts (:mod:`ergodex.group_stats`).
 
-    def __init__(self, pieces: np.ndarray, settings: PieceSettings):
-        self.n = pieces.shape[0]
-        stats_wanted = settings.statistics
-        L = pieces.shape[1]
-        if "histogram" in stats_wanted:
-            k = min(L, _MAX_QUANTILE_POINTS)
-            srt = np.sort(pieces, axis=1)
-            idx = np.minimum(np.ceil((np.arange(k) + 0.5) / k * L).astype(int) - 1, L - 1)
-            self.qf = srt[:, np.maximum(idx, 0), :]  # (P, K, n)
-        if "quantiles" in stats_wanted:
-            self.quant = np.quantile(pieces, stats.DEFAULT_QUANTILES, axis=1).transpose(1, 0, 2)
-        if "autocorrelation" in stats_wanted:
-            self.acf = _acf_pieces(pieces, settings.max_lag_samples)
-        if "spectrum" in stats_wanted:
-            _, psd = stats.welch_psd(
-                np.ascontiguousarray(pieces.transpose(0, 2, 1)), settings.dt, settings.nperseg
-            )
-            self.psd = psd.transpose(0, 2, 1)  # (P, n_freq, n)
-        regimes = settings.regimes
-        if regimes is not None:
-            nr = regimes.n_regimes
-            labels = [regimes.classify(p, settings.variables) for p in pieces]
-            self.occ = np.stack([occupancy(lab, nr) for lab in labels])
-            if "residence" in stats_wanted:
-                self.res = np.stack([mean_residence_times(lab, settings.dt, nr) for lab in labels])
-            if "transitions" in stats_wanted:
-                self.trans = np.stack([transition_matrix(lab, nr) for lab in labels])
+    ``pieces`` is an array (P, L, n) or a sequence of (L, n) arrays (views: nothing is copied
+    as a whole); the result equals the statistics of the concatenated groups to rounding.
+    """
+    return group_statistics(
+        pieces,
+        groups,
+        statistics=settings.statistics,
+        max_lag=settings.max_lag_samples,
+        dt=settings.dt,
+        nperseg=settings.nperseg,
+        regimes=settings.regimes,
+        variables=settings.variables,
+        workers=settings.workers,
+    )
 
 
 def _acf_pieces(pieces: np.ndarray, max_lag: int) -> np.ndarray:
@@ -107,58 +92,16 @@ def _acf_pieces(pieces: np.ndarray, max_lag: int) -> np.ndarray:
 
 def _pair_distances(
     statistic: str,
-    a: _PieceStats,
-    b: _PieceStats,
+    a: GroupStatistics,
+    b: GroupStatistics,
     index: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> np.ndarray:
     """Distances between samples of ``a`` and samples of ``b``: (n_pairs, n_rows).
 
     ``index`` gives the pairs ``(a[index[0][k]], b[index[1][k]])``; by default every pair.
+    Spread over the threads ``a`` was computed with (the numbers do not depend on them).
     """
-
-    def pairs(x, y, fn):
-        out = []
-        if index is None:
-            # every pair: broadcast a few rows of x against all of y at a time, which avoids
-            # copying y for each pair; the chunk keeps the temporary array to a few tens of MB
-            per_row = max(1, y[0].size * y.shape[0])
-            step = max(1, int(4_000_000 // per_row))
-            for s in range(0, x.shape[0], step):
-                xa = x[s : s + step]
-                d = fn(xa[:, None], y[None, :])
-                out.append(d.reshape((-1,) + d.shape[2:]))
-            return np.concatenate(out)
-        ii, jj = np.ravel(index[0]), np.ravel(index[1])
-        for s in range(0, ii.size, 64):
-            out.append(fn(x[ii[s : s + 64]], y[jj[s : s + 64]]))
-        return np.concatenate(out) if out else np.zeros((0,) + fn(x[:1], y[:1]).shape[1:])
-
-    if statistic == "histogram":
-        # Wasserstein-1 between equal-length samples: mean |sorted a − sorted b| (Villani 2009)
-        return pairs(a.qf, b.qf, lambda x, y: np.mean(np.abs(x - y), axis=-2))
-    if statistic == "quantiles":
-        return pairs(a.quant, b.quant, lambda x, y: np.mean(np.abs(x - y), axis=-2))
-    if statistic == "autocorrelation":
-        return pairs(
-            a.acf,
-            b.acf,
-            lambda x, y: np.sqrt(np.mean((x[..., 1:, :] - y[..., 1:, :]) ** 2, axis=-2)),
-        )
-    if statistic == "spectrum":
-
-        def l1(x, y):
-            return np.sum(np.abs(x - y), axis=-2) / (0.5 * np.sum(x + y, axis=-2))
-
-        return pairs(a.psd, b.psd, l1)
-    if statistic == "occupancy":
-        return pairs(a.occ[:, :-1], b.occ[:, :-1], lambda x, y: np.abs(x - y))
-    if statistic == "residence":
-        return pairs(a.res[:, :-1], b.res[:, :-1], lambda x, y: np.abs(x - y))
-    if statistic == "transitions":
-        return pairs(
-            a.trans, b.trans, lambda x, y: np.sqrt(np.sum((x - y) ** 2, axis=(-2, -1)))[..., None]
-        )
-    raise SettingsError(f"unknown statistic {statistic!r}")  # pragma: no cover - checked in spec
+    return pair_distances(statistic, a, b, index, workers=getattr(a, "workers", 1))
 
 
 def _reference_groups(n: int, pool: int, rng, max_splits: int = 64):

@@ -1,8 +1,18 @@
 """The plan of a check: every setting derived from a :class:`CheckSpec` and the reference.
 
-:func:`derive_plan` measures the reference's decorrelation time and turns the spec's unset
-settings into numbers (gap between blocks, lag window, Welch segment, spin-up, pooling, member
-length); the rest of the check reads them from the frozen :class:`CheckPlan` it returns.
+:func:`derive_plan` measures the reference's time scales and turns the spec's unset settings
+into numbers (gap between blocks, lag window, Welch segment, spin-up, pooling, member length);
+the rest of the check reads them from the frozen :class:`CheckPlan` it returns.
+
+The **decorrelation time** the defaults follow is the longest of the integrated
+autocorrelation times (Sokal 1997) and the envelope times of the variables that oscillate
+(:mod:`ergodex.validation.timescales`), so that an oscillating record (a damped cosine
+``exp(−t/τ) cos(ωt)``, whose integral ``τ / (1 + ω²τ²)`` is far shorter than ``τ``) is cut,
+gapped, spun up and given Welch segments on the time over which it keeps its phase. A record
+without a dominant period keeps the integrated time, on which the default tolerance was
+calibrated (for ``ρ = exp(−t/τ)`` the two agree). The lag window covers 3 integrated times and
+:data:`_PERIODS_IN_LAG` dominant period, the Welch segment :data:`_PERIODS_IN_SEGMENT` of them
+(as far as the pieces allow).
 """
 
 from __future__ import annotations
@@ -20,8 +30,20 @@ from ergodex.validation.spec import (
     _LAG_TIMES,
     _REGIME_STATISTICS,
     _SPINUP_TIMES,
+    PERSISTENCE_STATISTICS,
     CheckSpec,
 )
+from ergodex.validation.timescales import TimeScales, oscillation_time_scales
+
+# Dominant periods the default lag window covers (beside 3 integrated times): one. Longer windows
+# add lags where both autocorrelations are mostly noise and dilute the row: measured on the
+# station ring's 6-mode white-noise closure (tests/test_fitting_ring.py), the autocorrelation
+# ratio is 3.4 with one period and 2.3 with two (1.3 time units vs 3.3).
+_PERIODS_IN_LAG = 1.0
+# Dominant periods and decorrelation times the Welch segment covers (enough to see a spectral
+# peak and its width; common practice, no source).
+_PERIODS_IN_SEGMENT = 4.0
+_ENVELOPES_IN_SEGMENT = 2.0
 
 
 @dataclass(frozen=True)
@@ -29,12 +51,16 @@ class CheckPlan:
     """The derived settings of one check (times in the reference's time unit).
 
     ``pieces`` holds what the per-piece statistics need; ``integrated_times`` the integrated
-    autocorrelation time per variable, ``decorrelation_time`` the largest of them (at least one
-    sampling interval), from which the unset gap, lag window and spin-up follow.
+    autocorrelation time per variable, ``time_scales`` the envelope times and dominant periods,
+    ``decorrelation_time`` the longest integrated time or envelope time of an oscillating
+    variable (at least one sampling interval), from which the unset gap, Welch segment and
+    spin-up follow; the lag window covers 3 integrated times and one dominant period.
+    ``gap_note`` says why the gap is shorter than the default rule, if it is.
     """
 
     pieces: PieceSettings
     integrated_times: tuple[float, ...]
+    time_scales: TimeScales
     decorrelation_time: float
     gap: float
     spinup: float
@@ -43,6 +69,7 @@ class CheckPlan:
     pool: int
     n_out: int
     piece_info: dict[str, Any] = field(default_factory=dict, hash=False)
+    gap_note: str | None = None
 
     @property
     def dt(self) -> float:
@@ -74,18 +101,38 @@ def derive_plan(spec: CheckSpec, reference, stacked: np.ndarray) -> tuple[CheckP
     regimes = spec.regimes
     if regimes is not None and regimes.needs_fit:
         regimes = regimes.fit(stacked, variables)
-    statistics = tuple(
-        s for s in spec.statistics if regimes is not None or s not in _REGIME_STATISTICS
-    )
+    wanted = tuple(spec.statistics)
+    if regimes is not None and spec.persistence:
+        wanted += tuple(s for s in PERSISTENCE_STATISTICS if s not in wanted)
+    statistics = tuple(s for s in wanted if regimes is not None or s not in _REGIME_STATISTICS)
 
     tau = np.atleast_1d(stats.integrated_autocorrelation_time(list(reference.runs), dt))
-    tau_d = float(max(np.max(tau), dt))
-    gap = _GAP_TIMES * tau_d if spec.gap is None else float(spec.gap)
-    ref_pieces, piece_info = _reference_pieces(reference, spec.min_pieces, gap)
+    scales = oscillation_time_scales(list(reference.runs), dt)
+    tau_d = float(max(np.max(tau), scales.oscillation_envelope_time, dt))
+    period = scales.dominant_period
+    tau_int = float(max(np.max(tau), dt))
+    gap, gap_note = _gap(spec, tau_d, tau_int)
+    try:
+        ref_pieces, piece_info = _reference_pieces(reference, spec.min_pieces, gap)
+    except DataError:
+        if gap_note is None:
+            raise
+        # the envelope gap does not fit the record: the integrated-time gap, said so
+        gap = _GAP_TIMES * float(max(np.max(tau), dt))
+        ref_pieces, piece_info = _reference_pieces(reference, spec.min_pieces, gap)
+    else:
+        gap_note = None
     L = ref_pieces.shape[1]
-    max_lag_time = _LAG_TIMES * tau_d if spec.max_lag is None else float(spec.max_lag)
+    if spec.max_lag is None:
+        max_lag_time = max(_LAG_TIMES * tau_int, _PERIODS_IN_LAG * (period or 0.0))
+    else:
+        max_lag_time = float(spec.max_lag)
     max_lag = int(np.clip(round(max_lag_time / dt), 1, max(1, L // 4)))
-    nperseg = int(spec.nperseg) if spec.nperseg is not None else int(max(8, min(256, L // 8)))
+    if spec.nperseg is not None:
+        nperseg = int(spec.nperseg)
+    else:
+        segment = max(_PERIODS_IN_SEGMENT * (period or 0.0), _ENVELOPES_IN_SEGMENT * tau_d)
+        nperseg = int(max(8, min(256, L // 8), min(round(segment / dt), L // 8)))
     if nperseg > L:
         raise SettingsError(f"nperseg {nperseg} exceeds the reference piece length {L} samples")
     if L < 4 * max_lag or L < 16:
@@ -122,6 +169,7 @@ def derive_plan(spec: CheckSpec, reference, stacked: np.ndarray) -> tuple[CheckP
             regimes=regimes,
         ),
         integrated_times=tuple(float(t) for t in tau),
+        time_scales=scales,
         decorrelation_time=tau_d,
         gap=gap,
         spinup=spinup,
@@ -130,5 +178,25 @@ def derive_plan(spec: CheckSpec, reference, stacked: np.ndarray) -> tuple[CheckP
         pool=int(pool),
         n_out=int(n_out),
         piece_info=piece_info,
+        gap_note=gap_note,
     )
     return plan, ref_pieces
+
+
+def _gap(spec: CheckSpec, tau_d: float, tau_int: float) -> tuple[float, str | None]:
+    """The gap between blocks of one run, and the note to give if it must fall back.
+
+    The default is :data:`_GAP_TIMES` decorrelation times; when that is longer than the
+    integrated-time rule (an oscillating record) and the record cannot hold it, the check falls
+    back to the integrated-time gap and says so (``settings["gap_note"]``).
+    """
+    if spec.gap is not None:
+        return float(spec.gap), None
+    gap = _GAP_TIMES * tau_d
+    if tau_d <= tau_int:
+        return gap, None
+    return gap, (
+        f"the record is too short for gaps of {gap:.3g} time units ({_GAP_TIMES:g} envelope "
+        f"times) between its blocks; gaps of {_GAP_TIMES * tau_int:.3g} ({_GAP_TIMES:g} "
+        f"integrated autocorrelation times) were used, so neighbouring pieces still share phase"
+    )

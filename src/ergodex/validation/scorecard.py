@@ -297,10 +297,16 @@ def power_lines(power: dict) -> list[str]:
             return f"none up to ×{top:.3g}"
         return f"×{f:.3g}"
 
+    periods = power.get("record_dominant_periods")
     return [
         f"record: {_fmt(_none_to_nan(power.get('record_time')))} time units = "
         f"{_fmt(_none_to_nan(power.get('record_decorrelation_times')))} decorrelation times "
-        f"(pieces of {_fmt(_none_to_nan(power.get('piece_decorrelation_times')))})",
+        f"(pieces of {_fmt(_none_to_nan(power.get('piece_decorrelation_times')))})"
+        + (
+            f" = {_fmt(periods)} dominant periods of {_fmt(power['dominant_period'])}"
+            if periods is not None
+            else ""
+        ),
         f"smallest change it detects: time scale {factor('time_scale')}, variance "
         f"{factor('variance_up')} / {factor('variance_down')}",
     ]

@@ -16,18 +16,36 @@ from ergodex.regimes import RegimeSet
 # DEFAULT_TOLERANCE, ALL_STATISTICS and DEFAULT_STATISTICS live in ergodex.check_names (imported
 # above) so that the command line's --help need not import numpy.
 _REGIME_STATISTICS = ("occupancy", "residence", "transitions")
-
+#: The rows ``CheckSpec.persistence`` adds whenever regimes are given.
+PERSISTENCE_STATISTICS = ("residence", "transitions")
 
 # Decorrelation-time multiples for the defaults: gap between reference blocks and spin-up (5: the
 # correlation left after 5 integrated times is below e^-5 ≈ 0.7 % for exponential decay) and the
 # autocorrelation lag (3: the part of the ACF that carries information). Common practice, no source.
+# The decorrelation time is the longer of the integrated and the envelope time (plan.py).
 _GAP_TIMES = 5.0
-
-
 _SPINUP_TIMES = 5.0
-
-
 _LAG_TIMES = 3.0
+
+#: What each row's distance is measured in.
+DISTANCE_UNITS = {
+    "histogram": "units of the variable (Wasserstein-1)",
+    "quantiles": "units of the variable",
+    "autocorrelation": "correlation (dimensionless)",
+    "spectrum": "fraction of the mean total power (dimensionless)",
+    "occupancy": "fraction of time",
+    "residence": "time units",
+    "transitions": "transition probability (dimensionless)",
+}
+
+
+def distance_units(statistics, time_unit: str | None = None) -> dict[str, str]:
+    """The unit of each scored statistic's distance (:data:`DISTANCE_UNITS`), residence times in
+    the data's time unit when it has one."""
+    units = {s: DISTANCE_UNITS[s] for s in statistics}
+    if "residence" in units and time_unit:
+        units["residence"] = time_unit
+    return units
 
 
 @dataclass
@@ -42,15 +60,23 @@ class CheckSpec:
         Time integrated per member after spin-up; default ``pool`` reference pieces. Members are
         cut into pieces of the reference pieces' length (at least one).
     spinup : float, optional
-        Time integrated and discarded before output; default 5 decorrelation times.
+        Time integrated and discarded before output; default 5 decorrelation times (the
+        longest integrated autocorrelation time, or envelope time of an oscillating variable:
+        :mod:`ergodex.validation.plan`).
     seed : int, default 0
         Seeds the draw of starting states and the noise of stochastic surrogates.
     bins : int or "fd", default 35
         Histogram bins (figures and evidence); see :func:`ergodex.stats.histogram_edges`.
     max_lag : float, optional
-        Largest autocorrelation lag in time units; default 3 decorrelation times.
+        Largest autocorrelation lag in time units; default 3 integrated autocorrelation times
+        or one dominant period, whichever is longer (at most a quarter piece).
     regimes : RegimeSet, optional
-        Regimes for the occupancy/residence/transition rows (skipped without).
+        Regimes for the occupancy/residence/transition rows (skipped without). ``kmeans``
+        entries are fitted on the reference only (scikit-learn KMeans, seeded).
+    persistence : bool, default True
+        With regimes, also score how long the system stays in each regime and where it goes
+        next (the ``residence`` and ``transitions`` rows), whatever ``statistics`` lists; False
+        scores only the rows ``statistics`` names.
     tolerance : float, default :data:`DEFAULT_TOLERANCE`
         With ``false_reject_rate`` None, the largest allowed ratio of model distance to noise
         floor, for every row. Always the tolerance of member agreement and reference
@@ -75,9 +101,11 @@ class CheckSpec:
         Fewest reference pieces for a noise floor; runs are split into blocks when there are
         fewer runs.
     gap : float, optional
-        Time left out between blocks of one run; default 5 decorrelation times.
+        Time left out between blocks of one run; default 5 decorrelation times (5 integrated
+        times when the record cannot hold envelope gaps; ``settings["gap_note"]`` says so).
     nperseg : int, optional
-        Welch segment length in samples; default ``min(256, piece length // 8)``.
+        Welch segment length in samples; default ``min(256, piece length // 8)``, raised to
+        cover 4 dominant periods and 2 decorrelation times up to ``piece length // 8``.
     max_blowup_fraction : float, default 0
         Fraction of members allowed to blow up before the check fails.
     pool : int, optional
@@ -105,6 +133,7 @@ class CheckSpec:
     false_reject_rate: float | None = DEFAULT_FALSE_REJECT_RATE
     null_replicates: int = DEFAULT_REPLICATES
     threshold_floor: float | None = DEFAULT_TOLERANCE
+    persistence: bool = True
 
     def check_settings(self) -> None:
         """Raise SettingsError naming the first setting that breaks its rule."""
@@ -181,6 +210,8 @@ class CheckSpec:
                 )
         positive_int("null_replicates", self.null_replicates, 10)
         positive_float("threshold_floor", self.threshold_floor)
+        if not isinstance(self.persistence, (bool, np.bool_)):
+            raise SettingsError(f"persistence must be true or false; got {self.persistence!r}")
         if self.regimes is not None and not isinstance(self.regimes, RegimeSet):
             raise SettingsError(f"regimes must be a RegimeSet; got {type(self.regimes).__name__}")
 
@@ -207,6 +238,7 @@ class CheckSpec:
             "false_reject_rate": _float_or_none(self.false_reject_rate),
             "null_replicates": int(self.null_replicates),
             "threshold_floor": _float_or_none(self.threshold_floor),
+            "persistence": bool(self.persistence),
         }
 
     @classmethod

@@ -7,6 +7,7 @@ from collections.abc import Callable, Sequence
 
 import numpy as np
 
+from ergodex.group_stats import GroupStatistics
 from ergodex.validation.pieces import PieceSettings, _pair_distances, _PieceStats
 from ergodex.validation.scorecard import ScoreRow, _fmt
 from ergodex.validation.spec import CheckSpec
@@ -123,7 +124,7 @@ def _member_agreement(
     variables = settings.variables
     members = np.flatnonzero(alive)
     ref_sd = np.nanstd(ref_pieces.reshape(-1, ref_pieces.shape[2]), axis=0)
-    first = model[members, :L]  # each member's first piece, without copying whole members
+    first = [model[m, :L] for m in members]  # each member's first piece, as views
     collapsed = [
         int(m) for m in members if np.all(np.std(model[m], axis=0) < _COLLAPSE_FRACTION * ref_sd)
     ]
@@ -184,7 +185,7 @@ def _power(
     piece_info: dict,
     groups,
     floor_index,
-    group_stats: _PieceStats,
+    group_stats: GroupStatistics,
     floors: dict[str, np.ndarray],
     settings: PieceSettings,
     spec: CheckSpec,
