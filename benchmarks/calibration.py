@@ -12,6 +12,11 @@ Usage (repository root)::
 
     /work/venv/bin/python benchmarks/calibration.py --trials 100 --wrong-trials 40 --jobs 2
 
+Ratios at several tolerances say nothing of the inconclusive verdict (a record too short to tell,
+or runs that disagree): the table also counts the verdicts at the default settings, with
+inconclusive apart. ``benchmarks/calibration_systems.py`` covers more systems and the threshold
+derived from the data (``CheckSpec.false_reject_rate``).
+
 Cases: Lorenz-63 convection loop (true; ρ=22; σ doubled; β halved; a linear inverse model fitted
 to the same data), Ornstein–Uhlenbeck (true; drift and noise both doubled, which keeps the
 stationary covariance but halves the correlation times), double well (true; noise 0.5 instead of
@@ -219,12 +224,17 @@ def main(argv=None) -> int:
     head = f"{'case':<26} {'should':<6} {'n':>4} " + " ".join(
         f"{'t=' + format(t, 'g'):>7}" for t in args.tolerances
     )
-    print(head + "   (fraction passing at each tolerance)")
+    print(
+        head + "   (fraction passing at each tolerance; then the verdicts at the defaults: "
+        "pass / fail / inconclusive, inconclusive counted apart and not as a pass)"
+    )
     for c in args.cases:
         rows = [r for r in results if r["case"] == c]
         d = np.array([r["decisive"] for r in rows])
         rates = " ".join(f"{np.mean(d <= t):>7.2f}" for t in args.tolerances)
-        print(f"{c:<26} {'pass' if CASES[c][1] else 'fail':<6} {len(rows):>4} {rates}")
+        verdicts = [r["verdict"] for r in rows]
+        counts = " / ".join(str(verdicts.count(v)) for v in ("pass", "fail", "inconclusive"))
+        print(f"{c:<26} {'pass' if CASES[c][1] else 'fail':<6} {len(rows):>4} {rates}   {counts}")
     print(f"wall time {wall:.0f} s, {len(results)} checks; raw figures in {args.out}")
     # which rows decide for true models (the largest ratio's statistic)
     for c in args.cases:

@@ -114,6 +114,10 @@ def test_options_and_config_file_reach_the_scorecard(ou_files, tmp_path):
         (["--check-config", "CONFIG:members = 1"], "check.toml: members must be an integer"),
         (["--check-config", "CONFIG:members = "], "not valid TOML"),
         (["--check-config", 'CONFIG:regimes = "nonesuch.toml"'], "regime file not found"),
+        (["--false-reject-rate", "0.7"], "--false-reject-rate must be between 0 and 0.5"),
+        (["--false-reject-rate", "often"], "a rate such as 0.05, or 'fixed'"),
+        (["--null-replicates", "3"], "--null-replicates must be an integer ≥ 10"),
+        (["--threshold-floor", "low"], "a number or 'none'"),
     ],
 )
 def test_bad_check_settings_exit_2_on_one_line_naming_the_option_or_file(
@@ -138,6 +142,30 @@ def test_bad_check_settings_exit_2_on_one_line_naming_the_option_or_file(
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and expected in err[0], err
     assert not card.exists()
+
+
+def test_threshold_options_reach_the_scorecard(ou_files, tmp_path):
+    card = tmp_path / "card.json"
+    common = ["validate", str(ou_files / "true.json"), str(ou_files / "data.csv"), "--quiet"]
+    common += ["--members", "4", "--json", str(card)]
+    main([*common, "--threshold-floor", "none"])
+    d = json.loads(card.read_text())
+    assert d["format"] == "ergodex-scorecard/2"
+    assert d["spec"]["threshold_floor"] is None and d["threshold"]["floor"] is None
+    assert d["threshold"]["threshold"] == d["threshold"]["null_quantile"]
+    config = tmp_path / "check.toml"
+    config.write_text('false_reject_rate = 0.1\nnull_replicates = 12\nthreshold_floor = "none"\n')
+    main([*common, "--check-config", str(config)])
+    d = json.loads(card.read_text())
+    assert (d["spec"]["false_reject_rate"], d["spec"]["null_replicates"]) == (0.1, 12)
+    assert d["threshold"]["false_reject_rate"] == 0.1 and d["threshold"]["replicates"] == 12
+    main(
+        [*common, "--check-config", str(config), "--false-reject-rate", "fixed", "--tolerance", "3"]
+    )
+    d = json.loads(card.read_text())
+    assert d["spec"]["false_reject_rate"] is None
+    assert d["threshold"] == {"false_reject_rate": None, "threshold": 3.0}
+    assert {r["tolerance"] for r in d["rows"]} == {3.0}
 
 
 def test_quiet_failure_keeps_its_reasons(ou_files, capsys):

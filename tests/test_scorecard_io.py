@@ -128,7 +128,7 @@ def test_bad_scorecard_files_give_one_clear_line(tmp_path):
     with pytest.raises(
         ModelFileError,
         match=r"^scorecard: not a scorecard of format "
-        r"'ergodex-scorecard/1' \(format: 'list'\)",
+        r"'ergodex-scorecard/2' \(format: 'list'\)",
     ):
         Scorecard.from_dict([])
     with pytest.raises(

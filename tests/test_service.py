@@ -489,6 +489,40 @@ def test_upload_fit_validate_accept_download_round_trip(served):
     assert [m["name"] for m in listing] == ["convection-loop"]
 
 
+def test_a_check_on_a_record_too_short_to_tell_is_inconclusive_through_the_service(served):
+    # The exact Lorenz-63 equations (Lorenz 1963) against 2 runs × 6 time units of their own
+    # sensors: the record cannot tell a time scale or a variance ×1.5 from the truth, so the
+    # check may not say "pass" (measured: not even a ×5 change is detected).
+    from ergodex import scenarios
+    from ergodex.registry import Registry
+
+    server, client = served
+    Registry(server.home).register("short-record", scenarios.lorenz63_surrogate())
+    short = upload(client, "loop-short.csv", convection_csv(seed=12, n_runs=2, duration=6.0))
+    assert short.status_code == 201, short.text
+    job = client.post(
+        "/jobs/validate",
+        json={
+            "name": "short-record",
+            "version": 1,
+            "dataset": short.json()["id"],
+            "check": {"members": 8, "seed": 3},
+        },
+        headers=auth(),
+    )
+    assert job.status_code == 202, job.text
+    checked = wait_for_job(client, job.json()["id"], timeout=120)
+    assert checked["state"] == SUCCEEDED, checked["error"]  # the job ran; the check is the result
+    result = checked["result"]
+    assert result["verdict"] == "inconclusive"
+    assert result["scorecard"]["verdict"] == "inconclusive"
+    assert result["reasons"][0].startswith("inconclusive: the record")
+    assert result["scorecard"]["power"]["sufficient"] is False
+    assert result["scorecard"]["threshold"]["false_reject_rate"] == 0.05
+    events = client.get("/models/short-record/history").json()["events"]
+    assert any(e["event"] == "checked" and "inconclusive" in e["reason"] for e in events), events
+
+
 @pytest.mark.slow
 def test_schemathesis_finds_no_server_error_and_no_schema_violation(served, tmp_path):
     pytest.importorskip("schemathesis")

@@ -132,7 +132,7 @@ def test_scorecard_and_evidence_round_trip(tmp_path, loop_regimes):
     path = tmp_path / "scorecard.json"
     text = sc.to_json(path)
     d = json.loads(text)
-    assert d["format"] == "ergodex-scorecard/1"
+    assert d["format"] == "ergodex-scorecard/2"
     for key in (
         "verdict",
         "rows",

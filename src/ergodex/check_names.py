@@ -9,8 +9,9 @@ from __future__ import annotations
 
 __all__ = ["ALL_STATISTICS", "DEFAULT_STATISTICS", "DEFAULT_TOLERANCE"]
 
-#: Largest allowed ratio of a row's model distance to its noise floor. Calibrated in
-#: ``benchmarks/calibration.py`` (rates in ``benchmarks/README.md``).
+#: Largest allowed ratio of a row's model distance to its noise floor with the fixed tolerance,
+#: and the floor of the threshold derived from the data (``CheckSpec.threshold_floor``).
+#: Calibrated in ``benchmarks/calibration.py`` (rates in ``benchmarks/README.md``).
 DEFAULT_TOLERANCE = 2.75
 
 ALL_STATISTICS = (

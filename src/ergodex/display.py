@@ -89,6 +89,17 @@ def scorecard_repr(card: Any) -> str:
     )
 
 
+def _threshold_text(card: Any) -> str:
+    """The threshold the largest ratio was held to, and the false-reject rate it targets."""
+    th = getattr(card, "threshold", None) or {}
+    if th.get("false_reject_rate") is not None:
+        return (
+            f"threshold {_number(th.get('threshold'))} "
+            f"(false-reject rate {100 * float(th['false_reject_rate']):g} %)"
+        )
+    return f"tolerance {_number(th.get('threshold', card.spec.tolerance))}"
+
+
 def scorecard_html(card: Any) -> str:
     """Verdict, reasons, the rows (failing and largest ratios first), blow-ups and the caution."""
     worst = _worst(card)
@@ -96,7 +107,7 @@ def scorecard_html(card: Any) -> str:
         f"<div><b>Scorecard</b> {_badge(card.verdict)} largest ratio "
         f"<b>{_esc(_number(card.largest_ratio))}</b>"
         + (f" ({_esc(worst.statistic)} {_esc(worst.variable)})" if worst is not None else "")
-        + f"; tolerance {_esc(_number(card.spec.tolerance))}</div>"
+        + f"; {_esc(_threshold_text(card))}</div>"
     )
     reasons = "".join(f"<li>{_esc(r)}</li>" for r in card.reasons[:5])
     reasons = f'<ul style="margin:2px 0">{reasons}</ul>' if reasons else ""

@@ -42,6 +42,9 @@ OPTIONS: dict[str, str] = {
     "nperseg": "--nperseg",
     "max_blowup_fraction": "--max-blowup-fraction",
     "pool": "--pool",
+    "false_reject_rate": "--false-reject-rate",
+    "null_replicates": "--null-replicates",
+    "threshold_floor": "--threshold-floor",
     "persistence": "--no-persistence",
 }
 
@@ -53,6 +56,26 @@ def _bins(text: str) -> int | str:
         return int(text)
     except ValueError:
         raise argparse.ArgumentTypeError(f"expected a bin count or 'fd', got {text!r}") from None
+
+
+def _rate(text: str) -> float | str:
+    if text.strip().lower() == "fixed":
+        return "fixed"
+    try:
+        return float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(
+            f"expected a rate such as 0.05, or 'fixed', got {text!r}"
+        ) from None
+
+
+def _floor(text: str) -> float | str:
+    if text.strip().lower() == "none":
+        return "none"
+    try:
+        return float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number or 'none', got {text!r}") from None
 
 
 def _names(text: str) -> list[str]:
@@ -154,7 +177,30 @@ def add_check_options(
         type=float,
         default=None,
         metavar="X",
-        help=f"largest allowed row ratio (default {DEFAULT_TOLERANCE}, calibrated)",
+        help=f"largest allowed row ratio with --false-reject-rate fixed (default "
+        f"{DEFAULT_TOLERANCE}); also the member-agreement tolerance",
+    )
+    group.add_argument(
+        "--false-reject-rate",
+        type=_rate,
+        default=None,
+        metavar="P|fixed",
+        help="the threshold on the largest row ratio is the 1-P point of a right model's, from "
+        "a bootstrap of the reference (default 0.05); 'fixed': --tolerance for every row",
+    )
+    group.add_argument(
+        "--null-replicates",
+        type=int,
+        default=None,
+        metavar="N",
+        help="bootstrap replicates behind that threshold (default 40)",
+    )
+    group.add_argument(
+        "--threshold-floor",
+        type=_floor,
+        default=None,
+        metavar="X|none",
+        help=f"smallest threshold the bootstrap may give (default {DEFAULT_TOLERANCE})",
     )
     group.add_argument(
         "--tolerances",

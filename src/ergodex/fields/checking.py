@@ -349,7 +349,8 @@ def check_field(
         dt=dt,
         nperseg=int(min(st["nperseg"], L)),
         boxes=_box_weights(transform, list(regions)),
-        tolerance=spec.tolerance,
+        # the threshold the mode rows were held to (derived for them; at least the floor)
+        tolerance=float(card.threshold.get("threshold", spec.tolerance)),
     )
     card.rows.extend(rows)
     failing = sorted(

@@ -132,6 +132,11 @@ def _verdict_banner(scorecard: Any) -> str:
         )
     else:
         detail = "No statistic could be compared."
+    threshold = _field(scorecard, "threshold", None) or {}
+    if threshold:
+        from ergodex.validation import threshold_line
+
+        detail += " " + str(threshold_line(threshold)) + "."
     power = _field(scorecard, "power", None) or {}
     if power:
         from ergodex.validation import power_lines

@@ -81,7 +81,17 @@ class CheckOptions(_Strict):
     seed: int | None = Field(None, ge=0, le=2**63 - 1)
     bins: int | None = Field(None, ge=2, le=10_000)
     max_lag: float | None = Field(None, gt=0, description="largest autocorrelation lag (time)")
-    tolerance: float | None = Field(None, gt=0, description="largest allowed row ratio")
+    tolerance: float | None = Field(
+        None, gt=0, description="largest allowed row ratio when false_reject_rate is 'fixed'"
+    )
+    false_reject_rate: float | Literal["fixed"] | None = Field(
+        None,
+        description="rate at which a right model fails; the threshold on the largest row ratio "
+        "comes from a bootstrap of the reference (default 0.05); 'fixed': tolerance per row",
+    )
+    null_replicates: int | None = Field(
+        None, ge=10, le=1000, description="bootstrap replicates behind that threshold"
+    )
     tolerances: dict[str, float] | None = Field(None, description="tolerance per statistic")
     statistics: list[str] | None = Field(None, description="statistics to compare")
     regimes: dict[str, Any] | None = Field(

@@ -21,9 +21,13 @@ The check (README, "How the check decides"):
    piece-level noise, which makes real differences stand out 2–3× further than comparing single
    pieces (measured in ``benchmarks/calibration.py``).
 4. The verdict is family-wise: the surrogate passes when the *largest* row ratio is within the
-   tolerance, the members agree with one another, and no member blew up. The default tolerance
-   was calibrated on known systems (``benchmarks/calibration.py``, figures in
-   ``benchmarks/README.md``).
+   threshold, the members agree with one another, and no member blew up. The threshold comes
+   from the data (:mod:`ergodex.nullfloor`, :mod:`~ergodex.validation.threshold`): whole checks
+   of a right surrogate are replayed on a smoothed moving-block bootstrap of the reference, and
+   the ``1 − false_reject_rate`` point (default 95 %) of their largest ratio is the threshold,
+   so it grows with the number of independent rows and stays put for correlated ones; it is
+   never below ``threshold_floor`` (2.75, the tolerance calibrated on known systems, figures in
+   ``benchmarks/README.md``). ``false_reject_rate = None`` holds every row to ``tolerance``.
 5. Power (:mod:`ergodex.power`): rescaled copies of the reference (time scale ×f, variance ×f)
    are scored against reference groups through the same rows; the smallest rejected factors are
    stated in the scorecard. A record that cannot reject ±50 %, spans fewer than 20 decorrelation
@@ -53,7 +57,8 @@ The package, one job per module: :mod:`~ergodex.validation.spec` (the settings),
 :mod:`~ergodex.validation.spaces` (compared variables and column order),
 :mod:`~ergodex.validation.pieces` (reference pieces, per-piece statistics, distances, groups:
 the noise floor), :mod:`~ergodex.validation.verdict` (rows, blow-ups, member agreement, the
-decision), :mod:`~ergodex.validation.scorecard`, :mod:`~ergodex.validation.evidence`,
+decision), :mod:`~ergodex.validation.threshold` (the threshold from the data),
+:mod:`~ergodex.validation.scorecard`, :mod:`~ergodex.validation.evidence`,
 :mod:`~ergodex.validation.result`, and :mod:`~ergodex.validation.checking` (the coordinator).
 """
 
@@ -65,7 +70,13 @@ from ergodex.validation.evidence import EVIDENCE_FIELDS, EVIDENCE_FORMAT, Eviden
 from ergodex.validation.pieces import PieceSettings
 from ergodex.validation.plan import CheckPlan, derive_plan
 from ergodex.validation.result import CheckResult
-from ergodex.validation.scorecard import SCORECARD_FORMAT, Scorecard, ScoreRow, power_lines
+from ergodex.validation.scorecard import (
+    SCORECARD_FORMAT,
+    Scorecard,
+    ScoreRow,
+    power_lines,
+    threshold_line,
+)
 from ergodex.validation.spaces import align_columns, data_variables
 from ergodex.validation.spec import CheckSpec
 
@@ -87,6 +98,7 @@ __all__ = [
     "check",
     "data_variables",
     "derive_plan",
+    "threshold_line",
     "power_lines",
     "validate",
 ]

@@ -7,6 +7,7 @@ The method is described in :mod:`ergodex.validation`.
 from __future__ import annotations
 
 import logging
+from collections.abc import Callable
 from dataclasses import dataclass, replace
 from typing import Any
 
@@ -28,6 +29,7 @@ from ergodex.validation.result import CheckResult
 from ergodex.validation.scorecard import Scorecard, ScoreRow, _fmt
 from ergodex.validation.spaces import ComparedSpace, compared_space
 from ergodex.validation.spec import CheckSpec, distance_units
+from ergodex.validation.threshold import null_threshold
 from ergodex.validation.verdict import (
     _blowup_accounting,
     _decide,
@@ -181,7 +183,8 @@ def _check(
     plan = replace(plan, pieces=replace(plan.pieces, workers=threads))
     _refuse_oversized(surrogate, spec, plan, max_memory)
 
-    seeds = np.random.SeedSequence(spec.seed).generate_state(3)
+    # the fourth seed (for the threshold) leaves the first three as they were
+    seeds = np.random.SeedSequence(spec.seed).generate_state(4)
     rng = np.random.default_rng(int(seeds[0]))
     starts, starts_note = _draw_starts(
         surrogate, spec, space, stacked, initial_states, len(reference.names), rng
@@ -206,7 +209,9 @@ def _check(
     blowups, blowup_fail, blowup_reasons = _blowup_accounting(
         blowup_times, spec.max_blowup_fraction
     )
-    scored = _score(space.reference, ref_pieces, model, alive, plan, spec, int(seeds[2]))
+    scored = _score(
+        space.reference, ref_pieces, model, alive, plan, spec, int(seeds[2]), int(seeds[3])
+    )
     settings.update(scored.settings)
     verdict, reasons = _decide(
         scored.rows,
@@ -226,6 +231,7 @@ def _check(
         reasons=reasons,
         blowups=blowups,
         power=scored.power,
+        threshold=scored.threshold,
         member_agreement=scored.agreement,
         spec=spec,
         model_fingerprint=surrogate.fingerprint(),
@@ -264,13 +270,22 @@ class _Scored:
     weak_reasons: list[str]
     consistency: dict
     settings: dict[str, Any]
+    threshold: dict
 
 
 def _score(
-    reference, ref_pieces: np.ndarray, model: np.ndarray, alive, plan: CheckPlan, spec, seed: int
+    reference,
+    ref_pieces: np.ndarray,
+    model: np.ndarray,
+    alive,
+    plan: CheckPlan,
+    spec,
+    seed: int,
+    threshold_seed: int,
 ) -> _Scored:
-    """Pool pieces into groups, build the noise floors, score the rows, the members' agreement
-    and the record's power. ``seed`` draws the reference groups."""
+    """Pool pieces into groups, build the noise floors and the threshold, score the rows, the
+    members' agreement and the record's power. ``seed`` draws the reference groups,
+    ``threshold_seed`` the bootstrap behind the threshold."""
     ref_stats = _PieceStats(ref_pieces, plan.pieces)
     # A group is its pieces laid end to end. The autocorrelation and Welch segments then span
     # pool − 1 joins (a fraction ≈ max_lag / L of the lagged products); model groups are built
@@ -289,6 +304,23 @@ def _score(
         s: np.nanmean(_pair_distances(s, group_stats, group_stats, floor_index), axis=0)
         for s in plan.statistics
     }
+    # the threshold depends on the reference and the settings only (as many model groups as
+    # the members would give without blow-ups), never on the model checked
+    threshold = null_threshold(
+        ref_pieces,
+        ref_groups,
+        floor_index,
+        plan.pieces,
+        spec,
+        pool=plan.pool,
+        n_model_groups=max(1, spec.members * plan.pieces_per_member // plan.pool),
+        seed=threshold_seed,
+    )
+    settings["threshold"] = threshold["threshold"]
+
+    def tolerance_for(statistic: str) -> float:
+        return float(spec.tolerances.get(statistic, threshold["threshold"]))
+
     power, weak_reasons, consistency = _power(
         reference,
         ref_pieces,
@@ -303,6 +335,7 @@ def _score(
         # which it was calibrated); an oscillation's length is stated in dominant periods below
         max(*plan.integrated_times, plan.dt),
         plan.gap,
+        tolerance_for,
     )
     period = plan.time_scales.dominant_period
     power["dominant_period"] = period
@@ -310,7 +343,7 @@ def _score(
     rows: list[ScoreRow] = []
     if alive.any():
         mod_stats, settings["n_model_groups"] = _model_groups(model, alive, plan)
-        rows = _rows(mod_stats, group_stats, floors, plan, spec)
+        rows = _rows(mod_stats, group_stats, floors, plan, tolerance_for)
         agreement = _member_agreement(
             model, alive, plan.piece_length, ref_stats, ref_pieces, spec, plan.pieces
         )
@@ -323,7 +356,9 @@ def _score(
             "outlying_members": [],
             "per_variable": {},
         }
-    return _Scored(ref_stats, rows, agreement, power, weak_reasons, consistency, settings)
+    return _Scored(
+        ref_stats, rows, agreement, power, weak_reasons, consistency, settings, threshold
+    )
 
 
 def _as_spec(spec) -> CheckSpec:
@@ -523,14 +558,15 @@ def _rows(
     group_stats: GroupStatistics,
     floors: dict[str, np.ndarray],
     plan: CheckPlan,
-    spec: CheckSpec,
+    tolerance_for: Callable[[str], float],
 ) -> list[ScoreRow]:
-    """Every scored row: the mean distance of model groups from reference groups over the floor."""
+    """Every scored row: the mean distance of model groups from reference groups over the floor,
+    against ``tolerance_for(statistic)``."""
     rows: list[ScoreRow] = []
     for s in plan.statistics:
         value = np.nanmean(_pair_distances(s, mod_stats, group_stats), axis=0)
         labels = _row_labels(s, plan.variables, plan.pieces.regimes)
-        rows.extend(_score_rows(s, labels, value, floors[s], spec.tolerance_for(s)))
+        rows.extend(_score_rows(s, labels, value, floors[s], tolerance_for(s)))
     return rows
 
 

@@ -14,7 +14,10 @@ from ergodex.files import atomic_write_text
 from ergodex.jsonable import jsonable
 from ergodex.validation.spec import CheckSpec
 
-SCORECARD_FORMAT = "ergodex-scorecard/1"
+SCORECARD_FORMAT = "ergodex-scorecard/2"
+#: Formats still read: a /1 scorecard was checked with the fixed tolerance (its spec, written
+#: before ``false_reject_rate`` existed, is read with ``false_reject_rate = None``).
+READABLE_SCORECARD_FORMATS = ("ergodex-scorecard/1", SCORECARD_FORMAT)
 
 
 def _finite_or_none(x):
@@ -76,7 +79,8 @@ class ScoreRow:
 class Scorecard:
     """The verdict of a check, with everything needed to repeat it.
 
-    JSON layout (``format = "ergodex-scorecard/1"``); non-finite numbers are written as null:
+    JSON layout (``format = "ergodex-scorecard/2"``; /1, without ``threshold``, is still read);
+    non-finite numbers are written as null:
 
     - ``verdict``: ``"pass"``, ``"fail"`` or ``"inconclusive"`` (the record cannot detect a
       ±50 % change of time scale or variance, is too short, or its runs disagree; not passed);
@@ -86,6 +90,9 @@ class Scorecard:
       ``record_decorrelation_times``, ``piece_decorrelation_times``, ``detectable``
       {time_scale, variance_up, variance_down: smallest rejected factor or null},
       ``required_factor``, ``sufficient``, ``reference_consistency``, ``method``.
+    - ``threshold``: how the threshold on the largest ratio was set (:mod:`ergodex.nullfloor`):
+      ``false_reject_rate`` (null: the fixed tolerance), ``threshold``, ``null_quantile``,
+      ``floor``, ``replicates``, ``block_samples``, ``null_median``, ``seed``, ``method``.
     - ``rows``: list of {statistic, variable, value, noise_floor, ratio, tolerance, verdict}.
     - ``blowups``: {count, members, times (time after spin-up; negative during spin-up),
       allowed_fraction}.
@@ -110,6 +117,7 @@ class Scorecard:
     ergodex_version: str
     settings: dict = field(default_factory=dict)
     power: dict = field(default_factory=dict)
+    threshold: dict = field(default_factory=dict)
 
     @property
     def passed(self) -> bool:
@@ -135,11 +143,12 @@ class Scorecard:
             "created": self.created,
             "ergodex_version": self.ergodex_version,
             "power": jsonable(self.power),
+            "threshold": jsonable(self.threshold),
         }
 
     @classmethod
     def from_dict(cls, d: dict, *, source: str = "scorecard") -> Scorecard:
-        if not isinstance(d, dict) or d.get("format") != SCORECARD_FORMAT:
+        if not isinstance(d, dict) or d.get("format") not in READABLE_SCORECARD_FORMATS:
             got = d.get("format") if isinstance(d, dict) else type(d).__name__
             raise ModelFileError(
                 f"{source}: not a scorecard of format {SCORECARD_FORMAT!r} (format: {got!r})"
@@ -151,13 +160,14 @@ class Scorecard:
                 reasons=list(d["reasons"]),
                 blowups=dict(d["blowups"]),
                 member_agreement=dict(d["member_agreement"]),
-                spec=CheckSpec.from_dict(d["spec"]),
+                spec=CheckSpec.from_dict(_spec_of(d)),
                 model_fingerprint=d["model_fingerprint"],
                 data_fingerprint=d["data_fingerprint"],
                 created=d["created"],
                 ergodex_version=d["ergodex_version"],
                 settings=dict(d.get("settings", {})),
                 power=dict(d.get("power") or {}),
+                threshold=dict(d.get("threshold") or {}),
             )
         except KeyError as exc:
             raise ModelFileError(f"{source}: missing key {exc.args[0]!r}") from None
@@ -210,6 +220,9 @@ class Scorecard:
             )
         b = self.blowups
         lines.append("")
+        line = threshold_line(self.threshold)
+        if line:
+            lines.append(line)
         lines.extend(power_lines(self.power))
         lines.append(f"blow-ups: {b.get('count', 0)} of {self.spec.members} members")
         m = self.member_agreement
@@ -235,6 +248,36 @@ class Scorecard:
         from ergodex.display import scorecard_html
 
         return scorecard_html(self)
+
+
+def _spec_of(d: dict) -> dict:
+    """The check settings of a scorecard dict; a /1 scorecard was checked with the fixed
+    tolerance, which its spec (written before ``false_reject_rate`` existed) does not say."""
+    spec = d["spec"]
+    if d.get("format") == "ergodex-scorecard/1" and isinstance(spec, dict):
+        spec = {"false_reject_rate": None, **spec}
+    return spec
+
+
+def threshold_line(threshold: dict) -> str | None:
+    """How the threshold on the largest ratio was set, in one line (None without the block)."""
+    if not threshold:
+        return None
+    value = _fmt(_none_to_nan(threshold.get("threshold")))
+    if threshold.get("false_reject_rate") is None:
+        return f"threshold: the fixed tolerance {value} on every row"
+    rate = 100 * float(threshold["false_reject_rate"])
+    floor = threshold.get("floor")
+    quantile = _none_to_nan(threshold.get("null_quantile"))
+    how = (
+        f"the floor {floor:g} (the bootstrap gave {_fmt(quantile)})"
+        if floor is not None and floor >= quantile
+        else f"the {100 - rate:g} % point of a right model's largest ratio"
+    )
+    return (
+        f"threshold {value} = {how}; targets a false-reject rate of {rate:g} % "
+        f"({threshold.get('replicates')} bootstrap replicates of the reference)"
+    )
 
 
 def power_lines(power: dict) -> list[str]:

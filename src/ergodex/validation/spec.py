@@ -10,6 +10,7 @@ import numpy as np
 from ergodex import stats
 from ergodex.check_names import ALL_STATISTICS, DEFAULT_STATISTICS, DEFAULT_TOLERANCE
 from ergodex.exceptions import SettingsError
+from ergodex.nullfloor import DEFAULT_FALSE_REJECT_RATE, DEFAULT_REPLICATES
 from ergodex.regimes import RegimeSet
 
 # DEFAULT_TOLERANCE, ALL_STATISTICS and DEFAULT_STATISTICS live in ergodex.check_names (imported
@@ -77,9 +78,23 @@ class CheckSpec:
         next (the ``residence`` and ``transitions`` rows), whatever ``statistics`` lists; False
         scores only the rows ``statistics`` names.
     tolerance : float, default :data:`DEFAULT_TOLERANCE`
-        Largest allowed ratio of model distance to noise floor, for every row.
+        With ``false_reject_rate`` None, the largest allowed ratio of model distance to noise
+        floor, for every row. Always the tolerance of member agreement and reference
+        consistency.
     tolerances : dict, optional
-        Per-statistic overrides, e.g. ``{"spectrum": 3.0}``.
+        Per-statistic overrides, e.g. ``{"spectrum": 3.0}``; a statistic named here keeps its
+        own tolerance and is left out of the family the threshold is derived for.
+    false_reject_rate : float or None, default 0.05
+        The threshold on the largest row ratio is the ``1 − false_reject_rate`` quantile of the
+        largest ratio of a right surrogate, from a block bootstrap of the reference
+        (:mod:`ergodex.nullfloor`): it follows the number of rows, their correlation and the
+        record. None (``"fixed"`` in settings files and on the command line): every row is
+        held to ``tolerance``.
+    null_replicates : int, default 40
+        Bootstrap replicates behind that threshold.
+    threshold_floor : float or None, default :data:`DEFAULT_TOLERANCE`
+        The smallest threshold the bootstrap may give (None or ``"none"``: no floor); see
+        ``benchmarks/README.md`` for the measurement behind the default.
     statistics : tuple of str
         Which rows to compute (see the module docstring).
     min_pieces : int, default 8
@@ -115,6 +130,9 @@ class CheckSpec:
     nperseg: int | None = None
     max_blowup_fraction: float = 0.0
     pool: int | None = None
+    false_reject_rate: float | None = DEFAULT_FALSE_REJECT_RATE
+    null_replicates: int = DEFAULT_REPLICATES
+    threshold_floor: float | None = DEFAULT_TOLERANCE
     persistence: bool = True
 
     def check_settings(self) -> None:
@@ -183,6 +201,15 @@ class CheckSpec:
             )
         if self.pool is not None:
             positive_int("pool", self.pool, 1)
+        if self.false_reject_rate is not None:
+            positive_float("false_reject_rate", self.false_reject_rate, allow_none=False)
+            if self.false_reject_rate >= 0.5:
+                raise SettingsError(
+                    f"false_reject_rate must be between 0 and 0.5 (or 'fixed' for the fixed "
+                    f"tolerance); got {self.false_reject_rate!r}"
+                )
+        positive_int("null_replicates", self.null_replicates, 10)
+        positive_float("threshold_floor", self.threshold_floor)
         if not isinstance(self.persistence, (bool, np.bool_)):
             raise SettingsError(f"persistence must be true or false; got {self.persistence!r}")
         if self.regimes is not None and not isinstance(self.regimes, RegimeSet):
@@ -208,6 +235,9 @@ class CheckSpec:
             "nperseg": self.nperseg,
             "max_blowup_fraction": float(self.max_blowup_fraction),
             "pool": None if self.pool is None else int(self.pool),
+            "false_reject_rate": _float_or_none(self.false_reject_rate),
+            "null_replicates": int(self.null_replicates),
+            "threshold_floor": _float_or_none(self.threshold_floor),
             "persistence": bool(self.persistence),
         }
 
@@ -228,6 +258,15 @@ class CheckSpec:
             kw["statistics"] = tuple(kw["statistics"])
         if "tolerances" in kw and kw["tolerances"] is None:
             kw["tolerances"] = {}
+        for key, word in (("false_reject_rate", "fixed"), ("threshold_floor", "none")):
+            if isinstance(kw.get(key), str):
+                if kw[key].strip().lower() != word:
+                    raise SettingsError(f"{key} must be a number or {word!r}; got {kw[key]!r}")
+                kw[key] = None
         spec = cls(**kw)
         spec.check_settings()
         return spec
+
+
+def _float_or_none(x) -> float | None:
+    return None if x is None else float(x)

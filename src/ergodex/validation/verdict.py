@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 
 import numpy as np
 
@@ -191,8 +191,12 @@ def _power(
     spec: CheckSpec,
     tau_d: float,
     gap: float,
+    tolerance_for: Callable[[str], float] | None = None,
 ) -> tuple[dict, list[str], dict]:
     """The power statement, the reasons the record is too weak, and the reference's consistency.
+
+    ``tolerance_for`` gives each statistic's threshold (default: the spec's fixed tolerances);
+    a change is detected when the check with those thresholds would reject it.
 
     See :mod:`ergodex.power` for the method (rescaled copies of the reference scored through
     the check's own rows; Bretherton et al. 1999 for the effective sample size it matches).
@@ -202,7 +206,13 @@ def _power(
     dt = settings.dt
     L = ref_pieces.shape[1]
     detect = pw.detectable_changes(
-        ref_pieces, groups, floor_index, group_stats, floors, settings, spec.tolerance_for
+        ref_pieces,
+        groups,
+        floor_index,
+        group_stats,
+        floors,
+        settings,
+        spec.tolerance_for if tolerance_for is None else tolerance_for,
     )
     record_time = float(sum(r.shape[0] for r in reference.runs) * dt)
     power, weak = pw.power_statement(
