@@ -7,7 +7,9 @@ all statistics). A PCA surrogate is compared in its model space (held-out runs m
 its own transform). Recipes: the command line's default method (``sparse``) on the leading
 modes, the linear inverse model, and the linear inverse model calibrated against the fit runs'
 statistics (``calibrated-linear-inverse``, ``homogeneous``: the domain is homogeneous, so the
-modes are Fourier pairs from all cyclic rotations). The control row: the true KS equations
+modes are Fourier pairs from all cyclic rotations); optionally a quadratic drift with white
+noise, with and without ``conserve_energy`` (the KS nonlinearity conserves ½Σu², and so does
+any orthonormal change of basis). The control row: the true KS equations
 written in the Fourier modes of the fit runs (exact quadratic coefficients; pseudo-spectral on
 the same 32-point grid as the data) with only the leading modes observed — the best any reduced
 model on those modes can do.
@@ -34,6 +36,14 @@ from ergodex.surrogate import Surrogate, polynomial_terms
 from ergodex.validation import CheckSpec, check
 
 LENGTH = 22.0
+RECIPES = (
+    "default",
+    "linear",
+    "calibrated",
+    "calibrated-plain",
+    "quadratic",
+    "quadratic-energy",
+)
 
 
 def true_equations_in_modes(fit_data, n_observed: int) -> Surrogate:
@@ -82,7 +92,7 @@ def main() -> None:
         "--recipes",
         nargs="*",
         default=["default", "linear", "calibrated"],
-        choices=["default", "linear", "calibrated", "calibrated-plain"],
+        choices=list(RECIPES),
     )
     parser.add_argument("--truth", action="store_true", help="also check the control row")
     parser.add_argument("--members", type=int, default=40)
@@ -94,6 +104,8 @@ def main() -> None:
     calibrated = {**linear, "members": args.members, "iterations": args.iterations}
     table = {
         "default": ("sparse", {"n_modes": args.modes}),
+        "quadratic": ("quadratic-noise", {"n_modes": args.modes}),
+        "quadratic-energy": ("quadratic-noise", {"n_modes": args.modes, "conserve_energy": True}),
         "linear": ("linear-inverse", linear),
         "calibrated": ("calibrated-linear-inverse", {**calibrated, "homogeneous": True}),
         "calibrated-plain": ("calibrated-linear-inverse", calibrated),

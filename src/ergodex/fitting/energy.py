@@ -105,9 +105,10 @@ def energy_preserving_regression(
         return (solution / scale[:, None]).T
     basis = null_space(constraints)  # (n · n_terms, k), orthonormal
     # Objective Σᵢ ξ̃ᵢᵀ G ξ̃ᵢ − 2 ξ̃ᵢᵀ rᵢ with vec(Ξ̃) = basis · η: block-diagonal G.
-    blocks = basis.reshape(n, n_terms, -1)
-    reduced = np.einsum("itk,ts,isl->kl", blocks, gram, blocks)
-    rhs = np.einsum("itk,ti->k", blocks, right)
+    k = basis.shape[1]
+    blocks = basis.reshape(n, n_terms, k)
+    reduced = basis.T @ (gram @ blocks).reshape(n * n_terms, k)  # Σᵢ Bᵢᵀ G Bᵢ
+    rhs = basis.T @ right.T.ravel()  # Σᵢ Bᵢᵀ rᵢ
     eta = np.linalg.lstsq(reduced, rhs, rcond=None)[0]
     scaled = (basis @ eta).reshape(n, n_terms)
     return scaled / scale[None, :]
