@@ -80,7 +80,9 @@ def verdict(surrogate, held_out, seed: int) -> tuple[str, bool]:
     worst = max(card.rows, key=lambda r: r.ratio) if card.rows else None
     what = f"{worst.statistic} {worst.variable}" if worst else "no rows"
     blow = f", {card.blowups['count']} blew up" if card.blowups["count"] else ""
-    return f"{card.verdict} {card.largest_ratio:.2f} ({what}{blow})", card.verdict == "pass"
+    ratio = card.largest_ratio
+    shown = f"{ratio:.2f}" if isinstance(ratio, float) and np.isfinite(ratio) else "—"
+    return f"{card.verdict} {shown} ({what}{blow})", card.verdict == "pass"
 
 
 def main() -> None:
