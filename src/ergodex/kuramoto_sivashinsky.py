@@ -12,7 +12,7 @@ small ``z``). The products ``u^2`` are taken on the grid (pseudo-spectral, not d
 spectrum at ``L = 22`` falls by many decades before the grid's last wavenumber). The Nyquist
 wavenumber's derivative is set to zero, as for any odd derivative on an even grid [3]_.
 
-With ``L = 22`` the flow is chaotic with a leading Lyapunov exponent near 0.04–0.05 [4]_; its
+With ``L = 22`` the flow is chaotic with a leading Lyapunov exponent near 0.048 [4]_; its
 spatial mean is conserved exactly (the ``k = 0`` mode has no linear part and no nonlinear
 forcing). The domain is homogeneous (every shift of ``x`` is a symmetry), so a reduced model may
 use Fourier modes.
@@ -270,7 +270,8 @@ def kuramoto_sivashinsky(
     length : float, default 22.0
         Domain length ``L``.
     n_points : int, default 32
-        Grid points (even); 32 resolve ``L = 22`` (Cvitanović et al. 2010 use 32 Fourier modes).
+        Grid points (even); 32 resolve ``L = 22`` (Cvitanović et al. 2010 use a
+        32-point truncation, from memory).
     step : float, default 0.125
         Largest ETDRK4 step.
 
