@@ -13,6 +13,7 @@ import numpy as np
 
 from ergodex.exceptions import DataError
 from ergodex.fitting.base import Fitter, _source, data_provenance
+from ergodex.fitting.energy import energy_preserving_regression
 from ergodex.fitting.reduction import reduce_series
 from ergodex.fitting.settings import Rule
 from ergodex.fitting.tendencies import (
@@ -74,6 +75,12 @@ class QuadraticNoiseModel(Fitter):
         Fit in the leading principal components.
     standardise : bool, default False
         Unit variance before the PCA.
+    conserve_energy : bool, default False
+        Constrain the degree-2 terms so that they conserve ``½ Σ xᵢ²`` (``Σᵢ xᵢ Qᵢ(x) = 0``
+        for every x; see :mod:`ergodex.fitting.energy`, Schlegel & Noack 2015): for modes of a
+        flow whose nonlinearity is advection, it keeps a quadratic model from feeding energy
+        into itself without bound. The energy is that of the fitted variables (the modes, with
+        ``n_modes``).
 
     Attributes
     ----------
@@ -99,6 +106,8 @@ class QuadraticNoiseModel(Fitter):
     processes: derivation and applications to climatic variability. J. Climate 18, 4404–4424.
     Kondrashov, D., Chekroun, M. D. & Ghil, M. (2015). Data-driven non-Markovian closure models.
     Physica D 297, 33–55.
+    Schlegel, M. & Noack, B. R. (2015). On long-term boundedness of Galerkin models. J. Fluid
+    Mech. 765, 325–352.
     """
 
     method = "quadratic-noise"
@@ -113,6 +122,7 @@ class QuadraticNoiseModel(Fitter):
             "int", low=1, allow_none=True, help="principal components kept (None: all variables)"
         ),
         "standardise": Rule("bool", help="unit variance before PCA"),
+        "conserve_energy": Rule("bool", help="quadratic terms conserve the energy sum x_i^2 / 2"),
     }
 
     def __init__(
@@ -124,6 +134,7 @@ class QuadraticNoiseModel(Fitter):
         differentiation: str = "forward",
         n_modes: int | None = None,
         standardise: bool = False,
+        conserve_energy: bool = False,
     ) -> None:
         self.degree = degree
         self.ridge = ridge
@@ -131,6 +142,7 @@ class QuadraticNoiseModel(Fitter):
         self.differentiation = differentiation
         self.n_modes = n_modes
         self.standardise = standardise
+        self.conserve_energy = conserve_energy
 
     def _fit(self, series) -> None:
         from ergodex.surrogate import Surrogate, polynomial_terms
@@ -165,7 +177,10 @@ class QuadraticNoiseModel(Fitter):
         Y_all = np.concatenate([p[1] for p in pieces])
         Theta = evaluate_terms(terms, X_all)
         check_library_rank(Theta, labels, what=_source(series))
-        coefficients = ridge_regression(Theta, Y_all, self.ridge)
+        if self.conserve_energy:
+            coefficients = energy_preserving_regression(Theta, Y_all, terms, self.ridge)
+        else:
+            coefficients = ridge_regression(Theta, Y_all, self.ridge)
         fitted = Theta @ coefficients.T
         residual = Y_all - fitted
         residual_cov = np.atleast_2d(np.cov(residual.T))
