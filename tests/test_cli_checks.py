@@ -148,7 +148,7 @@ def test_threshold_options_reach_the_scorecard(ou_files, tmp_path):
     card = tmp_path / "card.json"
     common = ["validate", str(ou_files / "true.json"), str(ou_files / "data.csv"), "--quiet"]
     common += ["--members", "4", "--json", str(card)]
-    main([*common, "--threshold-floor", "none"])
+    main([*common, "--false-reject-rate", "0.05", "--threshold-floor", "none"])
     d = json.loads(card.read_text())
     assert d["format"] == "ergodex-scorecard/2"
     assert d["spec"]["threshold_floor"] is None and d["threshold"]["floor"] is None

@@ -38,9 +38,10 @@ def test_check_spec_defaults_as_documented():
     assert spec.min_pieces == 8 and spec.max_blowup_fraction == 0.0
     assert spec.tolerance == validation.DEFAULT_TOLERANCE
     assert spec.tolerances == {} and spec.regimes is None
-    # CheckSpec docstring: false_reject_rate 0.05, null_replicates 40, threshold_floor
-    # DEFAULT_TOLERANCE (benchmarks/README.md, the derived-threshold section, keeps the floor)
-    assert spec.false_reject_rate == 0.05 and spec.null_replicates == 40
+    # CheckSpec docstring: false_reject_rate None (the fixed tolerance; the derived threshold is
+    # opt-in), null_replicates 40, threshold_floor DEFAULT_TOLERANCE (benchmarks/README.md, the
+    # derived-threshold section, keeps the floor)
+    assert spec.false_reject_rate is None and spec.null_replicates == 40
     assert spec.threshold_floor == validation.DEFAULT_TOLERANCE
     for derived in ("length", "spinup", "max_lag", "gap", "nperseg", "pool"):
         assert getattr(spec, derived) is None

@@ -42,6 +42,7 @@ def _copies(series: Series, k: int) -> Series:
 
 
 def _spec(**kw) -> CheckSpec:
+    kw.setdefault("false_reject_rate", 0.05)
     return CheckSpec(seed=1, members=8, threshold_floor=None, null_replicates=20, **kw)
 
 
@@ -80,7 +81,9 @@ def test_independent_variables_raise_the_threshold():
 
 def test_the_threshold_is_stated_on_the_scorecard_and_survives_json(tmp_path):
     card = validation.validate(
-        scenarios.ou_surrogate(DRIFT, NOISE), _ou(5), CheckSpec(seed=2, members=8)
+        scenarios.ou_surrogate(DRIFT, NOISE),
+        _ou(5),
+        CheckSpec(seed=2, members=8, false_reject_rate=0.05),
     )
     th = card.threshold
     assert th["false_reject_rate"] == 0.05 and th["replicates"] == 40

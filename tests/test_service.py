@@ -506,7 +506,9 @@ def test_a_check_on_a_record_too_short_to_tell_is_inconclusive_through_the_servi
             "name": "short-record",
             "version": 1,
             "dataset": short.json()["id"],
-            "check": {"members": 8, "seed": 3},
+            # the threshold from the record's own null distribution (opt-in): with the fixed
+            # tolerance a record this short can also fail the true equations on a noisy row
+            "check": {"members": 8, "seed": 3, "false_reject_rate": 0.05},
         },
         headers=auth(),
     )

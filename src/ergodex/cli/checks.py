@@ -185,8 +185,9 @@ def add_check_options(
         type=_rate,
         default=None,
         metavar="P|fixed",
-        help="the threshold on the largest row ratio is the 1-P point of a right model's, from "
-        "a bootstrap of the reference (default 0.05); 'fixed': --tolerance for every row",
+        help="'fixed' (default): --tolerance for every row; P (e.g. 0.05): the threshold on the "
+        "largest row ratio is the 1-P point of a right model's, from a bootstrap of the "
+        "reference (slower: it replays the check)",
     )
     group.add_argument(
         "--null-replicates",
