@@ -531,7 +531,6 @@ def _settings(
         else "data space",
         "hidden_variables": [v for v in surrogate.variables if v not in space.observed],
         "distance_units": distance_units(plan.statistics, time_unit),
-        **({"gap_note": plan.gap_note} if plan.gap_note else {}),
     }
 
 

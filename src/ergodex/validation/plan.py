@@ -15,7 +15,7 @@ is compared. Gaps and spin-up of envelope length were tried and measured: on the
 loop (Lorenz-63, whose ``dT_up`` keeps its phase for ~4.4 time units at a period of 0.76) they
 left a 120-time-unit reference too few pieces to detect a time-scale change ×1.5, so a correct
 surrogate came out inconclusive; they stay on the integrated time until the power statement can
-use overlapping pieces. (:func:`_gap` keeps the fallback for an explicit longer time.)
+use overlapping pieces.
 """
 
 from __future__ import annotations
@@ -58,7 +58,6 @@ class CheckPlan:
     ``decorrelation_time`` the longest integrated time (at least one sampling interval), from
     which the unset gap and spin-up follow; the lag window covers 3 integrated times and one
     dominant period, the Welch segment 4 dominant periods and 2 decorrelation times.
-    ``gap_note`` says why the gap is shorter than the default rule, if it is.
     """
 
     pieces: PieceSettings
@@ -72,7 +71,6 @@ class CheckPlan:
     pool: int
     n_out: int
     piece_info: dict[str, Any] = field(default_factory=dict, hash=False)
-    gap_note: str | None = None
 
     @property
     def dt(self) -> float:
@@ -111,20 +109,11 @@ def derive_plan(spec: CheckSpec, reference, stacked: np.ndarray) -> tuple[CheckP
 
     tau = np.atleast_1d(stats.integrated_autocorrelation_time(list(reference.runs), dt))
     scales = oscillation_time_scales(list(reference.runs), dt)
-    tau_d = float(max(np.max(tau), dt))  # gaps and spin-up: see the module docstring
+    # gaps and spin-up follow the integrated time (see the module docstring)
+    tau_d = tau_int = float(max(np.max(tau), dt))
     period = scales.dominant_period
-    tau_int = float(max(np.max(tau), dt))
-    gap, gap_note = _gap(spec, tau_d, tau_int)
-    try:
-        ref_pieces, piece_info = _reference_pieces(reference, spec.min_pieces, gap)
-    except DataError:
-        if gap_note is None:
-            raise
-        # the envelope gap does not fit the record: the integrated-time gap, said so
-        gap = _GAP_TIMES * float(max(np.max(tau), dt))
-        ref_pieces, piece_info = _reference_pieces(reference, spec.min_pieces, gap)
-    else:
-        gap_note = None
+    gap = _GAP_TIMES * tau_d if spec.gap is None else float(spec.gap)
+    ref_pieces, piece_info = _reference_pieces(reference, spec.min_pieces, gap)
     L = ref_pieces.shape[1]
     if spec.max_lag is None:
         max_lag_time = max(_LAG_TIMES * tau_int, _PERIODS_IN_LAG * (period or 0.0))
@@ -181,25 +170,5 @@ def derive_plan(spec: CheckSpec, reference, stacked: np.ndarray) -> tuple[CheckP
         pool=int(pool),
         n_out=int(n_out),
         piece_info=piece_info,
-        gap_note=gap_note,
     )
     return plan, ref_pieces
-
-
-def _gap(spec: CheckSpec, tau_d: float, tau_int: float) -> tuple[float, str | None]:
-    """The gap between blocks of one run, and the note to give if it must fall back.
-
-    The default is :data:`_GAP_TIMES` decorrelation times; when that is longer than the
-    integrated-time rule (an oscillating record) and the record cannot hold it, the check falls
-    back to the integrated-time gap and says so (``settings["gap_note"]``).
-    """
-    if spec.gap is not None:
-        return float(spec.gap), None
-    gap = _GAP_TIMES * tau_d
-    if tau_d <= tau_int:
-        return gap, None
-    return gap, (
-        f"the record is too short for gaps of {gap:.3g} time units ({_GAP_TIMES:g} envelope "
-        f"times) between its blocks; gaps of {_GAP_TIMES * tau_int:.3g} ({_GAP_TIMES:g} "
-        f"integrated autocorrelation times) were used, so neighbouring pieces still share phase"
-    )

@@ -104,8 +104,8 @@ class CheckSpec:
         Fewest reference pieces for a noise floor; runs are split into blocks when there are
         fewer runs.
     gap : float, optional
-        Time left out between blocks of one run; default 5 decorrelation times (5 integrated
-        times when the record cannot hold envelope gaps; ``settings["gap_note"]`` says so).
+        Time left out between blocks of one run; default 5 decorrelation times (integrated
+        autocorrelation times).
     nperseg : int, optional
         Welch segment length in samples; default ``min(256, piece length // 8)``, raised to
         cover 4 dominant periods and 2 decorrelation times up to ``piece length // 8``.
